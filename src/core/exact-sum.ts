@@ -1,0 +1,413 @@
+/**
+ * Exact sums of doubles, and the moments (n, Σx, Σx²) built on them.
+ *
+ * A value is held as a floating-point expansion: a list of doubles, non-overlapping and in increasing
+ * magnitude, whose exact (unrounded) sum is the value. The primitives are the error-free
+ * transformations of Shewchuk, "Adaptive Precision Floating-Point Arithmetic and Fast Robust
+ * Geometric Predicates" (Discrete & Computational Geometry 18, 1997): two-sum, fast-two-sum,
+ * two-product through Veltkamp/Dekker splitting, grow-expansion, scale-expansion and compress, all
+ * with zero elimination.
+ *
+ * Why exact: the manifest must be byte-identical whatever the thread count, chunking or memory
+ * budget. Welford updates and Chan-Golub-LeVeque merges round at every step, so their last bits
+ * depend on the order in which chunks meet. An exact sum has no order at all: merging is adding
+ * expansions, which is associative and commutative, and `approx()` rounds the exact value
+ * correctly (to nearest, ties to even), so the double it returns depends on the value only, never
+ * on how the value was reached.
+ *
+ * Range: two-product is exact while |x·y| stays well inside the double range (|x|, |y| < 2^996 for
+ * the split, no overflow of the product) and its rounding error is not subnormal (|x·y| > 2^-969
+ * or so). Below that the low part loses bits, but deterministically per value, so results stay
+ * order-independent. Callers that may see huge values (see ExactMoments) must guard them.
+ */
+
+/** 2^27 + 1: Veltkamp's constant that splits a 53-bit significand into two 26-bit halves. */
+const SPLITTER = 134217729;
+
+/** Grow the expansion past this many terms, then compress it back (usually to 2 or 3 terms). */
+const COMPRESS_AT = 12;
+
+export class ExactSum {
+  /** Terms, increasing magnitude, non-overlapping, no zeros. Only the first `m` are live. */
+  private t: Float64Array;
+  private m = 0;
+
+  constructor(capacity = 16) {
+    this.t = new Float64Array(Math.max(4, capacity));
+  }
+
+  /** Number of live terms (after zero elimination; not canonical, see `terms()`). */
+  get length(): number {
+    return this.m;
+  }
+
+  /** True when the exact value is zero. */
+  isZero(): boolean {
+    return this.m === 0;
+  }
+
+  /** Adds x exactly (Shewchuk's grow-expansion with zero elimination, in place). */
+  add(x: number): this {
+    if (x === 0) return this;
+    if (this.m + 1 > this.t.length) this.growCapacity(this.m + 1);
+    const t = this.t;
+    const m = this.m;
+    let q = x;
+    let k = 0;
+    for (let i = 0; i < m; i++) {
+      const e = t[i]!;
+      // two-sum(q, e) = (s, err) with s + err === q + e exactly
+      const s = q + e;
+      const bv = s - q;
+      const err = q - (s - bv) + (e - bv);
+      q = s;
+      if (err !== 0) t[k++] = err;
+    }
+    if (q !== 0) t[k++] = q;
+    this.m = k;
+    if (k > COMPRESS_AT) this.compress();
+    return this;
+  }
+
+  /** Adds the exact product x·y (two-product: the rounded product plus its exact rounding error). */
+  addProduct(x: number, y: number): this {
+    const p = x * y;
+    let c = SPLITTER * x;
+    const xhi = c - (c - x);
+    const xlo = x - xhi;
+    c = SPLITTER * y;
+    const yhi = c - (c - y);
+    const ylo = y - yhi;
+    const err = xlo * ylo - (p - xhi * yhi - xlo * yhi - xhi * ylo);
+    this.add(err);
+    this.add(p);
+    return this;
+  }
+
+  /** Adds x² exactly (two-product specialised to a square: one split instead of two). */
+  addSquare(x: number): this {
+    const p = x * x;
+    const c = SPLITTER * x;
+    const hi = c - (c - x);
+    const lo = x - hi;
+    const err = lo * lo - (p - hi * hi - (hi + hi) * lo);
+    this.add(err);
+    this.add(p);
+    return this;
+  }
+
+  /** Adds another expansion's value exactly. The other is left unchanged. */
+  merge(other: ExactSum): this {
+    const o = other.t;
+    // Smallest first: the small terms settle at the bottom, which keeps the result short.
+    for (let i = 0, n = other.m; i < n; i++) this.add(o[i]!);
+    return this;
+  }
+
+  /** Subtracts another expansion's value exactly. */
+  subtract(other: ExactSum): this {
+    const o = other.t;
+    for (let i = 0, n = other.m; i < n; i++) this.add(-o[i]!);
+    return this;
+  }
+
+  /** Flips the sign, exactly. */
+  negate(): this {
+    for (let i = 0; i < this.m; i++) this.t[i] = -this.t[i]!;
+    return this;
+  }
+
+  /**
+   * Multiplies by the double b exactly, in place (scale-expansion with zero elimination). b is
+   * typically an integer count; any finite double inside the two-product range works.
+   */
+  scale(b: number): this {
+    const m = this.m;
+    if (m === 0) return this;
+    if (b === 0) {
+      this.m = 0;
+      return this;
+    }
+    const e = this.t.slice(0, m);
+    if (2 * m > this.t.length) this.growCapacity(2 * m);
+    const h = this.t;
+    let c = SPLITTER * b;
+    const bhi = c - (c - b);
+    const blo = b - bhi;
+    let k = 0;
+    // two-product(e[0], b)
+    let a = e[0]!;
+    let q = a * b;
+    c = SPLITTER * a;
+    let ahi = c - (c - a);
+    let alo = a - ahi;
+    let hh = alo * blo - (q - ahi * bhi - alo * bhi - ahi * blo);
+    if (hh !== 0) h[k++] = hh;
+    for (let i = 1; i < m; i++) {
+      a = e[i]!;
+      const p1 = a * b;
+      c = SPLITTER * a;
+      ahi = c - (c - a);
+      alo = a - ahi;
+      const p0 = alo * blo - (p1 - ahi * bhi - alo * bhi - ahi * blo);
+      // two-sum(q, p0)
+      const s = q + p0;
+      let bv = s - q;
+      hh = q - (s - bv) + (p0 - bv);
+      if (hh !== 0) h[k++] = hh;
+      // fast-two-sum(p1, s): |p1| >= |s| holds here (Shewchuk, Theorem 19)
+      q = p1 + s;
+      bv = q - p1;
+      hh = s - bv;
+      if (hh !== 0) h[k++] = hh;
+    }
+    if (q !== 0) h[k++] = q;
+    this.m = k;
+    if (k > COMPRESS_AT) this.compress();
+    return this;
+  }
+
+  /** Returns a new expansion holding the exact product of this and other. */
+  multiply(other: ExactSum): ExactSum {
+    const out = new ExactSum(Math.max(16, 2 * this.m + 2));
+    const part = new ExactSum(2 * this.m + 2);
+    const o = other.t;
+    for (let j = 0; j < other.m; j++) {
+      part.setFrom(this);
+      part.scale(o[j]!);
+      out.merge(part);
+    }
+    return out.compress();
+  }
+
+  /** Copies another expansion's terms into this one. */
+  setFrom(other: ExactSum): this {
+    if (other.m > this.t.length) this.growCapacity(other.m);
+    this.t.set(other.t.subarray(0, other.m));
+    this.m = other.m;
+    return this;
+  }
+
+  /** Independent copy. */
+  clone(): ExactSum {
+    return new ExactSum(this.m + 4).setFrom(this);
+  }
+
+  /** Sets the value to zero. */
+  clear(): this {
+    this.m = 0;
+    return this;
+  }
+
+  /**
+   * Shewchuk's Compress: same value, fewer terms (the largest term then approximates the value to
+   * within about one unit in the last place). Representation only; the value does not change.
+   */
+  compress(): this {
+    const m = this.m;
+    if (m <= 1) return this;
+    const e = this.t;
+    const g = new Float64Array(m);
+    let bottom = m - 1;
+    let q = e[m - 1]!;
+    for (let i = m - 2; i >= 0; i--) {
+      const enow = e[i]!;
+      const qn = q + enow;
+      const small = enow - (qn - q);
+      if (small !== 0) {
+        g[bottom--] = qn;
+        q = small;
+      } else {
+        q = qn;
+      }
+    }
+    g[bottom] = q;
+    let top = 0;
+    for (let i = bottom + 1; i < m; i++) {
+      const gnow = g[i]!;
+      const qn = gnow + q;
+      const small = q - (qn - gnow);
+      if (small !== 0) e[top++] = small;
+      q = qn;
+    }
+    if (q !== 0) e[top++] = q;
+    this.m = top;
+    return this;
+  }
+
+  /**
+   * The value rounded to the nearest double, ties to even. This depends on the exact value only,
+   * not on its representation, which is what makes merged results bit-identical. Same rounding
+   * walk as the one used for correctly rounded summation over non-overlapping partials
+   * (largest term down; at the first inexact step, fix up a half-way case using the sign of the
+   * terms below).
+   */
+  approx(): number {
+    let n = this.m;
+    if (n === 0) return 0;
+    const p = this.t;
+    let hi = p[--n]!;
+    let lo = 0;
+    while (n > 0) {
+      const x = hi;
+      const y = p[--n]!;
+      hi = x + y;
+      const yr = hi - x;
+      lo = y - yr;
+      if (lo !== 0) break;
+    }
+    if (n > 0 && ((lo < 0 && p[n - 1]! < 0) || (lo > 0 && p[n - 1]! > 0))) {
+      const y = lo * 2;
+      const x = hi + y;
+      const yr = x - hi;
+      if (y === yr) hi = x;
+    }
+    return hi;
+  }
+
+  /**
+   * The canonical terms of the value, largest first: each is the correctly rounded value of what
+   * the previous ones leave over. Equal values give equal arrays whatever their history, so these
+   * serialise deterministically.
+   */
+  terms(): number[] {
+    const out: number[] = [];
+    const rest = this.clone().compress();
+    while (!rest.isZero()) {
+      const r = rest.approx();
+      out.push(r);
+      rest.add(-r);
+      rest.compress();
+    }
+    return out;
+  }
+
+  /** Rebuilds an expansion from any list of doubles whose exact sum is the value. */
+  static fromTerms(terms: ArrayLike<number>): ExactSum {
+    const s = new ExactSum(terms.length + 4);
+    for (let i = terms.length - 1; i >= 0; i--) s.add(terms[i]!);
+    return s;
+  }
+
+  toJSON(): number[] {
+    return this.terms();
+  }
+
+  static fromJSON(terms: ArrayLike<number>): ExactSum {
+    return ExactSum.fromTerms(terms);
+  }
+
+  private growCapacity(need: number): void {
+    let cap = this.t.length * 2;
+    while (cap < need) cap *= 2;
+    const nt = new Float64Array(cap);
+    nt.set(this.t.subarray(0, this.m));
+    this.t = nt;
+  }
+}
+
+// --- moments ---------------------------------------------------------------------------------
+
+/** Serialised ExactMoments: plain numbers only, safe for postMessage and JSON. */
+export interface SerializedMoments {
+  n: number;
+  s1: number[];
+  s2: number[];
+}
+
+/**
+ * Count, Σx and Σx², all exact. Merging adds the three, so any split of the data merged in any
+ * order yields the same state and the same mean/variance bits.
+ */
+export class ExactMoments {
+  n = 0;
+  readonly s1 = new ExactSum();
+  readonly s2 = new ExactSum();
+
+  add(x: number): this {
+    this.n++;
+    this.s1.add(x);
+    this.s2.addSquare(x);
+    return this;
+  }
+
+  merge(other: ExactMoments): this {
+    this.n += other.n;
+    this.s1.merge(other.s1);
+    this.s2.merge(other.s2);
+    return this;
+  }
+
+  /** approx(Σx) / n; NaN when empty. */
+  mean(): number {
+    return this.n === 0 ? NaN : this.s1.approx() / this.n;
+  }
+
+  /**
+   * Sample variance (n − 1 denominator): the numerator n·Σx² − (Σx)² is formed exactly and
+   * rounded once, then divided by n(n − 1). NaN for fewer than two values.
+   */
+  variance(): number {
+    const n = this.n;
+    if (n < 2) return NaN;
+    const num = this.s2.clone().scale(n).subtract(this.s1.multiply(this.s1));
+    // The exact numerator is >= 0 (Cauchy-Schwarz); the rounded one cannot be negative either.
+    return num.approx() / (n * (n - 1));
+  }
+
+  /** Sample standard deviation, sqrt(variance()). */
+  sd(): number {
+    return Math.sqrt(this.variance());
+  }
+
+  toJSON(): SerializedMoments {
+    return { n: this.n, s1: this.s1.terms(), s2: this.s2.terms() };
+  }
+
+  static fromJSON(s: SerializedMoments): ExactMoments {
+    const m = new ExactMoments();
+    m.n = s.n;
+    m.s1.setFrom(ExactSum.fromTerms(s.s1));
+    m.s2.setFrom(ExactSum.fromTerms(s.s2));
+    return m;
+  }
+}
+
+// --- classic streaming moments, for comparison ---------------------------------------------------
+
+/** Count, mean and M2 = Σ(x − mean)², as kept by Welford's update. */
+export interface RunningMoments {
+  n: number;
+  mean: number;
+  m2: number;
+}
+
+/**
+ * Welford's one-value update (Welford 1962, Technometrics 4(3):419-420), in place. Accurate, but its
+ * rounding depends on the order of the values; rowdeck's manifests use ExactMoments instead.
+ */
+export function welfordAdd(s: RunningMoments, x: number): RunningMoments {
+  s.n += 1;
+  const d = x - s.mean;
+  s.mean += d / s.n;
+  s.m2 += d * (x - s.mean);
+  return s;
+}
+
+/**
+ * Chan, Golub & LeVeque's pairwise merge (STAN-CS-79-773, 1979). Returns a new state. Not
+ * associative in floating point: merging the same chunks in another order changes the last bits.
+ */
+export function chanMerge(a: RunningMoments, b: RunningMoments): RunningMoments {
+  const n = a.n + b.n;
+  if (n === 0) return { n: 0, mean: 0, m2: 0 };
+  if (a.n === 0) return { ...b };
+  if (b.n === 0) return { ...a };
+  const d = b.mean - a.mean;
+  return { n, mean: a.mean + (d * b.n) / n, m2: a.m2 + b.m2 + (d * d * a.n * b.n) / n };
+}
+
+/** Sample variance from a running state (M2 / (n − 1)); NaN for fewer than two values. */
+export function computeRunningVariance(s: RunningMoments): number {
+  return s.n < 2 ? NaN : s.m2 / (s.n - 1);
+}

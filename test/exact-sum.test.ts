@@ -1,0 +1,175 @@
+import { describe, expect, it } from 'vitest';
+import seedrandom from 'seedrandom';
+import { ExactSum, ExactMoments } from '../src/core/exact-sum.js';
+
+// Reference arithmetic: every double is an integer multiple of 2^-1074, so scaling by 2^K with a
+// large K turns sums and products into exact BigInt arithmetic. BigInt -> Number conversion is
+// specified to round to nearest, ties to even (ECMA-262, "Number(value)" on a BigInt), which gives
+// an independent correctly rounded reference.
+const K = 1200n; // scale for sums; products use 2K
+
+const f64 = new Float64Array(1);
+const u64 = new BigUint64Array(f64.buffer);
+
+/** x · 2^k as an exact BigInt (x must be finite and x · 2^k an integer). */
+function toScaledBig(x: number, k: bigint): bigint {
+  f64[0] = x;
+  const bits = u64[0]!;
+  const sign = bits >> 63n ? -1n : 1n;
+  const exp = Number((bits >> 52n) & 0x7ffn);
+  const frac = bits & ((1n << 52n) - 1n);
+  const mant = exp === 0 ? frac : frac | (1n << 52n);
+  const e = BigInt(exp === 0 ? -1074 : exp - 1075) + k;
+  if (e < 0n) throw new Error('scale too small');
+  return sign * (mant << e);
+}
+
+/** Correctly rounded double of v / 2^k (result assumed normal). */
+function roundScaledBig(v: bigint, k: bigint): number {
+  if (v === 0n) return 0;
+  const neg = v < 0n;
+  let a = neg ? -v : v;
+  let shift = BigInt(a.toString(2).length) - 64n;
+  if (shift > 0n) {
+    const sticky = (a & ((1n << shift) - 1n)) !== 0n ? 1n : 0n;
+    a = (a >> shift) | sticky; // 64 bits + sticky decide round-to-nearest-even correctly
+  } else shift = 0n;
+  let r = Number(a); // rounds to 53 bits, ties to even
+  let e = Number(shift - k);
+  while (e > 0) { const s = Math.min(e, 1000); r *= 2 ** s; e -= s; }
+  while (e < 0) { const s = Math.min(-e, 1000); r *= 2 ** -s; e += s; }
+  return neg ? -r : r;
+}
+
+function sumOf(e: ExactSum, k: bigint): bigint {
+  return e.terms().reduce((acc, t) => acc + toScaledBig(t, k), 0n);
+}
+
+/** Random doubles over a wide range of exponents, plus powers of two that create ties. */
+function makeValues(rng: () => number, count: number): number[] {
+  const out: number[] = [];
+  for (let i = 0; i < count; i++) {
+    const kind = rng();
+    const sign = rng() < 0.5 ? -1 : 1;
+    if (kind < 0.4) out.push(sign * rng() * 2 ** Math.floor(rng() * 200 - 100));
+    else if (kind < 0.7) out.push(sign * 2 ** Math.floor(rng() * 120 - 60));
+    else out.push(sign * (1 + Math.floor(rng() * 2 ** 20)) * 2 ** Math.floor(rng() * 40 - 20));
+  }
+  return out;
+}
+
+describe('ExactSum against exact BigInt arithmetic', () => {
+  it('add(): approx() is the correctly rounded sum, for 300 random lists', () => {
+    const rng = seedrandom('exact-sum-add');
+    for (let trial = 0; trial < 300; trial++) {
+      const xs = makeValues(rng, 1 + Math.floor(rng() * 60));
+      const s = new ExactSum(4);
+      let ref = 0n;
+      for (const x of xs) {
+        s.add(x);
+        ref += toScaledBig(x, K);
+      }
+      expect(sumOf(s, K)).toBe(ref);
+      expect(Object.is(s.approx(), roundScaledBig(ref, K))).toBe(true);
+    }
+  });
+
+  it('approx() breaks exact ties to even and nudges near-ties the right way', () => {
+    const u = 2 ** -53; // half an ulp of 1
+    // 1 + 2^-53 is a tie between 1 and 1 + 2^-52: even wins (1).
+    expect(new ExactSum().add(1).add(u).approx()).toBe(1);
+    // A tiny extra push above the tie rounds up; below it rounds down.
+    expect(new ExactSum().add(1).add(u).add(2 ** -200).approx()).toBe(1 + 2 ** -52);
+    expect(new ExactSum().add(1).add(u).add(-(2 ** -200)).approx()).toBe(1);
+    // (1 + 2^-52) + 2^-53 is a tie whose even neighbour is above.
+    expect(new ExactSum().add(1 + 2 ** -52).add(u).approx()).toBe(1 + 2 ** -51);
+    // Plain double addition would give 1 + 2^-52 here, rounding twice.
+    const naive = 1 + u + 2 ** -200;
+    expect(naive).toBe(1);
+  });
+
+  it('addProduct(), addSquare(), scale(), multiply(), subtract() are exact', () => {
+    const rng = seedrandom('exact-sum-products');
+    for (let trial = 0; trial < 200; trial++) {
+      const xs = makeValues(rng, 1 + Math.floor(rng() * 20));
+      const ys = makeValues(rng, xs.length);
+      const prod = new ExactSum();
+      const sq = new ExactSum();
+      let refProd = 0n;
+      let refSq = 0n;
+      for (let i = 0; i < xs.length; i++) {
+        const x = xs[i]!;
+        const y = ys[i]!;
+        prod.addProduct(x, y);
+        sq.addSquare(x);
+        refProd += toScaledBig(x, K) * toScaledBig(y, K);
+        refSq += toScaledBig(x, K) ** 2n;
+      }
+      expect(sumOf(prod, 2n * K)).toBe(refProd);
+      expect(sumOf(sq, 2n * K)).toBe(refSq);
+      expect(Object.is(prod.approx(), roundScaledBig(refProd, 2n * K))).toBe(true);
+
+      const a = ExactSum.fromTerms(xs);
+      const b = ExactSum.fromTerms(ys);
+      const refA = xs.reduce((acc, x) => acc + toScaledBig(x, K), 0n);
+      const refB = ys.reduce((acc, y) => acc + toScaledBig(y, K), 0n);
+      const n = 1 + Math.floor(rng() * 2 ** 40);
+      expect(sumOf(a.clone().scale(n), K)).toBe(refA * BigInt(n));
+      expect(sumOf(a.multiply(b), 2n * K)).toBe(refA * refB);
+      expect(sumOf(a.clone().subtract(b), K)).toBe(refA - refB);
+      expect(sumOf(a.clone().negate(), K)).toBe(-refA);
+    }
+  });
+
+  it('merge() in any order gives the same canonical terms and the same approx() bits', () => {
+    const rng = seedrandom('exact-sum-merge');
+    const xs = makeValues(rng, 500);
+    const whole = new ExactSum();
+    for (const x of xs) whole.add(x);
+    for (let trial = 0; trial < 20; trial++) {
+      const parts: ExactSum[] = [];
+      let i = 0;
+      while (i < xs.length) {
+        const len = 1 + Math.floor(rng() * 60);
+        const p = new ExactSum();
+        for (const x of xs.slice(i, i + len)) p.add(x);
+        parts.push(p);
+        i += len;
+      }
+      parts.sort(() => rng() - 0.5);
+      const merged = new ExactSum();
+      for (const p of parts) merged.merge(p);
+      expect(merged.terms()).toEqual(whole.terms());
+      expect(Object.is(merged.approx(), whole.approx())).toBe(true);
+      expect(ExactSum.fromJSON(JSON.parse(JSON.stringify(merged)) as number[]).terms()).toEqual(whole.terms());
+    }
+  });
+
+  it('cancellation to exactly zero leaves an empty expansion', () => {
+    const s = new ExactSum().add(1e300).add(1).add(-1e300).add(-1);
+    expect(s.isZero()).toBe(true);
+    expect(s.approx()).toBe(0);
+    expect(s.terms()).toEqual([]);
+  });
+});
+
+describe('ExactMoments', () => {
+  it('variance equals the exact rational variance, rounded, for small integer data', () => {
+    // Integers: Σx and Σx² are exact in BigInt; variance numerator n·Σx² − (Σx)² checked exactly.
+    const xs = [3, 1, 4, 1, 5, 9, 2, 6, 5, 3, 5];
+    const m = new ExactMoments();
+    for (const x of xs) m.add(x);
+    const n = BigInt(xs.length);
+    const s1 = xs.reduce((a, x) => a + BigInt(x), 0n);
+    const s2 = xs.reduce((a, x) => a + BigInt(x) ** 2n, 0n);
+    const num = n * s2 - s1 * s1;
+    expect(m.variance()).toBe(Number(num) / Number(n * (n - 1n)));
+    expect(m.mean()).toBe(Number(s1) / xs.length);
+  });
+
+  it('fewer than two values give NaN variance; empty gives NaN mean', () => {
+    expect(Number.isNaN(new ExactMoments().mean())).toBe(true);
+    expect(Number.isNaN(new ExactMoments().add(4).variance())).toBe(true);
+    expect(new ExactMoments().add(4).mean()).toBe(4);
+  });
+});
