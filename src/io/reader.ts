@@ -4,8 +4,19 @@
  */
 
 import { FieldKind } from './batch.js';
+import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRecord } from './batch.js';
+import { RowdeckError, where } from '../errors.js';
+import type { RowdeckErrorCode } from '../errors.js';
 
+const LF = 0x0a;
+const CR = 0x0d;
 const QUOTE = 0x22;
+const BACKSLASH = 0x5c;
+
+/** A quoted field still open after this many bytes is reported as unterminated instead of buffered on. */
+export const MAX_RECORD_BYTES = 64 * 1024 * 1024;
+/** Rejected records are handed over cut to this many bytes. */
+const REJECT_BYTES_CAP = 64 * 1024;
 
 /**
  * Locates every field of one CSV/TSV record's content `[start, end)` (no line terminator),
@@ -62,4 +73,688 @@ export function splitRecordFields(
 export function decodeCsvQuoted(buf: Buffer, start: number, end: number): string {
   const s = end - start >= 2 && buf[start] === QUOTE && buf[end - 1] === QUOTE ? buf.toString('utf8', start + 1, end - 1) : buf.toString('utf8', start, end);
   return s.includes('"') ? s.replaceAll('""', '"') : s;
+}
+
+export interface RecordReaderOptions {
+  format: InputFormat;
+  /** One character (one byte); default ',' for csv, '\t' for tsv. */
+  delimiter?: string;
+  /** csv/tsv: the first record is the header; false names the columns column_1…column_N. */
+  header: boolean;
+  /** Column names whose fields are located in every record. */
+  wanted: string[];
+  /** Name used in messages ('<stdin>' for -). */
+  file: string;
+  onBadRecord: BadRecordPolicy;
+  /** Called for each refused record when onBadRecord is not 'fail'. */
+  onReject?: (r: RejectedRecord) => void;
+  /** For the 2nd…nth input: the header must equal this. */
+  expectedColumns?: string[];
+  /** Name of the input `expectedColumns` came from, for the mismatch message. */
+  expectedFrom?: string;
+}
+
+interface Counters {
+  records: number;
+  rejected: number;
+  bytes: number;
+  lines: number;
+}
+
+// Results of walk(): the record is complete, needs more bytes, or is bad.
+const WALK_OK = 0;
+const WALK_MORE = 1;
+const WALK_BAD = 2;
+
+/**
+ * Push parser: feed chunks with push(), then call end(). Each call returns the complete records
+ * seen so far as one batch (or null). The batch's typed arrays and `data` are reused and
+ * overwritten by the next push()/end(): copy what you keep.
+ *
+ * CSV/TSV rules: RFC 4180 quoting with any one-byte delimiter (TSV uses the same quoting rules
+ * with a tab); records end with LF or CRLF; a bare CR is data. A completely empty line (nothing
+ * between two line ends) is not a record: it is skipped and only counted as a line.
+ */
+export class RecordReader {
+  readonly stats: Counters = { records: 0, rejected: 0, bytes: 0, lines: 0 };
+
+  private readonly opts: RecordReaderOptions;
+  private readonly delim: number;
+  private readonly W: number;
+  private sch: InputSchema | null = null;
+  /** Expected field count per record (CSV/TSV); 0 until the first record is known. */
+  private ncols = 0;
+  /** Column index -> wanted slot, or -1. */
+  private slot = new Int32Array(0);
+
+  // Bytes of a partial record carried into the next push. Two buffers alternate so the carried
+  // tail never overwrites the batch being returned.
+  private carry: [Buffer, Buffer] = [Buffer.alloc(0), Buffer.alloc(0)];
+  private cur: 0 | 1 = 0;
+  private carryLen = 0;
+  /** Input offset of the first byte of the data being parsed (= of carry[0]). */
+  private base = 0;
+  /** Physical line on which the next record starts. */
+  private line = 1;
+  private bomDone = false;
+  private headerDone = false;
+  private ended = false;
+  private lastByte = -1;
+  private lineEnding: '\n' | '\r\n' | null = null;
+
+  // Resumption of a long partial record: scan position (relative to the record start) and
+  // whether it is inside quotes, so each push scans only the new bytes (see findEnd).
+  private rPending = false;
+  private rRel = 0;
+  private rInQ = false;
+
+  // Output arrays, grown on demand and reused between batches.
+  private cap = 0;
+  private st = new Uint32Array(0);
+  private en = new Uint32Array(0);
+  private nx = new Uint32Array(0);
+  private off = new Float64Array(0);
+  private ln = new Float64Array(0);
+  private fS = new Uint32Array(0);
+  private fE = new Uint32Array(0);
+  private fK = new Uint8Array(0);
+
+  // walk() results.
+  private wEnd = 0;
+  private wNext = 0;
+  private wFields = 0;
+  private wLfs = 0;
+  private wCode: RowdeckErrorCode = 'ERR_INTERNAL';
+  private wCol = 0;
+  private wLineRel = 0;
+  private wMsg = '';
+
+  constructor(opts: RecordReaderOptions) {
+    this.opts = opts;
+    const d = opts.delimiter ?? (opts.format === 'tsv' ? '\t' : ',');
+    const db = Buffer.from(d, 'utf8');
+    if (db.length !== 1 || db[0] === QUOTE || db[0] === LF || db[0] === CR) {
+      throw new RowdeckError('ERR_OPTION', `Invalid option "delimiter": expected one single-byte character other than a quote or a line end, got ${JSON.stringify(d)}`, {});
+    }
+    this.delim = db[0]!;
+    this.W = opts.wanted.length;
+    this.grow(1024);
+  }
+
+  get schema(): InputSchema | null {
+    return this.sch;
+  }
+
+  push(chunk: Buffer): RecordBatch | null {
+    if (this.ended) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.push() after end()');
+    if (chunk.length === 0) return null;
+    this.stats.bytes += chunk.length;
+    this.lastByte = chunk[chunk.length - 1]!;
+    let data: Buffer;
+    if (this.carryLen === 0) data = chunk;
+    else {
+      const need = this.carryLen + chunk.length;
+      let buf = this.carry[this.cur];
+      if (buf.length < need) {
+        const bigger = Buffer.allocUnsafe(Math.max(need, buf.length * 2));
+        buf.copy(bigger, 0, 0, this.carryLen);
+        this.carry[this.cur] = buf = bigger;
+      }
+      chunk.copy(buf, this.carryLen);
+      data = buf.subarray(0, need);
+    }
+    return this.parse(data, false);
+  }
+
+  end(): RecordBatch | null {
+    if (this.ended) return null;
+    const batch = this.parse(this.carry[this.cur].subarray(0, this.carryLen), true);
+    this.ended = true;
+    this.stats.lines = this.stats.bytes === 0 ? 0 : this.lastByte === LF ? this.line - 1 : this.line;
+    const { file } = this.opts;
+    if (!this.sch) {
+      throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${this.stats.bytes > 0 ? ' (only blank lines)' : ''}. Check the path, or that the file was fully written.`, { file });
+    }
+    if (this.stats.records + this.stats.rejected === 0) {
+      if (this.opts.format !== 'jsonl' && this.opts.header) {
+        throw new RowdeckError('ERR_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
+      }
+    }
+    return batch;
+  }
+
+  // --- internal ---
+
+  private grow(min: number): void {
+    let cap = Math.max(this.cap * 2, min, 1024);
+    const W = this.W;
+    const st = new Uint32Array(cap), en = new Uint32Array(cap), nx = new Uint32Array(cap);
+    const off = new Float64Array(cap), ln = new Float64Array(cap);
+    const fS = new Uint32Array(cap * W), fE = new Uint32Array(cap * W), fK = new Uint8Array(cap * W);
+    st.set(this.st); en.set(this.en); nx.set(this.nx); off.set(this.off); ln.set(this.ln);
+    fS.set(this.fS); fE.set(this.fE); fK.set(this.fK);
+    this.st = st; this.en = en; this.nx = nx; this.off = off; this.ln = ln;
+    this.fS = fS; this.fE = fE; this.fK = fK;
+    this.cap = cap;
+  }
+
+  private parse(d: Buffer, atEnd: boolean): RecordBatch | null {
+    const n = d.length;
+    let pos = 0;
+    if (!this.bomDone) {
+      // Wait for three bytes: a chunk may end inside the BOM.
+      if (n < 3 && !atEnd && d[0] === 0xef && (n < 2 || d[1] === 0xbb)) return this.keep(d, 0, 0);
+      if (n >= 3 && d[0] === 0xef && d[1] === 0xbb && d[2] === 0xbf) pos = 3;
+      this.bomDone = true;
+    }
+    if (this.rPending) {
+      // A long record is still open: scan only the new bytes until its end is in sight.
+      if (!this.findEnd(d, pos, n) && !atEnd) {
+        if (this.rInQ && n - pos > MAX_RECORD_BYTES) this.failOversized(d, pos);
+        return this.keep(d, pos, 0);
+      }
+      this.rPending = false;
+    }
+    return this.opts.format === 'jsonl' ? this.parseJsonl(d, pos, atEnd) : this.parseCsv(d, pos, atEnd);
+  }
+
+  /** Keeps `d[pos..]` as the carried partial record, returns the batch of `count` records. */
+  private keep(d: Buffer, pos: number, count: number): RecordBatch | null {
+    const n = d.length;
+    const len = n - pos;
+    const own = this.carry[this.cur];
+    if (len > 0 && pos === 0 && d.buffer === own.buffer && d.byteOffset === own.byteOffset) {
+      // The whole data is the carried record, already in place (no batch refers to it).
+      this.carryLen = len;
+    } else if (len > 0) {
+      const other = (1 - this.cur) as 0 | 1;
+      let buf = this.carry[other];
+      if (buf.length < len) this.carry[other] = buf = Buffer.allocUnsafe(Math.max(len * 2, 64 * 1024));
+      d.copy(buf, 0, pos, n);
+      this.cur = other;
+      this.carryLen = len;
+    } else this.carryLen = 0;
+    this.base += pos;
+    if (count === 0) return null;
+    return {
+      data: d,
+      count,
+      start: this.st.subarray(0, count),
+      end: this.en.subarray(0, count),
+      next: this.nx.subarray(0, count),
+      offset: this.off.subarray(0, count),
+      line: this.ln.subarray(0, count),
+      wanted: this.W,
+      fieldStart: this.fS.subarray(0, count * this.W),
+      fieldEnd: this.fE.subarray(0, count * this.W),
+      fieldKind: this.fK.subarray(0, count * this.W),
+    };
+  }
+
+  /**
+   * Looks for the end of the open record starting at `s`, resuming at `s + rRel`. Jumps with
+   * indexOf, so a record of many megabytes costs one pass. True when a record end is in `d`.
+   */
+  private findEnd(d: Buffer, s: number, n: number): boolean {
+    let i = s + this.rRel;
+    let inQ = this.rInQ;
+    for (;;) {
+      if (inQ) {
+        const q = d.indexOf(QUOTE, i);
+        if (q < 0) { i = n; break; }
+        if (q + 1 >= n) { i = q; break; }
+        if (d[q + 1] === QUOTE) i = q + 2;
+        else { inQ = false; i = q + 1; }
+      } else {
+        const l = d.indexOf(LF, i);
+        const q = d.indexOf(QUOTE, i);
+        if (l >= 0 && (q < 0 || l < q)) return true;
+        if (q < 0) { i = n; break; }
+        // Same rule as walk(): a quote opens a field only at its start; elsewhere it is a fault
+        // that walk() reports once the record's line end is here.
+        if (q === s || d[q - 1] === this.delim) { inQ = true; i = q + 1; }
+        else if (l >= 0) return true;
+        else { i = n; break; }
+      }
+    }
+    this.rRel = i - s;
+    this.rInQ = inQ;
+    return false;
+  }
+
+  private failOversized(d: Buffer, s: number): never {
+    const { file } = this.opts;
+    void d; void s;
+    throw new RowdeckError(
+      'ERR_UNTERMINATED_QUOTE',
+      `${where(file, this.line)}: a record starting here is still inside a quoted field after ${MAX_RECORD_BYTES / 1024 / 1024} MiB. A quote is probably never closed; check the quotes near this line.`,
+      { file, line: this.line },
+    );
+  }
+
+  /** Reports a bad record: throws under 'fail', else counts it and hands it to onReject. */
+  private reject(code: RowdeckErrorCode, line: number, column: number, msg: string, d: Buffer, s: number, e: number): void {
+    const { file, onBadRecord, onReject } = this.opts;
+    if (onBadRecord === 'fail') {
+      throw new RowdeckError(code, `${where(file, line, column)}: ${msg}`, { file, line, column });
+    }
+    this.stats.rejected++;
+    onReject?.({ file, line, code, reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+  }
+
+  /**
+   * Walks one CSV record from `s` byte by byte (used for records with a quote, and the header).
+   * On WALK_OK: wEnd (content end), wNext (after the terminator), wFields, wLfs (line ends inside
+   * the record, terminator excluded). Wanted fields are written at `fb + slot`. On WALK_BAD:
+   * wCode, wCol, wLineRel (line of the fault relative to the start), wMsg, and wNext/wEnd where
+   * the bad record ends (its next line end).
+   */
+  private walk(d: Buffer, s: number, n: number, atEnd: boolean, fb: number): number {
+    const D = this.delim;
+    const N = this.ncols;
+    const slot = this.slot;
+    const fS = this.fS, fE = this.fE, fK = this.fK;
+    let i = s, f = 0, fs = s, kind: number = FieldKind.Plain, inQ = false, closed = false, lfs = 0, qLine = 0;
+    while (i < n) {
+      const c = d[i]!;
+      if (inQ) {
+        if (c === QUOTE) {
+          if (i + 1 >= n && !atEnd) return WALK_MORE;
+          if (i + 1 < n && d[i + 1] === QUOTE) { i += 2; continue; }
+          inQ = false;
+          closed = true;
+        } else if (c === LF) lfs++;
+        i++;
+        continue;
+      }
+      if (c === D) {
+        if (f < N) { const w = slot[f]!; if (w >= 0) { fS[fb + w] = fs; fE[fb + w] = i; fK[fb + w] = kind; } }
+        f++;
+        fs = i + 1;
+        kind = FieldKind.Plain;
+        closed = false;
+        i++;
+        continue;
+      }
+      if (c === LF) {
+        let e = i;
+        if (e > fs && d[e - 1] === CR) e--;
+        if (f < N) { const w = slot[f]!; if (w >= 0) { fS[fb + w] = fs; fE[fb + w] = e; fK[fb + w] = kind; } }
+        this.wEnd = e; this.wNext = i + 1; this.wFields = f + 1; this.wLfs = lfs;
+        return WALK_OK;
+      }
+      if (closed) {
+        if (c === CR) {
+          if (i + 1 >= n && !atEnd) return WALK_MORE;
+          if (i + 1 < n && d[i + 1] === LF) { i++; continue; }
+        }
+        return this.walkBad(d, i, n, atEnd, lfs, f, 'ERR_STRAY_QUOTE',
+          `text follows the closing quote of a quoted field. Inside a quoted field write a quote twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
+      }
+      if (c === QUOTE) {
+        if (i === fs) { inQ = true; closed = false; kind = FieldKind.CsvQuoted; qLine = lfs; i++; continue; }
+        return this.walkBad(d, i, n, atEnd, lfs, f, 'ERR_STRAY_QUOTE',
+          `a quote (") inside an unquoted field. Put the whole field in quotes and write each quote in it twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
+      }
+      i++;
+    }
+    if (!atEnd) return WALK_MORE;
+    if (inQ) {
+      this.wCode = 'ERR_UNTERMINATED_QUOTE'; this.wCol = f + 1; this.wLineRel = qLine;
+      this.wMsg = `a quoted field starts here and is never closed. Close the quote, write quotes inside the field twice (""), or use --on-bad-record skip|quarantine to set the rest aside.`;
+      this.wEnd = n; this.wNext = n; this.wLfs = lfs;
+      return WALK_BAD;
+    }
+    // Last record without a line end.
+    if (f < N) { const w = slot[f]!; if (w >= 0) { fS[fb + w] = fs; fE[fb + w] = n; fK[fb + w] = kind; } }
+    this.wEnd = n; this.wNext = n; this.wFields = f + 1; this.wLfs = lfs;
+    return WALK_OK;
+  }
+
+  private walkBad(d: Buffer, i: number, n: number, atEnd: boolean, lfs: number, f: number, code: RowdeckErrorCode, msg: string): number {
+    // The bad record runs to the next line end; quotes after the fault are not trusted.
+    const l = d.indexOf(LF, i);
+    if (l < 0 && !atEnd) return WALK_MORE;
+    this.wCode = code; this.wCol = f + 1; this.wLineRel = lfs; this.wMsg = msg;
+    if (l < 0) { this.wEnd = n; this.wNext = n; }
+    else { this.wEnd = l > 0 && d[l - 1] === CR ? l - 1 : l; this.wNext = l + 1; }
+    this.wLfs = lfs;
+    return WALK_BAD;
+  }
+
+  private parseCsv(d: Buffer, pos: number, atEnd: boolean): RecordBatch | null {
+    const n = d.length;
+    if (!this.headerDone) {
+      const p = this.readFirst(d, pos, atEnd);
+      if (p < 0) return this.keep(d, -p - 1, 0);
+      pos = p;
+      if (!this.headerDone) return this.keep(d, pos, 0);
+    }
+    const D = this.delim, N = this.ncols, W = this.W, slot = this.slot, base = this.base;
+    let st = this.st, en = this.en, nx = this.nx, off = this.off, ln = this.ln;
+    let fS = this.fS, fE = this.fE, fK = this.fK, cap = this.cap;
+    let count = 0;
+    let line = this.line;
+    let nq = -1; // next quote at or after pos (n + 1: none left)
+    while (pos < n) {
+      let nl = d.indexOf(LF, pos);
+      if (nl < 0) {
+        if (!atEnd) { this.rPending = true; this.rRel = 0; this.rInQ = false; break; }
+        nl = n;
+      }
+      if (nq < pos) { nq = d.indexOf(QUOTE, pos); if (nq < 0) nq = n + 1; }
+      if (count === cap) {
+        this.grow(count + 1);
+        st = this.st; en = this.en; nx = this.nx; off = this.off; ln = this.ln;
+        fS = this.fS; fE = this.fE; fK = this.fK; cap = this.cap;
+      }
+      const fb = count * W;
+      if (nq > nl) {
+        // No quote before the line end: the line is the record; count delimiters, note wanted fields.
+        let e = nl;
+        if (nl < n && e > pos && d[e - 1] === CR) e--;
+        const next = nl < n ? nl + 1 : n;
+        if (e === pos) { line++; pos = next; continue; }
+        let f = 0, fs = pos;
+        for (let i = pos; i < e; i++) {
+          if (d[i] === D) {
+            if (f < N) { const w = slot[f]!; if (w >= 0) { fS[fb + w] = fs; fE[fb + w] = i; fK[fb + w] = FieldKind.Plain; } }
+            f++;
+            fs = i + 1;
+          }
+        }
+        if (f < N) { const w = slot[f]!; if (w >= 0) { fS[fb + w] = fs; fE[fb + w] = e; fK[fb + w] = FieldKind.Plain; } }
+        f++;
+        if (f === N) {
+          st[count] = pos; en[count] = e; nx[count] = next; off[count] = base + pos; ln[count] = line;
+          count++;
+        } else this.rejectFieldCount(line, f, d, pos, e);
+        line++;
+        pos = next;
+      } else {
+        const r = this.walk(d, pos, n, atEnd, fb);
+        if (r === WALK_MORE) { this.rPending = true; this.rRel = 0; this.rInQ = false; break; }
+        const e = this.wEnd, next = this.wNext;
+        if (r === WALK_BAD) this.reject(this.wCode, line + this.wLineRel, this.wCol, this.wMsg, d, pos, e);
+        else if (this.wFields !== N) this.rejectFieldCount(line, this.wFields, d, pos, e);
+        else {
+          st[count] = pos; en[count] = e; nx[count] = next; off[count] = base + pos; ln[count] = line;
+          count++;
+        }
+        line += this.wLfs + (next > e ? 1 : 0);
+        pos = next;
+      }
+    }
+    this.line = line;
+    this.stats.records += count;
+    this.stats.lines = line - 1;
+    return this.keep(d, pos, count);
+  }
+
+  private rejectFieldCount(line: number, f: number, d: Buffer, s: number, e: number): void {
+    const N = this.ncols;
+    const ch = String.fromCharCode(this.delim);
+    const shown = ch === '\t' ? 'a tab' : `"${ch}"`;
+    this.reject('ERR_FIELD_COUNT', line, f > N ? N + 1 : f + 1,
+      `record has ${f} field${f === 1 ? '' : 's'}, the ${this.opts.header ? 'header' : 'first record'} has ${N}. Quote fields that contain ${shown} or use --on-bad-record skip|quarantine to set such records aside.`,
+      d, s, e);
+  }
+
+  /**
+   * Reads the first record (skipping blank lines): the header, or with header=false the record
+   * that fixes the column count (left in place to be read as data). Returns the position after
+   * it, or -(pos + 1) when more bytes are needed.
+   */
+  private readFirst(d: Buffer, pos: number, atEnd: boolean): number {
+    const n = d.length;
+    const { file } = this.opts;
+    for (;;) {
+      if (pos >= n) return pos;
+      const nl = d.indexOf(LF, pos);
+      if (nl === pos || (nl === pos + 1 && d[pos] === CR)) { this.line++; pos = nl + 1; continue; }
+      const r = this.walk(d, pos, n, atEnd, 0);
+      if (r === WALK_MORE) { this.rPending = true; this.rRel = 0; this.rInQ = false; return -pos - 1; }
+      const what = this.opts.header ? 'the header' : 'the first record';
+      if (r === WALK_BAD) {
+        const line = this.line + this.wLineRel;
+        throw new RowdeckError(this.wCode, `${where(file, line, this.wCol)}: in ${what}: ${this.wMsg.replace(/, or use --on-bad-record.*$/, '.')}`, { file, line, column: this.wCol });
+      }
+      const e = this.wEnd, next = this.wNext;
+      this.lineEnding = next > e ? (next - e === 2 ? '\r\n' : '\n') : null;
+      const k = splitRecordFields(d, pos, e, this.delim, new Uint32Array(0), new Uint32Array(0), new Uint8Array(0));
+      let columns: string[];
+      let headerBytes: Buffer | null = null;
+      if (this.opts.header) {
+        const fs = new Uint32Array(k), fe = new Uint32Array(k), fk = new Uint8Array(k);
+        splitRecordFields(d, pos, e, this.delim, fs, fe, fk);
+        columns = [];
+        for (let f = 0; f < k; f++) columns.push(fk[f] === FieldKind.CsvQuoted ? decodeCsvQuoted(d, fs[f]!, fe[f]!) : d.toString('utf8', fs[f], fe[f]));
+        const seen = new Map<string, number>();
+        for (let f = 0; f < k; f++) {
+          const prev = seen.get(columns[f]!);
+          if (prev !== undefined) {
+            throw new RowdeckError('ERR_DUPLICATE_HEADER',
+              `${where(file, this.line, f + 1)}: the header names column "${columns[f]}" twice (columns ${prev + 1} and ${f + 1}). Rename one of them so every column can be told apart.`,
+              { file, line: this.line, column: f + 1 });
+          }
+          seen.set(columns[f]!, f);
+        }
+        headerBytes = Buffer.from(d.subarray(pos, e));
+        this.line += this.wLfs + (next > e ? 1 : 0);
+        pos = next;
+      } else {
+        columns = Array.from({ length: k }, (_, f) => `column_${f + 1}`);
+      }
+      this.checkExpected(columns);
+      this.setColumns(columns);
+      this.ncols = k;
+      this.sch = { format: this.opts.format, columns, headerBytes, lineEnding: this.lineEnding ?? '\n', delimiter: this.delim };
+      this.headerDone = true;
+      return pos;
+    }
+  }
+
+  private checkExpected(columns: string[]): void {
+    const exp = this.opts.expectedColumns;
+    if (!exp) return;
+    const len = Math.max(exp.length, columns.length);
+    for (let f = 0; f < len; f++) {
+      if (exp[f] !== columns[f]) {
+        const { file } = this.opts;
+        const from = this.opts.expectedFrom ?? 'the first input';
+        throw new RowdeckError('ERR_HEADER_MISMATCH',
+          `${where(file, this.opts.format === 'jsonl' ? undefined : 1, f + 1)}: columns differ from ${from}: column ${f + 1} is ${columns[f] === undefined ? 'missing' : `"${columns[f]}"`}, ${from} has ${exp[f] === undefined ? 'no such column' : `"${exp[f]}"`}. All inputs must have the same columns in the same order.`,
+          { file, line: 1, column: f + 1, expectedFrom: from, expected: exp, found: columns });
+      }
+    }
+  }
+
+  /** Maps wanted names to column indices; unknown names fail with the closest suggestion. */
+  private setColumns(columns: string[]): void {
+    const slot = new Int32Array(columns.length + 1).fill(-1);
+    const { wanted, file } = this.opts;
+    wanted.forEach((name, w) => {
+      const c = columns.indexOf(name);
+      if (c < 0) throw unknownColumn(name, columns, file);
+      if (slot[c]! >= 0) throw new RowdeckError('ERR_OPTION', `Invalid option "wanted": column "${name}" is listed twice`, { column: name });
+      slot[c] = w;
+    });
+    this.slot = slot;
+  }
+
+  // --- JSON Lines ---
+
+  private wantKeys: Buffer[] | null = null;
+
+  private parseJsonl(d: Buffer, pos: number, atEnd: boolean): RecordBatch | null {
+    const n = d.length, W = this.W, base = this.base;
+    let count = 0;
+    let line = this.line;
+    while (pos < n) {
+      let nl = d.indexOf(LF, pos);
+      if (nl < 0) {
+        if (!atEnd) break;
+        nl = n;
+      }
+      let e = nl;
+      if (nl < n && e > pos && d[e - 1] === CR) e--;
+      const next = nl < n ? nl + 1 : n;
+      let a = pos;
+      while (a < e && isJsonSpace(d[a]!)) a++;
+      if (a === e) { line++; pos = next; continue; }
+      if (this.lineEnding === null && nl < n) this.lineEnding = e < nl ? '\r\n' : '\n';
+      let obj: unknown;
+      let fault: string | null = null;
+      let column: number | undefined;
+      try {
+        obj = JSON.parse(d.toString('utf8', pos, e));
+        if (obj === null || typeof obj !== 'object' || Array.isArray(obj)) fault = 'the line is JSON but not an object ({…}). Each line must hold one JSON object.';
+      } catch (err) {
+        const m = /position (\d+)/.exec((err as Error).message);
+        column = m ? Number(m[1]) + 1 : undefined;
+        fault = `invalid JSON (${(err as Error).message}). Each line must hold one complete JSON object; use --on-bad-record skip|quarantine to set such lines aside.`;
+      }
+      if (fault !== null) {
+        this.rejectJson(line, column, fault, d, pos, e);
+        line++;
+        pos = next;
+        continue;
+      }
+      if (!this.sch) {
+        const columns = Object.keys(obj as object);
+        this.setColumns(columns);
+        this.wantKeys = this.opts.wanted.map((k) => Buffer.from(k, 'utf8'));
+        this.sch = { format: 'jsonl', columns, headerBytes: null, lineEnding: this.lineEnding ?? '\n', delimiter: 0 };
+      }
+      if (count === this.cap) this.grow(count + 1);
+      const fb = count * W;
+      for (let w = 0; w < W; w++) { this.fS[fb + w] = a; this.fE[fb + w] = a; this.fK[fb + w] = FieldKind.Missing; }
+      if (W > 0) this.locateJsonFields(d, a, fb);
+      this.st[count] = pos; this.en[count] = e; this.nx[count] = next; this.off[count] = base + pos; this.ln[count] = line;
+      count++;
+      line++;
+      pos = next;
+    }
+    this.line = line;
+    this.stats.records += count;
+    this.stats.lines = line - 1;
+    return this.keep(d, pos, count);
+  }
+
+  private rejectJson(line: number, column: number | undefined, msg: string, d: Buffer, s: number, e: number): void {
+    const { file, onBadRecord, onReject } = this.opts;
+    if (onBadRecord === 'fail') throw new RowdeckError('ERR_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
+    this.stats.rejected++;
+    onReject?.({ file, line, code: 'ERR_INVALID_JSON', reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+  }
+
+  /** Finds the raw value tokens of the wanted top-level keys in one valid JSON object at `i`. */
+  private locateJsonFields(d: Buffer, i: number, fb: number): void {
+    const keys = this.wantKeys!;
+    i++; // '{'
+    for (;;) {
+      while (isJsonSpace(d[i]!)) i++;
+      if (d[i] !== QUOTE) return; // '}'
+      const ks = i;
+      let esc = false;
+      i++;
+      while (d[i] !== QUOTE) { if (d[i] === BACKSLASH) { esc = true; i += 2; } else i++; }
+      i++;
+      const ke = i;
+      while (isJsonSpace(d[i]!)) i++;
+      i++; // ':'
+      while (isJsonSpace(d[i]!)) i++;
+      const vs = i;
+      i = skipJsonValue(d, i);
+      let w = -1;
+      if (esc) w = this.opts.wanted.indexOf(JSON.parse(d.toString('utf8', ks, ke)) as string);
+      else {
+        const len = ke - ks - 2;
+        for (let k = 0; k < keys.length; k++) {
+          const kb = keys[k]!;
+          if (kb.length === len && d.compare(kb, 0, len, ks + 1, ke - 1) === 0) { w = k; break; }
+        }
+      }
+      if (w >= 0) {
+        const c = d[vs];
+        this.fS[fb + w] = vs;
+        this.fE[fb + w] = i;
+        this.fK[fb + w] = c === QUOTE ? FieldKind.JsonString : c === 0x6e /* n(ull) */ ? FieldKind.Missing : FieldKind.Plain;
+      }
+      while (isJsonSpace(d[i]!)) i++;
+      if (d[i] !== 0x2c /* , */) return;
+      i++;
+    }
+  }
+}
+
+function isJsonSpace(c: number): boolean {
+  return c === 0x20 || c === 0x09 || c === CR || c === LF;
+}
+
+/** Returns the index just past the JSON value starting at `i` (the value is known to be valid). */
+function skipJsonValue(d: Buffer, i: number): number {
+  const c = d[i];
+  if (c === QUOTE) {
+    i++;
+    while (d[i] !== QUOTE) i += d[i] === BACKSLASH ? 2 : 1;
+    return i + 1;
+  }
+  if (c === 0x7b /* { */ || c === 0x5b /* [ */) {
+    let depth = 0;
+    for (;;) {
+      const b = d[i];
+      if (b === QUOTE) { i = skipJsonValue(d, i); continue; }
+      if (b === 0x7b || b === 0x5b) depth++;
+      else if (b === 0x7d || b === 0x5d) { depth--; if (depth === 0) return i + 1; }
+      i++;
+    }
+  }
+  for (;;) {
+    const b = d[i];
+    if (b === undefined || b === 0x2c || b === 0x7d || b === 0x5d || isJsonSpace(b)) return i;
+    i++;
+  }
+}
+
+/** The decoded text of wanted field `w` of record `i`: null when missing, '' for an empty CSV field. */
+export function fieldText(batch: RecordBatch, i: number, w: number): string | null {
+  const k = i * batch.wanted + w;
+  const s = batch.fieldStart[k]!, e = batch.fieldEnd[k]!;
+  switch (batch.fieldKind[k]) {
+    case FieldKind.Missing:
+      return null;
+    case FieldKind.CsvQuoted:
+      return decodeCsvQuoted(batch.data, s, e);
+    case FieldKind.JsonString:
+      return JSON.parse(batch.data.toString('utf8', s, e)) as string;
+    default:
+      return batch.data.toString('utf8', s, e);
+  }
+}
+
+/** ERR_UNKNOWN_COLUMN naming the closest column by edit distance and listing all of them. */
+export function unknownColumn(name: string, columns: string[], file: string): RowdeckError {
+  let best = '';
+  let bestD = Infinity;
+  for (const c of columns) {
+    const dist = measureEditDistance(name.toLowerCase(), c.toLowerCase());
+    if (dist < bestD) { bestD = dist; best = c; }
+  }
+  const hint = columns.length > 0 ? ` Did you mean "${best}"?` : '';
+  const list = columns.length > 40 ? `${columns.slice(0, 40).join(', ')}, … (${columns.length} in all)` : columns.join(', ');
+  return new RowdeckError('ERR_UNKNOWN_COLUMN', `${file}: no column named "${name}".${hint} Columns: ${list}.`, { file, column: name, suggestion: best, columns });
+}
+
+/** Levenshtein distance. */
+export function measureEditDistance(a: string, b: string): number {
+  let prev = Array.from({ length: b.length + 1 }, (_, j) => j);
+  for (let i = 1; i <= a.length; i++) {
+    const cur = [i];
+    for (let j = 1; j <= b.length; j++) {
+      cur[j] = Math.min(prev[j]! + 1, cur[j - 1]! + 1, prev[j - 1]! + (a[i - 1] === b[j - 1] ? 0 : 1));
+    }
+    prev = cur;
+  }
+  return prev[b.length]!;
 }

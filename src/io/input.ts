@@ -1,0 +1,125 @@
+/**
+ * Adapters from paths and streams to the push parser in reader.ts: format detection, opening
+ * (stdin, gzip by magic bytes), and reading several inputs in order with matching headers.
+ */
+
+import { createReadStream } from 'node:fs';
+import { Readable } from 'node:stream';
+import { pipeline } from 'node:stream/promises';
+import { createGunzip } from 'node:zlib';
+import type { InputFormat, InputSchema, RecordBatch } from './batch.js';
+import { RecordReader } from './reader.js';
+import type { RecordReaderOptions } from './reader.js';
+import { RowdeckError, ioError } from '../errors.js';
+
+/** Read size for files: large chunks keep the per-chunk overhead of the parser negligible. */
+export const READ_CHUNK_BYTES = 1 << 20;
+
+/**
+ * The format of `path`: `explicit` when given, else from the name (.csv .tsv .tab .jsonl .ndjson,
+ * each optionally followed by .gz). stdin ('-') without an explicit format is read as CSV.
+ */
+export function detectFormat(path: string, explicit?: InputFormat): InputFormat {
+  if (explicit) return explicit;
+  if (path === '-') return 'csv';
+  const name = path.toLowerCase().replace(/\.gz$/, '');
+  if (name.endsWith('.csv')) return 'csv';
+  if (name.endsWith('.tsv') || name.endsWith('.tab')) return 'tsv';
+  if (name.endsWith('.jsonl') || name.endsWith('.ndjson')) return 'jsonl';
+  throw new RowdeckError('ERR_OPTION', `Cannot tell the format of "${path}" from its name (expected .csv, .tsv, .jsonl or .ndjson, optionally .gz). Pass --format csv|tsv|jsonl.`, { file: path });
+}
+
+/** Display name of an input in messages. */
+export function nameInput(path: string): string {
+  return path === '-' ? '<stdin>' : path;
+}
+
+/**
+ * The bytes of an input: a path, '-' for stdin, or any Readable. Gzip is recognised by its magic
+ * bytes (1f 8b), whatever the name, and decompressed on the fly.
+ */
+export async function* openInput(source: string | Readable): AsyncGenerator<Buffer> {
+  const name = typeof source === 'string' ? nameInput(source) : '<stream>';
+  const stream: Readable =
+    typeof source !== 'string' ? source : source === '-' ? process.stdin : createReadStream(source, { highWaterMark: READ_CHUNK_BYTES });
+  const it = stream[Symbol.asyncIterator]() as AsyncIterator<Buffer | string>;
+  const head: Buffer[] = [];
+  let headLen = 0;
+  let done = false;
+  try {
+    // Gather two bytes to look for the gzip magic (a first chunk may be a single byte).
+    while (headLen < 2) {
+      const r = await it.next();
+      if (r.done) { done = true; break; }
+      const b = typeof r.value === 'string' ? Buffer.from(r.value) : r.value;
+      head.push(b);
+      headLen += b.length;
+    }
+  } catch (err) {
+    throw ioError(err, name, 'reading');
+  }
+  const first = head.length === 1 ? head[0]! : Buffer.concat(head);
+  async function* rest(): AsyncGenerator<Buffer> {
+    if (first.length > 0) yield first;
+    if (done) return;
+    for (;;) {
+      const r = await it.next();
+      if (r.done) return;
+      yield typeof r.value === 'string' ? Buffer.from(r.value) : r.value;
+    }
+  }
+  try {
+    if (first.length >= 2 && first[0] === 0x1f && first[1] === 0x8b) {
+      const gunzip = createGunzip({ chunkSize: READ_CHUNK_BYTES });
+      const piping = pipeline(Readable.from(rest(), { objectMode: false }), gunzip);
+      piping.catch(() => {}); // the same error surfaces from iterating gunzip
+      for await (const chunk of gunzip) yield chunk as Buffer;
+      await piping;
+    } else {
+      yield* rest();
+    }
+  } catch (err) {
+    if (err instanceof RowdeckError) throw err;
+    const e = err as NodeJS.ErrnoException;
+    if (typeof e?.code === 'string' && e.code.startsWith('Z_')) {
+      throw new RowdeckError('ERR_IO', `${name}: the gzip data is damaged or cut short (${e.message}). Check that the file was fully copied.`, { file: name, errno: e.code });
+    }
+    throw ioError(err, name, 'reading');
+  }
+}
+
+export type ReadRecordsOptions = Omit<RecordReaderOptions, 'file' | 'expectedColumns' | 'expectedFrom'> & { format?: InputFormat };
+
+/**
+ * Reads several inputs in order, yielding each batch with the input's ordinal and schema. The
+ * 2nd…nth CSV/TSV input must have the first input's columns. `stats` is that input's reader
+ * counters (final once its last batch has been yielded). Batches are valid until the next one.
+ */
+export async function* readRecords(
+  paths: string[],
+  opts: ReadRecordsOptions,
+): AsyncGenerator<{ input: number; batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
+  let expected: string[] | undefined;
+  let expectedFrom: string | undefined;
+  for (let k = 0; k < paths.length; k++) {
+    const path = paths[k]!;
+    const file = nameInput(path);
+    const format = detectFormat(path, opts.format);
+    const reader = new RecordReader({
+      ...opts,
+      format,
+      file,
+      ...(format !== 'jsonl' && expected ? { expectedColumns: expected, expectedFrom: expectedFrom ?? 'the first input' } : {}),
+    });
+    for await (const chunk of openInput(path)) {
+      const batch = reader.push(chunk);
+      if (batch) yield { input: k, batch, schema: reader.schema!, stats: reader.stats };
+    }
+    const batch = reader.end();
+    if (batch) yield { input: k, batch, schema: reader.schema!, stats: reader.stats };
+    if (k === 0 && format !== 'jsonl') {
+      expected = reader.schema!.columns;
+      expectedFrom = file;
+    }
+  }
+}
