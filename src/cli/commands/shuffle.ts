@@ -1,0 +1,85 @@
+import { RowdeckError } from '../../errors.js';
+import { runShuffle } from '../../engine/shuffle.js';
+import type { ShuffleOptions } from '../../options.js';
+import type { BadRecordPolicy, InputFormat } from '../../io/batch.js';
+import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args.js';
+import { SHUFFLE_HELP } from '../help.js';
+import type { CliIO } from '../main.js';
+import { createProgress } from '../progress.js';
+
+export async function run(argv: string[], io: CliIO): Promise<number> {
+  const { values: v, positionals } = parseCommandArgs(argv, {
+    ...INPUT_OPTIONS,
+    out: { type: 'string', short: 'o' },
+    seed: { type: 'string' },
+    partitions: { type: 'string', short: 'p' },
+    stratify: { type: 'string' },
+    tolerance: { type: 'string' },
+    folds: { type: 'string' },
+    'fold-column': { type: 'string' },
+    split: { type: 'string' },
+    group: { type: 'string' },
+    key: { type: 'string' },
+    assign: { type: 'string' },
+    memory: { type: 'string' },
+    threads: { type: 'string' },
+    'temp-dir': { type: 'string' },
+    gzip: { type: 'boolean' },
+    force: { type: 'boolean' },
+    'no-stats': { type: 'boolean' },
+  });
+  if (v.help) {
+    io.stdout.write(SHUFFLE_HELP);
+    return 0;
+  }
+  if (positionals.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck shuffle needs at least one INPUT file (or - for stdin).');
+  if (v.out === undefined) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck shuffle needs --out DIR, the folder to write the parts and the manifest to.');
+  const progress = createProgress(io.stderr, !v.quiet);
+  const opts: ShuffleOptions = {
+    inputs: positionals,
+    out: String(v.out),
+    onProgress: (e) => progress.update(e),
+  };
+  const set = <K extends keyof ShuffleOptions>(k: K, val: ShuffleOptions[K] | undefined): void => {
+    if (val !== undefined) opts[k] = val;
+  };
+  set('seed', strArg(v.seed));
+  set('partitions', intArg('partitions', v.partitions));
+  set('stratify', strArg(v.stratify));
+  set('tolerance', numArg('tolerance', v.tolerance));
+  set('folds', intArg('folds', v.folds));
+  set('foldColumn', strArg(v['fold-column']));
+  set('split', strArg(v.split));
+  set('group', strArg(v.group));
+  set('key', strArg(v.key));
+  set('assign', strArg(v.assign) as ShuffleOptions['assign']);
+  set('memory', strArg(v.memory));
+  set('threads', intArg('threads', v.threads));
+  set('tempDir', strArg(v['temp-dir']));
+  set('format', strArg(v.format) as InputFormat | undefined);
+  set('delimiter', strArg(v.delimiter));
+  if (v['no-header']) opts.header = false;
+  if (v.gzip) opts.gzip = true;
+  if (v.force) opts.force = true;
+  if (v['exclude-values']) opts.excludeValues = true;
+  if (v['no-stats']) opts.stats = false;
+  set('onBadRecord', strArg(v['on-bad-record']) as BadRecordPolicy | undefined);
+  if (opts.seed === undefined && !v.quiet) io.stderr.write(`rowdeck: no --seed given; using the default seed (recorded in the manifest).\n`);
+  let result;
+  try {
+    result = await runShuffle(opts);
+  } finally {
+    progress.done();
+  }
+  const m = result.manifest;
+  if (v.json) io.stdout.write(JSON.stringify(m, null, 2) + '\n');
+  if (!v.quiet) {
+    const secs = (m.run.timingsMs.totalMs ?? 0) / 1000;
+    io.stderr.write(
+      `rowdeck: ${m.input.records.toLocaleString('en-US')} records -> ${m.output.parts.length} part(s) in ${result.out} ` +
+        `(${secs.toFixed(1)} s, seed ${JSON.stringify(m.seed)}, max class deviation ${(m.balance.maxDeviation * 100).toFixed(2)}%` +
+        `${m.input.rejected ? `, ${m.input.rejected} rejected record(s)` : ''}).\n`,
+    );
+  }
+  return 0;
+}

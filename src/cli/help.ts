@@ -1,0 +1,123 @@
+/** Help texts. Kept together so the wording stays consistent across commands. */
+
+export const MAIN_HELP = `rowdeck — reproducible, stratified shuffling of large tabular files
+
+Usage:
+  rowdeck shuffle INPUT... --out DIR [options]   shuffle and deal into partitions, splits, folds
+  rowdeck profile INPUT... [options]             schema, statistics and class balance of inputs
+  rowdeck verify DIR [--against INPUT...]        check an output folder against its manifest
+
+Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' reads stdin.
+The same seed and inputs give the same bytes, whatever the thread count or memory budget.
+
+Run 'rowdeck COMMAND --help' for a command's options and examples.
+  --version   print the version
+  --help      print this help
+
+Exit status: 0 success, 1 data error (bad input, tolerance not met, verify mismatch), 2 usage error.
+`;
+
+export const SHUFFLE_HELP = `rowdeck shuffle — shuffle records reproducibly and deal them into parts
+
+Usage:
+  rowdeck shuffle INPUT... --out DIR [options]
+
+What it does:
+  Every record gets a random key from the seed; records are sorted by key in two stages
+  (scatter to spill files, gather bucket by bucket on worker threads) so inputs larger than
+  memory work. Records are then dealt by rank within their class, so every part keeps each
+  class at its overall share (within one record). DIR/manifest.json, written last, records
+  counts, class mix, checksums, fingerprints and the seed.
+
+Dealing:
+  --partitions N          number of partition files (default 1)
+  --split NAME=W,...      named splits, e.g. train=0.8,valid=0.1,test=0.1; weights may be
+                          record counts instead (train=8000,test=2000), one may be * (the rest)
+  --folds K               append a fold column (0..K-1), dealt jointly with the partitions
+  --fold-column NAME      name of that column (default fold)
+  --stratify COL[,COL]    keep the class mix of these columns in every part; a numeric column
+                          may be given as COL:bins=Q for Q quantile bins. Missing values form
+                          their own class.
+  --tolerance X           largest allowed relative deviation of a class's share in any part or
+                          fold from its overall share (default 0.5). Checked before anything is
+                          written; the achieved value is recorded in the manifest.
+  --group COL             keep all records with the same COL value in one part (whole groups are
+                          dealt, balancing classes as well as they allow)
+  --assign exact|hash     exact quotas (default), or hash: a record's part is a pure function of
+                          its --key and the seed, so appended records never move old ones
+  --key COL[,COL]         columns that identify a record (required with --assign hash)
+  --seed TEXT             any text (default: a fixed seed, printed, so every run is reproducible)
+
+Input:
+  --format csv|tsv|jsonl  (default: from the file name: .csv .tsv .jsonl .ndjson, with .gz)
+  --delimiter C           one-byte field delimiter (default , or tab for TSV)
+  --no-header             the first line is data; columns are named column_1, column_2, ...
+  --on-bad-record MODE    fail (default): stop at the first malformed record;
+                          skip: count and leave it out; quarantine: also write it, with its
+                          line number and reason, to DIR/rejected.csv
+
+Output and resources:
+  --out DIR               output folder (must be new or empty unless --force)
+  --force                 replace a non-empty DIR (only once the new output is complete)
+  --gzip                  compress parts (.gz)
+  --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
+  --threads N             worker threads (default: number of cores)
+  --temp-dir DIR          where spill files go (default: beside DIR); removed afterwards
+  --exclude-values        leave data values (class names) out of the manifest
+  --json                  print the manifest on stdout
+  --quiet                 no progress or summary on stderr
+
+Examples:
+  rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --seed 2026
+  rowdeck shuffle day-*.csv.gz --out cv --folds 5 --stratify fault,site --group sensor_id
+  rowdeck shuffle events.jsonl --out sets --split train=0.8,valid=0.1,test=0.1 --stratify label
+
+Cautions:
+  * Time-ordered data: a random shuffle or random folds are wrong for evaluating forecasts;
+    the future leaks into training. Split by time instead.
+  * Records of one person, device or session spread over folds leak too: use --group.
+  * The manifest holds values from the data (class names). Use --exclude-values before you
+    publish a manifest of sensitive data.
+`;
+
+export const PROFILE_HELP = `rowdeck profile — schema, statistics and class balance of inputs
+
+Usage:
+  rowdeck profile INPUT... [--stratify COL[,COL]] [--partitions N] [--folds K] [--json]
+
+Reads the inputs once (streaming, bounded memory) and prints, per column, the inferred type,
+count, missing values, numeric min/max/mean/standard deviation, and the most frequent values;
+with --stratify, the class balance as a bar chart, and a warning for any class too small for
+the partitions or folds you plan.
+
+Options:
+  --stratify COL[,COL]    show the class balance of these columns
+  --partitions N          warn about classes with fewer than N records
+  --folds K               warn about classes with fewer than K records
+  --format, --delimiter, --no-header, --on-bad-record   as for shuffle
+  --exclude-values        leave data values (frequent values, class names, text min/max) out
+  --json                  print the profile as JSON on stdout
+
+Caution: a profile holds values from the data. Use --exclude-values before publishing one
+for sensitive data.
+
+Example:
+  rowdeck profile readings.csv --stratify fault --partitions 8 --folds 5
+`;
+
+export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
+
+Usage:
+  rowdeck verify DIR [--against INPUT...] [--json]
+
+Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
+record counts, per-class and per-fold counts, the tolerance, and the order-independent
+fingerprint of the records. With --against, also re-reads the inputs and checks that the
+output holds exactly their records (nothing lost, duplicated or altered; the fold column aside).
+
+Exit status 0 when everything holds; otherwise 1 and a list of every mismatch.
+
+Examples:
+  rowdeck verify parts
+  rowdeck verify parts --against readings.csv
+`;

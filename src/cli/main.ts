@@ -1,0 +1,72 @@
+#!/usr/bin/env node
+/**
+ * The command line: argv -> options -> library call -> exit code. Exit 0 on success, 1 on a data
+ * error, 2 on a usage error. Logs and progress go to stderr; data (`--json`) to stdout.
+ * Subcommands are imported lazily so `--help` stays instant.
+ */
+import { RowdeckError } from '../errors.js';
+import { VERSION } from '../version.js';
+import { MAIN_HELP } from './help.js';
+
+export interface CliIO {
+  stdout: NodeJS.WritableStream & { isTTY?: boolean };
+  stderr: NodeJS.WritableStream & { isTTY?: boolean };
+}
+
+const COMMANDS: Record<string, () => Promise<{ run(argv: string[], io: CliIO): Promise<number> }>> = {
+  shuffle: () => import('./commands/shuffle.js'),
+  profile: () => import('./commands/profile.js'),
+  verify: () => import('./commands/verify.js'),
+};
+
+export async function runCli(argv: string[], io: CliIO = { stdout: process.stdout, stderr: process.stderr }): Promise<number> {
+  const [cmd, ...rest] = argv;
+  if (cmd === undefined || cmd === '--help' || cmd === '-h' || cmd === 'help') {
+    if (cmd === 'help' && rest[0] && COMMANDS[rest[0]]) return runCli([rest[0], '--help'], io);
+    io.stdout.write(MAIN_HELP);
+    return cmd === undefined ? 2 : 0;
+  }
+  if (cmd === '--version' || cmd === '-V') {
+    io.stdout.write(`rowdeck ${VERSION}\n`);
+    return 0;
+  }
+  const load = COMMANDS[cmd];
+  try {
+    if (!load) {
+      throw new RowdeckError('ERR_UNKNOWN_COMMAND', `unknown command "${cmd}". Commands: ${Object.keys(COMMANDS).join(', ')}. See rowdeck --help.`);
+    }
+    const mod = await load();
+    return await mod.run(rest, io);
+  } catch (err) {
+    return reportError(err, io);
+  }
+}
+
+export function reportError(err: unknown, io: CliIO): number {
+  if (err instanceof RowdeckError) {
+    io.stderr.write(`rowdeck: error ${err.code}: ${err.message}\n`);
+    if (err.isUsage) io.stderr.write('Run with --help for usage.\n');
+    return err.isUsage ? 2 : 1;
+  }
+  const e = err as Error;
+  io.stderr.write(`rowdeck: internal error: ${e?.stack ?? String(err)}\nPlease report this with the command you ran.\n`);
+  return 1;
+}
+
+// Run when executed directly (not when imported by tests).
+const invokedAs = process.argv[1] ?? '';
+if (/(?:^|[\\/])(?:main\.js|rowdeck)$/.test(invokedAs)) {
+  // A closed stdout (e.g. piped into `head`) is a normal way to stop, not a crash.
+  process.stdout.on('error', (e: NodeJS.ErrnoException) => {
+    if (e.code === 'EPIPE') process.exit(0);
+    throw e;
+  });
+  runCli(process.argv.slice(2)).then(
+    (code) => {
+      process.exitCode = code;
+    },
+    (err) => {
+      process.exitCode = reportError(err, { stdout: process.stdout, stderr: process.stderr });
+    },
+  );
+}

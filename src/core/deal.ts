@@ -1,0 +1,169 @@
+/**
+ * Dealing: which part (split × partition) and fold each record goes to, decided from counts
+ * alone so that every bucket can be dealt independently, in any order, on any thread.
+ *
+ * Within one stratum the records in key order are a uniformly random ordering, so handing the
+ * r-th of them to a cell chosen by a fixed rule gives a uniformly random assignment with exact
+ * quotas. The rule used here:
+ *   1. split: contiguous rank blocks of the stratum's split quotas (quotas within one record of
+ *      the weight, leftovers to the split furthest behind overall);
+ *   2. inside split i, the record's position j in that split's dealing sequence continues from
+ *      stratum to stratum (strata in a seeded order), and cell t = j mod (P·K) gives the
+ *      partition p = t mod P and the fold f = (t + ⌊t / lcm(P,K)⌋) mod K. Each cell is visited
+ *      once per cycle (counts per stratum and cell within one), partitions cycle with period P
+ *      (per stratum within one, totals within one), folds within two.
+ * This module is pure: no I/O.
+ */
+
+export interface SplitSpec {
+  name: string;
+  /** Fraction of the records (weights are normalised) or, with `exact`, a record count. */
+  weight: number;
+}
+
+export interface DealSpec {
+  splits: SplitSpec[];
+  /** True when weights are record counts that must be met exactly. */
+  exactCounts: boolean;
+  partitions: number;
+  folds: number;
+}
+
+/** Per-stratum quotas and offsets that turn a (stratum, rank) into a cell. */
+export interface DealTable {
+  spec: DealSpec;
+  /** Strata in dealing order; index = dealing stratum id. */
+  strataCount: number;
+  /** `quota[s * S + i]`: records of stratum s in split i. */
+  quota: Float64Array;
+  /** `cumQuota[s * (S + 1) + i]`: first rank of stratum s that goes to split i. */
+  cumQuota: Float64Array;
+  /** `offset[s * S + i]`: position in split i's dealing sequence of stratum s's first record there. */
+  offset: Float64Array;
+}
+
+export function gcd(a: number, b: number): number {
+  while (b) [a, b] = [b, a % b];
+  return a;
+}
+
+/** Maps a position in a split's dealing sequence to (partition, fold). */
+export function cellOf(j: number, partitions: number, folds: number): { partition: number; fold: number } {
+  const m = partitions * folds;
+  const t = j % m;
+  const l = (partitions * folds) / gcd(partitions, folds);
+  return { partition: t % partitions, fold: (t + Math.floor(t / l)) % folds };
+}
+
+/**
+ * Splits each stratum's records over the splits. Strata are taken in dealing order; every
+ * stratum's quota for a split is the floor or the ceiling of its weighted share, and the
+ * leftover records go to the splits furthest behind their overall target, which keeps the
+ * split totals within about one record of their targets too.
+ */
+export function computeQuotas(strataSizes: ArrayLike<number>, spec: DealSpec): Float64Array {
+  const S = spec.splits.length;
+  const nStrata = strataSizes.length;
+  const quota = new Float64Array(nStrata * S);
+  let total = 0;
+  for (let s = 0; s < nStrata; s++) total += strataSizes[s]!;
+  const wsum = spec.splits.reduce((a, b) => a + b.weight, 0);
+  const w = spec.splits.map((x) => x.weight / wsum);
+  const given = new Float64Array(S);
+  let seen = 0;
+  const idx = Array.from({ length: S }, (_, i) => i);
+  const deficit = new Float64Array(S);
+  const frac = new Float64Array(S);
+  for (let s = 0; s < nStrata; s++) {
+    const n = strataSizes[s]!;
+    seen += n;
+    let left = n;
+    for (let i = 0; i < S; i++) {
+      const share = w[i]! * n;
+      const base = Math.floor(share + 1e-9);
+      quota[s * S + i] = base;
+      left -= base;
+      frac[i] = share - base;
+      // Targets use exact rational arithmetic where counts are given, to land exactly on them.
+      const target = spec.exactCounts ? (spec.splits[i]!.weight * seen) / wsum : w[i]! * seen;
+      deficit[i] = target - given[i]! - base;
+    }
+    idx.sort((a, b) => deficit[b]! - deficit[a]! || frac[b]! - frac[a]! || a - b);
+    for (let k = 0; k < left; k++) quota[s * S + idx[k % S]!]! += 1;
+    for (let i = 0; i < S; i++) given[i]! += quota[s * S + i]!;
+  }
+  return quota;
+}
+
+/** Builds the dealing table from the stratum sizes (already in dealing order). */
+export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec): DealTable {
+  const S = spec.splits.length;
+  const nStrata = strataSizes.length;
+  const quota = computeQuotas(strataSizes, spec);
+  const cumQuota = new Float64Array(nStrata * (S + 1));
+  const offset = new Float64Array(nStrata * S);
+  const running = new Float64Array(S);
+  for (let s = 0; s < nStrata; s++) {
+    let c = 0;
+    for (let i = 0; i < S; i++) {
+      cumQuota[s * (S + 1) + i] = c;
+      c += quota[s * S + i]!;
+      offset[s * S + i] = running[i]!;
+      running[i]! += quota[s * S + i]!;
+    }
+    cumQuota[s * (S + 1) + S] = c;
+  }
+  return { spec, strataCount: nStrata, quota, cumQuota, offset };
+}
+
+/**
+ * The cell of the record of rank `rank` within stratum `s`. Returns split index, partition and
+ * fold packed as `split * P * K + partition * K + fold` (a "cell id").
+ */
+export function dealRecord(table: DealTable, s: number, rank: number): number {
+  const { splits, partitions: P, folds: K } = table.spec;
+  const S = splits.length;
+  const base = s * (S + 1);
+  let i = 0;
+  while (i < S - 1 && rank >= table.cumQuota[base + i + 1]!) i++;
+  const j = table.offset[s * S + i]! + (rank - table.cumQuota[base + i]!);
+  const m = P * K;
+  const t = j % m;
+  const l = m / gcd(P, K);
+  const p = t % P;
+  const f = (t + Math.floor(t / l)) % K;
+  return (i * P + p) * K + f;
+}
+
+/** Count of integers j in [a, b) with j ≡ t (mod m). */
+function countResidue(a: number, b: number, t: number, m: number): number {
+  if (b <= a) return 0;
+  return Math.floor((b - 1 - t) / m) - Math.floor((a - 1 - t) / m);
+}
+
+/**
+ * Exact per-cell counts of every stratum, computed from the table without dealing a record:
+ * `result[s * cells + cell]`. Lets the tolerance be checked before anything is written.
+ */
+export function countCells(table: DealTable): Float64Array {
+  const { splits, partitions: P, folds: K } = table.spec;
+  const S = splits.length;
+  const m = P * K;
+  const l = m / gcd(P, K);
+  const cells = S * m;
+  const out = new Float64Array(table.strataCount * cells);
+  for (let s = 0; s < table.strataCount; s++) {
+    for (let i = 0; i < S; i++) {
+      const a = table.offset[s * S + i]!;
+      const b = a + table.quota[s * S + i]!;
+      for (let t = 0; t < m; t++) {
+        const n = countResidue(a, b, t, m);
+        if (!n) continue;
+        const p = t % P;
+        const f = (t + Math.floor(t / l)) % K;
+        out[s * cells + (i * P + p) * K + f]! += n;
+      }
+    }
+  }
+  return out;
+}

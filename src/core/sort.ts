@@ -1,0 +1,62 @@
+/**
+ * Orders the records of one bucket by (key, identity). All keys in a bucket share their top
+ * `bits` bits, so the next 32 bits are sorted with two LSD radix passes of 16 bits, and the rare
+ * runs whose 32 bits tie are finished by comparing the whole key, then the identity (input,
+ * offset). Typed arrays only; no comparator calls on the common path.
+ */
+
+export interface SortKeys {
+  keyHi: Uint32Array;
+  keyLo: Uint32Array;
+  /** Identity tie-breakers: input ordinal and byte offset. */
+  input: Uint32Array;
+  offset: Float64Array;
+}
+
+export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Array {
+  const { keyHi, keyLo } = keys;
+  const digit = new Uint32Array(count);
+  for (let i = 0; i < count; i++) {
+    digit[i] = bits === 0 ? keyHi[i]! : ((keyHi[i]! << bits) | (keyLo[i]! >>> (32 - bits))) >>> 0;
+  }
+  let order = new Uint32Array(count);
+  let tmp = new Uint32Array(count);
+  for (let i = 0; i < count; i++) order[i] = i;
+  const hist = new Uint32Array(65536);
+  for (const shift of [0, 16]) {
+    hist.fill(0);
+    for (let i = 0; i < count; i++) hist[(digit[i]! >>> shift) & 0xffff]!++;
+    let sum = 0;
+    for (let d = 0; d < 65536; d++) {
+      const c = hist[d]!;
+      hist[d] = sum;
+      sum += c;
+    }
+    for (let i = 0; i < count; i++) {
+      const r = order[i]!;
+      tmp[hist[(digit[r]! >>> shift) & 0xffff]!++] = r;
+    }
+    [order, tmp] = [tmp, order];
+  }
+  // Finish runs of equal 32-bit digits with a full comparison.
+  for (let i = 0; i < count; ) {
+    let j = i + 1;
+    const d = digit[order[i]!]!;
+    while (j < count && digit[order[j]!] === d) j++;
+    if (j - i > 1) {
+      const run = Array.from(order.subarray(i, j)).sort((a, b) => compareRecords(keys, a, b));
+      order.set(run, i);
+    }
+    i = j;
+  }
+  return order;
+}
+
+export function compareRecords(keys: SortKeys, a: number, b: number): number {
+  return (
+    keys.keyHi[a]! - keys.keyHi[b]! ||
+    keys.keyLo[a]! - keys.keyLo[b]! ||
+    keys.input[a]! - keys.input[b]! ||
+    keys.offset[a]! - keys.offset[b]!
+  );
+}

@@ -1,0 +1,168 @@
+/**
+ * The manifest: what went in, what came out, and the evidence that nothing was lost. Keys are
+ * built in a fixed order and arrays follow fixed orders (inputs as given, parts by split then
+ * partition, strata by value), so two runs with the same seed give byte-identical manifests
+ * except in `run` (time, host, timings).
+ */
+import type { DealSpec } from '../core/deal.js';
+import type { InputFormat, InputSchema } from '../io/batch.js';
+import type { ResolvedShuffleOptions } from '../options.js';
+import { stratumValues } from './scatter.js';
+
+export const MANIFEST_VERSION = 1;
+
+export interface PartRecord {
+  path: string;
+  split: string | null;
+  partition: number;
+  records: number;
+  bytes: number;
+  sha256: string;
+  /** Records per stratum, aligned with `strata.values`. */
+  strata: number[];
+  folds: number[] | null;
+  /** `foldStrata[fold][stratum]`. */
+  foldStrata: number[][] | null;
+  fingerprint: string;
+  stats?: unknown;
+}
+
+export interface Manifest {
+  manifestVersion: number;
+  tool: { name: 'rowdeck'; version: string };
+  seed: string | null;
+  seedIsDefault: boolean;
+  options: Record<string, unknown>;
+  input: {
+    format: InputFormat;
+    columns: string[];
+    files: { path: string; bytes: number; records: number; rejected: number }[];
+    records: number;
+    rejected: number;
+    rejectsFile: string | null;
+    fingerprint: string;
+    stats?: unknown;
+  };
+  strata: {
+    columns: string[];
+    /** One entry per stratum; `value` is null for every entry when values are excluded. */
+    values: { value: (string | null)[] | null; records: number }[];
+  };
+  balance: {
+    tolerance: number;
+    /** Largest relative deviation of a stratum's share in a part or fold from its overall share. */
+    maxDeviation: number;
+    worst: { in: 'part' | 'fold'; unit: string; stratum: number } | null;
+  };
+  output: {
+    records: number;
+    fingerprint: string;
+    foldColumn: string | null;
+    parts: PartRecord[];
+  };
+  run: {
+    createdAt: string;
+    buckets: number;
+    timingsMs: Record<string, number>;
+    host: Record<string, unknown>;
+  };
+}
+
+export interface ManifestInput {
+  version: string;
+  options: ResolvedShuffleOptions;
+  format: InputFormat;
+  schema: InputSchema;
+  inputs: { path: string; bytes: number; records: number; rejected: number }[];
+  records: number;
+  rejected: number;
+  rejectsFile: string | null;
+  /** Strata in dealing order, with their sizes. */
+  strataKeys: string[];
+  strataSizes: number[];
+  deal: DealSpec;
+  buckets: number;
+  parts: PartRecord[];
+  deviation: { max: number; kind: 'part' | 'fold'; part: number; stratum: number };
+  fingerprints: { input: string; output: string };
+  timings: Record<string, number>;
+  host: Record<string, unknown>;
+  inputStats?: unknown;
+}
+
+export function buildManifest(m: ManifestInput): Manifest {
+  const o = m.options;
+  // Strata are listed by value (stable, readable); parts' counts are re-indexed to match.
+  const byValue = m.strataKeys.map((_, i) => i).sort((a, b) => (m.strataKeys[a]! < m.strataKeys[b]! ? -1 : m.strataKeys[a]! > m.strataKeys[b]! ? 1 : 0));
+  const reindex = (arr: number[]): number[] => byValue.map((i) => arr[i]!);
+  const newIndex = new Array<number>(byValue.length);
+  byValue.forEach((old, k) => (newIndex[old] = k));
+  const worstUnit = m.deviation.part < 0 ? null : m.deviation.kind === 'part' ? m.parts[m.deviation.part]!.path : `fold ${m.deviation.part % m.deal.folds}`;
+  return {
+    manifestVersion: MANIFEST_VERSION,
+    tool: { name: 'rowdeck', version: m.version },
+    seed: o.seed,
+    seedIsDefault: o.seedWasDefault,
+    options: {
+      partitions: o.partitions,
+      stratify: o.stratify.map((s) => (s.bins ? `${s.name}:bins=${s.bins}` : s.name)),
+      tolerance: o.tolerance,
+      folds: o.folds,
+      foldColumn: o.foldColumn,
+      split: o.splits.length > 1 ? m.deal.splits.map((s) => ({ name: s.name, weight: s.weight })) : null,
+      splitWeightsAreCounts: o.splitsAreCounts,
+      group: o.group,
+      key: o.key,
+      assign: o.assign,
+      format: m.format,
+      delimiter: m.format === 'jsonl' ? null : String.fromCharCode(m.schema.delimiter),
+      header: o.header,
+      gzip: o.gzip,
+      onBadRecord: o.onBadRecord,
+      excludeValues: o.excludeValues,
+    },
+    input: {
+      format: m.format,
+      columns: m.schema.columns,
+      files: m.inputs.map((f) => ({ path: f.path, bytes: f.bytes, records: f.records, rejected: f.rejected })),
+      records: m.records,
+      rejected: m.rejected,
+      rejectsFile: m.rejectsFile,
+      fingerprint: m.fingerprints.input,
+      ...(m.inputStats !== undefined ? { stats: m.inputStats } : {}),
+    },
+    strata: {
+      columns: o.stratify.map((s) => s.name),
+      values: byValue.map((i) => ({ value: o.excludeValues ? null : o.stratify.length ? stratumValues(m.strataKeys[i]!) : [], records: m.strataSizes[i]! })),
+    },
+    balance: {
+      tolerance: o.tolerance,
+      maxDeviation: m.deviation.max,
+      worst: worstUnit === null ? null : { in: m.deviation.kind, unit: worstUnit, stratum: newIndex[m.deviation.stratum]! },
+    },
+    output: {
+      records: m.parts.reduce((a, p) => a + p.records, 0),
+      fingerprint: m.fingerprints.output,
+      foldColumn: o.foldColumn,
+      parts: m.parts.map((p) => ({
+        path: p.path,
+        split: p.split,
+        partition: p.partition,
+        records: p.records,
+        bytes: p.bytes,
+        sha256: p.sha256,
+        strata: reindex(p.strata),
+        folds: p.folds,
+        foldStrata: p.foldStrata ? p.foldStrata.map(reindex) : null,
+        fingerprint: p.fingerprint,
+        ...(p.stats !== undefined ? { stats: p.stats } : {}),
+      })),
+    },
+    run: {
+      createdAt: new Date().toISOString(),
+      buckets: m.buckets,
+      timingsMs: m.timings,
+      host: m.host,
+    },
+  };
+}

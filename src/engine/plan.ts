@@ -1,0 +1,45 @@
+/**
+ * The plan: the small, serialisable description that stage 1 (scatter) hands to stage 2
+ * (gather). Stage 2 needs nothing else but the spill files, so the two stages can run as
+ * separate tasks, on separate threads, processes or machines.
+ */
+import type { DealSpec } from '../core/deal.js';
+import type { InputFormat } from '../io/batch.js';
+
+export type AssignMode = 'exact' | 'hash' | 'group';
+
+export interface GatherPlan {
+  version: 1;
+  /** Key bits that select the bucket: bucket = keyHi >>> (32 - bits). */
+  bits: number;
+  buckets: number;
+  /** Number of scatter tasks whose spill files make up each bucket. */
+  scatterTasks: number;
+  format: InputFormat;
+  delimiter: number;
+  /** Line terminator written for a record that had none (the last of an input). */
+  lineEnding: '\n' | '\r\n';
+  mode: AssignMode;
+  deal: DealSpec;
+  /** Name of the appended fold column, or null when no fold column is written. */
+  foldColumn: string | null;
+  strataCount: number;
+  /** Per scatter task: local stratum id -> dealing stratum id. */
+  localToGlobal: number[][];
+  quota: number[];
+  cumQuota: number[];
+  offset: number[];
+  /** Secret words for hash-mode cells (derived from the seed). */
+  cellSecret: number[];
+  /** Group mode: file (in the spill folder) holding sorted group keys and their cells. */
+  groupsFile: string | null;
+  /** Column names, for per-part statistics; empty disables them. */
+  statsColumns: string[];
+  /** Leave data values (class names, frequent values, text min/max) out of the statistics. */
+  excludeValues: boolean;
+}
+
+/** Number of output parts: one file per (split, partition). */
+export function partCount(deal: DealSpec): number {
+  return deal.splits.length * deal.partitions;
+}

@@ -1,0 +1,202 @@
+/**
+ * Stage 1, scatter: stream the inputs, give every record its key, and append it to the spill
+ * bucket of its key range. Counts records per (bucket, stratum) for the plan, and collects what
+ * group and hash modes need. Runs on the main thread: it is bound by reading and splitting, and
+ * the records must be read in order anyway.
+ */
+import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
+import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
+import { decodeCsvQuoted } from '../io/reader.js';
+import { readRecords } from '../io/input.js';
+import { RowdeckError } from '../errors.js';
+import { BucketWriter } from './spill.js';
+
+/** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
+export const MISSING_KEY = '\uffff';
+/** Separator between the values of a multi-column stratum key (outside the latin1 range). */
+export const TUPLE_SEP = '\u0100';
+/** More strata than this is almost always a mistake (an ID column given to --stratify). */
+export const MAX_STRATA = 100_000;
+
+export interface ScatterOptions {
+  inputs: string[];
+  format: InputFormat;
+  delimiter: string | undefined;
+  header: boolean;
+  onBadRecord: BadRecordPolicy;
+  onReject: ((r: RejectedRecord) => void) | undefined;
+  stratify: string[];
+  key: string[];
+  group: string | null;
+  secret: Secret;
+  spillDir: string;
+  task: number;
+  bits: number;
+  bufferBytes: number;
+  onProgress?: (bytes: number, records: number) => void;
+}
+
+export interface GroupEntry {
+  hi: number;
+  lo: number;
+  size: number;
+  /** Records per local stratum id. */
+  strata: Map<number, number>;
+}
+
+export interface ScatterResult {
+  schema: InputSchema;
+  /** Local stratum id -> canonical stratum key. */
+  strata: string[];
+  /** `bucketCounts[stratum][bucket]`: records. */
+  bucketCounts: Float64Array[];
+  bucketBytes: Float64Array;
+  bucketPaths: string[];
+  inputs: { path: string; bytes: number; records: number; rejected: number }[];
+  records: number;
+  rejected: number;
+  fingerprint: Fingerprint;
+  groups: GroupEntry[] | null;
+}
+
+/** Canonical text of one wanted field: the latin1 rendering of its decoded UTF-8 bytes. */
+export function fieldKey(b: RecordBatch, i: number, w: number): string {
+  const k = i * b.wanted + w;
+  const s = b.fieldStart[k]!;
+  const e = b.fieldEnd[k]!;
+  switch (b.fieldKind[k]) {
+    case FieldKind.Plain:
+      return s === e ? MISSING_KEY : b.data.toString('latin1', s, e);
+    case FieldKind.CsvQuoted:
+      return Buffer.from(decodeCsvQuoted(b.data, s, e), 'utf8').toString('latin1');
+    case FieldKind.JsonString: {
+      const v = JSON.parse(b.data.toString('utf8', s, e)) as string;
+      return Buffer.from(v, 'utf8').toString('latin1');
+    }
+    default:
+      return MISSING_KEY;
+  }
+}
+
+/** Human form of a canonical stratum key: values decoded, missing shown as null. */
+export function stratumValues(key: string): (string | null)[] {
+  return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
+}
+
+export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
+  const nStrat = o.stratify.length;
+  const nKey = o.key.length;
+  const groupSlot = o.group !== null ? nStrat + nKey : -1;
+  const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
+  const B = 2 ** o.bits;
+  const writer = new BucketWriter(o.spillDir, o.task, B, o.bufferBytes);
+  const strataIds = new Map<string, number>();
+  const strata: string[] = [];
+  const bucketCounts: Float64Array[] = [];
+  const fp = new Fingerprint();
+  const groups = o.group !== null ? new Map<string, GroupEntry>() : null;
+  const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
+  let schema: InputSchema | null = null;
+  let records = 0;
+  let bytesSeen = 0;
+  const keyBuf: Buffer[] = [];
+  const shift = 32 - o.bits;
+
+  const stratumOf = (b: RecordBatch, i: number): number => {
+    let k: string;
+    if (nStrat === 0) k = '';
+    else if (nStrat === 1) k = fieldKey(b, i, 0);
+    else {
+      k = fieldKey(b, i, 0);
+      for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + fieldKey(b, i, w);
+    }
+    let id = strataIds.get(k);
+    if (id === undefined) {
+      id = strata.length;
+      if (id >= MAX_STRATA) {
+        throw new RowdeckError(
+          'ERR_OPTION',
+          `--stratify ${o.stratify.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
+          { column: o.stratify.join(',') },
+        );
+      }
+      strataIds.set(k, id);
+      strata.push(k);
+      bucketCounts.push(new Float64Array(B));
+    }
+    return id;
+  };
+
+  try {
+    for await (const { input, batch, schema: sch, stats } of readRecords(o.inputs, {
+      format: o.format,
+      ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}),
+      header: o.header,
+      wanted,
+      onBadRecord: o.onBadRecord,
+      onReject: o.onReject,
+    })) {
+      schema ??= sch;
+      const d = batch.data;
+      const n = batch.count;
+      for (let i = 0; i < n; i++) {
+        const s = batch.start[i]!;
+        const e = batch.end[i]!;
+        const term = batch.next[i]! - e;
+        const offset = batch.offset[i]!;
+        let hi: number;
+        let lo: number;
+        if (groupSlot >= 0 || nKey > 0) {
+          // Keys from column values: equal values, equal keys, wherever the record sits.
+          let text = '';
+          if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
+          else for (let w = 0; w < nKey; w++) text += (w ? TUPLE_SEP : '') + fieldKey(batch, i, nStrat + w);
+          const kb = (keyBuf[0] ??= Buffer.allocUnsafe(4096));
+          const len = kb.write(text, 0, 'latin1');
+          const h = len < 4096 ? hashBytes(o.secret, kb, 0, len) : hashBytes(o.secret, Buffer.from(text, 'latin1'), 0, Buffer.byteLength(text, 'latin1'));
+          hi = h[0]!;
+          lo = h[1]!;
+        } else {
+          const h = hashWords3(o.secret, input, Math.floor(offset / 0x100000000), offset >>> 0);
+          hi = h[0]!;
+          lo = h[1]!;
+        }
+        const st = stratumOf(batch, i);
+        const bucket = o.bits === 0 ? 0 : hi >>> shift;
+        writer.append(bucket, hi, lo, offset, input, st, d, s, e, term);
+        bucketCounts[st]![bucket]!++;
+        fp.addBytes(d, s, e);
+        if (groups) {
+          const gk = `${hi}:${lo}`;
+          let g = groups.get(gk);
+          if (!g) groups.set(gk, (g = { hi, lo, size: 0, strata: new Map() }));
+          g.size++;
+          g.strata.set(st, (g.strata.get(st) ?? 0) + 1);
+        }
+      }
+      records += n;
+      inputs[input]!.records += n;
+      inputs[input]!.bytes = stats.bytes;
+      inputs[input]!.rejected = stats.rejected;
+      bytesSeen = inputs.reduce((a, x) => a + x.bytes, 0);
+      o.onProgress?.(bytesSeen, records);
+    }
+    writer.close();
+  } catch (err) {
+    writer.abandon();
+    throw err;
+  }
+  if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+  return {
+    schema,
+    strata,
+    bucketCounts,
+    bucketBytes: writer.bytes,
+    bucketPaths: writer.paths,
+    inputs,
+    records,
+    rejected: inputs.reduce((a, x) => a + x.rejected, 0),
+    fingerprint: fp,
+    groups: groups ? [...groups.values()] : null,
+  };
+}

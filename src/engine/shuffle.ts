@@ -1,0 +1,529 @@
+/**
+ * `shuffle()`: the whole job, stage by stage.
+ *
+ *   inputs ─▶ scatter (main thread) ─▶ spill buckets + counts ─▶ plan (quotas, tolerance check)
+ *          ─▶ gather (worker pool, one bucket per task) ─▶ ordered part writers ─▶ manifest
+ *          ─▶ rename the finished folder into place
+ *
+ * Output goes to a hidden folder beside the target and is renamed into place only after the
+ * manifest is written, so a failed or killed run never leaves a folder that looks complete.
+ * Spill files live in their own hidden folder, removed on success and on failure.
+ */
+import { mkdirSync, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeFileSync, openSync, readSync, closeSync } from 'node:fs';
+import { basename, dirname, join, resolve } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { existsSync, readFileSync } from 'node:fs';
+import { cpus, hostname, totalmem } from 'node:os';
+import { Piscina } from 'piscina';
+import { stringify } from 'csv-stringify/sync';
+import { buildDealTable, countCells, type DealSpec } from '../core/deal.js';
+import { deriveSecret, Fingerprint } from '../core/hash.js';
+import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
+import { fromWire, RowdeckError } from '../errors.js';
+import type { InputFormat, RejectedRecord } from '../io/batch.js';
+import { detectFormat } from '../io/input.js';
+import { PartWriter } from '../io/part-writer.js';
+import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
+import { hashCell, type GatherResult } from './gather.js';
+import { partCount, type GatherPlan } from './plan.js';
+import { scatter, stratumValues, type ScatterResult } from './scatter.js';
+import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
+import type { WorkerReply, WorkerTask } from '../workers/gather-worker.js';
+import { VERSION } from '../version.js';
+
+/** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
+export function resolveWorkerFile(): string {
+  const here = dirname(fileURLToPath(import.meta.url));
+  const beside = join(here, '..', 'workers', 'gather-worker.js');
+  if (existsSync(beside)) return beside;
+  const built = join(here, '..', '..', 'dist', 'workers', 'gather-worker.js');
+  if (existsSync(built)) return built;
+  throw new RowdeckError('ERR_INTERNAL', `worker module not found at ${beside}; run "npm run build" first.`);
+}
+
+const EXT: Record<InputFormat, string> = { csv: '.csv', tsv: '.tsv', jsonl: '.jsonl' };
+
+/** Size of the uncompressed data of a gzip file, from its trailer (mod 2^32), or a guess. */
+function estimateInputBytes(path: string): number {
+  if (path === '-') return 1024 ** 3;
+  const st = statSync(path);
+  let fd = -1;
+  try {
+    fd = openSync(path, 'r');
+    const head = Buffer.alloc(2);
+    readSync(fd, head, 0, 2, 0);
+    if (head[0] !== 0x1f || head[1] !== 0x8b || st.size < 18) return st.size;
+    const tail = Buffer.alloc(4);
+    readSync(fd, tail, 0, 4, st.size - 4);
+    return Math.max(tail.readUInt32LE(0), st.size * 4);
+  } finally {
+    if (fd >= 0) closeSync(fd);
+  }
+}
+
+interface Cleanup {
+  paths: Set<string>;
+  run(): void;
+}
+
+function createCleanup(): Cleanup {
+  const paths = new Set<string>();
+  return {
+    paths,
+    run() {
+      for (const p of paths) rmSync(p, { recursive: true, force: true });
+      paths.clear();
+    },
+  };
+}
+
+/** Removes our hidden folders if the process is interrupted, then lets the signal do its work. */
+function onSignals(cleanup: Cleanup): () => void {
+  const handler = (sig: NodeJS.Signals): void => {
+    cleanup.run();
+    process.removeListener('SIGINT', handler);
+    process.removeListener('SIGTERM', handler);
+    process.kill(process.pid, sig);
+  };
+  process.on('SIGINT', handler);
+  process.on('SIGTERM', handler);
+  return () => {
+    process.removeListener('SIGINT', handler);
+    process.removeListener('SIGTERM', handler);
+  };
+}
+
+function checkTarget(out: string, force: boolean): void {
+  let entries: string[] = [];
+  try {
+    const st = statSync(out);
+    if (!st.isDirectory()) {
+      throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out} exists and is not a folder. Choose another --out path.`, { file: out });
+    }
+    entries = readdirSync(out);
+  } catch (err) {
+    if ((err as NodeJS.ErrnoException).code === 'ENOENT') return;
+    throw err;
+  }
+  if (entries.length > 0 && !force) {
+    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out} is not empty (${entries.length} entries). Choose another --out folder, or pass --force to replace it.`, { file: out });
+  }
+}
+
+export interface PartInfo {
+  path: string;
+  split: string | null;
+  partition: number;
+}
+
+export function partLayout(o: ResolvedShuffleOptions, format: InputFormat): PartInfo[] {
+  const ext = EXT[format] + (o.gzip ? '.gz' : '');
+  const named = o.splits.length > 1;
+  const parts: PartInfo[] = [];
+  for (const s of o.splits) {
+    for (let p = 0; p < o.partitions; p++) {
+      const file = `part-${String(p).padStart(5, '0')}${ext}`;
+      if (!named) parts.push({ path: file, split: null, partition: p });
+      else if (o.partitions === 1) parts.push({ path: `${s.name}${ext}`, split: s.name, partition: 0 });
+      else parts.push({ path: `${s.name}/${file}`, split: s.name, partition: p });
+    }
+  }
+  return parts;
+}
+
+/** Resolves '*' (the rest) and checks that record counts fit the input. */
+function resolveSplitWeights(o: ResolvedShuffleOptions, records: number): DealSpec['splits'] {
+  if (!o.splitsAreCounts) return o.splits;
+  const given = o.splits.reduce((a, s, i) => (i === o.restSplit ? a : a + s.weight), 0);
+  if (o.restSplit >= 0) {
+    if (given > records) {
+      throw new RowdeckError('ERR_SPLIT_SIZES', `--split asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
+    }
+    return o.splits.map((s, i) => (i === o.restSplit ? { name: s.name, weight: records - given } : s));
+  }
+  if (given !== records) {
+    throw new RowdeckError(
+      'ERR_SPLIT_SIZES',
+      `--split counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
+    );
+  }
+  return o.splits;
+}
+
+export interface ShuffleRun {
+  manifest: Manifest;
+  /** Final output folder. */
+  out: string;
+}
+
+/** Shuffles and deals the inputs; returns the manifest written to `out/manifest.json`. */
+export async function shuffle(options: ShuffleOptions): Promise<Manifest> {
+  return (await runShuffle(options)).manifest;
+}
+
+export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
+  const o = resolveShuffleOptions(options);
+  const t0 = Date.now();
+  const timings: Record<string, number> = {};
+  const out = resolve(o.out);
+  checkTarget(out, o.force);
+  for (const p of o.inputs) {
+    if (p !== '-' && !existsSync(p)) throw new RowdeckError('ERR_INPUT_NOT_FOUND', `${p}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: p });
+  }
+  const format = o.format ?? detectFormat(o.inputs[0] === '-' ? 'stdin.csv' : o.inputs[0]!);
+  const secret = deriveSecret(o.seed);
+  const cellSecret = deriveSecret(`${o.seed}\u0000cell`);
+
+  const parent = dirname(out);
+  mkdirSync(parent, { recursive: true });
+  const cleanup = createCleanup();
+  const unhook = onSignals(cleanup);
+  let pool: Piscina | null = null;
+  const writers: PartWriter[] = [];
+  try {
+    const spillRoot = o.tempDir ? resolve(o.tempDir) : parent;
+    mkdirSync(spillRoot, { recursive: true });
+    const spillDir = mkdtempSync(join(spillRoot, `.rowdeck-spill-`));
+    cleanup.paths.add(spillDir);
+    const stage = mkdtempSync(join(parent, `.rowdeck-partial-${basename(out)}-`));
+    cleanup.paths.add(stage);
+
+    // Bucket size: a few buckets in flight per thread, plus their outputs, must fit the budget.
+    const inFlight = o.threads + 1;
+    const bucketTarget = Math.max(64 * 1024, Math.floor(o.memory / (3 * (inFlight + 1))));
+    const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
+    const bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, estimate / bucketTarget)))));
+    const buckets = 2 ** bits;
+    const spillBuffer = Math.max(16 * 1024, Math.min(1024 * 1024, Math.floor(o.memory / 4 / buckets)));
+
+    // Rejected records (quarantine) go to a CSV file inside the output folder.
+    const rejects: string[] = [];
+    const rejectedPerFile = new Map<string, number>();
+    const onReject = o.onBadRecord === 'fail' ? undefined : (r: RejectedRecord): void => {
+      rejectedPerFile.set(r.file, (rejectedPerFile.get(r.file) ?? 0) + 1);
+      if (o.onBadRecord === 'quarantine') {
+        rejects.push(stringify([[r.file, r.line, r.code, r.reason, r.bytes.toString('utf8')]]));
+      }
+    };
+
+    // ---- stage 1: scatter ----
+    const totalBytes = o.inputs.reduce((a, p) => a + (p === '-' ? 0 : statSync(p).size), 0);
+    const sc: ScatterResult = await scatter({
+      inputs: o.inputs,
+      format,
+      delimiter: o.delimiter ?? undefined,
+      header: o.header,
+      onBadRecord: o.onBadRecord,
+      onReject,
+      stratify: o.stratify.map((s) => s.name),
+      key: o.key,
+      group: o.group,
+      secret,
+      spillDir,
+      task: 0,
+      bits,
+      bufferBytes: spillBuffer,
+      onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
+    });
+    timings.scatterMs = Date.now() - t0;
+    const tPlan = Date.now();
+
+    // ---- plan ----
+    const order = orderStrata(sc.strata, secret);
+    const localToGlobal = new Array<number>(sc.strata.length);
+    order.forEach((local, g) => (localToGlobal[local] = g));
+    const strataKeys = order.map((l) => sc.strata[l]!);
+    const strataSizes = order.map((l) => sc.bucketCounts[l]!.reduce((a, b) => a + b, 0));
+    const records = sc.records;
+    if (records === 0) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+    const deal: DealSpec = {
+      splits: resolveSplitWeights(o, records),
+      exactCounts: o.splitsAreCounts,
+      partitions: o.partitions,
+      folds: o.folds,
+    };
+    const table = buildDealTable(strataSizes, deal);
+    const parts = partCount(deal);
+    const K = deal.folds;
+    const cells = parts * K;
+    const nStrata = strataKeys.length;
+    // Expected per-(cell, stratum) counts, known before anything is written.
+    let cellCounts: Float64Array;
+    let groupsFile: string | null = null;
+    if (o.assign === 'exact') {
+      cellCounts = countCells(table); // [s * cells + cell]
+      cellCounts = transpose(cellCounts, nStrata, cells);
+    } else if (o.assign === 'hash') {
+      cellCounts = new Float64Array(cells * nStrata);
+      const prep = { plan: { deal } as GatherPlan, cellSecret } as Parameters<typeof hashCell>[0];
+      // Keys are in the spill; the counts per cell need one pass over key and stratum only.
+      countHashCells(sc, bits, localToGlobal, nStrata, (hi, lo) => hashCell(prep, hi, lo), cellCounts);
+    } else {
+      const groups = sc.groups!.map((g) => ({ hi: g.hi, lo: g.lo, size: g.size, strata: new Map([...g.strata].map(([s, n]) => [localToGlobal[s]!, n])) }));
+      const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
+      const cellWeight: number[] = [];
+      for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));
+      const placed = placeGroups(groups, strataSizes, cellWeight);
+      cellCounts = new Float64Array(cells * nStrata);
+      groups.forEach((g, i) => g.strata.forEach((n, s) => (cellCounts[placed[i]! * nStrata + s]! += n)));
+      // Sorted (hi, lo) -> cell table for the workers.
+      const idx = groups.map((_, i) => i).sort((a, b) => groups[a]!.hi - groups[b]!.hi || groups[a]!.lo - groups[b]!.lo);
+      const n = groups.length;
+      const bin = new Uint32Array(n * 3);
+      idx.forEach((gi, k) => {
+        bin[k] = groups[gi]!.hi;
+        bin[n + k] = groups[gi]!.lo;
+        bin[2 * n + k] = placed[gi]!;
+      });
+      groupsFile = 'groups.bin';
+      writeFileSync(join(spillDir, groupsFile), bin);
+    }
+
+    // Tolerance: parts (files), and folds within each split.
+    const partStrata = new Float64Array(parts * nStrata);
+    for (let c = 0; c < cells; c++) for (let s = 0; s < nStrata; s++) partStrata[Math.floor(c / K) * nStrata + s]! += cellCounts[c * nStrata + s]!;
+    const layout = partLayout(o, format);
+    const partDev = maxDeviation(partStrata, parts, strataSizes);
+    let foldDev = { deviation: 0, unit: -1, stratum: -1 };
+    if (K > 1) {
+      const S = deal.splits.length;
+      const foldStrata = new Float64Array(S * K * nStrata);
+      for (let c = 0; c < cells; c++) {
+        const split = Math.floor(c / (deal.partitions * K));
+        const f = c % K;
+        for (let s = 0; s < nStrata; s++) foldStrata[(split * K + f) * nStrata + s]! += cellCounts[c * nStrata + s]!;
+      }
+      foldDev = maxDeviation(foldStrata, S * K, strataSizes);
+    }
+    const worst = foldDev.deviation > partDev.deviation ? { ...foldDev, kind: 'fold' as const } : { ...partDev, kind: 'part' as const };
+    if (worst.deviation > o.tolerance + 1e-12) {
+      throw toleranceError(o, worst, strataKeys, strataSizes, layout, deal, records);
+    }
+
+    const plan: GatherPlan = {
+      version: 1,
+      bits,
+      buckets,
+      scatterTasks: 1,
+      format,
+      delimiter: sc.schema.delimiter,
+      lineEnding: sc.schema.lineEnding,
+      mode: o.assign,
+      deal,
+      foldColumn: o.foldColumn,
+      strataCount: nStrata,
+      localToGlobal: [localToGlobal],
+      quota: Array.from(table.quota),
+      cumQuota: Array.from(table.cumQuota),
+      offset: Array.from(table.offset),
+      cellSecret: Array.from(cellSecret),
+      groupsFile,
+      statsColumns: o.stats ? sc.schema.columns : [],
+      excludeValues: o.excludeValues,
+    };
+    const planPath = join(spillDir, 'plan.json');
+    writeFileSync(planPath, JSON.stringify(plan));
+    timings.planMs = Date.now() - tPlan;
+    const tGather = Date.now();
+
+    // ---- stage 2: gather ----
+    for (const part of layout) mkdirSync(dirname(join(stage, part.path)), { recursive: true });
+    for (const part of layout) writers.push(new PartWriter(join(stage, part.path), o.gzip));
+    const header = headerBytes(sc, o, format);
+    if (header) for (const w of writers) await w.write(header);
+
+    // Rank of each stratum's first record in every bucket: prefix sums over buckets.
+    const running = new Float64Array(nStrata);
+    const rankStarts: Float64Array[] = [];
+    for (let b = 0; b < buckets; b++) {
+      rankStarts.push(Float64Array.from(running));
+      for (let l = 0; l < sc.strata.length; l++) running[localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
+    }
+
+    pool = new Piscina({ filename: resolveWorkerFile(), minThreads: o.threads, maxThreads: o.threads, idleTimeout: 1000 });
+    const counts = new Float64Array(parts * K * nStrata);
+    const fps = Array.from({ length: parts }, () => new Fingerprint());
+    const pending = new Map<number, Promise<GatherResult>>();
+    let written = 0;
+    const submit = (b: number): void => {
+      const task: WorkerTask = { planPath, bucket: b, paths: [sc.bucketPaths[b]!], rankStart: rankStarts[b]! };
+      const p = (pool!.run(task) as Promise<WorkerReply>).then((r) => {
+        if (!r.ok) throw fromWire(r.error);
+        return r.result;
+      });
+      p.catch(() => {});
+      pending.set(b, p);
+    };
+    let next = 0;
+    while (next < buckets && next < inFlight) submit(next++);
+    for (let b = 0; b < buckets; b++) {
+      const r = await pending.get(b)!;
+      pending.delete(b);
+      if (next < buckets) submit(next++);
+      const data = Buffer.from(r.data.buffer, r.data.byteOffset, r.data.byteLength);
+      for (let p = 0; p < parts; p++) {
+        const a = r.partStart[p]!;
+        const e = r.partStart[p + 1]!;
+        if (e > a) await writers[p]!.write(data.subarray(a, e));
+        fps[p]!.merge(r.fingerprints[p]!);
+      }
+      for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
+      written += r.data.byteLength;
+      o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
+    }
+    await pool.destroy();
+    pool = null;
+    const closed: { bytes: number; sha256: string }[] = [];
+    for (const w of writers) closed.push(await w.close());
+    writers.length = 0;
+    timings.gatherMs = Date.now() - tGather;
+    void written;
+
+    if (rejects.length > 0) {
+      writeFileSync(join(stage, 'rejected.csv'), stringify([['file', 'line', 'code', 'reason', 'record']]) + rejects.join(''));
+    }
+
+    // ---- manifest, then the rename that makes the output visible ----
+    const partRecords: PartRecord[] = layout.map((part, p) => {
+      const strata = new Array<number>(nStrata).fill(0);
+      const folds = new Array<number>(K).fill(0);
+      const foldStrata: number[][] = Array.from({ length: K }, () => new Array<number>(nStrata).fill(0));
+      for (let f = 0; f < K; f++) {
+        for (let s = 0; s < nStrata; s++) {
+          const n = counts[(p * K + f) * nStrata + s]!;
+          strata[s]! += n;
+          folds[f]! += n;
+          foldStrata[f]![s] = n;
+        }
+      }
+      return {
+        path: part.path,
+        split: part.split,
+        partition: part.partition,
+        records: strata.reduce((a, b) => a + b, 0),
+        bytes: closed[p]!.bytes,
+        sha256: closed[p]!.sha256,
+        strata,
+        folds: K > 1 ? folds : null,
+        foldStrata: K > 1 ? foldStrata : null,
+        fingerprint: fps[p]!.toHex(),
+      };
+    });
+    const outFp = new Fingerprint();
+    for (const f of fps) outFp.merge(f);
+    timings.totalMs = Date.now() - t0;
+    const manifest = buildManifest({
+      version: VERSION,
+      options: o,
+      format,
+      schema: sc.schema,
+      inputs: sc.inputs.map((x) => ({ ...x, rejected: rejectedPerFile.get(x.path === '-' ? '<stdin>' : x.path) ?? 0 })),
+      records,
+      rejected: [...rejectedPerFile.values()].reduce((a, b) => a + b, 0),
+      rejectsFile: rejects.length > 0 ? 'rejected.csv' : null,
+      strataKeys,
+      strataSizes,
+      deal,
+      buckets,
+      parts: partRecords,
+      deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
+      fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
+      timings,
+      host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
+    });
+    writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n');
+
+    // Swap into place: an old folder (with --force) is moved aside first, then removed.
+    if (existsSync(out)) {
+      const old = `${stage}-old`;
+      renameSync(out, old);
+      cleanup.paths.add(old);
+    }
+    renameSync(stage, out);
+    cleanup.paths.delete(stage);
+    return { manifest, out };
+  } finally {
+    for (const w of writers) w.abandon();
+    if (pool) await pool.destroy().catch(() => {});
+    cleanup.run();
+    unhook();
+  }
+}
+
+function transpose(a: Float64Array, rows: number, cols: number): Float64Array {
+  const out = new Float64Array(a.length);
+  for (let r = 0; r < rows; r++) for (let c = 0; c < cols; c++) out[c * rows + r] = a[r * cols + c]!;
+  return out;
+}
+
+/** Hash mode: the exact per-cell counts, from the keys in the spill, before anything is written. */
+function countHashCells(
+  sc: ScatterResult,
+  _bits: number,
+  localToGlobal: number[],
+  nStrata: number,
+  cellOf: (hi: number, lo: number) => number,
+  out: Float64Array,
+): void {
+  for (const path of sc.bucketPaths) {
+    const buf = readFileSyncAligned(path);
+    const u32 = new Uint32Array(buf.buffer, buf.byteOffset, buf.byteLength >>> 2);
+    for (let w = 0; w < u32.length; ) {
+      const cell = cellOf(u32[w]!, u32[w + 1]!);
+      out[cell * nStrata + localToGlobal[u32[w + 4]!]!]!++;
+      const len = u32[w + 5]! >>> 2;
+      w += 6 + ((len + 3) >>> 2);
+    }
+  }
+}
+
+function readFileSyncAligned(path: string): Buffer {
+  const b = readFileSync(path);
+  return b.byteOffset % 4 === 0 ? b : Buffer.from(b);
+}
+
+function headerBytes(sc: ScatterResult, o: ResolvedShuffleOptions, format: InputFormat): Buffer | null {
+  if (format === 'jsonl' || !sc.schema.headerBytes) return null;
+  let h = Buffer.from(sc.schema.headerBytes);
+  if (o.foldColumn !== null) {
+    const d = String.fromCharCode(sc.schema.delimiter);
+    const name = /["\r\n]/.test(o.foldColumn) || o.foldColumn.includes(d) ? `"${o.foldColumn.replaceAll('"', '""')}"` : o.foldColumn;
+    h = Buffer.concat([h, Buffer.from(d + name, 'utf8')]);
+  }
+  return Buffer.concat([h, Buffer.from(sc.schema.lineEnding, 'latin1')]);
+}
+
+function describeStratum(key: string, columns: string[], excludeValues: boolean, index: number): string {
+  if (excludeValues) return `stratum #${index + 1}`;
+  const vals = stratumValues(key);
+  if (columns.length === 0) return 'all records';
+  return columns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
+}
+
+function toleranceError(
+  o: ResolvedShuffleOptions,
+  worst: { deviation: number; unit: number; stratum: number; kind: 'part' | 'fold' },
+  strataKeys: string[],
+  strataSizes: number[],
+  layout: PartInfo[],
+  deal: DealSpec,
+  records: number,
+): RowdeckError {
+  const size = strataSizes[worst.stratum]!;
+  const what = describeStratum(strataKeys[worst.stratum]!, o.stratify.map((s) => s.name), o.excludeValues, worst.stratum);
+  const unit =
+    worst.kind === 'part'
+      ? `part ${layout[worst.unit]!.path}`
+      : `fold ${worst.unit % deal.folds}${deal.splits.length > 1 ? ` of split ${deal.splits[Math.floor(worst.unit / deal.folds)]!.name}` : ''}`;
+  const units = worst.kind === 'part' ? layout.length : deal.folds * deal.splits.length;
+  const hints: string[] = [];
+  if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} records for ${units} ${worst.kind}s)`);
+  hints.push(`a looser --tolerance (≥ ${Math.ceil(worst.deviation * 100) / 100})`);
+  if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
+  if (o.assign === 'group') hints.push('smaller or more groups');
+  return new RowdeckError(
+    'ERR_TOLERANCE',
+    `Cannot keep class ${what} (${size} of ${records} records) within --tolerance ${o.tolerance} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
+    { stratum: what, count: size, deviation: worst.deviation, tolerance: o.tolerance },
+  );
+}

@@ -1,0 +1,7 @@
+/** rowdeck's public API: functions and types only. */
+export { shuffle, runShuffle, type ShuffleRun } from './engine/shuffle.js';
+export type { Manifest, PartRecord } from './engine/manifest.js';
+export type { ShuffleOptions, ProgressEvent } from './options.js';
+export { RowdeckError, type RowdeckErrorCode, type ErrorDetails } from './errors.js';
+export type { InputFormat, BadRecordPolicy } from './io/batch.js';
+export { VERSION } from './version.js';

@@ -1,0 +1,91 @@
+/**
+ * Writes one output part: plain or gzip, computing the sha256 of the bytes that reach the disk
+ * as they are written (no second read). gzip runs on libuv's thread pool through zlib, and its
+ * output depends only on the bytes fed, not on how they were cut into writes, so a part's
+ * compressed bytes are as reproducible as its plain ones.
+ */
+import { createHash, type Hash } from 'node:crypto';
+import { closeSync, openSync, writeSync } from 'node:fs';
+import { createGzip, type Gzip } from 'node:zlib';
+import { ioError } from '../errors.js';
+
+export class PartWriter {
+  readonly path: string;
+  bytes = 0;
+  #fd: number;
+  #hash: Hash = createHash('sha256');
+  #gzip: Gzip | null = null;
+  #gzError: Error | null = null;
+  #gzDone: Promise<void> | null = null;
+
+  constructor(path: string, gzip: boolean) {
+    this.path = path;
+    try {
+      this.#fd = openSync(path, 'wx');
+    } catch (err) {
+      throw ioError(err, path, 'creating an output file');
+    }
+    if (gzip) {
+      const gz = createGzip({ level: 6 });
+      gz.on('data', (chunk: Buffer) => this.#writeRaw(chunk));
+      this.#gzDone = new Promise<void>((resolve, reject) => {
+        gz.on('end', resolve);
+        gz.on('error', (e) => {
+          this.#gzError = e;
+          reject(e);
+        });
+      });
+      this.#gzDone.catch(() => {});
+      this.#gzip = gz;
+    }
+  }
+
+  #writeRaw(buf: Uint8Array): void {
+    let off = 0;
+    try {
+      while (off < buf.byteLength) off += writeSync(this.#fd, buf, off, buf.byteLength - off);
+    } catch (err) {
+      throw ioError(err, this.path, 'writing an output file');
+    }
+    this.#hash.update(buf);
+    this.bytes += buf.byteLength;
+  }
+
+  /** Writes bytes; resolves when they may be reused (gzip applies backpressure). */
+  async write(buf: Uint8Array): Promise<void> {
+    if (buf.byteLength === 0) return;
+    if (!this.#gzip) {
+      this.#writeRaw(buf);
+      return;
+    }
+    if (this.#gzError) throw ioError(this.#gzError, this.path, 'compressing an output file');
+    // zlib may keep a reference to the chunk until it is processed: give it its own copy.
+    const ok = this.#gzip.write(Buffer.from(buf));
+    if (!ok) await new Promise<void>((resolve) => this.#gzip!.once('drain', resolve));
+  }
+
+  /** Finishes the file and returns its size and sha256. */
+  async close(): Promise<{ bytes: number; sha256: string }> {
+    try {
+      if (this.#gzip) {
+        this.#gzip.end();
+        await this.#gzDone;
+      }
+    } catch (err) {
+      throw ioError(err, this.path, 'compressing an output file');
+    } finally {
+      closeSync(this.#fd);
+    }
+    return { bytes: this.bytes, sha256: this.#hash.digest('hex') };
+  }
+
+  /** Closes without finishing (on failure; the file is removed with its folder). */
+  abandon(): void {
+    try {
+      this.#gzip?.destroy();
+      closeSync(this.#fd);
+    } catch {
+      // already closed
+    }
+  }
+}
