@@ -27,6 +27,9 @@ const SPLITTER = 134217729;
 /** Grow the expansion past this many terms, then compress it back (usually to 2 or 3 terms). */
 const COMPRESS_AT = 12;
 
+/** Work space for compress(), shared (single-threaded within one isolate). */
+let compressScratch = new Float64Array(64);
+
 export class ExactSum {
   /** Terms, increasing magnitude, non-overlapping, no zeros. Only the first `m` are live. */
   private t: Float64Array;
@@ -207,7 +210,8 @@ export class ExactSum {
     const m = this.m;
     if (m <= 1) return this;
     const e = this.t;
-    const g = new Float64Array(m);
+    if (compressScratch.length < m) compressScratch = new Float64Array(m * 2);
+    const g = compressScratch;
     let bottom = m - 1;
     let q = e[m - 1]!;
     for (let i = m - 2; i >= 0; i--) {
@@ -315,20 +319,127 @@ export interface SerializedMoments {
   s2: number[];
 }
 
+// --- binned front buffer ---------------------------------------------------------------------
+
+/** Bin j counts units of 2^(32j − 1074); 66 bins cover every finite double's bits. */
+const BIN_COUNT = 66;
+/** Each add puts at most one piece (< 2^32) into a bin; 2^20 adds keep every bin below 2^53. */
+const BIN_FLUSH_AFTER = 1 << 20;
+const TWO32 = 2 ** 32;
+const INV_TWO32 = 2 ** -32;
+/** 2^(32j − 1074) for each bin. */
+const BIN_UNIT = Float64Array.from({ length: BIN_COUNT }, (_, j) => 2 ** (32 * j - 1074));
+/** 2^(1074 − 32j) split in two factors so each is a finite double (2^1074 is not). */
+const BIN_SCALE_A = Float64Array.from({ length: BIN_COUNT }, (_, j) => 2 ** Math.ceil((1074 - 32 * j) / 2));
+const BIN_SCALE_B = Float64Array.from({ length: BIN_COUNT }, (_, j) => 2 ** Math.floor((1074 - 32 * j) / 2));
+const bitsF64 = new Float64Array(1);
+const bitsU32 = new Uint32Array(bitsF64.buffer);
+const HI_WORD = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1 ? 1 : 0; // little-endian: high word at [1]
+
+/**
+ * A fast exact accumulator for the hot path (a "superaccumulator" on a fixed binary grid): a value
+ * is cut at fixed 32-bit boundaries of its binary exponent into three integer pieces, each added to
+ * the bin for its position. Integer additions below 2^53 are exact, so the bins hold the exact sum
+ * while no bin can pass 2^53; before that, and whenever the value is read, the bins are emptied
+ * into an ExactSum. About 3x cheaper per value than growing an expansion directly.
+ * Valid for |x| <= 2^900 (the bin values times their units must stay finite).
+ */
+class BinnedSum {
+  private readonly bins = new Float64Array(BIN_COUNT);
+  private lowBin = BIN_COUNT;
+  private highBin = -1;
+  private adds = 0;
+
+  add(x: number, into: ExactSum): void {
+    if (x === 0) return;
+    bitsF64[0] = x;
+    const biased = (bitsU32[HI_WORD]! >>> 20) & 0x7ff;
+    // Position of the lowest significand bit, counted from 2^-1074.
+    const low = biased === 0 ? 0 : biased - 1;
+    const j = low >>> 5;
+    // w = x / 2^(32j − 1074): an integer below 2^85, exact (a power-of-two scaling).
+    const w = x * BIN_SCALE_A[j]! * BIN_SCALE_B[j]!;
+    const t1 = Math.trunc(w * INV_TWO32);
+    const lo = w - t1 * TWO32;
+    const hi = Math.trunc(t1 * INV_TWO32);
+    const mid = t1 - hi * TWO32;
+    const bins = this.bins;
+    bins[j] = bins[j]! + lo;
+    bins[j + 1] = bins[j + 1]! + mid;
+    bins[j + 2] = bins[j + 2]! + hi;
+    if (j < this.lowBin) this.lowBin = j;
+    if (j + 2 > this.highBin) this.highBin = j + 2;
+    if (++this.adds >= BIN_FLUSH_AFTER) this.flush(into);
+  }
+
+  /** Moves the exact bin contents into `into` and empties the bins. */
+  flush(into: ExactSum): void {
+    const bins = this.bins;
+    for (let j = this.lowBin; j <= this.highBin; j++) {
+      const b = bins[j]!;
+      if (b !== 0) {
+        into.add(b * BIN_UNIT[j]!); // exact: an integer below 2^53 times a power of two
+        bins[j] = 0;
+      }
+    }
+    this.lowBin = BIN_COUNT;
+    this.highBin = -1;
+    this.adds = 0;
+  }
+}
+
+// --- moments ---------------------------------------------------------------------------------
+
+/** Serialised ExactMoments: plain numbers only, safe for postMessage and JSON. */
+export interface SerializedMoments {
+  n: number;
+  s1: number[];
+  s2: number[];
+}
+
+/** Magnitude up to which values go through the binned fast path (x² must stay far from overflow). */
+const BINNED_LIMIT = 2 ** 450;
+
 /**
  * Count, Σx and Σx², all exact. Merging adds the three, so any split of the data merged in any
  * order yields the same state and the same mean/variance bits.
  */
 export class ExactMoments {
   n = 0;
-  readonly s1 = new ExactSum();
-  readonly s2 = new ExactSum();
+  private readonly e1 = new ExactSum();
+  private readonly e2 = new ExactSum();
+  private readonly b1 = new BinnedSum();
+  private readonly b2 = new BinnedSum();
 
   add(x: number): this {
     this.n++;
-    this.s1.add(x);
-    this.s2.addSquare(x);
+    // x² as p + err exactly (two-product of x with itself, Veltkamp split).
+    const p = x * x;
+    const c = SPLITTER * x;
+    const hi = c - (c - x);
+    const lo = x - hi;
+    const err = lo * lo - (p - hi * hi - (hi + hi) * lo);
+    if (x <= BINNED_LIMIT && x >= -BINNED_LIMIT) {
+      this.b1.add(x, this.e1);
+      this.b2.add(p, this.e2);
+      this.b2.add(err, this.e2);
+    } else {
+      this.e1.add(x);
+      this.e2.add(err).add(p);
+    }
     return this;
+  }
+
+  /** Σx, exact. */
+  get s1(): ExactSum {
+    this.b1.flush(this.e1);
+    return this.e1;
+  }
+
+  /** Σx², exact. */
+  get s2(): ExactSum {
+    this.b2.flush(this.e2);
+    return this.e2;
   }
 
   merge(other: ExactMoments): this {
@@ -350,8 +461,9 @@ export class ExactMoments {
   variance(): number {
     const n = this.n;
     if (n < 2) return NaN;
-    const num = this.s2.clone().scale(n).subtract(this.s1.multiply(this.s1));
-    // The exact numerator is >= 0 (Cauchy-Schwarz); the rounded one cannot be negative either.
+    const s1 = this.s1;
+    const num = this.s2.clone().scale(n).subtract(s1.multiply(s1));
+    // The exact numerator is >= 0 (Cauchy-Schwarz), so its rounding is too.
     return num.approx() / (n * (n - 1));
   }
 
@@ -367,8 +479,8 @@ export class ExactMoments {
   static fromJSON(s: SerializedMoments): ExactMoments {
     const m = new ExactMoments();
     m.n = s.n;
-    m.s1.setFrom(ExactSum.fromTerms(s.s1));
-    m.s2.setFrom(ExactSum.fromTerms(s.s2));
+    m.e1.setFrom(ExactSum.fromTerms(s.s1));
+    m.e2.setFrom(ExactSum.fromTerms(s.s2));
     return m;
   }
 }
