@@ -18,7 +18,8 @@ function pick<T>(rng: () => number, xs: readonly T[]): T {
 }
 
 function makeField(rng: () => number, delim: string): string {
-  const len = Math.floor(rng() * rng() * 8);
+  // Mostly short fields, some long ones so the word-at-a-time scanning paths are exercised.
+  const len = rng() < 0.25 ? Math.floor(rng() * 40) : Math.floor(rng() * rng() * 8);
   if (rng() < 0.35) {
     let s = '"';
     for (let i = 0; i < len; i++) s += pick(rng, ATOMS_QUOTED);
@@ -35,7 +36,7 @@ function makeField(rng: () => number, delim: string): string {
 function makeInput(rng: () => number): { text: string; delim: string } {
   const delim = pick(rng, [',', ',', ';', '\t', '|']);
   const cols = 1 + Math.floor(rng() * 5);
-  const rows = Math.floor(rng() * 25);
+  const rows = Math.floor(rng() * 20);
   let text = rng() < 0.1 ? '\ufeff' : '';
   for (let r = 0; r <= rows; r++) {
     const fields: string[] = [];
