@@ -1,0 +1,94 @@
+/**
+ * Input adapters: format from the name, gzip recognised by its magic bytes (RFC 1952 §2.3.1:
+ * ID1 = 0x1f, ID2 = 0x8b) whatever the name, any Readable as a source (as stdin is), and several
+ * inputs read in order with their headers checked against the first.
+ */
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { Readable } from 'node:stream';
+import { gzipSync } from 'node:zlib';
+import { detectFormat, openInput, readRecords } from '../src/io/input.js';
+import { fieldText } from '../src/io/reader.js';
+
+let dir = '';
+const csvA = 'sensor_id,fault\nS1,none\nS2,"drift, slow"\n';
+const csvB = 'sensor_id,fault\nS3,spike\n';
+
+beforeAll(() => {
+  dir = mkdtempSync(join(tmpdir(), 'rowdeck-input-'));
+  writeFileSync(join(dir, 'a.csv'), csvA);
+  writeFileSync(join(dir, 'b.csv.gz'), gzipSync(csvB));
+  writeFileSync(join(dir, 'hidden-gzip.csv'), gzipSync(csvB)); // gzip without a .gz name
+  writeFileSync(join(dir, 'other.csv'), 'sensor_id,class\nS9,none\n');
+  writeFileSync(join(dir, 'broken.csv.gz'), gzipSync(csvA).subarray(0, 20));
+  writeFileSync(join(dir, 'r.ndjson'), '{"sensor_id":"S1","fault":"none"}\n');
+});
+afterAll(() => rmSync(dir, { recursive: true, force: true }));
+
+async function collectBytes(src: AsyncIterable<Buffer>): Promise<string> {
+  const parts: Buffer[] = [];
+  for await (const c of src) parts.push(c);
+  return Buffer.concat(parts).toString('utf8');
+}
+
+async function readValues(paths: string[]): Promise<{ input: number; value: string | null }[]> {
+  const out: { input: number; value: string | null }[] = [];
+  for await (const { input, batch } of readRecords(paths, { header: true, wanted: ['fault'], onBadRecord: 'fail' })) {
+    for (let i = 0; i < batch.count; i++) out.push({ input, value: fieldText(batch, i, 0) });
+  }
+  return out;
+}
+
+describe('detectFormat', () => {
+  it('from the name, .gz allowed, explicit wins, unknown is a usage error', () => {
+    expect(detectFormat('x.csv')).toBe('csv');
+    expect(detectFormat('X.TSV.gz')).toBe('tsv');
+    expect(detectFormat('x.ndjson')).toBe('jsonl');
+    expect(detectFormat('x.jsonl.gz')).toBe('jsonl');
+    expect(detectFormat('x.txt', 'tsv')).toBe('tsv');
+    expect(detectFormat('-')).toBe('csv');
+    expect(() => detectFormat('x.txt')).toThrow(expect.objectContaining({ code: 'ERR_OPTION' }));
+  });
+});
+
+describe('openInput', () => {
+  it('decompresses gzip by magic bytes, with or without a .gz name', async () => {
+    expect(await collectBytes(openInput(join(dir, 'b.csv.gz')))).toBe(csvB);
+    expect(await collectBytes(openInput(join(dir, 'hidden-gzip.csv')))).toBe(csvB);
+    expect(await collectBytes(openInput(join(dir, 'a.csv')))).toBe(csvA);
+  });
+  it('reads any Readable (as for stdin), even one that delivers a byte at a time', async () => {
+    const gz = gzipSync(csvA);
+    const oneByte = Readable.from((function* () { for (const b of gz) yield Buffer.from([b]); })());
+    expect(await collectBytes(openInput(oneByte))).toBe(csvA);
+    expect(await collectBytes(openInput(Readable.from([Buffer.from('x')])))).toBe('x');
+    expect(await collectBytes(openInput(Readable.from([])))).toBe('');
+  });
+  it('a missing file is ERR_INPUT_NOT_FOUND, damaged gzip is ERR_IO', async () => {
+    await expect(collectBytes(openInput(join(dir, 'nope.csv')))).rejects.toMatchObject({ code: 'ERR_INPUT_NOT_FOUND' });
+    await expect(collectBytes(openInput(join(dir, 'broken.csv.gz')))).rejects.toMatchObject({ code: 'ERR_IO' });
+  });
+});
+
+describe('readRecords', () => {
+  it('reads several inputs in order, plain and gzip, with matching headers', async () => {
+    expect(await readValues([join(dir, 'a.csv'), join(dir, 'b.csv.gz'), join(dir, 'hidden-gzip.csv')])).toEqual([
+      { input: 0, value: 'none' },
+      { input: 0, value: 'drift, slow' },
+      { input: 1, value: 'spike' },
+      { input: 2, value: 'spike' },
+    ]);
+  });
+  it('a second input with other columns is ERR_HEADER_MISMATCH naming both files', async () => {
+    const err = await readValues([join(dir, 'a.csv'), join(dir, 'other.csv')]).catch((e: unknown) => e);
+    expect(err).toMatchObject({ code: 'ERR_HEADER_MISMATCH' });
+    const msg = (err as Error).message;
+    expect(msg).toContain(join(dir, 'other.csv'));
+    expect(msg).toContain(join(dir, 'a.csv'));
+  });
+  it('JSON Lines inputs by extension', async () => {
+    expect(await readValues([join(dir, 'r.ndjson')])).toEqual([{ input: 0, value: 'none' }]);
+  });
+});
