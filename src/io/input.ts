@@ -88,7 +88,7 @@ export async function* openInput(source: string | Readable): AsyncGenerator<Buff
   }
 }
 
-export type ReadRecordsOptions = Omit<RecordReaderOptions, 'file' | 'expectedColumns' | 'expectedFrom'> & { format?: InputFormat };
+export type ReadRecordsOptions = Omit<RecordReaderOptions, 'file' | 'expectedColumns' | 'expectedFrom' | 'format'> & { format?: InputFormat };
 
 /**
  * Reads several inputs in order, yielding each batch with the input's ordinal and schema. The
