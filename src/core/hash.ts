@@ -115,6 +115,12 @@ export class Fingerprint {
     this.addHash(h[0]!, h[1]!);
   }
 
+  /** Adds a record stored word-aligned and zero-padded (see `hashAlignedWords`). */
+  addAligned(u32: Uint32Array, word: number, len: number): void {
+    const h = hashAlignedWords(FINGERPRINT_SECRET, u32, word, len);
+    this.addHash(h[0]!, h[1]!);
+  }
+
   addHash(hi: number, lo: number): void {
     let l = this.lo + lo;
     let carry = 0;
@@ -145,4 +151,26 @@ export class Fingerprint {
 /** Uniform double in [0, 1) from a 64-bit hash (53 bits used). */
 export function hashToUnit(hi: number, lo: number): number {
   return (hi * 0x200000 + (lo >>> 11)) / 2 ** 53;
+}
+
+/**
+ * Same value as `hashBytes(secret, bytes, 4 * word, 4 * word + len)`, read through a 32-bit view
+ * of a buffer where the record starts on a 4-byte boundary and the bytes after `len` up to the
+ * next boundary are zero (the spill layout). One load per word instead of four.
+ */
+export function hashAlignedWords(secret: Secret, u32: Uint32Array, word: number, len: number, out: Uint32Array = hashOut): Uint32Array {
+  let h1 = secret[0]! ^ secret[2]!;
+  let h2 = secret[1]! ^ secret[3]!;
+  const words = (len + 3) >>> 2;
+  const stop = word + words;
+  for (let w = word; w < stop; w++) {
+    const k = u32[w]! | 0;
+    h1 = mixWord(h1, k);
+    h2 = mixWord(h2, k ^ 0x5bd1e995);
+  }
+  h1 = finish(h1, len);
+  h2 = finish(h2, len);
+  out[0] = (h1 ^ Math.imul(h2, 0x2545f491)) >>> 0;
+  out[1] = (h2 ^ Math.imul(h1, 0x9e3779b1)) >>> 0;
+  return out;
 }

@@ -8,9 +8,8 @@
 export interface SortKeys {
   keyHi: Uint32Array;
   keyLo: Uint32Array;
-  /** Identity tie-breakers: input ordinal and byte offset. */
-  input: Uint32Array;
-  offset: Float64Array;
+  /** Identity tie-breaker (input ordinal, byte offset); read only for records whose keys tie. */
+  identity: (i: number) => [number, number];
 }
 
 export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Array {
@@ -53,10 +52,9 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
 }
 
 export function compareRecords(keys: SortKeys, a: number, b: number): number {
-  return (
-    keys.keyHi[a]! - keys.keyHi[b]! ||
-    keys.keyLo[a]! - keys.keyLo[b]! ||
-    keys.input[a]! - keys.input[b]! ||
-    keys.offset[a]! - keys.offset[b]!
-  );
+  const d = keys.keyHi[a]! - keys.keyHi[b]! || keys.keyLo[a]! - keys.keyLo[b]!;
+  if (d !== 0) return d;
+  const x = keys.identity(a);
+  const y = keys.identity(b);
+  return x[0] - y[0] || x[1] - y[1];
 }

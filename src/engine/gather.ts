@@ -3,13 +3,13 @@
  * cell from its stratum rank, and lay out each part's slice of output bytes. Pure apart from
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
-import { readFileSync } from 'node:fs';
-import { buildDealTable, dealRecord, type DealTable } from '../core/deal.js';
+import { closeSync, openSync, readSync, statSync } from 'node:fs';
+import { buildDealTable, cellOf, type DealTable } from '../core/deal.js';
 import { Fingerprint, hashToUnit, hashWords3 } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { HEADER_BYTES, viewBucket } from './spill.js';
+import { HEADER_BYTES, HEADER_WORDS, viewBucket } from './spill.js';
 
 export interface GatherTask {
   bucket: number;
@@ -100,8 +100,6 @@ function findGroupCell(groups: GroupTable, hi: number, lo: number): number {
   throw new Error(`internal: group key ${hi}:${lo} missing from the plan`);
 }
 
-const COMMA_FOLD = (delim: number, fold: number): Buffer => Buffer.from(String.fromCharCode(delim) + String(fold), 'latin1');
-
 /** Bytes appended to a JSON Lines record to add the fold field; inserted before its closing brace. */
 function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
   return Buffer.from(`${empty ? '' : ','}${JSON.stringify(name)}:${fold}`, 'utf8');
@@ -110,137 +108,200 @@ function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
 export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult {
   const { plan, table } = prep;
   const K = plan.deal.folds;
+  const P = plan.deal.partitions;
+  const S = plan.deal.splits.length;
+  const M = P * K;
   const parts = partCount(plan.deal);
   const strata = plan.strataCount;
 
-  // Load every scatter task's file of this bucket into one buffer.
-  const pieces: Buffer[] = [];
-  for (const p of task.paths) {
+  // Load every scatter task's file of this bucket into the front of one ArrayBuffer; the output
+  // is laid out behind it, so records move with copyWithin (see BucketWriter for why).
+  const foldCol = plan.foldColumn !== null;
+  const isJson = plan.format === 'jsonl';
+  const eolLen = plan.lineEnding.length;
+  const jsonFoldBase = isJson && foldCol ? Buffer.byteLength(JSON.stringify(plan.foldColumn)) + 2 : 0;
+  const foldLen = Int32Array.from({ length: K }, (_, f) => (foldCol ? (isJson ? jsonFoldBase : 1) + String(f).length : 0));
+  const sizes = task.paths.map((p) => {
     try {
-      pieces.push(readFileSync(p));
+      return statSync(p).size;
     } catch (err) {
       throw ioError(err, p, 'reading a spill file');
     }
+  });
+  const spillBytes = sizes.reduce((a, b) => a + b, 0);
+  // Each record sheds a 24-byte header and gains at most its line end and fold field.
+  const growth = Math.max(0, 2 + Math.max(0, ...foldLen) - HEADER_BYTES);
+  const outCap = spillBytes + Math.ceil(spillBytes / HEADER_BYTES) * growth;
+  // allocUnsafeSlow: an ArrayBuffer of its own (transferable) without zero-filling it.
+  const buf = Buffer.allocUnsafeSlow(spillBytes + outCap);
+  const arena = buf.buffer as ArrayBuffer;
+  const bytes = new Uint8Array(arena, 0, buf.byteLength);
+  const pieceEnds: number[] = [];
+  {
+    let at = 0;
+    task.paths.forEach((p, t) => {
+      let fd = -1;
+      try {
+        fd = openSync(p, 'r');
+        let got = 0;
+        while (got < sizes[t]!) {
+          const r = readSync(fd, bytes, at + got, sizes[t]! - got, got);
+          if (r === 0) break;
+          got += r;
+        }
+        at += got;
+      } catch (err) {
+        throw ioError(err, p, 'reading a spill file');
+      } finally {
+        if (fd >= 0) closeSync(fd);
+      }
+      pieceEnds.push(at);
+    });
   }
-  const buf = pieces.length === 1 ? pieces[0]! : Buffer.concat(pieces);
-  const view = viewBucket(buf);
+  const view = viewBucket(buf.subarray(0, spillBytes));
   const n = view.count;
   const { u32, at } = view;
 
-  // Which scatter task each record came from (for its local stratum ids).
-  const taskOf = new Uint16Array(n);
+  // Dealing stratum of every record (storage order), through its scatter task's id map.
+  const stratumOfRec = new Uint32Array(n);
   {
     let i = 0;
     let wordEnd = 0;
-    for (let t = 0; t < pieces.length; t++) {
-      wordEnd += pieces[t]!.byteLength >>> 2;
-      while (i < n && at[i]! < wordEnd) taskOf[i++] = t;
+    for (let t = 0; t < pieceEnds.length; t++) {
+      wordEnd = pieceEnds[t]! >>> 2;
+      const map = Int32Array.from(plan.localToGlobal[t]!);
+      for (; i < n && at[i]! < wordEnd; i++) stratumOfRec[i] = map[u32[at[i]! + 4]!]!;
     }
   }
 
   const keyHi = new Uint32Array(n);
   const keyLo = new Uint32Array(n);
-  const input = new Uint32Array(n);
-  const offset = new Float64Array(n);
   for (let i = 0; i < n; i++) {
     const w = at[i]!;
     keyHi[i] = u32[w]!;
     keyLo[i] = u32[w + 1]!;
-    input[i] = u32[w + 3]! & 0xffff;
-    offset[i] = (u32[w + 3]! >>> 16) * 0x100000000 + u32[w + 2]!;
   }
-  const order = sortByKey({ keyHi, keyLo, input, offset }, n, plan.bits);
+  const order = sortByKey({ keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) }, n, plan.bits);
 
-  // Deal: cell of every record, in key order.
-  const seen = new Float64Array(strata);
+  // Deal: cell of every record, visiting records in key order (ranks follow key order).
   const cellOfRec = new Uint32Array(n);
-  const stratumOfRec = new Uint32Array(n);
-  const partBytes = new Float64Array(parts);
-  const foldCol = plan.foldColumn !== null;
-  const isJson = plan.format === 'jsonl';
-  const eolLen = plan.lineEnding.length;
-  const jsonFoldBase = isJson && foldCol ? Buffer.byteLength(JSON.stringify(plan.foldColumn)) + 2 : 0;
-  for (let k = 0; k < n; k++) {
-    const i = order[k]!;
-    const w = at[i]!;
-    const s = plan.localToGlobal[taskOf[i]!]![u32[w + 4]!]!;
-    stratumOfRec[i] = s;
-    let cell: number;
-    if (plan.mode === 'exact') {
-      cell = dealRecord(table, s, task.rankStart[s]! + seen[s]!);
-      seen[s]!++;
-    } else if (plan.mode === 'hash') {
-      cell = hashCell(prep, keyHi[i]!, keyLo[i]!);
-    } else {
-      cell = findGroupCell(prep.groups!, keyHi[i]!, keyLo[i]!);
+  if (plan.mode === 'exact') {
+    const seen = Float64Array.from(task.rankStart);
+    // t -> cell id within a split, so the hot loop does one modulo and two lookups.
+    const cycle = new Int32Array(M);
+    for (let t = 0; t < M; t++) {
+      const c = cellOf(t, P, K);
+      cycle[t] = c.partition * K + c.fold;
     }
-    cellOfRec[i] = cell;
+    const { offset, cumQuota } = table;
+    for (let k = 0; k < n; k++) {
+      const i = order[k]!;
+      const s = stratumOfRec[i]!;
+      const rank = seen[s]!;
+      seen[s] = rank + 1;
+      let split = 0;
+      const base = s * (S + 1);
+      while (split < S - 1 && rank >= cumQuota[base + split + 1]!) split++;
+      const j = offset[s * S + split]! + (rank - cumQuota[base + split]!);
+      cellOfRec[i] = split * M + cycle[j % M]!;
+    }
+  } else if (plan.mode === 'hash') {
+    for (let i = 0; i < n; i++) cellOfRec[i] = hashCell(prep, keyHi[i]!, keyLo[i]!);
+  } else {
+    const groups = prep.groups!;
+    for (let k = 0; k < n; k++) {
+      const i = order[k]!;
+      cellOfRec[i] = findGroupCell(groups, keyHi[i]!, keyLo[i]!);
+    }
+  }
+
+  // Storage-order pass (sequential reads): per-part sizes, counts and fingerprints.
+  const partBytes = new Float64Array(parts);
+  const counts = new Float64Array(parts * K * strata);
+  const fps = Array.from({ length: parts }, () => new Fingerprint());
+  const recSize = new Uint32Array(n);
+  const lenTerm = new Uint32Array(n);
+  for (let i = 0; i < n; i++) {
+    const w = at[i]!;
     const lt = u32[w + 5]!;
+    lenTerm[i] = lt;
     const len = lt >>> 2;
     const term = lt & 3;
-    let size = len + (term === 0 ? eolLen : term);
-    if (foldCol) size += (isJson ? jsonFoldBase : 1) + String(cell % K).length;
-    partBytes[Math.floor(cell / K)]! += size;
+    const cell = cellOfRec[i]!;
+    const part = (cell / K) | 0;
+    const fold = cell - part * K;
+    let size = len + (term === 0 ? eolLen : term) + foldLen[fold]!;
+    // An empty JSON object takes the fold field without a comma.
+    if (isJson && foldCol && isEmptyObject(bytes, w * 4 + HEADER_BYTES, len)) size--;
+    recSize[i] = size;
+    partBytes[part]! += size;
+    counts[cell * strata + stratumOfRec[i]!]!++;
+    fps[part]!.addAligned(u32, w + HEADER_WORDS, len);
   }
 
   const partStart = new Float64Array(parts + 1);
+  partStart[0] = spillBytes;
   for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!;
-  // Its own ArrayBuffer (not the shared small-buffer pool), so it can be transferred.
-  const out = Buffer.allocUnsafeSlow(partStart[parts]!);
-  const fill = Float64Array.from(partStart.subarray(0, parts));
-  const counts = new Float64Array(parts * K * strata);
-  const fps = Array.from({ length: parts }, () => new Fingerprint());
-  const eol = Buffer.from(plan.lineEnding, 'latin1');
-  const foldBytes = foldCol && !isJson ? Array.from({ length: K }, (_, f) => COMMA_FOLD(plan.delimiter, f)) : [];
 
+  // Key-order pass: each part's bytes are written front to back (sequential writes, random
+  // reads; measured about four times faster than the other way round).
+  const fill = Float64Array.from(partStart.subarray(0, parts));
+  const eol = Buffer.from(plan.lineEnding, 'latin1');
+  const foldBytes = foldCol ? Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1'))) : [];
   for (let k = 0; k < n; k++) {
     const i = order[k]!;
-    const w = at[i]!;
-    const lt = u32[w + 5]!;
+    const cell = cellOfRec[i]!;
+    const part = (cell / K) | 0;
+    const lt = lenTerm[i]!;
     const len = lt >>> 2;
     const term = lt & 3;
-    const cs = w * 4 + HEADER_BYTES;
-    const cell = cellOfRec[i]!;
-    const part = Math.floor(cell / K);
-    const fold = cell % K;
+    const cs = at[i]! * 4 + HEADER_BYTES;
     let pos = fill[part]!;
-    fps[part]!.addBytes(buf, cs, cs + len);
-    if (foldCol && isJson) {
-      // Insert the fold field before the record's closing brace (trailing spaces stay after it).
-      let close = cs + len - 1;
-      while (close > cs && buf[close] !== 0x7d) close--;
-      let prev = close - 1;
-      while (prev > cs && (buf[prev] === 0x20 || buf[prev] === 0x09)) prev--;
-      const extra = jsonFoldField(plan.foldColumn!, fold, buf[prev] === 0x7b);
-      pos += buf.copy(out, pos, cs, close);
-      pos += extra.copy(out, pos);
-      pos += buf.copy(out, pos, close, cs + len);
+    fill[part] = pos + recSize[i]!;
+    if (foldCol) {
+      const fb = foldBytes[cell - part * K]!;
+      if (isJson) {
+        // Insert the fold field before the record's closing brace (trailing spaces stay after it).
+        let close = cs + len - 1;
+        while (close > cs && bytes[close] !== 0x7d) close--;
+        let prev = close - 1;
+        while (prev > cs && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
+        bytes.copyWithin(pos, cs, close);
+        pos += close - cs;
+        // An empty object takes the field without its leading comma.
+        for (let b = bytes[prev] === 0x7b ? 1 : 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
+        bytes.copyWithin(pos, close, cs + len);
+        pos += cs + len - close;
+      } else {
+        bytes.copyWithin(pos, cs, cs + len);
+        pos += len;
+        for (let b = 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
+      }
     } else {
-      pos += buf.copy(out, pos, cs, cs + len);
-      if (foldCol) pos += foldBytes[fold]!.copy(out, pos);
+      bytes.copyWithin(pos, cs, cs + len);
+      pos += len;
     }
-    if (term === 0) pos += eol.copy(out, pos);
-    else if (term === 1) out[pos++] = 0x0a;
-    else {
-      out[pos++] = 0x0d;
-      out[pos++] = 0x0a;
-    }
-    fill[part] = pos;
-    counts[(part * K + fold) * strata + stratumOfRec[i]!]!++;
+    if (term === 1) bytes[pos] = 0x0a;
+    else if (term === 2) {
+      bytes[pos] = 0x0d;
+      bytes[pos + 1] = 0x0a;
+    } else for (let b = 0; b < eolLen; b++) bytes[pos + b] = eol[b]!;
   }
-  // JSON fold fields were sized generously; close the gaps so each part's bytes are contiguous.
-  let data: Uint8Array = out;
-  if (foldCol && isJson) {
-    let dst = 0;
-    for (let p = 0; p < parts; p++) {
-      const a = partStart[p]!;
-      const b = fill[p]!;
-      out.copy(out, dst, a, b);
-      partStart[p] = dst;
-      dst += b - a;
-    }
-    partStart[parts] = dst;
-    data = out.subarray(0, dst);
-  }
+  const data = new Uint8Array(arena, spillBytes, partStart[parts]! - spillBytes);
+  for (let p = 0; p <= parts; p++) partStart[p]! -= spillBytes;
   return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()) };
+}
+
+/** True when the JSON record in bytes [s, s+len) is `{}` (with optional blanks). */
+function isEmptyObject(bytes: Uint8Array, s: number, len: number): boolean {
+  let close = s + len - 1;
+  while (close > s && bytes[close] !== 0x7d) close--;
+  let prev = close - 1;
+  while (prev > s && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
+  return bytes[prev] === 0x7b;
+}
+
+/** (input ordinal, byte offset) of the record whose header starts at word `w`. */
+function identityOf(u32: Uint32Array, w: number): [number, number] {
+  return [u32[w + 3]! & 0xffff, (u32[w + 3]! >>> 16) * 0x100000000 + u32[w + 2]!];
 }

@@ -83,17 +83,83 @@ export function stratumValues(key: string): (string | null)[] {
   return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
 }
 
+/**
+ * Byte-keyed lookup for the common case (one stratify column, plain field): finds a stratum id
+ * from the field's bytes without making a string per record.
+ */
+class ByteIdTable {
+  #mask = 255;
+  #hashes = new Int32Array(256);
+  #ids = new Int32Array(256).fill(-1);
+  #keys: (Buffer | undefined)[] = new Array(256);
+  #size = 0;
+
+  static hash(d: Buffer, s: number, e: number): number {
+    let h = 0x811c9dc5 | 0;
+    for (let i = s; i < e; i++) h = Math.imul(h ^ d[i]!, 0x01000193);
+    return h;
+  }
+
+  find(d: Buffer, s: number, e: number, h: number): number {
+    const len = e - s;
+    for (let slot = h & this.#mask; ; slot = (slot + 1) & this.#mask) {
+      const id = this.#ids[slot]!;
+      if (id < 0) return -1;
+      if (this.#hashes[slot] !== h) continue;
+      const k = this.#keys[slot]!;
+      if (k.length !== len) continue;
+      let same = true;
+      for (let i = 0; i < len; i++) {
+        if (k[i] !== d[s + i]) {
+          same = false;
+          break;
+        }
+      }
+      if (same) return id;
+    }
+  }
+
+  add(d: Buffer, s: number, e: number, h: number, id: number): void {
+    if ((this.#size + 1) * 2 > this.#mask) this.#grow();
+    let slot = h & this.#mask;
+    while (this.#ids[slot]! >= 0) slot = (slot + 1) & this.#mask;
+    this.#ids[slot] = id;
+    this.#hashes[slot] = h;
+    this.#keys[slot] = Buffer.from(d.subarray(s, e));
+    this.#size++;
+  }
+
+  #grow(): void {
+    const ids = this.#ids;
+    const hashes = this.#hashes;
+    const keys = this.#keys;
+    const cap = (this.#mask + 1) * 2;
+    this.#mask = cap - 1;
+    this.#ids = new Int32Array(cap).fill(-1);
+    this.#hashes = new Int32Array(cap);
+    this.#keys = new Array(cap);
+    for (let slot = 0; slot < ids.length; slot++) {
+      if (ids[slot]! < 0) continue;
+      let t = hashes[slot]! & this.#mask;
+      while (this.#ids[t]! >= 0) t = (t + 1) & this.#mask;
+      this.#ids[t] = ids[slot]!;
+      this.#hashes[t] = hashes[slot]!;
+      this.#keys[t] = keys[slot];
+    }
+  }
+}
+
 export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const nStrat = o.stratify.length;
   const nKey = o.key.length;
   const groupSlot = o.group !== null ? nStrat + nKey : -1;
   const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
   const B = 2 ** o.bits;
-  const writer = new BucketWriter(o.spillDir, o.task, B, o.bufferBytes);
   const strataIds = new Map<string, number>();
   const strata: string[] = [];
   const bucketCounts: Float64Array[] = [];
   const fp = new Fingerprint();
+  const writer = new BucketWriter(o.spillDir, o.task, B, o.bufferBytes, fp);
   const groups = o.group !== null ? new Map<string, GroupEntry>() : null;
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
@@ -102,17 +168,35 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const keyBuf: Buffer[] = [];
   const shift = 32 - o.bits;
 
+  const fast = new ByteIdTable();
   const stratumOf = (b: RecordBatch, i: number): number => {
+    if (nStrat === 0) return strata.length ? 0 : newStratum('');
+    if (nStrat === 1 && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
+      // Plain field: look its bytes up directly; same key as fieldKey() would build.
+      const fs = b.fieldStart[i * b.wanted]!;
+      const fe = b.fieldEnd[i * b.wanted]!;
+      if (fe > fs && fe - fs <= 64) {
+        const h = ByteIdTable.hash(b.data, fs, fe);
+        let id = fast.find(b.data, fs, fe, h);
+        if (id < 0) {
+          id = strataIds.get(b.data.toString('latin1', fs, fe)) ?? newStratum(b.data.toString('latin1', fs, fe));
+          fast.add(b.data, fs, fe, h, id);
+        }
+        return id;
+      }
+    }
     let k: string;
-    if (nStrat === 0) k = '';
+    if (nStrat === 1) k = fieldKey(b, i, 0);
     else if (nStrat === 1) k = fieldKey(b, i, 0);
     else {
       k = fieldKey(b, i, 0);
       for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + fieldKey(b, i, w);
     }
-    let id = strataIds.get(k);
-    if (id === undefined) {
-      id = strata.length;
+    return strataIds.get(k) ?? newStratum(k);
+  };
+  const newStratum = (k: string): number => {
+    {
+      const id = strata.length;
       if (id >= MAX_STRATA) {
         throw new RowdeckError(
           'ERR_OPTION',
@@ -123,8 +207,8 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       strataIds.set(k, id);
       strata.push(k);
       bucketCounts.push(new Float64Array(B));
+      return id;
     }
-    return id;
   };
 
   try {
@@ -139,6 +223,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       schema ??= sch;
       const d = batch.data;
       const n = batch.count;
+      if (n > 0) writer.stage(d, batch.start[0]!, batch.next[n - 1]!);
       for (let i = 0; i < n; i++) {
         const s = batch.start[i]!;
         const e = batch.end[i]!;
@@ -165,7 +250,6 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         const bucket = o.bits === 0 ? 0 : hi >>> shift;
         writer.append(bucket, hi, lo, offset, input, st, d, s, e, term);
         bucketCounts[st]![bucket]!++;
-        fp.addBytes(d, s, e);
         if (groups) {
           const gk = `${hi}:${lo}`;
           let g = groups.get(gk);

