@@ -14,6 +14,7 @@
  *      (per stratum within one, totals within one), folds within two.
  * This module is pure: no I/O.
  */
+import { hashWords3, type Secret } from './hash.js';
 
 export interface SplitSpec {
   name: string;
@@ -40,6 +41,11 @@ export interface DealTable {
   cumQuota: Float64Array;
   /** `offset[s * S + i]`: position in split i's dealing sequence of stratum s's first record there. */
   offset: Float64Array;
+}
+
+/** Where each split's dealing cycle starts: drawn from the seed's secret, one per split. */
+export function seededStarts(secret: Secret, splits: number): number[] {
+  return Array.from({ length: splits }, (_, i) => hashWords3(secret, 0x73746172, i, 0)[0]!);
 }
 
 export function gcd(a: number, b: number): number {
@@ -95,14 +101,19 @@ export function computeQuotas(strataSizes: ArrayLike<number>, spec: DealSpec): F
   return quota;
 }
 
-/** Builds the dealing table from the stratum sizes (already in dealing order). */
-export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec): DealTable {
+/**
+ * Builds the dealing table from the stratum sizes (already in dealing order). `starts[i]` is
+ * where split i's dealing sequence begins (drawn from the seed), so which partitions and folds
+ * receive the leftover records of a stratum is random too, not always the first ones.
+ */
+export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec, starts: ArrayLike<number> = []): DealTable {
   const S = spec.splits.length;
   const nStrata = strataSizes.length;
   const quota = computeQuotas(strataSizes, spec);
   const cumQuota = new Float64Array(nStrata * (S + 1));
   const offset = new Float64Array(nStrata * S);
   const running = new Float64Array(S);
+  for (let i = 0; i < S; i++) running[i] = (starts[i] ?? 0) % (spec.partitions * spec.folds);
   for (let s = 0; s < nStrata; s++) {
     let c = 0;
     for (let i = 0; i < S; i++) {

@@ -14,6 +14,11 @@ export interface SortKeys {
 
 export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Array {
   const { keyHi, keyLo } = keys;
+  if (count < 512) {
+    // Clearing two 64 Ki-entry histograms costs more than a comparison sort of a few records.
+    const idx = Array.from({ length: count }, (_, i) => i).sort((a, b) => compareRecords(keys, a, b));
+    return Uint32Array.from(idx);
+  }
   const digit = new Uint32Array(count);
   for (let i = 0; i < count; i++) {
     digit[i] = bits === 0 ? keyHi[i]! : ((keyHi[i]! << bits) | (keyLo[i]! >>> (32 - bits))) >>> 0;

@@ -16,7 +16,7 @@ import { existsSync, readFileSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
 import { Piscina } from 'piscina';
 import { stringify } from 'csv-stringify/sync';
-import { buildDealTable, countCells, type DealSpec } from '../core/deal.js';
+import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import { fromWire, RowdeckError } from '../errors.js';
@@ -242,7 +242,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       partitions: o.partitions,
       folds: o.folds,
     };
-    const table = buildDealTable(strataSizes, deal);
+    const table = buildDealTable(strataSizes, deal, seededStarts(secret, deal.splits.length));
     const parts = partCount(deal);
     const K = deal.folds;
     const cells = parts * K;

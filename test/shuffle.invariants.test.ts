@@ -1,0 +1,231 @@
+/**
+ * The engine's invariants (see DESIGN.md), each checked on real runs of `shuffle()` and the
+ * outputs re-read with csv-parse, an independent parser.
+ */
+import { createHash } from 'node:crypto';
+import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { shuffle, type Manifest } from '../src/index.js';
+import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
+
+let dir: string;
+let input: string;
+let inputText: string;
+
+beforeAll(() => {
+  dir = makeTempDir();
+  input = join(dir, 'readings.csv');
+  // ~1.3 MB: with --memory 4MiB the run uses several buckets, with 1GiB a single one.
+  inputText = makeSensorCsv({ rows: 24000, seed: 11, noFinalNewline: true });
+  writeFileSync(input, inputText);
+});
+afterAll(() => removeDir(dir));
+
+function sha(path: string): string {
+  return createHash('sha256').update(readFileSync(path)).digest('hex');
+}
+
+/** The manifest without the fields that record time, host and the bucket count. */
+function stable(m: Manifest): unknown {
+  const { run: _run, ...rest } = m;
+  return rest;
+}
+
+function outputsOf(out: string): Record<string, string> {
+  return Object.fromEntries(listFiles(out).filter((f) => f !== 'manifest.json').map((f) => [f, sha(join(out, f))]));
+}
+
+describe('invariant 1: a pure function of (seed, inputs, options)', () => {
+  it('gives identical bytes for 1 or 2 threads and 4 MiB or 1 GiB of memory', async () => {
+    const runs = [
+      { threads: 1, memory: '4MiB' },
+      { threads: 2, memory: '4MiB' },
+      { threads: 2, memory: '1GiB' },
+      { threads: 1, memory: '1GiB' },
+    ];
+    const results = [];
+    for (const [k, r] of runs.entries()) {
+      const out = join(dir, `inv1-${k}`);
+      const m = await shuffle({ inputs: [input], out, seed: 'field-season-7', partitions: 4, stratify: 'fault', folds: 3, ...r });
+      results.push({ files: outputsOf(out), manifest: stable(m), buckets: m.run.buckets });
+    }
+    // The runs really were cut up differently...
+    expect(results[0]!.buckets).toBeGreaterThan(1);
+    expect(results[2]!.buckets).toBe(1);
+    // ...and still agree byte for byte.
+    for (const r of results.slice(1)) {
+      expect(r.files).toEqual(results[0]!.files);
+      expect(r.manifest).toEqual(results[0]!.manifest);
+    }
+    expect(Object.keys(results[0]!.files)).toEqual(['part-00000.csv', 'part-00001.csv', 'part-00002.csv', 'part-00003.csv']);
+  });
+
+  it('gives a different order for a different seed, and records the seed', async () => {
+    const a = await shuffle({ inputs: [input], out: join(dir, 'seed-a'), seed: 'alpha', memory: '4MiB' });
+    const b = await shuffle({ inputs: [input], out: join(dir, 'seed-b'), seed: 'beta', memory: '4MiB' });
+    expect(a.seed).toBe('alpha');
+    expect(b.seed).toBe('beta');
+    const ra = parseCsv(readPart(join(dir, 'seed-a', 'part-00000.csv'))).rows.map((r) => r[0]);
+    const rb = parseCsv(readPart(join(dir, 'seed-b', 'part-00000.csv'))).rows.map((r) => r[0]);
+    expect(ra).not.toEqual(rb);
+    // Same records, though.
+    expect([...ra].sort()).toEqual([...rb].sort());
+  });
+
+  it('uses a fixed default seed when none is given, and says so in the manifest', async () => {
+    const a = await shuffle({ inputs: [input], out: join(dir, 'default-a') });
+    const b = await shuffle({ inputs: [input], out: join(dir, 'default-b'), threads: 1 });
+    expect(a.seedIsDefault).toBe(true);
+    expect(typeof a.seed).toBe('string');
+    expect(outputsOf(join(dir, 'default-a'))).toEqual(outputsOf(join(dir, 'default-b')));
+  });
+});
+
+describe('invariant 2: nothing lost, nothing invented', () => {
+  it('outputs exactly the input records, by an independent parse, fold column aside', async () => {
+    const out = join(dir, 'inv2');
+    const m = await shuffle({ inputs: [input], out, seed: 's', partitions: 3, stratify: 'fault', folds: 4, memory: '4MiB' });
+    const ref = parseCsv(inputText);
+    const got: string[][] = [];
+    for (const p of m.output.parts) {
+      const { header, rows } = parseCsv(readPart(join(out, p.path)));
+      expect(header).toEqual([...ref.header, 'fold']);
+      for (const r of rows) {
+        expect(Number(r[r.length - 1])).toBeGreaterThanOrEqual(0);
+        expect(Number(r[r.length - 1])).toBeLessThan(4);
+        got.push(r.slice(0, -1));
+      }
+    }
+    expect(got.length).toBe(ref.rows.length);
+    expect(rowMultiset(got)).toEqual(rowMultiset(ref.rows));
+    expect(m.output.fingerprint).toBe(m.input.fingerprint);
+    expect(m.output.records).toBe(ref.rows.length);
+  });
+
+  it('keeps record bytes exactly: CRLF records, embedded line breaks and unicode', async () => {
+    const text = makeSensorCsv({ rows: 3000, seed: 5, crlf: true, noFinalNewline: true });
+    const file = join(dir, 'crlf.csv');
+    writeFileSync(file, text);
+    const out = join(dir, 'inv2-crlf');
+    const m = await shuffle({ inputs: [file], out, seed: 'crlf', partitions: 2, memory: '4MiB' });
+    // Record contents as byte strings, from the reference parser's record boundaries.
+    const recordsOf = (t: string): string[] => {
+      const rows: string[] = [];
+      const parsed = (parseCsvWithRaw(t) as { raw: string }[]).map((r) => r.raw.replace(/\r?\n?$/, ''));
+      rows.push(...parsed.slice(1));
+      return rows.sort();
+    };
+    const outRecords: string[] = [];
+    for (const p of m.output.parts) {
+      const t = readPart(join(out, p.path)).toString('utf8');
+      expect(t.endsWith('\r\n')).toBe(true); // the last input record got the input's own line end
+      outRecords.push(...recordsOf(t));
+    }
+    expect(outRecords.sort()).toEqual(recordsOf(text));
+  });
+});
+
+import { parse } from 'csv-parse/sync';
+function parseCsvWithRaw(t: string): unknown[] {
+  return parse(t, { raw: true }) as unknown[];
+}
+
+describe('invariant 3: exact dealing', () => {
+  it('puts every class in every part within one record of its share, and sizes within one', async () => {
+    const out = join(dir, 'inv3');
+    const P = 7;
+    const K = 3;
+    const m = await shuffle({ inputs: [input], out, seed: 'deal', partitions: P, stratify: 'fault', folds: K, memory: '4MiB' });
+    const totals = m.strata.values.map((v) => v.records);
+    const N = totals.reduce((a, b) => a + b, 0);
+    const sizes = m.output.parts.map((p) => p.records);
+    expect(Math.max(...sizes) - Math.min(...sizes)).toBeLessThanOrEqual(1);
+    for (const p of m.output.parts) {
+      p.strata.forEach((n, s) => expect(Math.abs(n - totals[s]! / P)).toBeLessThan(1));
+      // Inside every partition, each fold holds its share of every class within one.
+      for (let f = 0; f < K; f++) {
+        p.foldStrata!.forEach((row) => row.forEach((n, s) => expect(Math.abs(n - p.strata[s]! / K)).toBeLessThan(1 + 1e-9)));
+        expect(Math.abs(p.folds![f]! - p.records / K)).toBeLessThan(1 + 1e-9);
+      }
+    }
+    // The manifest's counts are what the files hold (recounted with csv-parse).
+    for (const p of m.output.parts) {
+      const { rows } = parseCsv(readPart(join(out, p.path)));
+      const byClass = new Map<string, number>();
+      for (const r of rows) byClass.set(r[5]!, (byClass.get(r[5]!) ?? 0) + 1);
+      m.strata.values.forEach((v, s) => expect(byClass.get(v.value![0]!) ?? 0).toBe(p.strata[s]));
+    }
+    expect(N).toBe(24000);
+    expect(m.balance.maxDeviation).toBeLessThanOrEqual(m.balance.tolerance);
+  });
+
+  it('deals named splits to exact sizes (fractions, counts, and * for the rest)', async () => {
+    const m = await shuffle({ inputs: [input], out: join(dir, 'split-frac'), seed: 'sp', split: 'train=0.8,valid=0.1,test=0.1', stratify: 'fault' });
+    expect(m.output.parts.map((p) => [p.path, p.records])).toEqual([
+      ['train.csv', 19200],
+      ['valid.csv', 2400],
+      ['test.csv', 2400],
+    ]);
+    const totals = m.strata.values.map((v) => v.records);
+    for (const [k, p] of m.output.parts.entries()) {
+      const w = [0.8, 0.1, 0.1][k]!;
+      p.strata.forEach((n, s) => expect(Math.abs(n - totals[s]! * w)).toBeLessThanOrEqual(1));
+    }
+    const c = await shuffle({ inputs: [input], out: join(dir, 'split-count'), seed: 'sp', split: 'holdout=1000,rest=*', partitions: 2 });
+    expect(c.output.parts.map((p) => [p.path, p.records])).toEqual([
+      ['holdout/part-00000.csv', 500],
+      ['holdout/part-00001.csv', 500],
+      ['rest/part-00000.csv', 11500],
+      ['rest/part-00001.csv', 11500],
+    ]);
+    await expect(shuffle({ inputs: [input], out: join(dir, 'split-bad'), split: 'a=1000,b=2000' })).rejects.toMatchObject({ code: 'ERR_SPLIT_SIZES' });
+    expect(existsSync(join(dir, 'split-bad'))).toBe(false);
+  });
+});
+
+describe('invariant 6: the tolerance is checked before anything is written', () => {
+  it('refuses a class with fewer records than partitions, naming it and what would work', async () => {
+    const text = makeSensorCsv({ rows: 2000, seed: 3, classes: [['ok', 0.998], ['smoke', 0.002]] });
+    const file = join(dir, 'rare.csv');
+    writeFileSync(file, text);
+    const out = join(dir, 'rare-out');
+    const err = await shuffle({ inputs: [file], out, partitions: 8, stratify: 'fault' }).catch((e: unknown) => e);
+    expect(err).toMatchObject({ code: 'ERR_TOLERANCE' });
+    const msg = (err as Error).message;
+    expect(msg).toContain('fault="smoke"');
+    expect(msg).toContain('4 of 2000');
+    expect(msg).toMatch(/fewer partitions/);
+    expect(msg).toMatch(/--tolerance/);
+    expect(existsSync(out)).toBe(false);
+    expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
+    // A looser tolerance lets it through, and the achieved deviation is recorded.
+    const m = await shuffle({ inputs: [file], out, partitions: 8, stratify: 'fault', tolerance: 1 });
+    expect(m.balance.maxDeviation).toBe(1);
+    expect(m.balance.tolerance).toBe(1);
+  });
+});
+
+describe('invariant 7: failure leaves nothing that looks complete', () => {
+  it('a bad record stops the run: no output folder, no manifest, no spill files', async () => {
+    const good = makeSensorCsv({ rows: 5000, seed: 9 });
+    const lines = good.split('\n');
+    lines.splice(3000, 0, '999999,S001,north-ridge,1.5,extra,field,ok');
+    const file = join(dir, 'bad.csv');
+    writeFileSync(file, lines.join('\n'));
+    const out = join(dir, 'bad-out');
+    const err = await shuffle({ inputs: [file], out, partitions: 2, memory: '4MiB' }).catch((e: unknown) => e);
+    expect(err).toMatchObject({ code: 'ERR_FIELD_COUNT' });
+    expect(existsSync(out)).toBe(false);
+    expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
+  });
+
+  it('an existing non-empty folder is refused without --force, and replaced whole with it', async () => {
+    const out = join(dir, 'exists');
+    await shuffle({ inputs: [input], out, partitions: 3 });
+    await expect(shuffle({ inputs: [input], out, partitions: 2 })).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS' });
+    expect(listFiles(out)).toContain('part-00002.csv');
+    await shuffle({ inputs: [input], out, partitions: 2, force: true });
+    expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv']);
+  });
+});
