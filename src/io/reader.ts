@@ -510,35 +510,15 @@ export class RecordReader {
       pos = p;
       if (!this.headerDone) return this.keep(d, pos, 0);
     }
-    const N = this.ncols, W = this.W;
     this.pCount = 0;
     this.pLine = this.line;
-    const lastLf = d.lastIndexOf(LF);
-    let nq = -1; // next quote at or after pos (n: none left)
     while (pos < n) {
-      if (nq < pos) { nq = d.indexOf(QUOTE, pos); if (nq < 0) nq = n; }
-      // Whole lines before the line that holds the next quote are records without quotes.
-      const lim = (nq < n ? d.lastIndexOf(LF, nq) : lastLf) + 1;
-      if (lim > pos) {
-        this.scanPlain(d, pos, lim);
-        pos = lim;
-        continue;
-      }
-      if (nq >= n && !atEnd) { this.rPending = true; this.rRel = 0; this.rInQ = false; break; }
+      pos = this.scan(d, pos, n, atEnd);
+      if (pos >= n) break;
+      // scan() stops at a record it cannot finish alone: bad, or cut by the end of the data.
       const r = this.walk(d, pos, n, atEnd);
       if (r === WALK_MORE) { this.rPending = true; this.rRel = 0; this.rInQ = false; break; }
-      const e = this.wEnd, next = this.wNext, line = this.pLine;
-      if (r === WALK_BAD) this.reject(this.wCode, line + this.wLineRel, this.wCol, this.wMsg, d, pos, e);
-      else if (this.wFields !== N) this.rejectFieldCount(line, this.wFields, d, pos, e);
-      else {
-        const count = this.pCount;
-        if (count === this.cap) this.grow(count + 1);
-        if (W > 0) this.fillWanted(d, pos, e, count * W);
-        this.st[count] = pos; this.en[count] = e; this.nx[count] = next; this.off[count] = this.base + pos; this.ln[count] = line;
-        this.pCount = count + 1;
-      }
-      this.pLine = line + this.wLfs + (next > e ? 1 : 0);
-      pos = next;
+      pos = this.takeWalk(d, pos, r);
     }
     const count = this.pCount;
     this.line = this.pLine;
@@ -547,73 +527,121 @@ export class RecordReader {
     return this.keep(d, pos, count);
   }
 
+  /** Files the record walk() just read from `s` (or rejects it); returns where the next one starts. */
+  private takeWalk(d: Buffer, s: number, r: number): number {
+    const e = this.wEnd, next = this.wNext, line = this.pLine;
+    if (r === WALK_BAD) this.reject(this.wCode, line + this.wLineRel, this.wCol, this.wMsg, d, s, e);
+    else if (this.wFields !== this.ncols) this.rejectFieldCount(line, this.wFields, d, s, e);
+    else this.addRecord(d, s, e, next, line);
+    this.pLine = line + this.wLfs + (next > e ? 1 : 0);
+    return next;
+  }
+
+  private addRecord(d: Buffer, s: number, e: number, next: number, line: number): void {
+    const count = this.pCount;
+    if (count === this.cap) this.grow(count + 1);
+    if (this.W > 0) this.fillWanted(d, s, e, count * this.W);
+    this.st[count] = s; this.en[count] = e; this.nx[count] = next; this.off[count] = this.base + s; this.ln[count] = line;
+    this.pCount = count + 1;
+  }
+
   /**
-   * Reads the complete, quote-free lines in `[a, b)` (b - 1 is a line end) as records. One pass
-   * over 32-bit words flags delimiters and line ends together (see countDelims for the test);
-   * words with delimiters only are counted with a multiply, words with a line end are resolved
-   * byte by byte in order.
+   * The hot loop: reads records from `pos` until the end of the data and returns the start of
+   * the first record it could not finish (n when none). One pass over 32-bit words flags the
+   * delimiter, LF and quote bytes together with a carry-free zero-byte test (see countDelims):
+   * words with no flag are skipped, words with delimiters only are counted with a multiply, the
+   * rest are resolved byte by byte in order. A quoted field is skipped with indexOf to its
+   * closing quote. Anything unusual (a stray quote, the end of the data) is left to walk().
    */
-  private scanPlain(d: Buffer, a: number, b: number): void {
-    const D = this.delim, dpos = this.dpos, dl = dpos.length;
-    let ls = a, c = 0, i = a;
-    if (b - a >= 8 && LITTLE_ENDIAN) {
-      const u = this.u32, off = this.dOff, patD = this.pat, mp = this.markPrefix, N = this.ncols;
-      const head = a + ((4 - ((off + a) & 3)) & 3);
+  private scan(d: Buffer, pos: number, n: number, atEnd: boolean): number {
+    const D = this.delim, dpos = this.dpos, dl = dpos.length, N = this.ncols;
+    const u = this.u32, off = this.dOff, patD = this.pat, mp = this.markPrefix;
+    const words = LITTLE_ENDIAN;
+    let ls = pos, c = 0, lfs = 0, i = pos;
+    for (;;) {
+      let q = -1; // a quote to deal with
+      const head = words ? Math.min(n, i + ((4 - ((off + i) & 3)) & 3)) : n;
       for (; i < head; i++) {
         const ch = d[i];
         if (ch === D) { c++; if (c < dl) dpos[c] = i; }
-        else if (ch === LF) { this.endPlain(d, ls, i, c); ls = i + 1; c = 0; }
+        else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; }
+        else if (ch === QUOTE) { q = i; break; }
       }
-      const kEnd = (off + b) >> 2;
-      for (let k = (off + i) >> 2; k < kEnd; k++) {
-        const v = u[k]!;
-        const x = v ^ patD, y = v ^ 0x0a0a0a0a;
-        let tD = ~(((x & 0x7f7f7f7f) + 0x7f7f7f7f) | x | 0x7f7f7f7f);
-        const tL = ~(((y & 0x7f7f7f7f) + 0x7f7f7f7f) | y | 0x7f7f7f7f);
-        if ((tD | tL) === 0) continue;
-        const wb = (k << 2) - off;
-        if (tL === 0) {
-          const c2 = c + (Math.imul((tD >>> 7) & 0x01010101, 0x01010101) >>> 24);
-          if (mp[c2 < N ? c2 : N] !== mp[c < N ? c : N]) {
-            while (tD !== 0) {
-              c++;
-              if (c < dl) dpos[c] = wb + ((31 - Math.clz32(tD & -tD)) >> 3);
-              tD &= tD - 1;
-            }
-          } else c = c2;
-        } else {
-          let t = tD | tL;
+      if (q < 0 && i < n) {
+        const kEnd = (off + n) >> 2;
+        let k = (off + i) >> 2;
+        for (; k < kEnd; k++) {
+          const v = u[k]!;
+          const x = v ^ patD, y = v ^ 0x0a0a0a0a, z = v ^ 0x22222222;
+          let tD = ~(((x & 0x7f7f7f7f) + 0x7f7f7f7f) | x | 0x7f7f7f7f);
+          const tO = ~(((y & 0x7f7f7f7f) + 0x7f7f7f7f) | y | 0x7f7f7f7f) | ~(((z & 0x7f7f7f7f) + 0x7f7f7f7f) | z | 0x7f7f7f7f);
+          if ((tD | tO) === 0) continue;
+          const wb = (k << 2) - off;
+          if (tO === 0) {
+            const c2 = c + (Math.imul((tD >>> 7) & 0x01010101, 0x01010101) >>> 24);
+            if (mp[c2 < N ? c2 : N] !== mp[c < N ? c : N]) {
+              while (tD !== 0) {
+                c++;
+                if (c < dl) dpos[c] = wb + ((31 - Math.clz32(tD & -tD)) >> 3);
+                tD &= tD - 1;
+              }
+            } else c = c2;
+            continue;
+          }
+          let t = tD | tO;
           while (t !== 0) {
             const p = wb + ((31 - Math.clz32(t & -t)) >> 3);
             t &= t - 1;
-            if (d[p] === LF) { this.endPlain(d, ls, p, c); ls = p + 1; c = 0; }
-            else { c++; if (c < dl) dpos[c] = p; }
+            const ch = d[p];
+            if (ch === D) { c++; if (c < dl) dpos[c] = p; }
+            else if (ch === LF) { this.endRecord(d, ls, p, c, lfs); ls = p + 1; c = 0; lfs = 0; }
+            else { q = p; break; }
+          }
+          if (q >= 0) break;
+        }
+        if (q < 0) {
+          const w = (kEnd << 2) - off;
+          if (w > i) i = w;
+          for (; i < n; i++) {
+            const ch = d[i];
+            if (ch === D) { c++; if (c < dl) dpos[c] = i; }
+            else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; }
+            else if (ch === QUOTE) { q = i; break; }
           }
         }
       }
-      const w = (kEnd << 2) - off;
-      if (w > i) i = w;
-    }
-    for (; i < b; i++) {
+      if (q < 0) return ls;
+      // A quote: it must open a field; find its closing quote (a doubled quote is data).
+      if (q !== ls && d[q - 1] !== D) return ls;
+      let j = q + 1, close = -1;
+      for (;;) {
+        const x = d.indexOf(QUOTE, j);
+        if (x < 0 || x + 1 >= n) break;
+        if (d[x + 1] === QUOTE) { j = x + 2; continue; }
+        close = x;
+        break;
+      }
+      if (close < 0) return ls;
+      for (let l = d.indexOf(LF, q + 1); l >= 0 && l < close; l = d.indexOf(LF, l + 1)) lfs++;
+      i = close + 1;
       const ch = d[i];
-      if (ch === D) { c++; if (c < dl) dpos[c] = i; }
-      else if (ch === LF) { this.endPlain(d, ls, i, c); ls = i + 1; c = 0; }
+      if (ch === D) { c++; if (c < dl) dpos[c] = i; i++; continue; }
+      if (ch === LF) { this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; continue; }
+      if (ch === CR && i + 1 < n && d[i + 1] === LF) { i++; this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; continue; }
+      void atEnd;
+      return ls;
     }
   }
 
-  /** One quote-free line `[ls, nl)` with `c` delimiters: a record, a bad record, or blank. */
-  private endPlain(d: Buffer, ls: number, nl: number, c: number): void {
+  /** A record `[ls, nl)` without a stray quote, `c` delimiters, `lfs` line ends inside quotes. */
+  private endRecord(d: Buffer, ls: number, nl: number, c: number, lfs: number): void {
     let e = nl;
     if (e > ls && d[e - 1] === CR) e--;
     const line = this.pLine;
-    this.pLine = line + 1;
+    this.pLine = line + 1 + lfs;
     if (e === ls) return; // blank line
-    if (c + 1 !== this.ncols) { this.rejectFieldCount(line, c + 1, d, ls, e); return; }
-    const count = this.pCount;
-    if (count === this.cap) this.grow(count + 1);
-    if (this.W > 0) this.fillWanted(d, ls, e, count * this.W);
-    this.st[count] = ls; this.en[count] = e; this.nx[count] = nl + 1; this.off[count] = this.base + ls; this.ln[count] = line;
-    this.pCount = count + 1;
+    if (c + 1 !== this.ncols) this.rejectFieldCount(line, c + 1, d, ls, e);
+    else this.addRecord(d, ls, e, nl + 1, line);
   }
 
   private rejectFieldCount(line: number, f: number, d: Buffer, s: number, e: number): void {
