@@ -132,6 +132,8 @@ export class RecordReader {
   private wcol = new Int32Array(0);
   /** markPrefix[k]: how many of delimiters 1..k bound a wanted field (see countDelims). */
   private markPrefix = new Int32Array(1);
+  /** nextMark[c]: the first delimiter number above c that bounds a wanted field. */
+  private nextMark = new Int32Array(1).fill(0x7fffffff);
   /** Positions of the delimiters of the record being read, by number (1-based). */
   private dpos = new Int32Array(8);
   /** The data being parsed as 32-bit words (over its whole ArrayBuffer), and its byte offset. */
@@ -555,16 +557,17 @@ export class RecordReader {
    */
   private scan(d: Buffer, pos: number, n: number, atEnd: boolean): number {
     const D = this.delim, dpos = this.dpos, dl = dpos.length, N = this.ncols;
-    const u = this.u32, off = this.dOff, patD = this.pat, mp = this.markPrefix;
+    const u = this.u32, off = this.dOff, patD = this.pat, nextMark = this.nextMark, firstMark = nextMark[0]!;
     const words = LITTLE_ENDIAN;
     let ls = pos, c = 0, lfs = 0, i = pos;
+    let nm = firstMark; // number of the next delimiter a wanted field needs the position of
     for (;;) {
       let q = -1; // a quote to deal with
       const head = words ? Math.min(n, i + ((4 - ((off + i) & 3)) & 3)) : n;
       for (; i < head; i++) {
         const ch = d[i];
         if (ch === D) { c++; if (c < dl) dpos[c] = i; }
-        else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; }
+        else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; nm = firstMark; }
         else if (ch === QUOTE) { q = i; break; }
       }
       if (q < 0 && i < n) {
@@ -573,28 +576,32 @@ export class RecordReader {
         for (; k < kEnd; k++) {
           const v = u[k]!;
           const x = v ^ patD, y = v ^ 0x0a0a0a0a, z = v ^ 0x22222222;
-          let tD = ~(((x & 0x7f7f7f7f) + 0x7f7f7f7f) | x | 0x7f7f7f7f);
-          const tO = ~(((y & 0x7f7f7f7f) + 0x7f7f7f7f) | y | 0x7f7f7f7f) | ~(((z & 0x7f7f7f7f) + 0x7f7f7f7f) | z | 0x7f7f7f7f);
-          if ((tD | tO) === 0) continue;
+          // Cheap test first (may flag a byte above a real hit, never misses one); most words
+          // hold no delimiter, LF or quote at all.
+          const yz = (((y - 0x01010101) | 0) & ~y) | (((z - 0x01010101) | 0) & ~z);
+          if ((((((x - 0x01010101) | 0) & ~x) | yz) & 0x80808080) === 0) continue;
+          let tD = ~((((x & 0x7f7f7f7f) + 0x7f7f7f7f) | 0) | x | 0x7f7f7f7f);
           const wb = (k << 2) - off;
-          if (tO === 0) {
+          if ((yz & 0x80808080) === 0) {
             const c2 = c + (Math.imul((tD >>> 7) & 0x01010101, 0x01010101) >>> 24);
-            if (mp[c2 < N ? c2 : N] !== mp[c < N ? c : N]) {
+            if (c2 >= nm) {
               while (tD !== 0) {
                 c++;
                 if (c < dl) dpos[c] = wb + ((31 - Math.clz32(tD & -tD)) >> 3);
                 tD &= tD - 1;
               }
+              nm = nextMark[c < N ? c : N]!;
             } else c = c2;
             continue;
           }
+          const tO = ~((((y & 0x7f7f7f7f) + 0x7f7f7f7f) | 0) | y | 0x7f7f7f7f) | ~((((z & 0x7f7f7f7f) + 0x7f7f7f7f) | 0) | z | 0x7f7f7f7f);
           let t = tD | tO;
           while (t !== 0) {
             const p = wb + ((31 - Math.clz32(t & -t)) >> 3);
             t &= t - 1;
             const ch = d[p];
             if (ch === D) { c++; if (c < dl) dpos[c] = p; }
-            else if (ch === LF) { this.endRecord(d, ls, p, c, lfs); ls = p + 1; c = 0; lfs = 0; }
+            else if (ch === LF) { this.endRecord(d, ls, p, c, lfs); ls = p + 1; c = 0; lfs = 0; nm = firstMark; }
             else { q = p; break; }
           }
           if (q >= 0) break;
@@ -605,7 +612,7 @@ export class RecordReader {
           for (; i < n; i++) {
             const ch = d[i];
             if (ch === D) { c++; if (c < dl) dpos[c] = i; }
-            else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; }
+            else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); ls = i + 1; c = 0; lfs = 0; nm = firstMark; }
             else if (ch === QUOTE) { q = i; break; }
           }
         }
@@ -626,8 +633,8 @@ export class RecordReader {
       i = close + 1;
       const ch = d[i];
       if (ch === D) { c++; if (c < dl) dpos[c] = i; i++; continue; }
-      if (ch === LF) { this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; continue; }
-      if (ch === CR && i + 1 < n && d[i + 1] === LF) { i++; this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; continue; }
+      if (ch === LF) { this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; continue; }
+      if (ch === CR && i + 1 < n && d[i + 1] === LF) { i++; this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; continue; }
       void atEnd;
       return ls;
     }
@@ -747,6 +754,14 @@ export class RecordReader {
     for (let k = 1; k <= N; k++) mp[k] = mp[k - 1]! + mark[k]!;
     this.wcol = wcol;
     this.markPrefix = mp;
+    // nextMark[c]: the first marked delimiter number above c (N + 1 past the last).
+    const nextMark = new Int32Array(N + 1);
+    let next = 0x7fffffff;
+    for (let k = N; k >= 0; k--) {
+      nextMark[k] = next;
+      if (mark[k]) next = k;
+    }
+    this.nextMark = nextMark;
     this.dpos = new Int32Array(N + 1);
   }
 
