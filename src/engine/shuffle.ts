@@ -14,6 +14,7 @@ import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { existsSync, readFileSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
+import { unlink } from 'node:fs/promises';
 import { Piscina } from 'piscina';
 import { stringify } from 'csv-stringify/sync';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
@@ -91,6 +92,38 @@ function onSignals(cleanup: Cleanup): () => void {
     process.removeListener('SIGINT', handler);
     process.removeListener('SIGTERM', handler);
   };
+}
+
+/**
+ * Removes hidden work folders left by runs that were killed outright (SIGKILL, power loss):
+ * their names carry the owning process id, and a folder whose process is gone is stale.
+ */
+export function removeStaleWorkFolders(dir: string): string[] {
+  const removed: string[] = [];
+  let names: string[];
+  try {
+    names = readdirSync(dir);
+  } catch {
+    return removed;
+  }
+  for (const name of names) {
+    const m = /^\.rowdeck-(?:spill|partial)-(\d+)-/.exec(name);
+    if (!m) continue;
+    const pid = Number(m[1]);
+    if (pid === process.pid || isAlive(pid)) continue;
+    rmSync(join(dir, name), { recursive: true, force: true });
+    removed.push(name);
+  }
+  return removed;
+}
+
+function isAlive(pid: number): boolean {
+  try {
+    process.kill(pid, 0);
+    return true;
+  } catch (err) {
+    return (err as NodeJS.ErrnoException).code === 'EPERM';
+  }
 }
 
 function checkTarget(out: string, force: boolean): void {
@@ -183,9 +216,11 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
   try {
     const spillRoot = o.tempDir ? resolve(o.tempDir) : parent;
     mkdirSync(spillRoot, { recursive: true });
-    const spillDir = mkdtempSync(join(spillRoot, `.rowdeck-spill-`));
+    removeStaleWorkFolders(parent);
+    if (spillRoot !== parent) removeStaleWorkFolders(spillRoot);
+    const spillDir = mkdtempSync(join(spillRoot, `.rowdeck-spill-${process.pid}-`));
     cleanup.paths.add(spillDir);
-    const stage = mkdtempSync(join(parent, `.rowdeck-partial-${basename(out)}-`));
+    const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
     cleanup.paths.add(stage);
 
     // Bucket size: a few buckets in flight per thread, plus their outputs, must fit the budget.
@@ -368,6 +403,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         fps[p]!.merge(r.fingerprints[p]!);
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
+      // The bucket is done: free its disk space now rather than all at the end.
+      unlink(sc.bucketPaths[b]!).catch(() => {});
       written += r.data.byteLength;
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
     }
@@ -435,7 +472,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
 
     // Swap into place: an old folder (with --force) is moved aside first, then removed.
     if (existsSync(out)) {
-      const old = `${stage}-old`;
+      const old = `${stage}-replaced`;
       renameSync(out, old);
       cleanup.paths.add(old);
     }
@@ -517,7 +554,7 @@ function toleranceError(
       : `fold ${worst.unit % deal.folds}${deal.splits.length > 1 ? ` of split ${deal.splits[Math.floor(worst.unit / deal.folds)]!.name}` : ''}`;
   const units = worst.kind === 'part' ? layout.length : deal.folds * deal.splits.length;
   const hints: string[] = [];
-  if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} records for ${units} ${worst.kind}s)`);
+  if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} record${size === 1 ? '' : 's'} for ${units} ${worst.kind}s)`);
   hints.push(`a looser --tolerance (≥ ${Math.ceil(worst.deviation * 100) / 100})`);
   if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
   if (o.assign === 'group') hints.push('smaller or more groups');

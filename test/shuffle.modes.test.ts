@@ -1,0 +1,177 @@
+/**
+ * Dealing modes and formats: groups, hash assignment, JSON Lines, gzip, several inputs,
+ * rejected records. Outputs are re-read with csv-parse / JSON.parse, never with the engine's
+ * own reader.
+ */
+import { existsSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { gzipSync } from 'node:zlib';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { shuffle } from '../src/index.js';
+import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
+
+let dir: string;
+let input: string;
+let inputText: string;
+
+beforeAll(() => {
+  dir = makeTempDir();
+  input = join(dir, 'readings.csv');
+  inputText = makeSensorCsv({ rows: 6000, seed: 21, sensors: 120 });
+  writeFileSync(input, inputText);
+});
+afterAll(() => removeDir(dir));
+
+describe('--group keeps every group in one part', () => {
+  it('never splits a sensor over folds or partitions, and keeps classes near their share', async () => {
+    const out = join(dir, 'group');
+    const m = await shuffle({ inputs: [input], out, seed: 'g', partitions: 2, folds: 3, group: 'sensor', stratify: 'fault', tolerance: 1 });
+    const cellOfSensor = new Map<string, string>();
+    let rows = 0;
+    for (const p of m.output.parts) {
+      for (const r of parseCsv(readPart(join(out, p.path))).rows) {
+        const cell = `${p.path}#${r[6]}`;
+        const seen = cellOfSensor.get(r[1]!);
+        if (seen !== undefined) expect(seen).toBe(cell);
+        cellOfSensor.set(r[1]!, cell);
+        rows++;
+      }
+    }
+    expect(rows).toBe(6000);
+    expect(cellOfSensor.size).toBe(120);
+    // 120 groups over 6 cells: each class stays within a modest deviation, which is reported.
+    expect(m.balance.maxDeviation).toBeGreaterThan(0);
+    expect(m.balance.maxDeviation).toBeLessThan(0.5);
+    const sizes = m.output.parts.map((p) => p.records);
+    expect(Math.abs(sizes[0]! - sizes[1]!)).toBeLessThan(300);
+    expect(m.options.assign).toBe('group');
+  });
+
+  it('gives the same groups the same parts whatever the thread count or memory', async () => {
+    const a = await shuffle({ inputs: [input], out: join(dir, 'group-a'), seed: 'g2', partitions: 3, group: 'sensor', threads: 1, memory: '2MiB' });
+    const b = await shuffle({ inputs: [input], out: join(dir, 'group-b'), seed: 'g2', partitions: 3, group: 'sensor', threads: 2, memory: '1GiB' });
+    expect(a.output.parts.map((p) => p.sha256)).toEqual(b.output.parts.map((p) => p.sha256));
+  });
+});
+
+describe('--assign hash', () => {
+  it('keeps the part of every old record when records are appended', async () => {
+    const older = join(dir, 'older.csv');
+    const lines = inputText.trimEnd().split('\n');
+    // Records are one line each here only when their note is not multi-line: keep it simple and
+    // take the rows csv-parse sees, rewriting them without line breaks in notes.
+    const { header, rows } = parseCsv(inputText);
+    const flat = rows.map((r) => r.map((f) => (/[",\n\r]/.test(f) ? `"${f.replaceAll('"', '""').replace(/[\r\n]+/g, ' ')}"` : f)).join(','));
+    void lines;
+    writeFileSync(older, [header.join(','), ...flat.slice(0, 4000)].join('\n') + '\n');
+    const newer = join(dir, 'newer.csv');
+    writeFileSync(newer, [header.join(','), ...flat].join('\n') + '\n');
+    const partOf = async (file: string, out: string): Promise<Map<string, string>> => {
+      const m = await shuffle({ inputs: [file], out, seed: 'stable', partitions: 4, assign: 'hash', key: 'id', stratify: 'fault' });
+      const map = new Map<string, string>();
+      for (const p of m.output.parts) for (const r of parseCsv(readPart(join(out, p.path))).rows) map.set(r[0]!, p.path);
+      return map;
+    };
+    const before = await partOf(older, join(dir, 'hash-old'));
+    const after = await partOf(newer, join(dir, 'hash-new'));
+    expect(before.size).toBe(4000);
+    for (const [id, part] of before) expect(after.get(id)).toBe(part);
+    // Proportions are approximate but close: each part within 10% of a quarter.
+    const counts = new Map<string, number>();
+    for (const p of after.values()) counts.set(p, (counts.get(p) ?? 0) + 1);
+    for (const c of counts.values()) expect(Math.abs(c - 1500)).toBeLessThan(150);
+  });
+
+  it('needs --key', async () => {
+    await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+  });
+});
+
+describe('formats', () => {
+  it('JSON Lines: a fold field is added to each object, everything else kept', async () => {
+    const file = join(dir, 'events.jsonl');
+    const objs = Array.from({ length: 500 }, (_, i) => ({ id: i, sensor: `S${i % 9}`, fault: i % 5 === 0 ? 'spike' : 'ok', note: i % 7 ? 'a,"b"' : null }));
+    const text = objs.map((o) => JSON.stringify(o)).join('\n') + '\n{}\n';
+    writeFileSync(file, text);
+    const out = join(dir, 'jsonl');
+    const m = await shuffle({ inputs: [file], out, seed: 'j', partitions: 2, folds: 4, stratify: 'fault', tolerance: 4 });
+    expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.jsonl', 'part-00001.jsonl']);
+    const back: unknown[] = [];
+    for (const p of m.output.parts) {
+      for (const line of readFileSync(join(out, p.path), 'utf8').split('\n').filter(Boolean)) {
+        const o = JSON.parse(line) as Record<string, unknown>;
+        expect(typeof o.fold).toBe('number');
+        const { fold: _f, ...rest } = o;
+        back.push(rest);
+      }
+    }
+    expect(back.map((o) => JSON.stringify(o)).sort()).toEqual([...objs.map((o) => JSON.stringify(o)), '{}'].sort());
+    // The empty object's missing class is a stratum of its own.
+    expect(m.strata.values.map((v) => v.value)).toEqual([['ok'], ['spike'], [null]]);
+  });
+
+  it('gzip in and out: the same records, and compressed parts as reproducible as plain ones', async () => {
+    const gz = join(dir, 'readings.csv.gz');
+    writeFileSync(gz, gzipSync(inputText));
+    const plain = await shuffle({ inputs: [input], out: join(dir, 'plain'), seed: 'z', partitions: 2 });
+    const a = await shuffle({ inputs: [gz], out: join(dir, 'gz-a'), seed: 'z', partitions: 2, gzip: true, threads: 1, memory: '2MiB' });
+    const b = await shuffle({ inputs: [gz], out: join(dir, 'gz-b'), seed: 'z', partitions: 2, gzip: true, threads: 2 });
+    expect(a.output.parts.map((p) => p.path)).toEqual(['part-00000.csv.gz', 'part-00001.csv.gz']);
+    expect(a.output.parts.map((p) => p.sha256)).toEqual(b.output.parts.map((p) => p.sha256));
+    for (const [k, p] of a.output.parts.entries()) {
+      expect(readPart(join(dir, 'gz-a', p.path)).equals(readFileSync(join(dir, 'plain', plain.output.parts[k]!.path)))).toBe(true);
+    }
+  });
+
+  it('several inputs are one data set; the order of records does not depend on which file they came from', async () => {
+    const { header, rows } = parseCsv(inputText);
+    const toCsv = (rs: string[][]): string =>
+      [header, ...rs].map((r) => r.map((f) => (/[",\n\r]/.test(f) ? `"${f.replaceAll('"', '""')}"` : f)).join(',')).join('\n') + '\n';
+    const f1 = join(dir, 'day1.csv');
+    const f2 = join(dir, 'day2.csv');
+    writeFileSync(f1, toCsv(rows.slice(0, 2500)));
+    writeFileSync(f2, toCsv(rows.slice(2500)));
+    const m = await shuffle({ inputs: [f1, f2], out: join(dir, 'two'), seed: 't', partitions: 3, stratify: 'fault' });
+    expect(m.input.files.map((f) => [f.path, f.records])).toEqual([
+      [f1, 2500],
+      [f2, 3500],
+    ]);
+    const got: string[][] = [];
+    for (const p of m.output.parts) got.push(...parseCsv(readPart(join(dir, 'two', p.path))).rows);
+    expect(rowMultiset(got)).toEqual(rowMultiset(rows));
+    const other = join(dir, 'other.csv');
+    writeFileSync(other, 'id,sensor,site,reading,notes,fault\n1,S1,x,1,,ok\n');
+    await expect(shuffle({ inputs: [f1, other], out: join(dir, 'mismatch') })).rejects.toMatchObject({ code: 'ERR_HEADER_MISMATCH' });
+  });
+});
+
+describe('--on-bad-record', () => {
+  const bad = (): string => {
+    const lines = makeSensorCsv({ rows: 1000, seed: 4 }).split('\n');
+    lines.splice(10, 0, '1,2,3');
+    lines.splice(500, 0, 'x,S1,north-ridge,1.0,"never closed,ok');
+    return lines.join('\n');
+  };
+
+  it('skip: leaves bad records out and counts them', async () => {
+    const file = join(dir, 'bad-skip.csv');
+    writeFileSync(file, bad());
+    const m = await shuffle({ inputs: [file], out: join(dir, 'skip'), onBadRecord: 'skip', partitions: 2 });
+    expect(m.input.rejected).toBeGreaterThanOrEqual(1);
+    expect(m.input.files[0]!.rejected).toBe(m.input.rejected);
+    expect(m.output.records).toBe(m.input.records);
+    expect(existsSync(join(dir, 'skip', 'rejected.csv'))).toBe(false);
+  });
+
+  it('quarantine: writes each rejected record with its line number and reason', async () => {
+    const file = join(dir, 'bad-q.csv');
+    writeFileSync(file, bad());
+    const m = await shuffle({ inputs: [file], out: join(dir, 'quarantine'), onBadRecord: 'quarantine' });
+    expect(m.input.rejectsFile).toBe('rejected.csv');
+    const { header, rows } = parseCsv(readFileSync(join(dir, 'quarantine', 'rejected.csv')));
+    expect(header).toEqual(['file', 'line', 'code', 'reason', 'record']);
+    expect(rows.length).toBe(m.input.rejected);
+    expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'ERR_FIELD_COUNT']);
+    expect(rows[0]![4]).toBe('1,2,3');
+  });
+});
