@@ -82,6 +82,15 @@ describe('fail fast (default)', () => {
     r.push(Buffer.from('a,b\n1,2,3\n').subarray(0, 4));
     expect(() => r.push(Buffer.from('1,2,3\n'))).toThrow(RowdeckError);
   });
+  it('a quoted field still open after maxRecordBytes is reported at the line its record began', () => {
+    const input = 'a,b\n1,2\n3,"open' + 'x\n'.repeat(2000);
+    const e = readError(input, { maxRecordBytes: 1000 }, 100);
+    expect(e.code).toBe('ERR_UNTERMINATED_QUOTE');
+    expect(e.details).toMatchObject({ line: 3 });
+    expect(e.message).toContain('after 1000 bytes');
+    // Under the limit the same input ends as an ordinary unterminated quote at EOF.
+    expect(readError(input, { maxRecordBytes: 1e6 }, 100).message).toMatch(/^data\.csv:3:2: a quoted field starts here/);
+  });
   it('an invalid delimiter is a usage error', () => {
     for (const delimiter of ['"', '\n', ';;', 'é']) {
       expect(() => new RecordReader({ format: 'csv', delimiter, header: true, wanted: [], file: 'x', onBadRecord: 'fail' })).toThrow(expect.objectContaining({ code: 'ERR_OPTION' }));
@@ -160,6 +169,10 @@ describe('JSON Lines', () => {
     const r = readAll(bad, { format: 'jsonl', onBadRecord: 'skip', wanted: ['a'] }, 2);
     expect(r.fields).toEqual([['1'], ['3']]);
     expect(r.rejected.map((x) => x.line)).toEqual([2, 3]);
+  });
+  it('a key wanted twice is located twice', () => {
+    expect(readAll('{"a":1,"b":"x"}\n', { format: 'jsonl', wanted: ['b', 'a', 'b'] }).fields).toEqual([['x', '1', 'x']]);
+    expect(readAll('a,b\n1,"x"\n', { wanted: ['b', 'a', 'b'] }).fields).toEqual([['x', '1', 'x']]);
   });
   it('an empty JSON Lines input is ERR_INPUT_EMPTY', () => {
     expect(readError('\n  \n', { format: 'jsonl' }).code).toBe('ERR_INPUT_EMPTY');

@@ -94,6 +94,8 @@ export interface RecordReaderOptions {
   expectedColumns?: string[];
   /** Name of the input `expectedColumns` came from, for the mismatch message. */
   expectedFrom?: string;
+  /** A quoted field still open after this many bytes is reported as unterminated (default MAX_RECORD_BYTES). */
+  maxRecordBytes?: number;
 }
 
 interface Counters {
@@ -126,8 +128,10 @@ export class RecordReader {
   private sch: InputSchema | null = null;
   /** Expected field count per record (CSV/TSV); 0 until the first record is known. */
   private ncols = 0;
-  /** Column index -> wanted slot, or -1. */
+  /** Column index -> first wanted slot naming it, or -1. */
   private slot = new Int32Array(0);
+  /** For each wanted slot, the earlier slot with the same name, or -1. */
+  private dupOf = new Int32Array(0);
   /** Column index of each wanted field. */
   private wcol = new Int32Array(0);
   /** markPrefix[k]: how many of delimiters 1..k bound a wanted field (see countDelims). */
@@ -269,7 +273,7 @@ export class RecordReader {
     if (this.rPending) {
       // A long record is still open: scan only the new bytes until its end is in sight.
       if (!this.findEnd(d, pos, n) && !atEnd) {
-        if (this.rInQ && n - pos > MAX_RECORD_BYTES) this.failOversized(d, pos);
+        if (this.rInQ && n - pos > (this.opts.maxRecordBytes ?? MAX_RECORD_BYTES)) this.failOversized();
         return this.keep(d, pos, 0);
       }
       this.rPending = false;
@@ -341,12 +345,12 @@ export class RecordReader {
     return false;
   }
 
-  private failOversized(d: Buffer, s: number): never {
+  private failOversized(): never {
     const { file } = this.opts;
-    void d; void s;
+    const limit = this.opts.maxRecordBytes ?? MAX_RECORD_BYTES;
     throw new RowdeckError(
       'ERR_UNTERMINATED_QUOTE',
-      `${where(file, this.line)}: a record starting here is still inside a quoted field after ${MAX_RECORD_BYTES / 1024 / 1024} MiB. A quote is probably never closed; check the quotes near this line.`,
+      `${where(file, this.line)}: a record starting here is still inside a quoted field after ${limit >= 1 << 20 ? `${limit / (1 << 20)} MiB` : `${limit} bytes`}. A quote is probably never closed; check the quotes near this line.`,
       { file, line: this.line },
     );
   }
@@ -737,10 +741,14 @@ export class RecordReader {
     wanted.forEach((name, w) => {
       const c = columns.indexOf(name);
       if (c < 0) throw unknownColumn(name, columns, file);
-      if (slot[c]! >= 0) throw new RowdeckError('ERR_OPTION', `Invalid option "wanted": column "${name}" is listed twice`, { column: name });
-      slot[c] = w;
+      if (slot[c]! < 0) slot[c] = w;
     });
     this.slot = slot;
+    // A column may be wanted twice (say, as stratum and as key): later copies repeat the first.
+    this.dupOf = Int32Array.from(wanted, (name, w) => {
+      const first = wanted.indexOf(name);
+      return first === w ? -1 : first;
+    });
     // Delimiter k (1-based) separates fields k-1 and k; mark those that bound a wanted field.
     const wcol = new Int32Array(wanted.length);
     const mark = new Uint8Array(N + 1);
@@ -812,7 +820,13 @@ export class RecordReader {
       if (count === this.cap) this.grow(count + 1);
       const fb = count * W;
       for (let w = 0; w < W; w++) { this.fS[fb + w] = a; this.fE[fb + w] = a; this.fK[fb + w] = FieldKind.Missing; }
-      if (W > 0) this.locateJsonFields(d, a, fb);
+      if (W > 0) {
+        this.locateJsonFields(d, a, fb);
+        for (let w = 0; w < W; w++) {
+          const o = this.dupOf[w]!;
+          if (o >= 0) { this.fS[fb + w] = this.fS[fb + o]!; this.fE[fb + w] = this.fE[fb + o]!; this.fK[fb + w] = this.fK[fb + o]!; }
+        }
+      }
       this.st[count] = pos; this.en[count] = e; this.nx[count] = next; this.off[count] = base + pos; this.ln[count] = line;
       count++;
       line++;
