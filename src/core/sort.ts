@@ -19,14 +19,14 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     const idx = Array.from({ length: count }, (_, i) => i).sort((a, b) => compareRecords(keys, a, b));
     return Uint32Array.from(idx);
   }
-  const digit = new Uint32Array(count);
+  const digit = scratch(0, count);
   for (let i = 0; i < count; i++) {
     digit[i] = bits === 0 ? keyHi[i]! : ((keyHi[i]! << bits) | (keyLo[i]! >>> (32 - bits))) >>> 0;
   }
-  let order = new Uint32Array(count);
-  let tmp = new Uint32Array(count);
+  let order: Uint32Array = new Uint32Array(count);
+  let tmp: Uint32Array = scratch(1, count);
   for (let i = 0; i < count; i++) order[i] = i;
-  const hist = new Uint32Array(65536);
+  const hist = HIST;
   for (const shift of [0, 16]) {
     hist.fill(0);
     for (let i = 0; i < count; i++) hist[(digit[i]! >>> shift) & 0xffff]!++;
@@ -42,6 +42,7 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     }
     [order, tmp] = [tmp, order];
   }
+  // Two passes: `order` is the array allocated above again, so it is safe to hand out.
   // Finish runs of equal 32-bit digits with a full comparison.
   for (let i = 0; i < count; ) {
     let j = i + 1;
@@ -54,6 +55,15 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     i = j;
   }
   return order;
+}
+
+// Scratch space reused across calls: a worker sorts one bucket after another, and fresh large
+// typed arrays per bucket would pile up as garbage faster than the collector returns it.
+const HIST = new Uint32Array(65536);
+const SCRATCH: Uint32Array[] = [new Uint32Array(0), new Uint32Array(0)];
+function scratch(k: number, count: number): Uint32Array {
+  if (SCRATCH[k]!.length < count) SCRATCH[k] = new Uint32Array(Math.ceil(count * 1.25));
+  return SCRATCH[k]!.subarray(0, count);
 }
 
 export function compareRecords(keys: SortKeys, a: number, b: number): number {

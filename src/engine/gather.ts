@@ -17,6 +17,12 @@ export interface GatherTask {
   paths: string[];
   /** Rank, within each dealing stratum, of the first record of that stratum in this bucket. */
   rankStart: Float64Array;
+  /**
+   * A buffer to reuse (one an earlier task returned). Recycling keeps memory bounded: freed
+   * buffers would otherwise wait for a garbage collection that large external allocations do
+   * not prompt soon enough.
+   */
+  arena?: ArrayBuffer;
 }
 
 export interface GatherResult {
@@ -133,9 +139,10 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   const growth = Math.max(0, 2 + Math.max(0, ...foldLen) - HEADER_BYTES);
   const outCap = spillBytes + Math.ceil(spillBytes / HEADER_BYTES) * growth;
   // allocUnsafeSlow: an ArrayBuffer of its own (transferable) without zero-filling it.
-  const buf = Buffer.allocUnsafeSlow(spillBytes + outCap);
-  const arena = buf.buffer as ArrayBuffer;
-  const bytes = new Uint8Array(arena, 0, buf.byteLength);
+  const need = spillBytes + outCap;
+  const arena = task.arena && task.arena.byteLength >= need ? task.arena : (Buffer.allocUnsafeSlow(Math.ceil(need * 1.25) + 4096).buffer as ArrayBuffer);
+  const buf = Buffer.from(arena, 0, need);
+  const bytes = new Uint8Array(arena, 0, need);
   const pieceEnds: number[] = [];
   {
     let at = 0;

@@ -229,7 +229,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
     const bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, estimate / bucketTarget)))));
     const buckets = 2 ** bits;
-    const spillBuffer = Math.max(16 * 1024, Math.min(1024 * 1024, Math.floor(o.memory / 4 / buckets)));
+    const spillBuffer = Math.max(4096, Math.min(1024 * 1024, Math.floor(o.memory / 4 / buckets)));
 
     // Rejected records (quarantine) go to a CSV file inside the output folder.
     const rejects: string[] = [];
@@ -380,9 +380,13 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const fps = Array.from({ length: parts }, () => new Fingerprint());
     const pending = new Map<number, Promise<GatherResult>>();
     let written = 0;
+    // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
+    const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
       const task: WorkerTask = { planPath, bucket: b, paths: [sc.bucketPaths[b]!], rankStart: rankStarts[b]! };
-      const p = (pool!.run(task) as Promise<WorkerReply>).then((r) => {
+      const arena = spare.pop();
+      if (arena) task.arena = arena;
+      const p = (pool!.run(task, arena ? { transferList: [arena] } : {}) as Promise<WorkerReply>).then((r) => {
         if (!r.ok) throw fromWire(r.error);
         return r.result;
       });
@@ -394,7 +398,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     for (let b = 0; b < buckets; b++) {
       const r = await pending.get(b)!;
       pending.delete(b);
-      if (next < buckets) submit(next++);
       const data = Buffer.from(r.data.buffer, r.data.byteOffset, r.data.byteLength);
       for (let p = 0; p < parts; p++) {
         const a = r.partStart[p]!;
@@ -406,6 +409,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // The bucket is done: free its disk space now rather than all at the end.
       unlink(sc.bucketPaths[b]!).catch(() => {});
       written += r.data.byteLength;
+      spare.push(r.data.buffer as ArrayBuffer);
+      if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
     }
     await pool.destroy();

@@ -45,7 +45,7 @@ export class BucketWriter {
   #stagingSize: number;
   #stagingDelta = -1;
 
-  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 4 << 20) {
+  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20) {
     this.fingerprint = fingerprint;
     this.#size = Math.max(4096, bufferBytes & ~3);
     this.#stagingSize = stagingBytes;

@@ -23,6 +23,7 @@ export interface WorkerTask {
   bucket: number;
   paths: string[];
   rankStart: Float64Array;
+  arena?: ArrayBuffer;
 }
 
 export type WorkerReply = { ok: true; result: GatherResult } | { ok: false; error: WireError };
@@ -52,7 +53,7 @@ export function loadPlan(planPath: string): PreparedPlan {
 export default function runGatherTask(task: WorkerTask): WorkerReply | object {
   try {
     const prep = loadPlan(task.planPath);
-    const result = gatherBucket(prep, { bucket: task.bucket, paths: task.paths, rankStart: task.rankStart });
+    const result = gatherBucket(prep, task);
     const reply: WorkerReply = { ok: true, result };
     // Hand the output bytes over without copying them.
     return move({ [transferableSymbol]: [result.data.buffer], [valueSymbol]: reply } as unknown as ArrayBuffer);
