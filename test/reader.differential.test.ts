@@ -134,3 +134,46 @@ describe('differential against csv-parse', () => {
     expect(accepted).toBeGreaterThan(100);
   });
 });
+
+describe('JSON Lines against JSON.parse', () => {
+  const KEYS = ['site', 'temp', 'fault', 'note', 'x"y', 'é'];
+  function makeValue(rng: () => number, depth: number): unknown {
+    const r = rng();
+    if (r < 0.3) return Array.from({ length: Math.floor(rng() * 6) }, () => pick(rng, ['a', '"', '\\', '\n', 'é', '🌡', '}', ',', ' ', '\u0001'])).join('');
+    if (r < 0.5) return Math.round((rng() - 0.5) * 1e6) / 100;
+    if (r < 0.6) return null;
+    if (r < 0.7) return rng() < 0.5;
+    if (r < 0.85 && depth < 2) return Array.from({ length: Math.floor(rng() * 3) }, () => makeValue(rng, depth + 1));
+    if (depth < 2) return Object.fromEntries(KEYS.slice(0, Math.floor(rng() * 3)).map((k) => [k, makeValue(rng, depth + 1)]));
+    return 'leaf';
+  }
+  it('wanted top-level values equal the parsed ones, in random chunkings', () => {
+    const rng = seedrandom('rowdeck-reader-differential-jsonl');
+    for (let k = 0; k < 400; k++) {
+      const objs: Record<string, unknown>[] = [];
+      let text = '';
+      const rows = 1 + Math.floor(rng() * 10);
+      for (let r = 0; r < rows; r++) {
+        const o: Record<string, unknown> = {};
+        for (const key of KEYS) if (rng() < 0.7) o[key] = makeValue(rng, 0);
+        if (r === 0) for (const key of KEYS) o[key] ??= 1; // the first object names every column
+        objs.push(o);
+        let line = JSON.stringify(o);
+        if (rng() < 0.3) line = line.replaceAll(/([{,])"/g, '$1 "'); // spaces JSON allows (may touch strings: then it must still parse the same)
+        text += line + (rng() < 0.5 ? '\n' : '\r\n');
+      }
+      const expected = text.split(/\r?\n/).filter((l) => l !== '').map((l) => JSON.parse(l) as Record<string, unknown>);
+      const r = readAll(text, { format: 'jsonl', wanted: KEYS, file: 'x.jsonl' }, randomCuts(rng, Buffer.byteLength(text)));
+      expect(r.fields.length).toBe(expected.length);
+      r.fields.forEach((f, i) => {
+        KEYS.forEach((key, w) => {
+          const want = expected[i]![key];
+          const got = f[w];
+          if (want === undefined || want === null) expect(got, `case ${k} row ${i} ${key}`).toBeNull();
+          else if (typeof want === 'string') expect(got).toBe(want);
+          else expect(JSON.parse(got!)).toEqual(want);
+        });
+      });
+    }
+  });
+});

@@ -236,7 +236,8 @@ export class RecordReader {
     this.stats.lines = this.stats.bytes === 0 ? 0 : this.lastByte === LF ? this.line - 1 : this.line;
     const { file } = this.opts;
     if (!this.sch) {
-      throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${this.stats.bytes > 0 ? ' (only blank lines)' : ''}. Check the path, or that the file was fully written.`, { file });
+      const why = this.stats.rejected > 0 ? ` (${this.stats.rejected} refused as bad)` : this.stats.bytes > 0 ? ' (only blank lines)' : '';
+      throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
     }
     if (this.stats.records + this.stats.rejected === 0) {
       if (this.opts.format !== 'jsonl' && this.opts.header) {
@@ -776,15 +777,20 @@ export class RecordReader {
   // --- JSON Lines ---
 
   private wantKeys: Buffer[] | null = null;
+  private jScan = 0;
 
   private parseJsonl(d: Buffer, pos: number, atEnd: boolean): RecordBatch | null {
     const n = d.length, W = this.W, base = this.base;
     let count = 0;
     let line = this.line;
+    // A carried partial line is known to hold no LF in its first jScan bytes: search on from there.
+    let skip = this.jScan;
+    this.jScan = 0;
     while (pos < n) {
-      let nl = d.indexOf(LF, pos);
+      let nl = d.indexOf(LF, pos + skip);
+      skip = 0;
       if (nl < 0) {
-        if (!atEnd) break;
+        if (!atEnd) { this.jScan = n - pos; break; }
         nl = n;
       }
       let e = nl;
