@@ -58,21 +58,21 @@ afterAll(() => {
 describe('version and help', () => {
   it('--version prints the version from package.json', () => {
     const r = runCli(['--version']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stdout).toBe(`rowdeck ${PKG.version}\n`);
     expect(r.stderr).toBe('');
   });
 
   it('--help lists the commands and exits 0', () => {
     const r = runCli(['--help']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     for (const cmd of ['shuffle', 'profile', 'verify']) expect(r.stdout).toContain(`rowdeck ${cmd}`);
     expect(r.stderr).toBe('');
   });
 
   it('shuffle --help exits 0 and carries the three cautions', () => {
     const r = runCli(['shuffle', '--help']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stdout).toContain('--partitions');
     const at = r.stdout.search(/cautions?:/i);
     expect(at).toBeGreaterThan(0);
@@ -84,7 +84,7 @@ describe('version and help', () => {
 
   it('no arguments at all is a usage error (exit 2) that shows the usage', () => {
     const r = runCli([]);
-    expect(r.status).toBe(2);
+    expect(r.status, r.stderr).toBe(2);
     expect(r.stdout + r.stderr).toContain('Usage:');
   });
 });
@@ -102,7 +102,7 @@ describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', (
   for (const [what, args, code, mentions] of cases) {
     it(`${what}`, () => {
       const r = runCli(args);
-      expect(r.status).toBe(2);
+      expect(r.status, r.stderr).toBe(2);
       expect(r.stdout).toBe('');
       expect(r.stderr).toContain(code);
       expect(r.stderr).toMatch(mentions);
@@ -115,7 +115,7 @@ describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', (
 describe('data errors exit 1 and leave no output folder', () => {
   it('a missing input file', () => {
     const r = runCli(['shuffle', 'no-such-readings.csv', '--out', 'out-d1', '--seed', 's']);
-    expect(r.status).toBe(1);
+    expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
     expect(r.stderr).toContain('ERR_INPUT_NOT_FOUND');
     expect(r.stderr).toContain('no-such-readings.csv');
@@ -128,7 +128,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const text = 'reading_id,sensor_id,fault\n1,FS-001,none\n2,"FS-\n002",none\n3,FS-003,drift\n4,FS-004,spike\n5,FS-005\n6,FS-006,none\n';
     writeFileSync(join(dir, 'bad.csv'), text);
     const r = runCli(['shuffle', 'bad.csv', '--out', 'out-d2', '--seed', 's']);
-    expect(r.status).toBe(1);
+    expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
     expect(r.stderr).toContain('ERR_FIELD_COUNT');
     expect(r.stderr).toMatch(/bad\.csv:7\b/);
@@ -141,7 +141,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     // starts with a quote must end with one).
     writeFileSync(join(dir, 'open.csv'), 'reading_id,note,fault\n1,ok,none\n2,"never closed,none\n3,ok,drift\n');
     const r = runCli(['shuffle', 'open.csv', '--out', 'out-d3', '--seed', 's']);
-    expect(r.status).toBe(1);
+    expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
     expect(r.stderr).toContain('ERR_UNTERMINATED_QUOTE');
     expect(r.stderr).toMatch(/open\.csv:3\b/);
@@ -152,7 +152,7 @@ describe('data errors exit 1 and leave no output folder', () => {
 describe('a successful run', () => {
   it('exits 0 and writes nothing on stdout without --json', () => {
     const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-plain', '--partitions', '3', '--stratify', 'fault', '--seed', 'field-season', '--threads', '1']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stdout).toBe('');
     expect(existsSync(join(dir, 'ok-plain', 'manifest.json'))).toBe(true);
     // The summary line goes to stderr, and no progress redraws (stderr is a pipe here, not a terminal).
@@ -163,7 +163,7 @@ describe('a successful run', () => {
 
   it('--json prints the manifest that it also writes to manifest.json', () => {
     const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-json', '--partitions', '2', '--stratify', 'fault', '--folds', '3', '--seed', 'field-season', '--json', '--threads', '1']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     const printed = JSON.parse(r.stdout) as { seed: string; input: { records: number }; output: { parts: { path: string; records: number }[] } };
     const written = JSON.parse(readFileSync(join(dir, 'ok-json', 'manifest.json'), 'utf8')) as unknown;
     expect(printed).toEqual(written);
@@ -179,7 +179,7 @@ describe('a successful run', () => {
 
   it('--quiet prints nothing on stderr, not even the default-seed note', () => {
     const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-quiet', '--quiet', '--threads', '1']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stderr).toBe('');
     expect(r.stdout).toBe('');
     expect(existsSync(join(dir, 'ok-quiet', 'manifest.json'))).toBe(true);
@@ -187,14 +187,14 @@ describe('a successful run', () => {
 
   it('without --seed, says on stderr that the default seed is used', () => {
     const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-default-seed', '--threads', '1']);
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stderr).toMatch(/default seed/);
   });
 
   it('reads stdin given as - with --format csv', () => {
     const text = makeReadings(40);
     const r = runCli(['shuffle', '-', '--format', 'csv', '--out', 'ok-stdin', '--partitions', '2', '--seed', 'pipe', '--json', '--quiet', '--threads', '1'], { input: text });
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stderr).toBe('');
     const m = JSON.parse(r.stdout) as { input: { records: number }; output: { parts: { path: string }[] } };
     expect(m.input.records).toBe(40);
@@ -209,8 +209,10 @@ describe('a successful run', () => {
 
   it('the same seed gives the same bytes on a second run', () => {
     const args = ['readings.csv', '--partitions', '2', '--stratify', 'fault', '--seed', 'again', '--quiet', '--threads', '1'];
-    expect(runCli(['shuffle', ...args, '--out', 'ok-a']).status).toBe(0);
-    expect(runCli(['shuffle', ...args, '--out', 'ok-b']).status).toBe(0);
+    for (const out of ['ok-a', 'ok-b']) {
+      const r = runCli(['shuffle', ...args, '--out', out]);
+      expect(r.status, r.stderr).toBe(0);
+    }
     for (const f of ['part-00000.csv', 'part-00001.csv']) {
       expect(readFileSync(join(dir, 'ok-b', f))).toEqual(readFileSync(join(dir, 'ok-a', f)));
     }
@@ -228,7 +230,7 @@ describe('terminal behaviour', () => {
   it.skipIf(!hasScript)('draws progress when stderr is a terminal (control for the test above)', () => {
     const cmd = `"${process.execPath}" "${CLI}" shuffle readings.csv --out ok-tty --seed t --threads 1`;
     const r = spawnSync('script', ['-qec', cmd, '/dev/null'], { cwd: dir, encoding: 'utf8', timeout: 60_000 });
-    expect(r.status).toBe(0);
+    expect(r.status, r.stderr).toBe(0);
     expect(r.stdout).toMatch(/\r(scatter|gather)/);
   });
 
