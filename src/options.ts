@@ -219,7 +219,6 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (assign0 !== 'exact' && assign0 !== 'hash') throw invalid('assign', '"exact" or "hash"', assign0);
   if (assign0 === 'hash' && key.length === 0) throw invalid('key', 'one or more key columns with assign "hash" (the part must follow from the key)', o.key ?? '');
   if (assign0 === 'hash' && group !== null) throw invalid('assign', '"exact" with group (groups are dealt as units)', assign0);
-  if (group !== null && stratify.some((s) => s.bins > 0)) throw invalid('stratify', 'plain columns with group (bins are not supported with group yet)', o.stratify);
   const { splits, counts, rest } = parseSplits(o.split);
   const foldColumn = folds > 1 ? (o.foldColumn ?? 'fold') : null;
   if (foldColumn !== null && (typeof foldColumn !== 'string' || foldColumn === '')) throw invalid('foldColumn', 'a column name', o.foldColumn);

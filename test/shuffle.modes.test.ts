@@ -175,3 +175,27 @@ describe('--on-bad-record', () => {
     expect(rows[0]![4]).toBe('1,2,3');
   });
 });
+
+describe('--stratify COL:bins=Q', () => {
+  it('cuts a numeric column at its quantiles and deals every bin evenly', async () => {
+    const out = join(dir, 'bins');
+    const m = await shuffle({ inputs: [input], out, seed: 'b', partitions: 3, stratify: 'reading:bins=4' });
+    const values = parseCsv(inputText).rows.map((r) => Number(r[3])).sort((a, b) => a - b);
+    // Edges at the 25/50/75 % order statistics, computed here independently.
+    const expected = [1, 2, 3].map((k) => values[Math.floor((k * values.length) / 4)]);
+    expect(m.strata.bins).toEqual([{ column: 'reading', bins: 4, edges: expected, exact: true, values: 6000, missing: 0 }]);
+    expect(m.strata.values.map((v) => v.records)).toEqual([1500, 1500, 1500, 1500]);
+    for (const p of m.output.parts) p.strata.forEach((n) => expect(Math.abs(n - 500)).toBeLessThan(1));
+    // Each record's bin, recomputed from the file, matches the label's interval.
+    expect(m.strata.values[0]!.value![0]).toBe(`01 [-inf, ${expected[0]})`);
+  });
+
+  it('names the line of a value that is not a number', async () => {
+    const file = join(dir, 'nan.csv');
+    writeFileSync(file, 'id,level\n1,3.5\n2,high\n');
+    await expect(shuffle({ inputs: [file], out: join(dir, 'nan-out'), stratify: 'level:bins=2' })).rejects.toMatchObject({
+      code: 'ERR_NOT_NUMERIC',
+      message: expect.stringContaining('nan.csv:3'),
+    });
+  });
+});

@@ -8,6 +8,7 @@ import type { DealSpec } from '../core/deal.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
 import type { ResolvedShuffleOptions } from '../options.js';
 import { stratumValues } from './scatter.js';
+import type { BinEdges } from './quantiles.js';
 
 export const MANIFEST_VERSION = 1;
 
@@ -47,6 +48,8 @@ export interface Manifest {
     columns: string[];
     /** One entry per stratum; `value` is null for every entry when values are excluded. */
     values: { value: (string | null)[] | null; records: number }[];
+    /** Quantile bin edges of the columns given as COL:bins=Q. */
+    bins: BinEdges[];
   };
   balance: {
     tolerance: number;
@@ -80,6 +83,7 @@ export interface ManifestInput {
   /** Strata in dealing order, with their sizes. */
   strataKeys: string[];
   strataSizes: number[];
+  binEdges: BinEdges[];
   deal: DealSpec;
   buckets: number;
   parts: PartRecord[];
@@ -134,6 +138,7 @@ export function buildManifest(m: ManifestInput): Manifest {
     strata: {
       columns: o.stratify.map((s) => s.name),
       values: byValue.map((i) => ({ value: o.excludeValues ? null : o.stratify.length ? stratumValues(m.strataKeys[i]!) : [], records: m.strataSizes[i]! })),
+      bins: o.excludeValues ? m.binEdges.map((b) => ({ ...b, edges: [] })) : m.binEdges,
     },
     balance: {
       tolerance: o.tolerance,

@@ -6,7 +6,8 @@
  */
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
-import { decodeCsvQuoted } from '../io/reader.js';
+import { decodeCsvQuoted, fieldText } from '../io/reader.js';
+import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { readRecords } from '../io/input.js';
 import { RowdeckError } from '../errors.js';
 import { BucketWriter } from './spill.js';
@@ -26,6 +27,8 @@ export interface ScatterOptions {
   onBadRecord: BadRecordPolicy;
   onReject: ((r: RejectedRecord) => void) | undefined;
   stratify: string[];
+  /** Per stratify column: quantile bin edges, or null for plain values. */
+  bins?: (number[] | null)[];
   key: string[];
   group: string | null;
   secret: Secret;
@@ -169,9 +172,18 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const shift = 32 - o.bits;
 
   const fast = new ByteIdTable();
+  const bins = o.bins ?? [];
+  const hasBins = bins.some((x) => x !== null && x !== undefined);
+  const partKey = (b: RecordBatch, i: number, w: number): string => {
+    const edges = bins[w];
+    if (!edges) return fieldKey(b, i, w);
+    const v = parseBinValue(fieldText(b, i, w), o.stratify[w]!, o.inputs[currentInput]!, b.line[i]!);
+    return v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
+  };
+  let currentInput = 0;
   const stratumOf = (b: RecordBatch, i: number): number => {
     if (nStrat === 0) return strata.length ? 0 : newStratum('');
-    if (nStrat === 1 && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
+    if (nStrat === 1 && !hasBins && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
       // Plain field: look its bytes up directly; same key as fieldKey() would build.
       const fs = b.fieldStart[i * b.wanted]!;
       const fe = b.fieldEnd[i * b.wanted]!;
@@ -185,13 +197,8 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         return id;
       }
     }
-    let k: string;
-    if (nStrat === 1) k = fieldKey(b, i, 0);
-    else if (nStrat === 1) k = fieldKey(b, i, 0);
-    else {
-      k = fieldKey(b, i, 0);
-      for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + fieldKey(b, i, w);
-    }
+    let k = partKey(b, i, 0);
+    for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + partKey(b, i, w);
     return strataIds.get(k) ?? newStratum(k);
   };
   const newStratum = (k: string): number => {
@@ -221,6 +228,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       onReject: o.onReject,
     })) {
       schema ??= sch;
+      currentInput = input;
       const d = batch.data;
       const n = batch.count;
       if (n > 0) writer.stage(d, batch.start[0]!, batch.next[n - 1]!);

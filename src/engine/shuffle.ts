@@ -28,6 +28,7 @@ import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions
 import { hashCell, type GatherResult } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { scatter, stratumValues, type ScatterResult } from './scatter.js';
+import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
 import type { WorkerReply, WorkerTask } from '../workers/gather-worker.js';
 import { VERSION } from '../version.js';
@@ -241,6 +242,22 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
     };
 
+    // Quantile bins need their edges before any record can be given a stratum.
+    let binEdges: BinEdges[] = [];
+    const binCols = o.stratify.filter((c) => c.bins > 0);
+    if (binCols.length > 0) {
+      binEdges = await computeBinEdges({
+        inputs: o.inputs,
+        format,
+        delimiter: o.delimiter ?? undefined,
+        header: o.header,
+        onBadRecord: o.onBadRecord,
+        columns: binCols,
+        secret,
+        memory: o.memory,
+      });
+    }
+
     // ---- stage 1: scatter ----
     const totalBytes = o.inputs.reduce((a, p) => a + (p === '-' ? 0 : statSync(p).size), 0);
     const sc: ScatterResult = await scatter({
@@ -251,6 +268,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       onBadRecord: o.onBadRecord,
       onReject,
       stratify: o.stratify.map((s) => s.name),
+      bins: o.stratify.map((s) => binEdges.find((b) => b.column === s.name && s.bins > 0)?.edges ?? null),
       key: o.key,
       group: o.group,
       secret,
@@ -465,6 +483,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       rejectsFile: rejects.length > 0 ? 'rejected.csv' : null,
       strataKeys,
       strataSizes,
+      binEdges,
       deal,
       buckets,
       parts: partRecords,
