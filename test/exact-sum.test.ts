@@ -145,6 +145,13 @@ describe('ExactSum against exact BigInt arithmetic', () => {
     }
   });
 
+  it('an overflowed value still serialises (terms() stops at a non-finite term)', () => {
+    const s = new ExactSum().add(1e308).add(1e308);
+    const t = s.terms();
+    expect(t.length).toBe(1);
+    expect(Number.isFinite(t[0])).toBe(false);
+  });
+
   it('cancellation to exactly zero leaves an empty expansion', () => {
     const s = new ExactSum().add(1e300).add(1).add(-1e300).add(-1);
     expect(s.isZero()).toBe(true);
@@ -165,6 +172,41 @@ describe('ExactMoments', () => {
     const num = n * s2 - s1 * s1;
     expect(m.variance()).toBe(Number(num) / Number(n * (n - 1n)));
     expect(m.mean()).toBe(Number(s1) / xs.length);
+  });
+
+  it('Σx and Σx² are exact over the whole double range (fast binned path and its fallback)', () => {
+    const rng = seedrandom('exact-moments-range');
+    // Subnormals, tiny, ordinary, and beyond the 2^450 fast-path limit; both signs.
+    // (Squares must stay finite: |x| < 2^511.)
+    const xs: number[] = [5e-324, -3e-320, 2 ** -1022, 1e-300, 2 ** 449.5, -(2 ** 451), 1e150, -1e-200];
+    for (let i = 0; i < 3000; i++) {
+      const sign = rng() < 0.5 ? -1 : 1;
+      xs.push(sign * rng() * 2 ** Math.floor(rng() * 1000 - 500));
+    }
+    const m = new ExactMoments();
+    for (const x of xs) m.add(x);
+    const e1 = new ExactSum();
+    const e2 = new ExactSum();
+    for (const x of xs) {
+      e1.add(x);
+      e2.addSquare(x);
+    }
+    const ref1 = xs.reduce((a, x) => a + toScaledBig(x, K), 0n);
+    expect(sumOf(m.s1, K)).toBe(ref1);
+    // Squares of the smallest values are not exact (the low product underflows); compare with the
+    // same two-product terms added through the plain expansion instead.
+    expect(m.s2.terms()).toEqual(e2.terms());
+    expect(m.s1.terms()).toEqual(e1.terms());
+  });
+
+  it('stays exact past the point where the bins must be emptied (2^20 adds)', () => {
+    // 1.5M values of 0.1: Σx is 1.5M times the double nearest 0.1, exactly.
+    const m = new ExactMoments();
+    const count = 1_500_000;
+    for (let i = 0; i < count; i++) m.add(0.1);
+    expect(sumOf(m.s1, K)).toBe(toScaledBig(0.1, K) * BigInt(count));
+    expect(sumOf(m.s2, 2n * K)).toBe(toScaledBig(0.1, K) ** 2n * BigInt(count));
+    expect(m.variance()).toBe(0);
   });
 
   it('fewer than two values give NaN variance; empty gives NaN mean', () => {

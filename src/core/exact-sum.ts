@@ -280,6 +280,7 @@ export class ExactSum {
     while (!rest.isZero()) {
       const r = rest.approx();
       out.push(r);
+      if (!Number.isFinite(r)) break; // overflowed input: nothing exact is left to take apart
       rest.add(-r);
       rest.compress();
     }
