@@ -1,0 +1,95 @@
+/**
+ * Whole-process behaviour: an interrupted run leaves nothing that looks complete, and memory
+ * stays bounded as the input grows. Runs the built CLI / library in child processes.
+ */
+import { spawn, spawnSync } from 'node:child_process';
+import { existsSync, readdirSync, writeFileSync } from 'node:fs';
+import { join, resolve } from 'node:path';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
+
+const CLI = resolve('dist/cli/main.js');
+const INDEX = resolve('dist/index.js');
+let dir: string;
+let big: string;
+
+beforeAll(() => {
+  dir = makeTempDir();
+  big = join(dir, 'big.csv');
+  // ~24 MB, large enough that a run takes a while at a small memory budget.
+  writeFileSync(big, makeSensorCsv({ rows: 500_000, seed: 2 }));
+});
+afterAll(() => removeDir(dir));
+
+function hidden(d: string): string[] {
+  return readdirSync(d).filter((f) => f.startsWith('.rowdeck-'));
+}
+
+/** Starts a shuffle and sends `signal` once `ready()` holds (polled every 5 ms). */
+async function interrupt(out: string, signal: NodeJS.Signals, ready: () => boolean): Promise<number | null> {
+  const child = spawn(process.execPath, [CLI, 'shuffle', big, '--out', out, '--memory', '4MiB', '--partitions', '4', '--stratify', 'fault', '--quiet'], {
+    stdio: 'ignore',
+  });
+  const exited = new Promise<number | null>((res) => child.on('exit', (code, sig) => res(sig ? -1 : code)));
+  for (let i = 0; i < 4000 && child.exitCode === null; i++) {
+    if (ready()) break;
+    await new Promise((r) => setTimeout(r, 5));
+  }
+  child.kill(signal);
+  return exited;
+}
+
+const spillStarted = (): boolean => hidden(dir).some((f) => f.startsWith('.rowdeck-spill-'));
+const gatherStarted = (): boolean =>
+  hidden(dir).some((f) => f.startsWith('.rowdeck-partial-') && readdirSync(join(dir, f)).some((p) => p.startsWith('part-')));
+
+describe('an interrupted run', () => {
+  it.each([
+    ['SIGTERM', 'scatter', spillStarted],
+    ['SIGINT', 'gather', gatherStarted],
+  ] as const)('%s during %s leaves no output folder and no work folders', async (signal, _stage, ready) => {
+    const out = join(dir, `killed-${signal}`);
+    const code = await interrupt(out, signal, ready);
+    expect(code).not.toBe(0);
+    expect(existsSync(out)).toBe(false);
+    expect(hidden(dir)).toEqual([]);
+  });
+
+  it('SIGKILL cannot clean up, but nothing looks complete and the next run removes the leftovers', async () => {
+    const out = join(dir, 'killed-hard');
+    await interrupt(out, 'SIGKILL', gatherStarted);
+    expect(existsSync(out)).toBe(false);
+    const left = hidden(dir);
+    expect(left.length).toBeGreaterThan(0);
+    expect(left.every((f) => !existsSync(join(dir, f, 'manifest.json')))).toBe(true);
+    const small = join(dir, 'small.csv');
+    writeFileSync(small, makeSensorCsv({ rows: 100, seed: 1 }));
+    const r = spawnSync(process.execPath, [CLI, 'shuffle', small, '--out', join(dir, 'after'), '--quiet']);
+    expect(r.status).toBe(0);
+    expect(hidden(dir)).toEqual([]);
+  });
+});
+
+describe('memory', () => {
+  /** Peak RSS (KiB) of a child process shuffling `input` with `memory`. */
+  function peakRss(input: string, memory: string): number {
+    const script = `
+      const { shuffle } = await import(${JSON.stringify(INDEX)});
+      await shuffle({ inputs: [${JSON.stringify(input)}], out: ${JSON.stringify(join(dir, 'rss-' + memory))}, memory: ${JSON.stringify(memory)},
+        partitions: 4, stratify: 'fault', force: true, threads: 2 });
+      process.stdout.write(String(process.resourceUsage().maxRSS));`;
+    const r = spawnSync(process.execPath, ['--input-type=module', '-e', script], { encoding: 'utf8' });
+    expect(r.status, r.stderr).toBe(0);
+    return Number(r.stdout);
+  }
+
+  it('does not grow with the input: 10x the input at the same budget adds little', () => {
+    const small = join(dir, 'mem-small.csv');
+    writeFileSync(small, makeSensorCsv({ rows: 50_000, seed: 2 }));
+    // big.csv is 10x mem-small.csv and ~6x the 4 MiB budget.
+    const a = peakRss(small, '4MiB');
+    const b = peakRss(big, '4MiB');
+    // Measured on the development machine: about +20 MiB (allocator and collector slack).
+    expect(b - a).toBeLessThan(48 * 1024);
+  });
+});
