@@ -8,8 +8,20 @@ import { RowdeckError } from '../errors.js';
 export type OptionSpec = NonNullable<ParseArgsConfig['options']>;
 
 export function parseCommandArgs(argv: string[], options: OptionSpec): { values: Record<string, string | boolean | string[] | undefined>; positionals: string[] } {
+  // `--tolerance -1` would otherwise read as two options: glue a negative number to its option,
+  // so the value reaches our own validation and its clearer message.
+  const args: string[] = [];
+  for (let i = 0; i < argv.length; i++) {
+    const a = argv[i]!;
+    const name = a.startsWith('--') ? a.slice(2) : '';
+    const next = argv[i + 1];
+    if (name && options[name]?.type === 'string' && next !== undefined && /^-\d/.test(next)) {
+      args.push(`${a}=${next}`);
+      i++;
+    } else args.push(a);
+  }
   try {
-    const r = parseArgs({ args: argv, options, allowPositionals: true, strict: true, allowNegative: false });
+    const r = parseArgs({ args, options, allowPositionals: true, strict: true, allowNegative: false });
     return { values: r.values as Record<string, string | boolean | string[] | undefined>, positionals: r.positionals };
   } catch (err) {
     const e = err as Error & { code?: string };

@@ -23,7 +23,8 @@ export async function runCli(argv: string[], io: CliIO = { stdout: process.stdou
   const [cmd, ...rest] = argv;
   if (cmd === undefined || cmd === '--help' || cmd === '-h' || cmd === 'help') {
     if (cmd === 'help' && rest[0] && COMMANDS[rest[0]]) return runCli([rest[0], '--help'], io);
-    io.stdout.write(MAIN_HELP);
+    // Asked for: help on stdout, exit 0. Not asked for (no command): on stderr, exit 2.
+    (cmd === undefined ? io.stderr : io.stdout).write(MAIN_HELP);
     return cmd === undefined ? 2 : 0;
   }
   if (cmd === '--version' || cmd === '-V') {

@@ -20,7 +20,7 @@ export function createProgress(stream: NodeJS.WritableStream & { isTTY?: boolean
       let rate = '';
       if (e.stage === 'scatter' && secs > 0) rate = ` ${(e.done / 1e6 / secs).toFixed(0)} MB/s`;
       const eta = frac > 0.02 && frac < 1 ? ` ETA ${Math.max(0, (secs / frac) * (1 - frac)).toFixed(0)}s` : '';
-      const unit = e.stage === 'gather' ? `${e.done}/${e.total} buckets` : e.total > 0 ? `${(e.done / 1e6).toFixed(0)}/${(e.total / 1e6).toFixed(0)} MB` : `${(e.done / 1e6).toFixed(0)} MB`;
+      const unit = e.stage === 'gather' ? `${e.done}/${e.total} buckets` : e.total > 0 ? `${formatBytes(e.done)}/${formatBytes(e.total)}` : formatBytes(e.done);
       stream.write(`\r${e.stage.padEnd(7)} [${bar}] ${unit} ${e.records.toLocaleString('en-US')} records${rate}${eta}\x1b[K`);
       shown = true;
     },
@@ -28,4 +28,12 @@ export function createProgress(stream: NodeJS.WritableStream & { isTTY?: boolean
       if (shown) stream.write('\r\x1b[K');
     },
   };
+}
+
+/** 12.3 MB, 850 kB, 1.2 GB: three significant figures at most. */
+export function formatBytes(n: number): string {
+  if (n >= 1e9) return `${(n / 1e9).toFixed(n >= 1e10 ? 0 : 1)} GB`;
+  if (n >= 1e6) return `${(n / 1e6).toFixed(n >= 1e7 ? 0 : 1)} MB`;
+  if (n >= 1e3) return `${(n / 1e3).toFixed(0)} kB`;
+  return `${n} B`;
 }

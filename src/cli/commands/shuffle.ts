@@ -64,7 +64,6 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   if (v['exclude-values']) opts.excludeValues = true;
   if (v['no-stats']) opts.stats = false;
   set('onBadRecord', strArg(v['on-bad-record']) as BadRecordPolicy | undefined);
-  if (opts.seed === undefined && !v.quiet) io.stderr.write(`rowdeck: no --seed given; using the default seed (recorded in the manifest).\n`);
   let result;
   try {
     result = await runShuffle(opts);
@@ -77,7 +76,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     const secs = (m.run.timingsMs.totalMs ?? 0) / 1000;
     io.stderr.write(
       `rowdeck: ${m.input.records.toLocaleString('en-US')} records -> ${m.output.parts.length} part(s) in ${result.out} ` +
-        `(${secs.toFixed(1)} s, seed ${JSON.stringify(m.seed)}, max class deviation ${(m.balance.maxDeviation * 100).toFixed(2)}%` +
+        `(${secs.toFixed(1)} s, seed ${JSON.stringify(m.seed)}${m.seedIsDefault ? ' (the default: pass --seed to choose one)' : ''}, max class deviation ${(m.balance.maxDeviation * 100).toFixed(2)}%` +
         `${m.input.rejected ? `, ${m.input.rejected} rejected record(s)` : ''}).\n`,
     );
   }
