@@ -520,7 +520,7 @@ export class RecordReader {
     this.pCount = 0;
     this.pLine = this.line;
     while (pos < n) {
-      pos = this.scan(d, pos, n, atEnd);
+      pos = this.scan(d, pos, n);
       if (pos >= n) break;
       // scan() stops at a record it cannot finish alone: bad, or cut by the end of the data.
       const r = this.walk(d, pos, n, atEnd);
@@ -560,7 +560,7 @@ export class RecordReader {
    * rest are resolved byte by byte in order. A quoted field is skipped with indexOf to its
    * closing quote. Anything unusual (a stray quote, the end of the data) is left to walk().
    */
-  private scan(d: Buffer, pos: number, n: number, atEnd: boolean): number {
+  private scan(d: Buffer, pos: number, n: number): number {
     const D = this.delim, dpos = this.dpos, dl = dpos.length, N = this.ncols;
     const u = this.u32, off = this.dOff, patD = this.pat, nextMark = this.nextMark, firstMark = nextMark[0]!;
     const words = LITTLE_ENDIAN;
@@ -623,25 +623,47 @@ export class RecordReader {
         }
       }
       if (q < 0) return ls;
-      // A quote: it must open a field; find its closing quote (a doubled quote is data).
-      if (q !== ls && d[q - 1] !== D) return ls;
-      let j = q + 1, close = -1;
+      // Quoted fields, one after another while the next field starts with a quote too.
       for (;;) {
-        const x = d.indexOf(QUOTE, j);
-        if (x < 0 || x + 1 >= n) break;
-        if (d[x + 1] === QUOTE) { j = x + 2; continue; }
-        close = x;
-        break;
+        // A quote must open a field; find its closing quote (a doubled quote is data).
+        if (q !== ls && d[q - 1] !== D) return ls;
+        let j = q + 1, close = -1, done = false;
+        // Most quoted fields are short: a byte loop beats a native call there.
+        const lim = q + 64 < n ? q + 64 : n;
+        while (j < lim) {
+          const ch = d[j];
+          if (ch === QUOTE) {
+            done = true;
+            if (j + 1 >= n) break;
+            if (d[j + 1] === QUOTE) { done = false; j += 2; continue; }
+            close = j;
+            break;
+          }
+          if (ch === LF) lfs++;
+          j++;
+        }
+        if (!done) {
+          // A long field: jump from quote to quote with indexOf, then count its line ends.
+          const from = j;
+          for (;;) {
+            const x = d.indexOf(QUOTE, j);
+            if (x < 0 || x + 1 >= n) break;
+            if (d[x + 1] === QUOTE) { j = x + 2; continue; }
+            close = x;
+            break;
+          }
+          if (close >= 0) for (let l = d.indexOf(LF, from); l >= 0 && l < close; l = d.indexOf(LF, l + 1)) lfs++;
+        }
+        if (close < 0) return ls;
+        i = close + 1;
+        const ch = d[i];
+        if (ch === D) { c++; if (c < dl) dpos[c] = i; i++; }
+        else if (ch === LF) { this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; }
+        else if (ch === CR && i + 1 < n && d[i + 1] === LF) { i++; this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; }
+        else return ls; // text after the closing quote, or the data ends: walk() decides
+        if (i < n && d[i] === QUOTE) q = i;
+        else break;
       }
-      if (close < 0) return ls;
-      for (let l = d.indexOf(LF, q + 1); l >= 0 && l < close; l = d.indexOf(LF, l + 1)) lfs++;
-      i = close + 1;
-      const ch = d[i];
-      if (ch === D) { c++; if (c < dl) dpos[c] = i; i++; continue; }
-      if (ch === LF) { this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; continue; }
-      if (ch === CR && i + 1 < n && d[i + 1] === LF) { i++; this.endRecord(d, ls, i, c, lfs); i++; ls = i; c = 0; lfs = 0; nm = firstMark; continue; }
-      void atEnd;
-      return ls;
     }
   }
 
