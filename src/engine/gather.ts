@@ -8,6 +8,9 @@ import { buildDealTable, cellOf, type DealTable } from '../core/deal.js';
 import { Fingerprint, hashToUnit, hashWords3 } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
+import { TableStats, type SerializedStats } from '../core/stats.js';
+import { FieldKind } from '../io/batch.js';
+import { splitRecordFields } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, viewBucket } from './spill.js';
 
@@ -35,6 +38,8 @@ export interface GatherResult {
   counts: Float64Array;
   /** Order-independent fingerprint per part of the record contents written (fold column excluded). */
   fingerprints: { hi: number; lo: number; count: number }[];
+  /** Per-part column statistics (exact and mergeable), or null when disabled. */
+  stats: SerializedStats[] | null;
 }
 
 export interface GroupTable {
@@ -228,6 +233,8 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   const fps = Array.from({ length: parts }, () => new Fingerprint());
   const recSize = new Uint32Array(n);
   const lenTerm = new Uint32Array(n);
+  const stats = plan.statsColumns.length > 0 ? Array.from({ length: parts }, () => new TableStats(plan.statsColumns)) : null;
+  const addStats = stats ? createStatsFeeder(plan) : null;
   for (let i = 0; i < n; i++) {
     const w = at[i]!;
     const lt = u32[w + 5]!;
@@ -244,6 +251,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
     partBytes[part]! += size;
     counts[cell * strata + stratumOfRec[i]!]!++;
     fps[part]!.addAligned(u32, w + HEADER_WORDS, len);
+    if (addStats) addStats(stats![part]!, buf, w * 4 + HEADER_BYTES, len);
   }
 
   const partStart = new Float64Array(parts + 1);
@@ -296,7 +304,42 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   }
   const data = new Uint8Array(arena, spillBytes, partStart[parts]! - spillBytes);
   for (let p = 0; p <= parts; p++) partStart[p]! -= spillBytes;
-  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()) };
+  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), stats: stats ? stats.map((t) => t.toJSON()) : null };
+}
+
+/**
+ * Feeds one record's fields to a part's statistics. CSV/TSV records are split in place; JSON
+ * Lines records are parsed (slower, but JSON has no cheaper honest way to find every key).
+ */
+function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: number, len: number) => void {
+  const cols = plan.statsColumns;
+  if (plan.format === 'jsonl') {
+    return (t, b, start, len) => {
+      let obj: Record<string, unknown>;
+      try {
+        obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
+      } catch {
+        obj = {};
+      }
+      for (let c = 0; c < cols.length; c++) {
+        const v = obj[cols[c]!];
+        if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
+        else {
+          const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
+          t.addField(c, text, 0, text.length, FieldKind.Plain);
+        }
+      }
+      t.addRecordDone();
+    };
+  }
+  const fs = new Uint32Array(cols.length);
+  const fe = new Uint32Array(cols.length);
+  const fk = new Uint8Array(cols.length);
+  return (t, b, start, len) => {
+    const n = Math.min(cols.length, splitRecordFields(b, start, start + len, plan.delimiter, fs, fe, fk));
+    for (let c = 0; c < n; c++) t.addField(c, b, fs[c]!, fe[c]!, fk[c]! as FieldKind);
+    t.addRecordDone();
+  };
 }
 
 /** True when the JSON record in bytes [s, s+len) is `{}` (with optional blanks). */

@@ -24,6 +24,7 @@ import { fromWire, RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
+import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { hashCell, type GatherResult } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
@@ -396,6 +397,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     pool = new Piscina({ filename: resolveWorkerFile(), minThreads: o.threads, maxThreads: o.threads, idleTimeout: 1000 });
     const counts = new Float64Array(parts * K * nStrata);
     const fps = Array.from({ length: parts }, () => new Fingerprint());
+    const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
     const pending = new Map<number, Promise<GatherResult>>();
     let written = 0;
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
@@ -422,6 +424,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         const e = r.partStart[p + 1]!;
         if (e > a) await writers[p]!.write(data.subarray(a, e));
         fps[p]!.merge(r.fingerprints[p]!);
+        if (partStats && r.stats) partStats[p]!.merge(TableStats.fromJSON(r.stats[p]!));
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
       // The bucket is done: free its disk space now rather than all at the end.
@@ -467,8 +470,16 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         folds: K > 1 ? folds : null,
         foldStrata: K > 1 ? foldStrata : null,
         fingerprint: fps[p]!.toHex(),
+        ...(partStats ? { stats: partStats[p]!.summary({ excludeValues: o.excludeValues }) } : {}),
       };
     });
+    // Whole-input statistics: the parts' merged (exact, so equal to one pass over the input).
+    let inputStats: unknown;
+    if (partStats) {
+      const all = new TableStats(sc.schema.columns);
+      for (const t of partStats) all.merge(t);
+      inputStats = all.summary({ excludeValues: o.excludeValues });
+    }
     const outFp = new Fingerprint();
     for (const f of fps) outFp.merge(f);
     timings.totalMs = Date.now() - t0;
@@ -490,6 +501,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
       timings,
+      ...(inputStats !== undefined ? { inputStats } : {}),
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
     });
     writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n');
