@@ -2,17 +2,18 @@
 // Writes a deterministic invented data set: readings from a fictional fleet of field sensors,
 // with a fault class. Same --seed and --bytes, same bytes out.
 //
-//   node bench/generate.mjs --bytes 1e9 --seed 1 --out bench/data/readings.csv [--format csv|jsonl]
+//   node bench/generate.mjs --bytes 1e9 --seed 1 --out bench/data/readings.csv [--format csv|jsonl] [--quote-all]
 //
 // Columns: reading_id, sensor_id, site, taken_at (ISO 8601), temp_c, humidity_pct, battery_v,
 // vibration_g, note, fault. The note is quoted about 30 % of the time and then may hold commas,
 // doubled quotes and line breaks. fault has 5 classes (60/20/10/7/3 %), and the rows are sorted
 // by fault class, so a reader or shuffler that only looks at a prefix sees one class.
+// --quote-all puts every CSV field in quotes, as many exporters write CSV.
 import { openSync, writeSync, closeSync, mkdirSync } from 'node:fs';
 import { dirname } from 'node:path';
 
 function readArgs(argv) {
-  const o = { bytes: 1e6, seed: 1, out: null, format: 'csv' };
+  const o = { bytes: 1e6, seed: 1, out: null, format: 'csv', quoteAll: false };
   for (let i = 0; i < argv.length; i++) {
     const a = argv[i];
     const v = argv[i + 1];
@@ -20,6 +21,7 @@ function readArgs(argv) {
     else if (a === '--seed') { o.seed = Number(v); i++; }
     else if (a === '--out') { o.out = v; i++; }
     else if (a === '--format') { o.format = v; i++; }
+    else if (a === '--quote-all') o.quoteAll = true;
     else throw new Error(`unknown argument ${a}`);
   }
   if (!o.out) throw new Error('--out is required');
@@ -61,7 +63,7 @@ function makeNote(rnd) {
   return { text: t, quoted: true };
 }
 
-function makeRow(rnd, id, fault, format) {
+function makeRow(rnd, id, fault, format, quoteAll = false) {
   const sensor = `S${String(1 + Math.floor(rnd() * 5000)).padStart(5, '0')}`;
   const site = SITES[Math.floor(rnd() * SITES.length)];
   const ts = new Date(Date.UTC(2023, 0, 1) + Math.floor(rnd() * 365 * 86400) * 1000).toISOString().replace('.000Z', 'Z');
@@ -73,7 +75,8 @@ function makeRow(rnd, id, fault, format) {
   if (format === 'jsonl') {
     return JSON.stringify({ reading_id: id, sensor_id: sensor, site, taken_at: ts, temp_c: Number(temp), humidity_pct: Number(hum), battery_v: Number(batt), vibration_g: vib === '' ? null : Number(vib), note: note.text, fault }) + '\n';
   }
-  const noteField = note.quoted ? `"${note.text.replaceAll('"', '""')}"` : note.text;
+  const noteField = note.quoted || quoteAll ? `"${note.text.replaceAll('"', '""')}"` : note.text;
+  if (quoteAll) return `"${id}","${sensor}","${site}","${ts}","${temp}","${hum}","${batt}","${vib}",${noteField},"${fault}"\n`;
   return `${id},${sensor},${site},${ts},${temp},${hum},${batt},${vib},${noteField},${fault}\n`;
 }
 
@@ -84,7 +87,7 @@ function main() {
   // Estimate the mean row size with a separate stream, then fix the row count per class.
   const probe = createRandom(o.seed ^ 0x9e3779b9);
   let sample = 0;
-  for (let i = 0; i < 4000; i++) sample += Buffer.byteLength(makeRow(probe, 1_000_000 + i, FAULTS[i % 5][0], o.format));
+  for (let i = 0; i < 4000; i++) sample += Buffer.byteLength(makeRow(probe, 1_000_000 + i, FAULTS[i % 5][0], o.format, o.quoteAll));
   const rows = Math.max(1, Math.floor((o.bytes - HEADER.length) / (sample / 4000)));
   const rnd = createRandom(o.seed);
   mkdirSync(dirname(o.out), { recursive: true });
@@ -95,7 +98,7 @@ function main() {
   for (const [fault, share] of FAULTS) {
     const n = Math.round(rows * share);
     for (let i = 0; i < n; i++) {
-      buf += makeRow(rnd, id++, fault, o.format);
+      buf += makeRow(rnd, id++, fault, o.format, o.quoteAll);
       if (buf.length > 1 << 20) { written += writeSync(fd, buf); buf = ''; }
     }
   }
