@@ -1,5 +1,5 @@
 /**
- * Input adapters: format from the name, gzip recognised by its magic bytes (RFC 1952 §2.3.1:
+ * Input adapters: format from the name, gzip recognised by its magic bytes (RFC 1952 §2.3.1, from memory:
  * ID1 = 0x1f, ID2 = 0x8b) whatever the name, any Readable as a source (as stdin is), and several
  * inputs read in order with their headers checked against the first.
  */
