@@ -311,20 +311,14 @@ export class ExactSum {
   }
 }
 
-// --- moments ---------------------------------------------------------------------------------
-
-/** Serialised ExactMoments: plain numbers only, safe for postMessage and JSON. */
-export interface SerializedMoments {
-  n: number;
-  s1: number[];
-  s2: number[];
-}
-
 // --- binned front buffer ---------------------------------------------------------------------
 
 /** Bin j counts units of 2^(32j − 1074); 66 bins cover every finite double's bits. */
 const BIN_COUNT = 66;
-/** Each add puts at most one piece (< 2^32) into a bin; 2^20 adds keep every bin below 2^53. */
+/**
+ * Each addToBins call puts at most one piece (< 2^32) into a bin, so 2^21 calls keep every bin
+ * below 2^53. ExactMoments makes two calls per value on its Σx² bins: flush after 2^20 values.
+ */
 const BIN_FLUSH_AFTER = 1 << 20;
 const TWO32 = 2 ** 32;
 const INV_TWO32 = 2 ** -32;
@@ -338,54 +332,40 @@ const bitsU32 = new Uint32Array(bitsF64.buffer);
 const HI_WORD = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1 ? 1 : 0; // little-endian: high word at [1]
 
 /**
- * A fast exact accumulator for the hot path (a "superaccumulator" on a fixed binary grid): a value
- * is cut at fixed 32-bit boundaries of its binary exponent into three integer pieces, each added to
- * the bin for its position. Integer additions below 2^53 are exact, so the bins hold the exact sum
- * while no bin can pass 2^53; before that, and whenever the value is read, the bins are emptied
- * into an ExactSum. About 3x cheaper per value than growing an expansion directly.
- * Valid for |x| <= 2^900 (the bin values times their units must stay finite).
+ * The fast exact accumulator of the hot path (a "superaccumulator" on a fixed binary grid): x is
+ * cut at fixed 32-bit boundaries of the binary exponent into three integer pieces (each < 2^32 in
+ * units of its bin), each added to the bin for its position, bins[offset + j]. Integer sums below
+ * 2^53 are exact, so the bins hold the exact sum until some bin could pass 2^53 (after 2^21 adds;
+ * callers empty them every 2^20). About 3x cheaper per value than growing an expansion.
+ * Valid while the pieces times their units stay finite: |x| <= 2^900.
  */
-class BinnedSum {
-  private readonly bins = new Float64Array(BIN_COUNT);
-  private lowBin = BIN_COUNT;
-  private highBin = -1;
-  private adds = 0;
+function addToBins(bins: Float64Array, offset: number, x: number): void {
+  if (x === 0) return;
+  bitsF64[0] = x;
+  const biased = (bitsU32[HI_WORD]! >>> 20) & 0x7ff;
+  // Position of the lowest significand bit, counted from 2^-1074.
+  const low = biased === 0 ? 0 : biased - 1;
+  const j = low >>> 5;
+  // w = x / 2^(32j − 1074): an integer below 2^85, exact (a power-of-two scaling).
+  const w = x * BIN_SCALE_A[j]! * BIN_SCALE_B[j]!;
+  const t1 = Math.trunc(w * INV_TWO32);
+  const lo = w - t1 * TWO32;
+  const hi = Math.trunc(t1 * INV_TWO32);
+  const mid = t1 - hi * TWO32;
+  const k = offset + j;
+  bins[k] = bins[k]! + lo;
+  bins[k + 1] = bins[k + 1]! + mid;
+  bins[k + 2] = bins[k + 2]! + hi;
+}
 
-  add(x: number, into: ExactSum): void {
-    if (x === 0) return;
-    bitsF64[0] = x;
-    const biased = (bitsU32[HI_WORD]! >>> 20) & 0x7ff;
-    // Position of the lowest significand bit, counted from 2^-1074.
-    const low = biased === 0 ? 0 : biased - 1;
-    const j = low >>> 5;
-    // w = x / 2^(32j − 1074): an integer below 2^85, exact (a power-of-two scaling).
-    const w = x * BIN_SCALE_A[j]! * BIN_SCALE_B[j]!;
-    const t1 = Math.trunc(w * INV_TWO32);
-    const lo = w - t1 * TWO32;
-    const hi = Math.trunc(t1 * INV_TWO32);
-    const mid = t1 - hi * TWO32;
-    const bins = this.bins;
-    bins[j] = bins[j]! + lo;
-    bins[j + 1] = bins[j + 1]! + mid;
-    bins[j + 2] = bins[j + 2]! + hi;
-    if (j < this.lowBin) this.lowBin = j;
-    if (j + 2 > this.highBin) this.highBin = j + 2;
-    if (++this.adds >= BIN_FLUSH_AFTER) this.flush(into);
-  }
-
-  /** Moves the exact bin contents into `into` and empties the bins. */
-  flush(into: ExactSum): void {
-    const bins = this.bins;
-    for (let j = this.lowBin; j <= this.highBin; j++) {
-      const b = bins[j]!;
-      if (b !== 0) {
-        into.add(b * BIN_UNIT[j]!); // exact: an integer below 2^53 times a power of two
-        bins[j] = 0;
-      }
+/** Moves the exact contents of bins[offset .. offset + BIN_COUNT) into `into` and zeroes them. */
+function flushBins(bins: Float64Array, offset: number, into: ExactSum): void {
+  for (let j = 0; j < BIN_COUNT; j++) {
+    const b = bins[offset + j]!;
+    if (b !== 0) {
+      into.add(b * BIN_UNIT[j]!); // exact: an integer below 2^53 times a power of two
+      bins[offset + j] = 0;
     }
-    this.lowBin = BIN_COUNT;
-    this.highBin = -1;
-    this.adds = 0;
   }
 }
 
@@ -409,8 +389,9 @@ export class ExactMoments {
   n = 0;
   private readonly e1 = new ExactSum();
   private readonly e2 = new ExactSum();
-  private readonly b1 = new BinnedSum();
-  private readonly b2 = new BinnedSum();
+  /** Σx bins at [0, BIN_COUNT), Σx² bins at [BIN_COUNT, 2·BIN_COUNT); see addToBins. */
+  private readonly bins = new Float64Array(2 * BIN_COUNT);
+  private pending = 0;
 
   add(x: number): this {
     this.n++;
@@ -421,9 +402,11 @@ export class ExactMoments {
     const lo = x - hi;
     const err = lo * lo - (p - hi * hi - (hi + hi) * lo);
     if (x <= BINNED_LIMIT && x >= -BINNED_LIMIT) {
-      this.b1.add(x, this.e1);
-      this.b2.add(p, this.e2);
-      this.b2.add(err, this.e2);
+      const bins = this.bins;
+      addToBins(bins, 0, x);
+      addToBins(bins, BIN_COUNT, p);
+      addToBins(bins, BIN_COUNT, err); // a second add to the Σx² bins: flush after 2^20 values
+      if (++this.pending >= BIN_FLUSH_AFTER) this.flush();
     } else {
       this.e1.add(x);
       this.e2.add(err).add(p);
@@ -431,15 +414,21 @@ export class ExactMoments {
     return this;
   }
 
+  private flush(): void {
+    flushBins(this.bins, 0, this.e1);
+    flushBins(this.bins, BIN_COUNT, this.e2);
+    this.pending = 0;
+  }
+
   /** Σx, exact. */
   get s1(): ExactSum {
-    this.b1.flush(this.e1);
+    if (this.pending > 0) this.flush();
     return this.e1;
   }
 
   /** Σx², exact. */
   get s2(): ExactSum {
-    this.b2.flush(this.e2);
+    if (this.pending > 0) this.flush();
     return this.e2;
   }
 
