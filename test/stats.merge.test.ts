@@ -1,6 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { FieldKind } from '../src/io/batch.js';
+import type { RecordBatch } from '../src/io/batch.js';
 import { TableStats } from '../src/core/stats.js';
 import type { SerializedStats } from '../src/core/stats.js';
 import { buildCsvTable, computeTableStats, shuffleInPlace } from './stats.helpers.js';
@@ -293,6 +294,36 @@ describe('serialised form', () => {
     expect(JSON.stringify(a.toJSON())).toBe(JSON.stringify(b.toJSON()));
     const back = TableStats.fromJSON(JSON.parse(JSON.stringify(a)) as SerializedStats);
     expect(back.summary()).toEqual(a.summary());
+  });
+
+  it('summary keys come in one fixed order, for every column type', () => {
+    const t = makeSensorTable('fleet-c', 50);
+    const keys = ['name', 'type', 'count', 'missing', 'distinct', 'approximate', 'min', 'max', 'mean', 'sd', 'top'];
+    for (const c of computeTableStats(t).summary()) expect(Object.keys(c)).toEqual(keys);
+    for (const c of computeTableStats(t).summary({ excludeValues: true })) expect(Object.keys(c)).toEqual(keys);
+  });
+
+  it('addBatch reads the wanted fields of a record batch like addField does', () => {
+    const t = makeSensorTable('fleet-d', 60);
+    const W = t.columns.length;
+    const n = t.fields.length;
+    const batch: RecordBatch = {
+      data: t.data,
+      count: n,
+      start: new Uint32Array(n),
+      end: new Uint32Array(n),
+      next: new Uint32Array(n),
+      offset: new Float64Array(n),
+      line: new Float64Array(n),
+      wanted: W,
+      fieldStart: Uint32Array.from(t.fields.flatMap((r) => r.map((f) => f.start))),
+      fieldEnd: Uint32Array.from(t.fields.flatMap((r) => r.map((f) => f.end))),
+      fieldKind: Uint8Array.from(t.fields.flatMap((r) => r.map((f) => f.kind))),
+    };
+    const viaBatch = new TableStats(t.columns);
+    viaBatch.addBatch(batch);
+    expect(viaBatch.records).toBe(n);
+    expect(viaBatch.toJSON()).toEqual(computeTableStats(t).toJSON());
   });
 
   it('refuses to merge tables with different columns', () => {
