@@ -118,6 +118,9 @@ describe('ExactSum against exact BigInt arithmetic', () => {
       expect(sumOf(a.multiply(b), 2n * K)).toBe(refA * refB);
       expect(sumOf(a.clone().subtract(b), K)).toBe(refA - refB);
       expect(sumOf(a.clone().negate(), K)).toBe(-refA);
+      // approx() stays correctly rounded on the results of these operations too.
+      expect(Object.is(a.multiply(b).approx(), roundScaledBig(refA * refB, 2n * K))).toBe(true);
+      expect(Object.is(a.clone().scale(n).subtract(b).approx(), roundScaledBig(refA * BigInt(n) - refB, K))).toBe(true);
     }
   });
 
@@ -207,6 +210,21 @@ describe('ExactMoments', () => {
     expect(sumOf(m.s1, K)).toBe(toScaledBig(0.1, K) * BigInt(count));
     expect(sumOf(m.s2, 2n * K)).toBe(toScaledBig(0.1, K) ** 2n * BigInt(count));
     expect(m.variance()).toBe(0);
+  });
+
+  it('variance numerator n·Σx² − (Σx)² is rounded once from its exact value (random decimals)', () => {
+    const rng = seedrandom('exact-variance');
+    for (let trial = 0; trial < 50; trial++) {
+      const xs = Array.from({ length: 2 + Math.floor(rng() * 200) }, () => Number((rng() * 2e4 - 1e4).toFixed(3)) + 1e6);
+      const m = new ExactMoments();
+      for (const x of xs) m.add(x);
+      const n = BigInt(xs.length);
+      const s1 = xs.reduce((a, x) => a + toScaledBig(x, K), 0n);
+      const s2 = xs.reduce((a, x) => a + toScaledBig(x, K) ** 2n, 0n);
+      const num = roundScaledBig(n * s2 - s1 * s1, 2n * K);
+      expect(Object.is(m.variance(), num / (xs.length * (xs.length - 1)))).toBe(true);
+      expect(Object.is(m.mean(), roundScaledBig(s1, K) / xs.length)).toBe(true);
+    }
   });
 
   it('fewer than two values give NaN variance; empty gives NaN mean', () => {
