@@ -322,17 +322,25 @@ function updateSketch(reg: Uint8Array): void {
  * arena, so counting a value that was seen before allocates nothing.
  */
 class ValueCounter {
-  private arena = new Uint8Array(1024);
+  private arena = Buffer.alloc(1024);
   private used = 0;
   private keyStart = new Int32Array(64);
   private keyLen = new Int32Array(64);
   private keyHash = new Int32Array(64);
   private counts = new Float64Array(64);
+  /** Each key's kind and parsed number, so a repeated value skips classification and min/max. */
+  private keyKind = new Int32Array(64);
+  private keyNumber = new Float64Array(64);
   private table = new Int32Array(128); // index + 1 of a key; 0 = empty
+  /** Table slot where the last missed lookup() would insert. */
+  private freeSlot = 0;
   size = 0;
 
-  /** Adds n to the count of b[s, e); hashOut must hold hashValue(b, s, e). */
-  add(b: Uint8Array, s: number, e: number, n: number): void {
+  /**
+   * Index of b[s, e) and one more count for it, or -1 when the value is new (then insert() may
+   * follow). hashOut must hold hashValue(b, s, e).
+   */
+  lookup(b: Uint8Array, s: number, e: number): number {
     const len = e - s;
     const h = hashOut[0]! | 0;
     const mask = this.table.length - 1;
@@ -342,30 +350,58 @@ class ValueCounter {
       if (k === 0) break;
       const i = k - 1;
       if (this.keyHash[i] === h && this.keyLen[i] === len && this.isKeyEqual(i, b, s, len)) {
-        this.counts[i] = this.counts[i]! + n;
-        return;
+        this.counts[i] = this.counts[i]! + 1;
+        return i;
       }
       slot = (slot + 1) & mask;
     }
+    this.freeSlot = slot;
+    return -1;
+  }
+
+  kindAt(i: number): number {
+    return this.keyKind[i]!;
+  }
+
+  numberAt(i: number): number {
+    return this.keyNumber[i]!;
+  }
+
+  /** Adds a value that lookup() just missed, with its count, kind and parsed number. */
+  insert(b: Uint8Array, s: number, e: number, n: number, kind: number, num: number): void {
+    const len = e - s;
     const i = this.size++;
     if (i >= this.counts.length) this.growEntries();
     if (this.used + len > this.arena.length) {
-      const na = new Uint8Array(Math.max(this.arena.length * 2, this.used + len));
-      na.set(this.arena.subarray(0, this.used));
+      const na = Buffer.alloc(Math.max(this.arena.length * 2, this.used + len));
+      this.arena.copy(na, 0, 0, this.used);
       this.arena = na;
     }
     for (let q = 0; q < len; q++) this.arena[this.used + q] = b[s + q]!;
     this.keyStart[i] = this.used;
     this.keyLen[i] = len;
-    this.keyHash[i] = h;
+    this.keyHash[i] = hashOut[0]! | 0;
     this.counts[i] = n;
+    this.keyKind[i] = kind;
+    this.keyNumber[i] = num;
     this.used += len;
-    this.table[slot] = i + 1;
+    this.table[this.freeSlot] = i + 1;
     if (this.size * 2 > this.table.length) this.growTable();
   }
 
+  /** Adds n to the count of a value (merging, deserialising); hashOut must hold its hash. */
+  add(b: Buffer, s: number, e: number, n: number): void {
+    const i = this.lookup(b, s, e);
+    if (i >= 0) {
+      this.counts[i] = this.counts[i]! + n - 1;
+      return;
+    }
+    const kind = classifyValue(b, s, e);
+    this.insert(b, s, e, n, kind, kind <= K_NUM ? parsed[0]! : 0);
+  }
+
   /** Calls fn with each key's bytes (arena, start, end) and count, in insertion order. */
-  forEach(fn: (arena: Uint8Array, start: number, end: number, count: number) => void): void {
+  forEach(fn: (arena: Buffer, start: number, end: number, count: number) => void): void {
     for (let i = 0; i < this.size; i++) fn(this.arena, this.keyStart[i]!, this.keyStart[i]! + this.keyLen[i]!, this.counts[i]!);
   }
 
@@ -386,6 +422,8 @@ class ValueCounter {
     this.keyLen = grow(this.keyLen, new Int32Array(n));
     this.keyHash = grow(this.keyHash, new Int32Array(n));
     this.counts = grow(this.counts, new Float64Array(n));
+    this.keyKind = grow(this.keyKind, new Int32Array(n));
+    this.keyNumber = grow(this.keyNumber, new Float64Array(n));
   }
 
   private growTable(): void {
@@ -452,14 +490,35 @@ class ColumnState {
 
   addValue(b: Buffer, s: number, e: number, cap: number): void {
     this.count++;
+    hashValue(b, s, e);
+    const values = this.values;
+    if (values !== null) {
+      const i = values.lookup(b, s, e);
+      if (i >= 0) {
+        // Seen before: min/max already include it; only the counts and moments move.
+        const k = values.kindAt(i);
+        this.kinds[k]!++;
+        if (k <= K_NUM) this.addNumber(values.numberAt(i));
+        return;
+      }
+      const k = this.classifyNew(b, s, e);
+      values.insert(b, s, e, 1, k, parsed[0]!);
+      if (values.size > cap) this.switchToSketch();
+    } else {
+      this.classifyNew(b, s, e);
+      updateSketch(this.sketch!);
+    }
+  }
+
+  /** Kind counts, numeric min/max and text min/max for a value not seen before (or not tracked). */
+  private classifyNew(b: Buffer, s: number, e: number): number {
     const k = classifyValue(b, s, e);
     this.kinds[k]!++;
     if (k <= K_NUM) {
       const x = parsed[0]!;
       this.numMin = Math.min(this.numMin, x); // Math.min orders -0 before 0, independent of order
       this.numMax = Math.max(this.numMax, x);
-      if (x > HUGE || x < -HUGE) this.huge++;
-      else this.moments.add(x);
+      this.addNumber(x);
     }
     const len = e - s;
     if (this.loLen < 0 || compareBytes(b, s, e, this.lo, this.loLen) < 0) {
@@ -472,14 +531,12 @@ class ColumnState {
       for (let q = 0; q < len; q++) this.hi[q] = b[s + q]!;
       this.hiLen = len;
     }
-    hashValue(b, s, e);
-    const values = this.values;
-    if (values !== null) {
-      values.add(b, s, e, 1);
-      if (values.size > cap) this.switchToSketch();
-    } else {
-      updateSketch(this.sketch!);
-    }
+    return k;
+  }
+
+  private addNumber(x: number): void {
+    if (x > HUGE || x < -HUGE) this.huge++;
+    else this.moments.add(x);
   }
 
   switchToSketch(): void {
