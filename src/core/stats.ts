@@ -57,7 +57,7 @@ export interface ColumnSummary {
   /** Distinct non-missing values: exact, or an estimate when `approximate`. */
   distinct: number;
   approximate: boolean;
-  /** Numbers for integer/number columns; text (code-unit order) for datetime/text columns. */
+  /** Numbers for integer/number columns; text for datetime/text columns, compared by UTF-8 bytes (= code point order). */
   min: number | string | null;
   max: number | string | null;
   /** Integer/number columns only; null when a value exceeds ±2^450 (see TableStats). */
