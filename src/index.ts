@@ -1,6 +1,17 @@
 /** rowdeck's public API: functions and types only. */
 export { shuffle, runShuffle, type ShuffleRun } from './engine/shuffle.js';
 export type { Manifest, PartRecord } from './engine/manifest.js';
+export {
+  verify,
+  type VerifyOptions,
+  type VerifyReport,
+  type VerifyCheck,
+  type VerifyMismatch,
+  type VerifyStatus,
+  type VerifyAgainst,
+  type VerifyProgress,
+  type RecordDifference,
+} from './engine/verify.js';
 export type { ShuffleOptions, ProgressEvent } from './options.js';
 export { RowdeckError, type RowdeckErrorCode, type ErrorDetails } from './errors.js';
 export type { InputFormat, BadRecordPolicy } from './io/batch.js';

@@ -108,14 +108,21 @@ Example:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--json]
+  rowdeck verify DIR [--against INPUT...] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, and the order-independent
 fingerprint of the records. With --against, also re-reads the inputs and checks that the
 output holds exactly their records (nothing lost, duplicated or altered; the fold column aside).
 
-Exit status 0 when everything holds; otherwise 1 and a list of every mismatch.
+Options:
+  --against INPUT...      the inputs of the run, in the same order (every argument up to the
+                          next option); records missing from or extra in the output are listed
+                          with their file:line (up to 20 of each, for inputs up to 2 million records)
+  --json                  print the report (every check and mismatch) on stdout
+  --quiet                 no progress or summary line on stderr (mismatches are still listed)
+
+Exit status 0 when everything holds; otherwise 1 and a list of every mismatch on stderr.
 
 Examples:
   rowdeck verify parts

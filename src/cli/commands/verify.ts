@@ -1,11 +1,112 @@
+/**
+ * `rowdeck verify DIR [--against INPUT...]`: a thin layer over the library's verify(). The
+ * report decides the exit status: 0 when every check holds, 1 with every mismatch on stderr.
+ */
 import { RowdeckError } from '../../errors.js';
-import type { CliIO } from '../main.js';
+import { verify, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
+import { parseCommandArgs } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
+import type { CliIO } from '../main.js';
+
+/**
+ * `--against a.csv b.csv` takes every argument up to the next option, which parseArgs alone
+ * does not do: rewrite them as repeated `--against=` options first.
+ */
+function expandAgainst(argv: string[]): string[] {
+  const out: string[] = [];
+  for (let i = 0; i < argv.length; i++) {
+    const a = argv[i]!;
+    if (a !== '--against') {
+      out.push(a);
+      continue;
+    }
+    let n = 0;
+    while (i + 1 < argv.length && (argv[i + 1] === '-' || !argv[i + 1]!.startsWith('-'))) {
+      out.push(`--against=${argv[++i]!}`);
+      n++;
+    }
+    if (n === 0) out.push(a); // parseArgs reports the missing value
+  }
+  return out;
+}
+
+function createVerifyProgress(io: CliIO, enabled: boolean): { update(e: VerifyProgress): void; done(): void } {
+  if (!enabled || !io.stderr.isTTY) return { update() {}, done() {} };
+  let shown = false;
+  let last = 0;
+  return {
+    update(e) {
+      const now = Date.now();
+      if (now - last < 200 && e.done < e.total) return;
+      last = now;
+      io.stderr.write(`\rverify ${e.stage.padEnd(6)} ${e.done}/${e.total} files, ${e.records.toLocaleString('en-US')} records\x1b[K`);
+      shown = true;
+    },
+    done() {
+      if (shown) io.stderr.write('\r\x1b[K');
+    },
+  };
+}
+
+/** One line per mismatch: `file[:line]: check (item): expected X, found Y`. */
+export function formatMismatches(r: VerifyReport): string[] {
+  const lines = r.mismatches.map((x) => `${x.file}${x.line !== undefined ? `:${x.line}` : ''}: ${x.check}${x.item !== undefined ? ` (${x.item})` : ''}: expected ${x.expected}, found ${x.found}`);
+  const d = r.against?.differences;
+  if (d) {
+    for (const x of d.listed) {
+      const copies = x.kind === 'missing' ? (x.copies.input > 1 ? ` (${x.copies.output} of ${x.copies.input} identical copies are in the output)` : '') : x.copies.output > 1 ? ` (${x.copies.output} identical copies in the output, ${x.copies.input} in the inputs)` : '';
+      lines.push(`${x.file}:${x.line}: ${x.kind === 'missing' ? 'missing from the output' : 'not in the inputs'}${copies}: ${x.record}`);
+    }
+    const shownMissing = d.listed.filter((x) => x.kind === 'missing').length;
+    const shownExtra = d.listed.length - shownMissing;
+    if (d.missing > shownMissing) lines.push(`… ${d.missing - shownMissing} more record(s) missing from the output${d.listing === 'counts only' ? ' (too many records to list them)' : ''}`);
+    if (d.extra > shownExtra) lines.push(`… ${d.extra - shownExtra} more record(s) not in the inputs${d.listing === 'counts only' ? ' (too many records to list them)' : ''}`);
+  }
+  return lines;
+}
 
 export async function run(argv: string[], io: CliIO): Promise<number> {
-  if (argv.includes('--help') || argv.includes('-h')) {
+  const { values: v, positionals } = parseCommandArgs(expandAgainst(argv), {
+    against: { type: 'string', multiple: true },
+    json: { type: 'boolean' },
+    quiet: { type: 'boolean', short: 'q' },
+    help: { type: 'boolean', short: 'h' },
+  });
+  if (v.help) {
     io.stdout.write(VERIFY_HELP);
     return 0;
   }
-  throw new RowdeckError('ERR_INTERNAL', 'verify is not available yet.');
+  if (positionals.length === 0) {
+    throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck verify needs DIR, the output folder of rowdeck shuffle (it holds manifest.json). Give DIR before --against.');
+  }
+  if (positionals.length > 1) {
+    throw new RowdeckError('ERR_OPTION', `rowdeck verify checks one folder, got ${positionals.length}: ${positionals.join(', ')}. To compare with inputs, list them after --against.`);
+  }
+  const dir = positionals[0]!;
+  const against = v.against as string[] | undefined;
+  const progress = createVerifyProgress(io, !v.quiet);
+  let report: VerifyReport;
+  try {
+    report = await verify({ dir, ...(against ? { against } : {}), onProgress: (e) => progress.update(e) });
+  } finally {
+    progress.done();
+  }
+  if (v.json) io.stdout.write(JSON.stringify(report, null, 2) + '\n');
+  const lines = formatMismatches(report);
+  if (lines.length > 0) io.stderr.write(lines.map((l) => `${l}\n`).join(''));
+  if (!v.quiet) {
+    const passed = report.checks.filter((c) => c.status === 'passed').length;
+    const skipped = report.checks.filter((c) => c.status === 'skipped').length;
+    const skippedText = skipped > 0 ? `, ${skipped} skipped (see --json)` : '';
+    if (report.ok) {
+      const inputs = report.against ? `; the input(s) hold the same ${report.against.records.toLocaleString('en-US')} records` : '';
+      io.stderr.write(`rowdeck: ${dir} matches its manifest: ${report.parts} part(s), ${report.records.toLocaleString('en-US')} records, ${passed} checks passed${skippedText}${inputs}.\n`);
+    } else {
+      const files = new Set(report.mismatches.map((x) => x.file)).size;
+      io.stderr.write(
+        `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}.\n`,
+      );
+    }
+  }
+  return report.ok ? 0 : 1;
 }

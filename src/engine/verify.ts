@@ -1,0 +1,964 @@
+/**
+ * `verify()`: re-reads an output folder and checks every file against its manifest, and
+ * optionally the inputs against both. Nothing is trusted from the run itself: sizes, sha256,
+ * record counts, class and fold counts and fingerprints are all recomputed from the bytes on
+ * disk, with the same record reader the shuffle used (so a record is the same byte range).
+ *
+ * A failed check is a result, not an error: the report lists it and `ok` is false. Only a
+ * folder that cannot be checked at all (no manifest, or one that is not a manifest) throws.
+ * Memory stays bounded: files are streamed; the optional record-by-record difference listing
+ * keeps one 64-bit hash per record and is done only up to DIFF_RECORD_LIMIT records.
+ */
+import { createHash } from 'node:crypto';
+import { createReadStream, readFileSync, statSync } from 'node:fs';
+import { isAbsolute, join, normalize } from 'node:path';
+import { Readable } from 'node:stream';
+import pLimit from 'p-limit';
+import { maxDeviation } from '../core/balance.js';
+import { FINGERPRINT_SECRET, Fingerprint, hashBytes } from '../core/hash.js';
+import { RowdeckError, ioError } from '../errors.js';
+import type { InputFormat, RecordBatch } from '../io/batch.js';
+import { nameInput, openInput } from '../io/input.js';
+import { RecordReader, fieldText } from '../io/reader.js';
+import type { Manifest, PartRecord } from './manifest.js';
+import { binLabel, binOf, parseBinValue } from './quantiles.js';
+import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
+
+/** Above this many records (input or output), a failed --against check reports counts and fingerprints only. */
+export const DIFF_RECORD_LIMIT = 2_000_000;
+/** Records listed per kind (missing, extra) when the input and the output differ. */
+export const DIFF_LIST_LIMIT = 20;
+/** Distinct differing records remembered for the listing (the counts are always complete). */
+const DIFF_TRACK_LIMIT = 10_000;
+/** Record text in the listing is cut to this many characters. */
+const RECORD_TEXT_LIMIT = 200;
+
+export type VerifyStatus = 'passed' | 'failed' | 'skipped';
+
+export interface VerifyCheck {
+  /** Output file (relative to the folder), `manifest.json`, or an input path. */
+  file: string;
+  /** What was checked: `present`, `bytes`, `sha256`, `readable`, `header`, `records`, `strata`, `folds`, `fold values`, `fold strata`, `fingerprint`, `balance`, … */
+  check: string;
+  status: VerifyStatus;
+  /** Why a check was skipped, or what it was computed from. */
+  note?: string;
+}
+
+export interface VerifyMismatch {
+  file: string;
+  check: string;
+  /** Which entry of a per-class or per-fold check, e.g. `fault="drift"` or `fold 3`. */
+  item?: string;
+  /** Physical line (1-based) of the first record concerned, where there is one. */
+  line?: number;
+  expected: string | number;
+  found: string | number;
+}
+
+/** One record that is in the inputs but not in the output, or the other way round. */
+export interface RecordDifference {
+  kind: 'missing' | 'extra';
+  /** Input path (missing) or output part (extra). */
+  file: string;
+  line: number;
+  /** The record's text without its line end and without the fold column (cut to 200 characters). */
+  record: string;
+  /** Copies of this exact record in the inputs and in the output. */
+  copies: { input: number; output: number };
+}
+
+export interface VerifyAgainst {
+  inputs: string[];
+  records: number;
+  rejected: number;
+  fingerprint: string;
+  /** null when the inputs and the output hold the same records. */
+  differences: {
+    /** Records in the inputs but not in the output, counting copies. */
+    missing: number;
+    extra: number;
+    listed: RecordDifference[];
+    /** `listed`: every difference or the first 20 of each kind are listed; `counts only`: too many records to list them. */
+    listing: 'listed' | 'counts only';
+  } | null;
+}
+
+export interface VerifyReport {
+  ok: boolean;
+  /** The folder checked, as given. */
+  dir: string;
+  manifestVersion: number;
+  records: number;
+  parts: number;
+  checks: VerifyCheck[];
+  mismatches: VerifyMismatch[];
+  against: VerifyAgainst | null;
+}
+
+export interface VerifyProgress {
+  stage: 'parts' | 'inputs' | 'differences';
+  /** Files done and in all. */
+  done: number;
+  total: number;
+  records: number;
+  elapsedMs: number;
+}
+
+export interface VerifyOptions {
+  /** Output folder written by shuffle (holds manifest.json). */
+  dir: string;
+  /** Inputs to compare with the output ('-' reads standard input). */
+  against?: string[];
+  onProgress?: (e: VerifyProgress) => void;
+}
+
+/** How to read the parts and inputs, and how to recognise each record's class, from the manifest. */
+interface ReadPlan {
+  format: InputFormat;
+  delimiter: string | undefined;
+  delimiterByte: number;
+  header: boolean;
+  columns: string[];
+  stratify: string[];
+  /** Per stratify column: quantile bin edges, or null for plain values. */
+  bins: (number[] | null)[];
+  /** Canonical stratum key -> index in `strata.values`; null when the values were left out. */
+  strataIndex: Map<string, number> | null;
+  strataCount: number;
+  strataLabels: string[];
+  folds: number;
+  foldColumn: string | null;
+}
+
+interface PartScan {
+  present: boolean;
+  bytes: number;
+  sha256: string;
+  readError: string | null;
+  /** Column names the part's header gives (CSV/TSV), or null. */
+  columns: string[] | null;
+  records: number;
+  strata: Float64Array;
+  folds: Float64Array;
+  /** `foldStrata[fold * strataCount + s]`. */
+  foldStrata: Float64Array;
+  /** Records whose class is not among the manifest's, by display label. */
+  unknown: Map<string, { count: number; line: number }>;
+  badFold: { count: number; line: number; text: string } | null;
+  fingerprint: Fingerprint;
+}
+
+/** 64-bit record hashes, stored as pairs of 32-bit words (lo, hi) so they can be sorted as BigUint64. */
+class HashList {
+  words = new Uint32Array(2 * 1024);
+  count = 0;
+  overflow = false;
+
+  add(hi: number, lo: number): void {
+    if (this.overflow) return;
+    if (this.count >= DIFF_RECORD_LIMIT) {
+      this.overflow = true;
+      this.words = new Uint32Array(0);
+      return;
+    }
+    if (2 * this.count === this.words.length) {
+      const bigger = new Uint32Array(Math.min(2 * DIFF_RECORD_LIMIT, this.words.length * 2));
+      bigger.set(this.words);
+      this.words = bigger;
+    }
+    this.words[2 * this.count] = lo;
+    this.words[2 * this.count + 1] = hi;
+    this.count++;
+  }
+
+  /** Sorted in place; equal hashes end up next to each other, whatever the byte order. */
+  sorted(): { big: BigUint64Array; words: Uint32Array } {
+    const big = new BigUint64Array(this.words.buffer, 0, this.count);
+    big.sort();
+    return { big, words: this.words };
+  }
+}
+
+const hashKey = (hi: number, lo: number): string => `${hi}:${lo}`;
+
+export async function verify(options: VerifyOptions): Promise<VerifyReport> {
+  const t0 = Date.now();
+  const dir = options.dir;
+  const m = loadManifest(dir);
+  const plan = createReadPlan(m);
+  const checks: VerifyCheck[] = [];
+  const mismatches: VerifyMismatch[] = [];
+  const pass = (file: string, check: string, note?: string): void => {
+    checks.push(note === undefined ? { file, check, status: 'passed' } : { file, check, status: 'passed', note });
+  };
+  const skip = (file: string, check: string, note: string): void => {
+    checks.push({ file, check, status: 'skipped', note });
+  };
+  /** Records one check: passed when `bad` is empty, else failed with every mismatch listed. */
+  const judge = (file: string, check: string, bad: Omit<VerifyMismatch, 'file' | 'check'>[], note?: string): boolean => {
+    if (bad.length === 0) {
+      pass(file, check, note);
+      return true;
+    }
+    checks.push(note === undefined ? { file, check, status: 'failed' } : { file, check, status: 'failed', note });
+    for (const b of bad) mismatches.push({ file, check, ...b });
+    return false;
+  };
+  const same = (expected: string | number, found: string | number): Omit<VerifyMismatch, 'file' | 'check'>[] => (expected === found ? [] : [{ expected, found }]);
+
+  const collectOutput = options.against !== undefined && m.output.records <= DIFF_RECORD_LIMIT && m.input.records <= DIFF_RECORD_LIMIT;
+  const outHashes = collectOutput ? new HashList() : null;
+
+  // ---- every part: bytes on disk, then its records ----
+  const parts = m.output.parts;
+  const limit = pLimit(2);
+  let partsDone = 0;
+  let recordsSeen = 0;
+  const scans = await Promise.all(
+    parts.map((p) =>
+      limit(async () => {
+        const s = await scanPart(join(dir, p.path), p.path, plan, outHashes);
+        partsDone++;
+        recordsSeen += s.records;
+        options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
+        return s;
+      }),
+    ),
+  );
+
+  const valuesOut = plan.strataIndex === null;
+  const allRead = scans.every((s) => s.present && s.readError === null);
+  parts.forEach((p, k) => {
+    const s = scans[k]!;
+    const f = p.path;
+    if (!judge(f, 'present', s.present ? [] : [{ expected: 'a file', found: 'missing' }])) {
+      for (const c of partCheckNames(plan)) skip(f, c, 'the file is missing');
+      return;
+    }
+    judge(f, 'bytes', same(p.bytes, s.bytes));
+    judge(f, 'sha256', same(p.sha256, s.sha256));
+    judge(f, 'readable', s.readError === null ? [] : [{ expected: 'records the reader accepts', found: s.readError }]);
+    if (plan.format !== 'jsonl' && plan.header) {
+      const want = [...plan.columns, ...(plan.foldColumn !== null ? [plan.foldColumn] : [])];
+      if (s.columns === null) skip(f, 'header', 'no header could be read');
+      else judge(f, 'header', same(JSON.stringify(want), JSON.stringify(s.columns)));
+    }
+    if (s.readError !== null) {
+      for (const c of partCheckNames(plan).filter((c) => c !== 'header')) skip(f, c, 'the file could not be read to its end');
+      return;
+    }
+    judge(f, 'records', same(p.records, s.records));
+    if (valuesOut) skip(f, 'strata', 'the manifest was written without data values (excludeValues)');
+    else {
+      const bad: Omit<VerifyMismatch, 'file' | 'check'>[] = [];
+      for (let i = 0; i < plan.strataCount; i++) {
+        if (p.strata[i] !== s.strata[i]) bad.push({ item: plan.strataLabels[i]!, expected: p.strata[i] ?? 'no entry', found: s.strata[i]! });
+      }
+      if (p.strata.length !== plan.strataCount) bad.push({ item: 'entries', expected: plan.strataCount, found: p.strata.length });
+      for (const [label, u] of s.unknown) bad.push({ item: label, line: u.line, expected: 0, found: u.count });
+      judge(f, 'strata', bad);
+    }
+    if (plan.folds > 1) {
+      judge(f, 'fold values', s.badFold === null ? [] : [{ line: s.badFold.line, expected: `a fold column with values 0..${plan.folds - 1}`, found: `${s.badFold.text} (${s.badFold.count} record${s.badFold.count === 1 ? '' : 's'})` }]);
+      const bad: Omit<VerifyMismatch, 'file' | 'check'>[] = [];
+      for (let g = 0; g < plan.folds; g++) {
+        if (p.folds?.[g] !== s.folds[g]) bad.push({ item: `fold ${g}`, expected: p.folds?.[g] ?? 'no entry', found: s.folds[g]! });
+      }
+      judge(f, 'folds', bad);
+      if (valuesOut) skip(f, 'fold strata', 'the manifest was written without data values (excludeValues)');
+      else {
+        const badFs: Omit<VerifyMismatch, 'file' | 'check'>[] = [];
+        for (let g = 0; g < plan.folds; g++) {
+          for (let i = 0; i < plan.strataCount; i++) {
+            const want = p.foldStrata?.[g]?.[i];
+            const got = s.foldStrata[g * plan.strataCount + i]!;
+            if (want !== got) badFs.push({ item: `fold ${g}, ${plan.strataLabels[i]}`, expected: want ?? 'no entry', found: got });
+          }
+        }
+        judge(f, 'fold strata', badFs);
+      }
+    }
+    judge(f, 'fingerprint', same(p.fingerprint, s.fingerprint.toHex()));
+  });
+
+  // ---- rejected records, kept aside by --on-bad-record quarantine ----
+  if (m.input.rejectsFile !== null) {
+    const f = m.input.rejectsFile;
+    const n = await countRejects(join(dir, f));
+    if (judge(f, 'present', n === null ? [{ expected: 'a file', found: 'missing' }] : [])) judge(f, 'records', same(m.input.rejected, n!));
+    else skip(f, 'records', 'the file is missing');
+  }
+
+  // ---- the manifest's own totals, and the whole output against them ----
+  const M = 'manifest.json';
+  const outFp = new Fingerprint();
+  for (const s of scans) outFp.merge(s.fingerprint.toJSON());
+  judge(M, 'output records', [
+    ...same(m.input.records, m.output.records),
+    ...(m.output.records === sum(parts.map((p) => p.records)) ? [] : [{ item: 'sum of parts', expected: m.output.records, found: sum(parts.map((p) => p.records)) }]),
+    ...(allRead && sum(scans.map((s) => s.records)) !== m.output.records ? [{ item: 'records read', expected: m.output.records, found: sum(scans.map((s) => s.records)) }] : []),
+  ]);
+  if (allRead) judge(M, 'output fingerprint', same(m.output.fingerprint, outFp.toHex()));
+  else skip(M, 'output fingerprint', 'some parts are missing or could not be read');
+  judge(M, 'input fingerprint', same(m.input.fingerprint, m.output.fingerprint));
+  {
+    const bad: Omit<VerifyMismatch, 'file' | 'check'>[] = [];
+    const totals = new Float64Array(plan.strataCount);
+    for (const p of parts) for (let i = 0; i < plan.strataCount; i++) totals[i]! += p.strata[i] ?? 0;
+    m.strata.values.forEach((v, i) => {
+      if (v.records !== totals[i]) bad.push({ item: `${plan.strataLabels[i]} (sum of parts)`, expected: v.records, found: totals[i]! });
+    });
+    if (sum(m.strata.values.map((v) => v.records)) !== m.input.records) bad.push({ item: 'sum of classes', expected: m.input.records, found: sum(m.strata.values.map((v) => v.records)) });
+    judge(M, 'strata totals', bad);
+  }
+
+  // ---- the balance promise, recomputed from the counts ----
+  {
+    const fromFiles = allRead && !valuesOut;
+    const partStrata = parts.map((p, k) => (fromFiles ? Array.from(scans[k]!.strata) : p.strata));
+    const foldStrata = parts.map((p, k) => (fromFiles ? Array.from({ length: plan.folds }, (_, g) => Array.from(scans[k]!.foldStrata.subarray(g * plan.strataCount, (g + 1) * plan.strataCount))) : (p.foldStrata ?? [])));
+    const dev = computeMaxDeviation(parts, partStrata, foldStrata, plan);
+    const note = fromFiles ? 'from the counts read from the files' : "from the manifest's counts";
+    judge(M, 'balance', Math.abs(dev - m.balance.maxDeviation) <= 1e-12 ? [] : [{ item: 'maxDeviation', expected: m.balance.maxDeviation, found: dev }], note);
+    judge(M, 'tolerance', dev <= m.balance.tolerance + 1e-12 ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
+  }
+
+  // ---- --against: the inputs hold exactly the output's records ----
+  let against: VerifyAgainst | null = null;
+  if (options.against !== undefined) {
+    const inputs = options.against;
+    if (inputs.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
+    const inHashes = outHashes !== null ? new HashList() : null;
+    // Bad records are counted, not fatal: the manifest says how many the run refused.
+    const read = await scanInputs(inputs, plan, inHashes, (done, records) =>
+      options.onProgress?.({ stage: 'inputs', done, total: inputs.length, records, elapsedMs: Date.now() - t0 }),
+    );
+    const A = '(inputs)';
+    for (const e of read.errors) judge(e.file, 'readable', [{ expected: 'records the reader accepts', found: e.message }]);
+    for (const h of read.headers) judge(h.file, 'header', same(JSON.stringify(plan.columns), JSON.stringify(h.columns)));
+    if (inputs.length === m.input.files.length) {
+      read.perFile.forEach((n, k) => judge(nameInput(inputs[k]!), 'records', same(m.input.files[k]!.records, n)));
+    } else {
+      judge(A, 'records', same(m.input.records, read.records), `${inputs.length} input(s) given, the manifest lists ${m.input.files.length}`);
+    }
+    judge(A, 'rejected', same(m.input.rejected, read.rejected));
+    const fp = read.fingerprint.toHex();
+    judge(A, 'input fingerprint', same(m.input.fingerprint, fp));
+    judge(A, 'output fingerprint', allRead ? same(fp, outFp.toHex()) : [{ expected: fp, found: `${outFp.toHex()} (some parts could not be read)` }]);
+    against = { inputs, records: read.records, rejected: read.rejected, fingerprint: fp, differences: null };
+    const differs = fp !== outFp.toHex() || read.records !== sum(scans.map((s) => s.records)) || !allRead;
+    if (differs) {
+      // Listed from what could be read: a missing part's records show up as missing ones.
+      if (inHashes && outHashes && !inHashes.overflow && !outHashes.overflow) {
+        options.onProgress?.({ stage: 'differences', done: 0, total: 1, records: 0, elapsedMs: Date.now() - t0 });
+        against.differences = await listDifferences(inHashes, outHashes, inputs, parts, dir, plan);
+      } else {
+        const diff = read.records - sum(scans.map((s) => s.records));
+        against.differences = { missing: Math.max(0, diff), extra: Math.max(0, -diff), listed: [], listing: 'counts only' };
+        skip(A, 'differences', `more than ${DIFF_RECORD_LIMIT.toLocaleString('en-US')} records: compare the fingerprints and counts`);
+      }
+      const d = against.differences;
+      if (d.listing === 'listed') {
+        judge(A, 'differences', [
+          ...(d.missing > 0 ? [{ item: 'records missing from the output', expected: 0, found: d.missing }] : []),
+          ...(d.extra > 0 ? [{ item: 'records not in the inputs', expected: 0, found: d.extra }] : []),
+        ]);
+      }
+    }
+  }
+
+  return {
+    ok: mismatches.length === 0,
+    dir,
+    manifestVersion: m.manifestVersion,
+    records: m.output.records,
+    parts: parts.length,
+    checks,
+    mismatches,
+    against,
+  };
+}
+
+function sum(xs: number[]): number {
+  let s = 0;
+  for (const x of xs) s += x;
+  return s;
+}
+
+/** Checks done per part after presence and size (for the "skipped" entries). */
+function partCheckNames(plan: ReadPlan): string[] {
+  return [
+    'bytes',
+    'sha256',
+    'readable',
+    ...(plan.format !== 'jsonl' && plan.header ? ['header'] : []),
+    'records',
+    'strata',
+    ...(plan.folds > 1 ? ['fold values', 'folds', 'fold strata'] : []),
+    'fingerprint',
+  ];
+}
+
+/**
+ * Largest relative deviation of a class's share, over parts and over each split's folds, the
+ * measure the shuffle promised to keep within its tolerance (see core/balance.ts).
+ */
+function computeMaxDeviation(parts: PartRecord[], partStrata: number[][], foldStrata: number[][][], plan: ReadPlan): number {
+  const S = plan.strataCount;
+  const P = parts.length;
+  const partCounts = new Float64Array(P * S);
+  const totals = new Float64Array(S);
+  partStrata.forEach((row, p) => {
+    for (let s = 0; s < S; s++) {
+      partCounts[p * S + s] = row[s] ?? 0;
+      totals[s]! += row[s] ?? 0;
+    }
+  });
+  let worst = maxDeviation(partCounts, P, totals).deviation;
+  const K = plan.folds;
+  if (K > 1) {
+    // Folds are compared within each split: the split's partitions together.
+    const splitOf = new Map<string | null, number>();
+    for (const p of parts) if (!splitOf.has(p.split)) splitOf.set(p.split, splitOf.size);
+    const units = splitOf.size * K;
+    const counts = new Float64Array(units * S);
+    parts.forEach((p, k) => {
+      const base = splitOf.get(p.split)! * K;
+      for (let g = 0; g < K; g++) for (let s = 0; s < S; s++) counts[(base + g) * S + s]! += foldStrata[k]?.[g]?.[s] ?? 0;
+    });
+    worst = Math.max(worst, maxDeviation(counts, units, totals).deviation);
+  }
+  return worst;
+}
+
+// ---- reading the manifest -------------------------------------------------------------------
+
+function loadManifest(dir: string): Manifest {
+  const path = join(dir, 'manifest.json');
+  let text: string;
+  try {
+    text = readFileSync(path, 'utf8');
+  } catch (err) {
+    const code = (err as NodeJS.ErrnoException).code;
+    let folder = true;
+    try {
+      folder = statSync(dir).isDirectory();
+    } catch {
+      folder = false;
+    }
+    if (!folder) throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
+    if (code === 'ENOENT') {
+      throw new RowdeckError('ERR_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
+    }
+    throw new RowdeckError('ERR_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
+  }
+  let raw: unknown;
+  try {
+    raw = JSON.parse(text);
+  } catch (err) {
+    throw new RowdeckError('ERR_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
+  }
+  checkManifestShape(raw, path);
+  return raw;
+}
+
+/**
+ * Checks that the fields verify relies on are there with the right types, so a damaged manifest
+ * gives one clear message instead of a crash halfway. (docs/manifest.schema.json is the full
+ * description; this is its load-bearing subset.)
+ */
+function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest {
+  const fail = (field: string, want: string): never => {
+    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
+  };
+  const obj = (v: unknown, field: string): Record<string, unknown> => (typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Record<string, unknown>) : fail(field, 'an object'));
+  const arr = (v: unknown, field: string): unknown[] => (Array.isArray(v) ? v : fail(field, 'an array'));
+  const count = (v: unknown, field: string): number => (typeof v === 'number' && Number.isSafeInteger(v) && v >= 0 ? v : fail(field, 'a whole number ≥ 0'));
+  const str = (v: unknown, field: string): string => (typeof v === 'string' ? v : fail(field, 'a string'));
+  const hex = (v: unknown, field: string, len: number): string => (typeof v === 'string' && new RegExp(`^[0-9a-f]{${len}}$`).test(v) ? v : fail(field, `${len} lowercase hex digits`));
+  const strings = (v: unknown, field: string): string[] => arr(v, field).map((x, i) => str(x, `${field}[${i}]`));
+
+  const m = obj(raw, '(top level)');
+  if (m.manifestVersion !== 1) {
+    throw new RowdeckError(
+      'ERR_MANIFEST',
+      `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads version 1. ${typeof m.manifestVersion === 'number' && m.manifestVersion > 1 ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
+      { file: path, field: 'manifestVersion' },
+    );
+  }
+  const o = obj(m.options, 'options');
+  if (!['csv', 'tsv', 'jsonl'].includes(o.format as string)) fail('options.format', '"csv", "tsv" or "jsonl"');
+  if (o.delimiter !== null && typeof o.delimiter !== 'string') fail('options.delimiter', 'a string or null');
+  if (typeof o.header !== 'boolean') fail('options.header', 'true or false');
+  strings(o.stratify, 'options.stratify');
+  count(o.folds, 'options.folds');
+  if (typeof o.excludeValues !== 'boolean') fail('options.excludeValues', 'true or false');
+  if (!['fail', 'skip', 'quarantine'].includes(o.onBadRecord as string)) fail('options.onBadRecord', '"fail", "skip" or "quarantine"');
+
+  const input = obj(m.input, 'input');
+  strings(input.columns, 'input.columns');
+  arr(input.files, 'input.files').forEach((f, i) => {
+    const x = obj(f, `input.files[${i}]`);
+    str(x.path, `input.files[${i}].path`);
+    count(x.records, `input.files[${i}].records`);
+  });
+  count(input.records, 'input.records');
+  count(input.rejected, 'input.rejected');
+  if (input.rejectsFile !== null) safePath(str(input.rejectsFile, 'input.rejectsFile'), 'input.rejectsFile', path);
+  hex(input.fingerprint, 'input.fingerprint', 16);
+
+  const strata = obj(m.strata, 'strata');
+  const columns = strings(strata.columns, 'strata.columns');
+  const values = arr(strata.values, 'strata.values');
+  values.forEach((v, i) => {
+    const x = obj(v, `strata.values[${i}]`);
+    count(x.records, `strata.values[${i}].records`);
+    if (x.value !== null) {
+      const vals = arr(x.value, `strata.values[${i}].value`);
+      if (vals.length !== columns.length) fail(`strata.values[${i}].value`, `an array of ${columns.length} value(s), one per column of strata.columns`);
+      vals.forEach((y, j) => y !== null && str(y, `strata.values[${i}].value[${j}]`));
+    }
+  });
+  arr(strata.bins, 'strata.bins').forEach((b, i) => {
+    const x = obj(b, `strata.bins[${i}]`);
+    str(x.column, `strata.bins[${i}].column`);
+    arr(x.edges, `strata.bins[${i}].edges`).forEach((e, j) => typeof e === 'number' || fail(`strata.bins[${i}].edges[${j}]`, 'a number'));
+  });
+  if (strings(o.stratify, 'options.stratify').length !== columns.length) fail('options.stratify', `a list as long as strata.columns (${columns.length})`);
+
+  const balance = obj(m.balance, 'balance');
+  if (typeof balance.tolerance !== 'number') fail('balance.tolerance', 'a number');
+  if (typeof balance.maxDeviation !== 'number') fail('balance.maxDeviation', 'a number');
+
+  const output = obj(m.output, 'output');
+  count(output.records, 'output.records');
+  hex(output.fingerprint, 'output.fingerprint', 16);
+  if (output.foldColumn !== null) str(output.foldColumn, 'output.foldColumn');
+  if ((o.folds as number) > 1 && output.foldColumn === null) fail('output.foldColumn', `a column name (options.folds is ${String(o.folds)})`);
+  const parts = arr(output.parts, 'output.parts');
+  if (parts.length === 0) fail('output.parts', 'a non-empty array');
+  parts.forEach((p, i) => {
+    const f = `output.parts[${i}]`;
+    const x = obj(p, f);
+    safePath(str(x.path, `${f}.path`), `${f}.path`, path);
+    if (x.split !== null) str(x.split, `${f}.split`);
+    count(x.records, `${f}.records`);
+    count(x.bytes, `${f}.bytes`);
+    hex(x.sha256, `${f}.sha256`, 64);
+    hex(x.fingerprint, `${f}.fingerprint`, 16);
+    arr(x.strata, `${f}.strata`).forEach((n, j) => count(n, `${f}.strata[${j}]`));
+    if (x.folds !== null) arr(x.folds, `${f}.folds`).forEach((n, j) => count(n, `${f}.folds[${j}]`));
+    if (x.foldStrata !== null) arr(x.foldStrata, `${f}.foldStrata`).forEach((row, g) => arr(row, `${f}.foldStrata[${g}]`).forEach((n, j) => count(n, `${f}.foldStrata[${g}][${j}]`)));
+  });
+}
+
+/** A part path must stay inside the folder: verify reads only what the run wrote. */
+function safePath(p: string, field: string, path: string): void {
+  if (p === '' || isAbsolute(p) || normalize(p).split(/[\\/]/).includes('..')) {
+    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
+  }
+}
+
+function describeStratum(columns: string[], value: (string | null)[] | null, index: number): string {
+  if (value === null) return `stratum #${index + 1}`;
+  if (columns.length === 0) return 'all records';
+  return columns.map((c, i) => `${c}=${value[i] === null || value[i] === undefined ? '(missing)' : JSON.stringify(value[i])}`).join(', ');
+}
+
+function createReadPlan(m: Manifest): ReadPlan {
+  const o = m.options as { format: InputFormat; delimiter: string | null; header: boolean; stratify: string[]; folds: number };
+  const columns = m.strata.columns;
+  const bins = columns.map((c, w) => {
+    // "COL:bins=Q" in the options marks a binned column; its edges are in strata.bins.
+    if (o.stratify[w] === c) return null;
+    return m.strata.bins.find((b) => b.column === c)?.edges ?? null;
+  });
+  const withheld = columns.length > 0 && m.strata.values.some((v) => v.value === null);
+  let strataIndex: Map<string, number> | null = null;
+  if (!withheld) {
+    strataIndex = new Map();
+    m.strata.values.forEach((v, i) => {
+      const key = (v.value ?? []).map((x) => (x === null ? MISSING_KEY : Buffer.from(x, 'utf8').toString('latin1'))).join(TUPLE_SEP);
+      strataIndex!.set(key, i);
+    });
+  }
+  const delimiter = o.delimiter ?? undefined;
+  return {
+    format: o.format,
+    delimiter,
+    delimiterByte: (delimiter ?? (o.format === 'tsv' ? '\t' : ',')).charCodeAt(0),
+    header: o.header,
+    columns: m.input.columns,
+    stratify: columns,
+    bins,
+    strataIndex,
+    strataCount: m.strata.values.length,
+    strataLabels: m.strata.values.map((v, i) => describeStratum(columns, withheld ? null : v.value, i)),
+    folds: Math.max(1, o.folds),
+    foldColumn: m.output.foldColumn,
+  };
+}
+
+// ---- reading records --------------------------------------------------------------------------
+
+/** Canonical stratum key of record i, built exactly as the scatter stage builds it. */
+function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): string {
+  let k = '';
+  for (let w = 0; w < plan.stratify.length; w++) {
+    const edges = plan.bins[w];
+    let part: string;
+    if (!edges) part = fieldKey(b, i, w);
+    else {
+      const v = parseBinValue(fieldText(b, i, w), plan.stratify[w]!, file, b.line[i]!);
+      part = v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
+    }
+    k += (w ? TUPLE_SEP : '') + part;
+  }
+  return k;
+}
+
+function labelOfKey(plan: ReadPlan, key: string): string {
+  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
+  return describeStratum(plan.stratify, vals, -1);
+}
+
+const DIGIT_0 = 0x30;
+const DIGIT_9 = 0x39;
+
+/**
+ * Where the record's own bytes end and its fold, undoing exactly what the gather stage added:
+ * CSV/TSV `<delimiter><fold>` at the end; JSON Lines `,"<name>":<fold>` (no comma in an empty
+ * object) before the closing brace. Returns null when the record does not carry that field.
+ */
+function splitFold(d: Buffer, s: number, e: number, plan: ReadPlan, nameBytes: Buffer): { fold: number; text: string; cutStart: number; cutEnd: number } | null {
+  if (plan.format !== 'jsonl') {
+    let ds = e;
+    while (ds > s && d[ds - 1]! >= DIGIT_0 && d[ds - 1]! <= DIGIT_9) ds--;
+    if (ds === e || ds - 1 < s || d[ds - 1] !== plan.delimiterByte) return null;
+    const text = d.toString('latin1', ds, e);
+    return { fold: Number(text), text, cutStart: ds - 1, cutEnd: e };
+  }
+  let close = e - 1;
+  while (close > s && d[close] !== 0x7d) close--;
+  if (d[close] !== 0x7d) return null;
+  let ds = close;
+  while (ds > s && d[ds - 1]! >= DIGIT_0 && d[ds - 1]! <= DIGIT_9) ds--;
+  if (ds === close) return null;
+  const fs = ds - nameBytes.length;
+  if (fs < s || !d.subarray(fs, ds).equals(nameBytes)) return null;
+  const text = d.toString('latin1', ds, close);
+  return { fold: Number(text), text, cutStart: fs > s && d[fs - 1] === 0x2c ? fs - 1 : fs, cutEnd: close };
+}
+
+/** A record's own bytes (the fold field cut out), hashed like the shuffle's fingerprint. */
+class RecordHasher {
+  #scratch = Buffer.alloc(4096);
+
+  hash(d: Buffer, s: number, e: number, cut: { cutStart: number; cutEnd: number } | null): Uint32Array {
+    if (cut === null) return hashBytes(FINGERPRINT_SECRET, d, s, e);
+    if (cut.cutEnd === e) return hashBytes(FINGERPRINT_SECRET, d, s, cut.cutStart);
+    const n = cut.cutStart - s + (e - cut.cutEnd);
+    if (this.#scratch.length < n) this.#scratch = Buffer.alloc(Math.max(n, this.#scratch.length * 2));
+    d.copy(this.#scratch, 0, s, cut.cutStart);
+    d.copy(this.#scratch, cut.cutStart - s, cut.cutEnd, e);
+    return hashBytes(FINGERPRINT_SECRET, this.#scratch, 0, n);
+  }
+
+  text(d: Buffer, s: number, e: number, cut: { cutStart: number; cutEnd: number } | null): string {
+    const b = cut === null ? d.subarray(s, e) : Buffer.concat([d.subarray(s, cut.cutStart), d.subarray(cut.cutEnd, e)]);
+    const t = b.toString('utf8');
+    return t.length > RECORD_TEXT_LIMIT ? t.slice(0, RECORD_TEXT_LIMIT) + '…' : t;
+  }
+}
+
+/** Bytes of a file, hashed (sha256) and counted as they stream past. */
+async function* hashStream(path: string, sink: { hash: ReturnType<typeof createHash>; bytes: number }): AsyncGenerator<Buffer> {
+  for await (const chunk of createReadStream(path, { highWaterMark: 1 << 20 })) {
+    const b = chunk as Buffer;
+    sink.hash.update(b);
+    sink.bytes += b.length;
+    yield b;
+  }
+}
+
+async function hashFile(path: string): Promise<{ bytes: number; sha256: string }> {
+  const sink = { hash: createHash('sha256'), bytes: 0 };
+  for await (const _ of hashStream(path, sink)) void _;
+  return { bytes: sink.bytes, sha256: sink.hash.digest('hex') };
+}
+
+/**
+ * Feeds a source through a record reader, batch by batch. A part or input with no records is
+ * not an error here (the counts say whether it should have had some).
+ */
+async function readAll(source: string | Readable, reader: RecordReader, onBatch: (b: RecordBatch) => void): Promise<void> {
+  try {
+    for await (const chunk of openInput(source)) {
+      const b = reader.push(chunk);
+      if (b) onBatch(b);
+    }
+    const b = reader.end();
+    if (b) onBatch(b);
+  } catch (err) {
+    if (err instanceof RowdeckError && (err.code === 'ERR_INPUT_EMPTY' || err.code === 'ERR_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
+    throw err;
+  }
+}
+
+async function scanPart(path: string, display: string, plan: ReadPlan, hashes: HashList | null): Promise<PartScan> {
+  const S = plan.strataCount;
+  const K = plan.folds;
+  const scan: PartScan = {
+    present: true,
+    bytes: 0,
+    sha256: '',
+    readError: null,
+    columns: null,
+    records: 0,
+    strata: new Float64Array(S),
+    folds: new Float64Array(K),
+    foldStrata: new Float64Array(K * S),
+    unknown: new Map(),
+    badFold: null,
+    fingerprint: new Fingerprint(),
+  };
+  try {
+    if (!statSync(path).isFile()) scan.present = false;
+  } catch {
+    scan.present = false;
+  }
+  if (!scan.present) return scan;
+
+  const sink = { hash: createHash('sha256'), bytes: 0 };
+  const reader = new RecordReader({
+    format: plan.format,
+    ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
+    header: plan.header,
+    wanted: plan.stratify,
+    file: display,
+    onBadRecord: 'fail',
+  });
+  const hasher = new RecordHasher();
+  const nameBytes = Buffer.from(plan.foldColumn !== null ? `${JSON.stringify(plan.foldColumn)}:` : '', 'utf8');
+  try {
+    await readAll(Readable.from(hashStream(path, sink)), reader, (b) => {
+      const d = b.data;
+      for (let i = 0; i < b.count; i++) {
+        const s = b.start[i]!;
+        const e = b.end[i]!;
+        let cut: { fold: number; text: string; cutStart: number; cutEnd: number } | null = null;
+        let fold = 0;
+        if (K > 1) {
+          cut = splitFold(d, s, e, plan, nameBytes);
+          const ok = cut !== null && cut.fold < K && String(cut.fold) === cut.text;
+          if (ok) fold = cut!.fold;
+          else {
+            if (scan.badFold === null) scan.badFold = { count: 0, line: b.line[i]!, text: cut === null ? 'no fold column' : JSON.stringify(cut.text) };
+            scan.badFold.count++;
+            fold = -1;
+          }
+        }
+        const h = hasher.hash(d, s, e, cut);
+        scan.fingerprint.addHash(h[0]!, h[1]!);
+        hashes?.add(h[0]!, h[1]!);
+        scan.records++;
+        if (fold >= 0) scan.folds[fold]!++;
+        if (plan.strataIndex === null) continue;
+        const key = stratumKey(plan, b, i, display);
+        const st = plan.strataIndex.get(key) ?? -1;
+        if (st < 0) {
+          const label = labelOfKey(plan, key);
+          const u = scan.unknown.get(label);
+          if (u) u.count++;
+          else scan.unknown.set(label, { count: 1, line: b.line[i]! });
+          continue;
+        }
+        scan.strata[st]!++;
+        if (fold >= 0) scan.foldStrata[fold * S + st]!++;
+      }
+    });
+    scan.bytes = sink.bytes;
+    scan.sha256 = sink.hash.digest('hex');
+  } catch (err) {
+    if (!(err instanceof RowdeckError)) throw ioError(err, display, 'reading');
+    scan.readError = err.message;
+    // The parse stopped early: hash the whole file on its own so size and sha256 still count.
+    const whole = await hashFile(path);
+    scan.bytes = whole.bytes;
+    scan.sha256 = whole.sha256;
+  }
+  scan.columns = plan.format !== 'jsonl' && plan.header ? (reader.schema?.columns ?? null) : null;
+  return scan;
+}
+
+/** Records in rejected.csv (a CSV with a header row), or null when the file is missing. */
+async function countRejects(path: string): Promise<number | null> {
+  try {
+    statSync(path);
+  } catch {
+    return null;
+  }
+  const reader = new RecordReader({ format: 'csv', header: true, wanted: [], file: path, onBadRecord: 'fail' });
+  let n = 0;
+  await readAll(path, reader, (b) => (n += b.count));
+  return n;
+}
+
+interface InputScan {
+  records: number;
+  rejected: number;
+  perFile: number[];
+  fingerprint: Fingerprint;
+  errors: { file: string; message: string }[];
+  headers: { file: string; columns: string[] }[];
+}
+
+async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | null, progress: (done: number, records: number) => void): Promise<InputScan> {
+  const res: InputScan = { records: 0, rejected: 0, perFile: [], fingerprint: new Fingerprint(), errors: [], headers: [] };
+  for (let k = 0; k < inputs.length; k++) {
+    const path = inputs[k]!;
+    const file = nameInput(path);
+    if (path !== '-') {
+      try {
+        statSync(path);
+      } catch (err) {
+        throw ioError(err, path, 'reading');
+      }
+    }
+    const reader = new RecordReader({
+      format: plan.format,
+      ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
+      header: plan.header,
+      wanted: [],
+      file,
+      onBadRecord: 'skip',
+      onReject: () => {},
+    });
+    let n = 0;
+    try {
+      await readAll(path, reader, (b) => {
+        for (let i = 0; i < b.count; i++) {
+          const h = hashBytes(FINGERPRINT_SECRET, b.data, b.start[i]!, b.end[i]!);
+          res.fingerprint.addHash(h[0]!, h[1]!);
+          hashes?.add(h[0]!, h[1]!);
+        }
+        n += b.count;
+      });
+    } catch (err) {
+      if (!(err instanceof RowdeckError)) throw err;
+      if (err.code === 'ERR_INPUT_NOT_FOUND') throw err;
+      res.errors.push({ file, message: err.message });
+    }
+    if (plan.format !== 'jsonl' && plan.header && reader.schema) res.headers.push({ file, columns: reader.schema.columns });
+    res.records += n;
+    res.rejected += reader.stats.rejected;
+    res.perFile.push(n);
+    progress(k + 1, res.records);
+  }
+  return res;
+}
+
+/**
+ * The records that differ, found from the two sorted hash lists, then located (file:line and
+ * text) by reading the inputs and parts once more. Only runs when a check already failed.
+ */
+async function listDifferences(inHashes: HashList, outHashes: HashList, inputs: string[], parts: PartRecord[], dir: string, plan: ReadPlan): Promise<NonNullable<VerifyAgainst['differences']>> {
+  const a = inHashes.sorted();
+  const b = outHashes.sorted();
+  const missing = new Map<string, { left: number; input: number; output: number }>();
+  const extra = new Map<string, { left: number; input: number; output: number }>();
+  let nMissing = 0;
+  let nExtra = 0;
+  let i = 0;
+  let j = 0;
+  const na = a.big.length;
+  const nb = b.big.length;
+  while (i < na || j < nb) {
+    const va = i < na ? a.big[i]! : null;
+    const vb = j < nb ? b.big[j]! : null;
+    const v = va === null ? vb! : vb === null ? va : va < vb ? va : vb;
+    const i0 = i;
+    const j0 = j;
+    while (i < na && a.big[i] === v) i++;
+    while (j < nb && b.big[j] === v) j++;
+    const ca = i - i0;
+    const cb = j - j0;
+    if (ca === cb) continue;
+    const words = ca > 0 ? a.words : b.words;
+    const at = ca > 0 ? i0 : j0;
+    const key = hashKey(words[2 * at + 1]!, words[2 * at]!);
+    if (ca > cb) {
+      nMissing += ca - cb;
+      if (missing.size < DIFF_TRACK_LIMIT) missing.set(key, { left: ca - cb, input: ca, output: cb });
+    } else {
+      nExtra += cb - ca;
+      if (extra.size < DIFF_TRACK_LIMIT) extra.set(key, { left: cb - ca, input: ca, output: cb });
+    }
+  }
+  const listed: RecordDifference[] = [];
+  const hasher = new RecordHasher();
+  if (missing.size > 0) {
+    let found = 0;
+    for (const path of inputs) {
+      if (found >= DIFF_LIST_LIMIT) break;
+      const file = nameInput(path);
+      const reader = new RecordReader({
+        format: plan.format,
+        ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
+        header: plan.header,
+        wanted: [],
+        file,
+        onBadRecord: 'skip',
+        onReject: () => {},
+      });
+      try {
+        await readAll(path, reader, (bt) => {
+          for (let r = 0; r < bt.count && found < DIFF_LIST_LIMIT; r++) {
+            const h = hashBytes(FINGERPRINT_SECRET, bt.data, bt.start[r]!, bt.end[r]!);
+            const e = missing.get(hashKey(h[0]!, h[1]!));
+            if (!e || e.left === 0) continue;
+            e.left--;
+            found++;
+            listed.push({ kind: 'missing', file, line: bt.line[r]!, record: hasher.text(bt.data, bt.start[r]!, bt.end[r]!, null), copies: { input: e.input, output: e.output } });
+          }
+        });
+      } catch (err) {
+        if (!(err instanceof RowdeckError)) throw err;
+      }
+    }
+  }
+  if (extra.size > 0) {
+    let found = 0;
+    const nameBytes = Buffer.from(plan.foldColumn !== null ? `${JSON.stringify(plan.foldColumn)}:` : '', 'utf8');
+    for (const p of parts) {
+      if (found >= DIFF_LIST_LIMIT) break;
+      const reader = new RecordReader({
+        format: plan.format,
+        ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
+        header: plan.header,
+        wanted: [],
+        file: p.path,
+        onBadRecord: 'fail',
+      });
+      try {
+        await readAll(join(dir, p.path), reader, (bt) => {
+          for (let r = 0; r < bt.count && found < DIFF_LIST_LIMIT; r++) {
+            const s = bt.start[r]!;
+            const e = bt.end[r]!;
+            const cut = plan.folds > 1 ? splitFold(bt.data, s, e, plan, nameBytes) : null;
+            const h = hasher.hash(bt.data, s, e, cut);
+            const x = extra.get(hashKey(h[0]!, h[1]!));
+            if (!x || x.left === 0) continue;
+            x.left--;
+            found++;
+            listed.push({ kind: 'extra', file: p.path, line: bt.line[r]!, record: hasher.text(bt.data, s, e, cut), copies: { input: x.input, output: x.output } });
+          }
+        });
+      } catch (err) {
+        if (!(err instanceof RowdeckError)) throw err;
+      }
+    }
+  }
+  return { missing: nMissing, extra: nExtra, listed, listing: 'listed' };
+}
