@@ -12,7 +12,7 @@ import { TableStats, type SerializedStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
 import { splitRecordFields } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { HEADER_BYTES, HEADER_WORDS, viewBucket } from './spill.js';
+import { HEADER_BYTES, HEADER_WORDS } from './spill.js';
 
 export interface GatherTask {
   bucket: number;
@@ -40,6 +40,8 @@ export interface GatherResult {
   fingerprints: { hi: number; lo: number; count: number }[];
   /** Per-part column statistics (exact and mergeable), or null when disabled. */
   stats: SerializedStats[] | null;
+  /** With ROWDECK_PHASES=1: milliseconds spent in load, sort, deal, copy. */
+  phases?: number[];
 }
 
 export interface GroupTable {
@@ -116,6 +118,9 @@ function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
   return Buffer.from(`${empty ? '' : ','}${JSON.stringify(name)}:${fold}`, 'utf8');
 }
 
+/** Set ROWDECK_PHASES=1 to time the phases of gatherBucket (read, index, sort, deal, copy). */
+const PHASES = process.env.ROWDECK_PHASES === '1';
+
 export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult {
   const { plan, table } = prep;
   const K = plan.deal.folds;
@@ -132,6 +137,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   const eolLen = plan.lineEnding.length;
   const jsonFoldBase = isJson && foldCol ? Buffer.byteLength(JSON.stringify(plan.foldColumn)) + 2 : 0;
   const foldLen = Int32Array.from({ length: K }, (_, f) => (foldCol ? (isJson ? jsonFoldBase : 1) + String(f).length : 0));
+  const t0 = PHASES ? performance.now() : 0;
   const sizes = task.paths.map((p) => {
     try {
       return statSync(p).size;
@@ -170,141 +176,61 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
       pieceEnds.push(at);
     });
   }
-  const view = viewBucket(buf.subarray(0, spillBytes));
-  const n = view.count;
-  const { u32, at } = view;
-
-  // Dealing stratum of every record (storage order), through its scatter task's id map.
-  const stratumOfRec = new Uint32Array(n);
-  {
-    let i = 0;
-    let wordEnd = 0;
-    for (let t = 0; t < pieceEnds.length; t++) {
-      wordEnd = pieceEnds[t]! >>> 2;
-      const map = Int32Array.from(plan.localToGlobal[t]!);
-      for (; i < n && at[i]! < wordEnd; i++) stratumOfRec[i] = map[u32[at[i]! + 4]!]!;
-    }
-  }
-
-  const keyHi = new Uint32Array(n);
-  const keyLo = new Uint32Array(n);
-  for (let i = 0; i < n; i++) {
-    const w = at[i]!;
-    keyHi[i] = u32[w]!;
-    keyLo[i] = u32[w + 1]!;
-  }
+  const T = PHASES ? [t0, performance.now()] : null;
+  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
+  const ix: BucketIndex = {
+    u32: new Uint32Array(arena, 0, spillBytes >>> 2),
+    at: scratch(0, maxRecords),
+    keyHi: scratch(1, maxRecords),
+    keyLo: scratch(2, maxRecords),
+    lenTerm: scratch(3, maxRecords),
+    stratum: scratch(4, maxRecords),
+    count: 0,
+  };
+  indexBucket(ix, pieceEnds, plan.localToGlobal);
+  const n = ix.count;
+  T?.push(performance.now());
+  const { u32, at, keyHi, keyLo } = ix;
   const order = sortByKey({ keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) }, n, plan.bits);
+  T?.push(performance.now());
 
-  // Deal: cell of every record, visiting records in key order (ranks follow key order).
-  const cellOfRec = new Uint32Array(n);
-  if (plan.mode === 'exact') {
-    const seen = Float64Array.from(task.rankStart);
-    // t -> cell id within a split, so the hot loop does one modulo and two lookups.
-    const cycle = new Int32Array(M);
-    for (let t = 0; t < M; t++) {
-      const c = cellOf(t, P, K);
-      cycle[t] = c.partition * K + c.fold;
-    }
-    const { offset, cumQuota } = table;
-    for (let k = 0; k < n; k++) {
-      const i = order[k]!;
-      const s = stratumOfRec[i]!;
-      const rank = seen[s]!;
-      seen[s] = rank + 1;
-      let split = 0;
-      const base = s * (S + 1);
-      while (split < S - 1 && rank >= cumQuota[base + split + 1]!) split++;
-      const j = offset[s * S + split]! + (rank - cumQuota[base + split]!);
-      cellOfRec[i] = split * M + cycle[j % M]!;
-    }
-  } else if (plan.mode === 'hash') {
-    for (let i = 0; i < n; i++) cellOfRec[i] = hashCell(prep, keyHi[i]!, keyLo[i]!);
-  } else {
-    const groups = prep.groups!;
-    for (let k = 0; k < n; k++) {
-      const i = order[k]!;
-      cellOfRec[i] = findGroupCell(groups, keyHi[i]!, keyLo[i]!);
-    }
-  }
-
-  // Storage-order pass (sequential reads): per-part sizes, counts and fingerprints.
+  // Each record's cell, in key order (its rank within its stratum follows key order).
+  const cellOfRec = scratch(5, n);
+  if (plan.mode === 'exact') dealExact(order, n, ix.stratum, Float64Array.from(task.rankStart), table, cellOfRec);
+  else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashCell(prep, keyHi[i]!, keyLo[i]!);
+  else for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(prep.groups!, keyHi[i]!, keyLo[i]!);
+  const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
   const counts = new Float64Array(parts * K * strata);
-  const fps = Array.from({ length: parts }, () => new Fingerprint());
-  const recSize = new Uint32Array(n);
-  const lenTerm = new Uint32Array(n);
-  const stats = plan.statsColumns.length > 0 ? Array.from({ length: parts }, () => new TableStats(plan.statsColumns)) : null;
-  const addStats = stats ? createStatsFeeder(plan) : null;
-  for (let i = 0; i < n; i++) {
-    const w = at[i]!;
-    const lt = u32[w + 5]!;
-    lenTerm[i] = lt;
-    const len = lt >>> 2;
-    const term = lt & 3;
-    const cell = cellOfRec[i]!;
-    const part = (cell / K) | 0;
-    const fold = cell - part * K;
-    let size = len + (term === 0 ? eolLen : term) + foldLen[fold]!;
-    // An empty JSON object takes the fold field without a comma.
-    if (isJson && foldCol && isEmptyObject(bytes, w * 4 + HEADER_BYTES, len)) size--;
-    recSize[i] = size;
-    partBytes[part]! += size;
-    counts[cell * strata + stratumOfRec[i]!]!++;
-    fps[part]!.addAligned(u32, w + HEADER_WORDS, len);
-    if (addStats) addStats(stats![part]!, buf, w * 4 + HEADER_BYTES, len);
-  }
+  sizeRecords(ix, cellOfRec, K, strata, eolLen, foldLen, isJson && foldCol ? bytes : null, recSize, partBytes, counts);
+  T?.push(performance.now());
 
   const partStart = new Float64Array(parts + 1);
   partStart[0] = spillBytes;
   for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!;
 
   // Key-order pass: each part's bytes are written front to back (sequential writes, random
-  // reads; measured about four times faster than the other way round).
-  const fill = Float64Array.from(partStart.subarray(0, parts));
-  const eol = Buffer.from(plan.lineEnding, 'latin1');
-  const foldBytes = foldCol ? Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1'))) : [];
-  for (let k = 0; k < n; k++) {
-    const i = order[k]!;
-    const cell = cellOfRec[i]!;
-    const part = (cell / K) | 0;
-    const lt = lenTerm[i]!;
-    const len = lt >>> 2;
-    const term = lt & 3;
-    const cs = at[i]! * 4 + HEADER_BYTES;
-    let pos = fill[part]!;
-    fill[part] = pos + recSize[i]!;
-    if (foldCol) {
-      const fb = foldBytes[cell - part * K]!;
-      if (isJson) {
-        // Insert the fold field before the record's closing brace (trailing spaces stay after it).
-        let close = cs + len - 1;
-        while (close > cs && bytes[close] !== 0x7d) close--;
-        let prev = close - 1;
-        while (prev > cs && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
-        bytes.copyWithin(pos, cs, close);
-        pos += close - cs;
-        // An empty object takes the field without its leading comma.
-        for (let b = bytes[prev] === 0x7b ? 1 : 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
-        bytes.copyWithin(pos, close, cs + len);
-        pos += cs + len - close;
-      } else {
-        bytes.copyWithin(pos, cs, cs + len);
-        pos += len;
-        for (let b = 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
-      }
-    } else {
-      bytes.copyWithin(pos, cs, cs + len);
-      pos += len;
-    }
-    if (term === 1) bytes[pos] = 0x0a;
-    else if (term === 2) {
-      bytes[pos] = 0x0d;
-      bytes[pos + 1] = 0x0a;
-    } else for (let b = 0; b < eolLen; b++) bytes[pos + b] = eol[b]!;
+  // reads; measured several times faster than the other way round). The fingerprint and the
+  // statistics read the record while the copy has it in cache.
+  const fps = Array.from({ length: parts }, () => new Fingerprint());
+  const stats = plan.statsColumns.length > 0 ? Array.from({ length: parts }, () => new TableStats(plan.statsColumns)) : null;
+  // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
+  const fill = Int32Array.from(partStart.subarray(0, parts));
+  if (!foldCol) copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n');
+  else {
+    const foldBytes = Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1')));
+    copyWithFold(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding, foldBytes, isJson);
   }
+  T?.push(performance.now());
+  fingerprintParts(ix, n, cellOfRec, K, fps);
+  if (stats) {
+    const addStats = createStatsFeeder(plan);
+    for (let i = 0; i < n; i++) addStats(stats[(cellOfRec[i]! / K) | 0]!, buf, ix.at[i]! * 4 + HEADER_BYTES, ix.lenTerm[i]! >>> 2);
+  }
+  T?.push(performance.now());
   const data = new Uint8Array(arena, spillBytes, partStart[parts]! - spillBytes);
   for (let p = 0; p <= parts; p++) partStart[p]! -= spillBytes;
-  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), stats: stats ? stats.map((t) => t.toJSON()) : null };
+  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), stats: stats ? stats.map((t) => t.toJSON()) : null, ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
 }
 
 /**
@@ -340,6 +266,183 @@ function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: 
     for (let c = 0; c < n; c++) t.addField(c, b, fs[c]!, fe[c]!, fk[c]! as FieldKind);
     t.addRecordDone();
   };
+}
+
+interface BucketIndex {
+  u32: Uint32Array;
+  /** Word index of each record's header. */
+  at: Uint32Array;
+  keyHi: Uint32Array;
+  keyLo: Uint32Array;
+  /** Content length << 2 | terminator. */
+  lenTerm: Uint32Array;
+  /** Dealing stratum. */
+  stratum: Uint32Array;
+  count: number;
+}
+
+/** One walk over the headers of every scatter task's piece of the bucket. */
+function indexBucket(ix: BucketIndex, pieceEnds: number[], localToGlobal: number[][]): void {
+  const { u32, at, keyHi, keyLo, lenTerm, stratum } = ix;
+  let n = 0;
+  let w = 0;
+  for (let t = 0; t < pieceEnds.length; t++) {
+    const wordEnd = pieceEnds[t]! >>> 2;
+    const map = Int32Array.from(localToGlobal[t]!);
+    while (w < wordEnd) {
+      const lt = u32[w + 5]!;
+      at[n] = w;
+      keyHi[n] = u32[w]!;
+      keyLo[n] = u32[w + 1]!;
+      stratum[n] = map[u32[w + 4]!]!;
+      lenTerm[n] = lt;
+      n++;
+      w += HEADER_WORDS + (((lt >>> 2) + 3) >>> 2);
+    }
+  }
+  ix.count = n;
+}
+
+/** Exact dealing: rank within stratum -> split block -> position in the split's cycle -> cell. */
+function dealExact(order: Uint32Array, n: number, stratum: Uint32Array, seen: Float64Array, table: DealTable, cellOfRec: Uint32Array): void {
+  const { partitions: P, folds: K } = table.spec;
+  const S = table.spec.splits.length;
+  const M = P * K;
+  const cycle = new Int32Array(M);
+  for (let t = 0; t < M; t++) {
+    const c = cellOf(t, P, K);
+    cycle[t] = c.partition * K + c.fold;
+  }
+  const { offset, cumQuota } = table;
+  for (let k = 0; k < n; k++) {
+    const i = order[k]!;
+    const s = stratum[i]!;
+    const rank = seen[s]!;
+    seen[s] = rank + 1;
+    let split = 0;
+    const base = s * (S + 1);
+    while (split < S - 1 && rank >= cumQuota[base + split + 1]!) split++;
+    const j = offset[s * S + split]! + (rank - cumQuota[base + split]!);
+    cellOfRec[i] = split * M + cycle[j % M]!;
+  }
+}
+
+/** Output size of every record, bytes per part, and counts per (part, fold, stratum). */
+function sizeRecords(
+  ix: BucketIndex,
+  cellOfRec: Uint32Array,
+  K: number,
+  strata: number,
+  eolLen: number,
+  foldLen: Int32Array,
+  jsonBytes: Uint8Array | null,
+  recSize: Uint32Array,
+  partBytes: Float64Array,
+  counts: Float64Array,
+): void {
+  const { lenTerm, stratum, at } = ix;
+  for (let i = 0; i < ix.count; i++) {
+    const cell = cellOfRec[i]!;
+    const part = (cell / K) | 0;
+    const lt = lenTerm[i]!;
+    const term = lt & 3;
+    let size = (lt >>> 2) + (term === 0 ? eolLen : term) + foldLen[cell - part * K]!;
+    // An empty JSON object takes the fold field without a comma.
+    if (jsonBytes && isEmptyObject(jsonBytes, at[i]! * 4 + HEADER_BYTES, lt >>> 2)) size--;
+    recSize[i] = size;
+    partBytes[part]! += size;
+    counts[cell * strata + stratum[i]!]!++;
+  }
+}
+
+/** The common case: copy each record and its line end, nothing added. */
+function copyPlain(ix: BucketIndex, order: Uint32Array, n: number, cellOfRec: Uint32Array, K: number, fill: Int32Array, recSize: Uint32Array, bytes: Uint8Array, crlfDefault: boolean): void {
+  const { at, lenTerm } = ix;
+  for (let k = 0; k < n; k++) {
+    const i = order[k]!;
+    const part = (cellOfRec[i]! / K) | 0;
+    const pos = fill[part]!;
+    fill[part] = pos + recSize[i]!;
+    const lt = lenTerm[i]!;
+    const len = lt >>> 2;
+    const cs = at[i]! * 4 + HEADER_BYTES;
+    bytes.copyWithin(pos, cs, cs + len);
+    const term = lt & 3;
+    if (term === 1 || (term === 0 && !crlfDefault)) bytes[pos + len] = 0x0a;
+    else {
+      bytes[pos + len] = 0x0d;
+      bytes[pos + len + 1] = 0x0a;
+    }
+  }
+}
+
+/** Records with the fold column (CSV/TSV) or fold field (JSON Lines) added. */
+function copyWithFold(
+  ix: BucketIndex,
+  order: Uint32Array,
+  n: number,
+  cellOfRec: Uint32Array,
+  K: number,
+  fill: Int32Array,
+  recSize: Uint32Array,
+  bytes: Uint8Array,
+  lineEnding: string,
+  foldBytes: Buffer[],
+  isJson: boolean,
+): void {
+  const { at, lenTerm } = ix;
+  const eol = Buffer.from(lineEnding, 'latin1');
+  for (let k = 0; k < n; k++) {
+    const i = order[k]!;
+    const cell = cellOfRec[i]!;
+    const part = (cell / K) | 0;
+    let pos = fill[part]!;
+    fill[part] = pos + recSize[i]!;
+    const lt = lenTerm[i]!;
+    const len = lt >>> 2;
+    const term = lt & 3;
+    const cs = at[i]! * 4 + HEADER_BYTES;
+    const fb = foldBytes[cell - part * K]!;
+    if (isJson) {
+      // Insert the fold field before the record's closing brace (trailing spaces stay after it).
+      let close = cs + len - 1;
+      while (close > cs && bytes[close] !== 0x7d) close--;
+      let prev = close - 1;
+      while (prev > cs && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
+      bytes.copyWithin(pos, cs, close);
+      pos += close - cs;
+      // An empty object takes the field without its leading comma.
+      for (let b = bytes[prev] === 0x7b ? 1 : 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
+      bytes.copyWithin(pos, close, cs + len);
+      pos += cs + len - close;
+    } else {
+      bytes.copyWithin(pos, cs, cs + len);
+      pos += len;
+      for (let b = 0; b < fb.length; b++) bytes[pos++] = fb[b]!;
+    }
+    if (term === 1) bytes[pos] = 0x0a;
+    else if (term === 2) {
+      bytes[pos] = 0x0d;
+      bytes[pos + 1] = 0x0a;
+    } else for (let b = 0; b < eol.length; b++) bytes[pos + b] = eol[b]!;
+  }
+}
+
+/** Per-part fingerprints of the record contents (storage order: the sum does not care). */
+function fingerprintParts(ix: BucketIndex, n: number, cellOfRec: Uint32Array, K: number, fps: Fingerprint[]): void {
+  const { u32, at, lenTerm } = ix;
+  for (let i = 0; i < n; i++) fps[(cellOfRec[i]! / K) | 0]!.addAligned(u32, at[i]! + HEADER_WORDS, lenTerm[i]! >>> 2);
+}
+
+// Per-record arrays reused from bucket to bucket: a worker deals one bucket after another, and
+// fresh arrays each time cost page faults and collector work.
+const SCRATCH: Uint32Array[] = [];
+function scratch(k: number, count: number): Uint32Array {
+  const have = SCRATCH[k];
+  if (have && have.length >= count) return have.subarray(0, count);
+  const a = new Uint32Array(Math.ceil(count * 1.25) + 16);
+  SCRATCH[k] = a;
+  return a.subarray(0, count);
 }
 
 /** True when the JSON record in bytes [s, s+len) is `{}` (with optional blanks). */

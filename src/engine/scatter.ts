@@ -1,15 +1,24 @@
 /**
- * Stage 1, scatter: stream the inputs, give every record its key, and append it to the spill
- * bucket of its key range. Counts records per (bucket, stratum) for the plan, and collects what
- * group and hash modes need. Runs on the main thread: it is bound by reading and splitting, and
- * the records must be read in order anyway.
+ * Stage 1, scatter: give every record its key and append it to the spill bucket of its key
+ * range; count records per (bucket, stratum) for the plan and collect what group mode needs.
+ *
+ *   main thread: readRecords ──▶ packBatch ──▶ scatter worker k (round robin, ≤ 2 in flight each)
+ *                                                 ScatterTask: key, stratum, BucketWriter
+ *                              ◀── buffer back for reuse
+ *   finish ──▶ each worker closes its spill files, returns counts/strata/groups/fingerprint
+ *
+ * The main thread only reads and splits records; the per-record work runs on the workers. Each
+ * worker is one scatter task with its own spill files and its own local stratum ids; the plan maps
+ * them to one dealing order. Which worker saw which record changes nothing downstream: stage 2
+ * sorts every bucket by key and identity.
  */
+import { Worker } from 'node:worker_threads';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { readRecords } from '../io/input.js';
-import { RowdeckError } from '../errors.js';
+import { fromWire, RowdeckError, type WireError } from '../errors.js';
 import { BucketWriter } from './spill.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
@@ -19,23 +28,33 @@ export const TUPLE_SEP = '\u0100';
 /** More strata than this is almost always a mistake (an ID column given to --stratify). */
 export const MAX_STRATA = 100_000;
 
-export interface ScatterOptions {
+/** What one scatter task needs to know: plain data, so it can be posted to a worker. */
+export interface ScatterTaskConfig {
   inputs: string[];
+  stratify: string[];
+  /** Per stratify column: quantile bin edges, or null for plain values. */
+  bins: (number[] | null)[];
+  key: string[];
+  group: string | null;
+  secret: number[];
+  spillDir: string;
+  task: number;
+  bits: number;
+  bufferBytes: number;
+}
+
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins'> {
   format: InputFormat;
   delimiter: string | undefined;
   header: boolean;
   onBadRecord: BadRecordPolicy;
   onReject: ((r: RejectedRecord) => void) | undefined;
-  stratify: string[];
-  /** Per stratify column: quantile bin edges, or null for plain values. */
   bins?: (number[] | null)[];
-  key: string[];
-  group: string | null;
   secret: Secret;
-  spillDir: string;
-  task: number;
-  bits: number;
-  bufferBytes: number;
+  /** Scatter worker threads; 0 runs the tasks' work on the calling thread. */
+  threads: number;
+  /** Path of the compiled scatter worker module (needed when threads > 0). */
+  workerFile?: string;
   onProgress?: (bytes: number, records: number) => void;
 }
 
@@ -43,18 +62,35 @@ export interface GroupEntry {
   hi: number;
   lo: number;
   size: number;
-  /** Records per local stratum id. */
+  /** Records per stratum id (task-local inside a task result; union ids after merging). */
   strata: Map<number, number>;
+}
+
+/** What one scatter task returns; plain data (posted from a worker). */
+export interface ScatterTaskResult {
+  task: number;
+  /** Local stratum id -> canonical stratum key. */
+  strata: string[];
+  /** `bucketCounts[stratum][bucket]`. */
+  bucketCounts: Float64Array[];
+  bucketBytes: Float64Array;
+  paths: string[];
+  records: number;
+  fingerprint: { hi: number; lo: number; count: number };
+  /** Group mode: [hi, lo, size, stratum, count, stratum, count, …] per group. */
+  groups: number[][] | null;
 }
 
 export interface ScatterResult {
   schema: InputSchema;
-  /** Local stratum id -> canonical stratum key. */
+  /** Union stratum id -> canonical stratum key. */
   strata: string[];
-  /** `bucketCounts[stratum][bucket]`: records. */
+  /** `bucketCounts[stratum][bucket]` over all tasks. */
   bucketCounts: Float64Array[];
-  bucketBytes: Float64Array;
-  bucketPaths: string[];
+  /** Per task: local stratum id -> union stratum id. */
+  taskStrata: number[][];
+  /** Per bucket: its spill file from every task, in task order. */
+  bucketPaths: string[][];
   inputs: { path: string; bytes: number; records: number; rejected: number }[];
   records: number;
   rejected: number;
@@ -152,72 +188,289 @@ class ByteIdTable {
   }
 }
 
-export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
-  const nStrat = o.stratify.length;
-  const nKey = o.key.length;
-  const groupSlot = o.group !== null ? nStrat + nKey : -1;
-  const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
-  const B = 2 ** o.bits;
-  const strataIds = new Map<string, number>();
-  const strata: string[] = [];
-  const bucketCounts: Float64Array[] = [];
-  const fp = new Fingerprint();
-  const writer = new BucketWriter(o.spillDir, o.task, B, o.bufferBytes, fp);
-  const groups = o.group !== null ? new Map<string, GroupEntry>() : null;
-  const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
-  let schema: InputSchema | null = null;
-  let records = 0;
-  let bytesSeen = 0;
-  const keyBuf: Buffer[] = [];
-  const shift = 32 - o.bits;
+/** One scatter task: the per-record work of stage 1 for the batches it is given. */
+export class ScatterTask {
+  readonly #c: ScatterTaskConfig;
+  readonly #secret: Secret;
+  readonly #writer: BucketWriter;
+  readonly #fp = new Fingerprint();
+  readonly #strataIds = new Map<string, number>();
+  readonly #strata: string[] = [];
+  readonly #bucketCounts: Float64Array[] = [];
+  readonly #groups: Map<string, GroupEntry> | null;
+  readonly #fast = new ByteIdTable();
+  readonly #hasBins: boolean;
+  readonly #keyBuf = Buffer.allocUnsafe(4096);
+  #records = 0;
+  #input = 0;
 
-  const fast = new ByteIdTable();
-  const bins = o.bins ?? [];
-  const hasBins = bins.some((x) => x !== null && x !== undefined);
-  const partKey = (b: RecordBatch, i: number, w: number): string => {
-    const edges = bins[w];
+  constructor(c: ScatterTaskConfig) {
+    this.#c = c;
+    this.#secret = Uint32Array.from(c.secret);
+    this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
+    this.#groups = c.group !== null ? new Map() : null;
+    this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
+  }
+
+  #newStratum(k: string): number {
+    const id = this.#strata.length;
+    if (id >= MAX_STRATA) {
+      throw new RowdeckError(
+        'ERR_OPTION',
+        `--stratify ${this.#c.stratify.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
+        { column: this.#c.stratify.join(',') },
+      );
+    }
+    this.#strataIds.set(k, id);
+    this.#strata.push(k);
+    this.#bucketCounts.push(new Float64Array(2 ** this.#c.bits));
+    return id;
+  }
+
+  #partKey(b: RecordBatch, i: number, w: number): string {
+    const edges = this.#c.bins[w];
     if (!edges) return fieldKey(b, i, w);
-    const v = parseBinValue(fieldText(b, i, w), o.stratify[w]!, o.inputs[currentInput]!, b.line[i]!);
+    const v = parseBinValue(fieldText(b, i, w), this.#c.stratify[w]!, this.#c.inputs[this.#input]!, b.line[i]!);
     return v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
-  };
-  let currentInput = 0;
-  const stratumOf = (b: RecordBatch, i: number): number => {
-    if (nStrat === 0) return strata.length ? 0 : newStratum('');
-    if (nStrat === 1 && !hasBins && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
+  }
+
+  #stratumOf(b: RecordBatch, i: number): number {
+    const nStrat = this.#c.stratify.length;
+    if (nStrat === 0) return this.#strata.length ? 0 : this.#newStratum('');
+    if (nStrat === 1 && !this.#hasBins && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
       // Plain field: look its bytes up directly; same key as fieldKey() would build.
       const fs = b.fieldStart[i * b.wanted]!;
       const fe = b.fieldEnd[i * b.wanted]!;
       if (fe > fs && fe - fs <= 64) {
         const h = ByteIdTable.hash(b.data, fs, fe);
-        let id = fast.find(b.data, fs, fe, h);
+        let id = this.#fast.find(b.data, fs, fe, h);
         if (id < 0) {
-          id = strataIds.get(b.data.toString('latin1', fs, fe)) ?? newStratum(b.data.toString('latin1', fs, fe));
-          fast.add(b.data, fs, fe, h, id);
+          const k = b.data.toString('latin1', fs, fe);
+          id = this.#strataIds.get(k) ?? this.#newStratum(k);
+          this.#fast.add(b.data, fs, fe, h, id);
         }
         return id;
       }
     }
-    let k = partKey(b, i, 0);
-    for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + partKey(b, i, w);
-    return strataIds.get(k) ?? newStratum(k);
-  };
-  const newStratum = (k: string): number => {
-    {
-      const id = strata.length;
-      if (id >= MAX_STRATA) {
-        throw new RowdeckError(
-          'ERR_OPTION',
-          `--stratify ${o.stratify.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
-          { column: o.stratify.join(',') },
-        );
-      }
-      strataIds.set(k, id);
-      strata.push(k);
-      bucketCounts.push(new Float64Array(B));
-      return id;
-    }
-  };
+    let k = this.#partKey(b, i, 0);
+    for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + this.#partKey(b, i, w);
+    return this.#strataIds.get(k) ?? this.#newStratum(k);
+  }
 
+  addBatch(batch: RecordBatch, input: number): void {
+    this.#input = input;
+    const c = this.#c;
+    const nStrat = c.stratify.length;
+    const nKey = c.key.length;
+    const groupSlot = c.group !== null ? nStrat + nKey : -1;
+    const shift = 32 - c.bits;
+    const writer = this.#writer;
+    const d = batch.data;
+    const n = batch.count;
+    if (n > 0) writer.stage(d, batch.start[0]!, batch.next[n - 1]!);
+    for (let i = 0; i < n; i++) {
+      const s = batch.start[i]!;
+      const e = batch.end[i]!;
+      const term = batch.next[i]! - e;
+      const offset = batch.offset[i]!;
+      let h: Uint32Array;
+      if (groupSlot >= 0 || nKey > 0) {
+        // Keys from column values: equal values, equal keys, wherever the record sits.
+        let text = '';
+        if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
+        else for (let w = 0; w < nKey; w++) text += (w ? TUPLE_SEP : '') + fieldKey(batch, i, nStrat + w);
+        const kb = this.#keyBuf;
+        const len = kb.write(text, 0, 'latin1');
+        h = len < kb.length ? hashBytes(this.#secret, kb, 0, len) : hashBytes(this.#secret, Buffer.from(text, 'latin1'), 0, Buffer.byteLength(text, 'latin1'));
+      } else {
+        h = hashWords3(this.#secret, input, Math.floor(offset / 0x100000000), offset >>> 0);
+      }
+      const hi = h[0]!;
+      const lo = h[1]!;
+      const st = this.#stratumOf(batch, i);
+      const bucket = c.bits === 0 ? 0 : hi >>> shift;
+      writer.append(bucket, hi, lo, offset, input, st, d, s, e, term);
+      this.#bucketCounts[st]![bucket]!++;
+      if (this.#groups) {
+        const gk = `${hi}:${lo}`;
+        let g = this.#groups.get(gk);
+        if (!g) this.#groups.set(gk, (g = { hi, lo, size: 0, strata: new Map() }));
+        g.size++;
+        g.strata.set(st, (g.strata.get(st) ?? 0) + 1);
+      }
+    }
+    this.#records += n;
+  }
+
+  finish(): ScatterTaskResult {
+    this.#writer.close();
+    return {
+      task: this.#c.task,
+      strata: this.#strata,
+      bucketCounts: this.#bucketCounts,
+      bucketBytes: this.#writer.bytes,
+      paths: this.#writer.paths,
+      records: this.#records,
+      fingerprint: this.#fp.toJSON(),
+      groups: this.#groups ? [...this.#groups.values()].map((g) => [g.hi, g.lo, g.size, ...[...g.strata].flat()]) : null,
+    };
+  }
+
+  abandon(): void {
+    this.#writer.abandon();
+  }
+}
+
+// --- batches across threads ------------------------------------------------------------------------
+
+/**
+ * Packs a batch (records re-based to 0) into one transferable buffer:
+ * [header 8 × f64][data][start u32][end u32][next u32][fieldStart u32][fieldEnd u32][offset f64][line f64][fieldKind u8]
+ */
+export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | undefined): ArrayBuffer {
+  const n = b.count;
+  const W = b.wanted;
+  const base = n > 0 ? b.start[0]! : 0;
+  const dataLen = n > 0 ? b.next[n - 1]! - base : 0;
+  const dataPad = (dataLen + 7) & ~7;
+  const size = 64 + dataPad + n * 4 * 3 + n * W * 4 * 2 + ((n * 8 * 2 + 7) & ~7) + ((n * W + 7) & ~7) + 16;
+  const ab = reuse && reuse.byteLength >= size ? reuse : new ArrayBuffer(Math.ceil(size * 1.25));
+  const head = new Float64Array(ab, 0, 8);
+  head[0] = n;
+  head[1] = W;
+  head[2] = dataLen;
+  head[3] = input;
+  let at = 64;
+  new Uint8Array(ab, at, dataLen).set(b.data.subarray(base, base + dataLen));
+  at += dataPad;
+  const rebase = (src: Uint32Array, len: number, shift: number): void => {
+    const dst = new Uint32Array(ab, at, len);
+    for (let i = 0; i < len; i++) dst[i] = src[i]! - shift;
+    at += len * 4;
+  };
+  rebase(b.start, n, base);
+  rebase(b.end, n, base);
+  rebase(b.next, n, base);
+  rebase(b.fieldStart, n * W, base);
+  rebase(b.fieldEnd, n * W, base);
+  at = (at + 7) & ~7;
+  new Float64Array(ab, at, n).set(b.offset.subarray(0, n));
+  at += n * 8;
+  new Float64Array(ab, at, n).set(b.line.subarray(0, n));
+  at += n * 8;
+  new Uint8Array(ab, at, n * W).set(b.fieldKind.subarray(0, n * W));
+  return ab;
+}
+
+export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: number } {
+  const head = new Float64Array(ab, 0, 8);
+  const n = head[0]!;
+  const W = head[1]!;
+  const dataLen = head[2]!;
+  let at = 64;
+  const data = Buffer.from(ab, at, dataLen);
+  at += (dataLen + 7) & ~7;
+  const u32 = (len: number): Uint32Array => {
+    const a = new Uint32Array(ab, at, len);
+    at += len * 4;
+    return a;
+  };
+  const start = u32(n);
+  const end = u32(n);
+  const next = u32(n);
+  const fieldStart = u32(n * W);
+  const fieldEnd = u32(n * W);
+  at = (at + 7) & ~7;
+  const offset = new Float64Array(ab, at, n);
+  at += n * 8;
+  const line = new Float64Array(ab, at, n);
+  at += n * 8;
+  const fieldKind = new Uint8Array(ab, at, n * W);
+  return { batch: { data, count: n, start, end, next, offset, line, wanted: W, fieldStart, fieldEnd, fieldKind }, input: head[3]! };
+}
+
+/** Messages between the main thread and a scatter worker. */
+export type ScatterRequest = { type: 'batch'; buffer: ArrayBuffer } | { type: 'finish' };
+export type ScatterReply =
+  | { type: 'done-batch'; buffer: ArrayBuffer }
+  | { type: 'result'; result: ScatterTaskResult }
+  | { type: 'error'; error: WireError };
+
+// --- orchestration -----------------------------------------------------------------------------------
+
+interface Lane {
+  worker: Worker;
+  inFlight: number;
+  result: Promise<ScatterTaskResult>;
+}
+
+export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
+  const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
+  const tasks = Math.max(1, o.threads);
+  const config = (task: number): ScatterTaskConfig => ({
+    inputs: o.inputs,
+    stratify: o.stratify,
+    bins: o.bins ?? o.stratify.map(() => null),
+    key: o.key,
+    group: o.group,
+    secret: Array.from(o.secret),
+    spillDir: o.spillDir,
+    task,
+    bits: o.bits,
+    bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
+  });
+  const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
+  let schema: InputSchema | null = null;
+  let records = 0;
+
+  const inline = o.threads === 0 ? new ScatterTask(config(0)) : null;
+  const lanes: Lane[] = [];
+  const spare: ArrayBuffer[] = [];
+  let failure: Error | null = null;
+  let wake: (() => void) | null = null;
+  const notify = (): void => {
+    const w = wake;
+    wake = null;
+    w?.();
+  };
+  if (!inline) {
+    if (!o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+    for (let t = 0; t < tasks; t++) {
+      const worker = new Worker(o.workerFile, { workerData: config(t) });
+      const lane: Lane = { worker, inFlight: 0, result: null as unknown as Promise<ScatterTaskResult> };
+      lane.result = new Promise<ScatterTaskResult>((resolve, reject) => {
+        worker.on('message', (m: ScatterReply) => {
+          if (m.type === 'done-batch') {
+            lane.inFlight--;
+            spare.push(m.buffer);
+            notify();
+          } else if (m.type === 'result') resolve(m.result);
+          else {
+            failure ??= fromWire(m.error);
+            reject(failure);
+            notify();
+          }
+        });
+        worker.on('error', (e) => {
+          failure ??= e;
+          reject(e);
+          notify();
+        });
+        worker.on('exit', (code) => {
+          if (code !== 0) {
+            failure ??= new RowdeckError('ERR_INTERNAL', `scatter worker ${t} stopped (exit ${code})`);
+            reject(failure);
+            notify();
+          }
+        });
+      });
+      lane.result.catch(() => {});
+      lanes.push(lane);
+    }
+  }
+
+  const MAX_IN_FLIGHT = 2;
+  let next = 0;
   try {
     for await (const { input, batch, schema: sch, stats } of readRecords(o.inputs, {
       format: o.format,
@@ -227,68 +480,110 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       onBadRecord: o.onBadRecord,
       onReject: o.onReject,
     })) {
+      if (failure) throw failure;
       schema ??= sch;
-      currentInput = input;
-      const d = batch.data;
       const n = batch.count;
-      if (n > 0) writer.stage(d, batch.start[0]!, batch.next[n - 1]!);
-      for (let i = 0; i < n; i++) {
-        const s = batch.start[i]!;
-        const e = batch.end[i]!;
-        const term = batch.next[i]! - e;
-        const offset = batch.offset[i]!;
-        let hi: number;
-        let lo: number;
-        if (groupSlot >= 0 || nKey > 0) {
-          // Keys from column values: equal values, equal keys, wherever the record sits.
-          let text = '';
-          if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
-          else for (let w = 0; w < nKey; w++) text += (w ? TUPLE_SEP : '') + fieldKey(batch, i, nStrat + w);
-          const kb = (keyBuf[0] ??= Buffer.allocUnsafe(4096));
-          const len = kb.write(text, 0, 'latin1');
-          const h = len < 4096 ? hashBytes(o.secret, kb, 0, len) : hashBytes(o.secret, Buffer.from(text, 'latin1'), 0, Buffer.byteLength(text, 'latin1'));
-          hi = h[0]!;
-          lo = h[1]!;
-        } else {
-          const h = hashWords3(o.secret, input, Math.floor(offset / 0x100000000), offset >>> 0);
-          hi = h[0]!;
-          lo = h[1]!;
+      if (inline) inline.addBatch(batch, input);
+      else if (n > 0) {
+        // Round robin over workers with room; wait while all are busy.
+        let lane: Lane | undefined;
+        for (;;) {
+          for (let k = 0; k < lanes.length && !lane; k++) {
+            const cand = lanes[(next + k) % lanes.length]!;
+            if (cand.inFlight < MAX_IN_FLIGHT) {
+              lane = cand;
+              next = (next + k + 1) % lanes.length;
+            }
+          }
+          if (lane) break;
+          await new Promise<void>((r) => (wake = r));
+          if (failure) throw failure;
         }
-        const st = stratumOf(batch, i);
-        const bucket = o.bits === 0 ? 0 : hi >>> shift;
-        writer.append(bucket, hi, lo, offset, input, st, d, s, e, term);
-        bucketCounts[st]![bucket]!++;
-        if (groups) {
-          const gk = `${hi}:${lo}`;
-          let g = groups.get(gk);
-          if (!g) groups.set(gk, (g = { hi, lo, size: 0, strata: new Map() }));
-          g.size++;
-          g.strata.set(st, (g.strata.get(st) ?? 0) + 1);
-        }
+        const buffer = packBatch(batch, input, spare.pop());
+        lane.inFlight++;
+        lane.worker.postMessage({ type: 'batch', buffer } satisfies ScatterRequest, [buffer]);
       }
       records += n;
       inputs[input]!.records += n;
       inputs[input]!.bytes = stats.bytes;
       inputs[input]!.rejected = stats.rejected;
-      bytesSeen = inputs.reduce((a, x) => a + x.bytes, 0);
-      o.onProgress?.(bytesSeen, records);
+      o.onProgress?.(
+        inputs.reduce((a, x) => a + x.bytes, 0),
+        records,
+      );
     }
-    writer.close();
+    if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+    let results: ScatterTaskResult[];
+    if (inline) results = [inline.finish()];
+    else {
+      for (const l of lanes) l.worker.postMessage({ type: 'finish' } satisfies ScatterRequest);
+      results = await Promise.all(lanes.map((l) => l.result));
+    }
+    return mergeScatterResults(results, schema, inputs, 2 ** o.bits);
   } catch (err) {
-    writer.abandon();
+    inline?.abandon();
     throw err;
+  } finally {
+    await Promise.all(lanes.map((l) => l.worker.terminate()));
   }
-  if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+}
+
+/** Combines the tasks' results: union of strata (in task order), summed counts, merged groups. */
+export function mergeScatterResults(
+  results: ScatterTaskResult[],
+  schema: InputSchema,
+  inputs: ScatterResult['inputs'],
+  buckets: number,
+): ScatterResult {
+  results.sort((a, b) => a.task - b.task);
+  const ids = new Map<string, number>();
+  const strata: string[] = [];
+  const bucketCounts: Float64Array[] = [];
+  const taskStrata = results.map((r) =>
+    r.strata.map((k, local) => {
+      let id = ids.get(k);
+      if (id === undefined) {
+        id = strata.length;
+        ids.set(k, id);
+        strata.push(k);
+        bucketCounts.push(new Float64Array(buckets));
+      }
+      const dst = bucketCounts[id]!;
+      const src = r.bucketCounts[local]!;
+      for (let b = 0; b < buckets; b++) dst[b]! += src[b]!;
+      return id;
+    }),
+  );
+  const fp = new Fingerprint();
+  for (const r of results) fp.merge(r.fingerprint);
+  let groups: GroupEntry[] | null = null;
+  if (results.some((r) => r.groups)) {
+    const byKey = new Map<string, GroupEntry>();
+    results.forEach((r, t) => {
+      for (const g of r.groups ?? []) {
+        const k = `${g[0]}:${g[1]}`;
+        let e = byKey.get(k);
+        if (!e) byKey.set(k, (e = { hi: g[0]!, lo: g[1]!, size: 0, strata: new Map() }));
+        e.size += g[2]!;
+        for (let j = 3; j < g.length; j += 2) {
+          const s = taskStrata[t]![g[j]!]!;
+          e.strata.set(s, (e.strata.get(s) ?? 0) + g[j + 1]!);
+        }
+      }
+    });
+    groups = [...byKey.values()];
+  }
+  const bucketPaths = Array.from({ length: buckets }, (_, b) => results.map((r) => r.paths[b]!));
   return {
     schema,
     strata,
     bucketCounts,
-    bucketBytes: writer.bytes,
-    bucketPaths: writer.paths,
+    taskStrata,
+    bucketPaths,
     inputs,
-    records,
+    records: results.reduce((a, r) => a + r.records, 0),
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),
     fingerprint: fp,
-    groups: groups ? [...groups.values()] : null,
+    groups,
   };
 }

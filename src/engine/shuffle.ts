@@ -35,11 +35,11 @@ import type { WorkerReply, WorkerTask } from '../workers/gather-worker.js';
 import { VERSION } from '../version.js';
 
 /** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
-export function resolveWorkerFile(): string {
+export function resolveWorkerFile(name = 'gather-worker.js'): string {
   const here = dirname(fileURLToPath(import.meta.url));
-  const beside = join(here, '..', 'workers', 'gather-worker.js');
+  const beside = join(here, '..', 'workers', name);
   if (existsSync(beside)) return beside;
-  const built = join(here, '..', '..', 'dist', 'workers', 'gather-worker.js');
+  const built = join(here, '..', '..', 'dist', 'workers', name);
   if (existsSync(built)) return built;
   throw new RowdeckError('ERR_INTERNAL', `worker module not found at ${beside}; run "npm run build" first.`);
 }
@@ -62,6 +62,26 @@ function estimateInputBytes(path: string): number {
   } finally {
     if (fd >= 0) closeSync(fd);
   }
+}
+
+/**
+ * How many spill buckets, and how much buffer each gets in stage 1.
+ * - A bucket and its output, for every task in flight, must fit the memory budget.
+ * - Stage 2 moves records in an order that jumps around the bucket; a bucket of about 1 MiB stays
+ *   in the processor's cache, which measured about 2.5 times faster than 4 MiB buckets.
+ * - Stage 1 keeps a buffer per bucket and task; below ~32 KiB the many small writes cost more than
+ *   the cache gains, so with a small budget buckets are made larger instead.
+ */
+export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number): { bits: number; bufferBytes: number } {
+  const memCap = Math.max(64 * 1024, Math.floor(memory / (3 * (inFlight + 1))));
+  const target = Math.min(memCap, 1024 * 1024);
+  const tasks = Math.max(1, threads);
+  const byBuffers = Math.max(1, Math.floor(memory / 4 / (32 * 1024 * tasks)));
+  let want = Math.ceil(spillEstimate / target);
+  if (want > byBuffers) want = Math.max(byBuffers, Math.ceil(spillEstimate / memCap));
+  const bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, want)))));
+  const bufferBytes = Math.max(4096 * tasks, Math.min(1024 * 1024 * tasks, Math.floor(memory / 4 / 2 ** bits)));
+  return { bits, bufferBytes };
 }
 
 interface Cleanup {
@@ -225,13 +245,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
     cleanup.paths.add(stage);
 
-    // Bucket size: a few buckets in flight per thread, plus their outputs, must fit the budget.
     const inFlight = o.threads + 1;
-    const bucketTarget = Math.max(64 * 1024, Math.floor(o.memory / (3 * (inFlight + 1))));
     const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
-    const bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, estimate / bucketTarget)))));
+    const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, o.threads, inFlight);
     const buckets = 2 ** bits;
-    const spillBuffer = Math.max(4096, Math.min(1024 * 1024, Math.floor(o.memory / 4 / buckets)));
 
     // Rejected records (quarantine) go to a CSV file inside the output folder.
     const rejects: string[] = [];
@@ -274,7 +291,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       group: o.group,
       secret,
       spillDir,
-      task: 0,
+      threads: o.threads,
+      workerFile: resolveWorkerFile('scatter-worker.js'),
       bits,
       bufferBytes: spillBuffer,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
@@ -286,6 +304,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const order = orderStrata(sc.strata, secret);
     const localToGlobal = new Array<number>(sc.strata.length);
     order.forEach((local, g) => (localToGlobal[local] = g));
+    // Each scatter task's own stratum ids, straight to the dealing order.
+    const taskToDealing = sc.taskStrata.map((ids) => ids.map((u) => localToGlobal[u]!));
     const strataKeys = order.map((l) => sc.strata[l]!);
     const strataSizes = order.map((l) => sc.bucketCounts[l]!.reduce((a, b) => a + b, 0));
     const records = sc.records;
@@ -311,7 +331,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellCounts = new Float64Array(cells * nStrata);
       const prep = { plan: { deal } as GatherPlan, cellSecret } as Parameters<typeof hashCell>[0];
       // Keys are in the spill; the counts per cell need one pass over key and stratum only.
-      countHashCells(sc, bits, localToGlobal, nStrata, (hi, lo) => hashCell(prep, hi, lo), cellCounts);
+      countHashCells(sc, taskToDealing, nStrata, (hi, lo) => hashCell(prep, hi, lo), cellCounts);
     } else {
       const groups = sc.groups!.map((g) => ({ hi: g.hi, lo: g.lo, size: g.size, strata: new Map([...g.strata].map(([s, n]) => [localToGlobal[s]!, n])) }));
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
@@ -358,7 +378,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       version: 1,
       bits,
       buckets,
-      scatterTasks: 1,
+      scatterTasks: sc.taskStrata.length,
       format,
       delimiter: sc.schema.delimiter,
       lineEnding: sc.schema.lineEnding,
@@ -366,7 +386,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       deal,
       foldColumn: o.foldColumn,
       strataCount: nStrata,
-      localToGlobal: [localToGlobal],
+      localToGlobal: taskToDealing,
       quota: Array.from(table.quota),
       cumQuota: Array.from(table.cumQuota),
       offset: Array.from(table.offset),
@@ -399,11 +419,12 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const fps = Array.from({ length: parts }, () => new Fingerprint());
     const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
     const pending = new Map<number, Promise<GatherResult>>();
+    const phases: number[] = [];
     let written = 0;
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
     const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
-      const task: WorkerTask = { planPath, bucket: b, paths: [sc.bucketPaths[b]!], rankStart: rankStarts[b]! };
+      const task: WorkerTask = { planPath, bucket: b, paths: sc.bucketPaths[b]!, rankStart: rankStarts[b]! };
       const arena = spare.pop();
       if (arena) task.arena = arena;
       const p = (pool!.run(task, arena ? { transferList: [arena] } : {}) as Promise<WorkerReply>).then((r) => {
@@ -427,8 +448,9 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         if (partStats && r.stats) partStats[p]!.merge(TableStats.fromJSON(r.stats[p]!));
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
+      r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
       // The bucket is done: free its disk space now rather than all at the end.
-      unlink(sc.bucketPaths[b]!).catch(() => {});
+      for (const path of sc.bucketPaths[b]!) unlink(path).catch(() => {});
       written += r.data.byteLength;
       spare.push(r.data.buffer as ArrayBuffer);
       if (next < buckets) submit(next++);
@@ -440,6 +462,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     for (const w of writers) closed.push(await w.close());
     writers.length = 0;
     timings.gatherMs = Date.now() - tGather;
+    if (phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(phases[k] ?? 0)));
     void written;
 
     if (rejects.length > 0) {
@@ -532,21 +555,23 @@ function transpose(a: Float64Array, rows: number, cols: number): Float64Array {
 /** Hash mode: the exact per-cell counts, from the keys in the spill, before anything is written. */
 function countHashCells(
   sc: ScatterResult,
-  _bits: number,
-  localToGlobal: number[],
+  taskToDealing: number[][],
   nStrata: number,
   cellOf: (hi: number, lo: number) => number,
   out: Float64Array,
 ): void {
-  for (const path of sc.bucketPaths) {
-    const buf = readFileSyncAligned(path);
-    const u32 = new Uint32Array(buf.buffer, buf.byteOffset, buf.byteLength >>> 2);
-    for (let w = 0; w < u32.length; ) {
-      const cell = cellOf(u32[w]!, u32[w + 1]!);
-      out[cell * nStrata + localToGlobal[u32[w + 4]!]!]!++;
-      const len = u32[w + 5]! >>> 2;
-      w += 6 + ((len + 3) >>> 2);
-    }
+  for (const paths of sc.bucketPaths) {
+    paths.forEach((path, t) => {
+      const buf = readFileSyncAligned(path);
+      const u32 = new Uint32Array(buf.buffer, buf.byteOffset, buf.byteLength >>> 2);
+      const map = taskToDealing[t]!;
+      for (let w = 0; w < u32.length; ) {
+        const cell = cellOf(u32[w]!, u32[w + 1]!);
+        out[cell * nStrata + map[u32[w + 4]!]!]!++;
+        const len = u32[w + 5]! >>> 2;
+        w += 6 + ((len + 3) >>> 2);
+      }
+    });
   }
 }
 
