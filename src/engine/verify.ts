@@ -918,6 +918,8 @@ async function listDifferences(inHashes: HashList, outHashes: HashList, inputs: 
     let found = 0;
     for (const path of inputs) {
       if (found >= DIFF_LIST_LIMIT) break;
+      // Standard input was read once already; its records can be counted but not listed.
+      if (path === '-') continue;
       const file = nameInput(path);
       const reader = new RecordReader({
         format: plan.format,
