@@ -16,7 +16,7 @@ let inputText: string;
 beforeAll(() => {
   dir = makeTempDir();
   input = join(dir, 'readings.csv');
-  // ~1.3 MB: with --memory 4MiB the run uses several buckets, with 1GiB a single one.
+  // ~1.3 MB: --memory 4MiB cuts it into more buckets than 1GiB does.
   inputText = makeSensorCsv({ rows: 24000, seed: 11, noFinalNewline: true });
   writeFileSync(input, inputText);
 });
@@ -51,8 +51,7 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
       results.push({ files: outputsOf(out), manifest: stable(m), buckets: m.run.buckets });
     }
     // The runs really were cut up differently...
-    expect(results[0]!.buckets).toBeGreaterThan(1);
-    expect(results[2]!.buckets).toBe(1);
+    expect(results[0]!.buckets).toBeGreaterThan(results[2]!.buckets);
     // ...and still agree byte for byte.
     for (const r of results.slice(1)) {
       expect(r.files).toEqual(results[0]!.files);

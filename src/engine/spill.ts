@@ -34,8 +34,13 @@ export class BucketWriter {
   readonly records: Float64Array;
   /** Fingerprint of every record appended, taken from the aligned copy (cheaper than from the input). */
   readonly fingerprint: Fingerprint | null;
-  /** Files are opened per flush, not held open, so the bucket count is not bounded by the fd limit. */
   #created: boolean[];
+  /**
+   * Open descriptors, held while the budget of descriptors lasts (opening a file per flush was
+   * measured to cost more than all other stage-1 work); buckets beyond it are opened per flush.
+   */
+  #fds: Int32Array;
+  #fdBudget: number;
   #arena: Uint8Array;
   #buf: Buffer;
   #u32: Uint32Array;
@@ -45,7 +50,17 @@ export class BucketWriter {
   #stagingSize: number;
   #stagingDelta = -1;
 
-  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20) {
+  constructor(
+    dir: string,
+    task: number,
+    buckets: number,
+    bufferBytes: number,
+    fingerprint: Fingerprint | null = null,
+    stagingBytes = 2 << 20,
+    fdBudget = 256,
+  ) {
+    this.#fds = new Int32Array(buckets).fill(-1);
+    this.#fdBudget = fdBudget;
     this.fingerprint = fingerprint;
     this.#size = Math.max(4096, bufferBytes & ~3);
     this.#stagingSize = stagingBytes;
@@ -141,16 +156,34 @@ export class BucketWriter {
 
   #write(bucket: number, buf: Buffer, from: number, to: number): void {
     const path = this.paths[bucket]!;
-    let fd = -1;
+    let fd = this.#fds[bucket]!;
+    let hold = fd >= 0;
     try {
-      fd = openSync(path, this.#created[bucket] ? 'a' : 'w');
-      this.#created[bucket] = true;
+      if (fd < 0) {
+        fd = openSync(path, this.#created[bucket] ? 'a' : 'w');
+        this.#created[bucket] = true;
+        if (this.#fdBudget > 0) {
+          this.#fdBudget--;
+          this.#fds[bucket] = fd;
+          hold = true;
+        }
+      }
       let off = from;
       while (off < to) off += writeSync(fd, buf, off, to - off);
     } catch (err) {
       throw ioError(err, path, 'writing a spill file');
     } finally {
-      if (fd >= 0) closeSync(fd);
+      if (fd >= 0 && !hold) closeSync(fd);
+    }
+  }
+
+  #closeAll(): void {
+    for (let b = 0; b < this.#fds.length; b++) {
+      const fd = this.#fds[b]!;
+      if (fd >= 0) {
+        this.#fds[b] = -1;
+        closeSync(fd);
+      }
     }
   }
 
@@ -163,15 +196,20 @@ export class BucketWriter {
 
   /** Flushes every bucket; buckets that received nothing get an empty file. */
   close(): void {
-    for (let b = 0; b < this.paths.length; b++) {
-      this.#flush(b);
-      if (!this.#created[b]) this.#write(b, this.#buf, 0, 0);
+    try {
+      for (let b = 0; b < this.paths.length; b++) {
+        this.#flush(b);
+        if (!this.#created[b]) this.#write(b, this.#buf, 0, 0);
+      }
+    } finally {
+      this.#closeAll();
     }
   }
 
   /** Drops buffered data (on failure; the files are removed with the spill folder). */
   abandon(): void {
     for (let b = 0; b < this.paths.length; b++) this.#fill[b] = b * this.#size;
+    this.#closeAll();
   }
 }
 
