@@ -188,7 +188,7 @@ describe('a successful run', () => {
   it('without --seed, says on stderr that the default seed is used', () => {
     const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-default-seed', '--threads', '1']);
     expect(r.status, r.stderr).toBe(0);
-    expect(r.stderr).toMatch(/default seed/);
+    expect(r.stderr).toMatch(/\(the default: pass --seed to choose one\)/);
   });
 
   it('reads stdin given as - with --format csv', () => {

@@ -101,7 +101,11 @@ export function buildManifest(m: ManifestInput): Manifest {
   const reindex = (arr: number[]): number[] => byValue.map((i) => arr[i]!);
   const newIndex = new Array<number>(byValue.length);
   byValue.forEach((old, k) => (newIndex[old] = k));
-  const worstUnit = m.deviation.part < 0 ? null : m.deviation.kind === 'part' ? m.parts[m.deviation.part]!.path : `fold ${m.deviation.part % m.deal.folds}`;
+  const foldName = (u: number): string => {
+    const split = m.deal.splits.length > 1 ? ` of split ${m.deal.splits[Math.floor(u / m.deal.folds)]!.name}` : '';
+    return `fold ${u % m.deal.folds}${split}`;
+  };
+  const worstUnit = m.deviation.part < 0 ? null : m.deviation.kind === 'part' ? m.parts[m.deviation.part]!.path : foldName(m.deviation.part);
   return {
     manifestVersion: MANIFEST_VERSION,
     tool: { name: 'rowdeck', version: m.version },

@@ -55,6 +55,8 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   threads: number;
   /** Path of the compiled scatter worker module (needed when threads > 0). */
   workerFile?: string;
+  /** Called once with the first input's schema, before any record is scattered; may throw. */
+  onSchema?: (schema: InputSchema) => void;
   onProgress?: (bytes: number, records: number) => void;
 }
 
@@ -519,7 +521,10 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       onReject: o.onReject,
     })) {
       if (failure) throw failure;
-      schema ??= sch;
+      if (!schema) {
+        schema = sch;
+        o.onSchema?.(sch);
+      }
       const n = batch.count;
       if (inline) inline.addBatch(batch, input);
       else if (n > 0) {

@@ -293,6 +293,15 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       spillDir,
       threads: o.threads,
       workerFile: resolveWorkerFile('scatter-worker.js'),
+      onSchema: (schema) => {
+        if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
+          throw new RowdeckError(
+            'ERR_OPTION',
+            `Invalid option "foldColumn": the input already has a column named "${o.foldColumn}". Name the added column otherwise with --fold-column NAME.`,
+            { option: 'foldColumn', column: o.foldColumn },
+          );
+        }
+      },
       bits,
       bufferBytes: spillBuffer,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
