@@ -8,7 +8,7 @@ import { buildDealTable, cellOf, type DealTable } from '../core/deal.js';
 import { Fingerprint, hashToUnit, hashWords3 } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
-import { TableStats, type SerializedStats } from '../core/stats.js';
+import type { TableStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
 import { splitRecordFields } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
@@ -38,8 +38,6 @@ export interface GatherResult {
   counts: Float64Array;
   /** Order-independent fingerprint per part of the record contents written (fold column excluded). */
   fingerprints: { hi: number; lo: number; count: number }[];
-  /** Per-part column statistics (exact and mergeable), or null when disabled. */
-  stats: SerializedStats[] | null;
   /** With ROWDECK_PHASES=1: milliseconds spent in load, sort, deal, copy. */
   phases?: number[];
 }
@@ -121,7 +119,11 @@ function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
 /** Set ROWDECK_PHASES=1 to time the phases of gatherBucket (read, index, sort, deal, copy). */
 const PHASES = process.env.ROWDECK_PHASES === '1';
 
-export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult {
+/**
+ * Deals one bucket. `stats`, when given, receives every record's fields under its part (the
+ * caller keeps the tables across buckets and merges them at the end).
+ */
+export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableStats[] | null = null): GatherResult {
   const { plan, table } = prep;
   const K = plan.deal.folds;
   const P = plan.deal.partitions;
@@ -213,7 +215,6 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   // reads; measured several times faster than the other way round). The fingerprint and the
   // statistics read the record while the copy has it in cache.
   const fps = Array.from({ length: parts }, () => new Fingerprint());
-  const stats = plan.statsColumns.length > 0 ? Array.from({ length: parts }, () => new TableStats(plan.statsColumns)) : null;
   // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
   const fill = Int32Array.from(partStart.subarray(0, parts));
   if (!foldCol) copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n');
@@ -230,7 +231,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask): GatherResult
   T?.push(performance.now());
   const data = new Uint8Array(arena, spillBytes, partStart[parts]! - spillBytes);
   for (let p = 0; p <= parts; p++) partStart[p]! -= spillBytes;
-  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), stats: stats ? stats.map((t) => t.toJSON()) : null, ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
+  return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
 }
 
 /**

@@ -12,13 +12,13 @@
  * them to one dealing order. Which worker saw which record changes nothing downstream: stage 2
  * sorts every bucket by key and identity.
  */
-import { Worker } from 'node:worker_threads';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { readRecords } from '../io/input.js';
-import { fromWire, RowdeckError, type WireError } from '../errors.js';
+import { RowdeckError } from '../errors.js';
+import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter } from './spill.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
@@ -429,25 +429,12 @@ export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: numbe
   return { batch: { data, count: n, start, end, next, offset, line, wanted: W, fieldStart, fieldEnd, fieldKind }, input: head[3]! };
 }
 
-/** Messages between the main thread and a scatter worker. */
-export type ScatterRequest = { type: 'batch'; buffer: ArrayBuffer } | { type: 'finish' };
-export type ScatterReply =
-  | { type: 'done-batch'; buffer: ArrayBuffer }
-  | { type: 'result'; result: ScatterTaskResult }
-  | { type: 'error'; error: WireError };
-
 // --- orchestration -----------------------------------------------------------------------------------
-
-interface Lane {
-  worker: Worker;
-  inFlight: number;
-  result: Promise<ScatterTaskResult>;
-}
 
 export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
   const tasks = Math.max(1, o.threads);
-  const config = (task: number): ScatterTaskConfig => ({
+  const config: Omit<ScatterTaskConfig, 'task'> = {
     inputs: o.inputs,
     stratify: o.stratify,
     bins: o.bins ?? o.stratify.map(() => null),
@@ -455,62 +442,20 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     group: o.group,
     secret: Array.from(o.secret),
     spillDir: o.spillDir,
-    task,
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
-  });
+  };
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
   let records = 0;
 
-  const inline = o.threads === 0 ? new ScatterTask(config(0)) : null;
-  const lanes: Lane[] = [];
+  const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
+  if (!inline && !o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+  const lanes = inline ? null : new WorkerLanes<ArrayBuffer, ArrayBuffer, ScatterTaskResult>(o.workerFile!, tasks, config);
   const spare: ArrayBuffer[] = [];
-  let failure: Error | null = null;
-  let wake: (() => void) | null = null;
-  const notify = (): void => {
-    const w = wake;
-    wake = null;
-    w?.();
-  };
-  if (!inline) {
-    if (!o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
-    for (let t = 0; t < tasks; t++) {
-      const worker = new Worker(o.workerFile, { workerData: config(t) });
-      const lane: Lane = { worker, inFlight: 0, result: null as unknown as Promise<ScatterTaskResult> };
-      lane.result = new Promise<ScatterTaskResult>((resolve, reject) => {
-        worker.on('message', (m: ScatterReply) => {
-          if (m.type === 'done-batch') {
-            lane.inFlight--;
-            spare.push(m.buffer);
-            notify();
-          } else if (m.type === 'result') resolve(m.result);
-          else {
-            failure ??= fromWire(m.error);
-            reject(failure);
-            notify();
-          }
-        });
-        worker.on('error', (e) => {
-          failure ??= e;
-          reject(e);
-          notify();
-        });
-        worker.on('exit', (code) => {
-          if (code !== 0) {
-            failure ??= new RowdeckError('ERR_INTERNAL', `scatter worker ${t} stopped (exit ${code})`);
-            reject(failure);
-            notify();
-          }
-        });
-      });
-      lane.result.catch(() => {});
-      lanes.push(lane);
-    }
-  }
-
-  const MAX_IN_FLIGHT = 2;
-  let next = 0;
+  const running = new Set<Promise<ArrayBuffer>>();
+  // At most two batches waiting or running per worker: bounded memory, and the reader pauses.
+  const MAX_IN_FLIGHT = 2 * tasks;
   try {
     for await (const { input, batch, schema: sch, stats } of readRecords(o.inputs, {
       format: o.format,
@@ -520,7 +465,6 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       onBadRecord: o.onBadRecord,
       onReject: o.onReject,
     })) {
-      if (failure) throw failure;
       if (!schema) {
         schema = sch;
         o.onSchema?.(sch);
@@ -528,23 +472,11 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       const n = batch.count;
       if (inline) inline.addBatch(batch, input);
       else if (n > 0) {
-        // Round robin over workers with room; wait while all are busy.
-        let lane: Lane | undefined;
-        for (;;) {
-          for (let k = 0; k < lanes.length && !lane; k++) {
-            const cand = lanes[(next + k) % lanes.length]!;
-            if (cand.inFlight < MAX_IN_FLIGHT) {
-              lane = cand;
-              next = (next + k + 1) % lanes.length;
-            }
-          }
-          if (lane) break;
-          await new Promise<void>((r) => (wake = r));
-          if (failure) throw failure;
-        }
+        while (running.size >= MAX_IN_FLIGHT) spare.push(await Promise.race(running));
         const buffer = packBatch(batch, input, spare.pop());
-        lane.inFlight++;
-        lane.worker.postMessage({ type: 'batch', buffer } satisfies ScatterRequest, [buffer]);
+        const p: Promise<ArrayBuffer> = lanes!.run(buffer, [buffer]).finally(() => running.delete(p));
+        p.catch(() => {});
+        running.add(p);
       }
       records += n;
       inputs[input]!.records += n;
@@ -559,15 +491,15 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];
     else {
-      for (const l of lanes) l.worker.postMessage({ type: 'finish' } satisfies ScatterRequest);
-      results = await Promise.all(lanes.map((l) => l.result));
+      await Promise.all(running);
+      results = await lanes!.finish();
     }
     return mergeScatterResults(results, schema, inputs, 2 ** o.bits);
   } catch (err) {
     inline?.abandon();
     throw err;
   } finally {
-    await Promise.all(lanes.map((l) => l.worker.terminate()));
+    await lanes?.destroy();
   }
 }
 

@@ -15,23 +15,23 @@ import { fileURLToPath } from 'node:url';
 import { existsSync, readFileSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
 import { unlink } from 'node:fs/promises';
-import { Piscina } from 'piscina';
 import { stringify } from 'csv-stringify/sync';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
-import { fromWire, RowdeckError } from '../errors.js';
+import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
-import { hashCell, type GatherResult } from './gather.js';
+import { hashCell, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { scatter, stratumValues, type ScatterResult } from './scatter.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
-import type { WorkerReply, WorkerTask } from '../workers/gather-worker.js';
+import type { GatherFinal, GatherWorkerData } from '../workers/gather-worker.js';
+import { WorkerLanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
 
 /** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
@@ -233,7 +233,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
   mkdirSync(parent, { recursive: true });
   const cleanup = createCleanup();
   const unhook = onSignals(cleanup);
-  let pool: Piscina | null = null;
+  let pool: WorkerLanes<GatherTask, GatherResult, GatherFinal> | null = null;
   const writers: PartWriter[] = [];
   try {
     const spillRoot = o.tempDir ? resolve(o.tempDir) : parent;
@@ -423,7 +423,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       for (let l = 0; l < sc.strata.length; l++) running[localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
     }
 
-    pool = new Piscina({ filename: resolveWorkerFile(), minThreads: o.threads, maxThreads: o.threads, idleTimeout: 1000 });
+    pool = new WorkerLanes<GatherTask, GatherResult, GatherFinal>(resolveWorkerFile(), o.threads, { planPath } satisfies GatherWorkerData);
     const counts = new Float64Array(parts * K * nStrata);
     const fps = Array.from({ length: parts }, () => new Fingerprint());
     const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
@@ -433,13 +433,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
     const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
-      const task: WorkerTask = { planPath, bucket: b, paths: sc.bucketPaths[b]!, rankStart: rankStarts[b]! };
+      const task: GatherTask = { bucket: b, paths: sc.bucketPaths[b]!, rankStart: rankStarts[b]! };
       const arena = spare.pop();
       if (arena) task.arena = arena;
-      const p = (pool!.run(task, arena ? { transferList: [arena] } : {}) as Promise<WorkerReply>).then((r) => {
-        if (!r.ok) throw fromWire(r.error);
-        return r.result;
-      });
+      const p = pool!.run(task, arena ? [arena] : []);
       p.catch(() => {});
       pending.set(b, p);
     };
@@ -454,7 +451,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         const e = r.partStart[p + 1]!;
         if (e > a) await writers[p]!.write(data.subarray(a, e));
         fps[p]!.merge(r.fingerprints[p]!);
-        if (partStats && r.stats) partStats[p]!.merge(TableStats.fromJSON(r.stats[p]!));
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
@@ -465,6 +461,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
     }
+    // Every worker hands over the statistics of all the buckets it dealt; merged in lane order
+    // (the merge is exact, so the order does not change the result).
+    const finals = await pool.finish();
+    if (partStats) for (const f of finals) f?.forEach((t, p) => partStats[p]!.merge(TableStats.fromJSON(t)));
     await pool.destroy();
     pool = null;
     const closed: { bytes: number; sha256: string }[] = [];

@@ -1,38 +1,30 @@
 /**
- * Worker entry for stage 2. One task = one bucket.
+ * Worker entry for stage 2: one task = one bucket (see src/workers/lanes.ts for the protocol).
  *
- *   main thread                         worker thread (this file)
- *   ───────────                         ─────────────────────────
- *   plan.json written to spill dir ──▶  loaded once per plan path, cached
- *   { planPath, bucket, paths,    ──▶  read spill files, sort, deal
- *     rankStart }                       lay out each part's bytes
- *   ordered writer (bucket order) ◀──  { data (transferred), partStart, counts, fingerprints }
+ *   main thread                              this worker
+ *   plan.json in the spill folder  ───────▶  loaded once, cached
+ *   { bucket, paths, rankStart, arena } ──▶  read spill files, sort, deal, lay out part bytes
+ *   ordered writer (bucket order)  ◀───────  { data (transferred), partStart, counts, fingerprints }
+ *   finish ───────────────────────────────▶  per-part statistics of every bucket this worker dealt
  *
- * Errors cross the thread boundary as plain data (`toWire`) because structured clone drops the
- * error class and its code; the main thread rebuilds them.
+ * Statistics stay here until the end: they merge exactly, so which worker saw which bucket does
+ * not change the result, and shipping them per bucket cost more than dealing the bucket.
  */
 import { readFileSync } from 'node:fs';
-import { move, transferableSymbol, valueSymbol } from 'piscina';
-import { gatherBucket, preparePlan, type GatherResult, type GroupTable, type PreparedPlan } from '../engine/gather.js';
+import { dirname, join } from 'node:path';
+import { workerData } from 'node:worker_threads';
+import { TableStats, type SerializedStats } from '../core/stats.js';
+import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type GroupTable, type PreparedPlan } from '../engine/gather.js';
 import type { GatherPlan } from '../engine/plan.js';
-import { toWire, type WireError } from '../errors.js';
-import { join, dirname } from 'node:path';
+import { serveLane } from './lanes.js';
 
-export interface WorkerTask {
+export interface GatherWorkerData {
   planPath: string;
-  bucket: number;
-  paths: string[];
-  rankStart: Float64Array;
-  arena?: ArrayBuffer;
 }
 
-export type WorkerReply = { ok: true; result: GatherResult } | { ok: false; error: WireError };
+export type GatherFinal = SerializedStats[] | null;
 
-let cachedPath = '';
-let cached: PreparedPlan | null = null;
-
-export function loadPlan(planPath: string): PreparedPlan {
-  if (cached && cachedPath === planPath) return cached;
+function loadPlan(planPath: string): PreparedPlan {
   const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
   let groups: GroupTable | null = null;
   if (plan.groupsFile) {
@@ -45,19 +37,18 @@ export function loadPlan(planPath: string): PreparedPlan {
       cell: new Uint32Array(buf, n * 8, n),
     };
   }
-  cached = preparePlan(plan, groups);
-  cachedPath = planPath;
-  return cached;
+  return preparePlan(plan, groups);
 }
 
-export default function runGatherTask(task: WorkerTask): WorkerReply | object {
-  try {
-    const prep = loadPlan(task.planPath);
-    const result = gatherBucket(prep, task);
-    const reply: WorkerReply = { ok: true, result };
+const { data } = workerData as { lane: number; data: GatherWorkerData };
+const prep = loadPlan(data.planPath);
+const stats = prep.plan.statsColumns.length > 0 ? Array.from({ length: prep.plan.deal.splits.length * prep.plan.deal.partitions }, () => new TableStats(prep.plan.statsColumns)) : null;
+
+serveLane<GatherTask, GatherResult, GatherFinal>(
+  (task) => {
+    const result = gatherBucket(prep, task, stats);
     // Hand the output bytes over without copying them.
-    return move({ [transferableSymbol]: [result.data.buffer], [valueSymbol]: reply } as unknown as ArrayBuffer);
-  } catch (err) {
-    return { ok: false, error: toWire(err) };
-  }
-}
+    return { result, transfer: [result.data.buffer as ArrayBuffer] };
+  },
+  () => ({ final: stats ? stats.map((t) => t.toJSON()) : null }),
+);

@@ -1,0 +1,131 @@
+/**
+ * A small pool of worker threads ("lanes") that keep state between tasks and are each asked to
+ * finish at the end. Both stages need that: a scatter worker holds its spill buffers and counts
+ * until the input ends, a gather worker accumulates each part's statistics over all the buckets
+ * it deals (creating and shipping statistics per bucket measured slower than the dealing itself).
+ * A general pool routes tasks to any worker and has no "every worker, finish now" step, hence
+ * this one.
+ *
+ *   main thread                              worker thread k
+ *   run(task) ──{ id, task } (transfer)──▶  handler(task) ──▶ { id, result } (transfer)
+ *   finish() ──{ finish }──▶ (every lane)   finisher()   ──▶ { final }
+ *
+ * Errors cross as plain data (`toWire`) and are rebuilt with `fromWire`.
+ */
+import { parentPort, Worker, type TransferListItem } from 'node:worker_threads';
+import { fromWire, toWire, RowdeckError, type WireError } from '../errors.js';
+
+type ToWorker<T> = { kind: 'task'; id: number; task: T } | { kind: 'finish' };
+type FromWorker<R, F> = { kind: 'result'; id: number; result: R } | { kind: 'error'; id: number; error: WireError } | { kind: 'final'; final: F };
+
+interface Lane<R, F> {
+  worker: Worker;
+  busy: number;
+  final: ((f: F) => void) | null;
+  finalFail: ((e: Error) => void) | null;
+  waiting: Map<number, { resolve: (r: R) => void; reject: (e: Error) => void }>;
+}
+
+export class WorkerLanes<T, R, F> {
+  readonly size: number;
+  #lanes: Lane<R, F>[] = [];
+  #nextId = 0;
+  #failure: Error | null = null;
+
+  constructor(file: string, size: number, workerData: unknown) {
+    this.size = size;
+    for (let k = 0; k < size; k++) {
+      // Workers inherit the process's Node flags; those that only make sense for an inline script
+      // (--input-type, as in `node --input-type=module -e …`) would stop a file worker from starting.
+      const execArgv = process.execArgv.filter((a) => !/^--(input-type|eval|print)(=|$)/.test(a));
+      const worker = new Worker(file, { workerData: { lane: k, data: workerData }, execArgv });
+      const lane: Lane<R, F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
+      worker.on('message', (m: FromWorker<R, F>) => {
+        if (m.kind === 'final') {
+          lane.final?.(m.final);
+          return;
+        }
+        const w = lane.waiting.get(m.id);
+        if (!w) return;
+        lane.waiting.delete(m.id);
+        lane.busy--;
+        if (m.kind === 'result') w.resolve(m.result);
+        else w.reject(fromWire(m.error));
+      });
+      const fail = (e: Error): void => {
+        this.#failure ??= e;
+        for (const w of lane.waiting.values()) w.reject(e);
+        lane.waiting.clear();
+        lane.finalFail?.(e);
+      };
+      worker.on('error', fail);
+      worker.on('exit', (code) => {
+        if (code !== 0) fail(new RowdeckError('ERR_INTERNAL', `worker thread ${k} stopped (exit ${code})`));
+      });
+      this.#lanes.push(lane);
+    }
+  }
+
+  /** Tasks waiting or running on the least busy lane. */
+  get minBusy(): number {
+    return Math.min(...this.#lanes.map((l) => l.busy));
+  }
+
+  /** Runs a task on the least busy lane. */
+  run(task: T, transfer: TransferListItem[] = []): Promise<R> {
+    if (this.#failure) return Promise.reject(this.#failure);
+    let lane = this.#lanes[0]!;
+    for (const l of this.#lanes) if (l.busy < lane.busy) lane = l;
+    const id = this.#nextId++;
+    lane.busy++;
+    const p = new Promise<R>((resolve, reject) => lane.waiting.set(id, { resolve, reject }));
+    lane.worker.postMessage({ kind: 'task', id, task } satisfies ToWorker<T>, transfer);
+    return p;
+  }
+
+  /** Asks every lane to finish and returns what each one hands back, in lane order. */
+  finish(): Promise<F[]> {
+    return Promise.all(
+      this.#lanes.map(
+        (lane) =>
+          new Promise<F>((resolve, reject) => {
+            if (this.#failure) return reject(this.#failure);
+            lane.final = resolve;
+            lane.finalFail = reject;
+            lane.worker.postMessage({ kind: 'finish' } satisfies ToWorker<T>);
+          }),
+      ),
+    );
+  }
+
+  async destroy(): Promise<void> {
+    await Promise.all(this.#lanes.map((l) => l.worker.terminate()));
+  }
+}
+
+/** The worker side: answers tasks with `handler` and the final request with `finisher`. */
+export function serveLane<T, R, F>(
+  handler: (task: T) => { result: R; transfer?: TransferListItem[] },
+  finisher: () => { final: F; transfer?: TransferListItem[] },
+): void {
+  const port = parentPort;
+  if (!port) throw new Error('serveLane() must run in a worker thread');
+  port.on('message', (m: ToWorker<T>) => {
+    if (m.kind === 'task') {
+      try {
+        const { result, transfer } = handler(m.task);
+        port.postMessage({ kind: 'result', id: m.id, result } satisfies FromWorker<R, F>, transfer ?? []);
+      } catch (err) {
+        port.postMessage({ kind: 'error', id: m.id, error: toWire(err) } satisfies FromWorker<R, F>);
+      }
+    } else {
+      try {
+        const { final, transfer } = finisher();
+        port.postMessage({ kind: 'final', final } satisfies FromWorker<R, F>, transfer ?? []);
+      } catch (err) {
+        // No task is waiting for this: let it surface as the thread's error, which fails finish().
+        throw err;
+      }
+    }
+  });
+}
