@@ -16,3 +16,15 @@ export type { ShuffleOptions, ProgressEvent } from './options.js';
 export { RowdeckError, type RowdeckErrorCode, type ErrorDetails } from './errors.js';
 export type { InputFormat, BadRecordPolicy } from './io/batch.js';
 export { VERSION } from './version.js';
+export {
+  profile,
+  type Profile,
+  type ProfileOptions,
+  type ProfileProgress,
+  type ProfileInput,
+  type ProfileClass,
+  type ProfileStrata,
+  type ProfileWarning,
+  type ProfileWarningCode,
+} from './engine/profile.js';
+export type { ColumnSummary, ColumnType, ValueCount } from './core/stats.js';

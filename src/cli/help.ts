@@ -85,21 +85,29 @@ export const PROFILE_HELP = `rowdeck profile — schema, statistics and class ba
 Usage:
   rowdeck profile INPUT... [--stratify COL[,COL]] [--partitions N] [--folds K] [--json]
 
-Reads the inputs once (streaming, bounded memory) and prints, per column, the inferred type,
-count, missing values, numeric min/max/mean/standard deviation, and the most frequent values;
-with --stratify, the class balance as a bar chart, and a warning for any class too small for
-the partitions or folds you plan.
+Reads the inputs once (streaming, bounded memory, statistics on worker threads) and prints, per
+column, the inferred type, count, missing values, distinct values (exact up to 1000, then an
+estimate marked ~), min/max, mean and standard deviation of numeric columns, and the most
+frequent values; with --stratify, the class balance as a bar chart; then warnings: classes too
+small for the partitions or folds you plan (with settings that would work), missing values in
+a stratify column, empty columns.
 
 Options:
-  --stratify COL[,COL]    show the class balance of these columns
-  --partitions N          warn about classes with fewer than N records
-  --folds K               warn about classes with fewer than K records
-  --format, --delimiter, --no-header, --on-bad-record   as for shuffle
-  --exclude-values        leave data values (frequent values, class names, text min/max) out
+  --stratify COL[,COL]    show the class balance of these columns (the classes a shuffle with
+                          the same --stratify deals); COL:bins=Q for Q quantile bins of a
+                          numeric column (then the inputs are read twice, as by shuffle)
+  --partitions N          warn about classes that N partitions cannot all hold
+  --folds K               warn about classes that K folds cannot all hold
+  --tolerance X           the tolerance those warnings check against (default 0.5, as shuffle)
+  --threads N             worker threads (default: number of cores)
+  --format, --delimiter, --no-header   as for shuffle
+  --on-bad-record MODE    fail (default), or skip: count malformed records, list the first 20
+  --exclude-values        leave data values (min/max, frequent values, class names) out
   --json                  print the profile as JSON on stdout
+  --quiet                 no progress or notes on stderr
 
-Caution: a profile holds values from the data. Use --exclude-values before publishing one
-for sensitive data.
+Caution: a profile holds values from the data (min/max, frequent values, class names). Use
+--exclude-values before publishing one for sensitive data.
 
 Example:
   rowdeck profile readings.csv --stratify fault --partitions 8 --folds 5

@@ -1,0 +1,96 @@
+#!/usr/bin/env node
+// Micro-benchmark of the column statistics (src/core/stats.ts): CPU time per record and MB/s of
+// TableStats over every column of the invented sensor readings (bench/generate.mjs).
+//
+//   npm run build && node bench/micro/stats.mjs [path.csv] [--mb 40] [--rounds 3] [--cap 1000]
+//
+// Without a path, bench/data/readings-100m.csv is used (generated first if absent, seed 1). The
+// first --mb megabytes are read and split into record batches (all columns wanted) once, kept in
+// memory, and then fed to a fresh TableStats in each round, so reading is not part of the figure.
+// CPU time (process.cpuUsage) is reported besides wall time: the machine may be shared.
+import { existsSync, openSync, readSync, closeSync } from 'node:fs';
+import { execFileSync } from 'node:child_process';
+import { cpus } from 'node:os';
+import { dirname, join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+
+const here = dirname(fileURLToPath(import.meta.url));
+const dist = join(here, '..', '..', 'dist');
+const { RecordReader } = await import(join(dist, 'io', 'reader.js'));
+const { TableStats } = await import(join(dist, 'core', 'stats.js'));
+const { packBatch, unpackBatch } = await import(join(dist, 'engine', 'scatter.js'));
+
+const args = process.argv.slice(2);
+const opt = (name, dflt) => {
+  const i = args.indexOf(`--${name}`);
+  if (i < 0) return dflt;
+  const v = Number(args[i + 1]);
+  args.splice(i, 2);
+  return v;
+};
+const mb = opt('mb', 40);
+const rounds = opt('rounds', 3);
+const cap = opt('cap', 1000);
+let path = args[0];
+if (!path) {
+  path = join(here, '..', 'data', 'readings-100m.csv');
+  if (!existsSync(path)) {
+    process.stderr.write(`generating ${path} …\n`);
+    execFileSync(process.execPath, [join(here, '..', 'generate.mjs'), '--bytes', '1e8', '--seed', '1', '--out', path], { stdio: 'inherit' });
+  }
+}
+
+/** Learns the columns from the header (first 64 KiB). */
+function readColumns() {
+  const r = new RecordReader({ format: 'csv', header: true, wanted: [], file: path, onBadRecord: 'fail' });
+  const fd = openSync(path, 'r');
+  const buf = Buffer.alloc(64 * 1024);
+  const n = readSync(fd, buf, 0, buf.length, 0);
+  closeSync(fd);
+  r.push(buf.subarray(0, n));
+  return r.schema.columns;
+}
+
+const columns = readColumns();
+const reader = new RecordReader({ format: 'csv', header: true, wanted: columns, file: path, onBadRecord: 'fail' });
+const batches = [];
+let bytes = 0;
+let records = 0;
+{
+  const fd = openSync(path, 'r');
+  const buf = Buffer.allocUnsafe(1 << 20);
+  while (bytes < mb * 1e6) {
+    const n = readSync(fd, buf, 0, buf.length, null);
+    if (n === 0) break;
+    const b = reader.push(buf.subarray(0, n));
+    if (b && b.count > 0) {
+      // A copy: the reader reuses its buffers.
+      const { batch } = unpackBatch(packBatch(b, 0, undefined));
+      batches.push(batch);
+      records += b.count;
+      bytes += b.next[b.count - 1] - b.start[0];
+    }
+  }
+  closeSync(fd);
+}
+
+console.log(`${path}: ${columns.length} columns, ${records.toLocaleString('en-US')} records, ${(bytes / 1e6).toFixed(1)} MB in memory; ${cpus()[0]?.model ?? '?'}, Node ${process.version}`);
+const results = [];
+let last;
+for (let r = 0; r < rounds; r++) {
+  const t = new TableStats(columns, { distinctCap: cap });
+  const c0 = process.cpuUsage();
+  const w0 = performance.now();
+  for (const b of batches) t.addBatch(b);
+  const wall = performance.now() - w0;
+  const c = process.cpuUsage(c0);
+  const cpu = (c.user + c.system) / 1000;
+  results.push(cpu);
+  last = t;
+  console.log(`round ${r + 1}: ${((cpu * 1e6) / records).toFixed(0)} ns/record CPU (${((cpu * 1e6) / records / columns.length).toFixed(1)} ns/field), ${(bytes / 1e6 / (cpu / 1000)).toFixed(0)} MB/s CPU, wall ${wall.toFixed(0)} ms`);
+}
+const best = Math.min(...results);
+console.log(`best: ${((best * 1e6) / records).toFixed(0)} ns/record, ${(bytes / 1e6 / (best / 1000)).toFixed(0)} MB/s (CPU time, one thread)`);
+// Print something derived from the result so the work cannot be skipped, and as a sanity check.
+const s = last.summary();
+console.log(s.map((c) => `${c.name}:${c.type}${c.approximate ? '~' : ''}${c.distinct}`).join(' '));

@@ -1,0 +1,903 @@
+/**
+ * `profile()`: schema, column statistics and class balance of the inputs, in one streaming read.
+ *
+ *   main thread: open input ─▶ learn its columns ─▶ RecordReader (every column wanted) ─▶ packBatch
+ *                ─▶ profile worker k (round robin, ≤ 2 batches in flight each) ─▶ buffer back
+ *   finish ─▶ each worker returns its serialised TableStats and stratum counts ─▶ exact merge
+ *
+ * The statistics merge exactly and without regard to order (see core/stats.ts), and stratum
+ * counts are sums, so the profile does not depend on the thread count or on which worker saw
+ * which batch. Strata use the same keys as `shuffle` (fieldKey, quantile bin labels), so a
+ * profile's classes are the classes a shuffle deals; warnings about classes too small for the
+ * planned partitions or folds come from the same dealing tables a shuffle with the default seed
+ * would build.
+ *
+ * Memory stays bounded: a few batches in flight per worker, value tables capped per column
+ * (then a fixed-size distinct estimate), and one counter per stratum.
+ */
+import { statSync } from 'node:fs';
+import { availableParallelism } from 'node:os';
+import { Worker } from 'node:worker_threads';
+import { maxDeviation, orderStrata } from '../core/balance.js';
+import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
+import { deriveSecret, type Secret } from '../core/hash.js';
+import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
+import { fromWire, RowdeckError, type WireError } from '../errors.js';
+import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
+import { detectFormat, nameInput, openInput } from '../io/input.js';
+import { fieldText, RecordReader, unknownColumn } from '../io/reader.js';
+import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
+import { VERSION } from '../version.js';
+import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
+import { fieldKey, MAX_STRATA, MISSING_KEY, packBatch, stratumValues, TUPLE_SEP, unpackBatch } from './scatter.js';
+import { resolveWorkerFile } from './shuffle.js';
+
+export const PROFILE_VERSION = 1;
+/** Rejected records listed in a profile (all are counted). */
+const MAX_LISTED_REJECTS = 20;
+/** Classes listed one by one in warnings; the rest are summed up. */
+const MAX_LISTED_CLASSES = 10;
+/** More classes than this in a stratify column reads like an identifier, not a class. */
+const MANY_CLASSES = 1000;
+
+export interface ProfileProgress {
+  stage: 'bins' | 'read';
+  /** Input bytes read so far, and the total (file sizes; 0 when unknown, e.g. stdin). */
+  done: number;
+  total: number;
+  records: number;
+  elapsedMs: number;
+}
+
+export interface ProfileOptions {
+  /** Input files; '-' reads standard input. */
+  inputs: string[];
+  /** Column(s) whose class balance to show; `name:bins=Q` for Q quantile bins of a numeric column. */
+  stratify?: string | string[];
+  /** Partitions you plan: warns about classes that cannot be spread over them. Default 1. */
+  partitions?: number;
+  /** Folds you plan (≥ 2): warns about classes that cannot be spread over them. */
+  folds?: number;
+  /** Tolerance the warnings check against, as shuffle's `tolerance`. Default 0.5. */
+  tolerance?: number;
+  format?: InputFormat;
+  delimiter?: string;
+  /** First line is a header (CSV/TSV). Default true. */
+  header?: boolean;
+  /** 'fail' (default) stops at the first malformed record; 'skip' counts and lists it. */
+  onBadRecord?: 'fail' | 'skip';
+  /** Leave data values out: min/max, frequent values, class names, bin edges, reject reasons. */
+  excludeValues?: boolean;
+  /** Worker threads for the statistics. Default: the number of cores; 0 works on the calling thread. */
+  threads?: number;
+  onProgress?: (e: ProfileProgress) => void;
+}
+
+export interface ProfileInput {
+  path: string;
+  format: InputFormat;
+  /** Bytes read (after gzip decompression). */
+  bytes: number;
+  records: number;
+  rejected: number;
+}
+
+export interface ProfileClass {
+  /** The class's value per stratify column (null = missing); null when values are excluded. */
+  value: (string | null)[] | null;
+  count: number;
+  /** count / records. */
+  share: number;
+}
+
+export interface ProfileStrata {
+  /** As given: `name` or `name:bins=Q`. */
+  columns: string[];
+  /** Every stratum (combination of classes) in value order, as a shuffle's manifest lists them. */
+  values: ProfileClass[];
+  /** Per stratify column, its own classes (summed over the other columns), in value order. */
+  byColumn: { column: string; values: ProfileClass[] }[];
+  /** Quantile bin edges of `name:bins=Q` columns (edges empty when values are excluded). */
+  bins: BinEdges[];
+}
+
+export type ProfileWarningCode =
+  | 'CLASS_BELOW_PARTITIONS'
+  | 'CLASS_BELOW_FOLDS'
+  | 'TOLERANCE_UNMET'
+  | 'STRATIFY_MISSING'
+  | 'MANY_CLASSES'
+  | 'COLUMN_EMPTY'
+  | 'SINGLE_VALUE'
+  | 'REJECTED_RECORDS'
+  | 'BINS_APPROXIMATE';
+
+export interface ProfileWarning {
+  code: ProfileWarningCode;
+  /** The column concerned, where there is one. */
+  column: string | null;
+  message: string;
+  /** Figures behind the message (counts, suggested settings). */
+  details: Record<string, number | string | null>;
+}
+
+export interface Profile {
+  profileVersion: number;
+  tool: { name: 'rowdeck'; version: string };
+  inputs: ProfileInput[];
+  /** Column names (the first input's). */
+  columnNames: string[];
+  records: number;
+  rejected: number;
+  /** The first rejected records (file, line, code; the reason unless values are excluded). */
+  rejects: { file: string; line: number; code: string; reason: string | null }[];
+  columns: ColumnSummary[];
+  strata: ProfileStrata | null;
+  warnings: ProfileWarning[];
+  /** The planned dealing the warnings were checked against. */
+  plan: { partitions: number; folds: number; tolerance: number };
+  /** True when data values were left out. */
+  excludeValues: boolean;
+  threads: number;
+  timingsMs: { bins: number; read: number; total: number };
+}
+
+interface ResolvedProfileOptions {
+  inputs: string[];
+  stratify: StratifyColumn[];
+  partitions: number;
+  folds: number;
+  tolerance: number;
+  format: InputFormat | null;
+  delimiter: string | undefined;
+  header: boolean;
+  onBadRecord: BadRecordPolicy;
+  excludeValues: boolean;
+  threads: number;
+  onProgress: ((e: ProfileProgress) => void) | null;
+}
+
+function readInteger(name: string, v: unknown, min: number, max: number, dflt: number): number {
+  if (v === undefined) return dflt;
+  if (typeof v !== 'number' || !Number.isInteger(v) || v < min || v > max) throw invalid(name, `an integer from ${min} to ${max}`, v);
+  return v;
+}
+
+/** Validates profile options; every rejection is an ERR_OPTION naming the option. */
+export function resolveProfileOptions(o: ProfileOptions): ResolvedProfileOptions {
+  if (!o || typeof o !== 'object') throw invalid('options', 'an object', o);
+  if (!Array.isArray(o.inputs) || o.inputs.length === 0 || o.inputs.some((x) => typeof x !== 'string' || x === '')) {
+    throw invalid('inputs', 'one or more input paths', o.inputs);
+  }
+  if (o.inputs.filter((x) => x === '-').length > 1) throw invalid('inputs', 'standard input (-) at most once', o.inputs.join(' '));
+  const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
+  if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
+  if (o.format !== undefined && !['csv', 'tsv', 'jsonl'].includes(o.format)) throw invalid('format', '"csv", "tsv" or "jsonl"', o.format);
+  if (o.delimiter !== undefined && (typeof o.delimiter !== 'string' || Buffer.byteLength(o.delimiter) !== 1 || o.delimiter === '"' || o.delimiter === '\n' || o.delimiter === '\r')) {
+    throw invalid('delimiter', 'one single-byte character other than a quote or a line end', o.delimiter);
+  }
+  const onBadRecord = o.onBadRecord ?? 'fail';
+  if (onBadRecord !== 'fail' && onBadRecord !== 'skip') {
+    throw invalid('onBadRecord', '"fail" or "skip" (profile writes no files, so there is nothing to quarantine to; skipped records are counted and the first ones listed)', onBadRecord);
+  }
+  if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalid('onProgress', 'a function', typeof o.onProgress);
+  const stratify = parseStratify(o.stratify);
+  const names = stratify.map((s) => s.name);
+  const dup = names.find((n, i) => names.indexOf(n) !== i);
+  if (dup !== undefined) throw invalid('stratify', 'each column once', dup);
+  return {
+    inputs: [...o.inputs],
+    stratify,
+    partitions: readInteger('partitions', o.partitions, 1, 100000, 1),
+    folds: readInteger('folds', o.folds, 2, 1000, 1),
+    tolerance,
+    format: o.format ?? null,
+    delimiter: o.delimiter,
+    header: o.header ?? true,
+    onBadRecord,
+    excludeValues: o.excludeValues ?? false,
+    threads: readInteger('threads', o.threads, 0, 256, Math.max(1, availableParallelism())),
+    onProgress: o.onProgress ?? null,
+  };
+}
+
+// --- the per-batch work (worker threads, or the calling thread) ------------------------------------
+
+/** What one profile task needs: plain data, so it can be posted to a worker. */
+export interface ProfileTaskConfig {
+  columns: string[];
+  /** Display names of the inputs, for messages. */
+  files: string[];
+  /** Stratify columns: index into `columns`, name, and quantile bin edges or null. */
+  stratify: { column: number; name: string; edges: number[] | null }[];
+}
+
+export interface ProfileTaskResult {
+  stats: SerializedStats;
+  /** Stratum key -> records (keys as shuffle makes them). */
+  strata: [string, number][];
+}
+
+/**
+ * Counts records by the bytes of one plain field without making a string per record: an
+ * open-addressing table over copies of the key bytes.
+ */
+class ByteCounter {
+  #mask = 255;
+  #hashes = new Int32Array(256);
+  #ids = new Int32Array(256).fill(-1);
+  #keys: Buffer[] = [];
+  #counts: number[] = [];
+
+  get size(): number {
+    return this.#keys.length;
+  }
+
+  /** Adds one to the count of b[s, e). */
+  count(b: Buffer, s: number, e: number): void {
+    let h = 0x811c9dc5 | 0;
+    for (let i = s; i < e; i++) h = Math.imul(h ^ b[i]!, 0x01000193);
+    const len = e - s;
+    for (let slot = h & this.#mask; ; slot = (slot + 1) & this.#mask) {
+      const id = this.#ids[slot]!;
+      if (id < 0) {
+        this.#insert(slot, h, Buffer.from(b.subarray(s, e)));
+        return;
+      }
+      if (this.#hashes[slot] !== h) continue;
+      const k = this.#keys[id]!;
+      if (k.length !== len) continue;
+      let same = true;
+      for (let i = 0; i < len; i++) {
+        if (k[i] !== b[s + i]) {
+          same = false;
+          break;
+        }
+      }
+      if (same) {
+        this.#counts[id]!++;
+        return;
+      }
+    }
+  }
+
+  #insert(slot: number, h: number, key: Buffer): void {
+    const id = this.#keys.length;
+    this.#keys.push(key);
+    this.#counts.push(1);
+    this.#ids[slot] = id;
+    this.#hashes[slot] = h;
+    if (this.#keys.length * 2 > this.#mask) this.#grow();
+  }
+
+  #grow(): void {
+    const cap = (this.#mask + 1) * 2;
+    this.#mask = cap - 1;
+    this.#ids = new Int32Array(cap).fill(-1);
+    this.#hashes = new Int32Array(cap);
+    this.#keys.forEach((k, id) => {
+      let h = 0x811c9dc5 | 0;
+      for (let i = 0; i < k.length; i++) h = Math.imul(h ^ k[i]!, 0x01000193);
+      let slot = h & this.#mask;
+      while (this.#ids[slot]! >= 0) slot = (slot + 1) & this.#mask;
+      this.#ids[slot] = id;
+      this.#hashes[slot] = h;
+    });
+  }
+
+  /** Calls fn with each key's latin1 text (the stratum key shuffle makes for a plain field) and count. */
+  forEach(fn: (key: string, count: number) => void): void {
+    this.#keys.forEach((k, id) => fn(k.toString('latin1'), this.#counts[id]!));
+  }
+}
+
+/** Statistics and stratum counts of the batches it is given. */
+export class ProfileTask {
+  readonly #c: ProfileTaskConfig;
+  readonly #stats: TableStats;
+  /** Per input: wanted slot -> column index, or null when the slots are the columns. */
+  readonly #maps: (Int32Array | null)[] = [];
+  /** Per input: column index -> wanted slot or -1 (only where a map is set). */
+  readonly #slots: (Int32Array | null)[] = [];
+  readonly #strata = new Map<string, number>();
+  readonly #fast = new ByteCounter();
+  /** One plain stratify column without bins: counted by bytes. */
+  readonly #single: boolean;
+
+  constructor(c: ProfileTaskConfig) {
+    this.#c = c;
+    this.#stats = new TableStats(c.columns);
+    this.#single = c.stratify.length === 1 && c.stratify[0]!.edges === null;
+  }
+
+  /** Sets which columns input `input`'s batches hold (null: all, in order). */
+  setInputColumns(input: number, map: number[] | null): void {
+    this.#maps[input] = map === null ? null : Int32Array.from(map);
+    if (map === null) this.#slots[input] = null;
+    else {
+      const slots = new Int32Array(this.#c.columns.length).fill(-1);
+      map.forEach((col, w) => (slots[col] = w));
+      this.#slots[input] = slots;
+    }
+  }
+
+  addBatch(batch: RecordBatch, input: number): void {
+    const map = this.#maps[input] ?? null;
+    if (map === null) this.#stats.addBatch(batch);
+    else this.#addMapped(batch, map);
+    if (this.#c.stratify.length > 0) this.#countStrata(batch, input);
+  }
+
+  /** A batch holding some of the columns (a later JSON Lines input without some keys): the rest are missing. */
+  #addMapped(batch: RecordBatch, map: Int32Array): void {
+    const t = this.#stats;
+    const W = batch.wanted;
+    const present = new Uint8Array(this.#c.columns.length);
+    for (let w = 0; w < W; w++) present[map[w]!] = 1;
+    for (let i = 0; i < batch.count; i++) {
+      for (let w = 0; w < W; w++) {
+        const k = i * W + w;
+        t.addField(map[w]!, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
+      }
+      for (let col = 0; col < present.length; col++) if (!present[col]) t.addField(col, batch.data, 0, 0, FieldKind.Missing);
+      t.addRecordDone();
+    }
+  }
+
+  #countStrata(b: RecordBatch, input: number): void {
+    const slots = this.#slots[input] ?? null;
+    const spec = this.#c.stratify;
+    const slotOf = (j: number): number => (slots === null ? spec[j]!.column : slots[spec[j]!.column]!);
+    if (this.#single) {
+      const w = slotOf(0);
+      for (let i = 0; i < b.count; i++) {
+        const k = i * b.wanted + w;
+        const s = b.fieldStart[k]!;
+        const e = b.fieldEnd[k]!;
+        // Plain, non-empty: its bytes are its key (see fieldKey). Anything else takes the general path.
+        if (w >= 0 && b.fieldKind[k] === FieldKind.Plain && e > s) this.#fast.count(b.data, s, e);
+        else this.#add(w < 0 ? MISSING_KEY : fieldKey(b, i, w));
+      }
+      this.#checkCount();
+      return;
+    }
+    const ws = spec.map((_, j) => slotOf(j));
+    for (let i = 0; i < b.count; i++) {
+      let key = '';
+      for (let j = 0; j < spec.length; j++) {
+        if (j > 0) key += TUPLE_SEP;
+        key += this.#partKey(b, i, ws[j]!, j, input);
+      }
+      this.#add(key);
+    }
+    this.#checkCount();
+  }
+
+  /** One column's part of a stratum key, as shuffle's scatter makes it. */
+  #partKey(b: RecordBatch, i: number, w: number, j: number, input: number): string {
+    if (w < 0) return MISSING_KEY;
+    const s = this.#c.stratify[j]!;
+    if (s.edges === null) return fieldKey(b, i, w);
+    const v = parseBinValue(fieldText(b, i, w), s.name, this.#c.files[input] ?? '<input>', b.line[i]!);
+    return v === null ? MISSING_KEY : binLabel(s.edges, binOf(s.edges, v));
+  }
+
+  #add(key: string): void {
+    this.#strata.set(key, (this.#strata.get(key) ?? 0) + 1);
+  }
+
+  #checkCount(): void {
+    if (this.#strata.size + this.#fast.size > MAX_STRATA) throw tooManyStrata(this.#c.stratify.map((s) => s.name));
+  }
+
+  finish(): ProfileTaskResult {
+    const strata = new Map(this.#strata);
+    this.#fast.forEach((k, n) => strata.set(k, (strata.get(k) ?? 0) + n));
+    return { stats: this.#stats.toJSON(), strata: [...strata] };
+  }
+}
+
+function tooManyStrata(columns: string[]): RowdeckError {
+  return new RowdeckError(
+    'ERR_OPTION',
+    `--stratify ${columns.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
+    { column: columns.join(',') },
+  );
+}
+
+/** Messages between the main thread and a profile worker. */
+export type ProfileRequest =
+  | { type: 'columns'; input: number; map: number[] | null }
+  | { type: 'batch'; buffer: ArrayBuffer }
+  | { type: 'finish' };
+export type ProfileReply =
+  | { type: 'done-batch'; buffer: ArrayBuffer }
+  | { type: 'result'; result: ProfileTaskResult }
+  | { type: 'error'; error: WireError };
+
+// --- reading ---------------------------------------------------------------------------------------
+
+interface InputBatch {
+  input: number;
+  batch: RecordBatch;
+  /** The input's reader counters (final after its last batch). */
+  counters: RecordReader['stats'];
+}
+
+/**
+ * Reads the inputs once, in order, with every column wanted. A RecordReader must know its wanted
+ * columns before it starts, so each input's first chunks go to a probe reader until the header
+ * (or first JSON object) is known; those chunks are then fed to the real reader. This keeps the
+ * single read for standard input too. Batches are valid until the next one is requested.
+ */
+async function* readAllColumns(
+  o: ResolvedProfileOptions,
+  onColumns: (input: number, columns: string[], map: number[] | null) => void,
+  onReject: (r: RejectedRecord) => void,
+): AsyncGenerator<InputBatch> {
+  let columns: string[] | null = null;
+  let firstIsCsv = false;
+  for (let k = 0; k < o.inputs.length; k++) {
+    const path = o.inputs[k]!;
+    const file = nameInput(path);
+    const format = detectFormat(path, o.format ?? undefined);
+    const base = {
+      format,
+      header: o.header,
+      file,
+      ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}),
+    };
+    const it = openInput(path)[Symbol.asyncIterator]();
+    try {
+      // Probe: skip (not fail) so a bad first record is left to the real reader's policy.
+      const probe = new RecordReader({ ...base, wanted: [], onBadRecord: 'skip' });
+      const held: Buffer[] = [];
+      let ended = false;
+      while (probe.schema === null) {
+        const r = await it.next();
+        if (r.done) {
+          ended = true;
+          break;
+        }
+        held.push(r.value);
+        probe.push(r.value);
+      }
+      const own = probe.schema?.columns ?? [];
+      let wanted: string[];
+      let map: number[] | null = null;
+      let expected: string[] | undefined;
+      if (columns === null) {
+        columns = own;
+        firstIsCsv = format !== 'jsonl';
+        wanted = columns;
+      } else if (firstIsCsv && format !== 'jsonl') {
+        wanted = columns;
+        expected = columns;
+      } else {
+        // JSON Lines: keys of the first object that are columns of the first input; others are missing.
+        wanted = columns.filter((c) => own.includes(c));
+        const cols = columns;
+        map = wanted.length === columns.length ? null : wanted.map((c) => cols.indexOf(c));
+      }
+      onColumns(k, columns, map);
+      const reader = new RecordReader({
+        ...base,
+        wanted,
+        onBadRecord: o.onBadRecord,
+        onReject,
+        ...(expected ? { expectedColumns: expected, expectedFrom: nameInput(o.inputs[0]!) } : {}),
+      });
+      for (const chunk of held) {
+        const batch = reader.push(chunk);
+        if (batch) yield { input: k, batch, counters: reader.stats };
+      }
+      if (!ended) {
+        for (;;) {
+          const r = await it.next();
+          if (r.done) break;
+          const batch = reader.push(r.value);
+          if (batch) yield { input: k, batch, counters: reader.stats };
+        }
+      }
+      const last = reader.end();
+      if (last) yield { input: k, batch: last, counters: reader.stats };
+      else yield { input: k, batch: emptyBatch(wanted.length), counters: reader.stats };
+    } finally {
+      await it.return?.(undefined);
+    }
+  }
+}
+
+function emptyBatch(wanted: number): RecordBatch {
+  const u = new Uint32Array(0);
+  const f = new Float64Array(0);
+  return { data: Buffer.alloc(0), count: 0, start: u, end: u, next: u, offset: f, line: f, wanted, fieldStart: u, fieldEnd: u, fieldKind: new Uint8Array(0) };
+}
+
+// --- orchestration -----------------------------------------------------------------------------------
+
+interface Lane {
+  worker: Worker;
+  inFlight: number;
+  result: Promise<ProfileTaskResult>;
+}
+
+/** Batches in flight per worker: one being worked on, one waiting, so no worker idles. */
+const MAX_IN_FLIGHT = 2;
+
+export async function profile(options: ProfileOptions): Promise<Profile> {
+  const o = resolveProfileOptions(options);
+  const t0 = Date.now();
+  const secret = deriveSecret(DEFAULT_SEED);
+  const totalBytes = o.inputs.reduce((a, p) => {
+    if (p === '-') return a;
+    try {
+      return a + statSync(p).size;
+    } catch {
+      return a; // reported with its path when opened
+    }
+  }, 0);
+
+  // Quantile bins need their edges before any record has a stratum: the same first pass as
+  // shuffle makes (so the labels match a shuffle with the default seed and memory budget).
+  let binEdges: BinEdges[] = [];
+  const binCols = o.stratify.filter((s) => s.bins > 0);
+  if (binCols.length > 0) {
+    o.onProgress?.({ stage: 'bins', done: 0, total: totalBytes, records: 0, elapsedMs: 0 });
+    binEdges = await computeBinEdges({
+      inputs: o.inputs,
+      format: o.format ?? detectFormat(o.inputs[0]!),
+      delimiter: o.delimiter,
+      header: o.header,
+      onBadRecord: o.onBadRecord,
+      columns: binCols,
+      secret,
+      memory: DEFAULT_MEMORY,
+    });
+  }
+  const binsMs = Date.now() - t0;
+  const tRead = Date.now();
+
+  const files = o.inputs.map(nameInput);
+  const inputs: ProfileInput[] = o.inputs.map((path) => ({ path, format: detectFormat(path, o.format ?? undefined), bytes: 0, records: 0, rejected: 0 }));
+  const rejects: Profile['rejects'] = [];
+  const onReject = (r: RejectedRecord): void => {
+    if (rejects.length < MAX_LISTED_REJECTS) rejects.push({ file: r.file, line: r.line, code: r.code, reason: o.excludeValues ? null : r.reason });
+  };
+
+  // Set once the first input's columns are known (see start()).
+  const state: { columns: string[] | null; inline: ProfileTask | null } = { columns: null, inline: null };
+  const lanes: Lane[] = [];
+  const spare: ArrayBuffer[] = [];
+  let failure: Error | null = null;
+  let wake: (() => void) | null = null;
+  const notify = (): void => {
+    const w = wake;
+    wake = null;
+    w?.();
+  };
+
+  /** Starts the tasks once the columns are known (they size the statistics). */
+  const start = (cols: string[]): void => {
+    const stratify = o.stratify.map((s) => {
+      const column = cols.indexOf(s.name);
+      if (column < 0) throw unknownColumn(s.name, cols, files[0]!);
+      return { column, name: s.name, edges: s.bins > 0 ? (binEdges.find((b) => b.column === s.name)?.edges ?? []) : null };
+    });
+    const config: ProfileTaskConfig = { columns: cols, files, stratify };
+    if (o.threads === 0) {
+      state.inline = new ProfileTask(config);
+      return;
+    }
+    const workerFile = resolveWorkerFile('profile-worker.js');
+    for (let t = 0; t < o.threads; t++) {
+      const worker = new Worker(workerFile, { workerData: config });
+      const lane: Lane = { worker, inFlight: 0, result: null as unknown as Promise<ProfileTaskResult> };
+      lane.result = new Promise<ProfileTaskResult>((resolve, reject) => {
+        worker.on('message', (m: ProfileReply) => {
+          if (m.type === 'done-batch') {
+            lane.inFlight--;
+            spare.push(m.buffer);
+            notify();
+          } else if (m.type === 'result') resolve(m.result);
+          else {
+            failure ??= fromWire(m.error);
+            reject(failure);
+            notify();
+          }
+        });
+        worker.on('error', (e) => {
+          failure ??= e;
+          reject(e);
+          notify();
+        });
+        worker.on('exit', (code) => {
+          if (code !== 0) {
+            failure ??= new RowdeckError('ERR_INTERNAL', `profile worker ${t} stopped (exit ${code})`);
+            reject(failure);
+            notify();
+          }
+        });
+      });
+      lane.result.catch(() => {});
+      lanes.push(lane);
+    }
+  };
+
+  let records = 0;
+  let next = 0;
+  try {
+    const onColumns = (input: number, cols: string[], map: number[] | null): void => {
+      if (state.columns === null) {
+        state.columns = cols;
+        start(cols);
+      }
+      state.inline?.setInputColumns(input, map);
+      for (const l of lanes) l.worker.postMessage({ type: 'columns', input, map } satisfies ProfileRequest);
+    };
+    for await (const { input, batch, counters } of readAllColumns(o, onColumns, onReject)) {
+      if (failure) throw failure;
+      const n = batch.count;
+      if (state.inline) state.inline.addBatch(batch, input);
+      else if (n > 0) {
+        // Round robin over workers with room; wait while all are busy.
+        let lane: Lane | undefined;
+        for (;;) {
+          for (let k = 0; k < lanes.length && !lane; k++) {
+            const cand = lanes[(next + k) % lanes.length]!;
+            if (cand.inFlight < MAX_IN_FLIGHT) {
+              lane = cand;
+              next = (next + k + 1) % lanes.length;
+            }
+          }
+          if (lane) break;
+          await new Promise<void>((r) => (wake = r));
+          if (failure) throw failure;
+        }
+        const buffer = packBatch(batch, input, spare.pop());
+        lane.inFlight++;
+        lane.worker.postMessage({ type: 'batch', buffer } satisfies ProfileRequest, [buffer]);
+      }
+      records += n;
+      const inp = inputs[input]!;
+      inp.records += n;
+      inp.bytes = counters.bytes;
+      inp.rejected = counters.rejected;
+      o.onProgress?.({ stage: 'read', done: inputs.reduce((a, x) => a + x.bytes, 0), total: totalBytes, records, elapsedMs: Date.now() - tRead });
+    }
+    const cols: string[] = state.columns ?? [];
+    let results: ProfileTaskResult[];
+    if (state.inline) results = [state.inline.finish()];
+    else {
+      for (const l of lanes) l.worker.postMessage({ type: 'finish' } satisfies ProfileRequest);
+      results = await Promise.all(lanes.map((l) => l.result));
+    }
+    const readMs = Date.now() - tRead;
+    return buildProfile(o, { columns: cols, results, inputs, rejects, binEdges, secret, binsMs, readMs, t0 });
+  } finally {
+    await Promise.all(lanes.map((l) => l.worker.terminate()));
+  }
+}
+
+// --- the result --------------------------------------------------------------------------------------
+
+interface Gathered {
+  columns: string[];
+  results: ProfileTaskResult[];
+  inputs: ProfileInput[];
+  rejects: Profile['rejects'];
+  binEdges: BinEdges[];
+  secret: Secret;
+  binsMs: number;
+  readMs: number;
+  t0: number;
+}
+
+function compareKeys(a: string, b: string): number {
+  return a < b ? -1 : a > b ? 1 : 0;
+}
+
+function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
+  const stats = new TableStats(g.columns);
+  for (const r of g.results) stats.merge(TableStats.fromJSON(r.stats));
+  const records = g.inputs.reduce((a, x) => a + x.records, 0);
+  const rejected = g.inputs.reduce((a, x) => a + x.rejected, 0);
+  const columns = stats.summary({ excludeValues: o.excludeValues });
+  const warnings: ProfileWarning[] = [];
+
+  let strata: ProfileStrata | null = null;
+  let keys: string[] = [];
+  let counts: number[] = [];
+  if (o.stratify.length > 0) {
+    const merged = new Map<string, number>();
+    for (const r of g.results) for (const [k, n] of r.strata) merged.set(k, (merged.get(k) ?? 0) + n);
+    if (merged.size > MAX_STRATA) throw tooManyStrata(o.stratify.map((s) => s.name));
+    keys = [...merged.keys()].sort(compareKeys);
+    counts = keys.map((k) => merged.get(k)!);
+    const share = (n: number): number => (records > 0 ? n / records : 0);
+    const byColumn = o.stratify.map((s, j) => {
+      const marginal = new Map<string, number>();
+      keys.forEach((k, i) => {
+        const part = k.split(TUPLE_SEP)[j]!;
+        marginal.set(part, (marginal.get(part) ?? 0) + counts[i]!);
+      });
+      const parts = [...marginal.keys()].sort(compareKeys);
+      return {
+        column: s.bins > 0 ? `${s.name}:bins=${s.bins}` : s.name,
+        values: parts.map((p) => ({ value: o.excludeValues ? null : stratumValues(p), count: marginal.get(p)!, share: share(marginal.get(p)!) })),
+      };
+    });
+    strata = {
+      columns: o.stratify.map((s) => (s.bins > 0 ? `${s.name}:bins=${s.bins}` : s.name)),
+      values: keys.map((k, i) => ({ value: o.excludeValues ? null : stratumValues(k), count: counts[i]!, share: share(counts[i]!) })),
+      byColumn,
+      bins: g.binEdges.map((b) => (o.excludeValues ? { ...b, edges: [] } : b)),
+    };
+    warnings.push(...warnAboutStrata(o, keys, counts, records, g.secret));
+  }
+  warnings.push(...warnAboutColumns(o, columns, g.binEdges, rejected));
+  return {
+    profileVersion: PROFILE_VERSION,
+    tool: { name: 'rowdeck', version: VERSION },
+    inputs: g.inputs,
+    columnNames: g.columns,
+    records,
+    rejected,
+    rejects: g.rejects,
+    columns,
+    strata,
+    warnings,
+    plan: { partitions: o.partitions, folds: o.folds, tolerance: o.tolerance },
+    excludeValues: o.excludeValues,
+    threads: o.threads,
+    timingsMs: { bins: g.binsMs, read: g.readMs, total: Date.now() - g.t0 },
+  };
+}
+
+/** A class as messages name it: its values, or its position when values are excluded. */
+function describeClass(o: ResolvedProfileOptions, key: string, index: number): string {
+  // Positions follow the profile's value order (strata.values), as shuffle's "stratum #N".
+  if (o.excludeValues) return o.stratify.length === 1 ? `${o.stratify[0]!.name} class #${index + 1}` : `stratum #${index + 1}`;
+  const vals = stratumValues(key);
+  return o.stratify.map((s, j) => `${s.name}=${vals[j] === null ? '(missing)' : JSON.stringify(vals[j])}`).join(', ');
+}
+
+/**
+ * The largest deviation a shuffle with the default seed would reach, over parts and folds, for
+ * `partitions` x `folds` (the same quotas and dealing order shuffle computes).
+ */
+export function predictDeviation(keys: string[], counts: number[], partitions: number, folds: number, secret: Secret): { deviation: number; stratum: number; kind: 'part' | 'fold' } {
+  const order = orderStrata(keys, secret);
+  const sizes = order.map((i) => counts[i]!);
+  const deal: DealSpec = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions, folds };
+  const table = buildDealTable(sizes, deal, seededStarts(secret, 1));
+  const cc = countCells(table); // [s * cells + cell], cell = partition * K + fold
+  const nS = sizes.length;
+  const cells = partitions * folds;
+  const partStrata = new Float64Array(partitions * nS);
+  const foldStrata = new Float64Array(folds * nS);
+  for (let s = 0; s < nS; s++) {
+    for (let c = 0; c < cells; c++) {
+      const n = cc[s * cells + c]!;
+      if (n === 0) continue;
+      partStrata[Math.floor(c / folds) * nS + s]! += n;
+      foldStrata[(c % folds) * nS + s]! += n;
+    }
+  }
+  const part = maxDeviation(partStrata, partitions, sizes);
+  const fold = folds > 1 ? maxDeviation(foldStrata, folds, sizes) : { deviation: 0, unit: -1, stratum: -1 };
+  const worst = fold.deviation > part.deviation ? { ...fold, kind: 'fold' as const } : { ...part, kind: 'part' as const };
+  return { deviation: worst.deviation, stratum: worst.stratum < 0 ? -1 : order[worst.stratum]!, kind: worst.kind };
+}
+
+/** Largest n in [lo, from] (searching downwards, at most `tries` values) for which ok(n) holds, or null. */
+function findLargest(from: number, lo: number, ok: (n: number) => boolean, tries = 200): number | null {
+  for (let n = from, k = 0; n >= lo && k < tries; n--, k++) if (ok(n)) return n;
+  return null;
+}
+
+function warnAboutStrata(o: ResolvedProfileOptions, keys: string[], counts: number[], records: number, secret: Secret): ProfileWarning[] {
+  const out: ProfileWarning[] = [];
+  const columnsText = o.stratify.map((s) => s.name).join(',');
+  const listSmall = (limit: number, code: 'CLASS_BELOW_PARTITIONS' | 'CLASS_BELOW_FOLDS', what: string): void => {
+    const small = keys.map((k, i) => i).filter((i) => counts[i]! < limit);
+    small.slice(0, MAX_LISTED_CLASSES).forEach((i) => {
+      out.push({
+        code,
+        column: columnsText,
+        message: `${describeClass(o, keys[i]!, i)} has ${counts[i]} record${counts[i] === 1 ? '' : 's'}, fewer than the ${limit} ${what}: some ${what} get none of it.`,
+        details: { class: o.excludeValues ? i + 1 : keys[i]!, count: counts[i]!, [what]: limit },
+      });
+    });
+    if (small.length > MAX_LISTED_CLASSES) {
+      out.push({
+        code,
+        column: columnsText,
+        message: `… and ${small.length - MAX_LISTED_CLASSES} more class(es) with fewer than ${limit} records.`,
+        details: { classes: small.length - MAX_LISTED_CLASSES, [what]: limit },
+      });
+    }
+  };
+  if (o.partitions > 1) listSmall(o.partitions, 'CLASS_BELOW_PARTITIONS', 'partitions');
+  if (o.folds > 1) listSmall(o.folds, 'CLASS_BELOW_FOLDS', 'folds');
+
+  // What a shuffle would reach, and what would work instead. Skipped when the tables get large.
+  const P = o.partitions;
+  const K = o.folds;
+  if ((P > 1 || K > 1) && keys.length * P * K <= 5_000_000) {
+    const worst = predictDeviation(keys, counts, P, K, secret);
+    if (worst.deviation > o.tolerance + 1e-12) {
+      const budget = keys.length * K * P;
+      const fits = (p: number, k: number): boolean => predictDeviation(keys, counts, p, k, secret).deviation <= o.tolerance + 1e-12;
+      const tries = Math.max(1, Math.min(200, Math.floor(20_000_000 / Math.max(1, budget))));
+      const partitions = P > 1 ? findLargest(P - 1, 1, (p) => fits(p, K), tries) : null;
+      const folds = K > 1 ? findLargest(K - 1, 2, (k) => fits(P, k), tries) : null;
+      const tolerance = Math.ceil(worst.deviation * 100) / 100;
+      const hints: string[] = [];
+      if (partitions !== null && P > 1) hints.push(`--partitions ${partitions}`);
+      if (folds !== null && K > 1) hints.push(`--folds ${folds}`);
+      hints.push(`--tolerance ${tolerance}`);
+      const planned = [P > 1 ? `--partitions ${P}` : '', K > 1 ? `--folds ${K}` : ''].filter(Boolean).join(' ');
+      const who = worst.stratum >= 0 ? describeClass(o, keys[worst.stratum]!, worst.stratum) : 'a class';
+      out.push({
+        code: 'TOLERANCE_UNMET',
+        column: columnsText,
+        message:
+          `With ${planned}, a shuffle would miss the share of ${who} (${counts[worst.stratum] ?? 0} of ${records} records) by ${(worst.deviation * 100).toFixed(1)}% in some ${worst.kind}, ` +
+          `more than the tolerance ${o.tolerance}, and stop. Would work: ${hints.join(', or ')}` +
+          (o.stratify.length > 0 ? ', or merging rare classes into one.' : '.'),
+        details: { deviation: worst.deviation, tolerance: o.tolerance, partitions, folds, toleranceNeeded: tolerance },
+      });
+    }
+  }
+
+  // Missing values form their own class; often that is a surprise.
+  o.stratify.forEach((s, j) => {
+    let missing = 0;
+    keys.forEach((k, i) => {
+      if (k.split(TUPLE_SEP)[j] === MISSING_KEY) missing += counts[i]!;
+    });
+    if (missing > 0) {
+      out.push({
+        code: 'STRATIFY_MISSING',
+        column: s.name,
+        message: `${s.name} is missing in ${missing} record${missing === 1 ? '' : 's'} (${((missing / Math.max(1, records)) * 100).toFixed(1)}%); a shuffle deals them as a class of their own.`,
+        details: { missing },
+      });
+    }
+  });
+  if (keys.length > MANY_CLASSES) {
+    out.push({
+      code: 'MANY_CLASSES',
+      column: columnsText,
+      message: `--stratify ${columnsText} makes ${keys.length} classes; is it an identifier? Stratify on a class column, use NAME:bins=Q for a numeric one, or --group to keep an entity's records together.`,
+      details: { classes: keys.length },
+    });
+  }
+  return out;
+}
+
+function warnAboutColumns(o: ResolvedProfileOptions, columns: ColumnSummary[], bins: BinEdges[], rejected: number): ProfileWarning[] {
+  const out: ProfileWarning[] = [];
+  for (const c of columns) {
+    if (c.type === 'empty') {
+      out.push({ code: 'COLUMN_EMPTY', column: c.name, message: `${c.name} has no values at all (${c.missing} missing).`, details: { missing: c.missing } });
+    } else if (c.distinct === 1 && !c.approximate) {
+      out.push({ code: 'SINGLE_VALUE', column: c.name, message: `${c.name} holds one value only${c.missing > 0 ? ` (and ${c.missing} missing)` : ''}.`, details: { count: c.count, missing: c.missing } });
+    }
+  }
+  for (const b of bins) {
+    if (!b.exact) {
+      out.push({
+        code: 'BINS_APPROXIMATE',
+        column: b.column,
+        message: `${b.column}: too many values to hold for exact quantiles; the bin edges come from a uniform sample of them.`,
+        details: { values: b.values },
+      });
+    }
+  }
+  if (rejected > 0) {
+    out.push({ code: 'REJECTED_RECORDS', column: null, message: `${rejected} record${rejected === 1 ? ' was' : 's were'} malformed and left out (--on-bad-record skip).`, details: { rejected } });
+  }
+  return out;
+}
