@@ -94,7 +94,9 @@ export function computeQuotas(strataSizes: ArrayLike<number>, spec: DealSpec): F
       const target = spec.exactCounts ? (spec.splits[i]!.weight * seen) / wsum : w[i]! * seen;
       deficit[i] = target - given[i]! - base;
     }
-    idx.sort((a, b) => deficit[b]! - deficit[a]! || frac[b]! - frac[a]! || a - b);
+    // Only splits with a fractional share may take a leftover (else one would end a whole record
+    // above its share); among them, the one furthest behind overall goes first.
+    idx.sort((a, b) => Number(frac[b]! > 1e-9) - Number(frac[a]! > 1e-9) || deficit[b]! - deficit[a]! || frac[b]! - frac[a]! || a - b);
     for (let k = 0; k < left; k++) quota[s * S + idx[k % S]!]! += 1;
     for (let i = 0; i < S; i++) given[i]! += quota[s * S + i]!;
   }
