@@ -3,7 +3,7 @@
  * cell from its stratum rank, and lay out each part's slice of output bytes. Pure apart from
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
-import { closeSync, openSync, readSync, statSync } from 'node:fs';
+import { closeSync, openSync, readSync } from 'node:fs';
 import { buildDealTable, cellOf, type DealTable } from '../core/deal.js';
 import { Fingerprint, hashToUnit, hashWords3 } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
@@ -12,12 +12,12 @@ import type { TableStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
 import { splitRecordFields } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { HEADER_BYTES, HEADER_WORDS } from './spill.js';
+import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 
 export interface GatherTask {
   bucket: number;
-  /** The bucket's spill file from each scatter task, in task order. */
-  paths: string[];
+  /** Where the bucket's records lie: chunks of the scatter tasks' spill files. */
+  pieces: SpillPiece[];
   /** Rank, within each dealing stratum, of the first record of that stratum in this bucket. */
   rankStart: Float64Array;
   /**
@@ -140,14 +140,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const jsonFoldBase = isJson && foldCol ? Buffer.byteLength(JSON.stringify(plan.foldColumn)) + 2 : 0;
   const foldLen = Int32Array.from({ length: K }, (_, f) => (foldCol ? (isJson ? jsonFoldBase : 1) + String(f).length : 0));
   const t0 = PHASES ? performance.now() : 0;
-  const sizes = task.paths.map((p) => {
-    try {
-      return statSync(p).size;
-    } catch (err) {
-      throw ioError(err, p, 'reading a spill file');
-    }
-  });
-  const spillBytes = sizes.reduce((a, b) => a + b, 0);
+  const spillBytes = task.pieces.reduce((a, p) => a + p.length, 0);
   // Each record sheds a 24-byte header and gains at most its line end and fold field.
   const growth = Math.max(0, 2 + Math.max(0, ...foldLen) - HEADER_BYTES);
   const outCap = spillBytes + Math.ceil(spillBytes / HEADER_BYTES) * growth;
@@ -156,27 +149,17 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const arena = task.arena && task.arena.byteLength >= need ? task.arena : (Buffer.allocUnsafeSlow(Math.ceil(need * 1.25) + 4096).buffer as ArrayBuffer);
   const buf = Buffer.from(arena, 0, need);
   const bytes = new Uint8Array(arena, 0, need);
+  readPieces(task.pieces, bytes);
+  // Chunks are whole records; consecutive chunks of one task share its stratum ids.
   const pieceEnds: number[] = [];
+  const pieceTasks: number[] = [];
   {
     let at = 0;
-    task.paths.forEach((p, t) => {
-      let fd = -1;
-      try {
-        fd = openSync(p, 'r');
-        let got = 0;
-        while (got < sizes[t]!) {
-          const r = readSync(fd, bytes, at + got, sizes[t]! - got, got);
-          if (r === 0) break;
-          got += r;
-        }
-        at += got;
-      } catch (err) {
-        throw ioError(err, p, 'reading a spill file');
-      } finally {
-        if (fd >= 0) closeSync(fd);
-      }
+    for (const p of task.pieces) {
+      at += p.length;
       pieceEnds.push(at);
-    });
+      pieceTasks.push(p.task);
+    }
   }
   const T = PHASES ? [t0, performance.now()] : null;
   const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
@@ -189,7 +172,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
     stratum: scratch(4, maxRecords),
     count: 0,
   };
-  indexBucket(ix, pieceEnds, plan.localToGlobal);
+  indexBucket(ix, pieceEnds, pieceTasks.map((t) => plan.localToGlobal[t]!));
   const n = ix.count;
   T?.push(performance.now());
   const { u32, at, keyHi, keyLo } = ix;
@@ -283,13 +266,13 @@ interface BucketIndex {
 }
 
 /** One walk over the headers of every scatter task's piece of the bucket. */
-function indexBucket(ix: BucketIndex, pieceEnds: number[], localToGlobal: number[][]): void {
+function indexBucket(ix: BucketIndex, pieceEnds: number[], pieceStrata: number[][]): void {
   const { u32, at, keyHi, keyLo, lenTerm, stratum } = ix;
   let n = 0;
   let w = 0;
   for (let t = 0; t < pieceEnds.length; t++) {
     const wordEnd = pieceEnds[t]! >>> 2;
-    const map = Int32Array.from(localToGlobal[t]!);
+    const map = Int32Array.from(pieceStrata[t]!);
     while (w < wordEnd) {
       const lt = u32[w + 5]!;
       at[n] = w;
@@ -433,6 +416,34 @@ function copyWithFold(
 function fingerprintParts(ix: BucketIndex, n: number, cellOfRec: Uint32Array, K: number, fps: Fingerprint[]): void {
   const { u32, at, lenTerm } = ix;
   for (let i = 0; i < n; i++) fps[(cellOfRec[i]! / K) | 0]!.addAligned(u32, at[i]! + HEADER_WORDS, lenTerm[i]! >>> 2);
+}
+
+/** Reads every piece (chunks of spill files) into `bytes`, one after another. */
+function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
+  let at = 0;
+  let fd = -1;
+  let open = '';
+  try {
+    for (const p of pieces) {
+      if (p.path !== open) {
+        if (fd >= 0) closeSync(fd);
+        fd = -1;
+        fd = openSync(p.path, 'r');
+        open = p.path;
+      }
+      let got = 0;
+      while (got < p.length) {
+        const r = readSync(fd, bytes, at + got, p.length - got, p.offset + got);
+        if (r === 0) throw new Error(`spill file ends early at ${p.offset + got}`);
+        got += r;
+      }
+      at += p.length;
+    }
+  } catch (err) {
+    throw ioError(err, open, 'reading a spill file');
+  } finally {
+    if (fd >= 0) closeSync(fd);
+  }
 }
 
 // Per-record arrays reused from bucket to bucket: a worker deals one bucket after another, and

@@ -19,7 +19,7 @@ import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { readRecords } from '../io/input.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { BucketWriter } from './spill.js';
+import { BucketWriter, type SpillPiece } from './spill.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
 export const MISSING_KEY = '\uffff';
@@ -76,7 +76,9 @@ export interface ScatterTaskResult {
   /** `bucketCounts[stratum][bucket]`. */
   bucketCounts: Float64Array[];
   bucketBytes: Float64Array;
-  paths: string[];
+  /** The task's spill file and, per bucket, its chunks there: [offset, length, …]. */
+  path: string;
+  chunks: number[][];
   records: number;
   fingerprint: { hi: number; lo: number; count: number };
   /** Group mode: [hi, lo, size, stratum, count, stratum, count, …] per group. */
@@ -91,8 +93,8 @@ export interface ScatterResult {
   bucketCounts: Float64Array[];
   /** Per task: local stratum id -> union stratum id. */
   taskStrata: number[][];
-  /** Per bucket: its spill file from every task, in task order. */
-  bucketPaths: string[][];
+  /** Per bucket: where its records lie, chunks of every task's spill file (task order). */
+  bucketPieces: SpillPiece[][];
   inputs: { path: string; bytes: number; records: number; rejected: number }[];
   records: number;
   rejected: number;
@@ -349,7 +351,8 @@ export class ScatterTask {
       strata: this.#strata,
       bucketCounts: this.#bucketCounts,
       bucketBytes: this.#writer.bytes,
-      paths: this.#writer.paths,
+      path: this.#writer.path,
+      chunks: this.#writer.chunks,
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
       groups: this.#groups ? [...this.#groups.values()].map((g) => [g.hi, g.lo, g.size, ...[...g.strata].flat()]) : null,
@@ -548,13 +551,20 @@ export function mergeScatterResults(
     });
     groups = [...byKey.values()];
   }
-  const bucketPaths = Array.from({ length: buckets }, (_, b) => results.map((r) => r.paths[b]!));
+  const bucketPieces = Array.from({ length: buckets }, (_, b) => {
+    const pieces: SpillPiece[] = [];
+    results.forEach((r, t) => {
+      const c = r.chunks[b]!;
+      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path: r.path, offset: c[k]!, length: c[k + 1]! });
+    });
+    return pieces;
+  });
   return {
     schema,
     strata,
     bucketCounts,
     taskStrata,
-    bucketPaths,
+    bucketPieces,
     inputs,
     records: results.reduce((a, r) => a + r.records, 0),
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),

@@ -433,7 +433,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
     const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
-      const task: GatherTask = { bucket: b, paths: sc.bucketPaths[b]!, rankStart: rankStarts[b]! };
+      const task: GatherTask = { bucket: b, pieces: sc.bucketPieces[b]!, rankStart: rankStarts[b]! };
       const arena = spare.pop();
       if (arena) task.arena = arena;
       const p = pool!.run(task, arena ? [arena] : []);
@@ -454,8 +454,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
-      // The bucket is done: free its disk space now rather than all at the end.
-      for (const path of sc.bucketPaths[b]!) unlink(path).catch(() => {});
       written += r.data.byteLength;
       spare.push(r.data.buffer as ArrayBuffer);
       if (next < buckets) submit(next++);
@@ -569,25 +567,30 @@ function countHashCells(
   cellOf: (hi: number, lo: number) => number,
   out: Float64Array,
 ): void {
-  for (const paths of sc.bucketPaths) {
-    paths.forEach((path, t) => {
-      const buf = readFileSyncAligned(path);
-      const u32 = new Uint32Array(buf.buffer, buf.byteOffset, buf.byteLength >>> 2);
-      const map = taskToDealing[t]!;
-      for (let w = 0; w < u32.length; ) {
-        const cell = cellOf(u32[w]!, u32[w + 1]!);
-        out[cell * nStrata + map[u32[w + 4]!]!]!++;
-        const len = u32[w + 5]! >>> 2;
+  const u32 = new Uint32Array(1 << 18);
+  const bytes = new Uint8Array(u32.buffer);
+  for (const pieces of sc.bucketPieces) {
+    for (const p of pieces) {
+      // Chunks hold whole records; read each and walk its headers.
+      const view = p.length <= bytes.length ? u32 : new Uint32Array(Math.ceil(p.length / 4));
+      const fd = openSync(p.path, 'r');
+      try {
+        readSync(fd, new Uint8Array(view.buffer, 0, p.length), 0, p.length, p.offset);
+      } finally {
+        closeSync(fd);
+      }
+      const map = taskToDealing[p.task]!;
+      const words = p.length >>> 2;
+      for (let w = 0; w < words; ) {
+        const cell = cellOf(view[w]!, view[w + 1]!);
+        out[cell * nStrata + map[view[w + 4]!]!]!++;
+        const len = view[w + 5]! >>> 2;
         w += 6 + ((len + 3) >>> 2);
       }
-    });
+    }
   }
 }
 
-function readFileSyncAligned(path: string): Buffer {
-  const b = readFileSync(path);
-  return b.byteOffset % 4 === 0 ? b : Buffer.from(b);
-}
 
 function headerBytes(sc: ScatterResult, o: ResolvedShuffleOptions, format: InputFormat): Buffer | null {
   if (format === 'jsonl' || !sc.schema.headerBytes) return null;
