@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { ExactSum, ExactMoments } from '../src/core/exact-sum.js';
+import { computeMeanVariance, DecimalSums, ExactMoments, ExactSum, roundRatio, toFraction } from '../src/core/exact-sum.js';
 
 // Reference arithmetic: every double is an integer multiple of 2^-1074, so scaling by 2^K with a
 // large K turns sums and products into exact BigInt arithmetic. BigInt -> Number conversion is
@@ -231,5 +231,171 @@ describe('ExactMoments', () => {
     expect(Number.isNaN(new ExactMoments().mean())).toBe(true);
     expect(Number.isNaN(new ExactMoments().add(4).variance())).toBe(true);
     expect(new ExactMoments().add(4).mean()).toBe(4);
+  });
+});
+
+describe('roundRatio: one correctly rounded division of exact integers', () => {
+  // Reference: ECMA-262 StringToNumber rounds a decimal literal to the nearest double, ties to
+  // even (IEEE 754 round-to-nearest), with gradual underflow; so roundRatio(m, 10^k) must equal
+  // Number(`${m}e-${k}`) and roundRatio(m·10^k, 1) must equal Number(`${m}e${k}`).
+  it('agrees with the parse of the same decimal, over the whole range including subnormals', () => {
+    const rng = seedrandom('round-ratio');
+    for (let i = 0; i < 4000; i++) {
+      const digits = 1 + Math.floor(rng() * 30);
+      let m = String(1 + Math.floor(rng() * 9));
+      for (let d = 1; d < digits; d++) m += Math.floor(rng() * 10);
+      const k = Math.floor(rng() * 360);
+      const neg = rng() < 0.3;
+      const num = (neg ? -1n : 1n) * BigInt(m);
+      expect(Object.is(roundRatio(num, 10n ** BigInt(k)), Number(`${neg ? '-' : ''}${m}e-${k}`)), `${m}e-${k}`).toBe(true);
+      const up = Math.floor(rng() * 320);
+      expect(Object.is(roundRatio(num * 10n ** BigInt(up), 1n), Number(`${neg ? '-' : ''}${m}e${up}`)), `${m}e${up}`).toBe(true);
+    }
+  });
+
+  it('breaks ties to even, at the top and at the bottom of the range', () => {
+    expect(roundRatio(2n ** 53n + 1n, 1n)).toBe(2 ** 53); // halfway, even neighbour below
+    expect(roundRatio(2n ** 53n + 3n, 1n)).toBe(2 ** 53 + 4); // halfway, even neighbour above
+    expect(roundRatio(1n, 2n ** 1075n)).toBe(0); // half the smallest subnormal: ties to 0 (even)
+    expect(roundRatio(3n, 2n ** 1076n)).toBe(5e-324); // three quarters of it: up
+    expect(roundRatio(-1n, 3n)).toBe(-1 / 3); // IEEE division of exact operands is correctly rounded
+    expect(roundRatio(2n ** 1024n, 1n)).toBe(Infinity);
+    expect(roundRatio(2n ** 1024n - 2n ** 970n, 1n)).toBe(Infinity); // rounds up past the largest double
+    expect(roundRatio(2n ** 1024n - 2n ** 971n, 1n)).toBe(Number.MAX_VALUE);
+  });
+
+  it('matches IEEE division wherever both operands are exact doubles', () => {
+    const rng = seedrandom('round-ratio-div');
+    for (let i = 0; i < 2000; i++) {
+      const a = Math.floor((rng() - 0.5) * 2 ** 53);
+      const b = 1 + Math.floor(rng() * 2 ** 53);
+      expect(Object.is(roundRatio(BigInt(a), BigInt(b)), a / b + 0)).toBe(true);
+    }
+  });
+
+  it('toFraction gives the exact value of an expansion', () => {
+    const e = new ExactSum().add(0.1).add(1e-300).add(-3).add(2 ** 700);
+    const f = toFraction(e);
+    // Cross-multiplied against the BigInt reference: value = sumOf(e, K) / 2^K.
+    expect(f.num * 2n ** K).toBe(sumOf(e, K) * f.den);
+  });
+});
+
+/** Exact reference for decimals: Σ m·10^(K−k) over a common scale K = 40. */
+function decimalRef(values: [bigint, number][]): { s1: bigint; s2: bigint } {
+  let s1 = 0n;
+  let s2 = 0n;
+  for (const [m, k] of values) {
+    const scaled = m * 10n ** BigInt(40 - k);
+    s1 += scaled;
+    s2 += scaled * scaled;
+  }
+  return { s1, s2 }; // Σx = s1 / 10^40, Σx² = s2 / 10^80
+}
+
+describe('DecimalSums: exact sums of short decimals', () => {
+  it('Σx and Σx² equal the exact decimal sums, with the largest mantissas and every scale', () => {
+    const rng = seedrandom('decimal-sums');
+    const values: [bigint, number][] = [];
+    const d = new DecimalSums();
+    for (let i = 0; i < 20000; i++) {
+      const big = rng() < 0.2;
+      const m = Math.floor((rng() * 2 - 1) * (big ? 2 ** 50 - 1 : 2 ** 26));
+      const k = Math.floor(rng() * 23);
+      d.add(m, k);
+      values.push([BigInt(m), k]);
+    }
+    d.addRepeated(-(2 ** 50) + 1, 22, 7);
+    for (let j = 0; j < 7; j++) values.push([BigInt(-(2 ** 50) + 1), 22]);
+    const { s1, s2 } = d.fractions();
+    const ref = decimalRef(values);
+    expect(s1.num * 10n ** 40n).toBe(ref.s1 * s1.den);
+    expect(s2.num * 10n ** 80n).toBe(ref.s2 * s2.den);
+    expect(d.n).toBe(values.length);
+  });
+
+  it('stays exact past the point where the double accumulators are emptied (2^25 adds)', () => {
+    const d = new DecimalSums();
+    const m = 2 ** 50 - 1;
+    const count = 2 ** 25 + 5;
+    for (let i = 0; i < count; i++) d.add(m, 3);
+    const { s1, s2 } = d.fractions();
+    expect(s1).toEqual({ num: BigInt(m) * BigInt(count), den: 1000n });
+    expect(s2).toEqual({ num: BigInt(m) ** 2n * BigInt(count), den: 1000000n });
+  });
+
+  it('merged in any order, through JSON, gives the same serialised sums', () => {
+    const rng = seedrandom('decimal-merge');
+    const parts = Array.from({ length: 9 }, () => new DecimalSums());
+    const whole = new DecimalSums();
+    for (let i = 0; i < 5000; i++) {
+      const m = Math.floor((rng() * 2 - 1) * 2 ** (rng() * 50));
+      const k = Math.floor(rng() * 23);
+      whole.add(m, k);
+      parts[Math.floor(rng() * parts.length)]!.add(m, k);
+    }
+    for (let trial = 0; trial < 5; trial++) {
+      const pool = parts.map((p) => DecimalSums.fromJSON(JSON.parse(JSON.stringify(p.toJSON()))));
+      while (pool.length > 1) {
+        const a = pool.splice(Math.floor(rng() * pool.length), 1)[0]!;
+        const b = pool.splice(Math.floor(rng() * pool.length), 1)[0]!;
+        pool.push(DecimalSums.fromJSON(JSON.parse(JSON.stringify(a.merge(b).toJSON()))));
+      }
+      expect(pool[0]!.toJSON()).toEqual(whole.toJSON());
+    }
+  });
+});
+
+describe('computeMeanVariance: decimals and doubles together, each figure rounded once', () => {
+  it('equals the exact rational mean and variance, rounded', () => {
+    const rng = seedrandom('mean-variance');
+    for (let trial = 0; trial < 40; trial++) {
+      const dec = new DecimalSums();
+      const bin = new ExactMoments();
+      const decs: [bigint, number][] = [];
+      const dbls: number[] = [];
+      const n = 2 + Math.floor(rng() * 300);
+      for (let i = 0; i < n; i++) {
+        if (rng() < 0.7) {
+          const m = Math.floor((rng() * 2 - 1) * 1e9);
+          const k = Math.floor(rng() * 6);
+          dec.add(m, k);
+          decs.push([BigInt(m), k]);
+        } else {
+          const x = (rng() - 0.5) * 2 ** Math.floor(rng() * 60 - 20);
+          bin.add(x);
+          dbls.push(x);
+        }
+      }
+      // Reference over the common denominator 10^40 · 2^K.
+      const d = decimalRef(decs);
+      const S1 = d.s1 * 2n ** K + dbls.reduce((a, x) => a + toScaledBig(x, K), 0n) * 10n ** 40n;
+      const S2 = d.s2 * 2n ** (2n * K) + dbls.reduce((a, x) => a + toScaledBig(x, K) ** 2n, 0n) * 10n ** 80n;
+      const D1 = 10n ** 40n * 2n ** K;
+      const N = BigInt(n);
+      const r = computeMeanVariance(dec, bin);
+      expect(r.n).toBe(n);
+      expect(Object.is(r.mean, roundRatio(S1, D1 * N))).toBe(true);
+      expect(Object.is(r.variance, roundRatio(N * S2 - S1 * S1, D1 * D1 * N * (N - 1n)))).toBe(true);
+    }
+  });
+
+  it('the mean of 0.1, 0.2 and 0.4 is 0.7/3 rounded once, not the rounded doubles summed', () => {
+    const dec = new DecimalSums();
+    dec.add(1, 1);
+    dec.add(2, 1);
+    dec.add(4, 1);
+    const r = computeMeanVariance(dec, new ExactMoments());
+    expect(r.mean).toBe(Number('0.23333333333333333333333')); // 7/30, parsed (ECMA-262: correctly rounded)
+    expect(r.variance).toBe(roundRatio(7n, 300n)); // exact variance 0.0233…, i.e. 7/300
+  });
+
+  it('is NaN without values and without a second value', () => {
+    expect(Number.isNaN(computeMeanVariance(new DecimalSums(), new ExactMoments()).mean)).toBe(true);
+    const one = new DecimalSums();
+    one.add(5, 0);
+    const r = computeMeanVariance(one, new ExactMoments());
+    expect(r.mean).toBe(5);
+    expect(Number.isNaN(r.variance)).toBe(true);
   });
 });

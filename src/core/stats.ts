@@ -7,8 +7,16 @@
  * So the summary of a part is the same bytes however its records were cut into pieces, which is
  * what lets a manifest stay identical for any thread count or memory budget.
  *
+ * Numbers of up to 15 significant digits are summed at their decimal value (m / 10^k, as exact
+ * integer sums per scale k, see DecimalSums), longer ones at their nearest double (ExactMoments);
+ * mean and variance are each rounded once from the exact total.
+ *
  * Pure: no file system, streams or threads. Fields arrive as raw byte ranges of the input (see
  * FieldKind in io/batch.ts) and are read without building strings on the numeric path.
+ *
+ * Speed (bench/micro/stats.mjs): a batch is read column by column; a value already in a column's
+ * table costs one hash and one lookup; past the distinct cap, one pass over a number's bytes
+ * classifies and parses it, and a column whose type is already decided as text skips that too.
  *
  * Type inference, per column, over its non-missing values:
  * - integer: every value is a decimal integer of at most 2^53 in magnitude (larger integers are
@@ -27,8 +35,8 @@
 import { FieldKind } from '../io/batch.js';
 import type { RecordBatch } from '../io/batch.js';
 import { RowdeckError } from '../errors.js';
-import { ExactMoments } from './exact-sum.js';
-import type { SerializedMoments } from './exact-sum.js';
+import { computeMeanVariance, DecimalSums, ExactMoments } from './exact-sum.js';
+import type { SerializedDecimals, SerializedMoments } from './exact-sum.js';
 
 export interface StatsOptions {
   /** Distinct values counted exactly (with their counts) before switching to an estimate. Default 1000. */
@@ -88,7 +96,10 @@ export interface SerializedColumn {
   numMax: number | null;
   /** Numeric values too large in magnitude for exact squares; moments are void when > 0. */
   huge: number;
+  /** Σx, Σx² of the numbers summed as doubles (more than 15 significant digits). */
   moments: SerializedMoments;
+  /** Σm, Σm² per decimal scale of the numbers summed as decimals. */
+  decimals: SerializedDecimals;
   /** Smallest and largest value bytes (as latin1 text), byte order. */
   lo: string | null;
   hi: string | null;
@@ -99,7 +110,7 @@ export interface SerializedColumn {
 }
 
 export interface SerializedStats {
-  version: 1;
+  version: 2;
   columns: string[];
   distinctCap: number;
   topValues: number;
@@ -119,17 +130,26 @@ const K_TEXT = 4;
 const HUGE = 2 ** 450;
 const MAX_SAFE = Number.MAX_SAFE_INTEGER;
 const POW10 = [1, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22];
+/** Significant digits a decimal may have to be summed as one (its mantissa stays below 2^50). */
+const DECIMAL_DIGITS = 15;
 
 /**
- * Set by classifyValue() when it returns K_INT or K_NUM (avoids returning a tuple). A typed array,
- * not a `let`: a double stored in a module variable is boxed on every write, a typed array slot is not.
+ * Set by classifyValue() when it returns K_INT or K_NUM (avoids returning a tuple): [0] the value
+ * as a double, [1] its decimal mantissa m (value = m / 10^scale) when `parsedScale[0]` >= 0. Typed
+ * arrays, not `let`s: a double stored in a module variable is boxed on every write, a slot is not.
  */
-const parsed = new Float64Array(1);
+const parsed = new Float64Array(2);
+/** Decimal scale k of the last number read, or -1 when it is summed as a double instead. */
+const parsedScale = new Int32Array(1);
 
 /**
- * Reads a decimal number: [+-] digits [. digits] [e [+-] digits], or [+-] . digits [e ...].
- * Up to 15 digits and no exponent: mantissa / 10^k, both exact, so the one division is correctly
- * rounded and equals Number(text) (Clinger's fast path). Otherwise falls back to Number(text).
+ * Reads a decimal number: [+-] digits [. digits] [e [+-] digits], or [+-] . digits [e ...], in
+ * one pass over its bytes, without allocating.
+ * - Up to 15 significant digits at a scale k (digits after the point, less the exponent) of 0..22:
+ *   a decimal m / 10^k, summed exactly as such (see DecimalSums); its double is m / 10^k or
+ *   m · 10^-k, both operands exact, so the one operation is correctly rounded and equals
+ *   Number(text) (Clinger's fast path).
+ * - Anything longer: Number(text), summed as that double (see ExactMoments).
  * Returns K_INT, K_NUM, or K_TEXT when the bytes are not such a number or overflow.
  */
 function classifyNumber(b: Buffer, s: number, e: number): number {
@@ -141,21 +161,22 @@ function classifyNumber(b: Buffer, s: number, e: number): number {
     i++;
   }
   let mant = 0;
+  let sig = 0; // significant digits (leading zeros not counted)
   let digits = 0;
   let frac = 0;
-  let intDigits = 0;
   while (i < e && (c = b[i]!) >= 0x30 && c <= 0x39) {
     mant = mant * 10 + (c - 0x30);
-    intDigits++;
+    if (mant !== 0) sig++;
+    digits++;
     i++;
   }
-  digits = intDigits;
   let dot = false;
   if (i < e && b[i] === 0x2e) {
     dot = true;
     i++;
     while (i < e && (c = b[i]!) >= 0x30 && c <= 0x39) {
       mant = mant * 10 + (c - 0x30);
+      if (mant !== 0) sig++;
       frac++;
       i++;
     }
@@ -163,69 +184,84 @@ function classifyNumber(b: Buffer, s: number, e: number): number {
   }
   if (digits === 0) return K_TEXT;
   let exp = false;
+  let ev = 0;
   if (i < e && (b[i] === 0x65 || b[i] === 0x45)) {
     exp = true;
     i++;
-    if (i < e && (b[i] === 0x2b || b[i] === 0x2d)) i++;
+    let eneg = false;
+    if (i < e && (b[i] === 0x2b || b[i] === 0x2d)) eneg = b[i++] === 0x2d;
     const es = i;
-    while (i < e && (c = b[i]!) >= 0x30 && c <= 0x39) i++;
+    while (i < e && (c = b[i]!) >= 0x30 && c <= 0x39) {
+      if (ev < 100000) ev = ev * 10 + (c - 0x30);
+      i++;
+    }
     if (i === es) return K_TEXT;
+    if (eneg) ev = -ev;
   }
   if (i !== e) return K_TEXT;
+  const k = frac - ev;
   let v: number;
-  if (!exp && digits <= 15) {
-    v = frac === 0 ? mant : mant / POW10[frac]!;
-    if (neg) v = -v;
+  if (sig <= DECIMAL_DIGITS && k >= 0 && k <= 22) {
+    v = k === 0 ? mant : mant / POW10[k]!;
+    parsed[1] = neg ? -mant : mant;
+    parsedScale[0] = k;
+  } else if (sig + (-k) <= DECIMAL_DIGITS && k < 0) {
+    // A whole number below 10^15 written with an exponent: m · 10^-k exactly.
+    mant *= POW10[-k]!;
+    v = mant;
+    parsed[1] = neg ? -mant : mant;
+    parsedScale[0] = 0;
   } else {
-    v = Number(latin1(b, s, e));
+    v = Number(b.toString('latin1', s, e));
     if (!Number.isFinite(v)) return K_TEXT;
+    parsedScale[0] = -1;
+    neg = false;
   }
-  parsed[0] = v;
+  parsed[0] = neg ? -v : v;
   return !dot && !exp && (v <= MAX_SAFE && v >= -MAX_SAFE) ? K_INT : K_NUM;
 }
 
-function latin1(b: Buffer, s: number, e: number): string {
-  return b.toString('latin1', s, e);
-}
-
-function isDigit(c: number | undefined): boolean {
-  return c !== undefined && c >= 0x30 && c <= 0x39;
-}
-
-function read2(b: Uint8Array, i: number): number {
-  return (b[i]! - 0x30) * 10 + (b[i + 1]! - 0x30);
-}
-
-function are2Digits(b: Uint8Array, i: number, e: number): boolean {
-  return i + 2 <= e && isDigit(b[i]) && isDigit(b[i + 1]);
+/** Value of the two ASCII digits b[i], b[i + 1] (both within the value), or -1 when not digits. */
+function readTwoDigits(b: Uint8Array, i: number): number {
+  const x = b[i]! - 0x30;
+  const y = b[i + 1]! - 0x30;
+  return x >= 0 && x <= 9 && y >= 0 && y <= 9 ? x * 10 + y : -1;
 }
 
 const DAYS_IN_MONTH = [0, 31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31];
 
-/** ISO 8601 calendar date, optionally with time and offset (see the module comment). */
+/**
+ * ISO 8601 calendar date `YYYY-MM-DD`, optionally followed by `T`/`t`/space, `HH:MM`, optional
+ * `:SS` (up to 60, a leap second) with an optional `.` or `,` fraction, and an optional `Z` or
+ * `±HH[:]MM` / `±HH` offset. Lengths are checked before each read, so no read leaves the value.
+ */
 function isIsoDatetime(b: Uint8Array, s: number, e: number): boolean {
-  if (e - s < 10) return false;
-  if (b[s + 4] !== 0x2d || b[s + 7] !== 0x2d) return false;
-  if (!isDigit(b[s]) || !isDigit(b[s + 1]) || !are2Digits(b, s + 2, e) || !are2Digits(b, s + 5, e) || !are2Digits(b, s + 8, e)) return false;
-  const year = (b[s]! - 0x30) * 1000 + (b[s + 1]! - 0x30) * 100 + read2(b, s + 2);
-  const month = read2(b, s + 5);
-  const day = read2(b, s + 8);
-  if (month < 1 || month > 12 || day < 1 || day > DAYS_IN_MONTH[month]!) return false;
-  if (month === 2 && day === 29 && !(year % 4 === 0 && (year % 100 !== 0 || year % 400 === 0))) return false;
-  let i = s + 10;
-  if (i === e) return true;
-  const sep = b[i];
-  if (sep !== 0x54 && sep !== 0x74 && sep !== 0x20) return false;
-  i++;
-  if (!are2Digits(b, i, e) || b[i + 2] !== 0x3a || !are2Digits(b, i + 3, e)) return false;
-  if (read2(b, i) > 23 || read2(b, i + 3) > 59) return false;
-  i += 5;
+  const n = e - s;
+  if (n < 10 || b[s + 4] !== 0x2d || b[s + 7] !== 0x2d) return false;
+  const century = readTwoDigits(b, s);
+  const yy = readTwoDigits(b, s + 2);
+  const month = readTwoDigits(b, s + 5);
+  const day = readTwoDigits(b, s + 8);
+  if (century < 0 || yy < 0 || month < 1 || month > 12 || day < 1 || day > DAYS_IN_MONTH[month]!) return false;
+  if (month === 2 && day === 29) {
+    const year = century * 100 + yy;
+    if (!(year % 4 === 0 && (year % 100 !== 0 || year % 400 === 0))) return false;
+  }
+  if (n === 10) return true;
+  const sep = b[s + 10];
+  if ((sep !== 0x54 && sep !== 0x74 && sep !== 0x20) || n < 16 || b[s + 13] !== 0x3a) return false;
+  const hh = readTwoDigits(b, s + 11);
+  const mm = readTwoDigits(b, s + 14);
+  if (hh < 0 || hh > 23 || mm < 0 || mm > 59) return false;
+  let i = s + 16;
   if (i < e && b[i] === 0x3a) {
-    if (!are2Digits(b, i + 1, e) || read2(b, i + 1) > 60) return false;
+    if (i + 3 > e) return false;
+    const ss = readTwoDigits(b, i + 1);
+    if (ss < 0 || ss > 60) return false;
     i += 3;
     if (i < e && (b[i] === 0x2e || b[i] === 0x2c)) {
       const fs = ++i;
-      while (i < e && isDigit(b[i])) i++;
+      while (i < e && b[i]! >= 0x30 && b[i]! <= 0x39) i++;
       if (i === fs) return false;
     }
   }
@@ -234,11 +270,15 @@ function isIsoDatetime(b: Uint8Array, s: number, e: number): boolean {
   if ((z === 0x5a || z === 0x7a) && i + 1 === e) return true;
   if (z !== 0x2b && z !== 0x2d) return false;
   i++;
-  if (!are2Digits(b, i, e) || read2(b, i) > 23) return false;
+  if (i + 2 > e) return false;
+  const oh = readTwoDigits(b, i);
+  if (oh < 0 || oh > 23) return false;
   i += 2;
   if (i === e) return true;
   if (b[i] === 0x3a) i++;
-  return i + 2 === e && are2Digits(b, i, e) && read2(b, i) <= 59;
+  if (i + 2 !== e) return false;
+  const om = readTwoDigits(b, i);
+  return om >= 0 && om <= 59;
 }
 
 function isBoolean(b: Uint8Array, s: number, e: number): boolean {
@@ -255,7 +295,7 @@ function isBoolean(b: Uint8Array, s: number, e: number): boolean {
   return false;
 }
 
-/** Kind of one non-empty value; sets parsed[0] for numbers. */
+/** Kind of one non-empty value; sets parsed/parsedScale for numbers. */
 function classifyValue(b: Buffer, s: number, e: number): number {
   const c = b[s]!;
   if ((c >= 0x30 && c <= 0x39) || c === 0x2d || c === 0x2b || c === 0x2e) {
@@ -266,60 +306,140 @@ function classifyValue(b: Buffer, s: number, e: number): number {
   return K_TEXT;
 }
 
+/**
+ * Bit of a kind in a column's set of kinds seen: integers and numbers share one (they widen to
+ * number), so the type is decided as text as soon as the set has the text bit or two bits.
+ */
+const KIND_BIT = [1, 1, 2, 4, 8];
+
+function isTextFor(kindBits: number): boolean {
+  return (kindBits & 8) !== 0 || (kindBits & (kindBits - 1)) !== 0;
+}
+
 // --- distinct-count estimate -------------------------------------------------------------------
 
 /** 2^12 registers: standard error about 1.04 / sqrt(4096) = 1.6 % (Flajolet et al. 2007). */
 const SKETCH_BITS = 12;
 const SKETCH_SIZE = 1 << SKETCH_BITS;
 
+/**
+ * Hash of a value's bytes, fixed (sketches of different threads and runs must merge): the bytes
+ * as 32-bit little-endian words, the last one zero-padded, each mixed in by multiply-xorshift,
+ * seeded with the length, then murmur3's finaliser. Its top 12 bits pick the sketch register; a
+ * second finalisation of it gives the rank bits (see updateSketch).
+ *
+ * The first three words double as the value table's key for values of up to 12 bytes (most
+ * values): equal words and length mean equal bytes, so a lookup compares three integers instead
+ * of the bytes.
+ */
 function mix32(h: number): number {
   h ^= h >>> 16;
   h = Math.imul(h, 0x85ebca6b);
   h ^= h >>> 13;
   h = Math.imul(h, 0xc2b2ae35);
-  return (h ^ (h >>> 16)) >>> 0;
+  return h ^ (h >>> 16);
 }
 
-/** Two 32-bit lanes of the last hashValue() call (a typed array: no boxing, see `parsed`). */
-const hashOut = new Uint32Array(2);
+const HASH_SEED = 0x811c9dc5;
+const HASH_MUL = 0x9e3779b1;
+/** Masks that keep the low n bytes of a word, n = 0..3. */
+const LOW_BYTES = Int32Array.of(0, 0xff, 0xffff, 0xffffff);
+
+/** Output of hashKey(): [hash, word 0, word 1, word 2] (a typed array: no boxing, see `parsed`). */
+const keyOut = new Int32Array(4);
+
+/** Little-endian word of b[i, min(i + 4, e)), zero-padded, byte by byte. */
+function loadWord(b: Uint8Array, i: number, e: number): number {
+  let w = b[i]!;
+  if (i + 1 < e) w |= b[i + 1]! << 8;
+  if (i + 2 < e) w |= b[i + 2]! << 16;
+  if (i + 3 < e) w |= b[i + 3]! << 24;
+  return w;
+}
 
 /**
- * Fixed hash of value bytes, two lanes (multiply-xorshift over 32-bit words, then a murmur3
- * finaliser each).
- * Fixed forever: sketches made by different runs and versions must merge.
+ * A little-endian word of up to 4 bytes (zero-padded) turned into an int32 whose signed order is
+ * the bytes' order: byte-swapped to big-endian, sign bit flipped. Zero padding sorts a shorter
+ * value first, as a prefix does; equal keys leave the order to the remaining bytes.
  */
-function hashValue(b: Uint8Array, s: number, e: number): void {
-  let h1 = 0x811c9dc5 ^ (e - s);
-  let h2 = 0x3c6ef372;
-  let i = s;
-  // Four bytes per step (little-endian word), then the tail byte by byte.
-  for (const e4 = e - 3; i < e4; i += 4) {
-    const w = b[i]! | (b[i + 1]! << 8) | (b[i + 2]! << 16) | (b[i + 3]! << 24);
-    h1 = Math.imul(h1 ^ w, 0x01000193);
-    h1 ^= h1 >>> 15;
-    h2 = Math.imul(h2 ^ w, 0x5bd1e995);
-    h2 ^= h2 >>> 13;
-  }
-  for (; i < e; i++) {
-    const c = b[i]!;
-    h1 = Math.imul(h1 ^ c, 0x01000193);
-    h2 = Math.imul(h2 ^ c, 0x5bd1e995);
-  }
-  const a = mix32(h1);
-  hashOut[0] = a;
-  hashOut[1] = mix32(h2 ^ Math.imul(a, 0x9e3779b1));
+function orderKey(w: number): number {
+  return ((w << 24) | ((w & 0xff00) << 8) | ((w >>> 8) & 0xff00) | (w >>> 24)) ^ 0x80000000;
 }
 
-/** Register = top 12 bits of lane A; rank = leading zeros of lane B, plus one (44 hash bits used). */
-function updateSketch(reg: Uint8Array): void {
-  const j = hashOut[0]! >>> (32 - SKETCH_BITS);
-  const rank = Math.clz32(hashOut[1]!) + 1;
+/** orderKey(0): the key of bytes past a value's end. */
+const ORDER_KEY_ZERO = 0x80000000 | 0;
+
+/** The hash and first three words of b[s, e) into keyOut (the general path; see ColumnState.addValue). */
+function hashKey(b: Uint8Array, s: number, e: number): void {
+  const len = e - s;
+  let h = HASH_SEED ^ len;
+  let w0 = 0;
+  let w1 = 0;
+  let w2 = 0;
+  let i = s;
+  let k = 0;
+  if (len >= 4) {
+    // Whole words by one load each; the last (partial) word below.
+    const d = b === viewBuffer ? view : getView(b);
+    for (const e4 = e - 3; i < e4; i += 4, k++) {
+      const w = d.getInt32(i, true);
+      if (k === 0) w0 = w;
+      else if (k === 1) w1 = w;
+      else if (k === 2) w2 = w;
+      h = Math.imul(h ^ w, HASH_MUL);
+      h ^= h >>> 15;
+    }
+  }
+  if (i < e) {
+    const w = loadWord(b, i, e);
+    if (k === 0) w0 = w;
+    else if (k === 1) w1 = w;
+    else if (k === 2) w2 = w;
+    h = Math.imul(h ^ w, HASH_MUL);
+    h ^= h >>> 15;
+  }
+  keyOut[0] = mix32(h);
+  keyOut[1] = w0;
+  keyOut[2] = w1;
+  keyOut[3] = w2;
+}
+
+/** Register = top 12 bits of the hash; rank = leading zeros of a second finalisation, plus one. */
+function updateSketch(reg: Uint8Array, hash: number): void {
+  const j = hash >>> (32 - SKETCH_BITS);
+  const rank = Math.clz32(mix32(hash ^ 0x5bd1e995)) + 1;
   if (rank > reg[j]!) reg[j] = rank;
 }
 
 /**
+ * DataViews over the buffers values are read from, kept while the same buffers come back: the
+ * batch's data, and the scratch buffer unquoted values are copied to (they alternate).
+ */
+let viewBuffer: Uint8Array | null = null;
+let view: DataView<ArrayBufferLike> = new DataView(new ArrayBuffer(8));
+let otherBuffer: Uint8Array | null = null;
+let otherView: DataView<ArrayBufferLike> = view;
+
+function getView(b: Uint8Array): DataView<ArrayBufferLike> {
+  if (b !== viewBuffer) {
+    // Swap the two slots; make a view only for a buffer seen in neither.
+    const ob = otherBuffer;
+    const ov = otherView;
+    otherBuffer = viewBuffer;
+    otherView = view;
+    if (b === ob) view = ov;
+    else view = new DataView(b.buffer, b.byteOffset, b.byteLength);
+    viewBuffer = b;
+  }
+  return view;
+}
+
+/**
  * Exact counts of distinct values, keyed by their bytes: an open-addressing table over a byte
- * arena, so counting a value that was seen before allocates nothing.
+ * arena, so counting a value that was seen before allocates nothing. Each key also keeps its hash,
+ * its first three words (see hashKey) and what classifying it found (kind, double, decimal
+ * mantissa and scale), so a column's figures can be derived from the table without reading a
+ * value twice.
  */
 class ValueCounter {
   private arena = Buffer.alloc(1024);
@@ -327,29 +447,33 @@ class ValueCounter {
   private keyStart = new Int32Array(64);
   private keyLen = new Int32Array(64);
   private keyHash = new Int32Array(64);
+  private kw0 = new Int32Array(64);
+  private kw1 = new Int32Array(64);
+  private kw2 = new Int32Array(64);
   private counts = new Float64Array(64);
-  /** Each key's kind and parsed number, so a repeated value skips classification and min/max. */
   private keyKind = new Int32Array(64);
   private keyNumber = new Float64Array(64);
+  private keyMant = new Float64Array(64);
+  private keyScale = new Int32Array(64);
   private table = new Int32Array(128); // index + 1 of a key; 0 = empty
-  /** Table slot where the last missed lookup() would insert. */
+  /** Table slot where the last missed find() would insert. */
   private freeSlot = 0;
   size = 0;
 
   /**
-   * Index of b[s, e) and one more count for it, or -1 when the value is new (then insert() may
-   * follow). hashOut must hold hashValue(b, s, e).
+   * Index of the value b[s, s + len) with the given hash and first words, with one more count for
+   * it; or -1 when it is new (then insert() may follow).
    */
-  lookup(b: Uint8Array, s: number, e: number): number {
-    const len = e - s;
-    const h = hashOut[0]! | 0;
-    const mask = this.table.length - 1;
-    let slot = h & mask;
+  find(hash: number, w0: number, w1: number, w2: number, b: Uint8Array, s: number, len: number): number {
+    const table = this.table;
+    const mask = table.length - 1;
+    const kh = this.keyHash;
+    let slot = hash & mask;
     for (;;) {
-      const k = this.table[slot]!;
+      const k = table[slot]!;
       if (k === 0) break;
       const i = k - 1;
-      if (this.keyHash[i] === h && this.keyLen[i] === len && this.isKeyEqual(i, b, s, len)) {
+      if (kh[i] === hash && this.kw0[i] === w0 && this.kw1[i] === w1 && this.kw2[i] === w2 && this.keyLen[i] === len && (len <= 12 || this.isTailEqual(i, b, s, len))) {
         this.counts[i] = this.counts[i]! + 1;
         return i;
       }
@@ -359,19 +483,11 @@ class ValueCounter {
     return -1;
   }
 
-  kindAt(i: number): number {
-    return this.keyKind[i]!;
-  }
-
-  numberAt(i: number): number {
-    return this.keyNumber[i]!;
-  }
-
-  /** Adds a value that lookup() just missed, with its count, kind and parsed number. */
-  insert(b: Uint8Array, s: number, e: number, n: number, kind: number, num: number): void {
+  /** Inserts a new key (after a missed find()) with its count and the last classification. */
+  insert(hash: number, w0: number, w1: number, w2: number, b: Uint8Array, s: number, e: number, n: number, kind: number): void {
     const len = e - s;
     const i = this.size++;
-    if (i >= this.counts.length) this.growEntries();
+    if (i === this.counts.length) this.growEntries();
     if (this.used + len > this.arena.length) {
       const na = Buffer.alloc(Math.max(this.arena.length * 2, this.used + len));
       this.arena.copy(na, 0, 0, this.used);
@@ -380,24 +496,34 @@ class ValueCounter {
     for (let q = 0; q < len; q++) this.arena[this.used + q] = b[s + q]!;
     this.keyStart[i] = this.used;
     this.keyLen[i] = len;
-    this.keyHash[i] = hashOut[0]! | 0;
+    this.keyHash[i] = hash;
+    this.kw0[i] = w0;
+    this.kw1[i] = w1;
+    this.kw2[i] = w2;
     this.counts[i] = n;
     this.keyKind[i] = kind;
-    this.keyNumber[i] = num;
+    const numeric = kind <= K_NUM;
+    this.keyNumber[i] = numeric ? parsed[0]! : 0;
+    this.keyMant[i] = numeric ? parsed[1]! : 0;
+    this.keyScale[i] = numeric ? parsedScale[0]! : -1;
     this.used += len;
     this.table[this.freeSlot] = i + 1;
     if (this.size * 2 > this.table.length) this.growTable();
   }
 
-  /** Adds n to the count of a value (merging, deserialising); hashOut must hold its hash. */
+  /** Adds n to the count of a value (merging, deserialising). */
   add(b: Buffer, s: number, e: number, n: number): void {
-    const i = this.lookup(b, s, e);
+    hashKey(b, s, e);
+    const h = keyOut[0]!;
+    const w0 = keyOut[1]!;
+    const w1 = keyOut[2]!;
+    const w2 = keyOut[3]!;
+    const i = this.find(h, w0, w1, w2, b, s, e - s);
     if (i >= 0) {
       this.counts[i] = this.counts[i]! + n - 1;
       return;
     }
-    const kind = classifyValue(b, s, e);
-    this.insert(b, s, e, n, kind, kind <= K_NUM ? parsed[0]! : 0);
+    this.insert(h, w0, w1, w2, b, s, e, n, classifyValue(b, s, e));
   }
 
   /** Calls fn with each key's bytes (arena, start, end) and count, in insertion order. */
@@ -405,10 +531,24 @@ class ValueCounter {
     for (let i = 0; i < this.size; i++) fn(this.arena, this.keyStart[i]!, this.keyStart[i]! + this.keyLen[i]!, this.counts[i]!);
   }
 
-  private isKeyEqual(i: number, b: Uint8Array, s: number, len: number): boolean {
+  /** Adds every key's hash to a distinct-count sketch. */
+  addToSketch(reg: Uint8Array): void {
+    for (let i = 0; i < this.size; i++) updateSketch(reg, this.keyHash[i]!);
+  }
+
+  /** Folds every key, with its count, into a column's accumulated figures. */
+  foldInto(c: ColumnState): void {
+    for (let i = 0; i < this.size; i++) {
+      const s = this.keyStart[i]!;
+      c.addCounted(this.arena, s, s + this.keyLen[i]!, this.counts[i]!, this.keyKind[i]!, this.keyNumber[i]!, this.keyMant[i]!, this.keyScale[i]!);
+    }
+  }
+
+  /** Bytes from 12 on (the first 12 are equal when the words are). */
+  private isTailEqual(i: number, b: Uint8Array, s: number, len: number): boolean {
     const a = this.arena;
     const o = this.keyStart[i]!;
-    for (let q = 0; q < len; q++) if (a[o + q] !== b[s + q]) return false;
+    for (let q = 12; q < len; q++) if (a[o + q] !== b[s + q]) return false;
     return true;
   }
 
@@ -421,9 +561,14 @@ class ValueCounter {
     this.keyStart = grow(this.keyStart, new Int32Array(n));
     this.keyLen = grow(this.keyLen, new Int32Array(n));
     this.keyHash = grow(this.keyHash, new Int32Array(n));
+    this.kw0 = grow(this.kw0, new Int32Array(n));
+    this.kw1 = grow(this.kw1, new Int32Array(n));
+    this.kw2 = grow(this.kw2, new Int32Array(n));
     this.counts = grow(this.counts, new Float64Array(n));
     this.keyKind = grow(this.keyKind, new Int32Array(n));
     this.keyNumber = grow(this.keyNumber, new Float64Array(n));
+    this.keyMant = grow(this.keyMant, new Float64Array(n));
+    this.keyScale = grow(this.keyScale, new Int32Array(n));
   }
 
   private growTable(): void {
@@ -473,150 +618,264 @@ function compareBytes(a: Uint8Array, as: number, ae: number, b: Uint8Array, bl: 
   return ae - as - bl;
 }
 
+/**
+ * One column's figures. Two modes:
+ * - exact (`values` set): every value sits in the value table with its count and what classifying
+ *   it found; a repeated value costs a hash and a lookup. Kinds, min/max and moments are derived
+ *   from the table when they are read (figures()).
+ * - estimated (`values` null, past the distinct cap): the table has been folded into the
+ *   accumulators below, and each further value is classified and added to them, and its hash to
+ *   the distinct-count sketch.
+ * Once the values seen decide the type as text (a text value, or two kinds that do not widen into
+ * one), numeric figures can no longer be reported: they are dropped and no longer gathered, and the
+ * kind counts collapse to "all text". That keeps the state canonical (a function of the values
+ * only), whatever the order in which it was reached.
+ */
 class ColumnState {
   count = 0;
   missing = 0;
-  readonly kinds: [number, number, number, number, number] = [0, 0, 0, 0, 0];
+  values: ValueCounter | null;
+  sketch: Uint8Array | null = null;
+  // Figures of the values not held in `values`.
+  readonly kinds = new Float64Array(5);
+  /** KIND_BIT of every kind counted in `kinds`. */
+  kindBits = 0;
+  /** The type is decided: text. Numeric figures are empty and stay so. */
+  text = false;
   numMin = Infinity;
   numMax = -Infinity;
+  /** Numeric values too large in magnitude for exact squares; moments are void when > 0. */
   huge = 0;
-  readonly moments = new ExactMoments();
+  dec = new DecimalSums();
+  bin = new ExactMoments();
   lo = new Uint8Array(16);
   loLen = -1; // -1: no value yet
   hi = new Uint8Array(16);
   hiLen = -1;
-  values: ValueCounter | null = new ValueCounter();
-  sketch: Uint8Array | null = null;
+  /** First 8 bytes of lo and hi as two ordered keys each (see orderKey): most values are decided by them. */
+  loK0 = 0;
+  loK1 = 0;
+  hiK0 = 0;
+  hiK1 = 0;
+
+  constructor(exact = true) {
+    this.values = exact ? new ValueCounter() : null;
+  }
 
   addValue(b: Buffer, s: number, e: number, cap: number): void {
     this.count++;
-    hashValue(b, s, e);
+    const len = e - s;
+    let hash: number;
+    let w0 = 0;
+    let w1 = 0;
+    let w2 = 0;
+    if (len <= 12 && e + 3 <= b.length) {
+      // Short value, room to read whole words: at most three loads (hashKey, unrolled).
+      const d = b === viewBuffer ? view : getView(b);
+      let h = HASH_SEED ^ len;
+      w0 = d.getInt32(s, true);
+      if (len < 4) w0 &= LOW_BYTES[len]!;
+      h = Math.imul(h ^ w0, HASH_MUL);
+      h ^= h >>> 15;
+      if (len > 4) {
+        w1 = d.getInt32(s + 4, true);
+        if (len < 8) w1 &= LOW_BYTES[len - 4]!;
+        h = Math.imul(h ^ w1, HASH_MUL);
+        h ^= h >>> 15;
+        if (len > 8) {
+          w2 = d.getInt32(s + 8, true);
+          if (len < 12) w2 &= LOW_BYTES[len - 8]!;
+          h = Math.imul(h ^ w2, HASH_MUL);
+          h ^= h >>> 15;
+        }
+      }
+      hash = mix32(h);
+    } else {
+      hashKey(b, s, e);
+      hash = keyOut[0]!;
+      w0 = keyOut[1]!;
+      w1 = keyOut[2]!;
+      w2 = keyOut[3]!;
+    }
     const values = this.values;
     if (values !== null) {
-      const i = values.lookup(b, s, e);
-      if (i >= 0) {
-        // Seen before: min/max already include it; only the counts and moments move.
-        const k = values.kindAt(i);
-        this.kinds[k]!++;
-        if (k <= K_NUM) this.addNumber(values.numberAt(i));
-        return;
-      }
-      const k = this.classifyNew(b, s, e);
-      values.insert(b, s, e, 1, k, parsed[0]!);
+      if (values.find(hash, w0, w1, w2, b, s, len) >= 0) return;
+      values.insert(hash, w0, w1, w2, b, s, e, 1, classifyValue(b, s, e));
       if (values.size > cap) this.switchToSketch();
-    } else {
-      this.classifyNew(b, s, e);
-      updateSketch(this.sketch!);
+      return;
+    }
+    updateSketch(this.sketch!, hash);
+    if (this.text) this.kinds[K_TEXT]!++;
+    else {
+      const k = classifyValue(b, s, e);
+      this.kinds[k]!++;
+      if (k <= K_NUM) this.addNumber(parsed[0]!, parsed[1]!, parsedScale[0]!, 1);
+      const bit = KIND_BIT[k]!;
+      if ((this.kindBits & bit) === 0) this.addKindBit(bit);
+    }
+    this.updateBounds(b, s, e, orderKey(w0), orderKey(w1));
+  }
+
+  /** Adds `n` occurrences of one value whose classification is known (folding a value table). */
+  addCounted(b: Buffer, s: number, e: number, n: number, kind: number, x: number, m: number, scale: number): void {
+    if (this.text) this.kinds[K_TEXT]! += n;
+    else {
+      this.kinds[kind]! += n;
+      if (kind <= K_NUM) this.addNumber(x, m, scale, n);
+      const bit = KIND_BIT[kind]!;
+      if ((this.kindBits & bit) === 0) this.addKindBit(bit);
+    }
+    this.updateBounds(b, s, e, orderKey(loadWord(b, s, e)), s + 4 < e ? orderKey(loadWord(b, s + 4, e)) : ORDER_KEY_ZERO);
+  }
+
+  private addNumber(x: number, m: number, scale: number, n: number): void {
+    this.numMin = Math.min(this.numMin, x); // Math.min orders -0 before 0, independent of order
+    this.numMax = Math.max(this.numMax, x);
+    if (scale >= 0) {
+      if (n === 1) this.dec.add(m, scale);
+      else this.dec.addRepeated(m, scale, n);
+    } else if (x > HUGE || x < -HUGE) this.huge += n;
+    else for (let j = 0; j < n; j++) this.bin.add(x);
+  }
+
+  private addKindBit(bit: number): void {
+    this.kindBits |= bit;
+    if (isTextFor(this.kindBits)) this.becomeText();
+  }
+
+  /** The type is text whatever comes next: keep only what a text column reports. */
+  private becomeText(): void {
+    let all = 0;
+    for (let k = 0; k < 5; k++) all += this.kinds[k]!;
+    this.kinds.fill(0);
+    this.kinds[K_TEXT] = all;
+    this.kindBits = KIND_BIT[K_TEXT]!;
+    this.text = true;
+    this.numMin = Infinity;
+    this.numMax = -Infinity;
+    this.huge = 0;
+    this.dec = new DecimalSums();
+    this.bin = new ExactMoments();
+  }
+
+  /**
+   * Text min/max by bytes. k0, k1 are the value's first 8 bytes as order keys: a value whose keys
+   * differ from a bound's is decided by them; only equal prefixes compare the rest.
+   */
+  private updateBounds(b: Buffer, s: number, e: number, k0: number, k1: number): void {
+    if (this.loLen < 0 || k0 < this.loK0 || (k0 === this.loK0 && (k1 < this.loK1 || (k1 === this.loK1 && compareBytes(b, s, e, this.lo, this.loLen) < 0)))) {
+      this.setLo(b, s, e);
+    }
+    if (this.hiLen < 0 || k0 > this.hiK0 || (k0 === this.hiK0 && (k1 > this.hiK1 || (k1 === this.hiK1 && compareBytes(b, s, e, this.hi, this.hiLen) > 0)))) {
+      this.setHi(b, s, e);
     }
   }
 
-  /** Kind counts, numeric min/max and text min/max for a value not seen before (or not tracked). */
-  private classifyNew(b: Buffer, s: number, e: number): number {
-    const k = classifyValue(b, s, e);
-    this.kinds[k]!++;
-    if (k <= K_NUM) {
-      const x = parsed[0]!;
-      this.numMin = Math.min(this.numMin, x); // Math.min orders -0 before 0, independent of order
-      this.numMax = Math.max(this.numMax, x);
-      this.addNumber(x);
-    }
+  setLo(b: Uint8Array, s: number, e: number): void {
     const len = e - s;
-    if (this.loLen < 0 || compareBytes(b, s, e, this.lo, this.loLen) < 0) {
-      if (this.lo.length < len) this.lo = new Uint8Array(len * 2);
-      for (let q = 0; q < len; q++) this.lo[q] = b[s + q]!;
-      this.loLen = len;
-    }
-    if (this.hiLen < 0 || compareBytes(b, s, e, this.hi, this.hiLen) > 0) {
-      if (this.hi.length < len) this.hi = new Uint8Array(len * 2);
-      for (let q = 0; q < len; q++) this.hi[q] = b[s + q]!;
-      this.hiLen = len;
-    }
-    return k;
+    if (this.lo.length < len) this.lo = new Uint8Array(len * 2);
+    for (let q = 0; q < len; q++) this.lo[q] = b[s + q]!;
+    this.loLen = len;
+    this.loK0 = orderKey(loadWord(b, s, e));
+    this.loK1 = s + 4 < e ? orderKey(loadWord(b, s + 4, e)) : ORDER_KEY_ZERO;
   }
 
-  private addNumber(x: number): void {
-    if (x > HUGE || x < -HUGE) this.huge++;
-    else this.moments.add(x);
+  setHi(b: Uint8Array, s: number, e: number): void {
+    const len = e - s;
+    if (this.hi.length < len) this.hi = new Uint8Array(len * 2);
+    for (let q = 0; q < len; q++) this.hi[q] = b[s + q]!;
+    this.hiLen = len;
+    this.hiK0 = orderKey(loadWord(b, s, e));
+    this.hiK1 = s + 4 < e ? orderKey(loadWord(b, s + 4, e)) : ORDER_KEY_ZERO;
   }
 
   switchToSketch(): void {
+    const values = this.values;
     const reg = this.sketch ?? new Uint8Array(SKETCH_SIZE);
-    this.values?.forEach((a, s, e) => {
-      hashValue(a, s, e);
-      updateSketch(reg);
-    });
     this.values = null;
     this.sketch = reg;
+    if (values === null) return;
+    values.addToSketch(reg);
+    values.foldInto(this);
+  }
+
+  /** This column's figures with an exact-mode table folded in (a copy), or itself when estimated. */
+  figures(): ColumnState {
+    if (this.values === null) return this;
+    const f = new ColumnState(false);
+    f.count = this.count;
+    f.missing = this.missing;
+    this.values.foldInto(f);
+    return f;
   }
 
   merge(o: ColumnState, cap: number): void {
     this.count += o.count;
     this.missing += o.missing;
-    for (let k = 0; k < 5; k++) this.kinds[k]! += o.kinds[k]!;
-    this.numMin = Math.min(this.numMin, o.numMin);
-    this.numMax = Math.max(this.numMax, o.numMax);
-    this.huge += o.huge;
-    this.moments.merge(o.moments);
-    if (o.loLen >= 0 && (this.loLen < 0 || compareBytes(o.lo, 0, o.loLen, this.lo, this.loLen) < 0)) {
-      this.lo = o.lo.slice(0, Math.max(16, o.loLen));
-      this.loLen = o.loLen;
-    }
-    if (o.hiLen >= 0 && (this.hiLen < 0 || compareBytes(o.hi, 0, o.hiLen, this.hi, this.hiLen) > 0)) {
-      this.hi = o.hi.slice(0, Math.max(16, o.hiLen));
-      this.hiLen = o.hiLen;
-    }
     // Exact while the union of values stays within the cap; the union exceeds it (in any merge
     // order) exactly when the whole does, so the switch point cannot depend on order.
     if (this.values !== null && o.values !== null) {
       const values = this.values;
-      o.values.forEach((a, s, e, n) => {
-        hashValue(a, s, e);
-        values.add(a, s, e, n);
-      });
+      o.values.forEach((a, s, e, n) => values.add(a, s, e, n));
       if (values.size > cap) this.switchToSketch();
-    } else {
-      this.switchToSketch();
-      const reg = this.sketch!;
-      if (o.values !== null) {
-        o.values.forEach((a, s, e) => {
-          hashValue(a, s, e);
-          updateSketch(reg);
-        });
-      } else {
-        for (let j = 0; j < SKETCH_SIZE; j++) if (o.sketch![j]! > reg[j]!) reg[j] = o.sketch![j]!;
-      }
+      return;
     }
+    this.switchToSketch();
+    const reg = this.sketch!;
+    if (o.values !== null) {
+      o.values.addToSketch(reg);
+      o.values.foldInto(this);
+      return;
+    }
+    for (let j = 0; j < SKETCH_SIZE; j++) if (o.sketch![j]! > reg[j]!) reg[j] = o.sketch![j]!;
+    for (let k = 0; k < 5; k++) this.kinds[k]! += o.kinds[k]!;
+    if (!this.text && !o.text) {
+      this.numMin = Math.min(this.numMin, o.numMin);
+      this.numMax = Math.max(this.numMax, o.numMax);
+      this.huge += o.huge;
+      this.dec.merge(o.dec);
+      this.bin.merge(o.bin);
+    }
+    const bits = this.kindBits | o.kindBits;
+    if (this.text || o.text || isTextFor(bits)) this.becomeText();
+    else this.kindBits = bits;
+    if (o.loLen >= 0 && (this.loLen < 0 || compareBytes(o.lo, 0, o.loLen, this.lo, this.loLen) < 0)) this.setLo(o.lo, 0, o.loLen);
+    if (o.hiLen >= 0 && (this.hiLen < 0 || compareBytes(o.hi, 0, o.hiLen, this.hi, this.hiLen) > 0)) this.setHi(o.hi, 0, o.hiLen);
   }
 
   resolveType(): ColumnType {
-    const [nInt, nNum, nBool, nDate, nText] = this.kinds;
+    const k = this.kinds;
+    const nInt = k[K_INT]!;
+    const nNum = k[K_NUM]!;
     if (this.count === 0) return 'empty';
-    if (nText > 0) return 'text';
+    if (k[K_TEXT]! > 0) return 'text';
     if (nInt + nNum === this.count) return nNum === 0 ? 'integer' : 'number';
-    if (nBool === this.count) return 'boolean';
-    if (nDate === this.count) return 'datetime';
+    if (k[K_BOOL] === this.count) return 'boolean';
+    if (k[K_DATE] === this.count) return 'datetime';
     return 'text';
   }
 
   summarize(name: string, topValues: number, excludeValues: boolean): ColumnSummary {
-    const type = this.resolveType();
+    const f = this.figures();
+    const type = f.resolveType();
     const numeric = type === 'integer' || type === 'number';
     let min: number | string | null = null;
     let max: number | string | null = null;
     if (!excludeValues) {
       if (numeric) {
-        min = this.numMin + 0; // + 0 turns -0 into 0
-        max = this.numMax + 0;
+        min = f.numMin + 0; // + 0 turns -0 into 0
+        max = f.numMax + 0;
       } else if (type === 'datetime' || type === 'text') {
-        min = decodeUtf8(this.lo, this.loLen);
-        max = decodeUtf8(this.hi, this.hiLen);
+        min = decodeUtf8(f.lo, f.loLen);
+        max = decodeUtf8(f.hi, f.hiLen);
       }
     }
     let mean: number | null = null;
     let sd: number | null = null;
-    if (numeric && this.huge === 0 && (!excludeValues || this.count >= 3)) {
-      mean = this.moments.mean() + 0;
-      if (this.count >= 2) sd = this.moments.sd();
+    if (numeric && f.huge === 0 && (!excludeValues || this.count >= 3)) {
+      const mv = computeMeanVariance(f.dec, f.bin);
+      mean = mv.mean + 0;
+      if (this.count >= 2) sd = Math.sqrt(mv.variance);
       if (!Number.isFinite(mean)) mean = null;
       if (sd !== null && !Number.isFinite(sd)) sd = null;
     }
@@ -643,6 +902,7 @@ class ColumnState {
   }
 
   toJSON(): SerializedColumn {
+    const f = this.figures();
     let values: [string, number][] | null = null;
     if (this.values !== null) {
       const list: [string, number][] = [];
@@ -652,44 +912,49 @@ class ColumnState {
     return {
       count: this.count,
       missing: this.missing,
-      kinds: [...this.kinds],
-      numMin: Number.isFinite(this.numMin) ? this.numMin : null,
-      numMax: Number.isFinite(this.numMax) ? this.numMax : null,
-      huge: this.huge,
-      moments: this.moments.toJSON(),
-      lo: this.loLen < 0 ? null : Buffer.from(this.lo.subarray(0, this.loLen)).toString('latin1'),
-      hi: this.hiLen < 0 ? null : Buffer.from(this.hi.subarray(0, this.hiLen)).toString('latin1'),
+      kinds: [f.kinds[0]!, f.kinds[1]!, f.kinds[2]!, f.kinds[3]!, f.kinds[4]!],
+      numMin: Number.isFinite(f.numMin) ? f.numMin : null,
+      numMax: Number.isFinite(f.numMax) ? f.numMax : null,
+      huge: f.huge,
+      moments: f.bin.toJSON(),
+      decimals: f.dec.toJSON(),
+      lo: f.loLen < 0 ? null : Buffer.from(f.lo.subarray(0, f.loLen)).toString('latin1'),
+      hi: f.hiLen < 0 ? null : Buffer.from(f.hi.subarray(0, f.hiLen)).toString('latin1'),
       values,
       sketch: this.sketch === null ? null : Buffer.from(this.sketch).toString('base64'),
     };
   }
 
   static fromJSON(s: SerializedColumn): ColumnState {
-    const c = new ColumnState();
+    const c = new ColumnState(s.values !== null);
     c.count = s.count;
     c.missing = s.missing;
-    for (let k = 0; k < 5; k++) c.kinds[k] = s.kinds[k]!;
+    if (s.values !== null) {
+      // Exact mode: the table is the state; every other figure derives from it.
+      const values = c.values!;
+      for (const [key, n] of s.values) {
+        const bytes = Buffer.from(key, 'latin1');
+        values.add(bytes, 0, bytes.length, n);
+      }
+      return c;
+    }
+    for (let k = 0; k < 5; k++) {
+      c.kinds[k] = s.kinds[k]!;
+      if (s.kinds[k]! > 0) c.kindBits |= KIND_BIT[k]!;
+    }
+    c.text = isTextFor(c.kindBits);
     c.numMin = s.numMin ?? Infinity;
     c.numMax = s.numMax ?? -Infinity;
     c.huge = s.huge;
-    c.moments.merge(ExactMoments.fromJSON(s.moments));
+    c.bin = ExactMoments.fromJSON(s.moments);
+    c.dec = DecimalSums.fromJSON(s.decimals);
     if (s.lo !== null) {
-      c.lo = new Uint8Array(Buffer.from(s.lo, 'latin1'));
-      c.loLen = c.lo.length;
+      const lo = Buffer.from(s.lo, 'latin1');
+      c.setLo(lo, 0, lo.length);
     }
     if (s.hi !== null) {
-      c.hi = new Uint8Array(Buffer.from(s.hi, 'latin1'));
-      c.hiLen = c.hi.length;
-    }
-    if (s.values === null) c.values = null;
-    else {
-      const values = new ValueCounter();
-      for (const [key, n] of s.values) {
-        const bytes = Buffer.from(key, 'latin1');
-        hashValue(bytes, 0, bytes.length);
-        values.add(bytes, 0, bytes.length, n);
-      }
-      c.values = values;
+      const hi = Buffer.from(s.hi, 'latin1');
+      c.setHi(hi, 0, hi.length);
     }
     c.sketch = s.sketch === null ? null : new Uint8Array(Buffer.from(s.sketch, 'base64'));
     return c;
@@ -792,9 +1057,33 @@ export class TableStats {
     this.records++;
   }
 
-  /** Adds every record of a batch (see addRecord). */
+  /**
+   * Adds every record of a batch (see addRecord). Column by column: one column's state, table and
+   * branches stay hot over the whole batch, and plain fields (most) go straight to the column.
+   */
   addBatch(batch: RecordBatch): void {
-    for (let i = 0; i < batch.count; i++) this.addRecord(batch, i);
+    const W = batch.wanted;
+    const n = batch.count;
+    const nc = Math.min(W, this.cols.length);
+    for (let f = 0; f < nc; f++) this.addColumnOfBatch(f, batch, W, n);
+    this.records += n;
+  }
+
+  private addColumnOfBatch(f: number, batch: RecordBatch, W: number, n: number): void {
+    const c = this.cols[f]!;
+    const cap = this.distinctCap;
+    const data = batch.data;
+    const fs = batch.fieldStart;
+    const fe = batch.fieldEnd;
+    const fk = batch.fieldKind;
+    for (let i = 0, k = f; i < n; i++, k += W) {
+      const s = fs[k]!;
+      const e = fe[k]!;
+      if (fk[k] === FieldKind.Plain) {
+        if (s === e) c.missing++;
+        else c.addValue(data, s, e, cap);
+      } else this.addField(f, data, s, e, fk[k]! as FieldKind);
+    }
   }
 
   /** Folds another table's figures into this one: exact, and the result does not depend on order. */
@@ -812,7 +1101,7 @@ export class TableStats {
   /** Canonical plain-data form: equal figures give deep-equal objects whatever the history. */
   toJSON(): SerializedStats {
     return {
-      version: 1,
+      version: 2,
       columns: this.columns.slice(),
       distinctCap: this.distinctCap,
       topValues: this.topValues,
@@ -822,7 +1111,7 @@ export class TableStats {
   }
 
   static fromJSON(s: SerializedStats): TableStats {
-    if (s.version !== 1) throw new RowdeckError('ERR_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
+    if (s.version !== 2) throw new RowdeckError('ERR_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
     const t = new TableStats(s.columns, { distinctCap: s.distinctCap, topValues: s.topValues });
     t.records = s.records;
     for (let i = 0; i < s.stats.length; i++) t.cols[i] = ColumnState.fromJSON(s.stats[i]!);
