@@ -18,8 +18,8 @@ try {
   const read = (onBatch) => {
     const reader = new RecordReader({ format: 'csv', header: true, wanted: ['fault'], file, onBadRecord: 'fail' });
     let n = 0;
-    for (let at = 0; at < data.length; at += 1 << 20) {
-      const b = reader.push(data.subarray(at, Math.min(data.length, at + (1 << 20))));
+    for (let at = 0; at < data.length; at += Number(process.env.CHUNK ?? 1048576)) {
+      const b = reader.push(data.subarray(at, Math.min(data.length, at + Number(process.env.CHUNK ?? 1048576))));
       if (b) { n += b.count; onBatch(b); }
     }
     const b = reader.end();

@@ -79,7 +79,9 @@ export function chooseBuckets(spillEstimate: number, memory: number, threads: nu
   const byBuffers = Math.max(1, Math.floor(memory / 4 / (32 * 1024 * tasks)));
   let want = Math.ceil(spillEstimate / target);
   if (want > byBuffers) want = Math.max(byBuffers, Math.ceil(spillEstimate / memCap));
-  const bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, want)))));
+  let bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, want)))));
+  // For experiments only: force the bucket bits (the output does not depend on them).
+  if (process.env.ROWDECK_BUCKET_BITS) bits = Number(process.env.ROWDECK_BUCKET_BITS);
   const bufferBytes = Math.max(4096 * tasks, Math.min(1024 * 1024 * tasks, Math.floor(memory / 4 / 2 ** bits)));
   return { bits, bufferBytes };
 }
