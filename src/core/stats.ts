@@ -971,6 +971,9 @@ function decodeUtf8(b: Uint8Array, len: number): string | null {
   return len < 0 ? null : Buffer.from(b.buffer, b.byteOffset, len).toString('utf8');
 }
 
+/** Records per block in TableStats.addBatch. */
+const STATS_BLOCK = 256;
+
 // --- the table ---------------------------------------------------------------------------------
 
 export class TableStats {
@@ -1065,18 +1068,24 @@ export class TableStats {
     const W = batch.wanted;
     const n = batch.count;
     const nc = Math.min(W, this.cols.length);
-    for (let f = 0; f < nc; f++) this.addColumnOfBatch(f, batch, W, n);
+    // Blocks of records small enough that their bytes and field ranges stay in cache while
+    // each column takes its turn (a whole batch is about 2 MB; measured faster than both
+    // whole-batch columns and record by record).
+    for (let i0 = 0; i0 < n; i0 += STATS_BLOCK) {
+      const i1 = Math.min(n, i0 + STATS_BLOCK);
+      for (let f = 0; f < nc; f++) this.addColumnOfBatch(f, batch, W, i0, i1);
+    }
     this.records += n;
   }
 
-  private addColumnOfBatch(f: number, batch: RecordBatch, W: number, n: number): void {
+  private addColumnOfBatch(f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
     const c = this.cols[f]!;
     const cap = this.distinctCap;
     const data = batch.data;
     const fs = batch.fieldStart;
     const fe = batch.fieldEnd;
     const fk = batch.fieldKind;
-    for (let i = 0, k = f; i < n; i++, k += W) {
+    for (let i = i0, k = i0 * W + f; i < i1; i++, k += W) {
       const s = fs[k]!;
       const e = fe[k]!;
       if (fk[k] === FieldKind.Plain) {
