@@ -699,11 +699,20 @@ class ColumnState {
     }
     const values = this.values;
     if (values !== null) {
-      if (values.find(hash, w0, w1, w2, b, s, len) >= 0) return;
-      values.insert(hash, w0, w1, w2, b, s, e, 1, classifyValue(b, s, e));
-      if (values.size > cap) this.switchToSketch();
+      if (values.find(hash, w0, w1, w2, b, s, len) < 0) this.insertValue(values, hash, w0, w1, w2, b, s, e, cap);
       return;
     }
+    this.addEstimated(hash, w0, w1, b, s, e);
+  }
+
+  /** A value not in the table yet (exact mode). */
+  private insertValue(values: ValueCounter, hash: number, w0: number, w1: number, w2: number, b: Buffer, s: number, e: number, cap: number): void {
+    values.insert(hash, w0, w1, w2, b, s, e, 1, classifyValue(b, s, e));
+    if (values.size > cap) this.switchToSketch();
+  }
+
+  /** A value in estimated mode: sketch, kinds, numbers, min/max. (Kept apart so each part stays small enough to optimise well.) */
+  private addEstimated(hash: number, w0: number, w1: number, b: Buffer, s: number, e: number): void {
     updateSketch(this.sketch!, hash);
     if (this.text) this.kinds[K_TEXT]!++;
     else {
