@@ -109,6 +109,34 @@ describe('agreement with shuffle', () => {
     expect(p.strata!.values.length).toBe(4);
   });
 
+  it('JSON Lines: the same column statistics as the shuffle manifest', async () => {
+    const file = join(dir, 'sensors.jsonl');
+    const rows = makeSensorCsv({ rows: 800, seed: 12 }).trimEnd().split('\n').slice(1).filter((l) => /^\d+,/.test(l));
+    const lines = rows.map((r) => {
+      const [id, sensor, site, reading] = r.split(',');
+      return JSON.stringify({ id: Number(id), sensor, site, reading: Number(reading), ok: Number(id) % 3 === 0, note: Number(id) % 5 === 0 ? null : `visit "${id}"` });
+    });
+    writeFileSync(file, lines.join('\n') + '\n');
+    const m = await shuffle({ inputs: [file], out: join(dir, 'out-jsonl'), partitions: 2 });
+    const p = await profile({ inputs: [file], threads: 2 });
+    expect(p.records).toBe(lines.length);
+    expect(p.columns).toEqual(m.input.stats);
+  });
+
+  it('JSON Lines inputs without some of the first input\'s keys count them as missing', async () => {
+    const a = join(dir, 'keys-a.jsonl');
+    const b = join(dir, 'keys-b.jsonl');
+    const whole = join(dir, 'keys-whole.jsonl');
+    writeFileSync(a, '{"id":1,"fault":"ok","reading":2.5}\n{"id":2,"fault":"drift","reading":3.25}\n');
+    writeFileSync(b, '{"id":3,"fault":"ok"}\n{"fault":"ok","id":4}\n');
+    writeFileSync(whole, '{"id":1,"fault":"ok","reading":2.5}\n{"id":2,"fault":"drift","reading":3.25}\n{"id":3,"fault":"ok","reading":null}\n{"id":4,"fault":"ok","reading":null}\n');
+    const split = await profile({ inputs: [a, b], stratify: 'fault', threads: 1 });
+    const one = await profile({ inputs: [whole], stratify: 'fault', threads: 0 });
+    expect(split.columns).toEqual(one.columns);
+    expect(split.strata).toEqual(one.strata);
+    expect(split.columns.find((c) => c.name === 'reading')).toMatchObject({ count: 2, missing: 2, mean: 2.875 });
+  });
+
   it('excluding values also matches the manifest with --exclude-values', async () => {
     const m = await shuffle({ inputs: [sensors], out: join(dir, 'out-excl'), partitions: 2, excludeValues: true });
     const p = await profile({ inputs: [sensors], excludeValues: true, threads: 1 });
