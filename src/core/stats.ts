@@ -378,8 +378,9 @@ function hashKey(b: Uint8Array, s: number, e: number): void {
   let w2 = 0;
   let i = s;
   let k = 0;
-  if (len >= 4) {
-    // Whole words by one load each; the last (partial) word below.
+  // Whole words by one load each (the last, partial one below), through a cached view; a small
+  // one-off buffer (say, a value decoded from JSON) is read byte by byte instead of making a view.
+  if (len >= 4 && (b === viewBuffer || b === otherBuffer || b.length >= 4096)) {
     const d = b === viewBuffer ? view : getView(b);
     for (const e4 = e - 3; i < e4; i += 4, k++) {
       const w = d.getInt32(i, true);
@@ -390,7 +391,7 @@ function hashKey(b: Uint8Array, s: number, e: number): void {
       h ^= h >>> 15;
     }
   }
-  if (i < e) {
+  for (; i < e; i += 4, k++) {
     const w = loadWord(b, i, e);
     if (k === 0) w0 = w;
     else if (k === 1) w1 = w;
@@ -669,7 +670,7 @@ class ColumnState {
     let w0 = 0;
     let w1 = 0;
     let w2 = 0;
-    if (len <= 12 && e + 3 <= b.length) {
+    if (len <= 12 && e + 3 <= b.length && (b === viewBuffer || b.length >= 4096 || b === otherBuffer)) {
       // Short value, room to read whole words: at most three loads (hashKey, unrolled).
       const d = b === viewBuffer ? view : getView(b);
       let h = HASH_SEED ^ len;
