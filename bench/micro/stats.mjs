@@ -2,12 +2,14 @@
 // Micro-benchmark of the column statistics (src/core/stats.ts): CPU time per record and MB/s of
 // TableStats over every column of the invented sensor readings (bench/generate.mjs).
 //
-//   npm run build && node bench/micro/stats.mjs [path.csv] [--mb 40] [--rounds 3] [--cap 1000]
+//   npm run build && node bench/micro/stats.mjs [path.csv] [--mb 40] [--rounds 3] [--cap 1000] [--columns] [--dist DIR]
 //
 // Without a path, bench/data/readings-100m.csv is used (generated first if absent, seed 1). The
 // first --mb megabytes are read and split into record batches (all columns wanted) once, kept in
 // memory, and then fed to a fresh TableStats in each round, so reading is not part of the figure.
-// CPU time (process.cpuUsage) is reported besides wall time: the machine may be shared.
+// CPU time (process.cpuUsage) is reported besides wall time: the machine may be shared, so compare
+// the best rounds, and builds in alternating processes. --columns also times each column alone
+// (ns per value); --dist takes TableStats from another build (e.g. a copy of an older dist/).
 import { existsSync, openSync, readSync, closeSync } from 'node:fs';
 import { execFileSync } from 'node:child_process';
 import { cpus } from 'node:os';
@@ -17,7 +19,11 @@ import { fileURLToPath } from 'node:url';
 const here = dirname(fileURLToPath(import.meta.url));
 const dist = join(here, '..', '..', 'dist');
 const { RecordReader } = await import(join(dist, 'io', 'reader.js'));
-const { TableStats } = await import(join(dist, 'core', 'stats.js'));
+const distArg = process.argv.indexOf('--dist');
+const statsDist = distArg > 0 ? process.argv.splice(distArg, 2)[1] : dist;
+const perColumn = process.argv.includes('--columns');
+if (perColumn) process.argv.splice(process.argv.indexOf('--columns'), 1);
+const { TableStats } = await import(join(statsDist, 'core', 'stats.js'));
 const { packBatch, unpackBatch } = await import(join(dist, 'engine', 'scatter.js'));
 
 const args = process.argv.slice(2);
@@ -90,6 +96,33 @@ for (let r = 0; r < rounds; r++) {
   console.log(`round ${r + 1}: ${((cpu * 1e6) / records).toFixed(0)} ns/record CPU (${((cpu * 1e6) / records / columns.length).toFixed(1)} ns/field), ${(bytes / 1e6 / (cpu / 1000)).toFixed(0)} MB/s CPU, wall ${wall.toFixed(0)} ms`);
 }
 const best = Math.min(...results);
+if (perColumn) {
+  // Each column alone, from batches holding that column only (no other column's state in cache).
+  const single = columns.map((_, w) =>
+    batches.map((b) => {
+      const fieldStart = new Uint32Array(b.count);
+      const fieldEnd = new Uint32Array(b.count);
+      const fieldKind = new Uint8Array(b.count);
+      for (let i = 0; i < b.count; i++) {
+        fieldStart[i] = b.fieldStart[i * b.wanted + w];
+        fieldEnd[i] = b.fieldEnd[i * b.wanted + w];
+        fieldKind[i] = b.fieldKind[i * b.wanted + w];
+      }
+      return { ...b, wanted: 1, fieldStart, fieldEnd, fieldKind };
+    }),
+  );
+  const perCol = columns.map(() => Infinity);
+  for (let r = 0; r < rounds; r++) {
+    columns.forEach((name, w) => {
+      const t = new TableStats([name], { distinctCap: cap });
+      const c0 = process.cpuUsage();
+      for (const b of single[w]) t.addBatch(b);
+      const c = process.cpuUsage(c0);
+      perCol[w] = Math.min(perCol[w], ((c.user + c.system) * 1000) / records);
+    });
+  }
+  console.log(`per column, best of ${rounds} (ns per value, CPU): ${columns.map((name, w) => `${name} ${perCol[w].toFixed(0)}`).join(', ')}`);
+}
 console.log(`best: ${((best * 1e6) / records).toFixed(0)} ns/record, ${(bytes / 1e6 / (best / 1000)).toFixed(0)} MB/s (CPU time, one thread)`);
 // Print something derived from the result so the work cannot be skipped, and as a sanity check.
 const s = last.summary();
