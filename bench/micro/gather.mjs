@@ -11,6 +11,7 @@ import { ScatterTask } from '../../dist/engine/scatter.js';
 import { buildDealTable } from '../../dist/core/deal.js';
 import { deriveSecret } from '../../dist/core/hash.js';
 import { gatherBucket, preparePlan } from '../../dist/engine/gather.js';
+import { TableStats } from '../../dist/core/stats.js';
 
 const arg = (name, dflt) => {
   const i = process.argv.indexOf(`--${name}`);
@@ -47,13 +48,14 @@ try {
       groupsFile: null, statsColumns: stats ? ['reading_id', 'sensor_id', 'site', 'taken_at', 'temp_c', 'humidity_pct', 'battery_v', 'vibration_g', 'note', 'fault'] : [], excludeValues: false,
     };
     const prep = preparePlan(plan, null);
+    const tables = stats ? Array.from({ length: 8 }, () => new TableStats(plan.statsColumns)) : null;
     process.env.ROWDECK_PHASES = '1';
     let arena;
-    gatherBucket(prep, { bucket: 0, pieces, rankStart: new Float64Array(sizes.length) });
+    gatherBucket(prep, { bucket: 0, pieces, rankStart: new Float64Array(sizes.length) }, tables);
     const c0 = process.cpuUsage();
     const phases = [0, 0, 0, 0, 0, 0];
     for (let r = 0; r < rounds; r++) {
-      const out = gatherBucket(prep, { bucket: 0, pieces, rankStart: new Float64Array(sizes.length), ...(arena ? { arena } : {}) });
+      const out = gatherBucket(prep, { bucket: 0, pieces, rankStart: new Float64Array(sizes.length), ...(arena ? { arena } : {}) }, tables);
       arena = out.data.buffer;
       out.phases?.forEach((ms, k) => (phases[k] += ms));
     }
