@@ -456,7 +456,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   if (!inline && !o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
   const lanes = inline ? null : new WorkerLanes<ArrayBuffer, ArrayBuffer, ScatterTaskResult>(o.workerFile!, tasks, config);
   const spare: ArrayBuffer[] = [];
-  const running = new Set<Promise<ArrayBuffer>>();
+  const running = new Set<Promise<void>>();
   // At most two batches waiting or running per worker: bounded memory, and the reader pauses.
   const MAX_IN_FLIGHT = 2 * tasks;
   try {
@@ -475,9 +475,13 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       const n = batch.count;
       if (inline) inline.addBatch(batch, input);
       else if (n > 0) {
-        while (running.size >= MAX_IN_FLIGHT) spare.push(await Promise.race(running));
+        while (running.size >= MAX_IN_FLIGHT) await Promise.race(running);
         const buffer = packBatch(batch, input, spare.pop());
-        const p: Promise<ArrayBuffer> = lanes!.run(buffer, [buffer]).finally(() => running.delete(p));
+        // Every buffer comes back for reuse (allocating ~1 MiB per batch costs page faults).
+        const p: Promise<void> = lanes!
+          .run(buffer, [buffer])
+          .then((back) => void spare.push(back))
+          .finally(() => running.delete(p));
         p.catch(() => {});
         running.add(p);
       }
