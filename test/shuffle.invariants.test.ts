@@ -47,7 +47,8 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     const results = [];
     for (const [k, r] of runs.entries()) {
       const out = join(dir, `inv1-${k}`);
-      const m = await shuffle({ inputs: [input], out, seed: 'field-season-7', partitions: 4, stratify: 'fault', folds: 3, ...r });
+      // With statistics: their exact merge must not depend on how the work was cut up either.
+      const m = await shuffle({ inputs: [input], out, seed: 'field-season-7', partitions: 4, stratify: 'fault', folds: 3, stats: true, ...r });
       results.push({ files: outputsOf(out), manifest: stable(m), buckets: m.run.buckets });
     }
     // The runs really were cut up differently...
@@ -58,6 +59,7 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
       expect(r.manifest).toEqual(results[0]!.manifest);
     }
     expect(Object.keys(results[0]!.files)).toEqual(['part-00000.csv', 'part-00001.csv', 'part-00002.csv', 'part-00003.csv']);
+    expect((results[0]!.manifest as Manifest).input.stats).toBeDefined();
   });
 
   it('gives a different order for a different seed, and records the seed', async () => {

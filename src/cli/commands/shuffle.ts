@@ -26,7 +26,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     'temp-dir': { type: 'string' },
     gzip: { type: 'boolean' },
     force: { type: 'boolean' },
-    'no-stats': { type: 'boolean' },
+    stats: { type: 'boolean' },
   });
   if (v.help) {
     io.stdout.write(SHUFFLE_HELP);
@@ -62,7 +62,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   if (v.gzip) opts.gzip = true;
   if (v.force) opts.force = true;
   if (v['exclude-values']) opts.excludeValues = true;
-  if (v['no-stats']) opts.stats = false;
+  if (v.stats) opts.stats = true;
   set('onBadRecord', strArg(v['on-bad-record']) as BadRecordPolicy | undefined);
   let result;
   try {
