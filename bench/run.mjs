@@ -57,6 +57,7 @@ const cases = [
   ...(hasShuf ? [{ name: 'shuf', file: big, cmd: ['shuf', big, '-o', join(tmp, 'shuf.csv')], clean: join(tmp, 'shuf.csv') }] : []),
   { name: 'rowdeck-p8', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--seed', 'bench', '--force', '--quiet'), clean: out },
   { name: 'rowdeck-strat', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--seed', 'bench', '--force', '--quiet'), clean: out },
+  { name: 'rowdeck-strat-stats', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--stats', '--seed', 'bench', '--force', '--quiet'), clean: out },
   { name: 'rowdeck-folds', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--folds', '5', '--seed', 'bench', '--force', '--quiet'), clean: out },
   { name: 'rowdeck-strat-small', file: small, cmd: rowdeck('shuffle', small, '--out', out, '--partitions', '8', '--stratify', 'fault', '--seed', 'bench', '--force', '--quiet'), clean: out },
   { name: 'rowdeck-mem64', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--memory', '64MiB', '--seed', 'bench', '--force', '--quiet'), clean: out },
