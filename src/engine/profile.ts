@@ -21,6 +21,7 @@ import { Worker } from 'node:worker_threads';
 import { maxDeviation, orderStrata } from '../core/balance.js';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, type Secret } from '../core/hash.js';
+import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { fromWire, RowdeckError, type WireError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
@@ -218,14 +219,9 @@ export interface ProfileTaskResult {
   strata: [string, number][];
 }
 
-/**
- * Counts records by the bytes of one plain field without making a string per record: an
- * open-addressing table over copies of the key bytes.
- */
+/** Counts records by the bytes of one plain field, without making a string per record. */
 class ByteCounter {
-  #mask = 255;
-  #hashes = new Int32Array(256);
-  #ids = new Int32Array(256).fill(-1);
+  #table = new ByteIdTable();
   #keys: Buffer[] = [];
   #counts: number[] = [];
 
@@ -235,54 +231,15 @@ class ByteCounter {
 
   /** Adds one to the count of b[s, e). */
   count(b: Buffer, s: number, e: number): void {
-    let h = 0x811c9dc5 | 0;
-    for (let i = s; i < e; i++) h = Math.imul(h ^ b[i]!, 0x01000193);
-    const len = e - s;
-    for (let slot = h & this.#mask; ; slot = (slot + 1) & this.#mask) {
-      const id = this.#ids[slot]!;
-      if (id < 0) {
-        this.#insert(slot, h, Buffer.from(b.subarray(s, e)));
-        return;
-      }
-      if (this.#hashes[slot] !== h) continue;
-      const k = this.#keys[id]!;
-      if (k.length !== len) continue;
-      let same = true;
-      for (let i = 0; i < len; i++) {
-        if (k[i] !== b[s + i]) {
-          same = false;
-          break;
-        }
-      }
-      if (same) {
-        this.#counts[id]!++;
-        return;
-      }
+    const h = ByteIdTable.hash(b, s, e);
+    let id = this.#table.find(b, s, e, h);
+    if (id < 0) {
+      id = this.#keys.length;
+      this.#table.add(b, s, e, h, id);
+      this.#keys.push(Buffer.from(b.subarray(s, e)));
+      this.#counts.push(0);
     }
-  }
-
-  #insert(slot: number, h: number, key: Buffer): void {
-    const id = this.#keys.length;
-    this.#keys.push(key);
-    this.#counts.push(1);
-    this.#ids[slot] = id;
-    this.#hashes[slot] = h;
-    if (this.#keys.length * 2 > this.#mask) this.#grow();
-  }
-
-  #grow(): void {
-    const cap = (this.#mask + 1) * 2;
-    this.#mask = cap - 1;
-    this.#ids = new Int32Array(cap).fill(-1);
-    this.#hashes = new Int32Array(cap);
-    this.#keys.forEach((k, id) => {
-      let h = 0x811c9dc5 | 0;
-      for (let i = 0; i < k.length; i++) h = Math.imul(h ^ k[i]!, 0x01000193);
-      let slot = h & this.#mask;
-      while (this.#ids[slot]! >= 0) slot = (slot + 1) & this.#mask;
-      this.#ids[slot] = id;
-      this.#hashes[slot] = h;
-    });
+    this.#counts[id]!++;
   }
 
   /** Calls fn with each key's latin1 text (the stratum key shuffle makes for a plain field) and count. */

@@ -20,6 +20,7 @@ import { readRecords } from '../io/input.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, type SpillPiece } from './spill.js';
+import { ByteIdTable } from '../core/byte-table.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
 export const MISSING_KEY = '\uffff';
@@ -124,72 +125,6 @@ export function fieldKey(b: RecordBatch, i: number, w: number): string {
 /** Human form of a canonical stratum key: values decoded, missing shown as null. */
 export function stratumValues(key: string): (string | null)[] {
   return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
-}
-
-/**
- * Byte-keyed lookup for the common case (one stratify column, plain field): finds a stratum id
- * from the field's bytes without making a string per record.
- */
-class ByteIdTable {
-  #mask = 255;
-  #hashes = new Int32Array(256);
-  #ids = new Int32Array(256).fill(-1);
-  #keys: (Buffer | undefined)[] = new Array(256);
-  #size = 0;
-
-  static hash(d: Buffer, s: number, e: number): number {
-    let h = 0x811c9dc5 | 0;
-    for (let i = s; i < e; i++) h = Math.imul(h ^ d[i]!, 0x01000193);
-    return h;
-  }
-
-  find(d: Buffer, s: number, e: number, h: number): number {
-    const len = e - s;
-    for (let slot = h & this.#mask; ; slot = (slot + 1) & this.#mask) {
-      const id = this.#ids[slot]!;
-      if (id < 0) return -1;
-      if (this.#hashes[slot] !== h) continue;
-      const k = this.#keys[slot]!;
-      if (k.length !== len) continue;
-      let same = true;
-      for (let i = 0; i < len; i++) {
-        if (k[i] !== d[s + i]) {
-          same = false;
-          break;
-        }
-      }
-      if (same) return id;
-    }
-  }
-
-  add(d: Buffer, s: number, e: number, h: number, id: number): void {
-    if ((this.#size + 1) * 2 > this.#mask) this.#grow();
-    let slot = h & this.#mask;
-    while (this.#ids[slot]! >= 0) slot = (slot + 1) & this.#mask;
-    this.#ids[slot] = id;
-    this.#hashes[slot] = h;
-    this.#keys[slot] = Buffer.from(d.subarray(s, e));
-    this.#size++;
-  }
-
-  #grow(): void {
-    const ids = this.#ids;
-    const hashes = this.#hashes;
-    const keys = this.#keys;
-    const cap = (this.#mask + 1) * 2;
-    this.#mask = cap - 1;
-    this.#ids = new Int32Array(cap).fill(-1);
-    this.#hashes = new Int32Array(cap);
-    this.#keys = new Array(cap);
-    for (let slot = 0; slot < ids.length; slot++) {
-      if (ids[slot]! < 0) continue;
-      let t = hashes[slot]! & this.#mask;
-      while (this.#ids[t]! >= 0) t = (t + 1) & this.#mask;
-      this.#ids[t] = ids[slot]!;
-      this.#hashes[t] = hashes[slot]!;
-      this.#keys[t] = keys[slot];
-    }
-  }
 }
 
 /** One scatter task: the per-record work of stage 1 for the batches it is given. */
