@@ -273,7 +273,10 @@ export class ScatterTask {
 export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | undefined): ArrayBuffer {
   const n = b.count;
   const W = b.wanted;
-  const base = n > 0 ? b.start[0]! : 0;
+  // Records are kept at their offsets from the start of the reader's buffer (usually the first
+  // record's offset is 0 or a header's length), so the position arrays copy with one memcpy
+  // each; only a far-off start is cut and re-based.
+  const base = n > 0 && b.start[0]! > 1 << 22 ? b.start[0]! : 0;
   const dataLen = n > 0 ? b.next[n - 1]! - base : 0;
   const dataPad = (dataLen + 7) & ~7;
   const size = 64 + dataPad + n * 4 * 3 + n * W * 4 * 2 + ((n * 8 * 2 + 7) & ~7) + ((n * W + 7) & ~7) + 16;
@@ -288,7 +291,8 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
   at += dataPad;
   const rebase = (src: Uint32Array, len: number, shift: number): void => {
     const dst = new Uint32Array(ab, at, len);
-    for (let i = 0; i < len; i++) dst[i] = src[i]! - shift;
+    if (shift === 0) dst.set(src.subarray(0, len));
+    else for (let i = 0; i < len; i++) dst[i] = src[i]! - shift;
     at += len * 4;
   };
   rebase(b.start, n, base);
