@@ -225,6 +225,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (assign0 === 'hash' && key.length === 0) throw invalid('key', 'one or more key columns with assign "hash" (the part must follow from the key)', o.key ?? '');
   if (assign0 === 'hash' && group !== null) throw invalid('assign', '"exact" with group (groups are dealt as units)', assign0);
   const { splits, counts, rest } = parseSplits(o.split);
+  if (assign0 === 'hash' && counts) throw invalid('split', 'weights as fractions with assign "hash" (its shares are approximate, so record counts cannot be met)', typeof o.split === 'string' ? o.split : JSON.stringify(o.split));
   const foldColumn = folds > 1 ? (o.foldColumn ?? 'fold') : null;
   if (foldColumn !== null && (typeof foldColumn !== 'string' || foldColumn === '')) throw invalid('foldColumn', 'a column name', o.foldColumn);
   if (o.format !== undefined && !['csv', 'tsv', 'jsonl'].includes(o.format)) throw invalid('format', '"csv", "tsv" or "jsonl"', o.format);

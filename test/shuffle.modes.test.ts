@@ -7,7 +7,7 @@ import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { shuffle } from '../src/index.js';
+import { shuffle, verify } from '../src/index.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -82,8 +82,25 @@ describe('--assign hash', () => {
     for (const c of counts.values()) expect(Math.abs(c - 1500)).toBeLessThan(150);
   });
 
-  it('needs --key', async () => {
+  it('needs --key, and split weights as fractions', async () => {
     await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'hashcounts'), assign: 'hash', key: 'id', split: 'a=100,b=*' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    expect(existsSync(join(dir, 'hashcounts'))).toBe(false);
+  });
+
+  it('counts cells while scattering: the manifest matches the files', async () => {
+    const m = await shuffle({ inputs: [input], out: join(dir, 'hash-split'), seed: 'hs', assign: 'hash', key: 'id', split: 'train=0.75,test=0.25', folds: 3, stratify: 'fault', tolerance: 2 });
+    for (const p of m.output.parts) {
+      const { rows } = parseCsv(readPart(join(dir, 'hash-split', p.path)));
+      expect(rows.length).toBe(p.records);
+      const folds = [0, 0, 0];
+      for (const r of rows) folds[Number(r[r.length - 1])]!++;
+      expect(folds).toEqual(p.folds);
+    }
+    expect(m.output.records).toBe(6000);
+    // verify recomputes the deviation from the files: it must equal the one checked in advance.
+    const report = await verify({ dir: join(dir, 'hash-split') });
+    expect(report.ok).toBe(true);
   });
 });
 

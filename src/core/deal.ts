@@ -14,7 +14,7 @@
  *      (per stratum within one, totals within one), folds within two.
  * This module is pure: no I/O.
  */
-import { hashWords3, type Secret } from './hash.js';
+import { hashToUnit, hashWords3, type Secret } from './hash.js';
 
 export interface SplitSpec {
   name: string;
@@ -179,4 +179,33 @@ export function countCells(table: DealTable): Float64Array {
     }
   }
   return out;
+}
+
+/**
+ * Cell id for `--assign hash`: a pure function of the record's key and the seed's cell secret,
+ * so a record keeps its cell when other records are added. Splits take shares of [0, 1) by
+ * weight; inside a split, partitions and folds share it evenly.
+ */
+export function hashedCell(deal: DealSpec, cellSecret: Secret, keyHi: number, keyLo: number): number {
+  const { splits, partitions: P, folds: K } = deal;
+  const h = hashWords3(cellSecret, keyHi, keyLo, 0x63656c6c);
+  const u = hashToUnit(h[0]!, h[1]!);
+  const wsum = splits.reduce((a, b) => a + b.weight, 0);
+  let acc = 0;
+  let split = splits.length - 1;
+  let lo = 0;
+  let hi = 1;
+  for (let i = 0; i < splits.length; i++) {
+    const next = acc + splits[i]!.weight / wsum;
+    if (u < next || i === splits.length - 1) {
+      split = i;
+      lo = acc;
+      hi = next;
+      break;
+    }
+    acc = next;
+  }
+  const v = Math.min(0.9999999999999999, (u - lo) / (hi - lo));
+  const t = Math.floor(v * P * K);
+  return (split * P + (t % P)) * K + Math.floor(t / P);
 }

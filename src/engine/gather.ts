@@ -4,8 +4,8 @@
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
 import { closeSync, openSync, readSync } from 'node:fs';
-import { buildDealTable, cellOf, type DealTable } from '../core/deal.js';
-import { Fingerprint, hashToUnit, hashWords3 } from '../core/hash.js';
+import { buildDealTable, cellOf, hashedCell, type DealTable } from '../core/deal.js';
+import { Fingerprint } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
 import type { TableStats } from '../core/stats.js';
@@ -73,30 +73,6 @@ function buildDealTableFromPlan(plan: GatherPlan): DealTable {
   };
 }
 
-/** Cell id for hash mode: a pure function of the record's key and the seed. */
-export function hashCell(prep: PreparedPlan, keyHi: number, keyLo: number): number {
-  const { splits, partitions: P, folds: K } = prep.plan.deal;
-  const h = hashWords3(prep.cellSecret, keyHi, keyLo, 0x63656c6c);
-  const u = hashToUnit(h[0]!, h[1]!);
-  const wsum = splits.reduce((a, b) => a + b.weight, 0);
-  let acc = 0;
-  let split = splits.length - 1;
-  let lo = 0;
-  let hi = 1;
-  for (let i = 0; i < splits.length; i++) {
-    const next = acc + splits[i]!.weight / wsum;
-    if (u < next || i === splits.length - 1) {
-      split = i;
-      lo = acc;
-      hi = next;
-      break;
-    }
-    acc = next;
-  }
-  const v = Math.min(0.9999999999999999, (u - lo) / (hi - lo));
-  const t = Math.floor(v * P * K);
-  return (split * P + (t % P)) * K + Math.floor(t / P);
-}
 
 function findGroupCell(groups: GroupTable, hi: number, lo: number): number {
   let a = 0;
@@ -126,9 +102,6 @@ const PHASES = process.env.ROWDECK_PHASES === '1';
 export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableStats[] | null = null): GatherResult {
   const { plan, table } = prep;
   const K = plan.deal.folds;
-  const P = plan.deal.partitions;
-  const S = plan.deal.splits.length;
-  const M = P * K;
   const parts = partCount(plan.deal);
   const strata = plan.strataCount;
 
@@ -182,7 +155,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   // Each record's cell, in key order (its rank within its stratum follows key order).
   const cellOfRec = scratch(5, n);
   if (plan.mode === 'exact') dealExact(order, n, ix.stratum, Float64Array.from(task.rankStart), table, cellOfRec);
-  else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashCell(prep, keyHi[i]!, keyLo[i]!);
+  else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, keyHi[i]!, keyLo[i]!);
   else for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(prep.groups!, keyHi[i]!, keyLo[i]!);
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);

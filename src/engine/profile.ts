@@ -30,7 +30,7 @@ import { fieldText, RecordReader, unknownColumn } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
-import { fieldKey, MAX_STRATA, MISSING_KEY, packBatch, stratumValues, TUPLE_SEP, unpackBatch } from './scatter.js';
+import { fieldKey, MAX_STRATA, MISSING_KEY, packBatch, stratumValues, TUPLE_SEP } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
 
 export const PROFILE_VERSION = 1;

@@ -14,6 +14,7 @@
  */
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
+import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { readRecords } from '../io/input.js';
@@ -42,9 +43,12 @@ export interface ScatterTaskConfig {
   task: number;
   bits: number;
   bufferBytes: number;
+  /** `--assign hash`: count records per (cell, stratum) as they pass, so the plan needs no re-read. */
+  hashCells: { deal: DealSpec; cellSecret: number[] } | null;
 }
 
-export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins'> {
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells'> {
+  hashCells?: ScatterTaskConfig['hashCells'];
   format: InputFormat;
   delimiter: string | undefined;
   header: boolean;
@@ -84,6 +88,8 @@ export interface ScatterTaskResult {
   fingerprint: { hi: number; lo: number; count: number };
   /** Group mode: [hi, lo, size, stratum, count, stratum, count, …] per group. */
   groups: number[][] | null;
+  /** Hash mode: `cellCounts[stratum][cell]`. */
+  cellCounts: Float64Array[] | null;
 }
 
 export interface ScatterResult {
@@ -101,6 +107,8 @@ export interface ScatterResult {
   rejected: number;
   fingerprint: Fingerprint;
   groups: GroupEntry[] | null;
+  /** Hash mode: `cellCounts[stratum][cell]` over all tasks (union stratum ids). */
+  cellCounts: Float64Array[] | null;
 }
 
 /** Canonical text of one wanted field: the latin1 rendering of its decoded UTF-8 bytes. */
@@ -140,6 +148,8 @@ export class ScatterTask {
   readonly #fast = new ByteIdTable();
   readonly #hasBins: boolean;
   readonly #keyBuf = Buffer.allocUnsafe(4096);
+  readonly #cellSecret: Secret | null;
+  readonly #cellCounts: Float64Array[] = [];
   #records = 0;
   #input = 0;
 
@@ -149,6 +159,7 @@ export class ScatterTask {
     this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
     this.#groups = c.group !== null ? new Map() : null;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
+    this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
   }
 
   #newStratum(k: string): number {
@@ -233,6 +244,11 @@ export class ScatterTask {
       const e = batch.end[i]!;
       writer.append(bucket, hi, lo, offset, input, st, d, batch.start[i]!, e, batch.next[i]! - e);
       this.#bucketCounts[st]![bucket]!++;
+      if (this.#cellSecret) {
+        const deal = c.hashCells!.deal;
+        const counts = (this.#cellCounts[st] ??= new Float64Array(deal.splits.length * deal.partitions * deal.folds));
+        counts[hashedCell(deal, this.#cellSecret, hi, lo)]!++;
+      }
       if (this.#groups) {
         const gk = `${hi}:${lo}`;
         let g = this.#groups.get(gk);
@@ -256,6 +272,7 @@ export class ScatterTask {
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
       groups: this.#groups ? [...this.#groups.values()].map((g) => [g.hi, g.lo, g.size, ...[...g.strata].flat()]) : null,
+      cellCounts: this.#cellSecret ? this.#strata.map((_, st) => this.#cellCounts[st] ?? new Float64Array(0)) : null,
     };
   }
 
@@ -351,6 +368,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     spillDir: o.spillDir,
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
+    hashCells: o.hashCells ?? null,
   };
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
@@ -459,6 +477,17 @@ export function mergeScatterResults(
     });
     groups = [...byKey.values()];
   }
+  let cellCounts: Float64Array[] | null = null;
+  if (results.some((r) => r.cellCounts)) {
+    cellCounts = strata.map(() => new Float64Array(0));
+    results.forEach((r, t) =>
+      r.cellCounts?.forEach((src, local) => {
+        const u = taskStrata[t]![local]!;
+        const dst = cellCounts![u]!.length ? cellCounts![u]! : (cellCounts![u] = new Float64Array(src.length));
+        for (let k = 0; k < src.length; k++) dst[k]! += src[k]!;
+      }),
+    );
+  }
   const bucketPieces = Array.from({ length: buckets }, (_, b) => {
     const pieces: SpillPiece[] = [];
     results.forEach((r, t) => {
@@ -478,5 +507,6 @@ export function mergeScatterResults(
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),
     fingerprint: fp,
     groups,
+    cellCounts,
   };
 }

@@ -12,9 +12,8 @@
 import { mkdirSync, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeFileSync, openSync, readSync, closeSync } from 'node:fs';
 import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { existsSync, readFileSync } from 'node:fs';
+import { existsSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
-import { unlink } from 'node:fs/promises';
 import { stringify } from 'csv-stringify/sync';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
@@ -25,7 +24,7 @@ import { detectFormat } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
-import { hashCell, type GatherResult, type GatherTask } from './gather.js';
+import type { GatherResult, GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { scatter, stratumValues, type ScatterResult } from './scatter.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
@@ -309,6 +308,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       },
       bits,
       bufferBytes: spillBuffer,
+      // Hash mode: cells follow from keys alone, so stage 1 can count them on the way.
+      hashCells: o.assign === 'hash' ? { deal: { splits: o.splits, exactCounts: false, partitions: o.partitions, folds: o.folds }, cellSecret: Array.from(cellSecret) } : null,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
     });
     timings.scatterMs = Date.now() - t0;
@@ -343,9 +344,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellCounts = transpose(cellCounts, nStrata, cells);
     } else if (o.assign === 'hash') {
       cellCounts = new Float64Array(cells * nStrata);
-      const prep = { plan: { deal } as GatherPlan, cellSecret } as Parameters<typeof hashCell>[0];
-      // Keys are in the spill; the counts per cell need one pass over key and stratum only.
-      countHashCells(sc, taskToDealing, nStrata, (hi, lo) => hashCell(prep, hi, lo), cellCounts);
+      sc.cellCounts!.forEach((counts, u) => counts.forEach((n, cell) => (cellCounts[cell * nStrata + localToGlobal[u]!]! += n)));
     } else {
       const groups = sc.groups!.map((g) => ({ hi: g.hi, lo: g.lo, size: g.size, strata: new Map([...g.strata].map(([s, n]) => [localToGlobal[s]!, n])) }));
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
@@ -434,7 +433,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
     const pending = new Map<number, Promise<GatherResult>>();
     const phases: number[] = [];
-    let written = 0;
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
     const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
@@ -459,7 +457,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
-      written += r.data.byteLength;
       spare.push(r.data.buffer as ArrayBuffer);
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
@@ -475,7 +472,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     writers.length = 0;
     timings.gatherMs = Date.now() - tGather;
     if (phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(phases[k] ?? 0)));
-    void written;
 
     if (rejects.length > 0) {
       writeFileSync(join(stage, 'rejected.csv'), stringify([['file', 'line', 'code', 'reason', 'record']]) + rejects.join(''));
@@ -563,39 +559,6 @@ function transpose(a: Float64Array, rows: number, cols: number): Float64Array {
   for (let r = 0; r < rows; r++) for (let c = 0; c < cols; c++) out[c * rows + r] = a[r * cols + c]!;
   return out;
 }
-
-/** Hash mode: the exact per-cell counts, from the keys in the spill, before anything is written. */
-function countHashCells(
-  sc: ScatterResult,
-  taskToDealing: number[][],
-  nStrata: number,
-  cellOf: (hi: number, lo: number) => number,
-  out: Float64Array,
-): void {
-  const u32 = new Uint32Array(1 << 18);
-  const bytes = new Uint8Array(u32.buffer);
-  for (const pieces of sc.bucketPieces) {
-    for (const p of pieces) {
-      // Chunks hold whole records; read each and walk its headers.
-      const view = p.length <= bytes.length ? u32 : new Uint32Array(Math.ceil(p.length / 4));
-      const fd = openSync(p.path, 'r');
-      try {
-        readSync(fd, new Uint8Array(view.buffer, 0, p.length), 0, p.length, p.offset);
-      } finally {
-        closeSync(fd);
-      }
-      const map = taskToDealing[p.task]!;
-      const words = p.length >>> 2;
-      for (let w = 0; w < words; ) {
-        const cell = cellOf(view[w]!, view[w + 1]!);
-        out[cell * nStrata + map[view[w + 4]!]!]!++;
-        const len = view[w + 5]! >>> 2;
-        w += 6 + ((len + 3) >>> 2);
-      }
-    }
-  }
-}
-
 
 function headerBytes(sc: ScatterResult, o: ResolvedShuffleOptions, format: InputFormat): Buffer | null {
   if (format === 'jsonl' || !sc.schema.headerBytes) return null;

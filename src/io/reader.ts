@@ -128,8 +128,6 @@ export class RecordReader {
   private sch: InputSchema | null = null;
   /** Expected field count per record (CSV/TSV); 0 until the first record is known. */
   private ncols = 0;
-  /** Column index -> first wanted slot naming it, or -1. */
-  private slot = new Int32Array(0);
   /** For each wanted slot, the earlier slot with the same name, or -1. */
   private dupOf = new Int32Array(0);
   /** Column index of each wanted field. */
@@ -759,14 +757,8 @@ export class RecordReader {
   /** Maps wanted names to column indices; unknown names fail with the closest suggestion. */
   private setColumns(columns: string[]): void {
     const N = columns.length;
-    const slot = new Int32Array(N + 1).fill(-1);
     const { wanted, file } = this.opts;
-    wanted.forEach((name, w) => {
-      const c = columns.indexOf(name);
-      if (c < 0) throw unknownColumn(name, columns, file);
-      if (slot[c]! < 0) slot[c] = w;
-    });
-    this.slot = slot;
+    for (const name of wanted) if (!columns.includes(name)) throw unknownColumn(name, columns, file);
     // A column may be wanted twice (say, as stratum and as key): later copies repeat the first.
     this.dupOf = Int32Array.from(wanted, (name, w) => {
       const first = wanted.indexOf(name);
