@@ -830,6 +830,19 @@ interface InputScan {
   headers: { file: string; columns: string[] }[];
 }
 
+/** A reader for one of the inputs given to --against: bad records are counted, not fatal. */
+function createInputReader(plan: ReadPlan, file: string): RecordReader {
+  return new RecordReader({
+    format: plan.format,
+    ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
+    header: plan.header,
+    wanted: [],
+    file,
+    onBadRecord: 'skip',
+    onReject: () => {},
+  });
+}
+
 async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | null, progress: (done: number, records: number) => void): Promise<InputScan> {
   const res: InputScan = { records: 0, rejected: 0, perFile: [], fingerprint: new Fingerprint(), errors: [], headers: [] };
   for (let k = 0; k < inputs.length; k++) {
@@ -842,15 +855,7 @@ async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | n
         throw ioError(err, path, 'reading');
       }
     }
-    const reader = new RecordReader({
-      format: plan.format,
-      ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
-      header: plan.header,
-      wanted: [],
-      file,
-      onBadRecord: 'skip',
-      onReject: () => {},
-    });
+    const reader = createInputReader(plan, file);
     let n = 0;
     try {
       await readAll(path, reader, (b) => {
@@ -921,15 +926,7 @@ async function listDifferences(inHashes: HashList, outHashes: HashList, inputs: 
       // Standard input was read once already; its records can be counted but not listed.
       if (path === '-') continue;
       const file = nameInput(path);
-      const reader = new RecordReader({
-        format: plan.format,
-        ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
-        header: plan.header,
-        wanted: [],
-        file,
-        onBadRecord: 'skip',
-        onReject: () => {},
-      });
+      const reader = createInputReader(plan, file);
       try {
         await readAll(path, reader, (bt) => {
           for (let r = 0; r < bt.count && found < DIFF_LIST_LIMIT; r++) {
