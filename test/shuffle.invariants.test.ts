@@ -5,6 +5,7 @@
 import { createHash } from 'node:crypto';
 import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest } from '../src/index.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
@@ -60,6 +61,40 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     }
     expect(Object.keys(results[0]!.files)).toEqual(['part-00000.csv', 'part-00001.csv', 'part-00002.csv', 'part-00003.csv']);
     expect((results[0]!.manifest as Manifest).input.stats).toBeDefined();
+  });
+
+  it('gives identical bytes and rejected records whether workers read the input in blocks or this thread reads it', async () => {
+    // A gzip input is read on the main thread; the same bytes uncompressed are parsed by the
+    // workers in blocks (tiny ones here, so many start inside quoted line breaks).
+    const lines = makeSensorCsv({ rows: 6000, seed: 5, crlf: true }).split('\r\n');
+    for (let k = 40; k < lines.length - 1; k += 397) lines[k] = `${k},"broken"x,site,1.0,,ok`;
+    const text = lines.join('\r\n');
+    const plain = join(dir, 'blocks.csv');
+    writeFileSync(plain, text);
+    const packed = join(dir, 'blocks.csv.gz');
+    writeFileSync(packed, gzipSync(text));
+    const opts = { seed: 'blocks', partitions: 3, stratify: 'fault', folds: 2, onBadRecord: 'quarantine' as const, threads: 2 };
+    const before = process.env.ROWDECK_BLOCK_BYTES;
+    process.env.ROWDECK_BLOCK_BYTES = '3000';
+    let mBlocks: Manifest;
+    try {
+      mBlocks = await shuffle({ inputs: [plain], out: join(dir, 'inv1-blocks'), ...opts });
+    } finally {
+      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
+      else process.env.ROWDECK_BLOCK_BYTES = before;
+    }
+    const mSeq = await shuffle({ inputs: [packed], out: join(dir, 'inv1-seq'), ...opts });
+    const a = outputsOf(join(dir, 'inv1-blocks'));
+    const b = outputsOf(join(dir, 'inv1-seq'));
+    delete a['rejected.csv'];
+    delete b['rejected.csv'];
+    expect(a).toEqual(b);
+    expect(mBlocks.input.rejected).toBeGreaterThanOrEqual(15);
+    expect(mBlocks.input.rejected).toBe(mSeq.input.rejected);
+    expect(mBlocks.output).toEqual(mSeq.output);
+    expect(mBlocks.input.fingerprint).toBe(mSeq.input.fingerprint);
+    const rejects = (d: string): string[][] => parseCsv(readFileSync(join(dir, d, 'rejected.csv'))).rows.map((r) => r.slice(1));
+    expect(rejects('inv1-blocks')).toEqual(rejects('inv1-seq'));
   });
 
   it('gives a different order for a different seed, and records the seed', async () => {

@@ -17,7 +17,8 @@ import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { readRecords } from '../io/input.js';
+import { inputReaderOptions, readInput } from '../io/input.js';
+import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, type SpillPiece } from './spill.js';
@@ -45,9 +46,11 @@ export interface ScatterTaskConfig {
   bufferBytes: number;
   /** `--assign hash`: count records per (cell, stratum) as they pass, so the plan needs no re-read. */
   hashCells: { deal: DealSpec; cellSecret: number[] } | null;
+  /** How a worker reads the blocks it is given. */
+  reading: BlockHostOptions;
 }
 
-export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells'> {
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells' | 'reading'> {
   hashCells?: ScatterTaskConfig['hashCells'];
   format: InputFormat;
   delimiter: string | undefined;
@@ -63,6 +66,8 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   /** Called once with the first input's schema, before any record is scattered; may throw. */
   onSchema?: (schema: InputSchema) => void;
   onProgress?: (bytes: number, records: number) => void;
+  /** Size of the blocks the workers parse (plain files); default DEFAULT_BLOCK_BYTES. */
+  blockBytes?: number;
 }
 
 export interface GroupEntry {
@@ -222,8 +227,16 @@ export class ScatterTask {
     const d = batch.data;
     const n = batch.count;
     if (n === 0) return;
-    writer.stage(d, batch.start[0]!, batch.next[n - 1]!);
+    const room = writer.stagingBytes;
+    let staged = 0; // records before this index are covered by the staged run
     for (let i = 0; i < n; i++) {
+      if (i === staged) {
+        // Stage the next run of records that fits the staging area (a long record goes alone).
+        let j = i + 1;
+        while (j < n && batch.next[j]! - batch.start[i]! <= room) j++;
+        writer.stage(d, batch.start[i]!, batch.next[j - 1]!);
+        staged = j;
+      }
       const offset = batch.offset[i]!;
       let h: Uint32Array;
       if (groupSlot >= 0 || nKey > 0) {
@@ -355,6 +368,9 @@ export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: numbe
 
 // --- orchestration -----------------------------------------------------------------------------------
 
+/** What the main thread sends a scatter worker: a packed batch it read itself, or block work. */
+export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
+
 export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
   const tasks = Math.max(1, o.threads);
@@ -369,53 +385,78 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
+    reading: { delimiter: o.delimiter, wanted, onBadRecord: o.onBadRecord },
   };
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
-  let records = 0;
+  const takeSchema = (sch: InputSchema): void => {
+    if (schema) return;
+    schema = sch;
+    o.onSchema?.(sch);
+  };
 
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
   if (!inline && !o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
-  const lanes = inline ? null : new WorkerLanes<ArrayBuffer, ArrayBuffer, ScatterTaskResult>(o.workerFile!, tasks, config);
+  const lanes = inline ? null : new WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>(o.workerFile!, tasks, config);
   const spare: ArrayBuffer[] = [];
   const running = new Set<Promise<void>>();
   // At most two batches waiting or running per worker: bounded memory, and the reader pauses.
   const MAX_IN_FLIGHT = 2 * tasks;
+  const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
+    takeSchema(sch);
+    if (inline) return inline.addBatch(batch, input);
+    if (batch.count === 0) return;
+    while (running.size >= MAX_IN_FLIGHT) await Promise.race(running);
+    const buffer = packBatch(batch, input, spare.pop());
+    // Every buffer comes back for reuse (allocating ~1 MiB per batch costs page faults).
+    const p: Promise<void> = lanes!
+      .run({ kind: 'batch', buffer }, [buffer])
+      .then((back) => void (back.kind === 'released' && spare.push(back.buffer)))
+      .finally(() => running.delete(p));
+    p.catch(() => {});
+    running.add(p);
+  };
+  const progress = (): void => o.onProgress?.(inputs.reduce((a, x) => a + x.bytes, 0), inputs.reduce((a, x) => a + x.records, 0));
   try {
-    for await (const { input, batch, schema: sch, stats } of readRecords(o.inputs, {
-      format: o.format,
-      ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}),
-      header: o.header,
-      wanted,
-      onBadRecord: o.onBadRecord,
-      onReject: o.onReject,
-    })) {
-      if (!schema) {
-        schema = sch;
-        o.onSchema?.(sch);
+    let expected: { columns: string[]; from: string } | undefined;
+    for (let k = 0; k < o.inputs.length; k++) {
+      const path = o.inputs[k]!;
+      const ro = inputReaderOptions(path, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
+      const seen = inputs[k]!;
+      // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
+      const totals =
+        lanes && path !== '-'
+          ? await readInBlocks({
+              path,
+              input: k,
+              reader: ro,
+              lanes,
+              ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}),
+              sequential: (batch, sch) => send(batch, k, sch),
+              onSchema: takeSchema,
+              onProgress: (bytes, records) => {
+                seen.bytes = bytes;
+                seen.records = records;
+                progress();
+              },
+            })
+          : null;
+      if (totals) {
+        seen.bytes = totals.bytes;
+        seen.records = totals.records;
+        seen.rejected = totals.rejected;
+      } else {
+        for await (const { batch, schema: sch, stats } of readInput(path, ro)) {
+          await send(batch, k, sch);
+          seen.records += batch.count;
+          seen.bytes = stats.bytes;
+          seen.rejected = stats.rejected;
+          progress();
+        }
       }
-      const n = batch.count;
-      if (inline) inline.addBatch(batch, input);
-      else if (n > 0) {
-        while (running.size >= MAX_IN_FLIGHT) await Promise.race(running);
-        const buffer = packBatch(batch, input, spare.pop());
-        // Every buffer comes back for reuse (allocating ~1 MiB per batch costs page faults).
-        const p: Promise<void> = lanes!
-          .run(buffer, [buffer])
-          .then((back) => void spare.push(back))
-          .finally(() => running.delete(p));
-        p.catch(() => {});
-        running.add(p);
-      }
-      records += n;
-      inputs[input]!.records += n;
-      inputs[input]!.bytes = stats.bytes;
-      inputs[input]!.rejected = stats.rejected;
-      o.onProgress?.(
-        inputs.reduce((a, x) => a + x.bytes, 0),
-        records,
-      );
+      if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: (schema as InputSchema).columns, from: ro.file };
     }
+    progress();
     if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];

@@ -88,6 +88,14 @@ export function chooseBuckets(spillEstimate: number, memory: number, threads: nu
   return { bits, bufferBytes };
 }
 
+/**
+ * Size of the blocks workers parse in stage 1: about 1/32 of the budget (4 per worker are held,
+ * each with its records' positions), between 256 KiB and 4 MiB.
+ */
+export function blockBytesFor(memory: number): number {
+  return Math.max(256 * 1024, Math.min(4 * 1024 * 1024, 2 ** Math.floor(Math.log2(memory / 32))));
+}
+
 interface Cleanup {
   paths: Set<string>;
   run(): void;
@@ -308,6 +316,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       },
       bits,
       bufferBytes: spillBuffer,
+      blockBytes: blockBytesFor(o.memory),
       // Hash mode: cells follow from keys alone, so stage 1 can count them on the way.
       hashCells: o.assign === 'hash' ? { deal: { splits: o.splits, exactCounts: false, partitions: o.partitions, folds: o.folds }, cellSecret: Array.from(cellSecret) } : null,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),

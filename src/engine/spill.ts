@@ -60,6 +60,10 @@ export class BucketWriter {
   #staging: number;
   #stagingSize: number;
   #stagingDelta = -1;
+  /** Bytes the staging area holds: callers stage a batch in runs of at most this many bytes. */
+  get stagingBytes(): number {
+    return this.#stagingSize;
+  }
 
   constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20) {
     this.fingerprint = fingerprint;

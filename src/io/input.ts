@@ -134,6 +134,17 @@ export async function* openInput(source: string | Readable): AsyncGenerator<Buff
 
 export type ReadRecordsOptions = Omit<RecordReaderOptions, 'file' | 'expectedColumns' | 'expectedFrom' | 'format'> & { format?: InputFormat };
 
+/** Reader options for the `k`-th of several inputs: the 2nd…nth CSV/TSV input must have the first's columns. */
+export function inputReaderOptions(path: string, opts: ReadRecordsOptions, expected?: { columns: string[]; from: string }): RecordReaderOptions {
+  const format = detectFormat(path, opts.format);
+  return {
+    ...opts,
+    format,
+    file: nameInput(path),
+    ...(format !== 'jsonl' && expected ? { expectedColumns: expected.columns, expectedFrom: expected.from } : {}),
+  };
+}
+
 /**
  * Reads several inputs in order, yielding each batch with the input's ordinal and schema. The
  * 2nd…nth CSV/TSV input must have the first input's columns. `stats` is that input's reader
@@ -143,27 +154,29 @@ export async function* readRecords(
   paths: string[],
   opts: ReadRecordsOptions,
 ): AsyncGenerator<{ input: number; batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
-  let expected: string[] | undefined;
-  let expectedFrom: string | undefined;
+  let expected: { columns: string[]; from: string } | undefined;
   for (let k = 0; k < paths.length; k++) {
     const path = paths[k]!;
-    const file = nameInput(path);
-    const format = detectFormat(path, opts.format);
-    const reader = new RecordReader({
-      ...opts,
-      format,
-      file,
-      ...(format !== 'jsonl' && expected ? { expectedColumns: expected, expectedFrom: expectedFrom ?? 'the first input' } : {}),
-    });
-    for await (const chunk of openInput(path)) {
-      const batch = reader.push(chunk);
-      if (batch) yield { input: k, batch, schema: reader.schema!, stats: reader.stats };
+    const ro = inputReaderOptions(path, opts, expected);
+    let schema: InputSchema | null = null;
+    for await (const got of readInput(path, ro)) {
+      schema = got.schema;
+      yield { input: k, ...got };
     }
-    const batch = reader.end();
-    if (batch) yield { input: k, batch, schema: reader.schema!, stats: reader.stats };
-    if (k === 0 && format !== 'jsonl') {
-      expected = reader.schema!.columns;
-      expectedFrom = file;
-    }
+    if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: schema.columns, from: ro.file };
   }
+}
+
+/** Reads one input with the given reader options, batch by batch (each valid until the next). */
+export async function* readInput(
+  path: string,
+  ro: RecordReaderOptions,
+): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
+  const reader = new RecordReader(ro);
+  for await (const chunk of openInput(path)) {
+    const batch = reader.push(chunk);
+    if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
+  }
+  const batch = reader.end();
+  if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
 }

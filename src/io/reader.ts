@@ -158,6 +158,8 @@ export class RecordReader {
   private line = 1;
   private bomDone = false;
   private headerDone = false;
+  /** Reading from the middle of an input with an adopted schema (see adoptSchema). */
+  private resumed = false;
   private ended = false;
   private lastByte = -1;
   private lineEnding: '\n' | '\r\n' | null = null;
@@ -206,6 +208,58 @@ export class RecordReader {
     return this.sch;
   }
 
+  /** Input offset where the next record starts: everything before it has been returned or refused. */
+  get resumeOffset(): number {
+    return this.base;
+  }
+
+  /** Physical line on which the next record starts. */
+  get nextLine(): number {
+    return this.line;
+  }
+
+  /**
+   * Takes the schema another reader learned from the input's start, so this one can read from
+   * the middle of the input: no BOM or header is looked for, and `end()` does not ask for a
+   * first record. Used with `resumeAt` (push from an offset) or `parseBlock` (parallel reading).
+   */
+  adoptSchema(schema: InputSchema): void {
+    this.setColumns(schema.columns);
+    this.ncols = schema.columns.length;
+    if (this.opts.format === 'jsonl') this.wantKeys = this.opts.wanted.map((k) => Buffer.from(k, 'utf8'));
+    this.lineEnding = schema.lineEnding;
+    this.sch = schema;
+    this.bomDone = true;
+    this.headerDone = true;
+    this.resumed = true;
+  }
+
+  /** Starts reading at input offset `offset`, a record start, on physical line `line` (push on from there). */
+  resumeAt(offset: number, line: number): void {
+    this.reset(offset, line);
+  }
+
+  /**
+   * Reads the records of `d[pos..]` as a self-contained range: `d[0]` is at input offset
+   * `baseOffset` and `d[pos]` is a record start on line 1 (callers shift line numbers later).
+   * Complete records come back as one batch; with `atEnd` false, a partial record at the end is
+   * left out. Needs `adoptSchema` first. The batch is valid until the next call.
+   */
+  parseBlock(d: Buffer, pos: number, atEnd: boolean, baseOffset: number): RecordBatch | null {
+    if (!this.resumed) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.parseBlock() before adoptSchema()');
+    this.reset(baseOffset, 1);
+    return this.opts.format === 'jsonl' ? this.parseJsonl(d, pos, atEnd) : this.parseCsv(d, pos, atEnd);
+  }
+
+  private reset(base: number, line: number): void {
+    this.carryLen = 0;
+    this.rPending = false;
+    this.jScan = 0;
+    this.ended = false;
+    this.base = base;
+    this.line = line;
+  }
+
   push(chunk: Buffer): RecordBatch | null {
     if (this.ended) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.push() after end()');
     if (chunk.length === 0) return null;
@@ -233,15 +287,12 @@ export class RecordReader {
     this.ended = true;
     this.stats.lines = this.stats.bytes === 0 ? 0 : this.lastByte === LF ? this.line - 1 : this.line;
     const { file } = this.opts;
+    if (this.resumed) return batch;
     if (!this.sch) {
       const why = this.stats.rejected > 0 ? ` (${this.stats.rejected} refused as bad)` : this.stats.bytes > 0 ? ' (only blank lines)' : '';
       throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
     }
-    if (this.stats.records + this.stats.rejected === 0) {
-      if (this.opts.format !== 'jsonl' && this.opts.header) {
-        throw new RowdeckError('ERR_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
-      }
-    }
+    if (this.stats.records + this.stats.rejected === 0) checkNotHeaderOnly(this.opts, 0);
     return batch;
   }
 
@@ -931,6 +982,14 @@ function skipJsonValue(d: Buffer, i: number): number {
     const b = d[i];
     if (b === undefined || b === 0x2c || b === 0x7d || b === 0x5d || isJsonSpace(b)) return i;
     i++;
+  }
+}
+
+/** An input with a header and nothing else (`seen`: records and refused records counted) is an error. */
+export function checkNotHeaderOnly(opts: Pick<RecordReaderOptions, 'format' | 'header' | 'file'>, seen: number): void {
+  if (seen === 0 && opts.format !== 'jsonl' && opts.header) {
+    const { file } = opts;
+    throw new RowdeckError('ERR_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
   }
 }
 

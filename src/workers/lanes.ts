@@ -73,9 +73,15 @@ export class WorkerLanes<T, R, F> {
 
   /** Runs a task on the least busy lane. */
   run(task: T, transfer: TransferListItem[] = []): Promise<R> {
+    let lane = 0;
+    for (let k = 1; k < this.#lanes.length; k++) if (this.#lanes[k]!.busy < this.#lanes[lane]!.busy) lane = k;
+    return this.runOn(lane, task, transfer);
+  }
+
+  /** Runs a task on lane `k` (tasks that need state kept by that lane, such as a parsed block). */
+  runOn(k: number, task: T, transfer: TransferListItem[] = []): Promise<R> {
     if (this.#failure) return Promise.reject(this.#failure);
-    let lane = this.#lanes[0]!;
-    for (const l of this.#lanes) if (l.busy < lane.busy) lane = l;
+    const lane = this.#lanes[k]!;
     const id = this.#nextId++;
     lane.busy++;
     const p = new Promise<R>((resolve, reject) => lane.waiting.set(id, { resolve, reject }));
