@@ -57,7 +57,7 @@ async function readBlocks(text: string | Buffer, opts: Partial<RecordReaderOptio
   writeFileSync(path, text);
   const out: ReadResult = { records: [], fields: [], lines: [], offsets: [], raw: [], rejected: [], reader: undefined as never };
   const ro: RecordReaderOptions = { format: 'csv', header: true, wanted: [], file: 'data.csv', onBadRecord: 'fail', onReject: (r: RejectedRecord) => out.rejected.push(r), ...opts };
-  const lanes = new LocalLanes(sizes.lanes, { delimiter: ro.delimiter, wanted: ro.wanted, onBadRecord: ro.onBadRecord }, (b) => collect(b, out), seedrandom(sizes.seed));
+  const lanes = new LocalLanes(sizes.lanes, { delimiter: ro.delimiter, onBadRecord: ro.onBadRecord }, (b) => collect(b, out), seedrandom(sizes.seed));
   const totals = await readInBlocks({
     path,
     input: 0,

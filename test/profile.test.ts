@@ -158,6 +158,20 @@ describe('independent of the thread count', () => {
     expect(JSON.stringify(p2.columns)).toBe(JSON.stringify(p0.columns)); // bit for bit, key order too
   });
 
+  it('workers parsing the input in blocks give the profile of a sequential read', async () => {
+    const before = process.env.ROWDECK_BLOCK_BYTES;
+    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024); // ~40 blocks, many starting inside quoted line breaks
+    let blocks: Profile;
+    try {
+      blocks = await profile({ inputs: [big], stratify: 'fault,site', threads: 2 });
+    } finally {
+      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
+      else process.env.ROWDECK_BLOCK_BYTES = before;
+    }
+    const p0 = await profile({ inputs: [big], stratify: 'fault,site', threads: 0 });
+    expect(JSON.stringify(stripRun(blocks))).toBe(JSON.stringify(stripRun(p0)));
+  });
+
   it('several inputs (one gzip) profile like their concatenation', async () => {
     const text = makeSensorCsv({ rows: 900, seed: 3 });
     const lines = text.trimEnd().split('\n');

@@ -17,16 +17,17 @@
  */
 import { statSync } from 'node:fs';
 import { availableParallelism } from 'node:os';
-import { Worker } from 'node:worker_threads';
 import { maxDeviation, orderStrata } from '../core/balance.js';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, type Secret } from '../core/hash.js';
 import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
-import { fromWire, RowdeckError, type WireError } from '../errors.js';
+import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, nameInput, openInput } from '../io/input.js';
-import { fieldText, RecordReader, unknownColumn } from '../io/reader.js';
+import { detectFormat, isGzipFile, nameInput, openInput } from '../io/input.js';
+import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
+import { WorkerLanes } from '../workers/lanes.js';
+import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
@@ -362,125 +363,77 @@ function tooManyStrata(columns: string[]): RowdeckError {
   );
 }
 
-/** Messages between the main thread and a profile worker. */
-export type ProfileRequest =
-  | { type: 'columns'; input: number; map: number[] | null }
-  | { type: 'batch'; buffer: ArrayBuffer }
-  | { type: 'finish' };
-export type ProfileReply =
-  | { type: 'done-batch'; buffer: ArrayBuffer }
-  | { type: 'result'; result: ProfileTaskResult }
-  | { type: 'error'; error: WireError };
+/** What the main thread sends a profile worker. */
+export type ProfileMessage = { kind: 'columns'; input: number; map: number[] | null } | { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
+
+/** What a profile worker is started with. */
+export interface ProfileWorkerData {
+  config: ProfileTaskConfig;
+  reading: BlockHostOptions;
+}
 
 // --- reading ---------------------------------------------------------------------------------------
 
-interface InputBatch {
-  input: number;
-  batch: RecordBatch;
-  /** The input's reader counters (final after its last batch). */
-  counters: RecordReader['stats'];
+/** How one input is read: every column of the first input wanted (or those a JSON Lines input has). */
+interface InputPlan {
+  reader: RecordReaderOptions;
+  /** Wanted slot -> column of the first input, or null when the slots are the columns. */
+  map: number[] | null;
 }
 
 /**
- * Reads the inputs once, in order, with every column wanted. A RecordReader must know its wanted
- * columns before it starts, so each input's first chunks go to a probe reader until the header
- * (or first JSON object) is known; those chunks are then fed to the real reader. This keeps the
- * single read for standard input too. Batches are valid until the next one is requested.
+ * Learns an input's columns from its first chunks, read with a probe reader (a RecordReader must
+ * know its wanted columns before it starts), and plans its real read. The chunks read are handed
+ * back, so standard input is still read once.
  */
-async function* readAllColumns(
+async function probeInput(
   o: ResolvedProfileOptions,
-  onColumns: (input: number, columns: string[], map: number[] | null) => void,
+  k: number,
+  first: { columns: string[]; csv: boolean } | null,
   onReject: (r: RejectedRecord) => void,
-): AsyncGenerator<InputBatch> {
-  let columns: string[] | null = null;
-  let firstIsCsv = false;
-  for (let k = 0; k < o.inputs.length; k++) {
-    const path = o.inputs[k]!;
-    const file = nameInput(path);
-    const format = detectFormat(path, o.format ?? undefined);
-    const base = {
-      format,
-      header: o.header,
-      file,
-      ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}),
-    };
-    const it = openInput(path)[Symbol.asyncIterator]();
-    try {
-      // Probe: skip (not fail) so a bad first record is left to the real reader's policy.
-      const probe = new RecordReader({ ...base, wanted: [], onBadRecord: 'skip' });
-      const held: Buffer[] = [];
-      let ended = false;
-      while (probe.schema === null) {
-        const r = await it.next();
-        if (r.done) {
-          ended = true;
-          break;
-        }
-        held.push(r.value);
-        probe.push(r.value);
-      }
-      const own = probe.schema?.columns ?? [];
-      let wanted: string[];
-      let map: number[] | null = null;
-      let expected: string[] | undefined;
-      if (columns === null) {
-        columns = own;
-        firstIsCsv = format !== 'jsonl';
-        wanted = columns;
-      } else if (firstIsCsv && format !== 'jsonl') {
-        wanted = columns;
-        expected = columns;
-      } else {
-        // JSON Lines: keys of the first object that are columns of the first input; others are missing.
-        wanted = columns.filter((c) => own.includes(c));
-        const cols = columns;
-        map = wanted.length === columns.length ? null : wanted.map((c) => cols.indexOf(c));
-      }
-      onColumns(k, columns, map);
-      const reader = new RecordReader({
-        ...base,
-        wanted,
-        onBadRecord: o.onBadRecord,
-        onReject,
-        ...(expected ? { expectedColumns: expected, expectedFrom: nameInput(o.inputs[0]!) } : {}),
-      });
-      for (const chunk of held) {
-        const batch = reader.push(chunk);
-        if (batch) yield { input: k, batch, counters: reader.stats };
-      }
-      if (!ended) {
-        for (;;) {
-          const r = await it.next();
-          if (r.done) break;
-          const batch = reader.push(r.value);
-          if (batch) yield { input: k, batch, counters: reader.stats };
-        }
-      }
-      const last = reader.end();
-      if (last) yield { input: k, batch: last, counters: reader.stats };
-      else yield { input: k, batch: emptyBatch(wanted.length), counters: reader.stats };
-    } finally {
-      await it.return?.(undefined);
+  it: AsyncIterator<Buffer>,
+): Promise<{ plan: InputPlan; columns: string[]; held: Buffer[]; ended: boolean }> {
+  const path = o.inputs[k]!;
+  const format = detectFormat(path, o.format ?? undefined);
+  const base = { format, header: o.header, file: nameInput(path), ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}) };
+  // Probe: skip (not fail) so a bad first record is left to the real reader's policy.
+  const probe = new RecordReader({ ...base, wanted: [], onBadRecord: 'skip' });
+  const held: Buffer[] = [];
+  let ended = false;
+  while (probe.schema === null) {
+    const r = await it.next();
+    if (r.done) {
+      ended = true;
+      break;
     }
+    held.push(r.value);
+    probe.push(r.value);
   }
-}
-
-function emptyBatch(wanted: number): RecordBatch {
-  const u = new Uint32Array(0);
-  const f = new Float64Array(0);
-  return { data: Buffer.alloc(0), count: 0, start: u, end: u, next: u, offset: f, line: f, wanted, fieldStart: u, fieldEnd: u, fieldKind: new Uint8Array(0) };
+  const own = probe.schema?.columns ?? [];
+  let wanted: string[];
+  let map: number[] | null = null;
+  let expected: string[] | undefined;
+  const columns = first?.columns ?? own;
+  if (first === null) wanted = columns;
+  else if (first.csv && format !== 'jsonl') {
+    wanted = columns;
+    expected = columns;
+  } else {
+    // JSON Lines: keys of the first object that are columns of the first input; others are missing.
+    wanted = columns.filter((c) => own.includes(c));
+    map = wanted.length === columns.length ? null : wanted.map((c) => columns.indexOf(c));
+  }
+  const reader: RecordReaderOptions = {
+    ...base,
+    wanted,
+    onBadRecord: o.onBadRecord,
+    onReject,
+    ...(expected ? { expectedColumns: expected, expectedFrom: nameInput(o.inputs[0]!) } : {}),
+  };
+  return { plan: { reader, map }, columns, held, ended };
 }
 
 // --- orchestration -----------------------------------------------------------------------------------
-
-interface Lane {
-  worker: Worker;
-  inFlight: number;
-  result: Promise<ProfileTaskResult>;
-}
-
-/** Batches in flight per worker: one being worked on, one waiting, so no worker idles. */
-const MAX_IN_FLIGHT = 2;
 
 export async function profile(options: ProfileOptions): Promise<Profile> {
   const o = resolveProfileOptions(options);
@@ -521,20 +474,12 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
   const onReject = (r: RejectedRecord): void => {
     if (rejects.length < MAX_LISTED_REJECTS) rejects.push({ file: r.file, line: r.line, code: r.code, reason: o.excludeValues ? null : r.reason });
   };
+  const progress = (): void =>
+    o.onProgress?.({ stage: 'read', done: inputs.reduce((a, x) => a + x.bytes, 0), total: totalBytes, records: inputs.reduce((a, x) => a + x.records, 0), elapsedMs: Date.now() - tRead });
 
-  // Set once the first input's columns are known (see start()).
-  const state: { columns: string[] | null; inline: ProfileTask | null } = { columns: null, inline: null };
-  const lanes: Lane[] = [];
-  const spare: ArrayBuffer[] = [];
-  let failure: Error | null = null;
-  let wake: (() => void) | null = null;
-  const notify = (): void => {
-    const w = wake;
-    wake = null;
-    w?.();
-  };
-
-  /** Starts the tasks once the columns are known (they size the statistics). */
+  // Started once the first input's columns are known (they size the statistics).
+  type Lanes = WorkerLanes<ProfileMessage, BlockReply, ProfileTaskResult>;
+  const run: { inline: ProfileTask | null; lanes: Lanes | null } = { inline: null, lanes: null };
   const start = (cols: string[]): void => {
     const stratify = o.stratify.map((s) => {
       const column = cols.indexOf(s.name);
@@ -542,97 +487,108 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       return { column, name: s.name, edges: s.bins > 0 ? (binEdges.find((b) => b.column === s.name)?.edges ?? []) : null };
     });
     const config: ProfileTaskConfig = { columns: cols, files, stratify };
-    if (o.threads === 0) {
-      state.inline = new ProfileTask(config);
-      return;
-    }
-    const workerFile = resolveWorkerFile('profile-worker.js');
-    for (let t = 0; t < o.threads; t++) {
-      const worker = new Worker(workerFile, { workerData: config });
-      const lane: Lane = { worker, inFlight: 0, result: null as unknown as Promise<ProfileTaskResult> };
-      lane.result = new Promise<ProfileTaskResult>((resolve, reject) => {
-        worker.on('message', (m: ProfileReply) => {
-          if (m.type === 'done-batch') {
-            lane.inFlight--;
-            spare.push(m.buffer);
-            notify();
-          } else if (m.type === 'result') resolve(m.result);
-          else {
-            failure ??= fromWire(m.error);
-            reject(failure);
-            notify();
-          }
-        });
-        worker.on('error', (e) => {
-          failure ??= e;
-          reject(e);
-          notify();
-        });
-        worker.on('exit', (code) => {
-          if (code !== 0) {
-            failure ??= new RowdeckError('ERR_INTERNAL', `profile worker ${t} stopped (exit ${code})`);
-            reject(failure);
-            notify();
-          }
-        });
-      });
-      lane.result.catch(() => {});
-      lanes.push(lane);
+    if (o.threads === 0) run.inline = new ProfileTask(config);
+    else {
+      const data: ProfileWorkerData = { config, reading: { delimiter: o.delimiter ?? undefined, onBadRecord: o.onBadRecord } };
+      run.lanes = new WorkerLanes(resolveWorkerFile('profile-worker.js'), o.threads, data);
     }
   };
 
-  let records = 0;
-  let next = 0;
+  const spare: ArrayBuffer[] = [];
+  const running = new Set<Promise<void>>();
+  // Batches in flight per worker: one being worked on, one waiting, so no worker idles.
+  const maxInFlight = (): number => 2 * (run.lanes?.size ?? 1);
+  const send = async (batch: RecordBatch, input: number): Promise<void> => {
+    if (run.inline) return run.inline.addBatch(batch, input);
+    if (batch.count === 0) return;
+    while (running.size >= maxInFlight()) await Promise.race(running);
+    const buffer = packBatch(batch, input, spare.pop());
+    const p: Promise<void> = run
+      .lanes!.run({ kind: 'batch', buffer }, [buffer])
+      .then((back) => void (back.kind === 'released' && spare.push(back.buffer)))
+      .finally(() => running.delete(p));
+    p.catch(() => {});
+    running.add(p);
+  };
+
   try {
-    const onColumns = (input: number, cols: string[], map: number[] | null): void => {
-      if (state.columns === null) {
-        state.columns = cols;
-        start(cols);
+    let first: { columns: string[]; csv: boolean } | null = null;
+    for (let k = 0; k < o.inputs.length; k++) {
+      const path = o.inputs[k]!;
+      const seen = inputs[k]!;
+      const it = openInput(path)[Symbol.asyncIterator]();
+      let probed: Awaited<ReturnType<typeof probeInput>>;
+      try {
+        probed = await probeInput(o, k, first, onReject, it);
+      } catch (err) {
+        await it.return?.(undefined);
+        throw err;
       }
-      state.inline?.setInputColumns(input, map);
-      for (const l of lanes) l.worker.postMessage({ type: 'columns', input, map } satisfies ProfileRequest);
-    };
-    for await (const { input, batch, counters } of readAllColumns(o, onColumns, onReject)) {
-      if (failure) throw failure;
-      const n = batch.count;
-      if (state.inline) state.inline.addBatch(batch, input);
-      else if (n > 0) {
-        // Round robin over workers with room; wait while all are busy.
-        let lane: Lane | undefined;
-        for (;;) {
-          for (let k = 0; k < lanes.length && !lane; k++) {
-            const cand = lanes[(next + k) % lanes.length]!;
-            if (cand.inFlight < MAX_IN_FLIGHT) {
-              lane = cand;
-              next = (next + k + 1) % lanes.length;
-            }
+      const { plan, columns, held, ended } = probed;
+      if (first === null) {
+        first = { columns, csv: plan.reader.format !== 'jsonl' };
+        start(columns);
+      }
+      run.inline?.setInputColumns(k, plan.map);
+      const lanes = run.lanes;
+      // Every worker learns the input's columns before any of its records (each lane is in order).
+      if (lanes) for (let lane = 0; lane < lanes.size; lane++) void lanes.runOn(lane, { kind: 'columns', input: k, map: plan.map }).catch(() => {});
+      // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
+      let totals: InputTotals | null = null;
+      if (lanes && path !== '-' && !(await isGzipFile(path))) {
+        await it.return?.(undefined);
+        totals = await readInBlocks({
+          path,
+          input: k,
+          reader: plan.reader,
+          lanes,
+          sequential: (batch) => send(batch, k),
+          onProgress: (bytes, records) => {
+            seen.bytes = bytes;
+            seen.records = records;
+            progress();
+          },
+        });
+      }
+      if (totals) {
+        seen.bytes = totals.bytes;
+        seen.records = totals.records;
+        seen.rejected = totals.rejected;
+        continue;
+      }
+      const reader = new RecordReader(plan.reader);
+      const take = async (batch: RecordBatch | null): Promise<void> => {
+        if (batch) await send(batch, k);
+        seen.records = reader.stats.records;
+        seen.bytes = reader.stats.bytes;
+        seen.rejected = reader.stats.rejected;
+        progress();
+      };
+      try {
+        for (const chunk of held) await take(reader.push(chunk));
+        if (!ended) {
+          for (;;) {
+            const r = await it.next();
+            if (r.done) break;
+            await take(reader.push(r.value));
           }
-          if (lane) break;
-          await new Promise<void>((r) => (wake = r));
-          if (failure) throw failure;
         }
-        const buffer = packBatch(batch, input, spare.pop());
-        lane.inFlight++;
-        lane.worker.postMessage({ type: 'batch', buffer } satisfies ProfileRequest, [buffer]);
+        await take(reader.end());
+      } finally {
+        await it.return?.(undefined);
       }
-      records += n;
-      const inp = inputs[input]!;
-      inp.records += n;
-      inp.bytes = counters.bytes;
-      inp.rejected = counters.rejected;
-      o.onProgress?.({ stage: 'read', done: inputs.reduce((a, x) => a + x.bytes, 0), total: totalBytes, records, elapsedMs: Date.now() - tRead });
     }
-    const cols: string[] = state.columns ?? [];
+    const cols: string[] = first?.columns ?? [];
     let results: ProfileTaskResult[];
-    if (state.inline) results = [state.inline.finish()];
-    else {
-      for (const l of lanes) l.worker.postMessage({ type: 'finish' } satisfies ProfileRequest);
-      results = await Promise.all(lanes.map((l) => l.result));
-    }
+    if (run.inline) results = [run.inline.finish()];
+    else if (run.lanes) {
+      await Promise.all(running);
+      results = await run.lanes.finish();
+    } else results = [];
     const readMs = Date.now() - tRead;
     return buildProfile(o, { columns: cols, results, inputs, rejects, binEdges, secret, binsMs, readMs, t0 });
   } finally {
-    await Promise.all(lanes.map((l) => l.worker.terminate()));
+    await run.lanes?.destroy();
   }
 }
 

@@ -385,7 +385,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
-    reading: { delimiter: o.delimiter, wanted, onBadRecord: o.onBadRecord },
+    reading: { delimiter: o.delimiter, onBadRecord: o.onBadRecord },
   };
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;

@@ -48,6 +48,8 @@ export interface BlockJob {
   file: string;
   format: InputFormat;
   schema: InputSchema;
+  /** Columns whose fields are located (the same for every block of an input). */
+  wanted: string[];
   buffer: ArrayBuffer;
   length: number;
   /** Input offset of `buffer[0]`. */
@@ -94,7 +96,6 @@ interface HeldBlock {
 
 export interface BlockHostOptions {
   delimiter: string | undefined;
-  wanted: string[];
   onBadRecord: BadRecordPolicy;
 }
 
@@ -161,7 +162,7 @@ export class BlockHost {
         format: job.format,
         ...(this.#o.delimiter !== undefined ? { delimiter: this.#o.delimiter } : {}),
         header: job.schema.headerBytes !== null,
-        wanted: this.#o.wanted,
+        wanted: job.wanted,
         file: job.file,
         onBadRecord: this.#o.onBadRecord,
         onReject: (rec: RejectedRecord) => void this.#rejects.push(rec),
@@ -423,7 +424,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
       if (got !== need) throw new RowdeckError('ERR_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
       const lane = id % T;
       const job: BlockJob = {
-        kind: 'block', id, input: o.input, file, format: o.reader.format, schema,
+        kind: 'block', id, input: o.input, file, format: o.reader.format, schema, wanted: o.reader.wanted,
         buffer, length: need, origin: from, from: a - from, stop: last ? -1 : stop - from, exact,
       };
       const entry = { id, lane, reply: o.lanes.runOn(lane, job, [buffer]), settled: false };

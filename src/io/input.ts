@@ -69,6 +69,21 @@ async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
   }
 }
 
+/** Whether a file starts with gzip's magic bytes (1f 8b). Errors opening it are left to the read. */
+export async function isGzipFile(path: string): Promise<boolean> {
+  let fh: FileHandle | null = null;
+  try {
+    fh = await open(path, 'r');
+    const head = Buffer.alloc(2);
+    const { bytesRead } = await fh.read(head, 0, 2, 0);
+    return bytesRead === 2 && head[0] === 0x1f && head[1] === 0x8b;
+  } catch {
+    return false;
+  } finally {
+    await fh?.close();
+  }
+}
+
 /** Display name of an input in messages. */
 export function nameInput(path: string): string {
   return path === '-' ? '<stdin>' : path;

@@ -1,34 +1,29 @@
 /**
  * Worker entry for `profile`: one ProfileTask per thread, alive for the whole read, since it
- * holds its statistics and stratum counts until `finish`. See src/engine/profile.ts for the flow.
+ * holds its statistics and stratum counts until `finish`. A task is a packed batch read by the
+ * main thread, an input's column map, or block work (src/io/blocks.ts): this thread parses a
+ * block of the input itself. See src/engine/profile.ts for the flow.
  */
-import { parentPort, workerData } from 'node:worker_threads';
-import { ProfileTask, type ProfileReply, type ProfileRequest, type ProfileTaskConfig } from '../engine/profile.js';
+import { workerData } from 'node:worker_threads';
+import { ProfileTask, type ProfileMessage, type ProfileTaskResult, type ProfileWorkerData } from '../engine/profile.js';
 import { unpackBatch } from '../engine/scatter.js';
-import { toWire } from '../errors.js';
+import { BlockHost, type BlockReply } from '../io/blocks.js';
+import { serveLane } from './lanes.js';
 
-const port = parentPort!;
-let task: ProfileTask | null = null;
-try {
-  task = new ProfileTask(workerData as ProfileTaskConfig);
-} catch (err) {
-  port.postMessage({ type: 'error', error: toWire(err) } satisfies ProfileReply);
-}
+const { data } = workerData as { lane: number; data: ProfileWorkerData };
+const task = new ProfileTask(data.config);
+const blocks = new BlockHost(data.reading, (batch, input) => task.addBatch(batch, input));
 
-port.on('message', (m: ProfileRequest) => {
-  if (!task) return;
-  try {
-    if (m.type === 'batch') {
-      const { batch, input } = unpackBatch(m.buffer);
-      task.addBatch(batch, input);
-      port.postMessage({ type: 'done-batch', buffer: m.buffer } satisfies ProfileReply, [m.buffer]);
-    } else if (m.type === 'columns') {
+serveLane<ProfileMessage, BlockReply, ProfileTaskResult>(
+  (m) => {
+    if (m.kind === 'columns') {
       task.setInputColumns(m.input, m.map);
-    } else {
-      port.postMessage({ type: 'result', result: task.finish() } satisfies ProfileReply);
+      return { result: { kind: 'released', id: -1, buffer: new ArrayBuffer(0) } };
     }
-  } catch (err) {
-    task = null;
-    port.postMessage({ type: 'error', error: toWire(err) } satisfies ProfileReply);
-  }
-});
+    if (m.kind !== 'batch') return blocks.handle(m);
+    const { batch, input } = unpackBatch(m.buffer);
+    task.addBatch(batch, input);
+    return { result: { kind: 'released', id: -1, buffer: m.buffer }, transfer: [m.buffer] };
+  },
+  () => ({ final: task.finish() }),
+);
