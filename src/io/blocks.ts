@@ -410,8 +410,8 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
       const id = nextId++;
       const a = nextStart;
       const exact = id === 0;
-      // The first blocks are small and grow: a worker's parser is slow until the JIT has
-      // optimised it (the first 4 MiB block took ~140 ms instead of ~15), so they warm up on less.
+      // The first blocks are small and double up to the block size, so every worker has work
+      // within a few milliseconds of the start.
       const len = Math.max(Math.min(B, RAMP_BYTES * 2 ** Math.min(id, 24)), Math.min(B, L * 2));
       const last = a + len + L >= size;
       const stop = last ? size : a + len;
