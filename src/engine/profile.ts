@@ -1,8 +1,9 @@
 /**
  * `profile()`: schema, column statistics and class balance of the inputs, in one streaming read.
  *
- *   main thread: open input ─▶ learn its columns ─▶ RecordReader (every column wanted) ─▶ packBatch
- *                ─▶ profile worker k (round robin, ≤ 2 batches in flight each) ─▶ buffer back
+ *   main thread: open input ─▶ learn its columns ─▶ plain file: blocks parsed by the profile
+ *                workers (io/blocks.ts, every column wanted); stdin, gzip: RecordReader here
+ *                ─▶ packBatch ─▶ profile worker k (≤ 2 batches in flight each) ─▶ buffer back
  *   finish ─▶ each worker returns its serialised TableStats and stratum counts ─▶ exact merge
  *
  * The statistics merge exactly and without regard to order (see core/stats.ts), and stratum

@@ -2,12 +2,14 @@
  * Stage 1, scatter: give every record its key and append it to the spill bucket of its key
  * range; count records per (bucket, stratum) for the plan and collect what group mode needs.
  *
- *   main thread: readRecords ──▶ packBatch ──▶ scatter worker k (round robin, ≤ 2 in flight each)
- *                                                 ScatterTask: key, stratum, BucketWriter
- *                              ◀── buffer back for reuse
+ *   plain file:  main thread reads blocks ──▶ scatter worker parses its block (io/blocks.ts),
+ *                checked in order ──▶ commit ──▶ ScatterTask: key, stratum, BucketWriter
+ *   stdin, gzip: main thread: RecordReader ──▶ packBatch ──▶ scatter worker k (≤ 2 in flight each)
+ *                                                             ScatterTask, as above
+ *                ◀── buffers back for reuse
  *   finish ──▶ each worker closes its spill files, returns counts/strata/groups/fingerprint
  *
- * The main thread only reads and splits records; the per-record work runs on the workers. Each
+ * The per-record work runs on the workers, and for plain files the parsing too. Each
  * worker is one scatter task with its own spill files and its own local stratum ids; the plan maps
  * them to one dealing order. Which worker saw which record changes nothing downstream: stage 2
  * sorts every bucket by key and identity.

@@ -1,7 +1,7 @@
 /**
  * `shuffle()`: the whole job, stage by stage.
  *
- *   inputs ─▶ scatter (main thread) ─▶ spill buckets + counts ─▶ plan (quotas, tolerance check)
+ *   inputs ─▶ scatter (worker threads) ─▶ spill buckets + counts ─▶ plan (quotas, tolerance check)
  *          ─▶ gather (worker pool, one bucket per task) ─▶ ordered part writers ─▶ manifest
  *          ─▶ rename the finished folder into place
  *
