@@ -207,6 +207,18 @@ describe('a successful run', () => {
     expect(outRows).toEqual(inRows);
   });
 
+  it('reads a named pipe as a stream (it is not opened for reading in blocks)', () => {
+    const text = makeReadings(300);
+    writeFileSync(join(dir, 'pipe-src.csv'), text);
+    // The shell makes the pipe and writes into it once rowdeck opens it; a second open of the
+    // pipe for block reading would wait forever or lose bytes.
+    const script = `mkfifo pipe.csv && (cat pipe-src.csv > pipe.csv &) && ROWDECK_BLOCK_BYTES=512 "${process.execPath}" "${CLI}" shuffle pipe.csv --out ok-fifo --partitions 2 --seed pipe --json --quiet --threads 2`;
+    const r = spawnSync('sh', ['-c', script], { cwd: dir, encoding: 'utf8', timeout: 30_000 });
+    expect(r.status, r.stderr).toBe(0);
+    const m = JSON.parse(r.stdout) as { input: { records: number } };
+    expect(m.input.records).toBe(300);
+  });
+
   it('the same seed gives the same bytes on a second run', () => {
     const args = ['readings.csv', '--partitions', '2', '--stratify', 'fault', '--seed', 'again', '--quiet', '--threads', '1'];
     for (const out of ['ok-a', 'ok-b']) {

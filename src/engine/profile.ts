@@ -25,7 +25,7 @@ import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isGzipFile, nameInput, openInput } from '../io/input.js';
+import { detectFormat, isPlainFile, nameInput, openInput } from '../io/input.js';
 import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
@@ -536,7 +536,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       if (lanes) for (let lane = 0; lane < lanes.size; lane++) void lanes.runOn(lane, { kind: 'columns', input: k, map: plan.map }).catch(() => {});
       // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
       let totals: InputTotals | null = null;
-      if (lanes && path !== '-' && !(await isGzipFile(path))) {
+      if (lanes && (await isPlainFile(path))) {
         await it.return?.(undefined);
         totals = await readInBlocks({
           path,

@@ -19,7 +19,7 @@ import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { inputReaderOptions, readInput } from '../io/input.js';
+import { inputReaderOptions, isPlainFile, readInput } from '../io/input.js';
 import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -427,7 +427,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       const seen = inputs[k]!;
       // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
       const totals =
-        lanes && path !== '-'
+        lanes && (await isPlainFile(path))
           ? await readInBlocks({
               path,
               input: k,

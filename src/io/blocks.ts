@@ -337,8 +337,8 @@ async function readAt(fh: FileHandle, buf: Uint8Array, length: number, position:
 
 /**
  * Reads one plain input with the help of the lanes (see the top of this file). Returns null,
- * having read nothing, when the input is gzip-compressed or not a regular file: read it
- * sequentially instead.
+ * having read nothing, when the input is gzip-compressed: read it sequentially instead. Callers
+ * check `isPlainFile` first (a pipe must not be opened here).
  */
 export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals | null> {
   let fh: FileHandle;

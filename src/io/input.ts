@@ -4,7 +4,7 @@
  */
 
 import { createReadStream } from 'node:fs';
-import { open, type FileHandle } from 'node:fs/promises';
+import { open, stat, type FileHandle } from 'node:fs/promises';
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import { createGunzip } from 'node:zlib';
@@ -69,14 +69,21 @@ async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
   }
 }
 
-/** Whether a file starts with gzip's magic bytes (1f 8b). Errors opening it are left to the read. */
-export async function isGzipFile(path: string): Promise<boolean> {
+/**
+ * Whether `path` is a regular file that is not gzip-compressed (by its magic bytes 1f 8b): such a
+ * file can be read in blocks at any offset. Pipes, devices and standard input are not opened
+ * here (opening a pipe would wait for a writer, and reading from it would take its bytes);
+ * errors are left to the read that follows, which reports them with the path.
+ */
+export async function isPlainFile(path: string): Promise<boolean> {
+  if (path === '-') return false;
   let fh: FileHandle | null = null;
   try {
+    if (!(await stat(path)).isFile()) return false;
     fh = await open(path, 'r');
     const head = Buffer.alloc(2);
     const { bytesRead } = await fh.read(head, 0, 2, 0);
-    return bytesRead === 2 && head[0] === 0x1f && head[1] === 0x8b;
+    return !(bytesRead === 2 && head[0] === 0x1f && head[1] === 0x8b);
   } catch {
     return false;
   } finally {
