@@ -3,7 +3,7 @@
  * outputs re-read with csv-parse, an independent parser.
  */
 import { createHash } from 'node:crypto';
-import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -137,6 +137,32 @@ describe('invariant 2: nothing lost, nothing invented', () => {
     expect(rowMultiset(got)).toEqual(rowMultiset(ref.rows));
     expect(m.output.fingerprint).toBe(m.input.fingerprint);
     expect(m.output.records).toBe(ref.rows.length);
+  });
+
+  it('a spill damaged between the stages stops the run before anything is written', async () => {
+    const tmp = join(dir, 'damaged-tmp');
+    mkdirSync(tmp);
+    const out = join(dir, 'inv2-damaged');
+    let damaged = 0;
+    const run = shuffle({
+      inputs: [input], out, seed: 's', partitions: 2, memory: '4MiB', threads: 1, tempDir: tmp,
+      onProgress: (p) => {
+        if (p.stage !== 'gather' || p.done !== 1 || damaged) return;
+        // Flip the last byte of every spill file: it belongs to the last bucket, read last.
+        for (const d of readdirSync(tmp)) {
+          for (const f of readdirSync(join(tmp, d)).filter((x) => x.endsWith('.spill'))) {
+            const path = join(tmp, d, f);
+            const bytes = readFileSync(path);
+            bytes[bytes.length - 1]! ^= 0x20;
+            writeFileSync(path, bytes);
+            damaged++;
+          }
+        }
+      },
+    });
+    await expect(run).rejects.toMatchObject({ code: 'ERR_INTERNAL', message: expect.stringContaining('were read (fingerprint') });
+    expect(damaged).toBeGreaterThan(0);
+    expect(existsSync(out)).toBe(false);
   });
 
   it('keeps record bytes exactly: CRLF records, embedded line breaks and unicode', async () => {

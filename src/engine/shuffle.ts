@@ -522,6 +522,15 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     }
     const outFp = new Fingerprint();
     for (const f of fps) outFp.merge(f);
+    // Stage 2 hashes the records it read back from the spill; their sum must be what stage 1
+    // read from the inputs (every record dealt to exactly one part, the spill intact). Never
+    // write a manifest that says otherwise.
+    if (outFp.toHex() !== sc.fingerprint.toHex() || outFp.count !== sc.fingerprint.count) {
+      throw new RowdeckError(
+        'ERR_INTERNAL',
+        `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but ${sc.fingerprint.count} were read (fingerprint ${sc.fingerprint.toHex()}). Nothing was written; please report this.`,
+      );
+    }
     timings.totalMs = Date.now() - t0;
     const manifest = buildManifest({
       version: VERSION,
