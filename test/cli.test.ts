@@ -212,11 +212,17 @@ describe('a successful run', () => {
     writeFileSync(join(dir, 'pipe-src.csv'), text);
     // The shell makes the pipe and writes into it once rowdeck opens it; a second open of the
     // pipe for block reading would wait forever or lose bytes.
-    const script = `mkfifo pipe.csv && (cat pipe-src.csv > pipe.csv &) && ROWDECK_BLOCK_BYTES=512 "${process.execPath}" "${CLI}" shuffle pipe.csv --out ok-fifo --partitions 2 --seed pipe --json --quiet --threads 2`;
+    // (timeout: a writer left waiting for a reader must not outlive the test.)
+    const script = `mkfifo pipe.csv && (timeout 20 sh -c 'cat pipe-src.csv > pipe.csv' </dev/null >/dev/null 2>&1 &) && ROWDECK_BLOCK_BYTES=512 "${process.execPath}" "${CLI}" shuffle pipe.csv --out ok-fifo --partitions 2 --seed pipe --json --quiet --threads 2`;
     const r = spawnSync('sh', ['-c', script], { cwd: dir, encoding: 'utf8', timeout: 30_000 });
     expect(r.status, r.stderr).toBe(0);
     const m = JSON.parse(r.stdout) as { input: { records: number } };
     expect(m.input.records).toBe(300);
+    // Quantile bins read the input twice: a pipe is refused up front, by name.
+    const bins = `(timeout 20 sh -c 'cat pipe-src.csv > pipe.csv' </dev/null >/dev/null 2>&1 &); "${process.execPath}" "${CLI}" shuffle pipe.csv --out no-fifo --stratify temp_c:bins=4 --quiet; rc=$?; cat pipe.csv > /dev/null; exit $rc`;
+    const b = spawnSync('sh', ['-c', bins], { cwd: dir, encoding: 'utf8', timeout: 30_000 });
+    expect(b.status).toBe(2);
+    expect(b.stderr).toContain('needs files, not standard input or a pipe (pipe.csv)');
   });
 
   it('the same seed gives the same bytes on a second run', () => {

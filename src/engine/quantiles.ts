@@ -9,7 +9,7 @@
 import { hashWords3, type Secret } from '../core/hash.js';
 import { RowdeckError, where } from '../errors.js';
 import type { BadRecordPolicy, InputFormat } from '../io/batch.js';
-import { readRecords } from '../io/input.js';
+import { isStreamInput, nameInput, readRecords } from '../io/input.js';
 import { fieldText } from '../io/reader.js';
 
 export interface BinSpec {
@@ -73,8 +73,9 @@ export function parseBinValue(text: string | null, column: string, file: string,
 }
 
 export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
-  if (o.inputs.includes('-')) {
-    throw new RowdeckError('ERR_OPTION', 'Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input (-). Save the input to a file first.');
+  const stream = o.inputs.find(isStreamInput);
+  if (stream !== undefined) {
+    throw new RowdeckError('ERR_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
   }
   const cols = o.columns;
   const cap = Math.max(1024, Math.floor(o.memory / 4 / 16 / Math.max(1, cols.length)));

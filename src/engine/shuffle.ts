@@ -20,7 +20,7 @@ import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
-import { detectFormat } from '../io/input.js';
+import { detectFormat, isStreamInput } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
@@ -47,7 +47,8 @@ const EXT: Record<InputFormat, string> = { csv: '.csv', tsv: '.tsv', jsonl: '.js
 
 /** Size of the uncompressed data of a gzip file, from its trailer (mod 2^32), or a guess. */
 function estimateInputBytes(path: string): number {
-  if (path === '-') return 1024 ** 3;
+  // A stream cannot be looked into without taking its bytes: guess.
+  if (isStreamInput(path)) return 1024 ** 3;
   const st = statSync(path);
   let fd = -1;
   try {
@@ -289,7 +290,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     }
 
     // ---- stage 1: scatter ----
-    const totalBytes = o.inputs.reduce((a, p) => a + (p === '-' ? 0 : statSync(p).size), 0);
+    const totalBytes = o.inputs.reduce((a, p) => a + (isStreamInput(p) ? 0 : statSync(p).size), 0);
     const sc: ScatterResult = await scatter({
       inputs: o.inputs,
       format,

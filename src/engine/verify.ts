@@ -18,7 +18,7 @@ import { maxDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { RowdeckError, ioError } from '../errors.js';
 import type { InputFormat, RecordBatch } from '../io/batch.js';
-import { nameInput, openInput } from '../io/input.js';
+import { isStreamInput, nameInput, openInput } from '../io/input.js';
 import { RecordReader, fieldText } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
@@ -923,8 +923,8 @@ async function listDifferences(inHashes: HashList, outHashes: HashList, inputs: 
     let found = 0;
     for (const path of inputs) {
       if (found >= DIFF_LIST_LIMIT) break;
-      // Standard input was read once already; its records can be counted but not listed.
-      if (path === '-') continue;
+      // Standard input or a pipe was read once already; its records can be counted but not listed.
+      if (isStreamInput(path)) continue;
       const file = nameInput(path);
       const reader = createInputReader(plan, file);
       try {

@@ -3,7 +3,7 @@
  * (stdin, gzip by magic bytes), and reading several inputs in order with matching headers.
  */
 
-import { createReadStream } from 'node:fs';
+import { createReadStream, statSync } from 'node:fs';
 import { open, stat, type FileHandle } from 'node:fs/promises';
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
@@ -66,6 +66,20 @@ async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
     }
   } finally {
     await fh.close();
+  }
+}
+
+/**
+ * Whether an input can only be read once, front to back: standard input, a pipe (including a
+ * shell's `<(command)`), a device. A path that cannot be looked at counts as a file; reading it
+ * reports the error.
+ */
+export function isStreamInput(path: string): boolean {
+  if (path === '-') return true;
+  try {
+    return !statSync(path).isFile();
+  } catch {
+    return false;
   }
 }
 
