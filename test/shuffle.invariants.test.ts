@@ -73,17 +73,23 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     writeFileSync(plain, text);
     const packed = join(dir, 'blocks.csv.gz');
     writeFileSync(packed, gzipSync(text));
+    // A second input: each input's blocks are keyed by its own ordinal and offsets.
+    const text2 = makeSensorCsv({ rows: 2500, seed: 6 });
+    const plain2 = join(dir, 'blocks-2.csv');
+    writeFileSync(plain2, text2);
+    const packed2 = join(dir, 'blocks-2.csv.gz');
+    writeFileSync(packed2, gzipSync(text2));
     const opts = { seed: 'blocks', partitions: 3, stratify: 'fault', folds: 2, onBadRecord: 'quarantine' as const, threads: 2 };
     const before = process.env.ROWDECK_BLOCK_BYTES;
     process.env.ROWDECK_BLOCK_BYTES = '3000';
     let mBlocks: Manifest;
     try {
-      mBlocks = await shuffle({ inputs: [plain], out: join(dir, 'inv1-blocks'), ...opts });
+      mBlocks = await shuffle({ inputs: [plain, plain2], out: join(dir, 'inv1-blocks'), ...opts });
     } finally {
       if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
       else process.env.ROWDECK_BLOCK_BYTES = before;
     }
-    const mSeq = await shuffle({ inputs: [packed], out: join(dir, 'inv1-seq'), ...opts });
+    const mSeq = await shuffle({ inputs: [packed, packed2], out: join(dir, 'inv1-seq'), ...opts });
     const a = outputsOf(join(dir, 'inv1-blocks'));
     const b = outputsOf(join(dir, 'inv1-seq'));
     delete a['rejected.csv'];
@@ -93,6 +99,8 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     expect(mBlocks.input.rejected).toBe(mSeq.input.rejected);
     expect(mBlocks.output).toEqual(mSeq.output);
     expect(mBlocks.input.fingerprint).toBe(mSeq.input.fingerprint);
+    expect(mBlocks.input.records).toBe(mSeq.input.records);
+    expect(mBlocks.input.files.map((f) => f.records)).toEqual(mSeq.input.files.map((f) => f.records));
     const rejects = (d: string): string[][] => parseCsv(readFileSync(join(dir, d, 'rejected.csv'))).rows.map((r) => r.slice(1));
     expect(rejects('inv1-blocks')).toEqual(rejects('inv1-seq'));
   });
