@@ -20,25 +20,30 @@ import { makeTempDir, removeDir } from './helpers/engine.js';
 const dir = makeTempDir('rowdeck-blocks-');
 afterAll(() => removeDir(dir));
 
-/** Lanes run in this thread: one FIFO queue per lane, each task after a random delay. */
+/**
+ * Lanes run in this thread: one FIFO queue per lane, each task after a random delay. Messages
+ * and replies go through structuredClone with their buffers transferred, as between threads.
+ */
 class LocalLanes implements BlockLanes {
   readonly size: number;
   readonly #hosts: BlockHost[];
   readonly #queues: Promise<unknown>[];
   readonly #rng: () => number;
 
-  constructor(size: number, opts: ConstructorParameters<typeof BlockHost>[0], consume: (b: RecordBatch) => void, rng: () => number) {
+  constructor(size: number, consume: (b: RecordBatch) => void, rng: () => number) {
     this.size = size;
-    this.#hosts = Array.from({ length: size }, () => new BlockHost(opts, (b) => consume(b)));
+    this.#hosts = Array.from({ length: size }, () => new BlockHost((b) => consume(b)));
     this.#queues = Array.from({ length: size }, () => Promise.resolve());
     this.#rng = rng;
   }
 
-  runOn(lane: number, m: BlockMessage): Promise<BlockReply> {
+  runOn(lane: number, m: BlockMessage, transfer: ArrayBuffer[] = []): Promise<BlockReply> {
     const ticks = Math.floor(this.#rng() * 4);
+    const sent = structuredClone(m, { transfer });
     const run = this.#queues[lane]!.then(async () => {
       for (let t = 0; t < ticks; t++) await new Promise((r) => setImmediate(r));
-      return this.#hosts[lane]!.handle(m).result;
+      const reply = this.#hosts[lane]!.handle(sent);
+      return structuredClone(reply.result, { transfer: reply.transfer ?? [] });
     });
     this.#queues[lane] = run.catch(() => {});
     return run;
@@ -57,7 +62,7 @@ async function readBlocks(text: string | Buffer, opts: Partial<RecordReaderOptio
   writeFileSync(path, text);
   const out: ReadResult = { records: [], fields: [], lines: [], offsets: [], raw: [], rejected: [], reader: undefined as never };
   const ro: RecordReaderOptions = { format: 'csv', header: true, wanted: [], file: 'data.csv', onBadRecord: 'fail', onReject: (r: RejectedRecord) => out.rejected.push(r), ...opts };
-  const lanes = new LocalLanes(sizes.lanes, { delimiter: ro.delimiter, onBadRecord: ro.onBadRecord }, (b) => collect(b, out), seedrandom(sizes.seed));
+  const lanes = new LocalLanes(sizes.lanes, (b) => collect(b, out), seedrandom(sizes.seed));
   const totals = await readInBlocks({
     path,
     input: 0,

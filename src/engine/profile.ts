@@ -26,13 +26,13 @@ import { TableStats, type ColumnSummary, type SerializedStats } from '../core/st
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { detectFormat, isPlainFile, nameInput, openInput } from '../io/input.js';
-import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
+import { readInBlocks, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
-import { fieldKey, MAX_STRATA, MISSING_KEY, packBatch, stratumValues, TUPLE_SEP } from './scatter.js';
+import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
 
 export const PROFILE_VERSION = 1;
@@ -369,12 +369,6 @@ function tooManyStrata(columns: string[]): RowdeckError {
 /** What the main thread sends a profile worker. */
 export type ProfileMessage = { kind: 'columns'; input: number; map: number[] | null } | { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
 
-/** What a profile worker is started with. */
-export interface ProfileWorkerData {
-  config: ProfileTaskConfig;
-  reading: BlockHostOptions;
-}
-
 // --- reading ---------------------------------------------------------------------------------------
 
 /** How one input is read: every column of the first input wanted (or those a JSON Lines input has). */
@@ -482,7 +476,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
 
   // Started once the first input's columns are known (they size the statistics).
   type Lanes = WorkerLanes<ProfileMessage, BlockReply, ProfileTaskResult>;
-  const run: { inline: ProfileTask | null; lanes: Lanes | null } = { inline: null, lanes: null };
+  const run: { inline: ProfileTask | null; lanes: Lanes | null; sender: BatchSender | null } = { inline: null, lanes: null, sender: null };
   const start = (cols: string[]): void => {
     const stratify = o.stratify.map((s) => {
       const column = cols.indexOf(s.name);
@@ -492,26 +486,14 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
     const config: ProfileTaskConfig = { columns: cols, files, stratify };
     if (o.threads === 0) run.inline = new ProfileTask(config);
     else {
-      const data: ProfileWorkerData = { config, reading: { delimiter: o.delimiter ?? undefined, onBadRecord: o.onBadRecord } };
-      run.lanes = new WorkerLanes(resolveWorkerFile('profile-worker.js'), o.threads, data);
+      run.lanes = new WorkerLanes(resolveWorkerFile('profile-worker.js'), o.threads, config);
+      run.sender = new BatchSender(run.lanes);
     }
   };
 
-  const spare: ArrayBuffer[] = [];
-  const running = new Set<Promise<void>>();
-  // Batches in flight per worker: one being worked on, one waiting, so no worker idles.
-  const maxInFlight = (): number => 2 * (run.lanes?.size ?? 1);
   const send = async (batch: RecordBatch, input: number): Promise<void> => {
-    if (run.inline) return run.inline.addBatch(batch, input);
-    if (batch.count === 0) return;
-    while (running.size >= maxInFlight()) await Promise.race(running);
-    const buffer = packBatch(batch, input, spare.pop());
-    const p: Promise<void> = run
-      .lanes!.run({ kind: 'batch', buffer }, [buffer])
-      .then((back) => void (back.kind === 'released' && spare.push(back.buffer)))
-      .finally(() => running.delete(p));
-    p.catch(() => {});
-    running.add(p);
+    if (run.inline) run.inline.addBatch(batch, input);
+    else await run.sender!.send(batch, input);
   };
 
   try {
@@ -588,7 +570,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
     let results: ProfileTaskResult[];
     if (run.inline) results = [run.inline.finish()];
     else if (run.lanes) {
-      await Promise.all(running);
+      await run.sender?.drain();
       results = await run.lanes.finish();
     } else results = [];
     const readMs = Date.now() - tRead;

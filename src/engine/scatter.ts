@@ -20,7 +20,7 @@ import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { inputReaderOptions, isPlainFile, readInput } from '../io/input.js';
-import { readInBlocks, type BlockHostOptions, type BlockMessage, type BlockReply } from '../io/blocks.js';
+import { readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, type SpillPiece } from './spill.js';
@@ -48,11 +48,9 @@ export interface ScatterTaskConfig {
   bufferBytes: number;
   /** `--assign hash`: count records per (cell, stratum) as they pass, so the plan needs no re-read. */
   hashCells: { deal: DealSpec; cellSecret: number[] } | null;
-  /** How a worker reads the blocks it is given. */
-  reading: BlockHostOptions;
 }
 
-export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells' | 'reading'> {
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells'> {
   hashCells?: ScatterTaskConfig['hashCells'];
   format: InputFormat;
   delimiter: string | undefined;
@@ -341,6 +339,44 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
   return ab;
 }
 
+/** Worker lanes that take packed batches (scatter and profile workers). */
+export interface BatchLanes {
+  readonly size: number;
+  run(m: { kind: 'batch'; buffer: ArrayBuffer }, transfer: ArrayBuffer[]): Promise<BlockReply>;
+}
+
+/**
+ * Posts batches read on the main thread to worker lanes as packed buffers: at most two waiting
+ * or running per worker (bounded memory, and the reader pauses), each buffer coming back for
+ * reuse (allocating ~1 MiB per batch costs page faults).
+ */
+export class BatchSender {
+  readonly #lanes: BatchLanes;
+  readonly #spare: ArrayBuffer[] = [];
+  readonly #running = new Set<Promise<void>>();
+
+  constructor(lanes: BatchLanes) {
+    this.#lanes = lanes;
+  }
+
+  async send(batch: RecordBatch, input: number): Promise<void> {
+    if (batch.count === 0) return;
+    while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
+    const buffer = packBatch(batch, input, this.#spare.pop());
+    const p: Promise<void> = this.#lanes
+      .run({ kind: 'batch', buffer }, [buffer])
+      .then((back) => void (back.kind === 'released' && this.#spare.push(back.buffer)))
+      .finally(() => this.#running.delete(p));
+    p.catch(() => {});
+    this.#running.add(p);
+  }
+
+  /** Waits for every batch sent; rethrows a worker's error. */
+  async drain(): Promise<void> {
+    await Promise.all(this.#running);
+  }
+}
+
 export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: number } {
   const head = new Float64Array(ab, 0, 8);
   const n = head[0]!;
@@ -387,7 +423,6 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
-    reading: { delimiter: o.delimiter, onBadRecord: o.onBadRecord },
   };
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
@@ -400,23 +435,11 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
   if (!inline && !o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
   const lanes = inline ? null : new WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>(o.workerFile!, tasks, config);
-  const spare: ArrayBuffer[] = [];
-  const running = new Set<Promise<void>>();
-  // At most two batches waiting or running per worker: bounded memory, and the reader pauses.
-  const MAX_IN_FLIGHT = 2 * tasks;
+  const sender = lanes ? new BatchSender(lanes) : null;
   const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
     takeSchema(sch);
-    if (inline) return inline.addBatch(batch, input);
-    if (batch.count === 0) return;
-    while (running.size >= MAX_IN_FLIGHT) await Promise.race(running);
-    const buffer = packBatch(batch, input, spare.pop());
-    // Every buffer comes back for reuse (allocating ~1 MiB per batch costs page faults).
-    const p: Promise<void> = lanes!
-      .run({ kind: 'batch', buffer }, [buffer])
-      .then((back) => void (back.kind === 'released' && spare.push(back.buffer)))
-      .finally(() => running.delete(p));
-    p.catch(() => {});
-    running.add(p);
+    if (inline) inline.addBatch(batch, input);
+    else await sender!.send(batch, input);
   };
   const progress = (): void => o.onProgress?.(inputs.reduce((a, x) => a + x.bytes, 0), inputs.reduce((a, x) => a + x.records, 0));
   try {
@@ -463,7 +486,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];
     else {
-      await Promise.all(running);
+      await sender!.drain();
       results = await lanes!.finish();
     }
     return mergeScatterResults(results, schema, inputs, 2 ** o.bits);

@@ -24,7 +24,7 @@
  * untrusted, and the sequential read from there raises the error exactly as it always does.
  */
 import { open, type FileHandle } from 'node:fs/promises';
-import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRecord } from './batch.js';
+import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import { checkNotHeaderOnly, RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
 
@@ -41,15 +41,15 @@ const RAMP_BYTES = 64 << 10;
 
 // --- messages ---------------------------------------------------------------------------------
 
+/** The reader options of an input, as they cross to a worker (refused records come back in the summary). */
+export type BlockReaderOptions = Omit<RecordReaderOptions, 'onReject'>;
+
 export interface BlockJob {
   kind: 'block';
   id: number;
   input: number;
-  file: string;
-  format: InputFormat;
+  reader: BlockReaderOptions;
   schema: InputSchema;
-  /** Columns whose fields are located (the same for every block of an input). */
-  wanted: string[];
   buffer: ArrayBuffer;
   length: number;
   /** Input offset of `buffer[0]`. */
@@ -94,25 +94,18 @@ interface HeldBlock {
   arrays: BatchArrays | null;
 }
 
-export interface BlockHostOptions {
-  delimiter: string | undefined;
-  onBadRecord: BadRecordPolicy;
-}
-
 /**
  * The worker's half: parses blocks, holds them until the main thread has checked the chain,
  * then hands each batch to `consume` with its true line numbers.
  */
 export class BlockHost {
-  readonly #o: BlockHostOptions;
   readonly #consume: (batch: RecordBatch, input: number) => void;
   readonly #readers = new Map<number, RecordReader>();
   readonly #held = new Map<number, HeldBlock>();
   readonly #spareArrays: BatchArrays[] = [];
   #rejects: RejectedRecord[] = [];
 
-  constructor(o: BlockHostOptions, consume: (batch: RecordBatch, input: number) => void) {
-    this.#o = o;
+  constructor(consume: (batch: RecordBatch, input: number) => void) {
     this.#consume = consume;
   }
 
@@ -158,15 +151,7 @@ export class BlockHost {
   #reader(job: BlockJob): RecordReader {
     let r = this.#readers.get(job.input);
     if (!r) {
-      r = new RecordReader({
-        format: job.format,
-        ...(this.#o.delimiter !== undefined ? { delimiter: this.#o.delimiter } : {}),
-        header: job.schema.headerBytes !== null,
-        wanted: job.wanted,
-        file: job.file,
-        onBadRecord: this.#o.onBadRecord,
-        onReject: (rec: RejectedRecord) => void this.#rejects.push(rec),
-      });
+      r = new RecordReader({ ...job.reader, onReject: (rec: RejectedRecord) => void this.#rejects.push(rec) });
       r.adoptSchema(job.schema);
       this.#readers.set(job.input, r);
     }
@@ -336,11 +321,10 @@ async function readAt(fh: FileHandle, buf: Uint8Array, length: number, position:
 }
 
 /**
- * Reads one plain input with the help of the lanes (see the top of this file). Returns null,
- * having read nothing, when the input is gzip-compressed: read it sequentially instead. Callers
- * check `isPlainFile` first (a pipe must not be opened here).
+ * Reads one plain input with the help of the lanes (see the top of this file). Callers check
+ * `isPlainFile` first: a gzip file or a pipe must be read as one stream.
  */
-export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals | null> {
+export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals> {
   let fh: FileHandle;
   try {
     fh = await open(o.path, 'r');
@@ -348,30 +332,18 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
     throw ioError(err, o.reader.file, 'opening');
   }
   try {
-    const st = await fh.stat();
-    if (!st.isFile()) return null;
-    const size = st.size;
+    const size = (await fh.stat()).size;
     const { block: B, lookahead: L } = blockSizes(o);
     const file = o.reader.file;
+    const { onReject: _onReject, ...toWorker } = o.reader;
     const reader = new RecordReader(o.reader);
     const totals: InputTotals = { schema: null as unknown as InputSchema, records: 0, rejected: 0, bytes: size, blocks: { parallel: 0, rechecked: 0, sequentialFrom: null } };
     // The head: read here until the schema is known (BOM, header, or a JSON Lines first object).
-    const headBufs = [Buffer.allocUnsafeSlow(Math.min(HEAD_BYTES, B)), Buffer.allocUnsafeSlow(Math.min(HEAD_BYTES, B))];
-    let at = 0;
-    let turn = 0;
-    while (at < size && !reader.schema) {
-      const buf = headBufs[turn]!;
-      turn ^= 1;
-      const got = await readAt(fh, buf, Math.min(buf.length, size - at), at, file);
-      if (got === 0) break;
-      if (at === 0 && got >= 2 && buf[0] === 0x1f && buf[1] === 0x8b) return null;
-      at += got;
-      const batch = reader.push(buf.subarray(0, got));
-      if (batch) await o.sequential(batch, reader.schema!);
-    }
+    const at = await pushHere(fh, reader, 0, size, o, Math.min(HEAD_BYTES, B), 0, () => reader.schema !== null);
     // Too small to share: read on here.
     if (at >= size || !reader.schema || size - reader.resumeOffset < 2 * B) {
-      await readRestHere(fh, reader, at, size, o, 0);
+      await pushHere(fh, reader, at, size, o, HEAD_BYTES, 0);
+      await endHere(reader, o);
       return { ...totals, schema: reader.schema!, records: reader.stats.records, rejected: reader.stats.rejected };
     }
     const progress = (pos: number): void => o.onProgress?.(pos, totals.records);
@@ -424,7 +396,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
       if (got !== need) throw new RowdeckError('ERR_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
       const lane = id % T;
       const job: BlockJob = {
-        kind: 'block', id, input: o.input, file, format: o.reader.format, schema, wanted: o.reader.wanted,
+        kind: 'block', id, input: o.input, reader: toWorker, schema,
         buffer, length: need, origin: from, from: a - from, stop: last ? -1 : stop - from, exact,
       };
       const entry = { id, lane, reply: o.lanes.runOn(lane, job, [buffer]), settled: false };
@@ -494,7 +466,8 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
       const rest = new RecordReader(o.reader);
       rest.adoptSchema(schema);
       rest.resumeAt(expected, lineBase);
-      await readRestHere(fh, rest, expected, size, o, totals.records);
+      await pushHere(fh, rest, expected, size, o, HEAD_BYTES, totals.records);
+      await endHere(rest, o);
       totals.records += rest.stats.records;
       totals.rejected += rest.stats.rejected;
     }
@@ -506,15 +479,24 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals 
 }
 
 /**
- * Pushes `[from, size)` of the file through `reader` on this thread and ends it. Two buffers
- * alternate, so a batch stays valid while the next chunk is read. `before`: records counted
- * earlier, for progress.
+ * Pushes the file from `from` through `reader` on this thread, chunk by chunk, until its end or
+ * until `enough()`; returns where it stopped. Two buffers alternate, so a batch stays valid while
+ * the next chunk is read. `before`: records counted earlier, for progress.
  */
-async function readRestHere(fh: FileHandle, reader: RecordReader, from: number, size: number, o: ReadInBlocksOptions, before: number): Promise<void> {
-  const bufs = [Buffer.allocUnsafeSlow(HEAD_BYTES), Buffer.allocUnsafeSlow(HEAD_BYTES)];
+async function pushHere(
+  fh: FileHandle,
+  reader: RecordReader,
+  from: number,
+  size: number,
+  o: ReadInBlocksOptions,
+  chunk: number,
+  before: number,
+  enough: () => boolean = () => false,
+): Promise<number> {
+  const bufs = [Buffer.allocUnsafeSlow(chunk), Buffer.allocUnsafeSlow(chunk)];
   let turn = 0;
   let at = from;
-  while (at < size) {
+  while (at < size && !enough()) {
     const buf = bufs[turn]!;
     turn ^= 1;
     const got = await readAt(fh, buf, Math.min(buf.length, size - at), at, o.reader.file);
@@ -524,6 +506,11 @@ async function readRestHere(fh: FileHandle, reader: RecordReader, from: number, 
     if (batch) await o.sequential(batch, reader.schema!);
     o.onProgress?.(at, before + reader.stats.records);
   }
+  return at;
+}
+
+/** Ends a reader fed by `pushHere` and hands over its last records. */
+async function endHere(reader: RecordReader, o: ReadInBlocksOptions): Promise<void> {
   const batch = reader.end();
   if (batch) await o.sequential(batch, reader.schema!);
 }

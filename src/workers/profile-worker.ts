@@ -5,14 +5,14 @@
  * block of the input itself. See src/engine/profile.ts for the flow.
  */
 import { workerData } from 'node:worker_threads';
-import { ProfileTask, type ProfileMessage, type ProfileTaskResult, type ProfileWorkerData } from '../engine/profile.js';
+import { ProfileTask, type ProfileMessage, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile.js';
 import { unpackBatch } from '../engine/scatter.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
 
-const { data } = workerData as { lane: number; data: ProfileWorkerData };
-const task = new ProfileTask(data.config);
-const blocks = new BlockHost(data.reading, (batch, input) => task.addBatch(batch, input));
+const { data } = workerData as { lane: number; data: ProfileTaskConfig };
+const task = new ProfileTask(data);
+const blocks = new BlockHost((batch, input) => task.addBatch(batch, input));
 
 serveLane<ProfileMessage, BlockReply, ProfileTaskResult>(
   (m) => {

@@ -12,7 +12,7 @@ import { serveLane } from './lanes.js';
 
 const { lane, data } = workerData as { lane: number; data: Omit<ScatterTaskConfig, 'task'> };
 const task = new ScatterTask({ ...data, task: lane });
-const blocks = new BlockHost(data.reading, (batch, input) => task.addBatch(batch, input));
+const blocks = new BlockHost((batch, input) => task.addBatch(batch, input));
 
 serveLane<ScatterMessage, BlockReply, ScatterTaskResult>(
   (m) => {
