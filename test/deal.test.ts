@@ -110,6 +110,10 @@ describe('fingerprints', () => {
       const words = new Uint32Array(Math.ceil(len / 4) + 1);
       new Uint8Array(words.buffer).set(bytes);
       expect([...fingerprintAligned(words, 0, len)]).toEqual([...fingerprintBytes(bytes, 0, len)]);
+      // The same record further into a larger array (the spill layout: after a 6-word header).
+      const placed = new Uint32Array(words.length + 9);
+      new Uint8Array(placed.buffer).set(bytes, 24);
+      expect([...fingerprintAligned(placed, 6, len)]).toEqual([...fingerprintBytes(bytes, 0, len)]);
     }
   });
 

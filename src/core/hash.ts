@@ -203,7 +203,7 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
     const k = buf[i]! | (buf[i + 1]! << 8) | (buf[i + 2]! << 16) | (buf[i + 3]! << 24);
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul(h2 + k, FP_C2);
+    h2 = Math.imul((h2 + k) | 0, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   if (i < end) {
@@ -212,7 +212,7 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
     if (i + 2 < end) k |= buf[i + 2]! << 16;
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul(h2 + k, FP_C2);
+    h2 = Math.imul((h2 + k) | 0, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   return fingerprintFinish(h1, h2, end - start, out);
@@ -223,11 +223,37 @@ export function fingerprintAligned(u32: Uint32Array, word: number, len: number, 
   let h1 = FINGERPRINT_SECRET[2]! | 0;
   let h2 = FINGERPRINT_SECRET[3]! | 0;
   const stop = word + ((len + 3) >>> 2);
-  for (let w = word; w < stop; w++) {
+  let w = word;
+  // Four words per turn: the compiled loop re-checks the array (map, length, stack) on every
+  // turn, which cost more than the hashing itself one word at a time (~37 instructions a word
+  // under valgrind, against ~14 this way). Same steps, same order, same value.
+  for (const stop4 = stop - 3; w < stop4; w += 4) {
+    const k0 = u32[w]! | 0;
+    const k1 = u32[w + 1]! | 0;
+    const k2 = u32[w + 2]! | 0;
+    const k3 = u32[w + 3]! | 0;
+    h1 = Math.imul(h1 ^ k0, FP_C1);
+    h1 ^= h1 >>> 15;
+    h2 = Math.imul((h2 + k0) | 0, FP_C2);
+    h2 = (h2 << 13) | (h2 >>> 19);
+    h1 = Math.imul(h1 ^ k1, FP_C1);
+    h1 ^= h1 >>> 15;
+    h2 = Math.imul((h2 + k1) | 0, FP_C2);
+    h2 = (h2 << 13) | (h2 >>> 19);
+    h1 = Math.imul(h1 ^ k2, FP_C1);
+    h1 ^= h1 >>> 15;
+    h2 = Math.imul((h2 + k2) | 0, FP_C2);
+    h2 = (h2 << 13) | (h2 >>> 19);
+    h1 = Math.imul(h1 ^ k3, FP_C1);
+    h1 ^= h1 >>> 15;
+    h2 = Math.imul((h2 + k3) | 0, FP_C2);
+    h2 = (h2 << 13) | (h2 >>> 19);
+  }
+  for (; w < stop; w++) {
     const k = u32[w]! | 0;
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul(h2 + k, FP_C2);
+    h2 = Math.imul((h2 + k) | 0, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   return fingerprintFinish(h1, h2, len, out);

@@ -168,18 +168,22 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!;
 
   // Key-order pass: each part's bytes are written front to back (sequential writes, random
-  // reads; measured several times faster than the other way round). The fingerprint and the
-  // statistics read the record while the copy has it in cache.
+  // reads; measured several times faster than the other way round). Without a fold column the
+  // copy also adds each record to its part's fingerprint while the record is in cache (8% fewer
+  // instructions in stage 2 than a second pass, bench/micro/gather.mjs under valgrind); with one,
+  // a second pass in storage order hashes the records as they were read.
   const fps = Array.from({ length: parts }, () => new Fingerprint());
   // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
   const fill = Int32Array.from(partStart.subarray(0, parts));
-  if (!foldCol) copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n');
-  else {
+  if (!foldCol) {
+    copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n', fps);
+    T?.push(performance.now());
+  } else {
     const foldBytes = Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1')));
     copyWithFold(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding, foldBytes, isJson);
+    T?.push(performance.now());
+    fingerprintParts(ix, n, cellOfRec, K, fps);
   }
-  T?.push(performance.now());
-  fingerprintParts(ix, n, cellOfRec, K, fps);
   if (stats) {
     const addStats = createStatsFeeder(plan);
     for (let i = 0; i < n; i++) addStats(stats[(cellOfRec[i]! / K) | 0]!, buf, ix.at[i]! * 4 + HEADER_BYTES, ix.lenTerm[i]! >>> 2);
@@ -312,9 +316,9 @@ function sizeRecords(
   }
 }
 
-/** The common case: copy each record and its line end, nothing added. */
-function copyPlain(ix: BucketIndex, order: Uint32Array, n: number, cellOfRec: Uint32Array, K: number, fill: Int32Array, recSize: Uint32Array, bytes: Uint8Array, crlfDefault: boolean): void {
-  const { at, lenTerm } = ix;
+/** The common case: copy each record and its line end, nothing added; fingerprint it on the way. */
+function copyPlain(ix: BucketIndex, order: Uint32Array, n: number, cellOfRec: Uint32Array, K: number, fill: Int32Array, recSize: Uint32Array, bytes: Uint8Array, crlfDefault: boolean, fps: Fingerprint[]): void {
+  const { u32, at, lenTerm } = ix;
   for (let k = 0; k < n; k++) {
     const i = order[k]!;
     const part = (cellOfRec[i]! / K) | 0;
@@ -322,7 +326,8 @@ function copyPlain(ix: BucketIndex, order: Uint32Array, n: number, cellOfRec: Ui
     fill[part] = pos + recSize[i]!;
     const lt = lenTerm[i]!;
     const len = lt >>> 2;
-    const cs = at[i]! * 4 + HEADER_BYTES;
+    const w0 = at[i]! + HEADER_WORDS;
+    const cs = w0 * 4;
     bytes.copyWithin(pos, cs, cs + len);
     const term = lt & 3;
     if (term === 1 || (term === 0 && !crlfDefault)) bytes[pos + len] = 0x0a;
@@ -330,6 +335,7 @@ function copyPlain(ix: BucketIndex, order: Uint32Array, n: number, cellOfRec: Ui
       bytes[pos + len] = 0x0d;
       bytes[pos + len + 1] = 0x0a;
     }
+    fps[part]!.addAligned(u32, w0, len);
   }
 }
 

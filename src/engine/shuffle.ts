@@ -72,12 +72,16 @@ function estimateInputBytes(path: string): number {
  *   a 1 GB input); below ~32 KiB per buffer the writes get small, so a small budget gets larger
  *   buckets instead.
  * - Stage 2 reads a bucket in key order, jumping around it; smaller buckets stay in cache.
- * Measured on the 1 GB benchmark file (2 cores): 128 buckets 14.0 s, 256 14.1 s, 512 13.2 s,
- * 2,048 24.6 s; hence buckets of about 3 MiB.
+ * Measured on the 1 GB benchmark file (2 cores), before stage 1 read in blocks: 128 buckets
+ * 14.0 s, 256 14.1 s, 512 13.2 s, 2,048 24.6 s. Since then stage 1 no longer slows with the
+ * bucket count (scatter 6.8-7.3 s from 64 to 2,048 buckets), while stage 2's key-order copy
+ * slows sharply once a bucket passes ~1 MiB (a random 92-byte copy: ~55 ns from a 1 MiB region,
+ * ~240 ns from 2 MiB, on this machine): 512 buckets (~2.4 MiB) gathered in 5.4-6.0 s, 1,024 in
+ * 4.4-5.5 s, 2,048 in 5.1 s (smaller reads). Hence a target of 1.5 MiB: buckets of 0.75-1.5 MiB.
  */
 export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number): { bits: number; bufferBytes: number } {
   const memCap = Math.max(64 * 1024, Math.floor(memory / (3 * (inFlight + 1))));
-  const target = Math.min(memCap, 3 * 1024 * 1024);
+  const target = Math.min(memCap, 1.5 * 1024 * 1024);
   const tasks = Math.max(1, threads);
   const byBuffers = Math.max(1, Math.floor(memory / 4 / (32 * 1024 * tasks)));
   let want = Math.ceil(spillEstimate / target);
