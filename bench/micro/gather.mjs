@@ -1,6 +1,6 @@
 #!/usr/bin/env node
 // Micro-benchmark of stage 2 for one bucket: CPU time per record of each phase of gatherBucket.
-//   node bench/micro/gather.mjs [--records 40000] [--rounds 20]
+//   node bench/micro/gather.mjs [--records 40000] [--rounds 20] [--plain]   (--plain: without --stats only)
 // Builds one spill bucket from invented sensor records with the real scatter code, then deals it
 // `rounds` times. CPU time (process.cpuUsage) is reported, so a busy machine distorts it less.
 import { mkdtempSync, rmSync } from 'node:fs';
@@ -40,7 +40,7 @@ try {
   const sizes = res.bucketCounts.map((c) => c[0]);
   const deal = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions: 8, folds: 1 };
   const t = buildDealTable(sizes, deal);
-  for (const stats of [false, true]) {
+  for (const stats of process.argv.includes('--plain') ? [false] : [false, true]) {
     const plan = {
       version: 1, bits: 0, buckets: 1, scatterTasks: 1, format: 'csv', delimiter: 44, lineEnding: '\n', mode: 'exact', deal,
       foldColumn: null, strataCount: sizes.length, localToGlobal: [sizes.map((_, i) => i)],
@@ -63,6 +63,7 @@ try {
     const per = (ms) => ((ms * 1e6) / (rounds * records)).toFixed(0);
     console.log(`stats=${stats}: ${(((c.user + c.system) * 1000) / (rounds * records)).toFixed(0)} ns/record CPU; wall per phase (ns/record): read ${per(phases[0])}, index+regroup ${per(phases[1])}, sort ${per(phases[2])}, deal ${per(phases[3])}, copy ${per(phases[4])}, fingerprint+stats ${per(phases[5])}`);
   }
+  console.log(`records per round ${records}`);
 } finally {
   rmSync(dir, { recursive: true, force: true });
 }

@@ -224,9 +224,9 @@ export function fingerprintAligned(u32: Uint32Array, word: number, len: number, 
   let h2 = FINGERPRINT_SECRET[3]! | 0;
   const stop = word + ((len + 3) >>> 2);
   let w = word;
-  // Four words per turn: the compiled loop re-checks the array (map, length, stack) on every
-  // turn, which cost more than the hashing itself one word at a time (~37 instructions a word
-  // under valgrind, against ~14 this way). Same steps, same order, same value.
+  // Four words per turn: the compiled loop re-checks the array (map, bounds, index overflow,
+  // stack) on every turn, ~25 instructions a word for ~9 of hashing. Counted under valgrind:
+  // 909 -> 797 instructions for a 93-byte record. Same steps, same order, same value.
   for (const stop4 = stop - 3; w < stop4; w += 4) {
     const k0 = u32[w]! | 0;
     const k1 = u32[w + 1]! | 0;
