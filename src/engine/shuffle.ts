@@ -75,8 +75,10 @@ function estimateInputBytes(path: string): number {
  * Measured on the 1 GB benchmark file (2 cores), before stage 1 read in blocks: 128 buckets
  * 14.0 s, 256 14.1 s, 512 13.2 s, 2,048 24.6 s. Since then stage 1 no longer slows with the
  * bucket count (scatter 6.8-7.3 s from 64 to 2,048 buckets), while stage 2's key-order copy
- * slows sharply once a bucket passes ~1 MiB (a random 92-byte copy: ~55 ns from a 1 MiB region,
- * ~240 ns from 2 MiB, on this machine): 512 buckets (~2.4 MiB) gathered in 5.4-6.0 s, 1,024 in
+ * slows sharply once a bucket falls out of cache (a random 92-byte copy costs 30-60 ns in cache,
+ * 180-280 ns out of it; on this machine the step came past 1 MiB regions in some runs and past
+ * 2 MiB in others, one worker alone: bench/micro/random-copy.mjs; two workers share the cache):
+ * 512 buckets (~2.4 MiB) gathered in 5.4-6.0 s, 1,024 in
  * 4.4-5.5 s, 2,048 in 5.1 s (smaller reads). Hence a target of 1.5 MiB: buckets of 0.75-1.5 MiB.
  */
 export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number): { bits: number; bufferBytes: number } {
