@@ -235,11 +235,10 @@ class ByteCounter {
 
   /** Adds one to the count of b[s, e). */
   count(b: Buffer, s: number, e: number): void {
-    const h = ByteIdTable.hash(b, s, e);
-    let id = this.#table.find(b, s, e, h);
+    let id = this.#table.lookup(b, s, e);
     if (id < 0) {
       id = this.#keys.length;
-      this.#table.add(b, s, e, h, id);
+      this.#table.insert(b, s, e, id);
       this.#keys.push(Buffer.from(b.subarray(s, e)));
       this.#counts.push(0);
     }

@@ -151,10 +151,6 @@ export class ScatterTask {
   readonly #bucketCounts: Float64Array[] = [];
   readonly #groups: Map<string, GroupEntry> | null;
   readonly #fast = new ByteIdTable();
-  /** The last plain stratum value looked up (bytes, length) and its id. */
-  readonly #lastValue = new Uint8Array(64);
-  #lastLen = -1;
-  #lastId = -1;
   readonly #hasBins: boolean;
   readonly #keyBuf = Buffer.allocUnsafe(4096);
   readonly #cellSecret: Secret | null;
@@ -200,26 +196,13 @@ export class ScatterTask {
       // Plain field: look its bytes up directly; same key as fieldKey() would build.
       const fs = b.fieldStart[i * b.wanted]!;
       const fe = b.fieldEnd[i * b.wanted]!;
-      const len = fe - fs;
-      if (len > 0 && len <= 64) {
-        // Inputs often come sorted or clustered by class: first try the previous record's value.
-        const d = b.data;
-        const last = this.#lastValue;
-        if (len === this.#lastLen) {
-          let q = 0;
-          while (q < len && last[q] === d[fs + q]) q++;
-          if (q === len) return this.#lastId;
-        }
-        const h = ByteIdTable.hash(b.data, fs, fe);
-        let id = this.#fast.find(b.data, fs, fe, h);
+      if (fe > fs && fe - fs <= 64) {
+        let id = this.#fast.lookup(b.data, fs, fe);
         if (id < 0) {
           const k = b.data.toString('latin1', fs, fe);
           id = this.#strataIds.get(k) ?? this.#newStratum(k);
-          this.#fast.add(b.data, fs, fe, h, id);
+          this.#fast.insert(b.data, fs, fe, id);
         }
-        for (let q = 0; q < len; q++) last[q] = d[fs + q]!;
-        this.#lastLen = len;
-        this.#lastId = id;
         return id;
       }
     }
