@@ -203,7 +203,7 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
     const k = buf[i]! | (buf[i + 1]! << 8) | (buf[i + 2]! << 16) | (buf[i + 3]! << 24);
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k) | 0, FP_C2);
+    h2 = Math.imul(h2 + k, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   if (i < end) {
@@ -212,7 +212,7 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
     if (i + 2 < end) k |= buf[i + 2]! << 16;
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k) | 0, FP_C2);
+    h2 = Math.imul(h2 + k, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   return fingerprintFinish(h1, h2, end - start, out);
@@ -234,26 +234,26 @@ export function fingerprintAligned(u32: Uint32Array, word: number, len: number, 
     const k3 = u32[w + 3]! | 0;
     h1 = Math.imul(h1 ^ k0, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k0) | 0, FP_C2);
+    h2 = Math.imul(h2 + k0, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
     h1 = Math.imul(h1 ^ k1, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k1) | 0, FP_C2);
+    h2 = Math.imul(h2 + k1, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
     h1 = Math.imul(h1 ^ k2, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k2) | 0, FP_C2);
+    h2 = Math.imul(h2 + k2, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
     h1 = Math.imul(h1 ^ k3, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k3) | 0, FP_C2);
+    h2 = Math.imul(h2 + k3, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   for (; w < stop; w++) {
     const k = u32[w]! | 0;
     h1 = Math.imul(h1 ^ k, FP_C1);
     h1 ^= h1 >>> 15;
-    h2 = Math.imul((h2 + k) | 0, FP_C2);
+    h2 = Math.imul(h2 + k, FP_C2);
     h2 = (h2 << 13) | (h2 >>> 19);
   }
   return fingerprintFinish(h1, h2, len, out);
