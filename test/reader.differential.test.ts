@@ -5,10 +5,11 @@
  * is data), completely empty lines skipped, UTF-8 BOM dropped.
  * Fixed seeds (seedrandom), so a failure is reproducible from the printed case number.
  */
-import { describe, expect, it } from 'vitest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { parse } from 'csv-parse/sync';
 import seedrandom from 'seedrandom';
 import { readAll } from './reader.helpers.js';
+import { useStructuralScan } from '../src/io/reader.js';
 
 const ATOMS_PLAIN = ['a', 'b', 'z', '1', '7', ' ', 'é', '名', '🌡', '.', '-', '\r'];
 const ATOMS_QUOTED = [...ATOMS_PLAIN, ',', ';', '\t', '|', '""', '\n', '\r\n', '\r', "'"];
@@ -87,53 +88,60 @@ function referenceColumns(text: string, delim: string): number {
   return rows?.[0]?.length ?? 0;
 }
 
-describe('differential against csv-parse', () => {
-  it('valid random inputs: same records and field values, bytes preserved', () => {
-    const rng = seedrandom('rowdeck-reader-differential-1');
-    let compared = 0;
-    for (let k = 0; k < 3000; k++) {
-      const { text, delim } = makeInput(rng);
-      const ref = referenceParse(text, delim);
-      const cuts = randomCuts(rng, Buffer.byteLength(text));
-      if (ref === null || ref.length === 0) continue; // an inconsistent field count, rare with these generators; covered below
-      const ours = ourParse(text, delim, cuts);
-      expect(ours, `case ${k}: ${JSON.stringify(text)}`).not.toBeNull();
-      expect(ours!.rows, `case ${k}: ${JSON.stringify(text)} cuts ${cuts.join(',')}`).toEqual(ref);
-      // Records are byte ranges: together with the skipped BOM and blank lines they are the input.
-      const joined = Buffer.concat(ours!.raw).toString('utf8');
-      expect(text.replace(/^\ufeff/, '').replace(/(^|\n)(\r?\n)+/g, '$1'), `case ${k}`).toBe(joined.replace(/(^|\n)(\r?\n)+/g, '$1'));
-      compared++;
-    }
-    expect(compared).toBeGreaterThan(2500);
-  });
+// Both CSV scans against the reference: the WebAssembly structural scan ('simd', used for data
+// of 4 KiB and more) and the JavaScript byte scan ('js'), each forced onto every piece of data.
+for (const scan of ['js', 'simd'] as const) {
+  describe(`differential against csv-parse (${scan} scan)`, () => {
+    beforeAll(() => useStructuralScan(scan));
+    afterAll(() => useStructuralScan('auto'));
 
-  it('corrupted inputs (a stray quote or a dropped field): accepted and rejected alike', () => {
-    const rng = seedrandom('rowdeck-reader-differential-2');
-    let rejected = 0;
-    let accepted = 0;
-    for (let k = 0; k < 2000; k++) {
-      const { text, delim } = makeInput(rng);
-      const chars = [...text];
-      const at = Math.floor(rng() * (chars.length + 1));
-      if (rng() < 0.7) chars.splice(at, 0, '"');
-      else chars.splice(at, 0, delim);
-      const bad = chars.join('');
-      const ref = referenceParse(bad, delim);
-      const ours = ourParse(bad, delim, randomCuts(rng, Buffer.byteLength(bad)));
-      if (ref === null || ref.length === 0) {
-        if (ref === null) {
-          expect(ours, `case ${k}: ${JSON.stringify(bad)}`).toBeNull();
-          rejected++;
-        }
-      } else {
-        expect(ours?.rows, `case ${k}: ${JSON.stringify(bad)}`).toEqual(ref);
-        accepted++;
+    it('valid random inputs: same records and field values, bytes preserved', () => {
+      const rng = seedrandom('rowdeck-reader-differential-1');
+      let compared = 0;
+      for (let k = 0; k < 3000; k++) {
+        const { text, delim } = makeInput(rng);
+        const ref = referenceParse(text, delim);
+        const cuts = randomCuts(rng, Buffer.byteLength(text));
+        if (ref === null || ref.length === 0) continue; // an inconsistent field count, rare with these generators; covered below
+        const ours = ourParse(text, delim, cuts);
+        expect(ours, `case ${k}: ${JSON.stringify(text)}`).not.toBeNull();
+        expect(ours!.rows, `case ${k}: ${JSON.stringify(text)} cuts ${cuts.join(',')}`).toEqual(ref);
+        // Records are byte ranges: together with the skipped BOM and blank lines they are the input.
+        const joined = Buffer.concat(ours!.raw).toString('utf8');
+        expect(text.replace(/^\ufeff/, '').replace(/(^|\n)(\r?\n)+/g, '$1'), `case ${k}`).toBe(joined.replace(/(^|\n)(\r?\n)+/g, '$1'));
+        compared++;
       }
-    }
-    expect(rejected).toBeGreaterThan(500);
-    expect(accepted).toBeGreaterThan(100);
+      expect(compared).toBeGreaterThan(2500);
+    });
+
+    it('corrupted inputs (a stray quote or a dropped field): accepted and rejected alike', () => {
+      const rng = seedrandom('rowdeck-reader-differential-2');
+      let rejected = 0;
+      let accepted = 0;
+      for (let k = 0; k < 2000; k++) {
+        const { text, delim } = makeInput(rng);
+        const chars = [...text];
+        const at = Math.floor(rng() * (chars.length + 1));
+        if (rng() < 0.7) chars.splice(at, 0, '"');
+        else chars.splice(at, 0, delim);
+        const bad = chars.join('');
+        const ref = referenceParse(bad, delim);
+        const ours = ourParse(bad, delim, randomCuts(rng, Buffer.byteLength(bad)));
+        if (ref === null || ref.length === 0) {
+          if (ref === null) {
+            expect(ours, `case ${k}: ${JSON.stringify(bad)}`).toBeNull();
+            rejected++;
+          }
+        } else {
+          expect(ours?.rows, `case ${k}: ${JSON.stringify(bad)}`).toEqual(ref);
+          accepted++;
+        }
+      }
+      expect(rejected).toBeGreaterThan(500);
+      expect(accepted).toBeGreaterThan(100);
+    });
   });
-});
+}
 
 describe('JSON Lines against JSON.parse', () => {
   const KEYS = ['site', 'temp', 'fault', 'note', 'x"y', 'é'];

@@ -2,7 +2,7 @@
 // Micro-benchmark of the column statistics (src/core/stats.ts): CPU time per record and MB/s of
 // TableStats over every column of the invented sensor readings (bench/generate.mjs).
 //
-//   npm run build && node bench/micro/stats.mjs [path.csv] [--mb 40] [--rounds 3] [--cap 1000] [--columns] [--dist DIR]
+//   npm run build && node bench/micro/stats.mjs [path.csv] [--mb 40] [--rounds 3] [--cap 1000] [--columns] [--only COL] [--dist DIR]
 //
 // Without a path, bench/data/readings-100m.csv is used (generated first if absent, seed 1). The
 // first --mb megabytes are read and split into record batches (all columns wanted) once, kept in
@@ -23,6 +23,8 @@ const distArg = process.argv.indexOf('--dist');
 const statsDist = distArg > 0 ? process.argv.splice(distArg, 2)[1] : dist;
 const perColumn = process.argv.includes('--columns');
 if (perColumn) process.argv.splice(process.argv.indexOf('--columns'), 1);
+const onlyArg = process.argv.indexOf('--only');
+const only = onlyArg > 0 ? process.argv.splice(onlyArg, 2)[1] : null;
 const { TableStats } = await import(join(statsDist, 'core', 'stats.js'));
 const { packBatch, unpackBatch } = await import(join(dist, 'engine', 'scatter.js'));
 
@@ -80,6 +82,18 @@ let records = 0;
   closeSync(fd);
 }
 
+if (only !== null) {
+  // One column alone (for counting instructions per value: see count-instructions.sh).
+  const w = columns.indexOf(only);
+  if (w < 0) throw new Error(`no column ${only}`);
+  for (let j = 0; j < batches.length; j++) {
+    const b = batches[j];
+    const pick = (a) => { const o = new a.constructor(b.count); for (let i = 0; i < b.count; i++) o[i] = a[i * b.wanted + w]; return o; };
+    batches[j] = { ...b, wanted: 1, fieldStart: pick(b.fieldStart), fieldEnd: pick(b.fieldEnd), fieldKind: pick(b.fieldKind) };
+  }
+  columns.splice(0, columns.length, only);
+}
+console.log(`records per round ${records}`);
 console.log(`${path}: ${columns.length} columns, ${records.toLocaleString('en-US')} records, ${(bytes / 1e6).toFixed(1)} MB in memory; ${cpus()[0]?.model ?? '?'}, Node ${process.version}`);
 const results = [];
 let last;

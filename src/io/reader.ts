@@ -7,6 +7,7 @@ import { FieldKind } from './batch.js';
 import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
+import { structuralScanner, type StructuralScanner } from './structural.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
@@ -14,6 +15,31 @@ const QUOTE = 0x22;
 const BACKSLASH = 0x5c;
 /** countDelims reads words as little-endian; elsewhere it falls back to bytes. */
 const LITTLE_ENDIAN = new Uint8Array(new Uint32Array([1]).buffer)[0] === 1;
+
+/**
+ * CSV/TSV data of at least this many bytes is scanned by the WebAssembly structural scan
+ * (structural.ts); shorter data by RecordReader.scan, for which copying it into the module would
+ * cost more than it saves. ROWDECK_SCAN=js or =simd in the environment (worker threads share
+ * it) puts every piece of data on one path: for tests and benchmarks.
+ */
+const AUTO_MIN_BYTES = 4096;
+let structuralMinBytes = scanMinBytes(process.env.ROWDECK_SCAN);
+
+function scanMinBytes(mode: string | undefined): number {
+  return mode === 'js' ? Infinity : mode === 'simd' ? 1 : AUTO_MIN_BYTES;
+}
+
+/** For tests and benchmarks: which scan reads CSV/TSV data in this thread ('auto': the rule above). */
+export function useStructuralScan(mode: 'auto' | 'js' | 'simd'): void {
+  structuralMinBytes = scanMinBytes(mode);
+}
+
+/** Set bits of a 32-bit word. */
+function popCount(x: number): number {
+  x -= (x >>> 1) & 0x55555555;
+  x = (x & 0x33333333) + ((x >>> 2) & 0x33333333);
+  return Math.imul((x + (x >>> 4)) & 0x0f0f0f0f, 0x01010101) >>> 24;
+}
 
 /** A quoted field still open after this many bytes is reported as unterminated instead of buffered on. */
 export const MAX_RECORD_BYTES = 64 * 1024 * 1024;
@@ -568,8 +594,14 @@ export class RecordReader {
     }
     this.pCount = 0;
     this.pLine = this.line;
+    // The structural scan until it meets quoting it does not check (then the byte scan goes on).
+    let simd = n - pos >= structuralMinBytes ? structuralScanner() : null;
     while (pos < n) {
-      pos = this.scan(d, pos, n);
+      if (simd !== null) {
+        const p = this.scanIndexed(simd, d, pos, n);
+        if (p < 0) simd = null;
+        pos = p < 0 ? -p - 1 : p;
+      } else pos = this.scan(d, pos, n);
       if (pos >= n) break;
       // scan() stops at a record it cannot finish alone: bad, or cut by the end of the data.
       const r = this.walk(d, pos, n, atEnd);
@@ -599,6 +631,66 @@ export class RecordReader {
     if (this.W > 0) this.fillWanted(d, s, e, count * this.W);
     this.st[count] = s; this.en[count] = e; this.nx[count] = next; this.off[count] = this.base + s; this.ln[count] = line;
     this.pCount = count + 1;
+  }
+
+  /**
+   * Reads records from `pos` (a record start) with the structural scan: delimiters and record
+   * ends come as bits, 32 bytes a word, and are walked in order, filling dpos and calling
+   * endRecord exactly as scan() does. Returns the start of the first record it could not finish
+   * (as scan()), or -(that start) - 1 when it stopped at quoting it does not check: the caller
+   * then goes on with walk() and scan(), which decide what such quoting means.
+   */
+  private scanIndexed(sc: StructuralScanner, d: Buffer, pos: number, n: number): number {
+    const stop = sc.scan(d, pos, n, this.delim);
+    const m = sc.masks;
+    const dpos = this.dpos, dl = dpos.length, N = this.ncols;
+    const nextMark = this.nextMark, firstMark = nextMark[0]!;
+    let ls = pos, c = 0, lfs = 0;
+    let nm = firstMark; // number of the next delimiter a wanted field needs the position of
+    const words = (stop + 31) >>> 5;
+    for (let w = 0, at = sc.maskAt; w < words; w++) {
+      const k = at + (w >>> 1) * 6 + (w & 1);
+      let dm = m[k]!, lm = m[k + 2]!, lq = m[k + 4]!;
+      const base = pos + (w << 5);
+      const keep = stop - (w << 5);
+      if (keep < 32) {
+        const below = (1 << keep) - 1;
+        dm &= below; lm &= below; lq &= below;
+      }
+      // One record end at a time: the delimiters before it are counted, and walked bit by bit
+      // only where a wanted field needs their positions (nextMark, as in scan()).
+      for (;;) {
+        const end = lm & -lm;
+        const seg = end === 0 ? dm : dm & ((end - 1) | 0);
+        if (seg !== 0) {
+          const cn = c + popCount(seg);
+          if (cn >= nm) {
+            let t = seg;
+            while (t !== 0) {
+              const bit = t & -t;
+              t ^= bit;
+              c++;
+              if (c < dl) dpos[c] = base + (31 - Math.clz32(bit));
+            }
+            nm = nextMark[c < N ? c : N]!;
+          } else c = cn;
+        }
+        if (end === 0) break;
+        dm ^= seg;
+        lm ^= end;
+        if (lq !== 0) {
+          // Line ends inside quotes before this record end belong to this record.
+          const before = lq & ((end - 1) | 0);
+          lfs += popCount(before);
+          lq ^= before;
+        }
+        const p = base + (31 - Math.clz32(end));
+        this.endRecord(d, ls, p, c, lfs);
+        ls = p + 1; c = 0; lfs = 0; nm = firstMark;
+      }
+      if (lq !== 0) lfs += popCount(lq);
+    }
+    return stop < n - pos ? -ls - 1 : ls;
   }
 
   /**
