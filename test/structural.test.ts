@@ -141,4 +141,16 @@ describe('the reader gives the same results with either scan', () => {
     expect(records).toBeGreaterThan(10000);
     expect(rejected).toBeGreaterThan(100);
   });
+
+  it('when the data is scanned in windows (records across a window end are walked)', () => {
+    const rng = seedrandom('rowdeck-structural-2');
+    for (const window of [64, 100, 1000, 4096]) {
+      const text = randomCsv(rng, 300, ',', 0.01);
+      const js = read(text, ',', [], 'js');
+      useStructuralScan('simd', window);
+      const r = readAll(text, { header: false, delimiter: ',', wanted: ['column_1', 'column_4'], onBadRecord: 'skip' }, []);
+      const simd = { fields: r.fields, lines: r.lines, offsets: r.offsets, rejected: r.rejected.map((x) => [x.line, x.code, x.reason]) };
+      expect(simd, `window ${window}`).toEqual(js);
+    }
+  });
 });

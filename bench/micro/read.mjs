@@ -2,16 +2,10 @@
 // The record reader alone, over bytes already in memory, `--rounds` times: for counting
 // instructions (count-instructions.sh), where timings on a shared machine are too noisy.
 //   node bench/micro/read.mjs [--file bench/data/readings-100m.csv] [--mb 40] [--rounds 1] [--columns fault] [--scan auto|js|simd]
-import { readFileSync } from 'node:fs';
 import { RecordReader, useStructuralScan } from '../../dist/io/reader.js';
+import { arg, loadInput } from './options.mjs';
 
-const arg = (name, dflt) => {
-  const i = process.argv.indexOf(`--${name}`);
-  return i > 0 ? process.argv[i + 1] : dflt;
-};
-const file = arg('file', 'bench/data/readings-100m.csv');
-const data = readFileSync(file).subarray(0, Number(arg('mb', 40)) * 1e6);
-const rounds = Number(arg('rounds', 1));
+const { file, data, rounds } = loadInput();
 // --columns '*': every column (named by the header line).
 const columns = arg('columns', 'fault');
 const wanted = columns === '*' ? data.subarray(0, data.indexOf(10)).toString().split(',') : columns.split(',');

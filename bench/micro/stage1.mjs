@@ -3,20 +3,15 @@
 // batches read beforehand, `--rounds` times. Made for counting instructions (see
 // count-instructions.sh), where timing on a shared machine is too noisy to see a 5 % change.
 //   node bench/micro/stage1.mjs [--file bench/data/readings-100m.csv] [--mb 40] [--rounds 1] [--bits 10]
-import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
+import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { RecordReader } from '../../dist/io/reader.js';
 import { ScatterTask } from '../../dist/engine/scatter.js';
 import { deriveSecret } from '../../dist/core/hash.js';
+import { arg, loadInput } from './options.mjs';
 
-const arg = (name, dflt) => {
-  const i = process.argv.indexOf(`--${name}`);
-  return i > 0 ? process.argv[i + 1] : dflt;
-};
-const file = arg('file', 'bench/data/readings-100m.csv');
-const data = readFileSync(file).subarray(0, Number(arg('mb', 40)) * 1e6);
-const rounds = Number(arg('rounds', 1));
+const { file, data, rounds } = loadInput();
 const bits = Number(arg('bits', 10));
 const dir = mkdtempSync(join(tmpdir(), 'rowdeck-micro-'));
 try {

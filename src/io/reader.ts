@@ -24,14 +24,25 @@ const LITTLE_ENDIAN = new Uint8Array(new Uint32Array([1]).buffer)[0] === 1;
  */
 const AUTO_MIN_BYTES = 4096;
 let structuralMinBytes = scanMinBytes(process.env.ROWDECK_SCAN);
+/**
+ * The most bytes given to the structural scan at once (its memory grows to ~1.4 times that and
+ * stays): larger data, such as a push holding a very long record, is scanned in windows, and the
+ * record across a window's end is read by walk().
+ */
+const STRUCTURAL_WINDOW = 8 << 20;
+let structuralWindow = STRUCTURAL_WINDOW;
 
 function scanMinBytes(mode: string | undefined): number {
   return mode === 'js' ? Infinity : mode === 'simd' ? 1 : AUTO_MIN_BYTES;
 }
 
-/** For tests and benchmarks: which scan reads CSV/TSV data in this thread ('auto': the rule above). */
-export function useStructuralScan(mode: 'auto' | 'js' | 'simd'): void {
+/**
+ * For tests and benchmarks: which scan reads CSV/TSV data in this thread ('auto': the rule
+ * above), and the window of the structural scan.
+ */
+export function useStructuralScan(mode: 'auto' | 'js' | 'simd', windowBytes = STRUCTURAL_WINDOW): void {
   structuralMinBytes = scanMinBytes(mode);
+  structuralWindow = windowBytes;
 }
 
 /** Set bits of a 32-bit word. */
@@ -598,7 +609,7 @@ export class RecordReader {
     let simd = n - pos >= structuralMinBytes ? structuralScanner() : null;
     while (pos < n) {
       if (simd !== null) {
-        const p = this.scanIndexed(simd, d, pos, n);
+        const p = this.scanIndexed(simd, d, pos, n - pos > structuralWindow ? pos + structuralWindow : n);
         if (p < 0) simd = null;
         pos = p < 0 ? -p - 1 : p;
       } else pos = this.scan(d, pos, n);
@@ -634,11 +645,12 @@ export class RecordReader {
   }
 
   /**
-   * Reads records from `pos` (a record start) with the structural scan: delimiters and record
-   * ends come as bits, 32 bytes a word, and are walked in order, filling dpos and calling
+   * Reads records in `[pos, n)` (pos a record start) with the structural scan: delimiters and
+   * record ends come as bits, 32 bytes a word, and are walked in order, filling dpos and calling
    * endRecord exactly as scan() does. Returns the start of the first record it could not finish
    * (as scan()), or -(that start) - 1 when it stopped at quoting it does not check: the caller
-   * then goes on with walk() and scan(), which decide what such quoting means.
+   * then goes on with walk() and scan(), which decide what such quoting means. `n` may be short
+   * of the data's end (a window): the record across it is then left to walk().
    */
   private scanIndexed(sc: StructuralScanner, d: Buffer, pos: number, n: number): number {
     const stop = sc.scan(d, pos, n, this.delim);
