@@ -7,7 +7,7 @@
  * for a push parser over byte ranges, so it is written here.
  *
  * One instance per thread, created on first use; its memory grows to the largest data scanned
- * (about 1.4 times the bytes). Where WebAssembly SIMD is missing, `structuralScanner()` returns
+ * (about 1.4 times the bytes; the reader gives it at most an 8 MiB window). Where WebAssembly SIMD is missing, `structuralScanner()` returns
  * null and the reader keeps its JavaScript scan.
  */
 import { STRUCTURAL_WASM_BASE64 } from './structural-wasm.js';
@@ -25,14 +25,14 @@ declare const WebAssembly: {
 
 /** Where the data is copied: one byte before it holds a line end (the scan reads it). */
 const IN = 64;
-/** Zero bytes written after the data (the scan reads up to 67 bytes past its end). */
+/** Zero bytes written after the data (the scan reads up to 66 bytes past its end). */
 const PAD = 192;
 
 export interface StructuralScanner {
   /**
    * Copies `d[pos, n)` into the module and scans it; `pos` must be a record start. Returns the
    * offset (from pos) of the first byte whose quoting is not plain RFC 4180, or n - pos. The
-   * masks cover 64 bytes per 6 int32s from `masks()[maskAt]`: delimiters outside quotes (two
+   * masks cover 64 bytes per 6 int32s from `masks[maskAt]`: delimiters outside quotes (two
    * words, first 32 bytes first), LFs outside quotes, LFs inside quotes.
    */
   scan(d: Uint8Array, pos: number, n: number, delim: number): number;
