@@ -13,6 +13,7 @@ import { FieldKind } from '../io/batch.js';
 import { splitRecordFields } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
+import { gatherKernel } from './gather-kernel.js';
 
 export interface GatherTask {
   bucket: number;
@@ -106,7 +107,9 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const strata = plan.strataCount;
 
   // Load every scatter task's file of this bucket into the front of one ArrayBuffer; the output
-  // is laid out behind it, so records move with copyWithin (see BucketWriter for why).
+  // is laid out behind it, so records move with copyWithin (see BucketWriter for why). With the
+  // WebAssembly kernel (gather-kernel.ts) the spill bytes go into its memory instead, and the
+  // ArrayBuffer receives the output only.
   const foldCol = plan.foldColumn !== null;
   const isJson = plan.format === 'jsonl';
   const eolLen = plan.lineEnding.length;
@@ -114,14 +117,20 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const foldLen = Int32Array.from({ length: K }, (_, f) => (foldCol ? (isJson ? jsonFoldBase : 1) + String(f).length : 0));
   const t0 = PHASES ? performance.now() : 0;
   const spillBytes = task.pieces.reduce((a, p) => a + p.length, 0);
+  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
   // Each record sheds a 24-byte header and gains at most its line end and fold field.
   const growth = Math.max(0, 2 + Math.max(0, ...foldLen) - HEADER_BYTES);
-  const outCap = spillBytes + Math.ceil(spillBytes / HEADER_BYTES) * growth;
+  const outCap = spillBytes + maxRecords * growth;
+  // JSON Lines with a fold column inserts the field inside the record: JavaScript does that.
+  const kernel = isJson && foldCol ? null : gatherKernel();
+  const input = kernel ? kernel.reserve(spillBytes, outCap, maxRecords, parts, foldCol ? K : 0) : null;
+  // Where the output starts in the arena.
+  const base = input ? 0 : spillBytes;
   // allocUnsafeSlow: an ArrayBuffer of its own (transferable) without zero-filling it.
-  const need = spillBytes + outCap;
+  const need = base + outCap;
   const arena = task.arena && task.arena.byteLength >= need ? task.arena : (Buffer.allocUnsafeSlow(Math.ceil(need * 1.25) + 4096).buffer as ArrayBuffer);
-  const buf = Buffer.from(arena, 0, need);
-  const bytes = new Uint8Array(arena, 0, need);
+  const bytes = input ?? new Uint8Array(arena, 0, need);
+  const buf = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.byteLength);
   readPieces(task.pieces, bytes);
   // Chunks are whole records; consecutive chunks of one task share its stratum ids.
   const pieceEnds: number[] = [];
@@ -135,9 +144,8 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
     }
   }
   const T = PHASES ? [t0, performance.now()] : null;
-  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
   const ix: BucketIndex = {
-    u32: new Uint32Array(arena, 0, spillBytes >>> 2),
+    u32: new Uint32Array(bytes.buffer, bytes.byteOffset, spillBytes >>> 2),
     at: scratch(0, maxRecords),
     keyHi: scratch(1, maxRecords),
     keyLo: scratch(2, maxRecords),
@@ -164,7 +172,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   T?.push(performance.now());
 
   const partStart = new Float64Array(parts + 1);
-  partStart[0] = spillBytes;
+  partStart[0] = base;
   for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!;
 
   // Key-order pass: each part's bytes are written front to back (sequential writes, random
@@ -173,14 +181,21 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   // instructions in stage 2 than a second pass, bench/micro/gather.mjs under valgrind); with one,
   // a second pass in storage order hashes the records as they were read.
   const fps = Array.from({ length: parts }, () => new Fingerprint());
-  // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
-  const fill = Int32Array.from(partStart.subarray(0, parts));
-  if (!foldCol) {
+  const foldBytes = foldCol
+    ? Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1')))
+    : null;
+  if (input) {
+    const { at, lenTerm } = ix;
+    kernel!.deal({ order, n, cellOfRec, at, lenTerm, partStart, K, crlf: plan.lineEnding === '\r\n', foldBytes }, new Uint8Array(arena), fps);
+    T?.push(performance.now());
+  } else if (!foldCol) {
+    // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
+    const fill = Int32Array.from(partStart.subarray(0, parts));
     copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n', fps);
     T?.push(performance.now());
   } else {
-    const foldBytes = Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1')));
-    copyWithFold(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding, foldBytes, isJson);
+    const fill = Int32Array.from(partStart.subarray(0, parts));
+    copyWithFold(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding, foldBytes!, isJson);
     T?.push(performance.now());
     fingerprintParts(ix, n, cellOfRec, K, fps);
   }
@@ -189,8 +204,8 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
     for (let i = 0; i < n; i++) addStats(stats[(cellOfRec[i]! / K) | 0]!, buf, ix.at[i]! * 4 + HEADER_BYTES, ix.lenTerm[i]! >>> 2);
   }
   T?.push(performance.now());
-  const data = new Uint8Array(arena, spillBytes, partStart[parts]! - spillBytes);
-  for (let p = 0; p <= parts; p++) partStart[p]! -= spillBytes;
+  const data = new Uint8Array(arena, base, partStart[parts]! - base);
+  for (let p = 0; p <= parts; p++) partStart[p]! -= base;
   return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
 }
 

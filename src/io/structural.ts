@@ -11,17 +11,9 @@
  * null and the reader keeps its JavaScript scan.
  */
 import { STRUCTURAL_WASM_BASE64 } from './structural-wasm.js';
+import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 
-// The little of the WebAssembly JS API used here (lib "dom" is not loaded in this project).
-interface WasmMemory {
-  readonly buffer: ArrayBuffer;
-  grow(pages: number): number;
-}
 type ScanFn = (inAt: number, len: number, out: number, delim: number) => number;
-declare const WebAssembly: {
-  Module: new (bytes: Uint8Array) => object;
-  Instance: new (module: object) => { exports: { memory: WasmMemory; scan: ScanFn } };
-};
 
 /** Where the data is copied: one byte before it holds a line end (the scan reads it). */
 const IN = 64;
@@ -47,13 +39,8 @@ let instance: StructuralScanner | null | undefined;
 /** The scanner of this thread, or null where WebAssembly SIMD is not available. */
 export function structuralScanner(): StructuralScanner | null {
   if (instance !== undefined) return instance;
-  try {
-    const module = new WebAssembly.Module(Buffer.from(STRUCTURAL_WASM_BASE64, 'base64'));
-    const exp = new WebAssembly.Instance(module).exports;
-    instance = createScanner(exp.memory, exp.scan);
-  } catch {
-    instance = null;
-  }
+  const exp = instantiate<{ memory: WasmMemory; scan: ScanFn }>(STRUCTURAL_WASM_BASE64);
+  instance = exp ? createScanner(exp.memory, exp.scan) : null;
   return instance;
 }
 
@@ -67,7 +54,7 @@ function createScanner(memory: WasmMemory, run: ScanFn): StructuralScanner {
       const out = (IN + len + PAD + 63) & ~63;
       const need = out + Math.ceil(len / 64) * 24 + 64;
       if (need > memory.buffer.byteLength) {
-        memory.grow(Math.ceil((need - memory.buffer.byteLength) / 65536));
+        if (!growTo(memory, need)) throw new RangeError(`the structural scan cannot grow its memory to ${need} bytes`);
         bytes = new Uint8Array(memory.buffer);
         s.masks = new Int32Array(memory.buffer);
       }

@@ -1,0 +1,40 @@
+/**
+ * The little of the WebAssembly JS API this project uses (lib "dom" is not loaded here), and
+ * instantiation of its embedded modules (src/io/structural.ts, src/engine/gather-kernel.ts).
+ * Each module is written as text by a script in scripts/, and embedded as base64.
+ */
+
+export interface WasmMemory {
+  readonly buffer: ArrayBuffer;
+  grow(pages: number): number;
+}
+
+declare const WebAssembly: {
+  Module: new (bytes: Uint8Array) => object;
+  Instance: new (module: object) => { exports: Record<string, unknown> };
+};
+
+/**
+ * The exports of a fresh instance of the module, or null where this runtime cannot run it
+ * (no WebAssembly, as under --jitless, or no 128-bit SIMD): callers keep a JavaScript path.
+ */
+export function instantiate<E>(base64: string): E | null {
+  try {
+    const module = new WebAssembly.Module(Buffer.from(base64, 'base64'));
+    return new WebAssembly.Instance(module).exports as E;
+  } catch {
+    return null;
+  }
+}
+
+/** Grows `memory` to at least `bytes`. False when it cannot grow that far. */
+export function growTo(memory: WasmMemory, bytes: number): boolean {
+  const have = memory.buffer.byteLength;
+  if (bytes <= have) return true;
+  try {
+    memory.grow(Math.ceil((bytes - have) / 65536));
+    return true;
+  } catch {
+    return false;
+  }
+}

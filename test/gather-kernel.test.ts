@@ -1,0 +1,179 @@
+/**
+ * Stage 2's WebAssembly key-order copy (src/engine/gather-kernel.ts): its sources are in step;
+ * on synthetic buckets it writes exactly the bytes a plain concatenation gives and the
+ * fingerprints src/core/hash.ts computes; and whole shuffles give the same bytes and manifests
+ * with it as with the JavaScript copy.
+ */
+import { readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { GATHER_WASM_BASE64 } from '../src/engine/gather-wasm.js';
+import { gatherKernel } from '../src/engine/gather-kernel.js';
+import { Fingerprint } from '../src/core/hash.js';
+import { HEADER_BYTES } from '../src/engine/spill.js';
+import { shuffle, type Manifest } from '../src/index.js';
+import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
+// @ts-expect-error: a plain ES module without types
+import { assemble, wat } from '../scripts/gather-wasm.mjs';
+
+describe('sources', () => {
+  it('gather.wat and the embedded module are what scripts/gather-wasm.mjs makes', async () => {
+    const text = (wat as () => string)();
+    expect(readFileSync(new URL('../src/engine/gather.wat', import.meta.url), 'utf8')).toBe(text);
+    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
+    expect(Buffer.from(GATHER_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
+  });
+});
+
+interface Synthetic {
+  spill: Buffer;
+  records: Buffer[];
+  terms: number[];
+  at: Uint32Array;
+  lenTerm: Uint32Array;
+}
+
+/** A bucket in the spill layout (src/engine/spill.ts): random bytes, lengths 0..300, every terminator kind. */
+function syntheticBucket(n: number, seed: number): Synthetic {
+  const rnd = createRandom(seed);
+  const records: Buffer[] = [];
+  const terms: number[] = [];
+  const chunks: Buffer[] = [];
+  const at = new Uint32Array(n);
+  const lenTerm = new Uint32Array(n);
+  let word = 0;
+  for (let i = 0; i < n; i++) {
+    // Mostly short records, some across several 16-byte steps, a few empty.
+    const len = rnd() < 0.05 ? 0 : rnd() < 0.8 ? Math.floor(rnd() * 40) : Math.floor(rnd() * 300);
+    const rec = Buffer.alloc(len);
+    for (let b = 0; b < len; b++) rec[b] = Math.floor(rnd() * 256);
+    const term = Math.floor(rnd() * 3);
+    const slot = Buffer.alloc(HEADER_BYTES + ((len + 3) & ~3));
+    slot.writeUInt32LE(Math.floor(rnd() * 2 ** 32), 0);
+    slot.writeUInt32LE(Math.floor(rnd() * 2 ** 32), 4);
+    slot.writeUInt32LE(((len << 2) | term) >>> 0, 20);
+    rec.copy(slot, HEADER_BYTES);
+    records.push(rec);
+    terms.push(term);
+    chunks.push(slot);
+    at[i] = word;
+    lenTerm[i] = (len << 2) | term;
+    word += slot.length / 4;
+  }
+  return { spill: Buffer.concat(chunks), records, terms, at, lenTerm };
+}
+
+describe('the kernel on synthetic buckets', () => {
+  const kernel = gatherKernel();
+  const cases = [
+    { parts: 1, K: 1, crlf: false, fold: false },
+    { parts: 3, K: 1, crlf: true, fold: false },
+    { parts: 8, K: 5, crlf: false, fold: true },
+    { parts: 2, K: 12, crlf: true, fold: true },
+  ];
+  it.skipIf(kernel === null).each(cases)('parts $parts, folds $K, CR LF default $crlf, fold column $fold', ({ parts, K, crlf, fold }) => {
+    const n = 2500;
+    const s = syntheticBucket(n, parts * 100 + K);
+    const rnd = createRandom(K * 7 + parts);
+    // A random key order and random cells, one part left empty when there are several.
+    const order = Uint32Array.from({ length: n }, (_, i) => i);
+    for (let i = n - 1; i > 0; i--) {
+      const j = Math.floor(rnd() * (i + 1));
+      [order[i], order[j]] = [order[j]!, order[i]!];
+    }
+    const cells = parts * K;
+    const cellOfRec = Uint32Array.from({ length: n }, () => {
+      const c = Math.floor(rnd() * cells);
+      return parts > 1 && Math.floor(c / K) === 1 ? 0 : c;
+    });
+    const foldBytes = fold ? Array.from({ length: K }, (_, f) => Buffer.from(`;${f}`, 'latin1')) : null;
+    // What each part must hold: its records in key order, fold field, line end; built plainly.
+    const expected: Buffer[][] = Array.from({ length: parts }, () => []);
+    const fpsExpected = Array.from({ length: parts }, () => new Fingerprint());
+    for (let k = 0; k < n; k++) {
+      const i = order[k]!;
+      const part = Math.floor(cellOfRec[i]! / K);
+      const term = s.terms[i]!;
+      const eol = term === 1 ? '\n' : term === 2 ? '\r\n' : crlf ? '\r\n' : '\n';
+      expected[part]!.push(s.records[i]!, foldBytes ? foldBytes[cellOfRec[i]! % K]! : Buffer.alloc(0), Buffer.from(eol, 'latin1'));
+      // hash.ts's byte-wise fingerprint of the record's own bytes (not the padded copy).
+      fpsExpected[part]!.addBytes(s.records[i]!, 0, s.records[i]!.length);
+    }
+    const partBytes = expected.map((chunks) => Buffer.concat(chunks));
+    const partStart = new Float64Array(parts + 1);
+    for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!.length;
+
+    const outCap = partStart[parts]!;
+    const input = kernel!.reserve(s.spill.length, outCap, Math.floor(s.spill.length / HEADER_BYTES), parts, fold ? K : 0)!;
+    input.set(s.spill);
+    // The output buffer is filled with a marker: every byte must be overwritten, none past the end.
+    const target = new Uint8Array(outCap + 64).fill(0xee);
+    const fps = Array.from({ length: parts }, () => new Fingerprint());
+    kernel!.deal({ order, n, cellOfRec, at: s.at, lenTerm: s.lenTerm, partStart, K, crlf, foldBytes }, target, fps);
+    expect(Buffer.from(target.subarray(0, outCap)).equals(Buffer.concat(partBytes))).toBe(true);
+    expect(target.subarray(outCap).every((b) => b === 0xee)).toBe(true);
+    expect(fps.map((f) => [f.toHex(), f.count])).toEqual(fpsExpected.map((f) => [f.toHex(), f.count]));
+  });
+
+  it.skipIf(kernel === null)('refuses to deal more records than were reserved', () => {
+    const s = syntheticBucket(10, 3);
+    kernel!.reserve(s.spill.length, 4096, 5, 1, 0);
+    const order = Uint32Array.from({ length: 10 }, (_, i) => i);
+    const call = () =>
+      kernel!.deal({ order, n: 10, cellOfRec: new Uint32Array(10), at: s.at, lenTerm: s.lenTerm, partStart: Float64Array.of(0, 4096), K: 1, crlf: false, foldBytes: null }, new Uint8Array(4096), [new Fingerprint()]);
+    expect(call).toThrow(/beyond what was reserved/);
+  });
+});
+
+describe('whole shuffles: the same bytes with the kernel and with the JavaScript copy', () => {
+  let dir: string;
+  let csv: string;
+  let crlf: string;
+  let jsonl: string;
+  beforeAll(() => {
+    dir = makeTempDir();
+    csv = join(dir, 'readings.csv');
+    writeFileSync(csv, makeSensorCsv({ rows: 4000, seed: 11 }));
+    crlf = join(dir, 'readings-crlf.csv');
+    writeFileSync(crlf, makeSensorCsv({ rows: 3000, seed: 12, crlf: true, noFinalNewline: true }));
+    jsonl = join(dir, 'readings.jsonl');
+    const rnd = createRandom(13);
+    const lines: string[] = [];
+    for (let i = 0; i < 3000; i++) lines.push(i % 97 === 50 ? '{}' : JSON.stringify({ id: i, fault: ['ok', 'drift', 'spike'][Math.floor(rnd() * 3)], note: rnd() < 0.2 ? 'gust "40"' : null }));
+    writeFileSync(jsonl, lines.join('\n'));
+  });
+  afterAll(() => {
+    delete process.env.ROWDECK_GATHER;
+    removeDir(dir);
+  });
+
+  /** Every file of a run, the manifest without its clock readings. */
+  function snapshot(out: string, m: Manifest): Record<string, string> {
+    const files: Record<string, string> = {};
+    for (const f of listFiles(out)) if (f !== 'manifest.json') files[f] = readFileSync(join(out, f)).toString('base64');
+    const { createdAt: _c, timingsMs: _t, ...run } = m.run as unknown as Record<string, unknown>;
+    files['manifest'] = JSON.stringify({ ...m, run });
+    return files;
+  }
+
+  const configs: [string, () => string, Record<string, unknown>][] = [
+    ['CSV, stratified, 8 partitions', () => csv, { partitions: 8, stratify: 'fault' }],
+    ['CSV, 5 folds and named splits', () => csv, { split: 'train=0.8,test=0.2', folds: 5, stratify: 'fault' }],
+    ['CSV with CR LF and no final line end, 3 folds, statistics', () => crlf, { partitions: 3, folds: 3, stats: true }],
+    ['JSON Lines, 4 partitions', () => jsonl, { partitions: 4, stratify: 'fault' }],
+    ['JSON Lines with a fold field (JavaScript either way)', () => jsonl, { partitions: 2, folds: 4 }],
+  ];
+  it.each(configs)('%s', async (name, input, opts) => {
+    const runs: Record<string, string>[] = [];
+    for (const mode of ['js', 'auto']) {
+      // Worker threads copy the environment when they start.
+      if (mode === 'js') process.env.ROWDECK_GATHER = 'js';
+      else delete process.env.ROWDECK_GATHER;
+      const out = join(dir, `${name.replace(/\W+/g, '-')}-${mode}`);
+      const m = await shuffle({ inputs: [input()], out, seed: 'kernel', memory: '4MiB', threads: 2, ...opts });
+      runs.push(snapshot(out, m));
+    }
+    expect(Object.keys(runs[1]!).length).toBeGreaterThan(2);
+    expect(runs[1]).toEqual(runs[0]);
+  });
+});
