@@ -24,3 +24,66 @@ export const ${constName} =
 ${lines};
 `;
 }
+
+// --- pieces of WebAssembly text shared by the modules ----------------------------------------
+
+export const get = (x) => `(local.get $${x})`;
+export const i32 = (x) => `(i32.const ${x | 0})`;
+
+/**
+ * Copies $len bytes from $from to $to, 16 a step: writes up to 15 bytes past $to + $len and reads
+ * up to 15 past $from + $len (the callers' layouts leave room). Uses the local $j.
+ */
+export function copy16(to, from, len) {
+  return `(local.set $j (i32.const 0))
+        (block $copied
+          (loop $copy
+            (br_if $copied (i32.ge_u ${get('j')} ${get(len)}))
+            (v128.store align=1 (i32.add ${get(to)} ${get('j')}) (v128.load align=1 (i32.add ${get(from)} ${get('j')})))
+            (local.set $j (i32.add ${get('j')} (i32.const 16)))
+            (br $copy)))`;
+}
+
+// Constants of the fingerprint hash (src/core/hash.ts: FINGERPRINT_SECRET, FP_C1, FP_C2).
+const SECRET = [0x9e3779b9, 0x7f4a7c15, 0x85ebca6b, 0xc2b2ae35];
+const FP_C1 = 0x9e3779b1;
+const FP_C2 = 0x85ebca77;
+
+/** MurmurHash3's finaliser of lane $x, seeded with the record length $len (hash.ts: finish). */
+function finish(x, len) {
+  return `(local.set $${x} (i32.xor ${get(x)} ${get(len)}))
+        (local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 16))) ${i32(0x85ebca6b)}))
+        (local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 13))) ${i32(0xc2b2ae35)}))
+        (local.set $${x} (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 16))))`;
+}
+
+/**
+ * Adds the fingerprint hash of the $len bytes at $from, read as little-endian words with zero
+ * padding after them (hash.ts: fingerprintAligned, the same steps), to the i64 at $slot, and 1 to
+ * the i64 after it: a sum modulo 2^64, as Fingerprint.addHash keeps it. Uses the locals $h1 $h2
+ * $j $end $x $hi $lo.
+ */
+export function fingerprint(from, len, slot) {
+  return `(local.set $h1 ${i32(SECRET[2])})
+        (local.set $h2 ${i32(SECRET[3])})
+        (local.set $j ${get(from)})
+        (local.set $end (i32.add ${get(from)} (i32.and (i32.add ${get(len)} (i32.const 3)) (i32.const -4))))
+        (block $hashed
+          (loop $word
+            (br_if $hashed (i32.ge_u ${get('j')} ${get('end')}))
+            (local.set $x (i32.load ${get('j')}))
+            (local.set $h1 (i32.mul (i32.xor ${get('h1')} ${get('x')}) ${i32(FP_C1)}))
+            (local.set $h1 (i32.xor ${get('h1')} (i32.shr_u ${get('h1')} (i32.const 15))))
+            (local.set $h2 (i32.rotl (i32.mul (i32.add ${get('h2')} ${get('x')}) ${i32(FP_C2)}) (i32.const 13)))
+            (local.set $j (i32.add ${get('j')} (i32.const 4)))
+            (br $word)))
+        (local.set $h1 (i32.xor ${get('h1')} ${i32(SECRET[0])}))
+        (local.set $h2 (i32.xor ${get('h2')} ${i32(SECRET[1])}))
+        ${finish('h1', len)}
+        ${finish('h2', len)}
+        (local.set $hi (i32.xor ${get('h1')} (i32.mul ${get('h2')} ${i32(0x2545f491)})))
+        (local.set $lo (i32.xor ${get('h2')} (i32.mul ${get('h1')} ${i32(0x9e3779b1)})))
+        (i64.store ${get(slot)} (i64.add (i64.load ${get(slot)})
+          (i64.or (i64.shl (i64.extend_i32_u ${get('hi')}) (i64.const 32)) (i64.extend_i32_u ${get('lo')}))))
+        (i64.store offset=8 ${get(slot)} (i64.add (i64.load offset=8 ${get(slot)}) (i64.const 1)))`;
+}

@@ -1,27 +1,39 @@
 /**
- * Stage 2's WebAssembly key-order copy (src/engine/gather-kernel.ts): its sources are in step;
- * on synthetic buckets it writes exactly the bytes a plain concatenation gives and the
- * fingerprints src/core/hash.ts computes; and whole shuffles give the same bytes and manifests
- * with it as with the JavaScript copy.
+ * The WebAssembly kernels of the two stages: stage 1's appends to the bucket buffers
+ * (BucketWriter in src/engine/spill.ts) and stage 2's key-order copy (src/engine/gather-kernel.ts).
+ * Their sources are in step; on synthetic data they write exactly the bytes the JavaScript paths
+ * (or a plain concatenation) give and the fingerprints src/core/hash.ts computes; and whole
+ * shuffles give the same bytes and manifests with them as without.
  */
-import { readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { GATHER_WASM_BASE64 } from '../src/engine/gather-wasm.js';
 import { gatherKernel } from '../src/engine/gather-kernel.js';
 import { Fingerprint } from '../src/core/hash.js';
-import { HEADER_BYTES } from '../src/engine/spill.js';
+import { BucketWriter, HEADER_BYTES, spillFileName } from '../src/engine/spill.js';
+import { SPILL_WASM_BASE64 } from '../src/engine/spill-wasm.js';
 import { shuffle, type Manifest } from '../src/index.js';
 import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 // @ts-expect-error: a plain ES module without types
-import { assemble, wat } from '../scripts/gather-wasm.mjs';
+import * as gatherScript from '../scripts/gather-wasm.mjs';
+// @ts-expect-error: a plain ES module without types
+import * as spillScript from '../scripts/spill-wasm.mjs';
+
+interface ModuleScript {
+  wat(): string;
+  assemble(text: string): Promise<Buffer>;
+}
 
 describe('sources', () => {
-  it('gather.wat and the embedded module are what scripts/gather-wasm.mjs makes', async () => {
-    const text = (wat as () => string)();
-    expect(readFileSync(new URL('../src/engine/gather.wat', import.meta.url), 'utf8')).toBe(text);
-    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
-    expect(Buffer.from(GATHER_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
+  it.each([
+    ['gather', gatherScript as ModuleScript, GATHER_WASM_BASE64],
+    ['spill', spillScript as ModuleScript, SPILL_WASM_BASE64],
+  ])('src/engine/%s.wat and the embedded module are what its script makes', async (name, script, base64) => {
+    const text = script.wat();
+    expect(readFileSync(new URL(`../src/engine/${name}.wat`, import.meta.url), 'utf8')).toBe(text);
+    const bytes = await script.assemble(text);
+    expect(Buffer.from(base64, 'base64').equals(bytes)).toBe(true);
   });
 });
 
@@ -63,7 +75,86 @@ function syntheticBucket(n: number, seed: number): Synthetic {
   return { spill: Buffer.concat(chunks), records, terms, at, lenTerm };
 }
 
-describe('the kernel on synthetic buckets', () => {
+describe('stage 1: BucketWriter writes the same spill file with the module as without', () => {
+  let dir: string;
+  beforeAll(() => {
+    dir = makeTempDir();
+  });
+  afterAll(() => {
+    delete process.env.ROWDECK_SPILL;
+    removeDir(dir);
+  });
+
+  /** Random records (lengths 0..300, some past a 4 KiB buffer, every length mod 4), in batches. */
+  function batches(seed: number): { data: Buffer; ends: number[] }[] {
+    const rnd = createRandom(seed);
+    const out: { data: Buffer; ends: number[] }[] = [];
+    for (let b = 0; b < 6; b++) {
+      const ends: number[] = [];
+      const parts: Buffer[] = [];
+      let at = 0;
+      // Batch 3 holds a record larger than the staging area (the per-record path); batch 5,
+      // 5,000 records of 0-2 bytes, more than the module's queue takes at once.
+      const count = b === 3 ? 5 : b === 5 ? 5000 : 6000;
+      for (let i = 0; i < count; i++) {
+        const len = b === 3 && i === 2 ? 9000 : b === 5 ? Math.floor(rnd() * 3) : rnd() < 0.01 ? 5000 + Math.floor(rnd() * 100) : Math.floor(rnd() * 300);
+        const rec = Buffer.alloc(len);
+        for (let k = 0; k < len; k++) rec[k] = Math.floor(rnd() * 256);
+        parts.push(rec);
+        at += len;
+        ends.push(at);
+      }
+      out.push({ data: Buffer.concat(parts), ends });
+    }
+    return out;
+  }
+
+  function write(mode: 'js' | 'auto', seed: number): { file: Buffer; w: BucketWriter; fp: Fingerprint; expected: Fingerprint } {
+    if (mode === 'js') process.env.ROWDECK_SPILL = 'js';
+    else delete process.env.ROWDECK_SPILL;
+    const sub = join(dir, `${mode}-${seed}`);
+    mkdirSync(sub);
+    const fp = new Fingerprint();
+    const expected = new Fingerprint();
+    // 16 buckets of 4 KiB, staging of 8 KiB: many flushes, some records longer than a buffer.
+    const w = new BucketWriter(sub, 0, 16, 4096, fp, 8192);
+    const rnd = createRandom(seed + 1);
+    let offset = 0;
+    for (const { data, ends } of batches(seed)) {
+      let staged = 0;
+      for (let i = 0; i < ends.length; i++) {
+        const start = i === 0 ? 0 : ends[i - 1]!;
+        if (i === staged) {
+          let j = i + 1;
+          while (j < ends.length && ends[j - 1]! - start <= w.stagingBytes) j++;
+          if (ends[j - 1]! - start > w.stagingBytes && j > i + 1) j--;
+          w.stage(data, start, ends[j - 1]!);
+          staged = j;
+        }
+        w.append(Math.floor(rnd() * 16), Math.floor(rnd() * 2 ** 32), Math.floor(rnd() * 2 ** 32), offset + 2 ** 33, 3, Math.floor(rnd() * 5), data, start, ends[i]!, Math.floor(rnd() * 3));
+        expected.addBytes(data, start, ends[i]!);
+      }
+      offset += data.length;
+    }
+    w.close();
+    return { file: readFileSync(join(sub, spillFileName(0))), w, fp, expected };
+  }
+
+  it.each([1, 2])('random records, seed %i: same file, chunks, counts and fingerprint', (seed) => {
+    const js = write('js', seed);
+    const auto = write('auto', seed);
+    expect(auto.file.equals(js.file)).toBe(true);
+    expect(auto.w.chunks).toEqual(js.w.chunks);
+    expect([...auto.w.bytes]).toEqual([...js.w.bytes]);
+    expect([...auto.w.records]).toEqual([...js.w.records]);
+    // Both equal the byte-wise fingerprint of hash.ts over the records as given.
+    expect([auto.fp.toHex(), auto.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
+    expect([js.fp.toHex(), js.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
+    expect(readdirSync(join(dir, `auto-${seed}`))).toEqual([spillFileName(0)]);
+  });
+});
+
+describe('stage 2: the kernel on synthetic buckets', () => {
   const kernel = gatherKernel();
   const cases = [
     { parts: 1, K: 1, crlf: false, fold: false },
@@ -125,7 +216,7 @@ describe('the kernel on synthetic buckets', () => {
   });
 });
 
-describe('whole shuffles: the same bytes with the kernel and with the JavaScript copy', () => {
+describe('whole shuffles: the same bytes with the kernels and with JavaScript alone', () => {
   let dir: string;
   let csv: string;
   let crlf: string;
@@ -144,6 +235,7 @@ describe('whole shuffles: the same bytes with the kernel and with the JavaScript
   });
   afterAll(() => {
     delete process.env.ROWDECK_GATHER;
+    delete process.env.ROWDECK_SPILL;
     removeDir(dir);
   });
 
@@ -167,8 +259,10 @@ describe('whole shuffles: the same bytes with the kernel and with the JavaScript
     const runs: Record<string, string>[] = [];
     for (const mode of ['js', 'auto']) {
       // Worker threads copy the environment when they start.
-      if (mode === 'js') process.env.ROWDECK_GATHER = 'js';
-      else delete process.env.ROWDECK_GATHER;
+      for (const name of ['ROWDECK_GATHER', 'ROWDECK_SPILL']) {
+        if (mode === 'js') process.env[name] = 'js';
+        else delete process.env[name];
+      }
       const out = join(dir, `${name.replace(/\W+/g, '-')}-${mode}`);
       const m = await shuffle({ inputs: [input()], out, seed: 'kernel', memory: '4MiB', threads: 2, ...opts });
       runs.push(snapshot(out, m));
