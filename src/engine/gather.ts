@@ -10,7 +10,7 @@ import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
 import type { TableStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
-import { splitRecordFields } from '../io/reader.js';
+import { RecordReader } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 import { gatherKernel } from './gather-kernel.js';
@@ -199,7 +199,18 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
     T?.push(performance.now());
     fingerprintParts(ix, n, cellOfRec, K, fps);
   }
-  if (stats) {
+  if (stats && !isJson) {
+    // Each part's slice of output is plain CSV/TSV: read it back with the record reader (its
+    // structural scan) and add it a batch at a time, column by column.
+    const reader = partReader(plan);
+    for (let p = 0; p < parts; p++) {
+      const from = partStart[p]!;
+      const to = partStart[p + 1]!;
+      if (to === from) continue;
+      const batch = reader.parseBlock(Buffer.from(arena, from, to - from), 0, true, 0);
+      if (batch) stats[p]!.addBatch(batch);
+    }
+  } else if (stats) {
     const addStats = createStatsFeeder(plan);
     for (let i = 0; i < n; i++) addStats(stats[(cellOfRec[i]! / K) | 0]!, buf, ix.at[i]! * 4 + HEADER_BYTES, ix.lenTerm[i]! >>> 2);
   }
@@ -209,37 +220,44 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
 }
 
+let partReaderOf: { plan: GatherPlan; reader: RecordReader } | null = null;
+
 /**
- * Feeds one record's fields to a part's statistics. CSV/TSV records are split in place; JSON
- * Lines records are parsed (slower, but JSON has no cheaper honest way to find every key).
+ * A reader of the parts' CSV/TSV output (the input's columns, then the fold column if any) that
+ * locates the statistics' columns; kept for the plan, since every bucket uses the same one.
+ */
+function partReader(plan: GatherPlan): RecordReader {
+  if (partReaderOf?.plan === plan) return partReaderOf.reader;
+  const delimiter = String.fromCharCode(plan.delimiter);
+  const format = plan.format === 'tsv' ? 'tsv' : 'csv';
+  const reader = new RecordReader({ format, delimiter, header: false, wanted: plan.statsColumns, file: '(part output)', onBadRecord: 'fail' });
+  const columns = plan.foldColumn !== null ? [...plan.statsColumns, plan.foldColumn] : plan.statsColumns;
+  reader.adoptSchema({ format, columns, headerBytes: null, lineEnding: plan.lineEnding, delimiter: plan.delimiter });
+  partReaderOf = { plan, reader };
+  return reader;
+}
+
+/**
+ * Feeds one record's fields to a part's statistics (JSON Lines): records are parsed (slower, but
+ * JSON has no cheaper honest way to find every key).
  */
 function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: number, len: number) => void {
   const cols = plan.statsColumns;
-  if (plan.format === 'jsonl') {
-    return (t, b, start, len) => {
-      let obj: Record<string, unknown>;
-      try {
-        obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
-      } catch {
-        obj = {};
-      }
-      for (let c = 0; c < cols.length; c++) {
-        const v = obj[cols[c]!];
-        if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
-        else {
-          const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
-          t.addField(c, text, 0, text.length, FieldKind.Plain);
-        }
-      }
-      t.addRecordDone();
-    };
-  }
-  const fs = new Uint32Array(cols.length);
-  const fe = new Uint32Array(cols.length);
-  const fk = new Uint8Array(cols.length);
   return (t, b, start, len) => {
-    const n = Math.min(cols.length, splitRecordFields(b, start, start + len, plan.delimiter, fs, fe, fk));
-    for (let c = 0; c < n; c++) t.addField(c, b, fs[c]!, fe[c]!, fk[c]! as FieldKind);
+    let obj: Record<string, unknown>;
+    try {
+      obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
+    } catch {
+      obj = {};
+    }
+    for (let c = 0; c < cols.length; c++) {
+      const v = obj[cols[c]!];
+      if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
+      else {
+        const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
+        t.addField(c, text, 0, text.length, FieldKind.Plain);
+      }
+    }
     t.addRecordDone();
   };
 }
