@@ -112,7 +112,7 @@ export class BucketWriter {
     if (kernel) {
       this.#stride = this.#size + SPARE;
       this.#staging = this.#stride * buckets;
-      this.#queueAt = this.#staging + stagingBytes + SPARE;
+      this.#queueAt = Math.ceil((this.#staging + stagingBytes + SPARE) / 64) * 64;
       const fillAt = this.#queueAt + QUEUE * 32;
       this.#fp = fillAt + 8 * buckets;
       const need = this.#fp + 16 + SPARE;
