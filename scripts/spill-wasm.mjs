@@ -10,12 +10,8 @@
 // and its fingerprint hash is added to the writer's sum (the same function as fingerprintAligned
 // in src/core/hash.ts). It stops at the first record whose bucket is full: JavaScript writes that
 // buffer to the spill file and calls again.
-import { writeFileSync } from 'node:fs';
-import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { assemble as assembleText, copy16, fingerprint, get, moduleSource as embed } from './wasm-module.mjs';
-
-const root = join(dirname(fileURLToPath(import.meta.url)), '..');
+import { copy16, fingerprint, get, wasmModule } from './wasm-module.mjs';
 
 /** Stores queue word `w` of the entry at $e as header word `h` of the record at $pos. */
 const header = (h, w) => `(i32.store offset=${4 * h} ${get('pos')} (i32.load offset=${4 * w} ${get('e')}))`;
@@ -66,18 +62,8 @@ export function wat() {
 `;
 }
 
-export async function assemble(text) {
-  return assembleText(text, 'spill.wat');
-}
+const mod = wasmModule({ script: 'scripts/spill-wasm.mjs', wat: 'src/engine/spill.wat', what: "Stage 1's appends to the bucket buffers (see spill.wat)", constName: 'SPILL_WASM_BASE64' });
+export const assemble = mod.assemble;
+export const moduleSource = mod.moduleSource;
 
-export function moduleSource(bytes) {
-  return embed(bytes, { script: 'scripts/spill-wasm.mjs', wat: 'src/engine/spill.wat', what: "Stage 1's appends to the bucket buffers (see spill.wat)", constName: 'SPILL_WASM_BASE64' });
-}
-
-if (process.argv[1] === fileURLToPath(import.meta.url)) {
-  const text = wat();
-  const bytes = await assemble(text);
-  writeFileSync(join(root, 'src', 'engine', 'spill.wat'), text);
-  writeFileSync(join(root, 'src', 'engine', 'spill-wasm.ts'), moduleSource(bytes));
-  console.log(`src/engine/spill.wat, src/engine/spill-wasm.ts: ${bytes.length} bytes of WebAssembly`);
-}
+if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());

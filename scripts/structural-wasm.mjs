@@ -14,12 +14,8 @@
 //   path takes over from the record that holds it;
 // - writes three 64-bit masks a turn: delimiters outside quotes, LFs outside quotes (record
 //   ends), LFs inside quotes (for line numbers).
-import { writeFileSync } from 'node:fs';
-import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { assemble as assembleText, moduleSource as embed } from './wasm-module.mjs';
-
-const root = join(dirname(fileURLToPath(import.meta.url)), '..');
+import { wasmModule } from './wasm-module.mjs';
 
 /** 64-bit mask of the 64 bytes at $p + off equal to the byte splatted in `vec`. */
 function mask(vec, off) {
@@ -93,18 +89,8 @@ ${prefixXor}
 `;
 }
 
-export async function assemble(text) {
-  return assembleText(text, 'structural.wat');
-}
+const mod = wasmModule({ script: 'scripts/structural-wasm.mjs', wat: 'src/io/structural.wat', what: "The structural scan (see structural.wat)", constName: 'STRUCTURAL_WASM_BASE64' });
+export const assemble = mod.assemble;
+export const moduleSource = mod.moduleSource;
 
-export function moduleSource(bytes) {
-  return embed(bytes, { script: 'scripts/structural-wasm.mjs', wat: 'src/io/structural.wat', what: 'The structural scan (see structural.wat)', constName: 'STRUCTURAL_WASM_BASE64' });
-}
-
-if (process.argv[1] === fileURLToPath(import.meta.url)) {
-  const text = wat();
-  const bytes = await assemble(text);
-  writeFileSync(join(root, 'src', 'io', 'structural.wat'), text);
-  writeFileSync(join(root, 'src', 'io', 'structural-wasm.ts'), moduleSource(bytes));
-  console.log(`src/io/structural.wat, src/io/structural-wasm.ts: ${bytes.length} bytes of WebAssembly`);
-}
+if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());

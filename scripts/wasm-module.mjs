@@ -1,6 +1,12 @@
 // Shared by the scripts that write this project's WebAssembly modules (structural-wasm.mjs,
-// gather-wasm.mjs): assembling the text with wabt (a dev dependency from the npm registry) and
-// the TypeScript file that embeds the bytes as base64, so nothing is needed at run time.
+// spill-wasm.mjs, gather-wasm.mjs): assembling the text with wabt (a dev dependency from the npm
+// registry), the TypeScript file that embeds the bytes as base64 (so nothing is needed at run
+// time), and pieces of text the modules share.
+import { writeFileSync } from 'node:fs';
+import { basename, dirname, join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+
+const root = join(dirname(fileURLToPath(import.meta.url)), '..');
 
 /** The module in `text` (WebAssembly text, SIMD allowed), assembled. */
 export async function assemble(text, name = 'module.wat') {
@@ -12,6 +18,26 @@ export async function assemble(text, name = 'module.wat') {
   } finally {
     mod.destroy();
   }
+}
+
+/**
+ * What a module's script exports and does: `assemble(text)`, `moduleSource(bytes)` (both used by
+ * the tests that keep the files in step) and `write(text)`, which writes the .wat file and the
+ * TypeScript file beside it (`src/io/structural.wat` and `src/io/structural-wasm.ts`, say).
+ */
+export function wasmModule({ script, wat, what, constName }) {
+  const ts = wat.replace(/\.wat$/, '-wasm.ts');
+  const api = {
+    assemble: (text) => assemble(text, basename(wat)),
+    moduleSource: (bytes) => moduleSource(bytes, { script, wat, what, constName }),
+    async write(text) {
+      const bytes = await api.assemble(text);
+      writeFileSync(join(root, wat), text);
+      writeFileSync(join(root, ts), api.moduleSource(bytes));
+      console.log(`${wat}, ${ts}: ${bytes.length} bytes of WebAssembly`);
+    },
+  };
+  return api;
 }
 
 /** TypeScript source exporting `bytes` as the base64 constant `constName`. */
