@@ -14,11 +14,16 @@ declare const WebAssembly: {
   Instance: new (module: object) => { exports: Record<string, unknown> };
 };
 
+/** WebAssembly memory is little-endian; the callers read and write it through typed arrays too. */
+const LITTLE_ENDIAN = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1;
+
 /**
  * The exports of a fresh instance of the module, or null where this runtime cannot run it
- * (no WebAssembly, as under --jitless, or no 128-bit SIMD): callers keep a JavaScript path.
+ * (no WebAssembly, as under --jitless, or no 128-bit SIMD) or where typed arrays would see its
+ * memory byte-swapped (a big-endian machine): callers keep a JavaScript path.
  */
 export function instantiate<E>(base64: string): E | null {
+  if (!LITTLE_ENDIAN) return null;
   try {
     const module = new WebAssembly.Module(Buffer.from(base64, 'base64'));
     return new WebAssembly.Instance(module).exports as E;
