@@ -114,6 +114,14 @@ describe('fingerprints', () => {
       const placed = new Uint32Array(words.length + 9);
       new Uint8Array(placed.buffer).set(bytes, 24);
       expect([...fingerprintAligned(placed, 6, len)]).toEqual([...fingerprintBytes(bytes, 0, len)]);
+      // From any offset of a view that itself starts inside its buffer (long records are read
+      // a word at a time through a view of the buffer; the two buffers alternate).
+      const host = new Uint8Array(len + 16);
+      for (let off = 0; off < 4; off++) {
+        host.fill(0xa5).set(bytes, 3 + off);
+        const view = host.subarray(3);
+        expect([...fingerprintBytes(view, off, off + len)]).toEqual([...fingerprintAligned(words, 0, len)]);
+      }
     }
   });
 

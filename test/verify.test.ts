@@ -260,6 +260,29 @@ describe('damage is found and named', () => {
     expect(runCli(['verify', d]).status).toBe(1);
   });
 
+  it('a class the manifest never had: counted where it stands, with the first line it is on', async () => {
+    const d = copyOut(base.out, 'unknown-class');
+    const p0 = base.m.output.parts[0]!;
+    const text = readFileSync(join(d, p0.path), 'utf8');
+    const lines = text.split('\n');
+    // Two plain records (header is line 1) get the class "meltdown" instead of theirs.
+    const [a, b] = plainLines(text).slice(3, 5) as [number, number];
+    const rename = (l: string): string => {
+      const cells = l.split(',');
+      cells[5] = 'meltdown';
+      return cells.join(',');
+    };
+    lines[a] = rename(lines[a]!);
+    lines[b] = rename(lines[b]!);
+    writeFileSync(join(d, p0.path), lines.join('\n'));
+    const r = await verify({ dir: d });
+    const strata = r.mismatches.filter((x) => x.check === 'strata');
+    expect(strata).toContainEqual({ file: p0.path, check: 'strata', item: 'fault="meltdown"', line: a + 1, expected: 0, found: 2 });
+    // The two records left their own classes: those counts are short by what was renamed.
+    const lost = strata.filter((x) => x.item !== 'fault="meltdown"').reduce((n, x) => n + (Number(x.expected) - Number(x.found)), 0);
+    expect(lost).toBe(2);
+  });
+
   it('a record moved from one part to another: both parts fail their counts, the total fingerprint still matches', async () => {
     const d = copyOut(base.out, 'moved');
     const [p0, p1] = [base.m.output.parts[0]!, base.m.output.parts[1]!];

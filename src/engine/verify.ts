@@ -17,7 +17,8 @@ import pLimit from 'p-limit';
 import { maxDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { RowdeckError, ioError } from '../errors.js';
-import type { InputFormat, RecordBatch } from '../io/batch.js';
+import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
+import { ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput } from '../io/input.js';
 import { RecordReader, fieldText } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
@@ -757,6 +758,7 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
   });
   const hasher = new RecordHasher();
   const nameBytes = Buffer.from(plan.foldColumn !== null ? `${JSON.stringify(plan.foldColumn)}:` : '', 'utf8');
+  const fast = plan.strataIndex !== null && plan.stratify.length === 1 && plan.bins[0] === null ? new ByteIdTable() : null;
   try {
     await readAll(Readable.from(hashStream(path, sink)), reader, (b) => {
       const d = b.data;
@@ -781,8 +783,21 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         scan.records++;
         if (fold >= 0) scan.folds[fold]!++;
         if (plan.strataIndex === null) continue;
+        // A plain value of a single class column is looked up by its bytes (as stage 1 does);
+        // anything else, or a value not seen yet, by its canonical key.
+        let st = fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain ? fast.lookup(d, b.fieldStart[i * b.wanted]!, b.fieldEnd[i * b.wanted]!) : -1;
+        if (st >= 0) {
+          scan.strata[st]!++;
+          if (fold >= 0) scan.foldStrata[fold * S + st]!++;
+          continue;
+        }
         const key = stratumKey(plan, b, i, display);
-        const st = plan.strataIndex.get(key) ?? -1;
+        st = plan.strataIndex.get(key) ?? -1;
+        if (st >= 0 && fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
+          const fs = b.fieldStart[i * b.wanted]!;
+          const fe = b.fieldEnd[i * b.wanted]!;
+          if (fe > fs && fe - fs <= 64) fast.insert(d, fs, fe, st);
+        }
         if (st < 0) {
           const label = labelOfKey(plan, key);
           const u = scan.unknown.get(label);
