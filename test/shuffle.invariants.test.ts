@@ -155,8 +155,9 @@ describe('invariant 2: nothing lost, nothing invented', () => {
     const run = shuffle({
       inputs: [input], out, seed: 's', partitions: 2, memory: '4MiB', threads: 1, tempDir: tmp,
       onProgress: (p) => {
-        if (p.stage !== 'gather' || p.done !== 1 || damaged) return;
-        // Flip the last byte of every spill file: it belongs to the last bucket, read last.
+        // As stage 2 begins (before any bucket is read, so the timing of the workers cannot let
+        // the damage come too late), flip the last byte of every spill file.
+        if (p.stage !== 'gather' || p.done !== 0 || damaged) return;
         for (const d of readdirSync(tmp)) {
           for (const f of readdirSync(join(tmp, d)).filter((x) => x.endsWith('.spill'))) {
             const path = join(tmp, d, f);

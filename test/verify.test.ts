@@ -283,6 +283,34 @@ describe('damage is found and named', () => {
     expect(lost).toBe(2);
   });
 
+  it('parts read on worker threads give the same report as parts read here, damaged or not', async () => {
+    const d = copyOut(base.out, 'threads');
+    const ps = base.m.output.parts;
+    // Damage of several kinds in three parts: a flipped byte, a renamed class, a doubled record.
+    const flip = readFileSync(join(d, ps[0]!.path));
+    const at = flip.indexOf(10) + 1;
+    flip[at] = flip[at] === 0x39 ? 0x38 : flip[at]! + 1;
+    writeFileSync(join(d, ps[0]!.path), flip);
+    const t1 = readFileSync(join(d, ps[1]!.path), 'utf8').split('\n');
+    const k = plainLines(t1.join('\n'))[2]!;
+    t1[k] = t1[k]!.split(',').map((c, i) => (i === 5 ? 'meltdown' : c)).join(',');
+    writeFileSync(join(d, ps[1]!.path), t1.join('\n'));
+    const t2 = readFileSync(join(d, ps[2]!.path), 'utf8');
+    writeFileSync(join(d, ps[2]!.path), t2 + t2.split('\n')[plainLines(t2)[0]!] + '\n');
+    for (const folder of [base.out, d]) {
+      const here = await verify({ dir: folder, against: [input], threads: 1 });
+      const workers = await verify({ dir: folder, against: [input], threads: 2 });
+      expect(workers).toEqual(here);
+      expect(here.ok).toBe(folder === base.out);
+    }
+    const cli = runCli(['verify', d, '--threads', '2']);
+    expect(cli.status).toBe(1);
+    expect(cli.stderr).toContain('fault="meltdown"');
+    const bad = runCli(['verify', d, '--threads', 'two']);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr).toContain('Invalid option "threads": expected a whole number, got "two"');
+  });
+
   it('a record moved from one part to another: both parts fail their counts, the total fingerprint still matches', async () => {
     const d = copyOut(base.out, 'moved');
     const [p0, p1] = [base.m.output.parts[0]!, base.m.output.parts[1]!];

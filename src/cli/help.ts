@@ -119,7 +119,7 @@ Example:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--json] [--quiet]
+  rowdeck verify DIR [--against INPUT...] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, and the order-independent
@@ -130,6 +130,8 @@ Options:
   --against INPUT...      the inputs of the run, in the same order (every argument up to the
                           next option); records missing from or extra in the output are listed
                           with their file:line (up to 20 of each, for inputs up to 2 million records)
+  --threads N             worker threads that read parts side by side (default: number of cores,
+                          for outputs of 32 MiB and more; 1 reads them on the main thread)
   --json                  print the report (every check and mismatch) on stdout
   --quiet                 no progress or summary line on stderr (mismatches are still listed)
 

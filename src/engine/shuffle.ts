@@ -460,6 +460,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       pending.set(b, p);
     };
     let next = 0;
+    // Stage 2 begins: the spill files are complete and closed.
+    o.onProgress?.({ stage: 'gather', done: 0, total: buckets, records, elapsedMs: Date.now() - t0 });
     while (next < buckets && next < inFlight) submit(next++);
     for (let b = 0; b < buckets; b++) {
       const r = await pending.get(b)!;

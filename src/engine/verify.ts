@@ -13,6 +13,7 @@ import { createHash } from 'node:crypto';
 import { createReadStream, readFileSync, statSync } from 'node:fs';
 import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
+import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
 import { maxDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
@@ -24,6 +25,8 @@ import { RecordReader, fieldText } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
+import { resolveWorkerFile } from './shuffle.js';
+import { WorkerLanes } from '../workers/lanes.js';
 
 /** Above this many records (input or output), a failed --against check reports counts and fingerprints only. */
 export const DIFF_RECORD_LIMIT = 2_000_000;
@@ -112,6 +115,11 @@ export interface VerifyOptions {
   /** Inputs to compare with the output ('-' reads standard input). */
   against?: string[];
   onProgress?: (e: VerifyProgress) => void;
+  /**
+   * Worker threads that read parts side by side. Default: the number of cores (one thread for
+   * outputs under 32 MiB, where starting workers costs more than it saves); 0 or 1 reads them here.
+   */
+  threads?: number;
 }
 
 /** How to read the parts and inputs, and how to recognise each record's class, from the manifest. */
@@ -148,6 +156,52 @@ interface PartScan {
   unknown: Map<string, { count: number; line: number }>;
   badFold: { count: number; line: number; text: string } | null;
   fingerprint: Fingerprint;
+}
+
+/** Outputs at least this large are read on worker threads by default. */
+const PARALLEL_MIN_BYTES = 32 * 1024 * 1024;
+
+/** One part for a verify worker (the worker has the manifest). */
+export interface VerifyPartTask {
+  path: string;
+  display: string;
+  /** Collect every record's hash (for listing differences). */
+  hashes: boolean;
+}
+
+/** A PartScan as it crosses from a worker: plain data and typed arrays. */
+export interface SerializedPartScan extends Omit<PartScan, 'unknown' | 'fingerprint'> {
+  unknown: [string, { count: number; line: number }][];
+  fingerprint: { hi: number; lo: number; count: number };
+  /** (lo, hi) pairs, or null; `hashesOverflow` when there were too many to keep. */
+  hashes: Uint32Array | null;
+  hashesOverflow: boolean;
+}
+
+/** The worker's side: scans one part with the plan made from the manifest. */
+export async function scanPartTask(m: Manifest, task: VerifyPartTask): Promise<SerializedPartScan> {
+  const hashes = task.hashes ? new HashList() : null;
+  const s = await scanPart(task.path, task.display, createReadPlan(m), hashes);
+  return {
+    ...s,
+    unknown: [...s.unknown],
+    fingerprint: s.fingerprint.toJSON(),
+    hashes: hashes && !hashes.overflow ? hashes.words.slice(0, 2 * hashes.count) : null,
+    hashesOverflow: hashes?.overflow ?? false,
+  };
+}
+
+/** The main thread's side: a worker's scan back as a PartScan, its hashes added to `hashes`. */
+function readPartScan(r: SerializedPartScan, hashes: HashList | null): PartScan {
+  const fingerprint = new Fingerprint();
+  fingerprint.merge(r.fingerprint);
+  if (hashes) {
+    if (r.hashesOverflow) hashes.overflow = true;
+    const w = r.hashes;
+    if (w) for (let i = 0; i < w.length; i += 2) hashes.add(w[i + 1]!, w[i]!);
+  }
+  const { hashes: _h, hashesOverflow: _o, ...rest } = r;
+  return { ...rest, unknown: new Map(r.unknown), fingerprint };
 }
 
 /** 64-bit record hashes, stored as pairs of 32-bit words (lo, hi) so they can be sorted as BigUint64. */
@@ -213,20 +267,30 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
 
   // ---- every part: bytes on disk, then its records ----
   const parts = m.output.parts;
-  const limit = pLimit(2);
   let partsDone = 0;
   let recordsSeen = 0;
-  const scans = await Promise.all(
-    parts.map((p) =>
-      limit(async () => {
-        const s = await scanPart(join(dir, p.path), p.path, plan, outHashes);
-        partsDone++;
-        recordsSeen += s.records;
-        options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
-        return s;
-      }),
-    ),
-  );
+  const partDone = (s: PartScan): PartScan => {
+    partsDone++;
+    recordsSeen += s.records;
+    options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
+    return s;
+  };
+  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
+  let scans: PartScan[];
+  if (threads > 1) {
+    // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first.
+    const lanes = new WorkerLanes<VerifyPartTask, SerializedPartScan, null>(resolveWorkerFile('verify-worker.js'), threads, m);
+    try {
+      scans = await Promise.all(
+        parts.map(async (p) => partDone(readPartScan(await lanes.run({ path: join(dir, p.path), display: p.path, hashes: outHashes !== null }), outHashes))),
+      );
+    } finally {
+      await lanes.destroy();
+    }
+  } else {
+    const limit = pLimit(2);
+    scans = await Promise.all(parts.map((p) => limit(async () => partDone(await scanPart(join(dir, p.path), p.path, plan, outHashes)))));
+  }
 
   const valuesOut = plan.strataIndex === null;
   const allRead = scans.every((s) => s.present && s.readError === null);

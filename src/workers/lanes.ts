@@ -110,19 +110,25 @@ export class WorkerLanes<T, R, F> {
 }
 
 /** The worker side: answers tasks with `handler` and the final request with `finisher`. */
+type Reply<R> = { result: R; transfer?: TransferListItem[] };
+
+/** A handler may answer at once or with a promise (a task that reads files, say). */
 export function serveLane<T, R, F>(
-  handler: (task: T) => { result: R; transfer?: TransferListItem[] },
+  handler: (task: T) => Reply<R> | Promise<Reply<R>>,
   finisher: () => { final: F; transfer?: TransferListItem[] },
 ): void {
   const port = parentPort;
   if (!port) throw new Error('serveLane() must run in a worker thread');
   port.on('message', (m: ToWorker<T>) => {
     if (m.kind === 'task') {
+      const send = ({ result, transfer }: Reply<R>): void => port.postMessage({ kind: 'result', id: m.id, result } satisfies FromWorker<R, F>, transfer ?? []);
+      const fail = (err: unknown): void => port.postMessage({ kind: 'error', id: m.id, error: toWire(err) } satisfies FromWorker<R, F>);
       try {
-        const { result, transfer } = handler(m.task);
-        port.postMessage({ kind: 'result', id: m.id, result } satisfies FromWorker<R, F>, transfer ?? []);
+        const reply = handler(m.task);
+        if (reply instanceof Promise) reply.then(send, fail);
+        else send(reply);
       } catch (err) {
-        port.postMessage({ kind: 'error', id: m.id, error: toWire(err) } satisfies FromWorker<R, F>);
+        fail(err);
       }
     } else {
       try {

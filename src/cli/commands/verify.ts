@@ -4,7 +4,7 @@
  */
 import { RowdeckError } from '../../errors.js';
 import { verify, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
-import { parseCommandArgs } from '../args.js';
+import { intArg, parseCommandArgs } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 
@@ -70,6 +70,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     against: { type: 'string', multiple: true },
     json: { type: 'boolean' },
     quiet: { type: 'boolean', short: 'q' },
+    threads: { type: 'string' },
     help: { type: 'boolean', short: 'h' },
   });
   if (v.help) {
@@ -84,10 +85,11 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   }
   const dir = positionals[0]!;
   const against = v.against as string[] | undefined;
+  const threads = intArg('threads', v.threads);
   const progress = createVerifyProgress(io, !v.quiet);
   let report: VerifyReport;
   try {
-    report = await verify({ dir, ...(against ? { against } : {}), onProgress: (e) => progress.update(e) });
+    report = await verify({ dir, ...(against ? { against } : {}), ...(threads !== undefined ? { threads } : {}), onProgress: (e) => progress.update(e) });
   } finally {
     progress.done();
   }
