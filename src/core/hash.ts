@@ -237,8 +237,13 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
   return fingerprintFinish(h1, h2, end - start, out);
 }
 
+/** Typed arrays read words in the machine's byte order; the hash is defined on little-endian words. */
+const LITTLE_ENDIAN = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1;
+
 /** Fingerprint hash of a record stored word-aligned with zero padding after `len` bytes. */
 export function fingerprintAligned(u32: Uint32Array, word: number, len: number, out: Uint32Array = hashOut): Uint32Array {
+  // A big-endian machine reads the bytes themselves (slower, same value).
+  if (!LITTLE_ENDIAN) return fingerprintBytes(new Uint8Array(u32.buffer, u32.byteOffset + 4 * word, len), 0, len, out);
   let h1 = FINGERPRINT_SECRET[2]! | 0;
   let h2 = FINGERPRINT_SECRET[3]! | 0;
   const stop = word + ((len + 3) >>> 2);
