@@ -7,6 +7,9 @@
  * cheaper than hashing them and probing (stage 1's task: ~140 fewer instructions a record on the
  * benchmark file, see docs/benchmarks.md).
  */
+/** Keys up to this many bytes go through the table; callers look longer values up by their text. */
+export const BYTE_KEY_LIMIT = 64;
+
 export class ByteIdTable {
   #last = new Uint8Array(64);
   #lastLen = -1;

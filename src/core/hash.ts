@@ -8,6 +8,7 @@
  * what makes low-entropy identities (input 0, offsets 0, 41, 87, …) spread uniformly.
  */
 import seedrandom from 'seedrandom';
+import { LITTLE_ENDIAN } from './platform.js';
 
 const C1 = 0xcc9e2d51;
 const C2 = 0x1b873593;
@@ -236,9 +237,6 @@ export function fingerprintBytes(buf: Uint8Array, start: number, end: number, ou
   }
   return fingerprintFinish(h1, h2, end - start, out);
 }
-
-/** Typed arrays read words in the machine's byte order; the hash is defined on little-endian words. */
-const LITTLE_ENDIAN = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1;
 
 /** Fingerprint hash of a record stored word-aligned with zero padding after `len` bytes. */
 export function fingerprintAligned(u32: Uint32Array, word: number, len: number, out: Uint32Array = hashOut): Uint32Array {

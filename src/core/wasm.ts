@@ -3,6 +3,7 @@
  * instantiation of its embedded modules (src/io/structural.ts, src/engine/gather-kernel.ts).
  * Each module is written as text by a script in scripts/, and embedded as base64.
  */
+import { LITTLE_ENDIAN } from './platform.js';
 
 export interface WasmMemory {
   readonly buffer: ArrayBuffer;
@@ -14,8 +15,6 @@ declare const WebAssembly: {
   Instance: new (module: object) => { exports: Record<string, unknown> };
 };
 
-/** WebAssembly memory is little-endian; the callers read and write it through typed arrays too. */
-const LITTLE_ENDIAN = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1;
 
 /**
  * The exports of a fresh instance of the module, or null where this runtime cannot run it

@@ -24,7 +24,7 @@ import { readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.j
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, type SpillPiece } from './spill.js';
-import { ByteIdTable } from '../core/byte-table.js';
+import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
 export const MISSING_KEY = '\uffff';
@@ -196,7 +196,7 @@ export class ScatterTask {
       // Plain field: look its bytes up directly; same key as fieldKey() would build.
       const fs = b.fieldStart[i * b.wanted]!;
       const fe = b.fieldEnd[i * b.wanted]!;
-      if (fe > fs && fe - fs <= 64) {
+      if (fe > fs && fe - fs <= BYTE_KEY_LIMIT) {
         let id = this.#fast.lookup(b.data, fs, fe);
         if (id < 0) {
           const k = b.data.toString('latin1', fs, fe);

@@ -19,7 +19,7 @@ import { maxDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
-import { ByteIdTable } from '../core/byte-table.js';
+import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput } from '../io/input.js';
 import { RecordReader, fieldText } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
@@ -849,25 +849,21 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         if (plan.strataIndex === null) continue;
         // A plain value of a single class column is looked up by its bytes (as stage 1 does);
         // anything else, or a value not seen yet, by its canonical key.
-        let st = fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain ? fast.lookup(d, b.fieldStart[i * b.wanted]!, b.fieldEnd[i * b.wanted]!) : -1;
-        if (st >= 0) {
-          scan.strata[st]!++;
-          if (fold >= 0) scan.foldStrata[fold * S + st]!++;
-          continue;
-        }
-        const key = stratumKey(plan, b, i, display);
-        st = plan.strataIndex.get(key) ?? -1;
-        if (st >= 0 && fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
-          const fs = b.fieldStart[i * b.wanted]!;
-          const fe = b.fieldEnd[i * b.wanted]!;
-          if (fe > fs && fe - fs <= 64) fast.insert(d, fs, fe, st);
-        }
+        const byBytes = fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain;
+        const fs = byBytes ? b.fieldStart[i * b.wanted]! : 0;
+        const fe = byBytes ? b.fieldEnd[i * b.wanted]! : 0;
+        let st = byBytes ? fast.lookup(d, fs, fe) : -1;
         if (st < 0) {
-          const label = labelOfKey(plan, key);
-          const u = scan.unknown.get(label);
-          if (u) u.count++;
-          else scan.unknown.set(label, { count: 1, line: b.line[i]! });
-          continue;
+          const key = stratumKey(plan, b, i, display);
+          st = plan.strataIndex.get(key) ?? -1;
+          if (st < 0) {
+            const label = labelOfKey(plan, key);
+            const u = scan.unknown.get(label);
+            if (u) u.count++;
+            else scan.unknown.set(label, { count: 1, line: b.line[i]! });
+            continue;
+          }
+          if (byBytes && fe > fs && fe - fs <= BYTE_KEY_LIMIT) fast.insert(d, fs, fe, st);
         }
         scan.strata[st]!++;
         if (fold >= 0) scan.foldStrata[fold * S + st]!++;

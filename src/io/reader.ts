@@ -8,13 +8,13 @@ import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRe
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
 import { structuralScanner, type StructuralScanner } from './structural.js';
+import { LITTLE_ENDIAN } from '../core/platform.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
 const QUOTE = 0x22;
 const BACKSLASH = 0x5c;
 /** countDelims reads words as little-endian; elsewhere it falls back to bytes. */
-const LITTLE_ENDIAN = new Uint8Array(new Uint32Array([1]).buffer)[0] === 1;
 
 /**
  * CSV/TSV data of at least this many bytes is scanned by the WebAssembly structural scan
