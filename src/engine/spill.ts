@@ -250,7 +250,7 @@ export class BucketWriter {
     this.#queued = 0;
   }
 
-  /** One record longer than a bucket's buffer, straight to the file (`count`: not counted yet). */
+  /** One record longer than a bucket's buffer, straight to the file. `count`: add it to the bucket's totals (a queued record was added when it was queued). */
   #writeLarge(bucket: number, keyHi: number, keyLo: number, offset: number, input: number, stratum: number, data: Buffer, start: number, end: number, term: number, count = true): void {
     const len = end - start;
     const rec = Buffer.alloc(HEADER_BYTES + ((len + 3) & ~3));
