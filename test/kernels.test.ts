@@ -1,7 +1,7 @@
 /**
  * The WebAssembly kernels of the two stages: stage 1's appends to the bucket buffers
  * (BucketWriter in src/engine/spill.ts) and stage 2's key-order copy (src/engine/gather-kernel.ts).
- * Their sources are in step; on synthetic data they write exactly the bytes the JavaScript paths
+ * Their sources, and the statistics module's (test/stats.kernel.test.ts checks its figures), are in step; on synthetic data they write exactly the bytes the JavaScript paths
  * (or a plain concatenation) give and the fingerprints src/core/hash.ts computes; and whole
  * shuffles give the same bytes and manifests with them as without.
  */
@@ -19,6 +19,9 @@ import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from '
 import * as gatherScript from '../scripts/gather-wasm.mjs';
 // @ts-expect-error: a plain ES module without types
 import * as spillScript from '../scripts/spill-wasm.mjs';
+// @ts-expect-error: a plain ES module without types
+import * as statsScript from '../scripts/stats-wasm.mjs';
+import { STATS_WASM_BASE64 } from '../src/core/stats-wasm.js';
 
 interface ModuleScript {
   wat(): string;
@@ -27,11 +30,12 @@ interface ModuleScript {
 
 describe('sources', () => {
   it.each([
-    ['gather', gatherScript as ModuleScript, GATHER_WASM_BASE64],
-    ['spill', spillScript as ModuleScript, SPILL_WASM_BASE64],
-  ])('src/engine/%s.wat and the embedded module are what its script makes', async (name, script, base64) => {
+    ['engine/gather', gatherScript as ModuleScript, GATHER_WASM_BASE64],
+    ['engine/spill', spillScript as ModuleScript, SPILL_WASM_BASE64],
+    ['core/stats', statsScript as ModuleScript, STATS_WASM_BASE64],
+  ])('src/%s.wat and the embedded module are what its script makes', async (name, script, base64) => {
     const text = script.wat();
-    expect(readFileSync(new URL(`../src/engine/${name}.wat`, import.meta.url), 'utf8')).toBe(text);
+    expect(readFileSync(new URL(`../src/${name}.wat`, import.meta.url), 'utf8')).toBe(text);
     const bytes = await script.assemble(text);
     expect(Buffer.from(base64, 'base64').equals(bytes)).toBe(true);
   });

@@ -712,6 +712,18 @@ export class DecimalSums {
     return { n: this.n, sums };
   }
 
+  /**
+   * Sums gathered elsewhere by the steps of `add` (the statistics module, src/core/stats.wat):
+   * `n` values, and accumulators in this class's layout (DEC_SLOTS per scale), each still exact.
+   */
+  static fromAccumulators(n: number, acc: Float64Array): DecimalSums {
+    const d = new DecimalSums();
+    d.n = n;
+    d.acc.set(acc);
+    d.pending = n;
+    return d;
+  }
+
   static fromJSON(s: SerializedDecimals): DecimalSums {
     const d = new DecimalSums();
     d.n = s.n;

@@ -24,12 +24,19 @@ declare const WebAssembly: {
 export function instantiate<E>(base64: string): E | null {
   if (!LITTLE_ENDIAN) return null;
   try {
-    const module = new WebAssembly.Module(Buffer.from(base64, 'base64'));
+    // One compilation per module and thread: instances share its code, and its optimised tier.
+    let module = compiled.get(base64);
+    if (module === undefined) {
+      module = new WebAssembly.Module(Buffer.from(base64, 'base64'));
+      compiled.set(base64, module);
+    }
     return new WebAssembly.Instance(module).exports as E;
   } catch {
     return null;
   }
 }
+
+const compiled = new Map<string, object>();
 
 /** Grows `memory` to at least `bytes`. False when it cannot grow that far. */
 export function growTo(memory: WasmMemory, bytes: number): boolean {

@@ -1,0 +1,195 @@
+/**
+ * The column statistics' per-value path past the distinct cap, in WebAssembly (src/core/stats.wat,
+ * written by scripts/stats-wasm.mjs). TableStats (src/core/stats.ts) hands it runs of a column's
+ * fields in estimated mode; the module adds each value to the column's accumulator slot, by the
+ * same steps as ColumnState.addEstimated (and addField's unquoting, where no "" or \ escape needs
+ * undoing), and stops at a value it leaves to JavaScript (a field with such an escape, a value
+ * longer than BOUND_CAP bytes, a number needing the general conversion). JavaScript adds that one
+ * to the column's own state and calls again.
+ *
+ * A slot is merged into its column (and emptied) whenever the figures are read, and before its
+ * exact decimal accumulators could lose exactness. ColumnState.merge is exact and does not depend
+ * on order, so the figures equal those of the JavaScript path alone; test/kernels.test.ts compares
+ * the two on values of every kind.
+ *
+ * Memory: constants below 1 KiB; one 8 KiB slot per column; then, for the batch in hand, a copy of
+ * its bytes and of its field arrays (the module cannot see a JavaScript buffer).
+ * `ROWDECK_STATS=js`, or a runtime without WebAssembly, keeps everything in JavaScript.
+ */
+import type { RecordBatch } from '../io/batch.js';
+import { STATS_WASM_BASE64 } from './stats-wasm.js';
+import { growTo, instantiate, type WasmMemory } from './wasm.js';
+
+// Slot layout: scripts/stats-wasm.mjs (SLOT, SLOTS_AT). The kernel tests catch a mismatch.
+const SLOTS_AT = 1024;
+const SLOT_BYTES = 8192;
+const SKETCH = 0;
+const SKETCH_SIZE = 4096;
+const ACC = 4096;
+const ACC_COUNT = 23 * 6;
+const KINDS = 5200;
+const MIN = 5240;
+const MAX = 5248;
+const COUNT = 5256;
+const MISSING = 5264;
+const DEC_N = 5272;
+const BITS = 5280;
+const TEXT = 5284;
+const LO_LEN = 5288;
+const HI_LEN = 5292;
+const LO = 5376;
+const HI = 6400;
+/** Longest value the module adds itself. */
+export const BOUND_CAP = 1024;
+/** Room after copied bytes for the module's reads past a value's end. */
+const SLACK = 16;
+/**
+ * Values a slot takes between merges: its decimal accumulators each gain less than 2^27 a value
+ * and stay exact below 2^53 (see DecimalSums), so 2^24 leaves a wide margin.
+ */
+export const SLOT_VALUES = 1 << 24;
+
+type ColumnFn = (slot: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
+
+/** What a slot gathered (copies), for ColumnState to merge. */
+export interface SlotFigures {
+  count: number;
+  missing: number;
+  kinds: Float64Array;
+  kindBits: number;
+  numMin: number;
+  numMax: number;
+  /** Values in the decimal accumulators, and the accumulators (DecimalSums' layout). */
+  decN: number;
+  acc: Float64Array;
+  lo: Uint8Array | null;
+  hi: Uint8Array | null;
+  sketch: Uint8Array;
+}
+
+export class StatsKernel {
+  readonly #memory: WasmMemory;
+  readonly #column: ColumnFn;
+  readonly #dataAt: number;
+  #u8: Uint8Array;
+  #dv: DataView;
+  #base = 0;
+  #fs = 0;
+  #fe = 0;
+  #fk = 0;
+
+  private constructor(memory: WasmMemory, column: ColumnFn, columns: number) {
+    this.#memory = memory;
+    this.#column = column;
+    this.#dataAt = SLOTS_AT + columns * SLOT_BYTES;
+    growTo(memory, this.#dataAt);
+    this.#u8 = new Uint8Array(memory.buffer);
+    this.#dv = new DataView(memory.buffer);
+    for (let c = 0; c < columns; c++) this.#reset(c);
+  }
+
+  /** A kernel with a slot for each of `columns` columns, or null where the module cannot run here. */
+  static create(columns: number): StatsKernel | null {
+    if (disabled) return null;
+    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn }>(STATS_WASM_BASE64);
+    return exp ? new StatsKernel(exp.memory, exp.column, columns) : null;
+  }
+
+  /**
+   * Copies the batch's bytes and field arrays into the module's memory, for the next runs (a
+   * reader may reuse a batch object, so every addBatch loads again). False when it cannot.
+   */
+  load(batch: RecordBatch): boolean {
+    const n = batch.count;
+    const cells = n * batch.wanted;
+    if (n === 0) return false;
+    const from = batch.start[0]!;
+    const to = Math.max(batch.end[n - 1]!, batch.next[n - 1]!);
+    const dataLen = align16(to - from + SLACK);
+    const fsAt = this.#dataAt + dataLen;
+    const feAt = fsAt + align16(4 * cells);
+    const fkAt = feAt + align16(4 * cells);
+    const need = fkAt + align16(cells + SLACK);
+    if (need > 0x7fff0000 || !growTo(this.#memory, need)) return false;
+    this.#refresh();
+    const u8 = this.#u8;
+    u8.set(batch.data.subarray(from, to), this.#dataAt);
+    u8.fill(0, this.#dataAt + to - from, this.#dataAt + to - from + SLACK);
+    new Uint32Array(u8.buffer, fsAt, cells).set(batch.fieldStart.subarray(0, cells));
+    new Uint32Array(u8.buffer, feAt, cells).set(batch.fieldEnd.subarray(0, cells));
+    u8.set(batch.fieldKind.subarray(0, cells), fkAt);
+    this.#base = this.#dataAt - from;
+    this.#fs = fsAt;
+    this.#fe = feAt;
+    this.#fk = fkAt;
+    return true;
+  }
+
+  /**
+   * Adds field f of records i0..i1 of the loaded batch (W fields a record) to slot `col`, up to
+   * the first one it leaves to JavaScript; returns that record, or i1. `text`: the column's type
+   * is already text, so values need not be classified.
+   */
+  run(col: number, text: boolean, W: number, f: number, i0: number, i1: number): number {
+    const slot = SLOTS_AT + col * SLOT_BYTES;
+    if (text) this.#dv.setInt32(slot + TEXT, 1, true);
+    return this.#column(slot, this.#base, this.#fs, this.#fe, this.#fk, W, f, i0, i1);
+  }
+
+  /** Slot `col`'s figures, and empties it. */
+  take(col: number): SlotFigures {
+    const slot = SLOTS_AT + col * SLOT_BYTES;
+    this.#refresh();
+    const u8 = this.#u8;
+    const d = this.#dv;
+    const f64 = (at: number): number => d.getFloat64(slot + at, true);
+    const bytes = (at: number, lenAt: number): Uint8Array | null => {
+      const len = d.getInt32(slot + lenAt, true);
+      return len < 0 ? null : u8.slice(slot + at, slot + at + len);
+    };
+    const figures: SlotFigures = {
+      count: f64(COUNT),
+      missing: f64(MISSING),
+      kinds: new Float64Array(u8.buffer.slice(slot + KINDS, slot + KINDS + 40)),
+      kindBits: d.getInt32(slot + BITS, true),
+      numMin: f64(MIN),
+      numMax: f64(MAX),
+      decN: f64(DEC_N),
+      acc: new Float64Array(u8.buffer.slice(slot + ACC, slot + ACC + 8 * ACC_COUNT)),
+      lo: bytes(LO, LO_LEN),
+      hi: bytes(HI, HI_LEN),
+      sketch: u8.slice(slot + SKETCH, slot + SKETCH + SKETCH_SIZE),
+    };
+    this.#reset(col);
+    return figures;
+  }
+
+  /** Views made anew after the memory grew (growing detaches the old buffer). */
+  #refresh(): void {
+    if (this.#u8.buffer === this.#memory.buffer) return;
+    this.#u8 = new Uint8Array(this.#memory.buffer);
+    this.#dv = new DataView(this.#memory.buffer);
+  }
+
+  #reset(col: number): void {
+    const slot = SLOTS_AT + col * SLOT_BYTES;
+    this.#refresh();
+    this.#u8.fill(0, slot, slot + SLOT_BYTES);
+    const d = this.#dv;
+    d.setFloat64(slot + MIN, Infinity, true);
+    d.setFloat64(slot + MAX, -Infinity, true);
+    d.setInt32(slot + LO_LEN, -1, true);
+    d.setInt32(slot + HI_LEN, -1, true);
+  }
+}
+
+function align16(n: number): number {
+  return (n + 15) & ~15;
+}
+
+let disabled = process.env.ROWDECK_STATS === 'js';
+
+/** Tests and benchmarks: `false` keeps the statistics in JavaScript (tables created after the call). */
+export function useStatsKernel(on: boolean): void {
+  disabled = !on;
+}
