@@ -250,6 +250,35 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
     expect(a).toEqual(figures(false));
   });
 
+  it('below the cap: keys that differ only in bytes 9-12, keys past 12 bytes, then the cap passed mid-batch', () => {
+    const rng = seedrandom('exact');
+    const keys = ['sensor-0001', 'sensor-0002', 'sensor-00011', 'sensor-00012', 'sensor-000111', 'ab', 'a', '', 'true', '7', '7.0', '"q"'];
+    const late = Array.from({ length: 40 }, (_, i) => `late-${i}`);
+    const values = Array.from({ length: 9000 }, (_, i) => (i > 6000 && rng() < 0.05 ? pick(rng, late) : pick(rng, keys)));
+    const fields = values.map((v) => asField(rng, v));
+    const data = Buffer.concat(fields.flatMap((f) => [f.bytes, Buffer.from('12345678')]));
+    const n = values.length;
+    const fieldStart = new Uint32Array(n);
+    const fieldEnd = new Uint32Array(n);
+    let pos = 0;
+    fields.forEach((f, i) => {
+      fieldStart[i] = pos;
+      fieldEnd[i] = pos + f.bytes.length;
+      pos += f.bytes.length + 8;
+    });
+    const batch: RecordBatch = { data, count: n, start: fieldStart, end: fieldEnd, next: fieldEnd, offset: new Float64Array(n), line: new Float64Array(n), wanted: 1, fieldStart, fieldEnd, fieldKind: Uint8Array.from(fields.map((f) => f.kind)) };
+    for (const cap of [12, 30, 1000]) {
+      const figures = (kernel: boolean): unknown => {
+        useStatsKernel(kernel);
+        const t = new TableStats(['k'], { distinctCap: cap });
+        t.addBatch(batch);
+        t.addBatch(batch);
+        return t.toJSON();
+      };
+      expect(figures(true)).toEqual(figures(false));
+    }
+  });
+
   it('read mid-stream, then more values: the same as one pass in JavaScript', () => {
     const batches = makeBatches('mid', 4000, COLUMNS.length, 500);
     useStatsKernel(true);

@@ -50,6 +50,13 @@ const SLACK = 16;
 export const SLOT_VALUES = 1 << 24;
 
 type ColumnFn = (slot: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
+type ExactFn = (slot: number, table: number, mask: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
+/** Bytes of a key entry in a column's exact table (see exact() in scripts/stats-wasm.mjs). */
+const ENTRY = 24;
+/** Longest value the exact tables hold (its bytes are its three words). */
+export const EXACT_KEY_LIMIT = 12;
+/** The exact tables of all columns together stay below this; past it, exact mode stays in JavaScript. */
+const EXACT_BYTES_LIMIT = 32 << 20;
 
 /** What a slot gathered (copies), for ColumnState to merge. */
 export interface SlotFigures {
@@ -70,6 +77,12 @@ export interface SlotFigures {
 export class StatsKernel {
   readonly #memory: WasmMemory;
   readonly #column: ColumnFn;
+  readonly #exact: ExactFn;
+  /** Start of the exact tables (one per column, #exactBytes each), or 0 when there are none. */
+  readonly #exactAt: number;
+  readonly #exactBytes: number;
+  /** Entries of an exact table, less one (a power of two, at least twice the keys it may hold). */
+  readonly #mask: number;
   readonly #dataAt: number;
   #u8: Uint8Array;
   #dv: DataView;
@@ -78,21 +91,84 @@ export class StatsKernel {
   #fe = 0;
   #fk = 0;
 
-  private constructor(memory: WasmMemory, column: ColumnFn, columns: number) {
+  private constructor(memory: WasmMemory, column: ColumnFn, exact: ExactFn, columns: number, distinctCap: number) {
     this.#memory = memory;
     this.#column = column;
-    this.#dataAt = SLOTS_AT + columns * SLOT_BYTES;
+    this.#exact = exact;
+    let entries = 16;
+    while (entries < 2 * (distinctCap + 1)) entries *= 2;
+    this.#mask = entries - 1;
+    this.#exactBytes = align16(entries * ENTRY + 4 * (distinctCap + 1));
+    const slotsEnd = SLOTS_AT + columns * SLOT_BYTES;
+    this.#exactAt = columns * this.#exactBytes <= EXACT_BYTES_LIMIT ? slotsEnd : 0;
+    this.#dataAt = this.#exactAt === 0 ? slotsEnd : slotsEnd + columns * this.#exactBytes;
     growTo(memory, this.#dataAt);
     this.#u8 = new Uint8Array(memory.buffer);
     this.#dv = new DataView(memory.buffer);
     for (let c = 0; c < columns; c++) this.#reset(c);
   }
 
-  /** A kernel with a slot for each of `columns` columns, or null where the module cannot run here. */
-  static create(columns: number): StatsKernel | null {
+  /**
+   * A kernel with a slot (and, when they fit, an exact table) for each of `columns` columns of a
+   * table with the given distinct cap, or null where the module cannot run here.
+   */
+  static create(columns: number, distinctCap = 1000): StatsKernel | null {
     if (disabled) return null;
-    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn }>(STATS_WASM_BASE64);
-    return exp ? new StatsKernel(exp.memory, exp.column, columns) : null;
+    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn; exact: ExactFn }>(STATS_WASM_BASE64);
+    return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, columns, distinctCap) : null;
+  }
+
+  /** The columns below the cap can be counted here too. */
+  get hasExact(): boolean {
+    return this.#exactAt !== 0;
+  }
+
+  /**
+   * Counts field f of records i0..i1 against column `col`'s registered keys (a column below the
+   * distinct cap), up to the first value that is not one of them; returns that record, or i1.
+   */
+  runExact(col: number, W: number, f: number, i0: number, i1: number): number {
+    const slot = SLOTS_AT + col * SLOT_BYTES;
+    return this.#exact(slot, this.#exactAt + col * this.#exactBytes, this.#mask, this.#base, this.#fs, this.#fe, this.#fk, W, f, i0, i1);
+  }
+
+  /** Adds key `index` of column `col` (its hash, first words and length, at most EXACT_KEY_LIMIT) to the column's table. */
+  register(col: number, index: number, hash: number, w0: number, w1: number, w2: number, len: number): void {
+    this.#refresh();
+    const d = this.#dv;
+    const table = this.#exactAt + col * this.#exactBytes;
+    const mask = this.#mask;
+    let e = hash & mask;
+    while (d.getInt32(table + e * ENTRY + 4, true) !== 0) e = (e + 1) & mask;
+    const at = table + e * ENTRY;
+    d.setInt32(at, hash, true);
+    d.setInt32(at + 4, len + 1, true);
+    d.setInt32(at + 8, w0, true);
+    d.setInt32(at + 12, w1, true);
+    d.setInt32(at + 16, w2, true);
+    d.setInt32(at + 20, index, true);
+  }
+
+  /**
+   * What column `col`'s exact table counted since the last call: `add(index, n)` for each of its
+   * first `keys` keys counted, and the values and missing fields seen; then empties the counts.
+   */
+  takeExact(col: number, keys: number, add: (index: number, n: number) => void): { count: number; missing: number } {
+    this.#refresh();
+    const d = this.#dv;
+    const counts = this.#exactAt + col * this.#exactBytes + (this.#mask + 1) * ENTRY;
+    for (let i = 0; i < keys; i++) {
+      const n = d.getUint32(counts + 4 * i, true);
+      if (n !== 0) {
+        add(i, n);
+        d.setUint32(counts + 4 * i, 0, true);
+      }
+    }
+    const slot = SLOTS_AT + col * SLOT_BYTES;
+    const out = { count: d.getFloat64(slot + COUNT, true), missing: d.getFloat64(slot + MISSING, true) };
+    d.setFloat64(slot + COUNT, 0, true);
+    d.setFloat64(slot + MISSING, 0, true);
+    return out;
   }
 
   /**
@@ -103,8 +179,11 @@ export class StatsKernel {
     const n = batch.count;
     const cells = n * batch.wanted;
     if (n === 0) return false;
-    const from = batch.start[0]!;
-    const to = Math.max(batch.end[n - 1]!, batch.next[n - 1]!);
+    // Every field lies in data[0, the largest field end): the records' own ranges are not relied on.
+    const ends = batch.fieldEnd;
+    let to = 0;
+    for (let k = 0; k < cells; k++) if (ends[k]! > to) to = ends[k]!;
+    const from = 0;
     const dataLen = align16(to - from + SLACK);
     const fsAt = this.#dataAt + dataLen;
     const feAt = fsAt + align16(4 * cells);

@@ -37,7 +37,7 @@ import type { RecordBatch } from '../io/batch.js';
 import { RowdeckError } from '../errors.js';
 import { computeMeanVariance, DecimalSums, ExactMoments } from './exact-sum.js';
 import type { SerializedDecimals, SerializedMoments } from './exact-sum.js';
-import { SLOT_VALUES, StatsKernel, type SlotFigures } from './stats-kernel.js';
+import { EXACT_KEY_LIMIT, SLOT_VALUES, StatsKernel, type SlotFigures } from './stats-kernel.js';
 
 export interface StatsOptions {
   /** Distinct values counted exactly (with their counts) before switching to an estimate. Default 1000. */
@@ -511,6 +511,20 @@ class ValueCounter {
     this.used += len;
     this.table[this.freeSlot] = i + 1;
     if (this.size * 2 > this.table.length) this.growTable();
+  }
+
+  /** Key i's hash, first three words and length, into out[0..5) (for the statistics module's table). */
+  keyWords(i: number, out: Int32Array): void {
+    out[0] = this.keyHash[i]!;
+    out[1] = this.kw0[i]!;
+    out[2] = this.kw1[i]!;
+    out[3] = this.kw2[i]!;
+    out[4] = this.keyLen[i]!;
+  }
+
+  /** Adds n to key i's count (counted elsewhere: the statistics module). */
+  addCount(i: number, n: number): void {
+    this.counts[i] = this.counts[i]! + n;
   }
 
   /** Adds n to the count of a value (merging, deserialising). */
@@ -999,6 +1013,12 @@ function decodeUtf8(b: Uint8Array, len: number): string | null {
   return len < 0 ? null : Buffer.from(b.buffer, b.byteOffset, len).toString('utf8');
 }
 
+/** What a column's statistics-module slot holds (TableStats.#slotMode). */
+const SLOT_ESTIMATED = 0;
+const SLOT_EXACT = 1;
+/** Output of ValueCounter.keyWords. */
+const keyWords = new Int32Array(5);
+
 /** Records per block in TableStats.addBatch. */
 const STATS_BLOCK = 256;
 
@@ -1015,6 +1035,10 @@ export class TableStats {
   #kernel: StatsKernel | null | undefined;
   /** Values given to each column's module slot since it was last merged; -1: nothing there. */
   #inSlot: number[];
+  /** What each column's slot holds: SLOT_EXACT counts of its exact table, or SLOT_ESTIMATED figures. */
+  #slotMode: number[];
+  /** Keys of each column's value table registered in the module's exact table. */
+  #registered: number[];
 
   constructor(columns: string[], opts: StatsOptions = {}) {
     this.columns = columns.slice();
@@ -1025,6 +1049,8 @@ export class TableStats {
     }
     this.cols = columns.map(() => new ColumnState());
     this.#inSlot = columns.map(() => -1);
+    this.#slotMode = columns.map(() => SLOT_ESTIMATED);
+    this.#registered = columns.map(() => 0);
   }
 
   /**
@@ -1104,16 +1130,18 @@ export class TableStats {
     // Blocks of records small enough that their bytes and field ranges stay in cache while
     // each column takes its turn (a whole batch is about 2 MB; measured faster than both
     // whole-batch columns and record by record).
-    // Columns past the distinct cap go to the statistics module, which takes a copy of the batch
-    // when the first one does (undefined: not yet; null: no module).
+    // Columns go to the statistics module (past the distinct cap, or below it where it can hold
+    // their tables), which takes a copy of the batch first (undefined: not yet; null: no module).
     let kernel: StatsKernel | null | undefined;
     for (let i0 = 0; i0 < n; i0 += STATS_BLOCK) {
       const i1 = Math.min(n, i0 + STATS_BLOCK);
       for (let f = 0; f < nc; f++) {
-        if (this.cols[f]!.values === null && kernel !== null) {
+        if (kernel !== null) {
           kernel ??= this.#loadKernel(batch);
           if (kernel !== null) {
-            this.#addColumnByKernel(kernel, f, batch, W, i0, i1);
+            if (this.cols[f]!.values === null) this.#addColumnByKernel(kernel, f, batch, W, i0, i1);
+            else if (kernel.hasExact) this.#addExactByKernel(kernel, f, batch, W, i0, i1);
+            else this.addColumnOfBatch(f, batch, W, i0, i1);
             continue;
           }
         }
@@ -1124,15 +1152,57 @@ export class TableStats {
   }
 
   #loadKernel(batch: RecordBatch): StatsKernel | null {
-    if (this.#kernel === undefined) this.#kernel = StatsKernel.create(this.cols.length);
+    if (this.#kernel === undefined) this.#kernel = StatsKernel.create(this.cols.length, this.distinctCap);
     return this.#kernel !== null && this.#kernel.load(batch) ? this.#kernel : null;
+  }
+
+  /**
+   * addColumnOfBatch for a column below the cap, by the statistics module: values among the keys
+   * registered with it are counted there; the rest (new keys, long values, escapes) here.
+   */
+  #addExactByKernel(kernel: StatsKernel, f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
+    const c = this.cols[f]!;
+    const values = c.values!;
+    this.#register(kernel, f, values);
+    this.#enterSlot(f, SLOT_EXACT, i1 - i0);
+    for (let i = i0; i < i1; ) {
+      const r = kernel.runExact(f, W, f, i, i1);
+      if (r >= i1) break;
+      // A new key may pass the cap and fold the table into estimates: its counts must be there.
+      if (values.size >= this.distinctCap) this.#drain(f);
+      const k = r * W + f;
+      this.addField(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
+      i = r + 1;
+      if (c.values === null) {
+        if (i < i1) this.#addColumnByKernel(kernel, f, batch, W, i, i1);
+        return;
+      }
+      this.#register(kernel, f, values);
+      // Merged above, yet still below the cap: the slot counts the rest from empty.
+      if (this.#inSlot[f]! < 0) this.#enterSlot(f, SLOT_EXACT, i1 - i);
+    }
+  }
+
+  /** Registers the value table's keys added since the last call (those short enough) with the module. */
+  #register(kernel: StatsKernel, f: number, values: ValueCounter): void {
+    for (let i = this.#registered[f]!; i < values.size; i++) {
+      values.keyWords(i, keyWords);
+      if (keyWords[4]! <= EXACT_KEY_LIMIT) kernel.register(f, i, keyWords[0]!, keyWords[1]!, keyWords[2]!, keyWords[3]!, keyWords[4]!);
+    }
+    this.#registered[f] = values.size;
+  }
+
+  /** Marks column f's slot as holding `mode` figures, with `n` more values (merged first when they could overflow it). */
+  #enterSlot(f: number, mode: number, n: number): void {
+    if (this.#inSlot[f]! + n > SLOT_VALUES || (this.#inSlot[f]! >= 0 && this.#slotMode[f] !== mode)) this.#drain(f);
+    this.#slotMode[f] = mode;
+    this.#inSlot[f] = Math.max(this.#inSlot[f]!, 0) + n;
   }
 
   /** addColumnOfBatch for a column in estimated mode, by the statistics module (see stats-kernel.ts). */
   #addColumnByKernel(kernel: StatsKernel, f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
     const c = this.cols[f]!;
-    if (this.#inSlot[f]! + (i1 - i0) > SLOT_VALUES) this.#drain(f);
-    this.#inSlot[f] = Math.max(this.#inSlot[f]!, 0) + (i1 - i0);
+    this.#enterSlot(f, SLOT_ESTIMATED, i1 - i0);
     for (let i = i0; i < i1; ) {
       const r = kernel.run(f, c.text, W, f, i, i1);
       if (r >= i1) break;
@@ -1146,7 +1216,13 @@ export class TableStats {
   /** Merges column f's module slot into its state. */
   #drain(f: number): void {
     if (this.#inSlot[f]! < 0) return;
-    this.cols[f]!.absorb(this.#kernel!.take(f), this.distinctCap);
+    const c = this.cols[f]!;
+    if (this.#slotMode[f] === SLOT_EXACT) {
+      const values = c.values!;
+      const seen = this.#kernel!.takeExact(f, values.size, (i, n) => values.addCount(i, n));
+      c.count += seen.count;
+      c.missing += seen.missing;
+    } else c.absorb(this.#kernel!.take(f), this.distinctCap);
     this.#inSlot[f] = -1;
   }
 

@@ -3,6 +3,10 @@
 ;;   JavaScript, or i1. Field f of record i is at index i * W + f of fs, fe (i32 arrays: start and
 ;;   end, offsets from base) and fk (u8 kinds: 0 plain, 1 CSV quoted, 2 JSON string, 3 missing). Each value is added to the accumulator
 ;;   slot at slot (layout in scripts/stats-wasm.mjs). Reads up to 7 bytes past a value's end.
+;; exact(slot, table, mask, base, fs, fe, fk, W, f, i0, i1) -> likewise, for a column below the
+;;   distinct cap: each value found among the keys at table (mask + 1 entries) adds one to its
+;;   key's count and to the slot's count; a value not found, or longer than 12 bytes, is left to
+;;   JavaScript, which registers the keys it adds.
 (module
   (memory (export "memory") 1)
   (data (i32.const 0) "\00\00\00\00\00\00\f0\3f\00\00\00\00\00\00\24\40\00\00\00\00\00\00\59\40\00\00\00\00\00\40\8f\40\00\00\00\00\00\88\c3\40\00\00\00\00\00\6a\f8\40\00\00\00\00\80\84\2e\41\00\00\00\00\d0\12\63\41\00\00\00\00\84\d7\97\41\00\00\00\00\65\cd\cd\41\00\00\00\20\5f\a0\02\42\00\00\00\e8\76\48\37\42\00\00\00\a2\94\1a\6d\42\00\00\40\e5\9c\30\a2\42\00\00\90\1e\c4\bc\d6\42\00\00\34\26\f5\6b\0c\43\00\80\e0\37\79\c3\41\43\00\a0\d8\85\57\34\76\43\00\c8\4e\67\6d\c1\ab\43\00\3d\91\60\e4\58\e1\43\40\8c\b5\78\1d\af\15\44\50\ef\e2\d6\e4\1a\4b\44\92\d5\4d\06\cf\f0\80\44")
@@ -225,7 +229,7 @@
   (func (export "column") (param $slot i32) (param $base i32) (param $fs i32) (param $fe i32) (param $fk i32)
         (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
-    (local $w0 i32) (local $w1 i32) (local $j i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
     (local $k0 i32) (local $k1 i32) (local $o i32) (local $a f64) (local $b f64) (local $t f64) (local $q f64)
     (local.set $text (i32.load offset=5284 (local.get $slot)))
     (local.set $i (local.get $i0))
@@ -239,7 +243,7 @@
           (local.set $kd (i32.load8_u (i32.add (local.get $fk) (local.get $k))))
           (if (local.get $kd) (then
             ;; stats.ts: addField. A missing field; or a quoted one (CSV, JSON), taken without its
-            ;; quotes when nothing in it needs undoing ("" in CSV,  in JSON), else left to JavaScript.
+            ;; quotes when nothing in it needs undoing ("" in CSV, \ in JSON), else left to JavaScript.
             (if (i32.eq (local.get $kd) (i32.const 3)) (then
               (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
               (br $next)))
@@ -262,6 +266,7 @@
           ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
+          (local.set $w2 (i32.const 0))
           (local.set $j (i32.const 0))
           (loop $word
             (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
@@ -270,6 +275,7 @@
                 (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
             (if (i32.eqz (local.get $j)) (then (local.set $w0 (local.get $w))))
             (if (i32.eq (local.get $j) (i32.const 4)) (then (local.set $w1 (local.get $w))))
+            (if (i32.eq (local.get $j) (i32.const 8)) (then (local.set $w2 (local.get $w))))
             (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
             (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
             (local.set $j (i32.add (local.get $j) (i32.const 4)))
@@ -358,6 +364,85 @@
             (i32.store offset=5292 (local.get $slot) (local.get $len))
             (i32.store offset=5304 (local.get $slot) (local.get $k0))
             (i32.store offset=5308 (local.get $slot) (local.get $k1))))
+        (local.set $i (i32.add (local.get $i) (i32.const 1)))
+        (local.set $k (i32.add (local.get $k) (local.get $W)))
+        (br $value)))
+    (local.get $i1))
+
+  (func (export "exact") (param $slot i32) (param $table i32) (param $mask i32) (param $base i32) (param $fs i32) (param $fe i32)
+        (param $fk i32) (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
+    (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $e i32) (local $at i32)
+    (local.set $i (local.get $i0))
+    (local.set $k (i32.add (i32.mul (local.get $i0) (local.get $W)) (local.get $f)))
+    (block $done
+      (loop $value
+        (br_if $done (i32.ge_u (local.get $i) (local.get $i1)))
+        (block $next
+          (local.set $s (i32.load (i32.add (local.get $fs) (i32.shl (local.get $k) (i32.const 2)))))
+          (local.set $len (i32.sub (i32.load (i32.add (local.get $fe) (i32.shl (local.get $k) (i32.const 2)))) (local.get $s)))
+          (local.set $kd (i32.load8_u (i32.add (local.get $fk) (local.get $k))))
+          (if (local.get $kd) (then
+            ;; stats.ts: addField. A missing field; or a quoted one (CSV, JSON), taken without its
+            ;; quotes when nothing in it needs undoing ("" in CSV, \ in JSON), else left to JavaScript.
+            (if (i32.eq (local.get $kd) (i32.const 3)) (then
+              (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
+              (br $next)))
+            (if (i32.gt_u (local.get $kd) (i32.const 2)) (then (return (local.get $i))))
+            (local.set $s (i32.add (local.get $s) (i32.const 1)))
+            (local.set $len (i32.sub (local.get $len) (i32.const 2)))
+            (local.set $w (select (i32.const 0x22) (i32.const 0x5c) (i32.eq (local.get $kd) (i32.const 1))))
+            (local.set $p (i32.add (local.get $base) (local.get $s)))
+            (local.set $j (i32.const 0))
+            (block $plain (loop $scan
+              (br_if $plain (i32.ge_s (local.get $j) (local.get $len)))
+              (if (i32.eq (i32.load8_u (i32.add (local.get $p) (local.get $j))) (local.get $w)) (then (return (local.get $i))))
+              (local.set $j (i32.add (local.get $j) (i32.const 1)))
+              (br $scan)))))
+          (if (i32.le_s (local.get $len) (i32.const 0)) (then
+            (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
+            (br $next)))
+          (if (i32.gt_u (local.get $len) (i32.const 12)) (then (return (local.get $i))))
+          (local.set $p (i32.add (local.get $base) (local.get $s)))
+          ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
+          (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
+          (local.set $w1 (i32.const 0))
+          (local.set $w2 (i32.const 0))
+          (local.set $j (i32.const 0))
+          (loop $word
+            (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
+            (if (i32.lt_u (i32.sub (local.get $len) (local.get $j)) (i32.const 4)) (then
+              (local.set $w (i32.and (local.get $w)
+                (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
+            (if (i32.eqz (local.get $j)) (then (local.set $w0 (local.get $w))))
+            (if (i32.eq (local.get $j) (i32.const 4)) (then (local.set $w1 (local.get $w))))
+            (if (i32.eq (local.get $j) (i32.const 8)) (then (local.set $w2 (local.get $w))))
+            (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+            (local.set $j (i32.add (local.get $j) (i32.const 4)))
+            (br_if $word (i32.lt_u (local.get $j) (local.get $len))))
+          (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))) (i32.const -2048144789)))
+          (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 13))) (i32.const -1028477387)))
+          (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))))
+          ;; stats.ts: ValueCounter.find, over the keys JavaScript registered (entries of 24 bytes:
+          ;; hash, length + 1, three words, the key's index; counts after the entries).
+          (local.set $e (i32.and (local.get $h) (local.get $mask)))
+          (loop $probe
+            (local.set $at (i32.add (local.get $table) (i32.mul (local.get $e) (i32.const 24))))
+            (local.set $j (i32.load offset=4 (local.get $at)))
+            (if (i32.eqz (local.get $j)) (then (return (local.get $i))))
+            (if (i32.eq (i32.load (local.get $at)) (local.get $h)) (then
+              (if (i32.eq (local.get $j) (i32.add (local.get $len) (i32.const 1))) (then
+                (if (i32.eq (i32.load offset=8 (local.get $at)) (local.get $w0)) (then
+                  (if (i32.eq (i32.load offset=12 (local.get $at)) (local.get $w1)) (then
+                    (if (i32.eq (i32.load offset=16 (local.get $at)) (local.get $w2)) (then
+                      (local.set $at (i32.add (i32.add (local.get $table) (i32.mul (i32.add (local.get $mask) (i32.const 1)) (i32.const 24)))
+                        (i32.shl (i32.load offset=20 (local.get $at)) (i32.const 2))))
+                      (i32.store (local.get $at) (i32.add (i32.load (local.get $at)) (i32.const 1)))
+                      (f64.store offset=5256 (local.get $slot) (f64.add (f64.load offset=5256 (local.get $slot)) (f64.const 1)))
+                      (br $next)))))))))))
+            (local.set $e (i32.and (i32.add (local.get $e) (i32.const 1)) (local.get $mask)))
+            (br $probe)))
         (local.set $i (i32.add (local.get $i) (i32.const 1)))
         (local.set $k (i32.add (local.get $k) (local.get $W)))
         (br $value)))
