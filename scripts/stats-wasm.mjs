@@ -12,8 +12,8 @@
 //   a number's value to the minimum, maximum and exact decimal sums (DecimalSums.add, the same
 //   floating-point operations on the same integers, so the same exact accumulators);
 // - its bytes to the text bounds (updateBounds).
-// It stops, before changing anything, at a value it leaves to JavaScript: a quoted field with ""
-// in it, a JSON string with an escape, a value longer than the bounds' room, and a number that
+// It stops, before changing anything, at a value it leaves to JavaScript: a JSON string with an
+// escape, a value longer than the bounds' room, and a number that
 // needs the general conversion
 // (more than 15 significant digits, or a scale outside 0..22). JavaScript adds that value to the
 // column's own state and calls again from the next one; the two states merge exactly (merge is
@@ -24,7 +24,8 @@ import { get, i32, wasmModule } from './wasm-module.mjs';
 // Memory layout, shared with src/core/stats-kernel.ts (SLOT_* constants there).
 export const POW10_AT = 0; // 23 f64: 10^0..10^22, all exact
 export const DAYS_AT = 192; // 13 bytes: days in month 1..12 (February 29)
-export const SLOTS_AT = 1024;
+export const SCRATCH_AT = 1024; // a CSV value with "" undone (up to SLOT.boundCap bytes, and slack)
+export const SLOTS_AT = 4096;
 export const SLOT = {
   bytes: 8192,
   sketch: 0, // 4096 u8 registers
@@ -115,16 +116,18 @@ function bound(name, op, lenAt, k0At, k1At, bytesAt) {
 }
 
 /**
- * The field at index $k: $s and $len of its value, missing fields counted and skipped (br $next),
- * quotes taken off where nothing inside needs undoing, and a return of $i where JavaScript must
- * read it (stats.ts: addField). Uses $kd, $w, $p, $j.
+ * The field at index $k: its value's bytes at $p, $len of them, as stats.ts: addField reads it:
+ * missing fields counted and skipped (br $next), quotes taken off, a CSV field's "" undone into
+ * the scratch area, and a return of $i where JavaScript must read it (a JSON escape, a value
+ * longer than the bounds' room). Uses $s, $kd, $w, $j, $out.
  */
 function field() {
   const S = SLOT;
   return `(local.set $s (i32.load (i32.add ${get('fs')} (i32.shl ${get('k')} (i32.const 2)))))
           (local.set $len (i32.sub (i32.load (i32.add ${get('fe')} (i32.shl ${get('k')} (i32.const 2)))) ${get('s')}))
           (local.set $kd (i32.load8_u (i32.add ${get('fk')} ${get('k')})))
-          (if ${get('kd')} (then
+          (if ${get('kd')}
+            (then
             ;; stats.ts: addField. A missing field; or a quoted one (CSV, JSON), taken without its
             ;; quotes when nothing in it needs undoing ("" in CSV, \\ in JSON), else left to JavaScript.
             (if (i32.eq ${get('kd')} (i32.const 3)) (then
@@ -133,23 +136,39 @@ function field() {
             (if (i32.gt_u ${get('kd')} (i32.const 2)) (then (return ${get('i')})))
             (local.set $s (i32.add ${get('s')} (i32.const 1)))
             (local.set $len (i32.sub ${get('len')} (i32.const 2)))
+            (if (i32.gt_s ${get('len')} (i32.const ${S.boundCap})) (then (return ${get('i')})))
             (local.set $w (select (i32.const 0x22) (i32.const 0x5c) (i32.eq ${get('kd')} (i32.const 1))))
             (local.set $p (i32.add ${get('base')} ${get('s')}))
             (local.set $j (i32.const 0))
             (block $plain (loop $scan
               (br_if $plain (i32.ge_s ${get('j')} ${get('len')}))
-              (if (i32.eq (i32.load8_u (i32.add ${get('p')} ${get('j')})) ${get('w')}) (then (return ${get('i')})))
+              (if (i32.eq (i32.load8_u (i32.add ${get('p')} ${get('j')})) ${get('w')}) (then
+                ;; A JSON escape is JavaScript's to decode; a CSV "" is undone into the scratch area.
+                (if (i32.eq ${get('kd')} (i32.const 2)) (then (return ${get('i')})))
+                (local.set $out (i32.const ${SCRATCH_AT}))
+                (memory.copy ${get('out')} ${get('p')} ${get('j')})
+                (local.set $out (i32.add ${get('out')} ${get('j')}))
+                (block $undone (loop $undo
+                  (br_if $undone (i32.ge_s ${get('j')} ${get('len')}))
+                  (local.set $w (i32.load8_u (i32.add ${get('p')} ${get('j')})))
+                  (i32.store8 ${get('out')} ${get('w')})
+                  (local.set $out (i32.add ${get('out')} (i32.const 1)))
+                  (local.set $j (i32.add ${get('j')} (select (i32.const 2) (i32.const 1) (i32.eq ${get('w')} (i32.const 0x22)))))
+                  (br $undo)))
+                (local.set $p (i32.const ${SCRATCH_AT}))
+                (local.set $len (i32.sub ${get('out')} ${get('p')}))
+                (br $plain)))
               (local.set $j (i32.add ${get('j')} (i32.const 1)))
-              (br $scan)))))
+              (br $scan))))
+            (else (local.set $p (i32.add ${get('base')} ${get('s')}))))
           (if (i32.le_s ${get('len')} (i32.const 0)) (then
             ${addF(get('slot'), S.missing, f64(1))}
             (br $next)))`;
 }
 
-/** The hash of the $len bytes at $base + $s into $h (stats.ts: hashKey, mixed), its first words into $w0 $w1 $w2. Sets $p. */
+/** The hash of the $len bytes at $p into $h (stats.ts: hashKey, mixed), its first words into $w0 $w1 $w2. */
 function hashWords() {
-  return `(local.set $p (i32.add ${get('base')} ${get('s')}))
-          ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
+  return `;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor ${i32(HASH_SEED)} ${get('len')}))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
@@ -375,7 +394,7 @@ export function wat() {
   (func (export "column") (param $slot i32) (param $base i32) (param $fs i32) (param $fe i32) (param $fk i32)
         (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
-    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $out i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
     (local $k0 i32) (local $k1 i32) (local $o i32) (local $a f64) (local $b f64) (local $t f64) (local $q f64)
     (local.set $text (i32.load offset=${S.text} ${get('slot')}))
     (local.set $i ${get('i0')})
@@ -446,7 +465,7 @@ export function wat() {
   (func (export "exact") (param $slot i32) (param $table i32) (param $mask i32) (param $base i32) (param $fs i32) (param $fe i32)
         (param $fk i32) (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
-    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $e i32) (local $at i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $out i32) (local $kd i32) (local $e i32) (local $at i32)
     (local.set $i ${get('i0')})
     (local.set $k (i32.add (i32.mul ${get('i0')} ${get('W')}) ${get('f')}))
     (block $done

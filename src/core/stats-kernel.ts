@@ -21,7 +21,7 @@ import { STATS_WASM_BASE64 } from './stats-wasm.js';
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
 
 // Slot layout: scripts/stats-wasm.mjs (SLOT, SLOTS_AT). The kernel tests catch a mismatch.
-const SLOTS_AT = 1024;
+const SLOTS_AT = 4096;
 const SLOT_BYTES = 8192;
 const SKETCH = 0;
 const SKETCH_SIZE = 4096;

@@ -229,7 +229,7 @@
   (func (export "column") (param $slot i32) (param $base i32) (param $fs i32) (param $fe i32) (param $fk i32)
         (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
-    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $out i32) (local $kd i32) (local $text i32) (local $bits i32) (local $r i32)
     (local $k0 i32) (local $k1 i32) (local $o i32) (local $a f64) (local $b f64) (local $t f64) (local $q f64)
     (local.set $text (i32.load offset=5284 (local.get $slot)))
     (local.set $i (local.get $i0))
@@ -241,7 +241,8 @@
           (local.set $s (i32.load (i32.add (local.get $fs) (i32.shl (local.get $k) (i32.const 2)))))
           (local.set $len (i32.sub (i32.load (i32.add (local.get $fe) (i32.shl (local.get $k) (i32.const 2)))) (local.get $s)))
           (local.set $kd (i32.load8_u (i32.add (local.get $fk) (local.get $k))))
-          (if (local.get $kd) (then
+          (if (local.get $kd)
+            (then
             ;; stats.ts: addField. A missing field; or a quoted one (CSV, JSON), taken without its
             ;; quotes when nothing in it needs undoing ("" in CSV, \ in JSON), else left to JavaScript.
             (if (i32.eq (local.get $kd) (i32.const 3)) (then
@@ -250,19 +251,35 @@
             (if (i32.gt_u (local.get $kd) (i32.const 2)) (then (return (local.get $i))))
             (local.set $s (i32.add (local.get $s) (i32.const 1)))
             (local.set $len (i32.sub (local.get $len) (i32.const 2)))
+            (if (i32.gt_s (local.get $len) (i32.const 1024)) (then (return (local.get $i))))
             (local.set $w (select (i32.const 0x22) (i32.const 0x5c) (i32.eq (local.get $kd) (i32.const 1))))
             (local.set $p (i32.add (local.get $base) (local.get $s)))
             (local.set $j (i32.const 0))
             (block $plain (loop $scan
               (br_if $plain (i32.ge_s (local.get $j) (local.get $len)))
-              (if (i32.eq (i32.load8_u (i32.add (local.get $p) (local.get $j))) (local.get $w)) (then (return (local.get $i))))
+              (if (i32.eq (i32.load8_u (i32.add (local.get $p) (local.get $j))) (local.get $w)) (then
+                ;; A JSON escape is JavaScript's to decode; a CSV "" is undone into the scratch area.
+                (if (i32.eq (local.get $kd) (i32.const 2)) (then (return (local.get $i))))
+                (local.set $out (i32.const 1024))
+                (memory.copy (local.get $out) (local.get $p) (local.get $j))
+                (local.set $out (i32.add (local.get $out) (local.get $j)))
+                (block $undone (loop $undo
+                  (br_if $undone (i32.ge_s (local.get $j) (local.get $len)))
+                  (local.set $w (i32.load8_u (i32.add (local.get $p) (local.get $j))))
+                  (i32.store8 (local.get $out) (local.get $w))
+                  (local.set $out (i32.add (local.get $out) (i32.const 1)))
+                  (local.set $j (i32.add (local.get $j) (select (i32.const 2) (i32.const 1) (i32.eq (local.get $w) (i32.const 0x22)))))
+                  (br $undo)))
+                (local.set $p (i32.const 1024))
+                (local.set $len (i32.sub (local.get $out) (local.get $p)))
+                (br $plain)))
               (local.set $j (i32.add (local.get $j) (i32.const 1)))
-              (br $scan)))))
+              (br $scan))))
+            (else (local.set $p (i32.add (local.get $base) (local.get $s)))))
           (if (i32.le_s (local.get $len) (i32.const 0)) (then
             (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
             (br $next)))
           (if (i32.gt_u (local.get $len) (i32.const 1024)) (then (return (local.get $i))))
-          (local.set $p (i32.add (local.get $base) (local.get $s)))
           ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
@@ -372,7 +389,7 @@
   (func (export "exact") (param $slot i32) (param $table i32) (param $mask i32) (param $base i32) (param $fs i32) (param $fe i32)
         (param $fk i32) (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
-    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $kd i32) (local $e i32) (local $at i32)
+    (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $out i32) (local $kd i32) (local $e i32) (local $at i32)
     (local.set $i (local.get $i0))
     (local.set $k (i32.add (i32.mul (local.get $i0) (local.get $W)) (local.get $f)))
     (block $done
@@ -382,7 +399,8 @@
           (local.set $s (i32.load (i32.add (local.get $fs) (i32.shl (local.get $k) (i32.const 2)))))
           (local.set $len (i32.sub (i32.load (i32.add (local.get $fe) (i32.shl (local.get $k) (i32.const 2)))) (local.get $s)))
           (local.set $kd (i32.load8_u (i32.add (local.get $fk) (local.get $k))))
-          (if (local.get $kd) (then
+          (if (local.get $kd)
+            (then
             ;; stats.ts: addField. A missing field; or a quoted one (CSV, JSON), taken without its
             ;; quotes when nothing in it needs undoing ("" in CSV, \ in JSON), else left to JavaScript.
             (if (i32.eq (local.get $kd) (i32.const 3)) (then
@@ -391,19 +409,35 @@
             (if (i32.gt_u (local.get $kd) (i32.const 2)) (then (return (local.get $i))))
             (local.set $s (i32.add (local.get $s) (i32.const 1)))
             (local.set $len (i32.sub (local.get $len) (i32.const 2)))
+            (if (i32.gt_s (local.get $len) (i32.const 1024)) (then (return (local.get $i))))
             (local.set $w (select (i32.const 0x22) (i32.const 0x5c) (i32.eq (local.get $kd) (i32.const 1))))
             (local.set $p (i32.add (local.get $base) (local.get $s)))
             (local.set $j (i32.const 0))
             (block $plain (loop $scan
               (br_if $plain (i32.ge_s (local.get $j) (local.get $len)))
-              (if (i32.eq (i32.load8_u (i32.add (local.get $p) (local.get $j))) (local.get $w)) (then (return (local.get $i))))
+              (if (i32.eq (i32.load8_u (i32.add (local.get $p) (local.get $j))) (local.get $w)) (then
+                ;; A JSON escape is JavaScript's to decode; a CSV "" is undone into the scratch area.
+                (if (i32.eq (local.get $kd) (i32.const 2)) (then (return (local.get $i))))
+                (local.set $out (i32.const 1024))
+                (memory.copy (local.get $out) (local.get $p) (local.get $j))
+                (local.set $out (i32.add (local.get $out) (local.get $j)))
+                (block $undone (loop $undo
+                  (br_if $undone (i32.ge_s (local.get $j) (local.get $len)))
+                  (local.set $w (i32.load8_u (i32.add (local.get $p) (local.get $j))))
+                  (i32.store8 (local.get $out) (local.get $w))
+                  (local.set $out (i32.add (local.get $out) (i32.const 1)))
+                  (local.set $j (i32.add (local.get $j) (select (i32.const 2) (i32.const 1) (i32.eq (local.get $w) (i32.const 0x22)))))
+                  (br $undo)))
+                (local.set $p (i32.const 1024))
+                (local.set $len (i32.sub (local.get $out) (local.get $p)))
+                (br $plain)))
               (local.set $j (i32.add (local.get $j) (i32.const 1)))
-              (br $scan)))))
+              (br $scan))))
+            (else (local.set $p (i32.add (local.get $base) (local.get $s)))))
           (if (i32.le_s (local.get $len) (i32.const 0)) (then
             (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
             (br $next)))
           (if (i32.gt_u (local.get $len) (i32.const 12)) (then (return (local.get $i))))
-          (local.set $p (i32.add (local.get $base) (local.get $s)))
           ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
