@@ -12,8 +12,9 @@
  * on order, so the figures equal those of the JavaScript path alone; test/kernels.test.ts compares
  * the two on values of every kind.
  *
- * Memory: constants below 1 KiB; one 8 KiB slot per column; then, for the batch in hand, a copy of
- * its bytes and of its field arrays (the module cannot see a JavaScript buffer).
+ * Memory: constants and a scratch area below 4 KiB; one 8 KiB slot per column; an exact table per
+ * column; then, for the batch in hand, a copy of its field arrays and bytes (the module cannot see
+ * a JavaScript buffer).
  * `ROWDECK_STATS=js`, or a runtime without WebAssembly, keeps everything in JavaScript.
  */
 import type { RecordBatch } from '../io/batch.js';
@@ -50,6 +51,7 @@ const SLACK = 16;
 export const SLOT_VALUES = 1 << 24;
 
 type ColumnFn = (slot: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
+type TopFn = (at: number, n: number) => number;
 type ExactFn = (slot: number, table: number, mask: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
 /** Bytes of a key entry in a column's exact table (see exact() in scripts/stats-wasm.mjs). */
 const ENTRY = 24;
@@ -78,6 +80,7 @@ export class StatsKernel {
   readonly #memory: WasmMemory;
   readonly #column: ColumnFn;
   readonly #exact: ExactFn;
+  readonly #top: TopFn;
   /** Start of the exact tables (one per column, #exactBytes each), or 0 when there are none. */
   readonly #exactAt: number;
   readonly #exactBytes: number;
@@ -91,10 +94,11 @@ export class StatsKernel {
   #fe = 0;
   #fk = 0;
 
-  private constructor(memory: WasmMemory, column: ColumnFn, exact: ExactFn, columns: number, distinctCap: number) {
+  private constructor(memory: WasmMemory, column: ColumnFn, exact: ExactFn, top: TopFn, columns: number, distinctCap: number) {
     this.#memory = memory;
     this.#column = column;
     this.#exact = exact;
+    this.#top = top;
     let entries = 16;
     while (entries < 2 * (distinctCap + 1)) entries *= 2;
     this.#mask = entries - 1;
@@ -114,8 +118,8 @@ export class StatsKernel {
    */
   static create(columns: number, distinctCap = 1000): StatsKernel | null {
     if (disabled) return null;
-    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn; exact: ExactFn }>(STATS_WASM_BASE64);
-    return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, columns, distinctCap) : null;
+    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn; exact: ExactFn; top: TopFn }>(STATS_WASM_BASE64);
+    return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
   }
 
   /** The columns below the cap can be counted here too. */
@@ -179,25 +183,26 @@ export class StatsKernel {
     const n = batch.count;
     const cells = n * batch.wanted;
     if (n === 0) return false;
-    // Every field lies in data[0, the largest field end): the records' own ranges are not relied on.
-    const ends = batch.fieldEnd;
-    let to = 0;
-    for (let k = 0; k < cells; k++) if (ends[k]! > to) to = ends[k]!;
-    const from = 0;
-    const dataLen = align16(to - from + SLACK);
-    const fsAt = this.#dataAt + dataLen;
+    // The field arrays first, then the bytes: every field lies in data[0, the largest field end),
+    // which the module finds (the records' own ranges are not relied on).
+    const fsAt = this.#dataAt;
     const feAt = fsAt + align16(4 * cells);
     const fkAt = feAt + align16(4 * cells);
-    const need = fkAt + align16(cells + SLACK);
-    if (need > 0x7fff0000 || !growTo(this.#memory, need)) return false;
+    const bytesAt = fkAt + align16(cells + SLACK);
+    if (!growTo(this.#memory, bytesAt)) return false;
     this.#refresh();
-    const u8 = this.#u8;
-    u8.set(batch.data.subarray(from, to), this.#dataAt);
-    u8.fill(0, this.#dataAt + to - from, this.#dataAt + to - from + SLACK);
+    let u8 = this.#u8;
     new Uint32Array(u8.buffer, fsAt, cells).set(batch.fieldStart.subarray(0, cells));
     new Uint32Array(u8.buffer, feAt, cells).set(batch.fieldEnd.subarray(0, cells));
     u8.set(batch.fieldKind.subarray(0, cells), fkAt);
-    this.#base = this.#dataAt - from;
+    const to = this.#top(feAt, cells) >>> 0;
+    const need = bytesAt + align16(to + SLACK);
+    if (to > batch.data.length || need > 0x7fff0000 || !growTo(this.#memory, need)) return false;
+    this.#refresh();
+    u8 = this.#u8;
+    u8.set(batch.data.subarray(0, to), bytesAt);
+    u8.fill(0, bytesAt + to, bytesAt + to + SLACK);
+    this.#base = bytesAt;
     this.#fs = fsAt;
     this.#fe = feAt;
     this.#fk = fkAt;

@@ -3,6 +3,7 @@
 ;;   JavaScript, or i1. Field f of record i is at index i * W + f of fs, fe (i32 arrays: start and
 ;;   end, offsets from base) and fk (u8 kinds: 0 plain, 1 CSV quoted, 2 JSON string, 3 missing). Each value is added to the accumulator
 ;;   slot at slot (layout in scripts/stats-wasm.mjs). Reads up to 7 bytes past a value's end.
+;; top(at, n) -> the largest of n u32 values (the end of a batch's bytes).
 ;; exact(slot, table, mask, base, fs, fe, fk, W, f, i0, i1) -> likewise, for a column below the
 ;;   distinct cap: each value found among the keys at table (mask + 1 entries) adds one to its
 ;;   key's count and to the slot's count; a value not found, or longer than 12 bytes, is left to
@@ -385,6 +386,30 @@
         (local.set $k (i32.add (local.get $k) (local.get $W)))
         (br $value)))
     (local.get $i1))
+
+  ;; top(at, n) -> the largest of the n u32 at at (16 bytes past them may be read).
+  (func (export "top") (param $at i32) (param $n i32) (result i32)
+    (local $v v128) (local $end i32) (local $m i32) (local $x i32)
+    (local.set $end (i32.add (local.get $at) (i32.shl (i32.and (local.get $n) (i32.const -4)) (i32.const 2))))
+    (block $wide (loop $four
+      (br_if $wide (i32.ge_u (local.get $at) (local.get $end)))
+      (local.set $v (i32x4.max_u (local.get $v) (v128.load align=4 (local.get $at))))
+      (local.set $at (i32.add (local.get $at) (i32.const 16)))
+      (br $four)))
+    (local.set $end (i32.add (local.get $end) (i32.shl (i32.and (local.get $n) (i32.const 3)) (i32.const 2))))
+    (block $done (loop $one
+      (br_if $done (i32.ge_u (local.get $at) (local.get $end)))
+      (local.set $v (i32x4.max_u (local.get $v) (i32x4.splat (i32.load (local.get $at)))))
+      (local.set $at (i32.add (local.get $at) (i32.const 4)))
+      (br $one)))
+    (local.set $m (i32x4.extract_lane 0 (local.get $v)))
+    (local.set $x (i32x4.extract_lane 1 (local.get $v)))
+    (if (i32.gt_u (local.get $x) (local.get $m)) (then (local.set $m (local.get $x))))
+    (local.set $x (i32x4.extract_lane 2 (local.get $v)))
+    (if (i32.gt_u (local.get $x) (local.get $m)) (then (local.set $m (local.get $x))))
+    (local.set $x (i32x4.extract_lane 3 (local.get $v)))
+    (if (i32.gt_u (local.get $x) (local.get $m)) (then (local.set $m (local.get $x))))
+    (local.get $m))
 
   (func (export "exact") (param $slot i32) (param $table i32) (param $mask i32) (param $base i32) (param $fs i32) (param $fe i32)
         (param $fk i32) (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
