@@ -168,23 +168,33 @@ function field() {
 
 /** The hash of the $len bytes at $p into $h (stats.ts: hashKey, mixed), its first words into $w0 $w1 $w2. */
 function hashWords() {
+  // Words 0..2 in line (most values are 12 bytes or shorter), then a loop for the rest.
+  const word = (n, into) => `(local.set $w (i32.load offset=${4 * n} ${get('p')}))
+            (if (i32.lt_u ${get('len')} (i32.const ${4 * n + 4})) (then
+              (local.set $w (i32.and ${get('w')} (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub ${get('len')} (i32.const ${4 * n})) (i32.const 3))) (i32.const 1))))))
+            (local.set $${into} ${get('w')})
+            ${step}`;
+  const step = `(local.set $h (i32.mul (i32.xor ${get('h')} ${get('w')}) ${i32(HASH_MUL)}))
+            (local.set $h (i32.xor ${get('h')} (i32.shr_u ${get('h')} (i32.const 15))))`;
   return `;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor ${i32(HASH_SEED)} ${get('len')}))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
-          (local.set $j (i32.const 0))
-          (loop $word
-            (local.set $w (i32.load (i32.add ${get('p')} ${get('j')})))
-            (if (i32.lt_u (i32.sub ${get('len')} ${get('j')}) (i32.const 4)) (then
-              (local.set $w (i32.and ${get('w')}
-                (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub ${get('len')} ${get('j')}) (i32.const 3))) (i32.const 1))))))
-            (if (i32.eqz ${get('j')}) (then (local.set $w0 ${get('w')})))
-            (if (i32.eq ${get('j')} (i32.const 4)) (then (local.set $w1 ${get('w')})))
-            (if (i32.eq ${get('j')} (i32.const 8)) (then (local.set $w2 ${get('w')})))
-            (local.set $h (i32.mul (i32.xor ${get('h')} ${get('w')}) ${i32(HASH_MUL)}))
-            (local.set $h (i32.xor ${get('h')} (i32.shr_u ${get('h')} (i32.const 15))))
-            (local.set $j (i32.add ${get('j')} (i32.const 4)))
-            (br_if $word (i32.lt_u ${get('j')} ${get('len')})))
+          ${word(0, 'w0')}
+          (if (i32.gt_u ${get('len')} (i32.const 4)) (then
+            ${word(1, 'w1')}
+            (if (i32.gt_u ${get('len')} (i32.const 8)) (then
+              ${word(2, 'w2')}
+              (local.set $j (i32.const 12))
+              (block $words (loop $word
+                (br_if $words (i32.ge_u ${get('j')} ${get('len')}))
+                (local.set $w (i32.load (i32.add ${get('p')} ${get('j')})))
+                (if (i32.lt_u (i32.sub ${get('len')} ${get('j')}) (i32.const 4)) (then
+                  (local.set $w (i32.and ${get('w')}
+                    (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub ${get('len')} ${get('j')}) (i32.const 3))) (i32.const 1))))))
+                ${step}
+                (local.set $j (i32.add ${get('j')} (i32.const 4)))
+                (br $word)))))))
           ${mix('h')}`;
 }
 

@@ -285,19 +285,37 @@
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
-          (local.set $j (i32.const 0))
-          (loop $word
-            (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
-            (if (i32.lt_u (i32.sub (local.get $len) (local.get $j)) (i32.const 4)) (then
-              (local.set $w (i32.and (local.get $w)
-                (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
-            (if (i32.eqz (local.get $j)) (then (local.set $w0 (local.get $w))))
-            (if (i32.eq (local.get $j) (i32.const 4)) (then (local.set $w1 (local.get $w))))
-            (if (i32.eq (local.get $j) (i32.const 8)) (then (local.set $w2 (local.get $w))))
+          (local.set $w (i32.load offset=0 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 4)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 0)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w0 (local.get $w))
             (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
             (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
-            (local.set $j (i32.add (local.get $j) (i32.const 4)))
-            (br_if $word (i32.lt_u (local.get $j) (local.get $len))))
+          (if (i32.gt_u (local.get $len) (i32.const 4)) (then
+            (local.set $w (i32.load offset=4 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 8)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 4)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w1 (local.get $w))
+            (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+            (if (i32.gt_u (local.get $len) (i32.const 8)) (then
+              (local.set $w (i32.load offset=8 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 12)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 8)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w2 (local.get $w))
+            (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+              (local.set $j (i32.const 12))
+              (block $words (loop $word
+                (br_if $words (i32.ge_u (local.get $j) (local.get $len)))
+                (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
+                (if (i32.lt_u (i32.sub (local.get $len) (local.get $j)) (i32.const 4)) (then
+                  (local.set $w (i32.and (local.get $w)
+                    (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
+                (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+                (local.set $j (i32.add (local.get $j) (i32.const 4)))
+                (br $word)))))))
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))) (i32.const -2048144789)))
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 13))) (i32.const -1028477387)))
           (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))))
@@ -467,19 +485,37 @@
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
-          (local.set $j (i32.const 0))
-          (loop $word
-            (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
-            (if (i32.lt_u (i32.sub (local.get $len) (local.get $j)) (i32.const 4)) (then
-              (local.set $w (i32.and (local.get $w)
-                (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
-            (if (i32.eqz (local.get $j)) (then (local.set $w0 (local.get $w))))
-            (if (i32.eq (local.get $j) (i32.const 4)) (then (local.set $w1 (local.get $w))))
-            (if (i32.eq (local.get $j) (i32.const 8)) (then (local.set $w2 (local.get $w))))
+          (local.set $w (i32.load offset=0 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 4)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 0)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w0 (local.get $w))
             (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
             (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
-            (local.set $j (i32.add (local.get $j) (i32.const 4)))
-            (br_if $word (i32.lt_u (local.get $j) (local.get $len))))
+          (if (i32.gt_u (local.get $len) (i32.const 4)) (then
+            (local.set $w (i32.load offset=4 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 8)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 4)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w1 (local.get $w))
+            (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+            (if (i32.gt_u (local.get $len) (i32.const 8)) (then
+              (local.set $w (i32.load offset=8 (local.get $p)))
+            (if (i32.lt_u (local.get $len) (i32.const 12)) (then
+              (local.set $w (i32.and (local.get $w) (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (i32.const 8)) (i32.const 3))) (i32.const 1))))))
+            (local.set $w2 (local.get $w))
+            (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+              (local.set $j (i32.const 12))
+              (block $words (loop $word
+                (br_if $words (i32.ge_u (local.get $j) (local.get $len)))
+                (local.set $w (i32.load (i32.add (local.get $p) (local.get $j))))
+                (if (i32.lt_u (i32.sub (local.get $len) (local.get $j)) (i32.const 4)) (then
+                  (local.set $w (i32.and (local.get $w)
+                    (i32.sub (i32.shl (i32.const 1) (i32.shl (i32.sub (local.get $len) (local.get $j)) (i32.const 3))) (i32.const 1))))))
+                (local.set $h (i32.mul (i32.xor (local.get $h) (local.get $w)) (i32.const -1640531535)))
+            (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 15))))
+                (local.set $j (i32.add (local.get $j) (i32.const 4)))
+                (br $word)))))))
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))) (i32.const -2048144789)))
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 13))) (i32.const -1028477387)))
           (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))))
