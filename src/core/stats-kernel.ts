@@ -81,12 +81,14 @@ export class StatsKernel {
   readonly #column: ColumnFn;
   readonly #exact: ExactFn;
   readonly #top: TopFn;
-  /** Start of the exact tables (one per column, #exactBytes each), or 0 when there are none. */
-  readonly #exactAt: number;
-  readonly #exactBytes: number;
-  /** Entries of an exact table, less one (a power of two, at least twice the keys it may hold). */
-  readonly #mask: number;
-  readonly #dataAt: number;
+  /** Each column's exact table (0: none) and its entries (a power of two); counts follow the entries. */
+  readonly #tableAt: number[];
+  readonly #tableEntries: number[];
+  /** Entries enough for the most keys a table below the cap holds (at most half full). */
+  readonly #maxEntries: number;
+  /** End of the tables (made as columns need them, after the slots); the batch's copy comes after. */
+  #tablesEnd: number;
+  #dataAt: number;
   #u8: Uint8Array;
   #dv: DataView;
   #base = 0;
@@ -99,13 +101,13 @@ export class StatsKernel {
     this.#column = column;
     this.#exact = exact;
     this.#top = top;
-    let entries = 16;
+    let entries = 64;
     while (entries < 2 * (distinctCap + 1)) entries *= 2;
-    this.#mask = entries - 1;
-    this.#exactBytes = align16(entries * ENTRY + 4 * (distinctCap + 1));
-    const slotsEnd = SLOTS_AT + columns * SLOT_BYTES;
-    this.#exactAt = columns * this.#exactBytes <= EXACT_BYTES_LIMIT ? slotsEnd : 0;
-    this.#dataAt = this.#exactAt === 0 ? slotsEnd : slotsEnd + columns * this.#exactBytes;
+    this.#maxEntries = entries;
+    this.#tableAt = new Array<number>(columns).fill(0);
+    this.#tableEntries = new Array<number>(columns).fill(0);
+    this.#tablesEnd = SLOTS_AT + columns * SLOT_BYTES;
+    this.#dataAt = this.#tablesEnd;
     growTo(memory, this.#dataAt);
     this.#u8 = new Uint8Array(memory.buffer);
     this.#dv = new DataView(memory.buffer);
@@ -122,26 +124,48 @@ export class StatsKernel {
     return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
   }
 
-  /** The columns below the cap can be counted here too. */
-  get hasExact(): boolean {
-    return this.#exactAt !== 0;
+  /** Column `col` has a table with room for `keys` keys. */
+  hasRoom(col: number, keys: number): boolean {
+    return this.#tableAt[col] !== 0 && 2 * keys <= this.#tableEntries[col]!;
+  }
+
+  /**
+   * Gives column `col` a new, empty table with room for `keys` keys and as many again (call between
+   * batches: it is placed where the batch's copy would go). False when the tables would pass
+   * EXACT_BYTES_LIMIT; the column is then counted in JavaScript.
+   */
+  newTable(col: number, keys: number): boolean {
+    let entries = 64;
+    while (entries < 4 * (keys + 1) && entries < this.#maxEntries) entries *= 2;
+    const bytes = entries * ENTRY + 2 * entries;
+    const at = this.#tablesEnd;
+    const slotsEnd = SLOTS_AT + this.#tableAt.length * SLOT_BYTES;
+    if (at + bytes - slotsEnd > EXACT_BYTES_LIMIT || !growTo(this.#memory, at + bytes)) return false;
+    this.#refresh();
+    this.#u8.fill(0, at, at + bytes);
+    this.#tableAt[col] = at;
+    this.#tableEntries[col] = entries;
+    this.#tablesEnd = at + align16(bytes);
+    this.#dataAt = this.#tablesEnd;
+    return true;
   }
 
   /**
    * Counts field f of records i0..i1 against column `col`'s registered keys (a column below the
-   * distinct cap), up to the first value that is not one of them; returns that record, or i1.
+   * distinct cap, with a table), up to the first value that is not one of them; returns that
+   * record, or i1.
    */
   runExact(col: number, W: number, f: number, i0: number, i1: number): number {
     const slot = SLOTS_AT + col * SLOT_BYTES;
-    return this.#exact(slot, this.#exactAt + col * this.#exactBytes, this.#mask, this.#base, this.#fs, this.#fe, this.#fk, W, f, i0, i1);
+    return this.#exact(slot, this.#tableAt[col]!, this.#tableEntries[col]! - 1, this.#base, this.#fs, this.#fe, this.#fk, W, f, i0, i1);
   }
 
-  /** Adds key `index` of column `col` (its hash, first words and length, at most EXACT_KEY_LIMIT) to the column's table. */
+  /** Adds key `index` of column `col` (its hash, first words and length, at most EXACT_KEY_LIMIT) to the column's table (hasRoom for index + 1 keys). */
   register(col: number, index: number, hash: number, w0: number, w1: number, w2: number, len: number): void {
     this.#refresh();
     const d = this.#dv;
-    const table = this.#exactAt + col * this.#exactBytes;
-    const mask = this.#mask;
+    const table = this.#tableAt[col]!;
+    const mask = this.#tableEntries[col]! - 1;
     let e = hash & mask;
     while (d.getInt32(table + e * ENTRY + 4, true) !== 0) e = (e + 1) & mask;
     const at = table + e * ENTRY;
@@ -160,11 +184,12 @@ export class StatsKernel {
   takeExact(col: number, keys: number, add: (index: number, n: number) => void): { count: number; missing: number } {
     this.#refresh();
     const d = this.#dv;
-    const counts = this.#exactAt + col * this.#exactBytes + (this.#mask + 1) * ENTRY;
-    for (let i = 0; i < keys; i++) {
-      const n = d.getUint32(counts + 4 * i, true);
-      if (n !== 0) {
-        add(i, n);
+    const counts = this.#tableAt[col]! + this.#tableEntries[col]! * ENTRY;
+    const n = this.#tableAt[col] === 0 ? 0 : Math.min(keys, this.#tableEntries[col]! / 2);
+    for (let i = 0; i < n; i++) {
+      const c = d.getUint32(counts + 4 * i, true);
+      if (c !== 0) {
+        add(i, c);
         d.setUint32(counts + 4 * i, 0, true);
       }
     }

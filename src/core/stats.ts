@@ -1040,6 +1040,8 @@ export class TableStats {
   #slotMode: number[];
   /** Keys of each column's value table registered in the module's exact table. */
   #registered: number[];
+  /** Columns below the cap that the module counts in this batch (see #prepareTables). */
+  #tabled: boolean[];
 
   constructor(columns: string[], opts: StatsOptions = {}) {
     this.columns = columns.slice();
@@ -1052,6 +1054,7 @@ export class TableStats {
     this.#inSlot = columns.map(() => -1);
     this.#slotMode = columns.map(() => SLOT_ESTIMATED);
     this.#registered = columns.map(() => 0);
+    this.#tabled = columns.map(() => false);
   }
 
   /**
@@ -1141,7 +1144,7 @@ export class TableStats {
       for (let f = 0; f < nc; f++) {
         if (kernel !== null) {
           if (this.cols[f]!.values === null) this.#addColumnByKernel(kernel, f, batch, W, i0, i1);
-          else if (kernel.hasExact) this.#addExactByKernel(kernel, f, batch, W, i0, i1);
+          else if (this.#tabled[f]) this.#addExactByKernel(kernel, f, batch, W, i0, i1);
           else this.addColumnOfBatch(f, batch, W, i0, i1);
         } else this.addColumnOfBatch(f, batch, W, i0, i1);
       }
@@ -1151,7 +1154,32 @@ export class TableStats {
 
   #loadKernel(batch: RecordBatch): StatsKernel | null {
     if (this.#kernel === undefined) this.#kernel = StatsKernel.create(this.cols.length, this.distinctCap);
-    return this.#kernel !== null && this.#kernel.load(batch) ? this.#kernel : null;
+    const kernel = this.#kernel;
+    if (kernel === null) return null;
+    this.#prepareTables(kernel);
+    return kernel.load(batch) ? kernel : null;
+  }
+
+  /**
+   * Before a batch: which columns below the cap the module counts, and their tables. A column
+   * qualifies once its values repeat (four times on average, over at least 1,024), so the many
+   * columns that pass the cap early never get a table; a table is made again, larger, when its
+   * keys outgrow it (its counts merged first).
+   */
+  #prepareTables(kernel: StatsKernel): void {
+    for (let f = 0; f < this.cols.length; f++) {
+      const c = this.cols[f]!;
+      const values = c.values;
+      this.#tabled[f] = false;
+      if (values === null || c.count < 1024 || c.count < 4 * values.size) continue;
+      if (!kernel.hasRoom(f, values.size)) {
+        this.#drain(f);
+        if (!kernel.newTable(f, values.size)) continue;
+        this.#registered[f] = 0;
+      }
+      this.#register(kernel, f, values);
+      this.#tabled[f] = true;
+    }
   }
 
   /**
@@ -1181,13 +1209,17 @@ export class TableStats {
     }
   }
 
-  /** Registers the value table's keys added since the last call (those short enough) with the module. */
+  /**
+   * Registers the value table's keys added since the last call (those short enough) with the
+   * module, while its table has room; the rest wait for the next batch's larger table.
+   */
   #register(kernel: StatsKernel, f: number, values: ValueCounter): void {
-    for (let i = this.#registered[f]!; i < values.size; i++) {
+    let i = this.#registered[f]!;
+    for (; i < values.size && kernel.hasRoom(f, i + 1); i++) {
       values.keyWords(i, keyWords);
       if (keyWords[4]! <= EXACT_KEY_LIMIT) kernel.register(f, i, keyWords[0]!, keyWords[1]!, keyWords[2]!, keyWords[3]!, keyWords[4]!);
     }
-    this.#registered[f] = values.size;
+    this.#registered[f] = i;
   }
 
   /** Marks column f's slot as holding `mode` figures, with `n` more values (merged first when they could overflow it). */
