@@ -1032,7 +1032,7 @@ export class TableStats {
   /** Records seen (addRecordDone calls, plus merged records). */
   records = 0;
   private readonly cols: ColumnState[];
-  /** The statistics module (made when a column first passes the cap), null where it cannot run. */
+  /** The statistics module (made at the first batch), null where it cannot run. */
   #kernel: StatsKernel | null | undefined;
   /** Values given to each column's module slot since it was last merged; -1: nothing there. */
   #inSlot: number[];
@@ -1062,6 +1062,13 @@ export class TableStats {
    * CsvQuoted with its outer quotes, for JsonString as a JSON string token.
    */
   addField(col: number, data: Buffer, start: number, end: number, kind: FieldKind): void {
+    // Whatever the module holds for this column first: this value may pass the cap.
+    if (this.#inSlot[col] !== undefined && this.#inSlot[col]! >= 0) this.#drain(col);
+    this.#addFieldHere(col, data, start, end, kind);
+  }
+
+  /** addField without the module: its escapes, and the per-record path. */
+  #addFieldHere(col: number, data: Buffer, start: number, end: number, kind: FieldKind): void {
     const c = this.cols[col];
     if (c === undefined) throw new RowdeckError('ERR_INTERNAL', `statistics: column ${col} out of range (${this.cols.length} columns).`);
     let b: Buffer = data;
@@ -1133,10 +1140,9 @@ export class TableStats {
     const nc = Math.min(W, this.cols.length);
     // Blocks of records small enough that their bytes and field ranges stay in cache while
     // each column takes its turn (a whole batch is about 2 MB; measured faster than both
-    // whole-batch columns and record by record).
-    // Columns go to the statistics module (past the distinct cap, or below it where it can hold
-    // their tables), which takes a copy of the batch first; its calls cost more than a JavaScript
-    // one, so it takes larger blocks.
+    // whole-batch columns and record by record). Columns go to the statistics module where it
+    // runs (past the distinct cap, or below it with a table there), which takes a copy of the
+    // batch first; a call into it costs more than a JavaScript one, so its blocks are larger.
     const kernel = n > 0 ? this.#loadKernel(batch) : null;
     const block = kernel === null ? STATS_BLOCK : KERNEL_BLOCK;
     for (let i0 = 0; i0 < n; i0 += block) {
@@ -1197,7 +1203,7 @@ export class TableStats {
       // A new key may pass the cap and fold the table into estimates: its counts must be there.
       if (values.size >= this.distinctCap) this.#drain(f);
       const k = r * W + f;
-      this.addField(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
+      this.#addFieldHere(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
       i = r + 1;
       if (c.values === null) {
         if (i < i1) this.#addColumnByKernel(kernel, f, batch, W, i, i1);
@@ -1238,7 +1244,7 @@ export class TableStats {
       if (r >= i1) break;
       // A field the module leaves to this thread.
       const k = r * W + f;
-      this.addField(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
+      this.#addFieldHere(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
       i = r + 1;
     }
   }
@@ -1274,7 +1280,7 @@ export class TableStats {
       if (fk[k] === FieldKind.Plain) {
         if (s === e) c.missing++;
         else c.addValue(data, s, e, cap);
-      } else this.addField(f, data, s, e, fk[k]! as FieldKind);
+      } else this.#addFieldHere(f, data, s, e, fk[k]! as FieldKind);
     }
   }
 
