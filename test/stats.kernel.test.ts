@@ -303,6 +303,23 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
     expect(feed(true)).toEqual(feed(false));
   });
 
+  it('a column the module counted for a batch, then not (its values stopped repeating), passing the cap: the same figures', () => {
+    const rng = seedrandom('tabled, then not');
+    const few = (): string => `k${Math.floor(rng() * 20)}`;
+    const batches = [
+      columnBatch(rng, Array.from({ length: 1100 }, few)),
+      columnBatch(rng, Array.from({ length: 3000 }, (_, i) => (i % 15 === 0 || i > 2600 ? `b-${i}` : few()))),
+      columnBatch(rng, Array.from({ length: 1500 }, (_, i) => `c-${i}`)),
+    ];
+    const feed = (kernel: boolean): unknown => {
+      useStatsKernel(kernel);
+      const t = new TableStats(['k'], { distinctCap: 1000 });
+      for (const b of batches) t.addBatch(b);
+      return t.toJSON();
+    };
+    expect(feed(true)).toEqual(feed(false));
+  });
+
   it('read mid-stream, then more values: the same as one pass in JavaScript', () => {
     const batches = makeBatches('mid', 4000, COLUMNS.length, 500);
     useStatsKernel(true);

@@ -1254,7 +1254,9 @@ export class TableStats {
     if (this.#inSlot[f]! < 0) return;
     const c = this.cols[f]!;
     if (this.#slotMode[f] === SLOT_EXACT) {
-      const values = c.values!;
+      const values = c.values;
+      // Every path that can pass the cap merges these counts first.
+      if (values === null) throw new RowdeckError('ERR_INTERNAL', `statistics: column ${this.columns[f]} passed the distinct cap with counts still in the module.`);
       const seen = this.#kernel!.takeExact(f, values.size, (i, n) => values.addCount(i, n));
       c.count += seen.count;
       c.missing += seen.missing;
@@ -1268,6 +1270,8 @@ export class TableStats {
   }
 
   private addColumnOfBatch(f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
+    // Counts the module holds for this column below the cap first: a value here may pass it.
+    if (this.#inSlot[f]! >= 0 && this.#slotMode[f] === SLOT_EXACT) this.#drain(f);
     const c = this.cols[f]!;
     const cap = this.distinctCap;
     const data = batch.data;
