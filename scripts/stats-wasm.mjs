@@ -93,6 +93,23 @@ function orderKey(w) {
 }
 
 /**
+ * classifyNumber's loop over a run of digits (label $name): each one into the integer
+ * $digitsValue, the significant ones counted in $sig, all of them in $count. `pad` indents the
+ * lines after the first.
+ */
+function digitRun(name, count, pad) {
+  return `(block $end (loop $${name}
+${pad}  (br_if $end (i32.ge_u ${get('i')} ${get('e')}))
+${pad}  (local.set $c (i32.sub (i32.load8_u ${get('i')}) (i32.const 48)))
+${pad}  (br_if $end (i32.ge_u ${get('c')} (i32.const 10)))
+${pad}  (local.set $digitsValue (i64.add (i64.mul ${get('digitsValue')} (i64.const 10)) (i64.extend_i32_u ${get('c')})))
+${pad}  (local.set $sig (i32.add ${get('sig')} (i64.ne ${get('digitsValue')} (i64.const 0))))
+${pad}  (local.set $${count} (i32.add ${get(count)} (i32.const 1)))
+${pad}  (local.set $i (i32.add ${get('i')} (i32.const 1)))
+${pad}  (br $${name})))`;
+}
+
+/**
  * stats.ts: one half of updateBounds, then setLo or setHi: the value at $p replaces the bound when
  * there is none, or when it orders before it (lt_s; after it: gt_s), decided by the first 8 bytes'
  * keys and only when they tie by the bytes. (A chain of branches: i32.and and i32.or evaluate both
@@ -296,28 +313,12 @@ export function wat() {
     (if (i32.or (i32.eq ${get('c')} (i32.const 0x2d)) (i32.eq ${get('c')} (i32.const 0x2b))) (then
       (local.set $neg (i32.eq ${get('c')} (i32.const 0x2d)))
       (local.set $i (i32.add ${get('i')} (i32.const 1)))))
-    (block $end (loop $int
-      (br_if $end (i32.ge_u ${get('i')} ${get('e')}))
-      (local.set $c (i32.sub (i32.load8_u ${get('i')}) (i32.const 48)))
-      (br_if $end (i32.ge_u ${get('c')} (i32.const 10)))
-      (local.set $digitsValue (i64.add (i64.mul ${get('digitsValue')} (i64.const 10)) (i64.extend_i32_u ${get('c')})))
-      (local.set $sig (i32.add ${get('sig')} (i64.ne ${get('digitsValue')} (i64.const 0))))
-      (local.set $digits (i32.add ${get('digits')} (i32.const 1)))
-      (local.set $i (i32.add ${get('i')} (i32.const 1)))
-      (br $int)))
+    ${digitRun('int', 'digits', '    ')}
     (if (i32.lt_u ${get('i')} ${get('e')}) (then
       (if (i32.eq (i32.load8_u ${get('i')}) (i32.const 0x2e)) (then
         (local.set $dot (i32.const 1))
         (local.set $i (i32.add ${get('i')} (i32.const 1)))
-        (block $end (loop $fraction
-          (br_if $end (i32.ge_u ${get('i')} ${get('e')}))
-          (local.set $c (i32.sub (i32.load8_u ${get('i')}) (i32.const 48)))
-          (br_if $end (i32.ge_u ${get('c')} (i32.const 10)))
-          (local.set $digitsValue (i64.add (i64.mul ${get('digitsValue')} (i64.const 10)) (i64.extend_i32_u ${get('c')})))
-          (local.set $sig (i32.add ${get('sig')} (i64.ne ${get('digitsValue')} (i64.const 0))))
-          (local.set $frac (i32.add ${get('frac')} (i32.const 1)))
-          (local.set $i (i32.add ${get('i')} (i32.const 1)))
-          (br $fraction)))
+        ${digitRun('fraction', 'frac', '        ')}
         (local.set $digits (i32.add ${get('digits')} ${get('frac')}))))))
     (if (i32.eqz ${get('digits')}) (then (return (i32.const ${K_TEXT}))))
     (if (i32.lt_u ${get('i')} ${get('e')}) (then
