@@ -1,23 +1,25 @@
 #!/usr/bin/env node
-// Writes src/core/stats.wat (the WebAssembly text of the column statistics' per-value path past
-// the distinct cap) and src/core/stats-wasm.ts (the same module assembled, as base64), using wabt
-// from the npm registry. Run after changing this file: node scripts/stats-wasm.mjs
+// Writes src/core/stats.wat (the WebAssembly text of the column statistics' per-value work) and
+// src/core/stats-wasm.ts (the same module assembled, as base64), using wabt from the npm registry.
+// Run after changing this file: node scripts/stats-wasm.mjs
 // test/kernels.test.ts checks that both files are what this script makes.
 //
 // What the module does, for a run of one column's fields of a record batch (src/core/stats-kernel.ts
-// lays out its memory): for each plain, non-empty value it adds, to the column's accumulator slot,
-// what ColumnState.addEstimated in src/core/stats.ts adds in estimated mode, by the same steps:
-// - the value's hash (hashKey) to the distinct-count sketch (updateSketch);
-// - its kind (classifyValue: ISO date, boolean, decimal number, or text) to the kind counts, and
-//   a number's value to the minimum, maximum and exact decimal sums (DecimalSums.add, the same
-//   floating-point operations on the same integers, so the same exact accumulators);
-// - its bytes to the text bounds (updateBounds).
-// It stops, before changing anything, at a value it leaves to JavaScript: a JSON string with an
-// escape, a value longer than the bounds' room, and a number that
-// needs the general conversion
-// (more than 15 significant digits, or a scale outside 0..22). JavaScript adds that value to the
-// column's own state and calls again from the next one; the two states merge exactly (merge is
-// order-independent), so the figures are those of the JavaScript path alone.
+// lays out its memory), each field read as addField reads it (quotes off, a CSV "" undone):
+// - column(): for a column past the distinct cap, adds each value to the column's accumulator slot
+//   by the steps of ColumnState.addEstimated in src/core/stats.ts:
+//   - the value's hash (hashKey) to the distinct-count sketch (updateSketch);
+//   - its kind (classifyValue: ISO date, boolean, decimal number, or text) to the kind counts, and
+//     a number's value to the minimum, maximum and exact decimal sums (DecimalSums.add, the same
+//     floating-point operations on the same integers, so the same exact accumulators);
+//   - its bytes to the text bounds (updateBounds).
+// - exact(): for a column below the cap, counts each value against the keys JavaScript registered
+//   (ValueCounter.find's comparison: hash, length and three words, for keys of up to 12 bytes).
+// Each stops, before changing anything, at a value it leaves to JavaScript: a JSON string with an
+// escape, a value longer than the bounds' room, a number that needs the general conversion (more
+// than 15 significant digits, or a scale outside 0..22), a key not registered. JavaScript adds that
+// value to the column's own state and calls again from the next one; the two states merge exactly
+// (merge is order-independent), so the figures are those of the JavaScript path alone.
 import { fileURLToPath } from 'node:url';
 import { get, i32, wasmModule } from './wasm-module.mjs';
 

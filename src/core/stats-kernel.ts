@@ -1,21 +1,24 @@
 /**
- * The column statistics' per-value path past the distinct cap, in WebAssembly (src/core/stats.wat,
- * written by scripts/stats-wasm.mjs). TableStats (src/core/stats.ts) hands it runs of a column's
- * fields in estimated mode; the module adds each value to the column's accumulator slot, by the
- * same steps as ColumnState.addEstimated (and addField's unquoting, where no "" or \ escape needs
- * undoing), and stops at a value it leaves to JavaScript (a field with such an escape, a value
- * longer than BOUND_CAP bytes, a number needing the general conversion). JavaScript adds that one
- * to the column's own state and calls again.
+ * The column statistics' per-value work, in WebAssembly (src/core/stats.wat, written by
+ * scripts/stats-wasm.mjs). TableStats (src/core/stats.ts) hands it runs of a column's fields:
+ * - past the distinct cap (estimated mode), the module adds each value to the column's accumulator
+ *   slot by the same steps as ColumnState.addEstimated (and addField's unquoting: a CSV "" is
+ *   undone in a scratch area);
+ * - below it, for columns whose values repeat, it counts each value against the keys JavaScript
+ *   registered in the column's exact table (keys of up to 12 bytes).
+ * It stops at a value it leaves to JavaScript (a JSON escape, a value longer than BOUND_CAP bytes,
+ * a number needing the general conversion, a key not registered), which adds that one to the
+ * column's own state and calls again.
  *
  * A slot is merged into its column (and emptied) whenever the figures are read, and before its
  * exact decimal accumulators could lose exactness. ColumnState.merge is exact and does not depend
- * on order, so the figures equal those of the JavaScript path alone; test/kernels.test.ts compares
- * the two on values of every kind.
+ * on order, so the figures equal those of the JavaScript path alone; test/stats.kernel.test.ts
+ * compares the two on values of every kind.
  *
- * Memory: constants and a scratch area below 4 KiB; one 8 KiB slot per column; an exact table per
- * column; then, for the batch in hand, a copy of its field arrays and bytes (the module cannot see
- * a JavaScript buffer).
- * `ROWDECK_STATS=js`, or a runtime without WebAssembly, keeps everything in JavaScript.
+ * Memory: constants and a scratch area below 4 KiB; one 8 KiB slot per column; the exact tables,
+ * made as columns need them; then, for the batch in hand, a copy of its field arrays and bytes
+ * (the module cannot see a JavaScript buffer).
+ * `ROWDECK_STATS=js`, or a runtime without WebAssembly SIMD, keeps everything in JavaScript.
  */
 import type { RecordBatch } from '../io/batch.js';
 import { STATS_WASM_BASE64 } from './stats-wasm.js';
