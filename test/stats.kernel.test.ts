@@ -12,7 +12,7 @@ import { afterEach, describe, expect, it, vi } from 'vitest';
 import seedrandom from 'seedrandom';
 import { FieldKind, type RecordBatch } from '../src/io/batch.js';
 import { TableStats } from '../src/core/stats.js';
-import { BOUND_CAP, StatsKernel, useStatsKernel } from '../src/core/stats-kernel.js';
+import { BOUND_CAP, MAX_COLUMNS, StatsKernel, useStatsKernel } from '../src/core/stats-kernel.js';
 
 const available = StatsKernel.create(1) !== null;
 
@@ -318,6 +318,25 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
       return t.toJSON();
     };
     expect(feed(true)).toEqual(feed(false));
+  });
+
+  it(`a table of more than ${MAX_COLUMNS} columns stays in JavaScript (slots are 8 KiB a column)`, () => {
+    const W = MAX_COLUMNS + 1;
+    const names = Array.from({ length: W }, (_, i) => `c${i}`);
+    const data = Buffer.from('12.5,');
+    const n = 3000;
+    const fieldStart = new Uint32Array(n * W);
+    const fieldEnd = new Uint32Array(n * W).fill(4);
+    const batch: RecordBatch = { data, count: n, start: new Uint32Array(n), end: new Uint32Array(n).fill(4), next: new Uint32Array(n).fill(5), offset: new Float64Array(n), line: new Float64Array(n), wanted: W, fieldStart, fieldEnd, fieldKind: new Uint8Array(n * W) };
+    const run = vi.spyOn(StatsKernel.prototype, 'run');
+    const exact = vi.spyOn(StatsKernel.prototype, 'runExact');
+    useStatsKernel(true);
+    const t = new TableStats(names, { distinctCap: 0 });
+    t.addBatch(batch);
+    t.addBatch(batch);
+    expect(run).not.toHaveBeenCalled();
+    expect(exact).not.toHaveBeenCalled();
+    expect(t.summary()[W - 1]).toMatchObject({ type: 'number', count: 2 * n, min: 12.5, max: 12.5, mean: 12.5 });
   });
 
   it('read mid-stream, then more values: the same as one pass in JavaScript', () => {

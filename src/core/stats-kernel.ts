@@ -56,6 +56,8 @@ export const SLOT_VALUES = 1 << 24;
 type ColumnFn = (slot: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
 type TopFn = (at: number, n: number) => number;
 type ExactFn = (slot: number, table: number, mask: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
+/** The most columns a table may have for the module to take it (their slots take 4 MiB). */
+export const MAX_COLUMNS = 512;
 /** Bytes of a key entry in a column's exact table (see exact() in scripts/stats-wasm.mjs). */
 const ENTRY = 24;
 /** Longest value the exact tables hold (its bytes are its three words). */
@@ -122,7 +124,9 @@ export class StatsKernel {
    * table with the given distinct cap, or null where the module cannot run here.
    */
   static create(columns: number, distinctCap = 1000): StatsKernel | null {
-    if (disabled) return null;
+    // Slots are 8 KiB a column, and each table (a part's, with --stats) has its own: wider tables
+    // stay in JavaScript.
+    if (disabled || columns > MAX_COLUMNS) return null;
     const exp = instantiate<{ memory: WasmMemory; column: ColumnFn; exact: ExactFn; top: TopFn }>(STATS_WASM_BASE64);
     return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
   }
