@@ -1016,6 +1016,11 @@ function decodeUtf8(b: Uint8Array, len: number): string | null {
 /** What a column's statistics-module slot holds (TableStats.#slotMode). */
 const SLOT_ESTIMATED = 0;
 const SLOT_EXACT = 1;
+/** A column below the cap whose values repeat (four times on average, over at least 1,024): the module counts it. */
+function repeats(c: ColumnState): boolean {
+  return c.values !== null && c.count >= 1024 && c.count >= 4 * c.values.size;
+}
+
 /** Output of ValueCounter.keyWords. */
 const keyWords = new Int32Array(5);
 
@@ -1032,7 +1037,7 @@ export class TableStats {
   /** Records seen (addRecordDone calls, plus merged records). */
   records = 0;
   private readonly cols: ColumnState[];
-  /** The statistics module (made at the first batch), null where it cannot run. */
+  /** The statistics module (made at the first batch a column needs it), null where it cannot run. */
   #kernel: StatsKernel | null | undefined;
   /** Values given to each column's module slot since it was last merged; -1: nothing there. */
   #inSlot: number[];
@@ -1158,7 +1163,9 @@ export class TableStats {
     this.records += n;
   }
 
+  /** The module, with this batch copied in; null when no column would use it (nothing is copied then). */
   #loadKernel(batch: RecordBatch): StatsKernel | null {
+    if (!this.cols.some((c) => c.values === null || repeats(c))) return null;
     if (this.#kernel === undefined) this.#kernel = StatsKernel.create(this.cols.length, this.distinctCap);
     const kernel = this.#kernel;
     if (kernel === null) return null;
@@ -1177,7 +1184,7 @@ export class TableStats {
       const c = this.cols[f]!;
       const values = c.values;
       this.#tabled[f] = false;
-      if (values === null || c.count < 1024 || c.count < 4 * values.size) continue;
+      if (values === null || !repeats(c)) continue;
       if (!kernel.hasRoom(f, values.size)) {
         this.#drain(f);
         if (!kernel.newTable(f, values.size)) continue;
