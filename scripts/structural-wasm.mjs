@@ -34,6 +34,7 @@ export function wat() {
 ;; scan(in, len, out, delim) -> offset of the first byte whose quoting is not plain RFC 4180, or len.
 ;; Reads bytes in-1 .. in+len+66: the caller puts a line end at in-1 and zeros after the data.
 ;; Writes 24 bytes per 64 input bytes at out: delimiters outside quotes, LFs outside quotes, LFs inside.
+;; walk(...) then reads records and their wanted fields off those masks (see its comment).
 (module
   (memory (export "memory") 1)
   (func (export "scan") (param $in i32) (param $len i32) (param $out i32) (param $delim i32) (result i32)
@@ -85,8 +86,156 @@ ${prefixXor}
         (local.set $o (i32.add (local.get $o) (i32.const 24)))
         (local.set $i (i32.add (local.get $i) (i32.const 64)))
         (br $turn)))
-    (local.get $len)))
+    (local.get $len))
+${walk()}
+)
 `;
+}
+
+// The walk over the masks (reader.ts: scanIndexed), as the JavaScript loop it replaces did it.
+const IN = 64; // where structural.ts copies the data: the byte before a record end is at IN - 1 + end
+const g = (x) => `(local.get $${x})`;
+const set = (x, v) => `(local.set $${x} ${v})`;
+const add = (a, b) => `(i32.add ${a} ${b})`;
+const at4 = (base, i) => add(base, `(i32.shl ${i} (i32.const 2))`);
+const masksOf = (m) => ['dm', 'lm', 'lq'].map((x) => set(x, `(i64.and ${g(x)} ${m})`)).join(' ');
+
+function walk() {
+  return `  ;; walk(masks, from, stop, pos, line, base, max, N, W, cfg, rec) -> 0 done, 1 a record whose field
+  ;; count is not N (not written: the caller rejects it), 2 max records written.
+  ;; Walks the masks of the last scan from bit $from (a record start) to $stop, and writes each
+  ;; record of N fields: start, end (CR LF's CR excluded), next, byte offset ($base + position),
+  ;; line, and its W wanted fields (start, end, quoted or not). Positions written are $pos + bit.
+  ;; cfg: wcol[W], nextMark[N + 1] (reader.ts: which delimiters a wanted field needs), then room
+  ;; for the delimiter positions of a record. rec: start[max] end[max] next[max] (u32),
+  ;; offset[max] line[max] (f64), fieldStart[max W] fieldEnd[max W] (u32), fieldKind[max W] (u8).
+  ;; At 0: records written, start of the record not finished, end of the refused record, its
+  ;; delimiter count and line ends inside quotes (i32); at 24 the next record's line (f64).
+  (func (export "walk") (param $masks i32) (param $from i32) (param $stop i32) (param $pos i32)
+    (param $line f64) (param $base f64) (param $max i32) (param $N i32) (param $W i32) (param $cfg i32) (param $rec i32) (result i32)
+    (local $t i32) (local $tEnd i32) (local $a i32) (local $wb i32) (local $keep i32)
+    (local $dm i64) (local $lm i64) (local $lq i64) (local $end i64) (local $seg i64) (local $bits i64) (local $x i64)
+    (local $ls i32) (local $c i32) (local $cn i32) (local $lfs i32) (local $nm i32) (local $first i32)
+    (local $p i32) (local $e i32) (local $k i32) (local $w i32) (local $j i32) (local $fs i32) (local $fe i32)
+    (local $nmAt i32) (local $dposAt i32) (local $last i32) (local $q i32) (local $f i32) (local $fk i32)
+    (local $enAt i32) (local $nxAt i32) (local $offAt i32) (local $lnAt i32) (local $fsAt i32) (local $feAt i32) (local $fkAt i32)
+    ${set('nmAt', at4(g('cfg'), g('W')))}
+    ${set('dposAt', at4(g('nmAt'), add(g('N'), '(i32.const 1)')))}
+    ${set('last', `(i32.sub ${g('N')} (i32.const 1))`)}
+    ${set('enAt', at4(g('rec'), g('max')))}
+    ${set('nxAt', at4(g('enAt'), g('max')))}
+    ${set('offAt', at4(g('nxAt'), g('max')))}
+    ${set('lnAt', `(i32.add ${g('offAt')} (i32.shl ${g('max')} (i32.const 3)))`)}
+    ${set('fsAt', `(i32.add ${g('lnAt')} (i32.shl ${g('max')} (i32.const 3)))`)}
+    ${set('feAt', at4(g('fsAt'), `(i32.mul ${g('max')} ${g('W')})`))}
+    ${set('fkAt', at4(g('feAt'), `(i32.mul ${g('max')} ${g('W')})`))}
+    ${set('first', `(i32.load ${g('nmAt')})`)}
+    ${set('nm', g('first'))}
+    ${set('ls', g('from'))}
+    ${set('t', `(i32.shr_u ${g('from')} (i32.const 6))`)}
+    ${set('tEnd', `(i32.shr_u (i32.add ${g('stop')} (i32.const 63)) (i32.const 6))`)}
+    (block $out
+      (loop $word
+        (br_if $out (i32.ge_u ${g('t')} ${g('tEnd')}))
+        ${set('a', add(g('masks'), `(i32.mul ${g('t')} (i32.const 24))`))}
+        ${set('dm', `(i64.load ${g('a')})`)}
+        ${set('lm', `(i64.load offset=8 ${g('a')})`)}
+        ${set('lq', `(i64.load offset=16 ${g('a')})`)}
+        ${set('wb', `(i32.shl ${g('t')} (i32.const 6))`)}
+        ;; Bits before $from (they belong to records already read) and from $stop on.
+        (if (i32.lt_u ${g('wb')} ${g('from')}) (then
+          ${set('x', `(i64.shl (i64.const -1) (i64.extend_i32_u (i32.sub ${g('from')} ${g('wb')})))`)}
+          ${masksOf(g('x'))}))
+        ${set('keep', `(i32.sub ${g('stop')} ${g('wb')})`)}
+        (if (i32.lt_u ${g('keep')} (i32.const 64)) (then
+          ${set('x', `(i64.sub (i64.shl (i64.const 1) (i64.extend_i32_u ${g('keep')})) (i64.const 1))`)}
+          ${masksOf(g('x'))}))
+        (block $wordDone
+          (loop $record
+            ;; One record end at a time: the delimiters before it are counted, and walked bit by
+            ;; bit only where a wanted field needs their positions.
+            ${set('end', `(i64.and ${g('lm')} (i64.sub (i64.const 0) ${g('lm')}))`)}
+            ${set('seg', `(if (result i64) (i64.eqz ${g('end')}) (then ${g('dm')}) (else (i64.and ${g('dm')} (i64.sub ${g('end')} (i64.const 1)))))`)}
+            (if (i64.ne ${g('seg')} (i64.const 0)) (then
+              ${set('cn', add(g('c'), `(i32.wrap_i64 (i64.popcnt ${g('seg')}))`))}
+              (if (i32.ge_s ${g('cn')} ${g('nm')})
+                (then
+                  ${set('bits', g('seg'))}
+                  (block $walked
+                    (loop $bit
+                      (br_if $walked (i64.eqz ${g('bits')}))
+                      ${set('c', add(g('c'), '(i32.const 1)'))}
+                      (if (i32.le_u ${g('c')} ${g('N')}) (then
+                        (i32.store ${at4(g('dposAt'), g('c'))} ${add(g('wb'), `(i32.wrap_i64 (i64.ctz ${g('bits')}))`)})))
+                      ${set('bits', `(i64.and ${g('bits')} (i64.sub ${g('bits')} (i64.const 1)))`)}
+                      (br $bit)))
+                  ${set('nm', `(i32.load ${at4(g('nmAt'), `(select ${g('c')} ${g('N')} (i32.lt_u ${g('c')} ${g('N')}))`)})`)})
+                (else ${set('c', g('cn'))}))))
+            (br_if $wordDone (i64.eqz ${g('end')}))
+            ${set('dm', `(i64.xor ${g('dm')} ${g('seg')})`)}
+            ${set('lm', `(i64.xor ${g('lm')} ${g('end')})`)}
+            (if (i64.ne ${g('lq')} (i64.const 0)) (then
+              ;; Line ends inside quotes before this record end belong to this record.
+              ${set('x', `(i64.and ${g('lq')} (i64.sub ${g('end')} (i64.const 1)))`)}
+              ${set('lfs', add(g('lfs'), `(i32.wrap_i64 (i64.popcnt ${g('x')}))`))}
+              ${set('lq', `(i64.xor ${g('lq')} ${g('x')})`)}))
+            ${set('p', add(g('wb'), `(i32.wrap_i64 (i64.ctz ${g('end')}))`))}
+            ${set('e', g('p'))}
+            (if (i32.gt_u ${g('e')} ${g('ls')}) (then
+              (if (i32.eq (i32.load8_u offset=${IN - 1} ${g('e')}) (i32.const 13)) (then
+                ${set('e', `(i32.sub ${g('e')} (i32.const 1))`)}))))
+            (if (i32.ne ${g('e')} ${g('ls')}) (then
+              (if (i32.ne ${g('c')} ${g('last')}) (then
+                (i32.store offset=0 (i32.const 0) ${g('k')})
+                (i32.store offset=4 (i32.const 0) ${g('ls')})
+                (i32.store offset=8 (i32.const 0) ${g('p')})
+                (i32.store offset=12 (i32.const 0) ${g('c')})
+                (i32.store offset=16 (i32.const 0) ${g('lfs')})
+                (f64.store offset=24 (i32.const 0) ${g('line')})
+                (return (i32.const 1))))
+              ${set('q', `(i32.shl ${g('k')} (i32.const 2))`)}
+              (i32.store ${add(g('rec'), g('q'))} ${add(g('pos'), g('ls'))})
+              (i32.store ${add(g('enAt'), g('q'))} ${add(g('pos'), g('e'))})
+              (i32.store ${add(g('nxAt'), g('q'))} (i32.add ${add(g('pos'), g('p'))} (i32.const 1)))
+              ${set('q', `(i32.shl ${g('k')} (i32.const 3))`)}
+              (f64.store ${add(g('offAt'), g('q'))} (f64.add ${g('base')} (f64.convert_i32_u ${add(g('pos'), g('ls'))})))
+              (f64.store ${add(g('lnAt'), g('q'))} ${g('line')})
+              ;; The wanted fields (reader.ts: fillWanted).
+              ${set('f', `(i32.mul ${g('k')} ${g('W')})`)}
+              ${set('w', '(i32.const 0)')}
+              (block $filled
+                (loop $field
+                  (br_if $filled (i32.ge_u ${g('w')} ${g('W')}))
+                  ${set('j', `(i32.load ${at4(g('cfg'), g('w'))})`)}
+                  ${set('fs', `(select ${g('ls')} (i32.add (i32.load ${at4(g('dposAt'), g('j'))}) (i32.const 1)) (i32.eqz ${g('j')}))`)}
+                  ${set('fe', `(select ${g('e')} (i32.load ${at4(g('dposAt'), add(g('j'), '(i32.const 1)'))}) (i32.eq ${g('j')} ${g('last')}))`)}
+                  ${set('fk', `(i32.and (i32.gt_u ${g('fe')} ${g('fs')}) (i32.eq (i32.load8_u offset=${IN} ${g('fs')}) (i32.const 34)))`)}
+                  (i32.store ${at4(g('fsAt'), g('f'))} ${add(g('pos'), g('fs'))})
+                  (i32.store ${at4(g('feAt'), g('f'))} ${add(g('pos'), g('fe'))})
+                  (i32.store8 ${add(g('fkAt'), g('f'))} ${g('fk')})
+                  ${set('f', add(g('f'), '(i32.const 1)'))}
+                  ${set('w', add(g('w'), '(i32.const 1)'))}
+                  (br $field)))
+              ${set('k', add(g('k'), '(i32.const 1)'))}))
+            ${set('line', `(f64.add ${g('line')} (f64.convert_i32_u ${add(g('lfs'), '(i32.const 1)')}))`)}
+            ${set('ls', add(g('p'), '(i32.const 1)'))}
+            ${set('c', '(i32.const 0)')}
+            ${set('lfs', '(i32.const 0)')}
+            ${set('nm', g('first'))}
+            (if (i32.eq ${g('k')} ${g('max')}) (then
+              (i32.store offset=0 (i32.const 0) ${g('k')})
+              (i32.store offset=4 (i32.const 0) ${g('ls')})
+              (f64.store offset=24 (i32.const 0) ${g('line')})
+              (return (i32.const 2))))
+            (br $record)))
+        (if (i64.ne ${g('lq')} (i64.const 0)) (then
+          ${set('lfs', add(g('lfs'), `(i32.wrap_i64 (i64.popcnt ${g('lq')}))`))}))
+        ${set('t', add(g('t'), '(i32.const 1)'))}
+        (br $word)))
+    (i32.store offset=0 (i32.const 0) ${g('k')})
+    (i32.store offset=4 (i32.const 0) ${g('ls')})
+    (f64.store offset=24 (i32.const 0) ${g('line')})
+    (i32.const 0))`;
 }
 
 const mod = wasmModule({ script: 'scripts/structural-wasm.mjs', wat: 'src/io/structural.wat', what: "The structural scan (see structural.wat)", constName: 'STRUCTURAL_WASM_BASE64' });

@@ -7,7 +7,7 @@ import { FieldKind } from './batch.js';
 import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
-import { structuralScanner, type StructuralScanner } from './structural.js';
+import { structuralScanner, WalkStop, type StructuralScanner } from './structural.js';
 import { LITTLE_ENDIAN } from '../core/platform.js';
 
 const LF = 0x0a;
@@ -43,13 +43,6 @@ function scanMinBytes(mode: string | undefined): number {
 export function useStructuralScan(mode: 'auto' | 'js' | 'simd', windowBytes = STRUCTURAL_WINDOW): void {
   structuralMinBytes = scanMinBytes(mode);
   structuralWindow = windowBytes;
-}
-
-/** Set bits of a 32-bit word. */
-function popCount(x: number): number {
-  x -= (x >>> 1) & 0x55555555;
-  x = (x & 0x33333333) + ((x >>> 2) & 0x33333333);
-  return Math.imul((x + (x >>> 4)) & 0x0f0f0f0f, 0x01010101) >>> 24;
 }
 
 /** A quoted field still open after this many bytes is reported as unterminated instead of buffered on. */
@@ -645,64 +638,50 @@ export class RecordReader {
   }
 
   /**
-   * Reads records in `[pos, n)` (pos a record start) with the structural scan: delimiters and
-   * record ends come as bits, 32 bytes a word, and are walked in order, filling dpos and calling
-   * endRecord exactly as scan() does. Returns the start of the first record it could not finish
-   * (as scan()), or -(that start) - 1 when it stopped at quoting it does not check: the caller
-   * then goes on with walk() and scan(), which decide what such quoting means. `n` may be short
-   * of the data's end (a window): the record across it is then left to walk().
+   * Reads records in `[pos, n)` (pos a record start) with the structural scan: its masks mark
+   * delimiters and record ends, and the module's walk reads the records and wanted fields off
+   * them, exactly as scan() would (one record end at a time; delimiters walked bit by bit only
+   * where a wanted field needs their positions, as nextMark says). A record whose field count is
+   * wrong comes back here to be refused by endRecord. Returns the start of the first record it
+   * could not finish (as scan()), or -(that start) - 1 when it stopped at quoting it does not
+   * check: the caller then goes on with walk() and scan(), which decide what such quoting means.
+   * `n` may be short of the data's end (a window): the record across it is then left to walk().
    */
   private scanIndexed(sc: StructuralScanner, d: Buffer, pos: number, n: number): number {
     const stop = sc.scan(d, pos, n, this.delim);
-    const m = sc.masks;
-    const dpos = this.dpos, dl = dpos.length, N = this.ncols;
-    const nextMark = this.nextMark, firstMark = nextMark[0]!;
-    let ls = pos, c = 0, lfs = 0;
-    let nm = firstMark; // number of the next delimiter a wanted field needs the position of
-    const words = (stop + 31) >>> 5;
-    for (let w = 0, at = sc.maskAt; w < words; w++) {
-      const k = at + (w >>> 1) * 6 + (w & 1);
-      let dm = m[k]!, lm = m[k + 2]!, lq = m[k + 4]!;
-      const base = pos + (w << 5);
-      const keep = stop - (w << 5);
-      if (keep < 32) {
-        const below = (1 << keep) - 1;
-        dm &= below; lm &= below; lq &= below;
-      }
-      // One record end at a time: the delimiters before it are counted, and walked bit by bit
-      // only where a wanted field needs their positions (nextMark, as in scan()).
-      for (;;) {
-        const end = lm & -lm;
-        const seg = end === 0 ? dm : dm & ((end - 1) | 0);
-        if (seg !== 0) {
-          const cn = c + popCount(seg);
-          if (cn >= nm) {
-            let t = seg;
-            while (t !== 0) {
-              const bit = t & -t;
-              t ^= bit;
-              c++;
-              if (c < dl) dpos[c] = base + (31 - Math.clz32(bit));
-            }
-            nm = nextMark[c < N ? c : N]!;
-          } else c = cn;
+    const max = sc.prepareWalk(this.ncols, this.wcol, this.nextMark);
+    const W = this.W, out = sc.out;
+    let from = 0;
+    for (;;) {
+      const count = this.pCount;
+      if (count + max > this.cap) this.grow(count + max);
+      const r = sc.walk(from, stop, pos, this.pLine, this.base);
+      const st = sc.state, k = st[0]!;
+      if (k > 0) {
+        this.st.set(out.start.subarray(0, k), count);
+        this.en.set(out.end.subarray(0, k), count);
+        this.nx.set(out.next.subarray(0, k), count);
+        this.off.set(out.offset.subarray(0, k), count);
+        this.ln.set(out.line.subarray(0, k), count);
+        if (W > 0) {
+          this.fS.set(out.fieldStart.subarray(0, k * W), count * W);
+          this.fE.set(out.fieldEnd.subarray(0, k * W), count * W);
+          this.fK.set(out.fieldKind.subarray(0, k * W), count * W);
         }
-        if (end === 0) break;
-        dm ^= seg;
-        lm ^= end;
-        if (lq !== 0) {
-          // Line ends inside quotes before this record end belong to this record.
-          const before = lq & ((end - 1) | 0);
-          lfs += popCount(before);
-          lq ^= before;
-        }
-        const p = base + (31 - Math.clz32(end));
-        this.endRecord(d, ls, p, c, lfs);
-        ls = p + 1; c = 0; lfs = 0; nm = firstMark;
+        this.pCount = count + k;
       }
-      if (lq !== 0) lfs += popCount(lq);
+      this.pLine = sc.line();
+      if (r === WalkStop.FieldCount) {
+        const p = st[2]!;
+        this.endRecord(d, pos + st[1]!, pos + p, st[3]!, st[4]!);
+        from = p + 1;
+      } else if (r === WalkStop.Full) {
+        from = st[1]!;
+      } else {
+        const ls = pos + st[1]!;
+        return stop < n - pos ? -ls - 1 : ls;
+      }
     }
-    return stop < n - pos ? -ls - 1 : ls;
   }
 
   /**

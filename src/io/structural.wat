@@ -2,6 +2,7 @@
 ;; scan(in, len, out, delim) -> offset of the first byte whose quoting is not plain RFC 4180, or len.
 ;; Reads bytes in-1 .. in+len+66: the caller puts a line end at in-1 and zeros after the data.
 ;; Writes 24 bytes per 64 input bytes at out: delimiters outside quotes, LFs outside quotes, LFs inside.
+;; walk(...) then reads records and their wanted fields off those masks (see its comment).
 (module
   (memory (export "memory") 1)
   (func (export "scan") (param $in i32) (param $len i32) (param $out i32) (param $delim i32) (result i32)
@@ -98,4 +99,140 @@
         (local.set $o (i32.add (local.get $o) (i32.const 24)))
         (local.set $i (i32.add (local.get $i) (i32.const 64)))
         (br $turn)))
-    (local.get $len)))
+    (local.get $len))
+  ;; walk(masks, from, stop, pos, line, base, max, N, W, cfg, rec) -> 0 done, 1 a record whose field
+  ;; count is not N (not written: the caller rejects it), 2 max records written.
+  ;; Walks the masks of the last scan from bit $from (a record start) to $stop, and writes each
+  ;; record of N fields: start, end (CR LF's CR excluded), next, byte offset ($base + position),
+  ;; line, and its W wanted fields (start, end, quoted or not). Positions written are $pos + bit.
+  ;; cfg: wcol[W], nextMark[N + 1] (reader.ts: which delimiters a wanted field needs), then room
+  ;; for the delimiter positions of a record. rec: start[max] end[max] next[max] (u32),
+  ;; offset[max] line[max] (f64), fieldStart[max W] fieldEnd[max W] (u32), fieldKind[max W] (u8).
+  ;; At 0: records written, start of the record not finished, end of the refused record, its
+  ;; delimiter count and line ends inside quotes (i32); at 24 the next record's line (f64).
+  (func (export "walk") (param $masks i32) (param $from i32) (param $stop i32) (param $pos i32)
+    (param $line f64) (param $base f64) (param $max i32) (param $N i32) (param $W i32) (param $cfg i32) (param $rec i32) (result i32)
+    (local $t i32) (local $tEnd i32) (local $a i32) (local $wb i32) (local $keep i32)
+    (local $dm i64) (local $lm i64) (local $lq i64) (local $end i64) (local $seg i64) (local $bits i64) (local $x i64)
+    (local $ls i32) (local $c i32) (local $cn i32) (local $lfs i32) (local $nm i32) (local $first i32)
+    (local $p i32) (local $e i32) (local $k i32) (local $w i32) (local $j i32) (local $fs i32) (local $fe i32)
+    (local $nmAt i32) (local $dposAt i32) (local $last i32) (local $q i32) (local $f i32) (local $fk i32)
+    (local $enAt i32) (local $nxAt i32) (local $offAt i32) (local $lnAt i32) (local $fsAt i32) (local $feAt i32) (local $fkAt i32)
+    (local.set $nmAt (i32.add (local.get $cfg) (i32.shl (local.get $W) (i32.const 2))))
+    (local.set $dposAt (i32.add (local.get $nmAt) (i32.shl (i32.add (local.get $N) (i32.const 1)) (i32.const 2))))
+    (local.set $last (i32.sub (local.get $N) (i32.const 1)))
+    (local.set $enAt (i32.add (local.get $rec) (i32.shl (local.get $max) (i32.const 2))))
+    (local.set $nxAt (i32.add (local.get $enAt) (i32.shl (local.get $max) (i32.const 2))))
+    (local.set $offAt (i32.add (local.get $nxAt) (i32.shl (local.get $max) (i32.const 2))))
+    (local.set $lnAt (i32.add (local.get $offAt) (i32.shl (local.get $max) (i32.const 3))))
+    (local.set $fsAt (i32.add (local.get $lnAt) (i32.shl (local.get $max) (i32.const 3))))
+    (local.set $feAt (i32.add (local.get $fsAt) (i32.shl (i32.mul (local.get $max) (local.get $W)) (i32.const 2))))
+    (local.set $fkAt (i32.add (local.get $feAt) (i32.shl (i32.mul (local.get $max) (local.get $W)) (i32.const 2))))
+    (local.set $first (i32.load (local.get $nmAt)))
+    (local.set $nm (local.get $first))
+    (local.set $ls (local.get $from))
+    (local.set $t (i32.shr_u (local.get $from) (i32.const 6)))
+    (local.set $tEnd (i32.shr_u (i32.add (local.get $stop) (i32.const 63)) (i32.const 6)))
+    (block $out
+      (loop $word
+        (br_if $out (i32.ge_u (local.get $t) (local.get $tEnd)))
+        (local.set $a (i32.add (local.get $masks) (i32.mul (local.get $t) (i32.const 24))))
+        (local.set $dm (i64.load (local.get $a)))
+        (local.set $lm (i64.load offset=8 (local.get $a)))
+        (local.set $lq (i64.load offset=16 (local.get $a)))
+        (local.set $wb (i32.shl (local.get $t) (i32.const 6)))
+        ;; Bits before $from (they belong to records already read) and from $stop on.
+        (if (i32.lt_u (local.get $wb) (local.get $from)) (then
+          (local.set $x (i64.shl (i64.const -1) (i64.extend_i32_u (i32.sub (local.get $from) (local.get $wb)))))
+          (local.set $dm (i64.and (local.get $dm) (local.get $x))) (local.set $lm (i64.and (local.get $lm) (local.get $x))) (local.set $lq (i64.and (local.get $lq) (local.get $x)))))
+        (local.set $keep (i32.sub (local.get $stop) (local.get $wb)))
+        (if (i32.lt_u (local.get $keep) (i32.const 64)) (then
+          (local.set $x (i64.sub (i64.shl (i64.const 1) (i64.extend_i32_u (local.get $keep))) (i64.const 1)))
+          (local.set $dm (i64.and (local.get $dm) (local.get $x))) (local.set $lm (i64.and (local.get $lm) (local.get $x))) (local.set $lq (i64.and (local.get $lq) (local.get $x)))))
+        (block $wordDone
+          (loop $record
+            ;; One record end at a time: the delimiters before it are counted, and walked bit by
+            ;; bit only where a wanted field needs their positions.
+            (local.set $end (i64.and (local.get $lm) (i64.sub (i64.const 0) (local.get $lm))))
+            (local.set $seg (if (result i64) (i64.eqz (local.get $end)) (then (local.get $dm)) (else (i64.and (local.get $dm) (i64.sub (local.get $end) (i64.const 1))))))
+            (if (i64.ne (local.get $seg) (i64.const 0)) (then
+              (local.set $cn (i32.add (local.get $c) (i32.wrap_i64 (i64.popcnt (local.get $seg)))))
+              (if (i32.ge_s (local.get $cn) (local.get $nm))
+                (then
+                  (local.set $bits (local.get $seg))
+                  (block $walked
+                    (loop $bit
+                      (br_if $walked (i64.eqz (local.get $bits)))
+                      (local.set $c (i32.add (local.get $c) (i32.const 1)))
+                      (if (i32.le_u (local.get $c) (local.get $N)) (then
+                        (i32.store (i32.add (local.get $dposAt) (i32.shl (local.get $c) (i32.const 2))) (i32.add (local.get $wb) (i32.wrap_i64 (i64.ctz (local.get $bits)))))))
+                      (local.set $bits (i64.and (local.get $bits) (i64.sub (local.get $bits) (i64.const 1))))
+                      (br $bit)))
+                  (local.set $nm (i32.load (i32.add (local.get $nmAt) (i32.shl (select (local.get $c) (local.get $N) (i32.lt_u (local.get $c) (local.get $N))) (i32.const 2))))))
+                (else (local.set $c (local.get $cn))))))
+            (br_if $wordDone (i64.eqz (local.get $end)))
+            (local.set $dm (i64.xor (local.get $dm) (local.get $seg)))
+            (local.set $lm (i64.xor (local.get $lm) (local.get $end)))
+            (if (i64.ne (local.get $lq) (i64.const 0)) (then
+              ;; Line ends inside quotes before this record end belong to this record.
+              (local.set $x (i64.and (local.get $lq) (i64.sub (local.get $end) (i64.const 1))))
+              (local.set $lfs (i32.add (local.get $lfs) (i32.wrap_i64 (i64.popcnt (local.get $x)))))
+              (local.set $lq (i64.xor (local.get $lq) (local.get $x)))))
+            (local.set $p (i32.add (local.get $wb) (i32.wrap_i64 (i64.ctz (local.get $end)))))
+            (local.set $e (local.get $p))
+            (if (i32.gt_u (local.get $e) (local.get $ls)) (then
+              (if (i32.eq (i32.load8_u offset=63 (local.get $e)) (i32.const 13)) (then
+                (local.set $e (i32.sub (local.get $e) (i32.const 1)))))))
+            (if (i32.ne (local.get $e) (local.get $ls)) (then
+              (if (i32.ne (local.get $c) (local.get $last)) (then
+                (i32.store offset=0 (i32.const 0) (local.get $k))
+                (i32.store offset=4 (i32.const 0) (local.get $ls))
+                (i32.store offset=8 (i32.const 0) (local.get $p))
+                (i32.store offset=12 (i32.const 0) (local.get $c))
+                (i32.store offset=16 (i32.const 0) (local.get $lfs))
+                (f64.store offset=24 (i32.const 0) (local.get $line))
+                (return (i32.const 1))))
+              (local.set $q (i32.shl (local.get $k) (i32.const 2)))
+              (i32.store (i32.add (local.get $rec) (local.get $q)) (i32.add (local.get $pos) (local.get $ls)))
+              (i32.store (i32.add (local.get $enAt) (local.get $q)) (i32.add (local.get $pos) (local.get $e)))
+              (i32.store (i32.add (local.get $nxAt) (local.get $q)) (i32.add (i32.add (local.get $pos) (local.get $p)) (i32.const 1)))
+              (local.set $q (i32.shl (local.get $k) (i32.const 3)))
+              (f64.store (i32.add (local.get $offAt) (local.get $q)) (f64.add (local.get $base) (f64.convert_i32_u (i32.add (local.get $pos) (local.get $ls)))))
+              (f64.store (i32.add (local.get $lnAt) (local.get $q)) (local.get $line))
+              ;; The wanted fields (reader.ts: fillWanted).
+              (local.set $f (i32.mul (local.get $k) (local.get $W)))
+              (local.set $w (i32.const 0))
+              (block $filled
+                (loop $field
+                  (br_if $filled (i32.ge_u (local.get $w) (local.get $W)))
+                  (local.set $j (i32.load (i32.add (local.get $cfg) (i32.shl (local.get $w) (i32.const 2)))))
+                  (local.set $fs (select (local.get $ls) (i32.add (i32.load (i32.add (local.get $dposAt) (i32.shl (local.get $j) (i32.const 2)))) (i32.const 1)) (i32.eqz (local.get $j))))
+                  (local.set $fe (select (local.get $e) (i32.load (i32.add (local.get $dposAt) (i32.shl (i32.add (local.get $j) (i32.const 1)) (i32.const 2)))) (i32.eq (local.get $j) (local.get $last))))
+                  (local.set $fk (i32.and (i32.gt_u (local.get $fe) (local.get $fs)) (i32.eq (i32.load8_u offset=64 (local.get $fs)) (i32.const 34))))
+                  (i32.store (i32.add (local.get $fsAt) (i32.shl (local.get $f) (i32.const 2))) (i32.add (local.get $pos) (local.get $fs)))
+                  (i32.store (i32.add (local.get $feAt) (i32.shl (local.get $f) (i32.const 2))) (i32.add (local.get $pos) (local.get $fe)))
+                  (i32.store8 (i32.add (local.get $fkAt) (local.get $f)) (local.get $fk))
+                  (local.set $f (i32.add (local.get $f) (i32.const 1)))
+                  (local.set $w (i32.add (local.get $w) (i32.const 1)))
+                  (br $field)))
+              (local.set $k (i32.add (local.get $k) (i32.const 1)))))
+            (local.set $line (f64.add (local.get $line) (f64.convert_i32_u (i32.add (local.get $lfs) (i32.const 1)))))
+            (local.set $ls (i32.add (local.get $p) (i32.const 1)))
+            (local.set $c (i32.const 0))
+            (local.set $lfs (i32.const 0))
+            (local.set $nm (local.get $first))
+            (if (i32.eq (local.get $k) (local.get $max)) (then
+              (i32.store offset=0 (i32.const 0) (local.get $k))
+              (i32.store offset=4 (i32.const 0) (local.get $ls))
+              (f64.store offset=24 (i32.const 0) (local.get $line))
+              (return (i32.const 2))))
+            (br $record)))
+        (if (i64.ne (local.get $lq) (i64.const 0)) (then
+          (local.set $lfs (i32.add (local.get $lfs) (i32.wrap_i64 (i64.popcnt (local.get $lq)))))))
+        (local.set $t (i32.add (local.get $t) (i32.const 1)))
+        (br $word)))
+    (i32.store offset=0 (i32.const 0) (local.get $k))
+    (i32.store offset=4 (i32.const 0) (local.get $ls))
+    (f64.store offset=24 (i32.const 0) (local.get $line))
+    (i32.const 0))
+)
