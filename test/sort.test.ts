@@ -2,11 +2,27 @@
  * sortByKey against a plain comparison sort (Array.prototype.sort with compareRecords, the
  * definition of the order): random keys, keys sharing their top bits as in a bucket, ties in the
  * 32 sorted bits, in the whole key, and crowds of equal keys; every size path (a comparison
- * sort below 256 records, three 11-bit passes, two 16-bit passes from 65,536).
+ * sort below 256 records, three 11-bit passes, two 16-bit passes from 65,536), with the radix
+ * passes in WebAssembly and in JavaScript.
  */
-import { describe, expect, it } from 'vitest';
+import { readFileSync } from 'node:fs';
+import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { compareRecords, sortByKey, type SortKeys } from '../src/core/sort.js';
+import { compareRecords, sortByKey, sortsInWasm, useSortKernel, type SortKeys } from '../src/core/sort.js';
+import { SORT_WASM_BASE64 } from '../src/core/sort-wasm.js';
+// @ts-expect-error: a plain ES module without types
+import { assemble, wat } from '../scripts/sort-wasm.mjs';
+
+afterAll(() => useSortKernel(true));
+
+describe('sources', () => {
+  it('sort.wat and the embedded module are what scripts/sort-wasm.mjs makes', async () => {
+    const text = (wat as () => string)();
+    expect(readFileSync(new URL('../src/core/sort.wat', import.meta.url), 'utf8')).toBe(text);
+    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
+    expect(Buffer.from(SORT_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
+  });
+});
 
 function makeKeys(rng: () => number, n: number, bits: number, style: 'random' | 'ties' | 'crowd'): SortKeys {
   const keyHi = new Uint32Array(n);
@@ -35,8 +51,10 @@ function makeKeys(rng: () => number, n: number, bits: number, style: 'random' | 
   return { keyHi, keyLo, identity: (i) => ident[i]! };
 }
 
-describe('sortByKey', () => {
+describe.each([['WebAssembly', true], ['JavaScript', false]])('sortByKey, radix passes in %s', (_, wasm) => {
   it('gives the order of a comparison sort by (key, identity), on every size path', () => {
+    useSortKernel(wasm);
+    expect(sortsInWasm()).toBe(wasm);
     const rng = seedrandom('rowdeck-sort-1');
     let cases = 0;
     for (const n of [0, 1, 7, 255, 256, 300, 1000, 4096, 10000, 70000]) {

@@ -4,7 +4,13 @@
  * 11 bits for small buckets), and the rare
  * runs whose 32 bits tie are finished by comparing the whole key, then the identity (input,
  * offset). Typed arrays only; no comparator calls on the common path.
+ *
+ * The radix passes run in WebAssembly (src/core/sort.wat, made by scripts/sort-wasm.mjs) where
+ * it has 128-bit SIMD like the other modules (the sort itself uses none), unless
+ * ROWDECK_SORT=js; the JavaScript passes below give the same order.
  */
+import { growTo, instantiate, type WasmMemory } from './wasm.js';
+import { SORT_WASM_BASE64 } from './sort-wasm.js';
 
 export interface SortKeys {
   keyHi: Uint32Array;
@@ -26,6 +32,8 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     out.set(idx);
     return out;
   }
+  const k = sortKernel();
+  if (k !== null) return finishRuns(keys, k.sort(keyHi, keyLo, count, bits), KERNEL_DIGITS!);
   const digit = scratch(0, count);
   for (let i = 0; i < count; i++) {
     digit[i] = bits === 0 ? keyHi[i]! : ((keyHi[i]! << bits) | (keyLo[i]! >>> (32 - bits))) >>> 0;
@@ -54,11 +62,17 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     }
     [order, tmp] = [tmp, order];
   }
-  // Finish runs of equal 32-bit digits with a full comparison.
+  for (let i = 0; i < count; i++) tmp[i] = digit[order[i]!]!;
+  return finishRuns(keys, order, tmp);
+}
+
+/** Finishes runs of equal 32-bit digits (`sorted[i]` is record `order[i]`'s) with a full comparison. */
+function finishRuns(keys: SortKeys, order: Uint32Array, sorted: Uint32Array): Uint32Array {
+  const count = order.length;
   for (let i = 0; i < count; ) {
     let j = i + 1;
-    const d = digit[order[i]!]!;
-    while (j < count && digit[order[j]!] === d) j++;
+    const d = sorted[i]!;
+    while (j < count && sorted[j] === d) j++;
     if (j - i > 1) {
       const run = Array.from(order.subarray(i, j)).sort((a, b) => compareRecords(keys, a, b));
       order.set(run, i);
@@ -66,6 +80,49 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     i = j;
   }
   return order;
+}
+
+type SortFn = (n: number, hi: number, lo: number, bits: number, d0: number, o0: number, d1: number, o1: number, hist: number) => number;
+interface SortKernel {
+  /** The records' order by digit (a view of the module's memory); KERNEL_DIGITS their digits. */
+  sort(keyHi: Uint32Array, keyLo: Uint32Array, count: number, bits: number): Uint32Array;
+}
+let KERNEL_DIGITS: Uint32Array | null = null;
+/** undefined: not tried yet in this thread; null: off or not available. */
+let kernel: SortKernel | null | undefined;
+
+/** For tests and benchmarks: the radix passes in WebAssembly (true, where available) or JavaScript. */
+export function useSortKernel(on: boolean): void {
+  kernel = on ? undefined : null;
+}
+
+/** Whether sortByKey's radix passes run in WebAssembly in this thread. */
+export function sortsInWasm(): boolean {
+  return sortKernel() !== null;
+}
+
+function sortKernel(): SortKernel | null {
+  if (kernel !== undefined) return kernel;
+  if (process.env.ROWDECK_SORT === 'js') return (kernel = null);
+  const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>(SORT_WASM_BASE64);
+  if (exp === null) return (kernel = null);
+  const { memory, sort } = exp;
+  kernel = {
+    sort(keyHi, keyLo, count, bits) {
+      // Keys, then two (digit, index) pair arrays, then the histograms (2 * 65536 counts at most).
+      const n4 = 4 * count;
+      const hist = 6 * n4;
+      if (!growTo(memory, hist + 4 * 2 * 65536)) throw new RangeError(`the sort cannot grow its memory for ${count} records`);
+      const buf = memory.buffer;
+      new Uint32Array(buf, 0, count).set(keyHi.subarray(0, count));
+      new Uint32Array(buf, n4, count).set(keyLo.subarray(0, count));
+      const second = sort(count, 0, n4, bits, 2 * n4, 3 * n4, 4 * n4, 5 * n4, hist);
+      const at = second ? 4 * n4 : 2 * n4;
+      KERNEL_DIGITS = new Uint32Array(buf, at, count);
+      return new Uint32Array(buf, at + n4, count);
+    },
+  };
+  return kernel;
 }
 
 // Scratch space reused across calls: a worker sorts one bucket after another, and fresh large
