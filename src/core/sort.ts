@@ -32,8 +32,8 @@ export function sortByKey(keys: SortKeys, count: number, bits: number): Uint32Ar
     out.set(idx);
     return out;
   }
-  const k = sortKernel();
-  if (k !== null) return finishRuns(keys, k.sort(keyHi, keyLo, count, bits), KERNEL_DIGITS!);
+  const sorted = sortKernel()?.sort(keyHi, keyLo, count, bits);
+  if (sorted) return finishRuns(keys, sorted, KERNEL_DIGITS!);
   const digit = scratch(0, count);
   for (let i = 0; i < count; i++) {
     digit[i] = bits === 0 ? keyHi[i]! : ((keyHi[i]! << bits) | (keyLo[i]! >>> (32 - bits))) >>> 0;
@@ -84,8 +84,11 @@ function finishRuns(keys: SortKeys, order: Uint32Array, sorted: Uint32Array): Ui
 
 type SortFn = (n: number, hi: number, lo: number, bits: number, d0: number, o0: number, d1: number, o1: number, hist: number) => number;
 interface SortKernel {
-  /** The records' order by digit (a view of the module's memory); KERNEL_DIGITS their digits. */
-  sort(keyHi: Uint32Array, keyLo: Uint32Array, count: number, bits: number): Uint32Array;
+  /**
+   * The records' order by digit (a view of the module's memory; KERNEL_DIGITS their digits), or
+   * null when the module's memory cannot grow that far (the JavaScript passes take over).
+   */
+  sort(keyHi: Uint32Array, keyLo: Uint32Array, count: number, bits: number): Uint32Array | null;
 }
 let KERNEL_DIGITS: Uint32Array | null = null;
 /** undefined: not tried yet in this thread; null: off or not available. */
@@ -112,7 +115,7 @@ function sortKernel(): SortKernel | null {
       // Keys, then two (digit, index) pair arrays, then the histograms (2 * 65536 counts at most).
       const n4 = 4 * count;
       const hist = 6 * n4;
-      if (!growTo(memory, hist + 4 * 2 * 65536)) throw new RangeError(`the sort cannot grow its memory for ${count} records`);
+      if (!growTo(memory, hist + 4 * 2 * 65536)) return null;
       const buf = memory.buffer;
       new Uint32Array(buf, 0, count).set(keyHi.subarray(0, count));
       new Uint32Array(buf, n4, count).set(keyLo.subarray(0, count));
