@@ -2,7 +2,7 @@
 // Writes src/core/sort.wat (the WebAssembly text of stage 2's radix sort of a bucket by key) and
 // src/core/sort-wasm.ts (the same module assembled, as base64), using wabt from the npm
 // registry. Run after changing this file: node scripts/sort-wasm.mjs
-// test/sort.test.ts checks that both files are what this script makes.
+// test/kernels.test.ts checks that both files are what this script makes.
 //
 // What the module does (src/core/sort.ts, sortByKey, lays out its memory and finishes the job):
 // - takes the 32 bits of each key below the bucket's shared top bits (its digit), and sorts

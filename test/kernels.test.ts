@@ -1,7 +1,8 @@
 /**
  * The WebAssembly kernels of the two stages: stage 1's appends to the bucket buffers
  * (BucketWriter in src/engine/spill.ts) and stage 2's key-order copy (src/engine/gather-kernel.ts).
- * Their sources, and the statistics module's (test/stats.kernel.test.ts checks its figures), are in step; on synthetic data they write exactly the bytes the JavaScript paths
+ * Their sources, and those of the statistics module and the sort (test/stats.kernel.test.ts and
+ * test/sort.test.ts check what they compute), are in step; on synthetic data they write exactly the bytes the JavaScript paths
  * (or a plain concatenation) give and the fingerprints src/core/hash.ts computes; and whole
  * shuffles give the same bytes and manifests with them as without.
  */
@@ -22,6 +23,9 @@ import * as spillScript from '../scripts/spill-wasm.mjs';
 // @ts-expect-error: a plain ES module without types
 import * as statsScript from '../scripts/stats-wasm.mjs';
 import { STATS_WASM_BASE64 } from '../src/core/stats-wasm.js';
+// @ts-expect-error: a plain ES module without types
+import * as sortScript from '../scripts/sort-wasm.mjs';
+import { SORT_WASM_BASE64 } from '../src/core/sort-wasm.js';
 
 interface ModuleScript {
   wat(): string;
@@ -33,6 +37,7 @@ describe('sources', () => {
     ['engine/gather', gatherScript as ModuleScript, GATHER_WASM_BASE64],
     ['engine/spill', spillScript as ModuleScript, SPILL_WASM_BASE64],
     ['core/stats', statsScript as ModuleScript, STATS_WASM_BASE64],
+    ['core/sort', sortScript as ModuleScript, SORT_WASM_BASE64],
   ])('src/%s.wat and the embedded module are what its script makes', async (name, script, base64) => {
     const text = script.wat();
     expect(readFileSync(new URL(`../src/${name}.wat`, import.meta.url), 'utf8')).toBe(text);

@@ -5,24 +5,12 @@
  * sort below 256 records, three 11-bit passes, two 16-bit passes from 65,536), with the radix
  * passes in WebAssembly and in JavaScript.
  */
-import { readFileSync } from 'node:fs';
 import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { compareRecords, sortByKey, sortsInWasm, useSortKernel, type SortKeys } from '../src/core/sort.js';
-import { SORT_WASM_BASE64 } from '../src/core/sort-wasm.js';
-// @ts-expect-error: a plain ES module without types
-import { assemble, wat } from '../scripts/sort-wasm.mjs';
 
+// The module's sources are checked with the others' in test/kernels.test.ts.
 afterAll(() => useSortKernel(true));
-
-describe('sources', () => {
-  it('sort.wat and the embedded module are what scripts/sort-wasm.mjs makes', async () => {
-    const text = (wat as () => string)();
-    expect(readFileSync(new URL('../src/core/sort.wat', import.meta.url), 'utf8')).toBe(text);
-    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
-    expect(Buffer.from(SORT_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
-  });
-});
 
 function makeKeys(rng: () => number, n: number, bits: number, style: 'random' | 'ties' | 'crowd'): SortKeys {
   const keyHi = new Uint32Array(n);
