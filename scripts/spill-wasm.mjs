@@ -10,8 +10,16 @@
 // and its fingerprint hash is added to the writer's sum (the same function as fingerprintAligned
 // in src/core/hash.ts). It stops at the first record whose bucket is full: JavaScript writes that
 // buffer to the spill file and calls again.
+// enqueue() queues a run of records for append(): each record's key is the keyed hash of its
+// identity (hash.ts: hashWords3 of input, offset's high and low words), its bucket the key's top
+// bits. ScatterTask uses it where a record's key is its identity (no --key or --group).
 import { fileURLToPath } from 'node:url';
-import { copy16, fingerprint, get, wasmModule } from './wasm-module.mjs';
+import { copy16, finish, fingerprint, get, i32, wasmModule } from './wasm-module.mjs';
+
+/** MurmurHash3's body step of lane $h with word k (hash.ts: mixWord). Uses the local $k. */
+const mix = (h, k) => `(local.set $k (i32.rotl (i32.mul ${k} ${i32(0xcc9e2d51)}) (i32.const 15)))
+        (local.set $${h} (i32.rotl (i32.xor ${get(h)} (i32.mul ${get('k')} ${i32(0x1b873593)})) (i32.const 13)))
+        (local.set $${h} (i32.add (i32.mul ${get(h)} (i32.const 5)) ${i32(0xe6546b64)}))`;
 
 /** Stores queue word `w` of the entry at $e as header word `h` of the record at $pos. */
 const header = (h, w) => `(i32.store offset=${4 * h} ${get('pos')} (i32.load offset=${4 * w} ${get('e')}))`;
@@ -24,8 +32,51 @@ export function wat() {
 ;;   Bucket b's buffer is filled up to fill[b] and may be filled up to ends[b] (i32 arrays); the
 ;;   fingerprint sum is the i64 at fp, the record count the i64 after it.
 ;;   Writes up to 15 bytes past a record's padded end and reads up to 15 past its bytes.
+;; enqueue(n, from, queue, offs, starts, ends, nexts, strata, secret, input, bits, delta)
+;;   Writes queue entries from..from+n for n records given as offsets (f64) and start, end, next,
+;;   stratum (i32) arrays: key = hashWords3(secret, input, offset >> 32, offset & 0xffffffff) with
+;;   the 4 secret words at secret, bucket = the key's top bits bits, bytes at start + delta.
 (module
   (memory (export "memory") 1)
+  (func (export "enqueue") (param $n i32) (param $from i32) (param $queue i32) (param $offs i32) (param $starts i32)
+    (param $ends i32) (param $nexts i32) (param $strata i32) (param $secret i32) (param $input i32) (param $bits i32) (param $delta i32)
+    (local $i i32) (local $e i32) (local $o64 i64) (local $ohi i32) (local $olo i32) (local $h1 i32) (local $h2 i32)
+    (local $hi i32) (local $lo i32) (local $s i32) (local $end i32) (local $klen i32) (local $i4 i32) (local $k i32)
+    (local.set $klen (i32.const 12))
+    (block $done
+      (loop $record
+        (br_if $done (i32.ge_u ${get('i')} ${get('n')}))
+        (local.set $i4 (i32.shl ${get('i')} (i32.const 2)))
+        (local.set $o64 (i64.trunc_f64_u (f64.load (i32.add ${get('offs')} (i32.shl ${get('i')} (i32.const 3))))))
+        (local.set $ohi (i32.wrap_i64 (i64.shr_u ${get('o64')} (i64.const 32))))
+        (local.set $olo (i32.wrap_i64 ${get('o64')}))
+        (local.set $h1 (i32.load ${get('secret')}))
+        (local.set $h2 (i32.load offset=4 ${get('secret')}))
+        ${mix('h1', `(i32.xor ${get('input')} (i32.load offset=8 ${get('secret')}))`)}
+        ${mix('h2', `(i32.xor ${get('input')} (i32.load offset=12 ${get('secret')}))`)}
+        ${mix('h1', get('ohi'))}
+        ${mix('h2', get('ohi'))}
+        ${mix('h1', get('olo'))}
+        ${mix('h2', get('olo'))}
+        ${finish('h1', 'klen')}
+        ${finish('h2', 'klen')}
+        (local.set $hi (i32.xor ${get('h1')} (i32.mul ${get('h2')} ${i32(0x2545f491)})))
+        (local.set $lo (i32.xor ${get('h2')} (i32.mul ${get('h1')} ${i32(0x9e3779b1)})))
+        (local.set $s (i32.load (i32.add ${get('starts')} ${get('i4')})))
+        (local.set $end (i32.load (i32.add ${get('ends')} ${get('i4')})))
+        (local.set $e (i32.add ${get('queue')} (i32.shl (i32.add ${get('from')} ${get('i')}) (i32.const 5))))
+        (i32.store ${get('e')} (if (result i32) (i32.eqz ${get('bits')}) (then (i32.const 0))
+          (else (i32.shr_u ${get('hi')} (i32.sub (i32.const 32) ${get('bits')})))))
+        (i32.store offset=4 ${get('e')} ${get('hi')})
+        (i32.store offset=8 ${get('e')} ${get('lo')})
+        (i32.store offset=12 ${get('e')} ${get('olo')})
+        (i32.store offset=16 ${get('e')} (i32.or (i32.shl ${get('ohi')} (i32.const 16)) ${get('input')}))
+        (i32.store offset=20 ${get('e')} (i32.load (i32.add ${get('strata')} ${get('i4')})))
+        (i32.store offset=24 ${get('e')} (i32.add ${get('s')} ${get('delta')}))
+        (i32.store offset=28 ${get('e')} (i32.or (i32.shl (i32.sub ${get('end')} ${get('s')}) (i32.const 2))
+          (i32.sub (i32.load (i32.add ${get('nexts')} ${get('i4')})) ${get('end')})))
+        (local.set $i (i32.add ${get('i')} (i32.const 1)))
+        (br $record))))
   (func (export "append") (param $from i32) (param $n i32) (param $queue i32) (param $fill i32) (param $ends i32) (param $fp i32) (result i32)
     (local $i i32) (local $e i32) (local $b4 i32) (local $x i32) (local $len i32) (local $need i32) (local $pos i32)
     (local $dst i32) (local $src i32) (local $j i32) (local $end i32) (local $h1 i32) (local $h2 i32) (local $hi i32) (local $lo i32)

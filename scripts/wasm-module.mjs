@@ -76,7 +76,7 @@ const FP_C1 = 0x9e3779b1;
 const FP_C2 = 0x85ebca77;
 
 /** MurmurHash3's finaliser of lane $x, seeded with the record length $len (hash.ts: finish). */
-function finish(x, len) {
+export function finish(x, len) {
   return `(local.set $${x} (i32.xor ${get(x)} ${get(len)}))
         (local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 16))) ${i32(0x85ebca6b)}))
         (local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 13))) ${i32(0xc2b2ae35)}))

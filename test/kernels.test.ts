@@ -11,8 +11,9 @@ import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { GATHER_WASM_BASE64 } from '../src/engine/gather-wasm.js';
 import { gatherKernel } from '../src/engine/gather-kernel.js';
-import { Fingerprint } from '../src/core/hash.js';
-import { BucketWriter, HEADER_BYTES, spillFileName } from '../src/engine/spill.js';
+import { Fingerprint, hashWords3 } from '../src/core/hash.js';
+import type { RecordBatch } from '../src/io/batch.js';
+import { BucketWriter, HEADER_BYTES, QUEUE, spillFileName } from '../src/engine/spill.js';
 import { SPILL_WASM_BASE64 } from '../src/engine/spill-wasm.js';
 import { shuffle, type Manifest } from '../src/index.js';
 import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
@@ -160,6 +161,64 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
     expect([auto.fp.toHex(), auto.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
     expect([js.fp.toHex(), js.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
     expect(readdirSync(join(dir, `auto-${seed}`))).toEqual([spillFileName(0)]);
+  });
+
+  it('enqueueRun keys, buckets and counts records as append does with hash.ts keys (offsets past 2^32)', () => {
+    delete process.env.ROWDECK_SPILL;
+    const secret = Uint32Array.of(0x01234567, 0x89abcdef, 0xdeadbeef, 0x0badf00d);
+    const bits = 4;
+    const write2 = (how: 'enqueue' | 'append') => {
+      const sub = join(dir, `keyed-${how}`);
+      mkdirSync(sub);
+      const w = new BucketWriter(sub, 0, 1 << bits, 4096, new Fingerprint(), 8192);
+      w.setKeySecret(secret);
+      const counts = Array.from({ length: 5 }, () => new Float64Array(1 << bits));
+      const rnd = createRandom(7);
+      for (const { data, ends } of batches(3).filter((_, b) => b !== 3)) {
+        // Records end with nothing, LF or CR LF before the next; offsets near 2^33 and 2^40.
+        const n = ends.length;
+        const batch = {
+          data, count: n, start: new Uint32Array(n), end: new Uint32Array(n), next: new Uint32Array(n),
+          offset: new Float64Array(n), strata: new Int32Array(n),
+        };
+        for (let i = 0; i < n; i++) {
+          batch.start[i] = i === 0 ? 0 : ends[i - 1]!;
+          batch.next[i] = ends[i]!;
+          batch.end[i] = Math.max(batch.start[i]!, ends[i]! - Math.floor(rnd() * 3));
+          batch.offset[i] = (rnd() < 0.5 ? 2 ** 33 : 2 ** 40) + Math.floor(rnd() * 2 ** 32);
+          batch.strata[i] = Math.floor(rnd() * 5);
+        }
+        for (let i = 0; i < n; ) {
+          let j = i + 1;
+          while (j < n && j - i < QUEUE && batch.next[j]! - batch.start[i]! <= w.stagingBytes) j++;
+          w.stage(data, batch.start[i]!, batch.next[j - 1]!);
+          if (how === 'enqueue') {
+            w.runStrata.set(batch.strata.subarray(i, j));
+            w.enqueueRun(batch as unknown as RecordBatch, i, j, 3, bits, counts);
+          } else {
+            for (let k = i; k < j; k++) {
+              const off = batch.offset[k]!;
+              const h = hashWords3(secret, 3, Math.floor(off / 2 ** 32), off >>> 0);
+              const bucket = h[0]! >>> (32 - bits);
+              w.append(bucket, h[0]!, h[1]!, off, 3, batch.strata[k]!, data, batch.start[k]!, batch.end[k]!, batch.next[k]! - batch.end[k]!);
+              counts[batch.strata[k]!]![bucket]!++;
+            }
+          }
+          i = j;
+        }
+      }
+      w.close();
+      return { file: readFileSync(join(sub, spillFileName(0))), w, counts };
+    };
+    const a = write2('append');
+    const e = write2('enqueue');
+    expect(e.w.enqueues).toBe(true);
+    expect(e.file.length).toBeGreaterThan(100_000);
+    expect(e.file.equals(a.file)).toBe(true);
+    expect(e.w.chunks).toEqual(a.w.chunks);
+    expect([...e.w.bytes]).toEqual([...a.w.bytes]);
+    expect([...e.w.records]).toEqual([...a.w.records]);
+    expect(e.counts.map((c) => [...c])).toEqual(a.counts.map((c) => [...c]));
   });
 });
 

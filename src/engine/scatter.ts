@@ -23,7 +23,7 @@ import { inputReaderOptions, isPlainFile, readInput } from '../io/input.js';
 import { readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { BucketWriter, type SpillPiece } from './spill.js';
+import { BucketWriter, QUEUE, type SpillPiece } from './spill.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
@@ -165,6 +165,7 @@ export class ScatterTask {
     this.#groups = c.group !== null ? new Map() : null;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
     this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
+    this.#writer.setKeySecret(this.#secret);
   }
 
   #newStratum(k: string): number {
@@ -218,6 +219,10 @@ export class ScatterTask {
   addBatch(batch: RecordBatch, input: number): void {
     this.#input = input;
     const c = this.#c;
+    if (this.#writer.enqueues && c.key.length === 0 && c.group === null && !this.#cellSecret && !this.#groups) {
+      this.#addIdentityKeyed(batch, input);
+      return;
+    }
     const nStrat = c.stratify.length;
     const nKey = c.key.length;
     const groupSlot = c.group !== null ? nStrat + nKey : -1;
@@ -270,6 +275,49 @@ export class ScatterTask {
       }
     }
     this.#records += n;
+  }
+
+  /**
+   * addBatch where a record's key is the hash of its identity (no --key or --group, exact
+   * dealing): the module hashes, buckets and queues a staged run at a time (BucketWriter.enqueueRun);
+   * JavaScript finds the strata. The same keys, buckets and counts as the loop in addBatch.
+   */
+  #addIdentityKeyed(batch: RecordBatch, input: number): void {
+    const writer = this.#writer;
+    const d = batch.data;
+    const n = batch.count;
+    const room = writer.stagingBytes;
+    const strata = writer.runStrata;
+    const bits = this.#c.bits;
+    for (let i = 0; i < n; ) {
+      let j = i + 1;
+      while (j < n && j - i < QUEUE && batch.next[j]! - batch.start[i]! <= room) j++;
+      if (batch.next[j - 1]! - batch.start[i]! > room) {
+        // A record longer than the staging area goes alone, by the general path.
+        this.#addOne(batch, i, input);
+        i++;
+        continue;
+      }
+      writer.stage(d, batch.start[i]!, batch.next[j - 1]!);
+      for (let k = i; k < j; k++) strata[k - i] = this.#stratumOf(batch, k);
+      writer.enqueueRun(batch, i, j, input, bits, this.#bucketCounts);
+      i = j;
+    }
+    this.#records += n;
+  }
+
+  /** One record by append, keyed by its identity (a record too long to be staged). */
+  #addOne(batch: RecordBatch, i: number, input: number): void {
+    const offset = batch.offset[i]!;
+    const h = hashWords3(this.#secret, input, Math.floor(offset / 0x100000000), offset >>> 0);
+    const hi = h[0]!;
+    const lo = h[1]!;
+    const st = this.#stratumOf(batch, i);
+    const bucket = this.#c.bits === 0 ? 0 : hi >>> (32 - this.#c.bits);
+    const e = batch.end[i]!;
+    this.#writer.stage(batch.data, batch.start[i]!, batch.next[i]!);
+    this.#writer.append(bucket, hi, lo, offset, input, st, batch.data, batch.start[i]!, e, batch.next[i]! - e);
+    this.#bucketCounts[st]![bucket]!++;
   }
 
   finish(): ScatterTaskResult {

@@ -19,16 +19,20 @@ import { closeSync, openSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import { ioError } from '../errors.js';
 import type { Fingerprint } from '../core/hash.js';
+import type { RecordBatch } from '../io/batch.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 import { SPILL_WASM_BASE64 } from './spill-wasm.js';
 
 type AppendFn = (from: number, n: number, queue: number, fill: number, ends: number, fp: number) => number;
+type EnqueueFn = (n: number, from: number, queue: number, offs: number, starts: number, ends: number, nexts: number,
+  strata: number, secret: number, input: number, bits: number, delta: number) => void;
 interface SpillKernel {
   memory: WasmMemory;
   append: AppendFn;
+  enqueue: EnqueueFn;
 }
 /** Records queued for the module at most (a run of records staged together may hold more). */
-const QUEUE = 4096;
+export const QUEUE = 4096;
 const SPARE = 64;
 
 /** False once the module failed to load here (no WebAssembly SIMD). */
@@ -64,7 +68,9 @@ export interface SpillPiece {
  * that memory is a WebAssembly module's (src/engine/spill.wat): `append` only queues a record,
  * and the module writes each queued record's header and bytes and adds its fingerprint hash, a
  * run at a time (measured: JavaScript spent a builtin call per record on the copy, and re-checked
- * its array on every word of the hash). Otherwise it is an ArrayBuffer and each record moves with
+ * its array on every word of the hash). Where keys are hashed from identities, `enqueueRun` has
+ * the module key, bucket and queue a whole staged run (ScatterTask's loop over records cost
+ * ~170 ns a record in JavaScript). Otherwise it is an ArrayBuffer and each record moves with
  * `Uint8Array.prototype.copyWithin`, a builtin that costs a fraction of `Buffer.prototype.copy`
  * for records of ~100 bytes (measured: ~30 ns against ~200 ns).
  *
@@ -91,13 +97,25 @@ export class BucketWriter {
   #stride = 0;
   #staging = 0;
   #stagingSize: number;
-  #stagingDelta = -1;
+  /** Where the staged run's bytes lie in the arena, less where they lie in the batch (may be negative). */
+  #stagingDelta = 0;
+  /** Whether the last stage() call took its run into the staging area. */
+  #staged = false;
   #kernel: SpillKernel | null = null;
   /** Queued records (kernel only): 8 words each, see spill.wat. */
   #queue: Uint32Array | null = null;
   #queueAt = 0;
   #queued = 0;
   #fp = 0;
+  #secretAt = 0;
+  #keyed = false;
+  #runAt = 0;
+  #runOffset: Float64Array = new Float64Array(0);
+  #runStart: Uint32Array = new Uint32Array(0);
+  #runEnd: Uint32Array = new Uint32Array(0);
+  #runNext: Uint32Array = new Uint32Array(0);
+  /** Strata of the run enqueueRun takes next (the caller fills them); empty without the module. */
+  runStrata: Int32Array = new Int32Array(0);
   /** Bytes the staging area holds: callers stage a batch in runs of at most this many bytes. */
   get stagingBytes(): number {
     return this.#stagingSize;
@@ -115,7 +133,10 @@ export class BucketWriter {
       this.#queueAt = Math.ceil((this.#staging + stagingBytes + SPARE) / 64) * 64;
       const fillAt = this.#queueAt + QUEUE * 32;
       this.#fp = fillAt + 8 * buckets;
-      const need = this.#fp + 16 + SPARE;
+      // enqueueRun's inputs: the key secret, then a run's offsets (f64), starts, ends, nexts and strata.
+      this.#secretAt = this.#fp + 16;
+      this.#runAt = this.#secretAt + 16;
+      const need = this.#runAt + 24 * QUEUE + SPARE;
       if (need <= 0x7fff0000 && growTo(kernel.memory, need)) {
         this.#kernel = kernel;
         memory = kernel.memory.buffer;
@@ -124,6 +145,12 @@ export class BucketWriter {
         const ends = new Int32Array(memory, fillAt + 4 * buckets, buckets);
         for (let b = 0; b < buckets; b++) ends[b] = b * this.#stride + this.#size;
         new Uint8Array(memory, this.#fp, 16).fill(0);
+        this.#runOffset = new Float64Array(memory, this.#runAt, QUEUE);
+        const words = (k: number): Uint32Array => new Uint32Array(memory, this.#runAt + 8 * QUEUE + 4 * QUEUE * k, QUEUE);
+        this.#runStart = words(0);
+        this.#runEnd = words(1);
+        this.#runNext = words(2);
+        this.runStrata = new Int32Array(memory, this.#runAt + 20 * QUEUE, QUEUE);
       }
     }
     if (!this.#kernel) {
@@ -157,9 +184,52 @@ export class BucketWriter {
     if (end - start <= this.#stagingSize) {
       this.#arena.set(data.subarray(start, end), this.#staging);
       this.#stagingDelta = this.#staging - start;
+      this.#staged = true;
     } else {
-      this.#stagingDelta = -1;
+      this.#staged = false;
     }
+  }
+
+  /** Whether enqueueRun is available: the module writes the records, and the key secret is set. */
+  get enqueues(): boolean {
+    return this.#keyed;
+  }
+
+  /** The secret enqueueRun's keys are hashed with (hash.ts: hashWords3). */
+  setKeySecret(secret: Uint32Array): void {
+    if (this.#queue === null) return;
+    new Uint32Array(this.#arena.buffer, this.#secretAt, 4).set(secret);
+    this.#keyed = true;
+  }
+
+  /**
+   * Appends records i0..i1 of a batch (at most QUEUE, all inside the run the last stage() call
+   * took; their strata in `runStrata[0, i1 - i0)`), each keyed by the hash of (input, offset)
+   * and put in the bucket of its key's top `bits` bits, as `append` would be called for each.
+   * `bucketCounts[stratum][bucket]` counts them.
+   */
+  enqueueRun(b: RecordBatch, i0: number, i1: number, input: number, bits: number, bucketCounts: Float64Array[]): void {
+    const n = i1 - i0;
+    if (!this.#keyed || !this.#staged || n > QUEUE) throw new Error('internal: enqueueRun needs the key secret and a staged run of at most QUEUE records');
+    if (this.#queued + n > QUEUE) this.#drain();
+    this.#runOffset.set(b.offset.subarray(i0, i1));
+    this.#runStart.set(b.start.subarray(i0, i1));
+    this.#runEnd.set(b.end.subarray(i0, i1));
+    this.#runNext.set(b.next.subarray(i0, i1));
+    const from = this.#queued;
+    const at = this.#runAt;
+    this.#kernel!.enqueue(n, from, this.#queueAt, at, at + 8 * QUEUE, at + 12 * QUEUE, at + 16 * QUEUE, at + 20 * QUEUE,
+      this.#secretAt, input, bits, this.#stagingDelta);
+    const q = this.#queue!, bytes = this.bytes, records = this.records, strata = this.runStrata;
+    for (let k = 0; k < n; k++) {
+      const w = (from + k) << 3;
+      const bucket = q[w]!;
+      bytes[bucket]! += HEADER_BYTES + (((q[w + 7]! >>> 2) + 3) & ~3);
+      records[bucket]! += 1;
+      bucketCounts[strata[k]!]![bucket]!++;
+    }
+    this.#queued = from + n;
+    if (this.#queued === QUEUE) this.#drain();
   }
 
   /** Appends one record. `term`: 0 none, 1 LF, 2 CRLF. */
@@ -178,7 +248,7 @@ export class BucketWriter {
     const len = end - start;
     const need = HEADER_BYTES + ((len + 3) & ~3);
     const q = this.#queue;
-    if (q !== null && this.#stagingDelta >= 0) {
+    if (q !== null && this.#staged) {
       // The module writes it (see #drain).
       const k = this.#queued++ << 3;
       q[k] = bucket;
@@ -216,7 +286,7 @@ export class BucketWriter {
     const at = fill + HEADER_BYTES;
     // Zero the last word first: the copy overwrites its leading bytes, padding stays zero.
     if (len & 3) u[(at + len) >>> 2] = 0;
-    if (this.#stagingDelta >= 0) this.#arena.copyWithin(at, start + this.#stagingDelta, end + this.#stagingDelta);
+    if (this.#staged) this.#arena.copyWithin(at, start + this.#stagingDelta, end + this.#stagingDelta);
     else data.copy(this.#buf, at, start, end);
     this.#fill[bucket] = fill + need;
     this.fingerprint?.addAligned(u, w + HEADER_WORDS, len);
