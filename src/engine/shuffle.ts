@@ -264,7 +264,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
     cleanup.paths.add(stage);
 
-    const inFlight = o.threads + 1;
+    const inFlight = 2 * o.threads + 2;
     const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
     const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, o.threads, inFlight);
     const buckets = 2 ** bits;
