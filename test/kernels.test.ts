@@ -289,8 +289,15 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
   let csv: string;
   let crlf: string;
   let jsonl: string;
+  let long: string;
   beforeAll(() => {
     dir = makeTempDir();
+    // One record of 3 MiB, longer than stage 1's staging area (2 MiB): it is keyed and appended
+    // on its own, between runs the spill module keys.
+    long = join(dir, 'long-record.csv');
+    const rows = ['id,note,fault'];
+    for (let i = 0; i < 4000; i++) rows.push(i === 1500 ? `${i},"${'x, "" y\n'.repeat(3 << 17)}",spike` : `${i},n${i % 7},${['ok', 'drift', 'spike'][i % 3]}`);
+    writeFileSync(long, rows.join('\n') + '\n');
     csv = join(dir, 'readings.csv');
     writeFileSync(csv, makeSensorCsv({ rows: 4000, seed: 11 }));
     crlf = join(dir, 'readings-crlf.csv');
@@ -321,6 +328,7 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
     ['CSV, 5 folds and named splits', () => csv, { split: 'train=0.8,test=0.2', folds: 5, stratify: 'fault' }],
     ['CSV with CR LF and no final line end, 3 folds, statistics', () => crlf, { partitions: 3, folds: 3, stats: true }],
     ['JSON Lines, 4 partitions', () => jsonl, { partitions: 4, stratify: 'fault' }],
+    ['CSV with a record longer than the staging area', () => long, { partitions: 4, stratify: 'fault', memory: '64MiB' }],
     ['JSON Lines with a fold field (JavaScript either way)', () => jsonl, { partitions: 2, folds: 4 }],
   ];
   it.each(configs)('%s', async (name, input, opts) => {
