@@ -298,5 +298,13 @@ describe('invariant 7: failure leaves nothing that looks complete', () => {
     expect(listFiles(out)).toContain('part-00002.csv');
     await shuffle({ inputs: [input], out, partitions: 2, force: true });
     expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv']);
+    // The folder replaced and the spill are gone (removed concurrently at the end of the run).
+    expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
+    // Named splits put parts in subfolders; replacing such an output removes those too.
+    await shuffle({ inputs: [input], out, partitions: 2, split: 'train=0.8,test=0.2', force: true });
+    expect(listFiles(out)).toContain('train/part-00001.csv');
+    await shuffle({ inputs: [input], out, partitions: 2, force: true });
+    expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv']);
+    expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
   });
 });

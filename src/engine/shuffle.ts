@@ -9,6 +9,7 @@
  * manifest is written, so a failed or killed run never leaves a folder that looks complete.
  * Spill files live in their own hidden folder, removed on success and on failure.
  */
+import { rm } from 'node:fs/promises';
 import { mkdirSync, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeFileSync, openSync, readSync, closeSync } from 'node:fs';
 import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -105,7 +106,10 @@ export function blockBytesFor(memory: number): number {
 
 interface Cleanup {
   paths: Set<string>;
+  /** Removes everything now (used from signal handlers). */
   run(): void;
+  /** The same, with the files of each folder removed concurrently on libuv's thread pool. */
+  runConcurrently(): Promise<void>;
 }
 
 function createCleanup(): Cleanup {
@@ -115,6 +119,25 @@ function createCleanup(): Cleanup {
     run() {
       for (const p of paths) rmSync(p, { recursive: true, force: true });
       paths.clear();
+    },
+    async runConcurrently() {
+      // Removing a file of a few hundred MB that was just written took ~45 ms here, most of it
+      // waiting in the kernel, and a run ends by removing ~10 of them (the spill files and, with
+      // --force, the parts replaced); one after another that was ~0.45 s of every run's end.
+      const folders = [...paths];
+      paths.clear();
+      const files: string[] = [];
+      for (const dir of folders) {
+        let names: string[] = [];
+        try {
+          names = readdirSync(dir);
+        } catch {
+          continue;
+        }
+        for (const n of names) files.push(join(dir, n));
+      }
+      await Promise.all(files.map((f) => rm(f, { recursive: true, force: true })));
+      for (const dir of folders) rmSync(dir, { recursive: true, force: true });
     },
   };
 }
@@ -576,7 +599,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
   } finally {
     for (const w of writers) w.abandon();
     if (pool) await pool.destroy().catch(() => {});
-    cleanup.run();
+    await cleanup.runConcurrently().catch(() => cleanup.run());
     unhook();
   }
 }
