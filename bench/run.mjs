@@ -45,6 +45,7 @@ if (!existsSync(join(root, 'dist', 'cli', 'main.js'))) execFileSync('npm', ['run
 
 const hasTime = spawnSync('/usr/bin/time', ['-f', '%M', 'true'], { encoding: 'utf8' }).status === 0;
 const hasShuf = spawnSync('shuf', ['--version']).status === 0;
+const hasDd = spawnSync('dd', ['--version']).status === 0;
 const hasDuck = existsSync(join(root, 'bench', 'node_modules', '@duckdb', 'node-api'));
 const cli = join(root, 'dist', 'cli', 'main.js');
 const rowdeck = (...a) => [process.execPath, cli, ...a];
@@ -54,6 +55,10 @@ const out = join(tmp, 'out');
 const cases = [
   { name: 'cat', file: big, cmd: ['sh', '-c', `cat '${big}' > /dev/null`] },
   { name: 'cp', file: big, cmd: ['cp', big, join(tmp, 'copy.csv')], clean: join(tmp, 'copy.csv') },
+  // cp may copy inside the kernel (copy_file_range, as coreutils 9 does here) without the bytes
+  // reaching a program; dd reads and writes them through its own memory, 1 MiB at a time, as a
+  // program that looks at every record must.
+  ...(hasDd ? [{ name: 'dd', file: big, cmd: ['dd', `if=${big}`, `of=${join(tmp, 'dd.csv')}`, 'bs=1M', 'status=none'], clean: join(tmp, 'dd.csv') }] : []),
   ...(hasShuf ? [{ name: 'shuf', file: big, cmd: ['shuf', big, '-o', join(tmp, 'shuf.csv')], clean: join(tmp, 'shuf.csv') }] : []),
   { name: 'rowdeck-p8', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--seed', 'bench', '--force', '--quiet'), clean: out },
   { name: 'rowdeck-strat', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--seed', 'bench', '--force', '--quiet'), clean: out },
@@ -100,6 +105,7 @@ const ratio = (a, b) => (a && b ? a / b : null);
 const ratios = {
   'rowdeck-strat / shuf': ratio(r('rowdeck-strat'), r('shuf')),
   'rowdeck-strat / (2 x cp)': ratio(r('rowdeck-strat'), r('cp') && 2 * r('cp')),
+  'rowdeck-strat / (2 x dd)': ratio(r('rowdeck-strat'), r('dd') && 2 * r('dd')),
   'rowdeck-strat big / small': ratio(r('rowdeck-strat'), r('rowdeck-strat-small')),
   'rowdeck-mem64 peak RSS MiB': results['rowdeck-mem64']?.peakRssMiB ?? null,
   'rowdeck-mem64-small peak RSS MiB': results['rowdeck-mem64-small']?.peakRssMiB ?? null,

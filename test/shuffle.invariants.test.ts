@@ -8,6 +8,7 @@ import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest } from '../src/index.js';
+import { BUFFER_CAP, chooseBuckets } from '../src/engine/shuffle.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -306,5 +307,35 @@ describe('invariant 7: failure leaves nothing that looks complete', () => {
     await shuffle({ inputs: [input], out, partitions: 2, force: true });
     expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv']);
     expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
+  });
+});
+
+describe('the memory plan of stage 1', () => {
+  const MiB = 1024 * 1024;
+  it('keeps every scatter buffer within its share of the budget, and at most BUFFER_CAP a bucket and task', () => {
+    for (const memory of [4 * MiB, 64 * MiB, 512 * MiB, 4096 * MiB]) {
+      for (const threads of [1, 2, 8]) {
+        for (const estimate of [1e3, 1.3e8, 2.6e8, 1.3e9, 1.3e10]) {
+          const { bits, bufferBytes } = chooseBuckets(estimate, memory, threads, 2 * threads + 2);
+          const buckets = 2 ** bits;
+          // Per task (scatter.ts gives each of `threads` tasks bufferBytes / threads).
+          const perTask = Math.floor(bufferBytes / threads);
+          expect(perTask).toBeLessThanOrEqual(BUFFER_CAP);
+          expect(perTask).toBeGreaterThanOrEqual(4096);
+          // A quarter of the budget, unless the 4 KiB floor a buffer needs is above it.
+          if (perTask > 4096) expect(buckets * bufferBytes).toBeLessThanOrEqual(memory / 4);
+        }
+      }
+    }
+  });
+
+  it('no longer grows the buffers with the budget: 100 MB and 1 GB inputs touch 64 KiB a bucket and task', () => {
+    // The default budget (512 MiB) and 2 threads, as in the benchmark (bench/run.mjs).
+    const small = chooseBuckets(1.3e8, 512 * MiB, 2, 6);
+    const big = chooseBuckets(1.3e9, 512 * MiB, 2, 6);
+    expect(small.bufferBytes / 2).toBe(64 * 1024);
+    expect(big.bufferBytes / 2).toBe(64 * 1024);
+    // Stage 1 of the 100 MB input touches 8 MiB of buffers a task, not 64 MiB.
+    expect(2 ** small.bits * (small.bufferBytes / 2)).toBe(8 * MiB);
   });
 });
