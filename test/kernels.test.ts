@@ -311,6 +311,7 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
   afterAll(() => {
     delete process.env.ROWDECK_GATHER;
     delete process.env.ROWDECK_SPILL;
+    delete process.env.ROWDECK_JSONL;
     removeDir(dir);
   });
 
@@ -335,7 +336,7 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
     const runs: Record<string, string>[] = [];
     for (const mode of ['js', 'auto']) {
       // Worker threads copy the environment when they start.
-      for (const name of ['ROWDECK_GATHER', 'ROWDECK_SPILL']) {
+      for (const name of ['ROWDECK_GATHER', 'ROWDECK_SPILL', 'ROWDECK_JSONL']) {
         if (mode === 'js') process.env[name] = 'js';
         else delete process.env[name];
       }

@@ -135,6 +135,16 @@ export function fieldKey(b: RecordBatch, i: number, w: number): string {
   }
 }
 
+/** True when `d[s, e)` holds only bytes 0x20-0x7E other than '"' and '\\'. */
+function plainAscii(d: Uint8Array, s: number, e: number): boolean {
+  if (e - s > BYTE_KEY_LIMIT) return false;
+  for (let i = s; i < e; i++) {
+    const c = d[i]!;
+    if (c < 0x20 || c > 0x7e || c === 0x22 || c === 0x5c) return false;
+  }
+  return true;
+}
+
 /** Human form of a canonical stratum key: values decoded, missing shown as null. */
 export function stratumValues(key: string): (string | null)[] {
   return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
@@ -193,10 +203,19 @@ export class ScatterTask {
   #stratumOf(b: RecordBatch, i: number): number {
     const nStrat = this.#c.stratify.length;
     if (nStrat === 0) return this.#strata.length ? 0 : this.#newStratum('');
-    if (nStrat === 1 && !this.#hasBins && b.fieldKind[i * b.wanted] === FieldKind.Plain) {
-      // Plain field: look its bytes up directly; same key as fieldKey() would build.
-      const fs = b.fieldStart[i * b.wanted]!;
-      const fe = b.fieldEnd[i * b.wanted]!;
+    const kind = b.fieldKind[i * b.wanted];
+    if (nStrat === 1 && !this.#hasBins && kind !== FieldKind.Missing) {
+      // Look the field's bytes up directly, where they are the key fieldKey() would build: a
+      // plain field's, or a quoted one's (CSV or JSON string) between the quotes when they are
+      // printable ASCII without a quote or backslash (nothing to decode, and no invalid UTF-8
+      // that decoding would replace).
+      let fs = b.fieldStart[i * b.wanted]!;
+      let fe = b.fieldEnd[i * b.wanted]!;
+      if (kind !== FieldKind.Plain) {
+        fs++;
+        fe--;
+        if (!plainAscii(b.data, fs, fe)) fe = fs;
+      }
       if (fe > fs && fe - fs <= BYTE_KEY_LIMIT) {
         let id = this.#fast.lookup(b.data, fs, fe);
         if (id < 0) {

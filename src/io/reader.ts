@@ -8,6 +8,7 @@ import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRe
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
 import { structuralScanner, WalkStop, type StructuralScanner } from './structural.js';
+import { JsonlChecker, JsonlCheck } from './jsonl.js';
 import { LITTLE_ENDIAN } from '../core/platform.js';
 
 const LF = 0x0a;
@@ -927,6 +928,18 @@ export class RecordReader {
   private wantKeys: Buffer[] | null = null;
   private jScan = 0;
 
+  /** The module's check of JSON objects, once the wanted keys are known (null: JSON.parse only). */
+  private jCheck: JsonlChecker | null = null;
+  private jCheckTried = false;
+
+  private jsonlChecker(d: Buffer, from: number): JsonlChecker | null {
+    if (!this.jCheckTried) {
+      this.jCheckTried = true;
+      this.jCheck = JsonlChecker.create(this.wantKeys!);
+    }
+    return this.jCheck && this.jCheck.load(d, from, d.length) ? this.jCheck : null;
+  }
+
   private parseJsonl(d: Buffer, pos: number, atEnd: boolean): RecordBatch | null {
     const n = d.length, W = this.W, base = this.base;
     let count = 0;
@@ -934,6 +947,7 @@ export class RecordReader {
     // A carried partial line is known to hold no LF in its first jScan bytes: search on from there.
     let skip = this.jScan;
     this.jScan = 0;
+    let jc = this.sch ? this.jsonlChecker(d, pos) : null;
     while (pos < n) {
       let nl = d.indexOf(LF, pos + skip);
       skip = 0;
@@ -948,6 +962,21 @@ export class RecordReader {
       while (a < e && isJsonSpace(d[a]!)) a++;
       if (a === e) { line++; pos = next; continue; }
       if (this.lineEnding === null && nl < n) this.lineEnding = e < nl ? '\r\n' : '\n';
+      // The module's check first: a line it takes needs no JSON.parse and no string.
+      if (jc && jc.check(a, e) === JsonlCheck.Object) {
+        if (count === this.cap) this.grow(count + 1);
+        const fb = count * W;
+        for (let w = 0; w < W; w++) {
+          const o = this.dupOf[w]!;
+          const v = o >= 0 ? o : w;
+          this.fS[fb + w] = jc.start(v); this.fE[fb + w] = jc.end(v); this.fK[fb + w] = jc.kind(v);
+        }
+        this.st[count] = pos; this.en[count] = e; this.nx[count] = next; this.off[count] = base + pos; this.ln[count] = line;
+        count++;
+        line++;
+        pos = next;
+        continue;
+      }
       let obj: unknown;
       let fault: string | null = null;
       let column: number | undefined;
@@ -970,6 +999,7 @@ export class RecordReader {
         this.setColumns(columns);
         this.wantKeys = this.opts.wanted.map((k) => Buffer.from(k, 'utf8'));
         this.sch = { format: 'jsonl', columns, headerBytes: null, lineEnding: this.lineEnding ?? '\n', delimiter: 0 };
+        jc = this.jsonlChecker(d, next);
       }
       if (count === this.cap) this.grow(count + 1);
       const fb = count * W;
