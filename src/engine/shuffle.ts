@@ -66,6 +66,18 @@ function estimateInputBytes(path: string): number {
 }
 
 /**
+ * At most this much buffer per bucket and scatter task. A quarter of the budget used to be spread
+ * over the buckets whatever the input's size (64 MiB a task with the default 512 MiB), and stage
+ * 1 wrote every byte of it for the first time: a page first touched costs the kernel a fault
+ * (~12 µs on the benchmark machine, a virtual machine), 16 k of them a task. Past 64 KiB a
+ * bigger buffer does not make the spill's writes faster (64 KiB writes ran at ~4.6 GB/s here),
+ * so small and medium inputs now touch far less memory: on the 100 MB and 200 MB files stage 1
+ * took 0.65-1.14 s against 0.96-1.46 s, in 3 interleaved rounds each. The 1 GB file already had
+ * 64 KiB a task (1,024 buckets).
+ */
+export const BUFFER_CAP = 64 * 1024;
+
+/**
  * How many spill buckets, and how much buffer each gets in stage 1.
  * - A bucket and its output, for every task in flight, must fit the memory budget.
  * - Stage 1 keeps a buffer per bucket and scatter task: many buckets scatter records over many
@@ -82,18 +94,6 @@ function estimateInputBytes(path: string): number {
  * 512 buckets (~2.4 MiB) gathered in 5.4-6.0 s, 1,024 in
  * 4.4-5.5 s, 2,048 in 5.1 s (smaller reads). Hence a target of 1.5 MiB: buckets of 0.75-1.5 MiB.
  */
-/**
- * At most this much buffer per bucket and scatter task. A quarter of the budget used to be spread
- * over the buckets whatever the input's size (64 MiB a task with the default 512 MiB), and stage
- * 1 wrote every byte of it for the first time: a page first touched costs the kernel a fault
- * (~12 µs on the benchmark machine, a virtual machine), 16 k of them a task. Past 64 KiB a
- * bigger buffer does not make the spill's writes faster (64 KiB writes ran at ~4.6 GB/s here),
- * so small and medium inputs now touch far less memory: on the 100 MB and 200 MB files stage 1
- * took 0.65-1.14 s against 0.96-1.46 s, in 3 interleaved rounds each. The 1 GB file already had
- * 64 KiB a task (1,024 buckets).
- */
-export const BUFFER_CAP = 64 * 1024;
-
 export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number): { bits: number; bufferBytes: number } {
   const memCap = Math.max(64 * 1024, Math.floor(memory / (3 * (inFlight + 1))));
   const target = Math.min(memCap, 1.5 * 1024 * 1024);
