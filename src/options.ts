@@ -48,7 +48,10 @@ export interface ShuffleOptions {
   assign?: 'exact' | 'hash';
   /** Memory budget in bytes, or text like '64MiB', '1GiB'. Default 512 MiB. */
   memory?: number | string;
-  /** Worker threads. Default: the number of cores. */
+  /**
+   * Worker threads. Default: the number of cores, or none for inputs under 32 MiB (starting
+   * threads costs more than it saves there). 0 does all the work on the calling thread.
+   */
   threads?: number;
   /** Folder for spill files. Default: beside the output folder. */
   tempDir?: string;
@@ -98,6 +101,8 @@ export interface ResolvedShuffleOptions {
   assign: 'exact' | 'hash' | 'group';
   memory: number;
   threads: number;
+  /** True when `threads` was not given (the shuffle then works on the calling thread for small inputs). */
+  threadsIsDefault: boolean;
   tempDir: string | null;
   format: InputFormat | null;
   delimiter: string | null;
@@ -211,7 +216,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (typeof seed !== 'string') throw invalid('seed', 'text', seed);
   const partitions = integerOption('partitions', o.partitions, 1, 100000, 1);
   const folds = integerOption('folds', o.folds, 2, 1000, 1);
-  const threads = integerOption('threads', o.threads, 1, 256, Math.max(1, availableParallelism()));
+  const threads = integerOption('threads', o.threads, 0, 256, Math.max(1, availableParallelism()));
   const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
   if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
   const memory = o.memory === undefined ? DEFAULT_MEMORY : parseSize('memory', o.memory);
@@ -253,6 +258,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     assign: group !== null ? 'group' : assign0,
     memory,
     threads,
+    threadsIsDefault: o.threads === undefined,
     tempDir: o.tempDir ?? null,
     format: o.format ?? null,
     delimiter: o.delimiter ?? null,

@@ -64,6 +64,32 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     expect((results[0]!.manifest as Manifest).input.stats).toBeDefined();
   });
 
+  it('gives identical bytes on the calling thread (the default for small inputs) and on workers, in every mode', async () => {
+    const jsonl = join(dir, 'inline.jsonl');
+    const { header, rows } = parseCsv(inputText);
+    writeFileSync(jsonl, rows.slice(0, 5000).map((r) => JSON.stringify(Object.fromEntries(header.map((h, i) => [h, r[i]])))).join('\n') + '\n');
+    const modes: [string, Record<string, unknown>][] = [
+      ['stratified folds with statistics', { partitions: 3, folds: 4, stratify: 'fault', stats: true }],
+      ['groups', { partitions: 2, group: 'sensor', stratify: 'fault', tolerance: 1 }],
+      ['hash assignment by key', { partitions: 3, assign: 'hash', key: 'id', stratify: 'fault', tolerance: 2 }],
+      ['named splits and quantile bins', { split: 'train=0.7,test=0.3', stratify: 'reading:bins=4', folds: 2, tolerance: 1 }],
+      ['JSON Lines', { partitions: 2, stratify: 'fault', inputs: [jsonl] }],
+    ];
+    for (const [name, opts] of modes) {
+      const runs = [];
+      for (const threads of [undefined, 0, 2]) {
+        const out = join(dir, `inline-${name.replace(/\W+/g, '-')}-${threads}`);
+        const m = await shuffle({ inputs: [input], out, seed: 'inline', ...opts, ...(threads === undefined ? {} : { threads }) });
+        // A small input is done on the calling thread unless threads are asked for.
+        expect(m.run.threads).toBe(threads ?? 0);
+        runs.push({ files: outputsOf(out), manifest: stable(m) });
+      }
+      expect(Object.keys(runs[0]!.files).length, name).toBeGreaterThan(1);
+      expect(runs[1], name).toEqual(runs[0]);
+      expect(runs[2], name).toEqual(runs[0]);
+    }
+  });
+
   it('gives identical bytes and rejected records whether workers read the input in blocks or this thread reads it', async () => {
     // A gzip input is read on the main thread; the same bytes uncompressed are parsed by the
     // workers in blocks (tiny ones here, so many start inside quoted line breaks).

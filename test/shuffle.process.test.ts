@@ -26,8 +26,8 @@ function hidden(d: string): string[] {
 }
 
 /** Starts a shuffle and sends `signal` once `ready()` holds (polled every 5 ms). */
-async function interrupt(out: string, signal: NodeJS.Signals, ready: () => boolean): Promise<number | null> {
-  const child = spawn(process.execPath, [CLI, 'shuffle', big, '--out', out, '--memory', '4MiB', '--partitions', '4', '--stratify', 'fault', '--quiet'], {
+async function interrupt(out: string, signal: NodeJS.Signals, ready: () => boolean, extra: string[] = []): Promise<number | null> {
+  const child = spawn(process.execPath, [CLI, 'shuffle', big, '--out', out, '--memory', '4MiB', '--partitions', '4', '--stratify', 'fault', '--quiet', ...extra], {
     stdio: 'ignore',
   });
   const exited = new Promise<number | null>((res) => child.on('exit', (code, sig) => res(sig ? -1 : code)));
@@ -44,12 +44,15 @@ const gatherStarted = (): boolean =>
   hidden(dir).some((f) => f.startsWith('.rowdeck-partial-') && readdirSync(join(dir, f)).some((p) => p.startsWith('part-')));
 
 describe('an interrupted run', () => {
+  // The input (~24 MB) is shuffled on the main thread by default; --threads 2 uses workers.
   it.each([
-    ['SIGTERM', 'scatter', spillStarted],
-    ['SIGINT', 'gather', gatherStarted],
-  ] as const)('%s during %s leaves no output folder and no work folders', async (signal, _stage, ready) => {
-    const out = join(dir, `killed-${signal}`);
-    const code = await interrupt(out, signal, ready);
+    ['SIGTERM', 'scatter', 'the main thread', spillStarted, []],
+    ['SIGINT', 'gather', 'the main thread', gatherStarted, []],
+    ['SIGTERM', 'scatter', 'worker threads', spillStarted, ['--threads', '2']],
+    ['SIGINT', 'gather', 'worker threads', gatherStarted, ['--threads', '2']],
+  ] as const)('%s during %s on %s leaves no output folder and no work folders', async (signal, stage, _on, ready, extra) => {
+    const out = join(dir, `killed-${signal}-${stage}-${extra.length}`);
+    const code = await interrupt(out, signal, ready, [...extra]);
     expect(code).not.toBe(0);
     expect(existsSync(out)).toBe(false);
     expect(hidden(dir)).toEqual([]);

@@ -61,7 +61,9 @@ Output and resources:
   --force                 replace a non-empty DIR (only once the new output is complete)
   --gzip                  compress parts (.gz)
   --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
-  --threads N             worker threads (default: number of cores)
+  --threads N             worker threads (default: number of cores; inputs under 32 MiB are
+                          shuffled on the main thread, faster than starting threads); 0 keeps
+                          all the work on the main thread. The output is the same either way
   --temp-dir DIR          where spill files go (default: beside DIR); removed afterwards
   --stats                 add per-column statistics of the input and of every part to the
                           manifest (types, missing, min/max/mean/sd, frequent values); this

@@ -66,6 +66,8 @@ export interface Manifest {
   run: {
     createdAt: string;
     buckets: number;
+    /** Worker threads used; 0: the calling thread did the work. */
+    threads: number;
     timingsMs: Record<string, number>;
     host: Record<string, unknown>;
   };
@@ -86,6 +88,7 @@ export interface ManifestInput {
   binEdges: BinEdges[];
   deal: DealSpec;
   buckets: number;
+  threads: number;
   parts: PartRecord[];
   deviation: { max: number; kind: 'part' | 'fold'; part: number; stratum: number };
   fingerprints: { input: string; output: string };
@@ -170,6 +173,7 @@ export function buildManifest(m: ManifestInput): Manifest {
     run: {
       createdAt: new Date().toISOString(),
       buckets: m.buckets,
+      threads: m.threads,
       timingsMs: m.timings,
       host: m.host,
     },

@@ -30,8 +30,9 @@ import { partCount, type GatherPlan } from './plan.js';
 import { scatter, stratumValues, type ScatterResult } from './scatter.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
-import type { GatherFinal, GatherWorkerData } from '../workers/gather-worker.js';
-import { WorkerLanes } from '../workers/lanes.js';
+import type { GatherWorkerData } from '../workers/gather-worker.js';
+import { gatherLane, type GatherFinal } from './gather-lane.js';
+import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
 
 /** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
@@ -45,6 +46,14 @@ export function resolveWorkerFile(name = 'gather-worker.js'): string {
 }
 
 const EXT: Record<InputFormat, string> = { csv: '.csv', tsv: '.tsv', jsonl: '.jsonl' };
+
+/**
+ * Inputs under this size (uncompressed, as far as it is known) are shuffled on the calling
+ * thread by default, as `verify` reads small outputs. A worker thread takes ~0.1 s to start here
+ * (an isolate, its modules and their WebAssembly); the 2 MB shuffle took 0.61-0.65 s with four
+ * of them, most of it their start.
+ */
+export const INLINE_MAX_BYTES = 32 * 1024 * 1024;
 
 /** Size of the uncompressed data of a gzip file, from its trailer (mod 2^32), or a guess. */
 function estimateInputBytes(path: string): number {
@@ -287,7 +296,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
   mkdirSync(parent, { recursive: true });
   const cleanup = createCleanup();
   const unhook = onSignals(cleanup);
-  let pool: WorkerLanes<GatherTask, GatherResult, GatherFinal> | null = null;
+  let pool: Lanes<GatherTask, GatherResult, GatherFinal> | null = null;
   const writers: PartWriter[] = [];
   try {
     const spillRoot = o.tempDir ? resolve(o.tempDir) : parent;
@@ -299,9 +308,13 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
     cleanup.paths.add(stage);
 
-    const inFlight = 2 * o.threads + 2;
-    const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
-    const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, o.threads, inFlight);
+    const inputBytes = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0);
+    // Small inputs are done on this thread unless threads were asked for: starting the four
+    // workers of the two stages took longer than the whole work on a few MB.
+    const threads = o.threadsIsDefault && inputBytes < INLINE_MAX_BYTES ? 0 : o.threads;
+    const inFlight = 2 * Math.max(1, threads) + 2;
+    const estimate = inputBytes * 1.3;
+    const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, threads, inFlight);
     const buckets = 2 ** bits;
 
     // Rejected records (quarantine) go to a CSV file inside the output folder.
@@ -345,7 +358,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       group: o.group,
       secret,
       spillDir,
-      threads: o.threads,
+      threads,
       workerFile: resolveWorkerFile('scatter-worker.js'),
       onSchema: (schema) => {
         if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
@@ -478,7 +491,12 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       for (let l = 0; l < sc.strata.length; l++) running[localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
     }
 
-    pool = new WorkerLanes<GatherTask, GatherResult, GatherFinal>(resolveWorkerFile(), o.threads, { planPath } satisfies GatherWorkerData);
+    if (threads === 0) {
+      const lane = gatherLane(planPath);
+      pool = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => lane.handle(t), () => lane.finish());
+    } else {
+      pool = new WorkerLanes<GatherTask, GatherResult, GatherFinal>(resolveWorkerFile(), threads, { planPath } satisfies GatherWorkerData);
+    }
     const counts = new Float64Array(parts * K * nStrata);
     const fps = Array.from({ length: parts }, () => new Fingerprint());
     const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
@@ -590,6 +608,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       binEdges,
       deal,
       buckets,
+      threads,
       parts: partRecords,
       deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },

@@ -1,5 +1,6 @@
 /**
- * Worker entry for stage 2: one task = one bucket (see src/workers/lanes.ts for the protocol).
+ * Worker entry for stage 2: one task = one bucket (see src/workers/lanes.ts for the protocol, and
+ * src/engine/gather-lane.ts for the work, which small inputs do on the calling thread instead).
  *
  *   main thread                              this worker
  *   plan.json in the spill folder  ───────▶  loaded once, cached
@@ -10,45 +11,20 @@
  * Statistics stay here until the end: they merge exactly, so which worker saw which bucket does
  * not change the result, and shipping them per bucket cost more than dealing the bucket.
  */
-import { readFileSync } from 'node:fs';
-import { dirname, join } from 'node:path';
 import { workerData } from 'node:worker_threads';
-import { TableStats, type SerializedStats } from '../core/stats.js';
-import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type GroupTable, type PreparedPlan } from '../engine/gather.js';
-import type { GatherPlan } from '../engine/plan.js';
+import type { GatherResult, GatherTask } from '../engine/gather.js';
+import { gatherLane, type GatherFinal } from '../engine/gather-lane.js';
 import { serveLane } from './lanes.js';
 
 export interface GatherWorkerData {
   planPath: string;
 }
-
-export type GatherFinal = SerializedStats[] | null;
-
-function loadPlan(planPath: string): PreparedPlan {
-  const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
-  let groups: GroupTable | null = null;
-  if (plan.groupsFile) {
-    const raw = readFileSync(join(dirname(planPath), plan.groupsFile));
-    const buf = new Uint8Array(raw).buffer;
-    const n = raw.byteLength / 12;
-    groups = {
-      keyHi: new Uint32Array(buf, 0, n),
-      keyLo: new Uint32Array(buf, n * 4, n),
-      cell: new Uint32Array(buf, n * 8, n),
-    };
-  }
-  return preparePlan(plan, groups);
-}
+export type { GatherFinal };
 
 const { data } = workerData as { lane: number; data: GatherWorkerData };
-const prep = loadPlan(data.planPath);
-const stats = prep.plan.statsColumns.length > 0 ? Array.from({ length: prep.plan.deal.splits.length * prep.plan.deal.partitions }, () => new TableStats(prep.plan.statsColumns)) : null;
+const lane = gatherLane(data.planPath);
 
 serveLane<GatherTask, GatherResult, GatherFinal>(
-  (task) => {
-    const result = gatherBucket(prep, task, stats);
-    // Hand the output bytes over without copying them.
-    return { result, transfer: [result.data.buffer as ArrayBuffer] };
-  },
-  () => ({ final: stats ? stats.map((t) => t.toJSON()) : null }),
+  (task) => lane.handle(task),
+  () => lane.finish(),
 );

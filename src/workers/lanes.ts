@@ -26,7 +26,7 @@ interface Lane<R, F> {
   waiting: Map<number, { resolve: (r: R) => void; reject: (e: Error) => void }>;
 }
 
-export class WorkerLanes<T, R, F> {
+export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   readonly size: number;
   #lanes: Lane<R, F>[] = [];
   #nextId = 0;
@@ -106,6 +106,57 @@ export class WorkerLanes<T, R, F> {
 
   async destroy(): Promise<void> {
     await Promise.all(this.#lanes.map((l) => l.worker.terminate()));
+  }
+}
+
+/** What the stages ask of their lanes, on worker threads (`WorkerLanes`) or not (`InlineLanes`). */
+export interface Lanes<T, R, F> {
+  readonly size: number;
+  run(task: T, transfer?: TransferListItem[]): Promise<R>;
+  finish(): Promise<F[]>;
+  destroy(): Promise<void>;
+}
+
+/**
+ * One lane on the calling thread, with `WorkerLanes`' interface: for inputs so small that
+ * starting threads (~0.1 s each here, an isolate and its modules) costs more than it saves.
+ */
+export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
+  readonly size = 1;
+  readonly #handler: (task: T) => { result: R };
+  readonly #finisher: () => { final: F };
+
+  constructor(handler: (task: T) => { result: R }, finisher: () => { final: F }) {
+    this.#handler = handler;
+    this.#finisher = finisher;
+  }
+
+  /**
+   * Runs the task on a later turn of the event loop, not at once: between tasks the process
+   * still answers signals (Ctrl-C cleans up) and draws progress.
+   */
+  run(task: T): Promise<R> {
+    return new Promise<R>((resolve, reject) => {
+      setImmediate(() => {
+        try {
+          resolve(this.#handler(task).result);
+        } catch (err) {
+          reject(err);
+        }
+      });
+    });
+  }
+
+  finish(): Promise<F[]> {
+    try {
+      return Promise.resolve([this.#finisher().final]);
+    } catch (err) {
+      return Promise.reject(err);
+    }
+  }
+
+  destroy(): Promise<void> {
+    return Promise.resolve();
   }
 }
 

@@ -1,0 +1,48 @@
+/**
+ * What one lane of stage 2 does, wherever it runs: on a worker thread (src/workers/gather-worker.ts)
+ * or, for small inputs, on the calling thread (see `InlineLanes`). It reads the plan with its
+ * first bucket, deals each bucket it is given, and keeps every part's statistics until the end.
+ */
+import { readFileSync } from 'node:fs';
+import { dirname, join } from 'node:path';
+import { TableStats, type SerializedStats } from '../core/stats.js';
+import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type GroupTable, type PreparedPlan } from './gather.js';
+import type { GatherPlan } from './plan.js';
+
+export type GatherFinal = SerializedStats[] | null;
+
+export function loadGatherPlan(planPath: string): PreparedPlan {
+  const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
+  let groups: GroupTable | null = null;
+  if (plan.groupsFile) {
+    const raw = readFileSync(join(dirname(planPath), plan.groupsFile));
+    const buf = new Uint8Array(raw).buffer;
+    const n = raw.byteLength / 12;
+    groups = {
+      keyHi: new Uint32Array(buf, 0, n),
+      keyLo: new Uint32Array(buf, n * 4, n),
+      cell: new Uint32Array(buf, n * 8, n),
+    };
+  }
+  return preparePlan(plan, groups);
+}
+
+export interface GatherLane {
+  /** Deals one bucket; the result's bytes may be handed over without copying. */
+  handle(task: GatherTask): { result: GatherResult; transfer: ArrayBuffer[] };
+  /** Every part's statistics over the buckets this lane dealt (null without --stats). */
+  finish(): { final: GatherFinal };
+}
+
+export function gatherLane(planPath: string): GatherLane {
+  const prep = loadGatherPlan(planPath);
+  const { plan } = prep;
+  const stats = plan.statsColumns.length > 0 ? Array.from({ length: plan.deal.splits.length * plan.deal.partitions }, () => new TableStats(plan.statsColumns)) : null;
+  return {
+    handle(task) {
+      const result = gatherBucket(prep, task, stats);
+      return { result, transfer: [result.data.buffer as ArrayBuffer] };
+    },
+    finish: () => ({ final: stats ? stats.map((t) => t.toJSON()) : null }),
+  };
+}
