@@ -175,6 +175,10 @@ describe('independent of the thread count', () => {
     // The input spans several read chunks, so with 2 threads both workers had work.
     expect(p2.inputs[0]!.bytes).toBeGreaterThan(2 * 1024 * 1024);
     expect(JSON.stringify(p2.columns)).toBe(JSON.stringify(p0.columns)); // bit for bit, key order too
+    // Without --threads, an input under 32 MiB is profiled on the calling thread.
+    const pd = await profile(opts);
+    expect(pd.threads).toBe(0);
+    expect(stripRun(pd)).toEqual(stripRun(p0));
   });
 
   it('workers parsing the input in blocks give the profile of a sequential read', async () => {

@@ -106,7 +106,8 @@ Options:
   --partitions N          warn about classes that N partitions cannot all hold
   --folds K               warn about classes that K folds cannot all hold
   --tolerance X           the tolerance those warnings check against (default 0.5, as shuffle)
-  --threads N             worker threads (default: number of cores)
+  --threads N             worker threads (default: number of cores, or none for inputs under
+                          32 MiB); 0 keeps the work on the main thread
   --format, --delimiter, --no-header   as for shuffle
   --on-bad-record MODE    fail (default), or skip: count malformed records, list the first 20
   --exclude-values        leave data values (min/max, frequent values, class names) out

@@ -25,7 +25,7 @@ import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isPlainFile, nameInput, openInput } from '../io/input.js';
+import { detectFormat, isPlainFile, nameInput, openInput, smallInputs } from '../io/input.js';
 import { readInBlocks, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
@@ -73,7 +73,10 @@ export interface ProfileOptions {
   onBadRecord?: 'fail' | 'skip';
   /** Leave data values out: min/max, frequent values, class names, bin edges, reject reasons. */
   excludeValues?: boolean;
-  /** Worker threads for the statistics. Default: the number of cores; 0 works on the calling thread. */
+  /**
+   * Worker threads for the statistics. Default: the number of cores, or none for inputs under
+   * 32 MiB; 0 works on the calling thread.
+   */
   threads?: number;
   onProgress?: (e: ProfileProgress) => void;
 }
@@ -201,7 +204,8 @@ export function resolveProfileOptions(o: ProfileOptions): ResolvedProfileOptions
     header: o.header ?? true,
     onBadRecord,
     excludeValues: o.excludeValues ?? false,
-    threads: readInteger('threads', o.threads, 0, 256, Math.max(1, availableParallelism())),
+    // Small inputs are profiled on this thread unless threads are asked for (see INLINE_MAX_BYTES).
+    threads: readInteger('threads', o.threads, 0, 256, smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism())),
     onProgress: o.onProgress ?? null,
   };
 }

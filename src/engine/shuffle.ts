@@ -10,7 +10,7 @@
  * Spill files live in their own hidden folder, removed on success and on failure.
  */
 import { rm } from 'node:fs/promises';
-import { mkdirSync, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeFileSync, openSync, readSync, closeSync } from 'node:fs';
+import { mkdirSync, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { existsSync } from 'node:fs';
@@ -21,7 +21,7 @@ import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
-import { detectFormat, isStreamInput } from '../io/input.js';
+import { detectFormat, estimateInputBytes, isStreamInput, smallInputs } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
@@ -46,33 +46,6 @@ export function resolveWorkerFile(name = 'gather-worker.js'): string {
 }
 
 const EXT: Record<InputFormat, string> = { csv: '.csv', tsv: '.tsv', jsonl: '.jsonl' };
-
-/**
- * Inputs under this size (uncompressed, as far as it is known) are shuffled on the calling
- * thread by default, as `verify` reads small outputs. A worker thread takes ~0.1 s to start here
- * (an isolate, its modules and their WebAssembly); the 2 MB shuffle took 0.61-0.65 s with four
- * of them, most of it their start.
- */
-export const INLINE_MAX_BYTES = 32 * 1024 * 1024;
-
-/** Size of the uncompressed data of a gzip file, from its trailer (mod 2^32), or a guess. */
-function estimateInputBytes(path: string): number {
-  // A stream cannot be looked into without taking its bytes: guess.
-  if (isStreamInput(path)) return 1024 ** 3;
-  const st = statSync(path);
-  let fd = -1;
-  try {
-    fd = openSync(path, 'r');
-    const head = Buffer.alloc(2);
-    readSync(fd, head, 0, 2, 0);
-    if (head[0] !== 0x1f || head[1] !== 0x8b || st.size < 18) return st.size;
-    const tail = Buffer.alloc(4);
-    readSync(fd, tail, 0, 4, st.size - 4);
-    return Math.max(tail.readUInt32LE(0), st.size * 4);
-  } finally {
-    if (fd >= 0) closeSync(fd);
-  }
-}
 
 /**
  * At most this much buffer per bucket and scatter task. A quarter of the budget used to be spread
@@ -311,7 +284,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const inputBytes = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0);
     // Small inputs are done on this thread unless threads were asked for: starting the four
     // workers of the two stages took longer than the whole work on a few MB.
-    const threads = o.threadsIsDefault && inputBytes < INLINE_MAX_BYTES ? 0 : o.threads;
+    const threads = o.threadsIsDefault && smallInputs(o.inputs) ? 0 : o.threads;
     const inFlight = 2 * Math.max(1, threads) + 2;
     const estimate = inputBytes * 1.3;
     const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, threads, inFlight);
