@@ -1,5 +1,5 @@
 /**
- * What one lane of stage 2 does, wherever it runs: on a worker thread (src/workers/gather-worker.ts)
+ * What one lane of stage 2 does, wherever it runs: on a worker thread (src/workers/shuffle-worker.ts)
  * or, for small inputs, on the calling thread (see `InlineLanes`). It reads the plan with its
  * first bucket, deals each bucket it is given, and keeps every part's statistics until the end.
  */

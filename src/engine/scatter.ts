@@ -61,8 +61,13 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   secret: Secret;
   /** Scatter worker threads; 0 runs the tasks' work on the calling thread. */
   threads: number;
-  /** Path of the compiled scatter worker module (needed when threads > 0). */
+  /** Path of the compiled scatter worker module (needed when threads > 0 and `lanes` is not given). */
   workerFile?: string;
+  /**
+   * Lanes to run the tasks on, started by the caller with `scatterTaskConfig(o)` as their data
+   * and kept by it (the shuffle hands the same threads stage 2's buckets afterwards).
+   */
+  lanes?: ScatterLanes;
   /** Called once with the first input's schema, before any record is scattered; may throw. */
   onSchema?: (schema: InputSchema) => void;
   onProgress?: (bytes: number, records: number) => void;
@@ -475,10 +480,13 @@ export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: numbe
 /** What the main thread sends a scatter worker: a packed batch it read itself, or block work. */
 export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
 
-export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
-  const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
+/** Lanes that run scatter tasks: one worker each, or the caller's (see `ScatterOptions.lanes`). */
+export type ScatterLanes = WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>;
+
+/** What every scatter task is told (its lane number aside): the worker data of the scatter lanes. */
+export function scatterTaskConfig(o: Omit<ScatterOptions, 'path' | 'chunks'>): Omit<ScatterTaskConfig, 'task'> {
   const tasks = Math.max(1, o.threads);
-  const config: Omit<ScatterTaskConfig, 'task'> = {
+  return {
     inputs: o.inputs,
     stratify: o.stratify,
     bins: o.bins ?? o.stratify.map(() => null),
@@ -490,6 +498,12 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
   };
+}
+
+export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
+  const wanted = [...o.stratify, ...o.key, ...(o.group !== null ? [o.group] : [])];
+  const tasks = Math.max(1, o.threads);
+  const config = scatterTaskConfig(o);
   const inputs = o.inputs.map((path) => ({ path, bytes: 0, records: 0, rejected: 0 }));
   let schema: InputSchema | null = null;
   const takeSchema = (sch: InputSchema): void => {
@@ -499,8 +513,9 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   };
 
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
-  if (!inline && !o.workerFile) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
-  const lanes = inline ? null : new WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>(o.workerFile!, tasks, config);
+  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+  const ownLanes = !inline && !o.lanes;
+  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>(o.workerFile!, tasks, config));
   const sender = lanes ? new BatchSender(lanes) : null;
   const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
     takeSchema(sch);
@@ -560,7 +575,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     inline?.abandon();
     throw err;
   } finally {
-    await lanes?.destroy();
+    if (ownLanes) await lanes?.destroy();
   }
 }
 

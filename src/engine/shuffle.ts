@@ -27,16 +27,16 @@ import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import type { GatherResult, GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { scatter, stratumValues, type ScatterResult } from './scatter.js';
+import { scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
+import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
-import type { GatherWorkerData } from '../workers/gather-worker.js';
 import { gatherLane, type GatherFinal } from './gather-lane.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
 
 /** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
-export function resolveWorkerFile(name = 'gather-worker.js'): string {
+export function resolveWorkerFile(name = 'shuffle-worker.js'): string {
   const here = dirname(fileURLToPath(import.meta.url));
   const beside = join(here, '..', 'workers', name);
   if (existsSync(beside)) return beside;
@@ -318,7 +318,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
 
     // ---- stage 1: scatter ----
     const totalBytes = o.inputs.reduce((a, p) => a + (isStreamInput(p) ? 0 : statSync(p).size), 0);
-    const sc: ScatterResult = await scatter({
+    const scatterOptions: ScatterOptions = {
       inputs: o.inputs,
       format,
       delimiter: o.delimiter ?? undefined,
@@ -332,7 +332,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       secret,
       spillDir,
       threads,
-      workerFile: resolveWorkerFile('scatter-worker.js'),
       onSchema: (schema) => {
         if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
           throw new RowdeckError(
@@ -348,7 +347,15 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // Hash mode: cells follow from keys alone, so stage 1 can count them on the way.
       hashCells: o.assign === 'hash' ? { deal: { splits: o.splits, exactCounts: false, partitions: o.partitions, folds: o.folds }, cellSecret: Array.from(cellSecret) } : null,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
-    });
+    };
+    // The same threads do both stages (shuffle-worker.ts): started here, kept for stage 2.
+    let lanes: WorkerLanes<ScatterMessage | GatherTask, BlockReply | GatherResult, ScatterTaskResult | GatherFinal> | null = null;
+    if (threads > 0) {
+      lanes = new WorkerLanes(resolveWorkerFile(), threads, scatterTaskConfig(scatterOptions));
+      pool = lanes as unknown as Lanes<GatherTask, GatherResult, GatherFinal>;
+      scatterOptions.lanes = lanes as unknown as ScatterLanes;
+    }
+    const sc: ScatterResult = await scatter(scatterOptions);
     timings.scatterMs = Date.now() - t0;
     const tPlan = Date.now();
 
@@ -467,9 +474,9 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     if (threads === 0) {
       const lane = gatherLane(planPath);
       pool = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => lane.handle(t), () => lane.finish());
-    } else {
-      pool = new WorkerLanes<GatherTask, GatherResult, GatherFinal>(resolveWorkerFile(), threads, { planPath } satisfies GatherWorkerData);
     }
+    // Otherwise stage 1's threads deal the buckets; each reads plan.json with its first.
+    if (!pool) throw new RowdeckError('ERR_INTERNAL', 'no lanes for stage 2');
     const counts = new Float64Array(parts * K * nStrata);
     const fps = Array.from({ length: parts }, () => new Fingerprint());
     const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;

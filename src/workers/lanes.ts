@@ -1,10 +1,10 @@
 /**
  * A small pool of worker threads ("lanes") that keep state between tasks and are each asked to
- * finish at the end. Both stages need that: a scatter worker holds its spill buffers and counts
- * until the input ends, a gather worker accumulates each part's statistics over all the buckets
+ * finish at the end. Both stages need that: a scatter task holds its spill buffers and counts
+ * until the input ends, a gather lane accumulates each part's statistics over all the buckets
  * it deals (creating and shipping statistics per bucket measured slower than the dealing itself).
  * A general pool routes tasks to any worker and has no "every worker, finish now" step, hence
- * this one.
+ * this one. A shuffle asks its lanes to finish twice: once at the end of each stage.
  *
  *   main thread                              worker thread k
  *   run(task) ──{ id, task } (transfer)──▶  handler(task) ──▶ { id, result } (transfer)
