@@ -73,6 +73,24 @@ describe('an interrupted run', () => {
   });
 });
 
+describe('Node flags', () => {
+  // A V8 flag such as --max-old-space-size cannot be handed to a worker explicitly
+  // (ERR_WORKER_INVALID_EXEC_ARGV); it used to stop every run on worker threads.
+  it('a run on worker threads starts under V8 flags, from the CLI and from an inline module script', () => {
+    const small = join(dir, 'flags.csv');
+    writeFileSync(small, makeSensorCsv({ rows: 2000, seed: 3 }));
+    const cli = spawnSync(process.execPath, ['--max-old-space-size=2048', CLI, 'shuffle', small, '--out', join(dir, 'flags-cli'), '--threads', '2', '--quiet'], { encoding: 'utf8' });
+    expect(cli.status, cli.stderr).toBe(0);
+    const script = `
+      const { shuffle } = await import(${JSON.stringify(INDEX)});
+      const m = await shuffle({ inputs: [${JSON.stringify(small)}], out: ${JSON.stringify(join(dir, 'flags-lib'))}, threads: 2 });
+      process.stdout.write(String(m.run.threads));`;
+    const lib = spawnSync(process.execPath, ['--input-type=module', '--max-old-space-size=2048', '-e', script], { encoding: 'utf8' });
+    expect(lib.status, lib.stderr).toBe(0);
+    expect(lib.stdout).toBe('2');
+  });
+});
+
 describe('memory', () => {
   /** Peak RSS (KiB) of a child process shuffling `input` with `memory`. */
   function peakRss(input: string, memory: string): number {

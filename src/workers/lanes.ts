@@ -26,6 +26,26 @@ interface Lane<R, F> {
   waiting: Map<number, { resolve: (r: R) => void; reject: (e: Error) => void }>;
 }
 
+/** Flags that only make sense for an inline script (`node --input-type=module -e …`). */
+const INLINE_SCRIPT_FLAG = /^--(input-type|eval|print)(=|$)/;
+
+/**
+ * A worker thread running `file`, with the process's Node flags where it can take them.
+ * - By default a worker inherits the process's flags, V8's among them (`--max-old-space-size`).
+ * - Flags for an inline script would stop a file worker from starting, so they are left out; a
+ *   list given explicitly must not hold V8 flags, though (ERR_WORKER_INVALID_EXEC_ARGV), so
+ *   when it does the worker starts without Node flags (V8's apply to every thread anyway).
+ */
+function startWorker(file: string, workerData: unknown): Worker {
+  if (!process.execArgv.some((a) => INLINE_SCRIPT_FLAG.test(a))) return new Worker(file, { workerData });
+  try {
+    return new Worker(file, { workerData, execArgv: process.execArgv.filter((a) => !INLINE_SCRIPT_FLAG.test(a)) });
+  } catch (err) {
+    if ((err as NodeJS.ErrnoException).code !== 'ERR_WORKER_INVALID_EXEC_ARGV') throw err;
+    return new Worker(file, { workerData, execArgv: [] });
+  }
+}
+
 export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   readonly size: number;
   #lanes: Lane<R, F>[] = [];
@@ -35,10 +55,7 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   constructor(file: string, size: number, workerData: unknown) {
     this.size = size;
     for (let k = 0; k < size; k++) {
-      // Workers inherit the process's Node flags; those that only make sense for an inline script
-      // (--input-type, as in `node --input-type=module -e …`) would stop a file worker from starting.
-      const execArgv = process.execArgv.filter((a) => !/^--(input-type|eval|print)(=|$)/.test(a));
-      const worker = new Worker(file, { workerData: { lane: k, data: workerData }, execArgv });
+      const worker = startWorker(file, { lane: k, data: workerData });
       const lane: Lane<R, F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
       worker.on('message', (m: FromWorker<R, F>) => {
         if (m.kind === 'final') {
