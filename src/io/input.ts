@@ -221,8 +221,8 @@ export async function* readInput(
  * Inputs under this size (uncompressed, as far as it is known) are shuffled and profiled on the
  * calling thread by default, as `verify` reads small outputs. A worker thread takes ~0.1 s to
  * start here (an isolate, its modules and their WebAssembly): the example's shuffle took
- * 0.26 s on the calling thread against 0.51-0.54 s with workers, a 20 MB file's profile 0.48 s
- * against 0.83 s.
+ * 0.24-0.29 s on the calling thread against 0.40-0.43 s on two workers (0.51-0.54 s when each
+ * stage started its own), a 20 MB file's profile 0.48 s against 0.83 s.
  */
 export const INLINE_MAX_BYTES = 32 * 1024 * 1024;
 
