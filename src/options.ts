@@ -5,6 +5,7 @@
  */
 import { availableParallelism } from 'node:os';
 import { RowdeckError } from './errors.js';
+import { smallInputs } from './io/input.js';
 import type { BadRecordPolicy, InputFormat } from './io/batch.js';
 import type { SplitSpec } from './core/deal.js';
 
@@ -101,8 +102,6 @@ export interface ResolvedShuffleOptions {
   assign: 'exact' | 'hash' | 'group';
   memory: number;
   threads: number;
-  /** True when `threads` was not given (the shuffle then works on the calling thread for small inputs). */
-  threadsIsDefault: boolean;
   tempDir: string | null;
   format: InputFormat | null;
   delimiter: string | null;
@@ -216,7 +215,8 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (typeof seed !== 'string') throw invalid('seed', 'text', seed);
   const partitions = integerOption('partitions', o.partitions, 1, 100000, 1);
   const folds = integerOption('folds', o.folds, 2, 1000, 1);
-  const threads = integerOption('threads', o.threads, 0, 256, Math.max(1, availableParallelism()));
+  // Small inputs are shuffled on the calling thread unless threads are asked for (INLINE_MAX_BYTES).
+  const threads = integerOption('threads', o.threads, 0, 256, smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism()));
   const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
   if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
   const memory = o.memory === undefined ? DEFAULT_MEMORY : parseSize('memory', o.memory);
@@ -258,7 +258,6 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     assign: group !== null ? 'group' : assign0,
     memory,
     threads,
-    threadsIsDefault: o.threads === undefined,
     tempDir: o.tempDir ?? null,
     format: o.format ?? null,
     delimiter: o.delimiter ?? null,

@@ -484,7 +484,7 @@ export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | BlockMessa
 export type ScatterLanes = WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>;
 
 /** What every scatter task is told (its lane number aside): the worker data of the scatter lanes. */
-export function scatterTaskConfig(o: Omit<ScatterOptions, 'path' | 'chunks'>): Omit<ScatterTaskConfig, 'task'> {
+export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 'task'> {
   const tasks = Math.max(1, o.threads);
   return {
     inputs: o.inputs,

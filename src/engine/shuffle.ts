@@ -21,7 +21,7 @@ import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
-import { detectFormat, estimateInputBytes, INLINE_MAX_BYTES, isStreamInput } from '../io/input.js';
+import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
@@ -281,12 +281,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
     cleanup.paths.add(stage);
 
-    const inputBytes = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0);
-    // Small inputs are done on this thread unless threads were asked for: starting the four
-    // workers of the two stages took longer than the whole work on a few MB.
-    const threads = o.threadsIsDefault && inputBytes < INLINE_MAX_BYTES ? 0 : o.threads;
+    // 0 threads (small inputs by default, see resolveShuffleOptions): all on this thread.
+    const threads = o.threads;
     const inFlight = 2 * Math.max(1, threads) + 2;
-    const estimate = inputBytes * 1.3;
+    const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * 1.3;
     const { bits, bufferBytes: spillBuffer } = chooseBuckets(estimate, o.memory, threads, inFlight);
     const buckets = 2 ** bits;
 
