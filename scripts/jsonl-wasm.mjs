@@ -20,11 +20,8 @@
 // JSON.parse builds every object, and the reader first made a string of every line for it: that
 // was ~70 % of reading JSON Lines (node --cpu-prof, stage 1 of a 200 MB file).
 import { fileURLToPath } from 'node:url';
-import { get, i32, wasmModule } from './wasm-module.mjs';
+import { add, get, i32, inc, set, wasmModule } from './wasm-module.mjs';
 
-const set = (x, v) => `(local.set $${x} ${v})`;
-const add = (a, b) => `(i32.add ${a} ${b})`;
-const inc = (x, n = 1) => set(x, add(get(x), i32(n)));
 const byte = (at) => `(i32.load8_u ${at})`;
 /** The byte at $i into $c, or return 1 (not an object) at the end of the line. */
 const load = `(if (i32.ge_u ${get('i')} ${get('e')}) (then (return (i32.const 1))))

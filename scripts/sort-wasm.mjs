@@ -12,12 +12,9 @@
 // Moving the digit with its index keeps each pass's reads sequential; the JavaScript sort looks
 // each digit up through the index and pays bounds checks on every step.
 import { fileURLToPath } from 'node:url';
-import { get, wasmModule } from './wasm-module.mjs';
+import { add, get, inc, set, wasmModule } from './wasm-module.mjs';
 
-const set = (x, v) => `(local.set $${x} ${v})`;
-const add = (a, b) => `(i32.add ${a} ${b})`;
 const at4 = (base, i) => add(get(base), `(i32.shl ${get(i)} (i32.const 2))`);
-const inc = (x) => set(x, add(get(x), '(i32.const 1)'));
 
 /** for ($i = 0; $i < limit; $i++) body */
 function loop(label, limit, body) {

@@ -15,7 +15,7 @@
 // - writes three 64-bit masks a turn: delimiters outside quotes, LFs outside quotes (record
 //   ends), LFs inside quotes (for line numbers).
 import { fileURLToPath } from 'node:url';
-import { wasmModule } from './wasm-module.mjs';
+import { add, set, wasmModule } from './wasm-module.mjs';
 
 /** 64-bit mask of the 64 bytes at $p + off equal to the byte splatted in `vec`. */
 function mask(vec, off) {
@@ -95,8 +95,6 @@ ${walk()}
 // The walk over the masks (reader.ts: scanIndexed), as the JavaScript loop it replaces did it.
 const IN = 64; // where structural.ts copies the data: the byte before a record end is at IN - 1 + end
 const g = (x) => `(local.get $${x})`;
-const set = (x, v) => `(local.set $${x} ${v})`;
-const add = (a, b) => `(i32.add ${a} ${b})`;
 const at4 = (base, i) => add(base, `(i32.shl ${i} (i32.const 2))`);
 const masksOf = (m) => ['dm', 'lm', 'lq'].map((x) => set(x, `(i64.and ${g(x)} ${m})`)).join(' ');
 

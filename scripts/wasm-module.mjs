@@ -55,6 +55,10 @@ ${lines};
 
 export const get = (x) => `(local.get $${x})`;
 export const i32 = (x) => `(i32.const ${x | 0})`;
+export const set = (x, v) => `(local.set $${x} ${v})`;
+export const add = (a, b) => `(i32.add ${a} ${b})`;
+/** Adds n (default 1) to the local $x. */
+export const inc = (x, n = 1) => set(x, add(get(x), i32(n)));
 
 /**
  * Copies $len bytes from $from to $to, 16 a step: writes up to 15 bytes past $to + $len and reads
