@@ -6,7 +6,7 @@
  * (or a plain concatenation) give and the fingerprints src/core/hash.ts computes; and whole
  * shuffles give the same bytes and manifests with them as without.
  */
-import { mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { GATHER_WASM_BASE64 } from '../src/engine/gather-wasm.js';
@@ -95,6 +95,11 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
     removeDir(dir);
   });
 
+  /** Every spill file the writer made, one after another (ranges without a chunk have none). */
+  function spillFiles(w: BucketWriter): Buffer {
+    return Buffer.concat(w.paths.filter((p) => existsSync(p)).map((p) => readFileSync(p)));
+  }
+
   /** Random records (lengths 0..300, some past a 4 KiB buffer, every length mod 4), in batches. */
   function batches(seed: number): { data: Buffer; ends: number[] }[] {
     const rnd = createRandom(seed);
@@ -147,7 +152,7 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
       offset += data.length;
     }
     w.close();
-    return { file: readFileSync(join(sub, spillFileName(0))), w, fp, expected };
+    return { file: spillFiles(w), w, fp, expected };
   }
 
   it.each([1, 2])('random records, seed %i: same file, chunks, counts and fingerprint', (seed) => {
@@ -160,7 +165,9 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
     // Both equal the byte-wise fingerprint of hash.ts over the records as given.
     expect([auto.fp.toHex(), auto.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
     expect([js.fp.toHex(), js.fp.count]).toEqual([js.expected.toHex(), js.expected.count]);
-    expect(readdirSync(join(dir, `auto-${seed}`))).toEqual([spillFileName(0)]);
+    // One file per range of buckets (16 buckets: one each), named by task and range.
+    expect(readdirSync(join(dir, `auto-${seed}`)).sort()).toEqual(Array.from({ length: 16 }, (_, r) => spillFileName(0, r)));
+    expect(auto.w.paths).toEqual(Array.from({ length: 16 }, (_, r) => join(dir, `auto-${seed}`, spillFileName(0, r))));
   });
 
   it('enqueueRun keys, buckets and counts records as append does with hash.ts keys (offsets past 2^32)', () => {
@@ -208,7 +215,7 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
         }
       }
       w.close();
-      return { file: readFileSync(join(sub, spillFileName(0))), w, counts };
+      return { file: spillFiles(w), w, counts };
     };
     const a = write2('append');
     const e = write2('enqueue');

@@ -201,6 +201,42 @@ describe('invariant 2: nothing lost, nothing invented', () => {
     expect(existsSync(out)).toBe(false);
   });
 
+  it.each([0, 1])('removes each range of spill files once stage 2 has passed it (threads %i)', async (threads) => {
+    const tmp = join(dir, `shrink-tmp-${threads}`);
+    mkdirSync(tmp);
+    const out = join(dir, `inv2-shrink-${threads}`);
+    const spillFiles = (): string[] => readdirSync(tmp).flatMap((d) => readdirSync(join(tmp, d)).filter((x) => x.endsWith('.spill')));
+    // Files present at each gather event, by range (scatter-TTTT-RR.spill).
+    const seen: { done: number; total: number; ranges: Set<number> }[] = [];
+    const m = await shuffle({
+      inputs: [input], out, seed: 's', partitions: 2, memory: '1MiB', threads, tempDir: tmp,
+      onProgress: (p) => {
+        if (p.stage !== 'gather') return;
+        seen.push({ done: p.done, total: p.total, ranges: new Set(spillFiles().map((f) => Number(f.slice(-8, -6)))) });
+      },
+    });
+    const total = seen[0]!.total;
+    // Enough buckets for every one of the 16 ranges to hold two or more.
+    expect(total).toBeGreaterThanOrEqual(32);
+    const perRange = total / 16;
+    // Stage 2 begins with all 16 ranges on disk.
+    expect([...seen[0]!.ranges].sort((a, b) => a - b)).toEqual(Array.from({ length: 16 }, (_, r) => r));
+    // No range comes back; none is removed before stage 2 has dealt all its buckets, and none is
+    // left once stage 2 has dealt the next range too (removal runs beside the dealing, at most
+    // one range behind).
+    for (let k = 1; k < seen.length; k++) {
+      const { done, ranges } = seen[k]!;
+      for (const r of ranges) expect(seen[k - 1]!.ranges.has(r)).toBe(true);
+      for (let r = 0; r < 16; r++) {
+        if (!ranges.has(r)) expect(done).toBeGreaterThanOrEqual((r + 1) * perRange);
+        if (done >= (r + 2) * perRange) expect(ranges.has(r)).toBe(false);
+      }
+    }
+    expect(seen.at(-1)!.ranges.size).toBeLessThanOrEqual(1);
+    expect(spillFiles()).toEqual([]);
+    expect(m.output.fingerprint).toBe(m.input.fingerprint);
+  });
+
   it('keeps record bytes exactly: CRLF records, embedded line breaks and unicode', async () => {
     const text = makeSensorCsv({ rows: 3000, seed: 5, crlf: true, noFinalNewline: true });
     const file = join(dir, 'crlf.csv');

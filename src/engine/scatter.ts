@@ -23,7 +23,7 @@ import { inputReaderOptions, isPlainFile, readInput } from '../io/input.js';
 import { readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { BucketWriter, QUEUE, type SpillPiece } from './spill.js';
+import { BucketWriter, QUEUE, spillRanges, type SpillPiece } from './spill.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 
 /** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
@@ -91,8 +91,9 @@ export interface ScatterTaskResult {
   /** `bucketCounts[stratum][bucket]`. */
   bucketCounts: Float64Array[];
   bucketBytes: Float64Array;
-  /** The task's spill file and, per bucket, its chunks there: [offset, length, …]. */
-  path: string;
+  /** The task's spill files (one per range of buckets, see spillRanges; a file may not exist if
+   * its range got no records) and, per bucket, its chunks in its range's file: [offset, length, …]. */
+  paths: string[];
   chunks: number[][];
   records: number;
   fingerprint: { hi: number; lo: number; count: number };
@@ -112,6 +113,8 @@ export interface ScatterResult {
   taskStrata: number[][];
   /** Per bucket: where its records lie, chunks of every task's spill file (task order). */
   bucketPieces: SpillPiece[][];
+  /** Per range of buckets (see spillRanges): every task's spill file for it. */
+  rangeFiles: string[][];
   inputs: { path: string; bytes: number; records: number; rejected: number }[];
   records: number;
   rejected: number;
@@ -351,7 +354,7 @@ export class ScatterTask {
       strata: this.#strata,
       bucketCounts: this.#bucketCounts,
       bucketBytes: this.#writer.bytes,
-      path: this.#writer.path,
+      paths: this.#writer.paths,
       chunks: this.#writer.chunks,
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
@@ -635,20 +638,24 @@ export function mergeScatterResults(
       }),
     );
   }
+  const { ranges, perRange } = spillRanges(buckets);
   const bucketPieces = Array.from({ length: buckets }, (_, b) => {
     const pieces: SpillPiece[] = [];
     results.forEach((r, t) => {
       const c = r.chunks[b]!;
-      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path: r.path, offset: c[k]!, length: c[k + 1]! });
+      const path = r.paths[Math.floor(b / perRange)]!;
+      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path, offset: c[k]!, length: c[k + 1]! });
     });
     return pieces;
   });
+  const rangeFiles = Array.from({ length: ranges }, (_, g) => results.map((r) => r.paths[g]!));
   return {
     schema,
     strata,
     bucketCounts,
     taskStrata,
     bucketPieces,
+    rangeFiles,
     inputs,
     records: results.reduce((a, r) => a + r.records, 0),
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),

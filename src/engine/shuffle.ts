@@ -32,6 +32,7 @@ import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
 import { gatherLane, type GatherFinal } from './gather-lane.js';
+import { spillRanges } from './spill.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
 
@@ -104,12 +105,20 @@ interface Cleanup {
   run(): void;
   /** The same, with the files of each folder removed concurrently on libuv's thread pool. */
   runConcurrently(): Promise<void>;
+  /** Starts removing files that are no longer needed; resolves once they are gone (runConcurrently waits for them too). */
+  removeEarly(files: string[]): Promise<void>;
 }
 
 function createCleanup(): Cleanup {
   const paths = new Set<string>();
+  const early: Promise<unknown>[] = [];
   return {
     paths,
+    removeEarly(files) {
+      const done = Promise.all(files.map((f) => rm(f, { force: true }).catch(() => {}))).then(() => {});
+      early.push(done);
+      return done;
+    },
     run() {
       for (const p of paths) rmSync(p, { recursive: true, force: true });
       paths.clear();
@@ -118,6 +127,7 @@ function createCleanup(): Cleanup {
       // Removing a file of a few hundred MB that was just written took ~45 ms here, most of it
       // waiting in the kernel, and a run ends by removing ~10 of them (the spill files and, with
       // --force, the parts replaced); one after another that was ~0.45 s of every run's end.
+      await Promise.all(early.splice(0));
       const folders = [...paths];
       paths.clear();
       const files: string[] = [];
@@ -491,6 +501,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       pending.set(b, p);
     };
     let next = 0;
+    const { perRange } = spillRanges(buckets);
+    let removing: Promise<void> = Promise.resolve();
     // Stage 2 begins: the spill files are complete and closed.
     o.onProgress?.({ stage: 'gather', done: 0, total: buckets, records, elapsedMs: Date.now() - t0 });
     while (next < buckets && next < inFlight) submit(next++);
@@ -507,6 +519,13 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
       spare.push(r.data.buffer as ArrayBuffer);
+      // Buckets are dealt in order: past the last bucket of a range, no task reads its files again.
+      // The removal runs beside the dealing; the previous range's is waited for here, so the
+      // spill never lags more than a range behind.
+      if ((b + 1) % perRange === 0 || b === buckets - 1) {
+        await removing;
+        removing = cleanup.removeEarly(sc.rangeFiles[Math.floor(b / perRange)]!);
+      }
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
     }

@@ -9,11 +9,15 @@
  * `term` is the record's line terminator: 0 none (last record of an input), 1 LF, 2 CRLF.
  * `stratum` is the scatter task's local stratum id; the plan maps it to the dealing order.
  *
- * Each scatter task writes ONE spill file: a bucket's buffer, when full, is appended to it as a
- * chunk, and the task keeps the (offset, length) of every chunk per bucket. Stage 2 reads a bucket
- * as its chunks from every task's file. One file per bucket was simpler, but creating a file cost
- * about a millisecond on the file systems measured here (more than the rest of stage 1 for
- * thousands of buckets), and it tied the bucket count to the open-file limit.
+ * Each scatter task writes a few spill files, one per range of buckets (`SPILL_FILES` at most): a
+ * bucket's buffer, when full, is appended to its range's file as a chunk, and the task keeps the
+ * (offset, length) of every chunk per bucket. Stage 2 reads a bucket as its chunks from every
+ * task's file for that range, and deals the buckets in order, so it removes a range's files as
+ * soon as it has passed the range: the spill shrinks as the parts grow, and the disk holds about
+ * the spill and a range's parts at once instead of the spill and all the parts. One file per
+ * bucket was simpler, but creating a file cost about a millisecond on the file systems measured
+ * here (more than the rest of stage 1 for thousands of buckets), and it tied the bucket count to
+ * the open-file limit.
  */
 import { closeSync, openSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
@@ -48,8 +52,18 @@ function spillKernel(): SpillKernel | null {
 export const HEADER_BYTES = 24;
 export const HEADER_WORDS = 6;
 
-export function spillFileName(task: number): string {
-  return `scatter-${String(task).padStart(4, '0')}.spill`;
+/** Spill files a scatter task writes at most: one per range of buckets. */
+export const SPILL_FILES = 16;
+
+/** The file of scatter task `task` for bucket range `range`. */
+export function spillFileName(task: number, range = 0): string {
+  return `scatter-${String(task).padStart(4, '0')}-${String(range).padStart(2, '0')}.spill`;
+}
+
+/** How many ranges `buckets` buckets fall into, and how many buckets one range holds. */
+export function spillRanges(buckets: number): { ranges: number; perRange: number } {
+  const ranges = Math.min(buckets, SPILL_FILES);
+  return { ranges, perRange: Math.ceil(buckets / ranges) };
 }
 
 /** Where part of one bucket's records lie: a chunk of one task's spill file. */
@@ -79,15 +93,17 @@ export interface SpillPiece {
  * of each buffer, and the fingerprint sum.
  */
 export class BucketWriter {
-  readonly path: string;
-  /** Per bucket: [offset, length, offset, length, …] of its chunks in the spill file. */
+  /** One spill file per range of buckets (see spillRanges); created at its first chunk. */
+  readonly paths: string[];
+  /** Per bucket: [offset, length, offset, length, …] of its chunks in its range's file. */
   readonly chunks: number[][];
   readonly bytes: Float64Array;
   readonly records: Float64Array;
   /** Fingerprint of every record appended, taken from the aligned copy (cheaper than from the input). */
   readonly fingerprint: Fingerprint | null;
-  #fd: number;
-  #end = 0;
+  #fds: number[];
+  #ends: number[];
+  #perRange: number;
   #arena: Uint8Array;
   #buf: Buffer;
   #u32: Uint32Array;
@@ -162,12 +178,11 @@ export class BucketWriter {
     this.#arena = new Uint8Array(memory!);
     this.#buf = Buffer.from(memory!);
     this.#u32 = new Uint32Array(memory!);
-    this.path = join(dir, spillFileName(task));
-    try {
-      this.#fd = openSync(this.path, 'w');
-    } catch (err) {
-      throw ioError(err, this.path, 'creating a spill file');
-    }
+    const { ranges, perRange } = spillRanges(buckets);
+    this.#perRange = perRange;
+    this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
+    this.#fds = new Array<number>(ranges).fill(-1);
+    this.#ends = new Array<number>(ranges).fill(0);
     this.chunks = Array.from({ length: buckets }, () => []);
     for (let b = 0; b < buckets; b++) this.#fill[b] = b * this.#stride;
     this.bytes = new Float64Array(buckets);
@@ -339,17 +354,27 @@ export class BucketWriter {
     }
   }
 
-  /** Appends bytes to the spill file as one chunk of `bucket`. */
+  /** Appends bytes to the bucket's range file as one chunk of `bucket`. */
   #write(bucket: number, buf: Buffer, from: number, to: number): void {
     if (to <= from) return;
+    const r = Math.floor(bucket / this.#perRange);
+    const path = this.paths[r]!;
+    if (this.#fds[r] === -1) {
+      try {
+        this.#fds[r] = openSync(path, 'w');
+      } catch (err) {
+        throw ioError(err, path, 'creating a spill file');
+      }
+    }
+    const end = this.#ends[r]!;
     let off = from;
     try {
-      while (off < to) off += writeSync(this.#fd, buf, off, to - off, this.#end + (off - from));
+      while (off < to) off += writeSync(this.#fds[r]!, buf, off, to - off, end + (off - from));
     } catch (err) {
-      throw ioError(err, this.path, 'writing a spill file');
+      throw ioError(err, path, 'writing a spill file');
     }
-    this.chunks[bucket]!.push(this.#end, to - from);
-    this.#end += to - from;
+    this.chunks[bucket]!.push(end, to - from);
+    this.#ends[r] = end + (to - from);
   }
 
   #flush(bucket: number): void {
@@ -384,10 +409,12 @@ export class BucketWriter {
   }
 
   #closeFile(): void {
-    if (this.#fd >= 0) {
-      const fd = this.#fd;
-      this.#fd = -1;
-      closeSync(fd);
+    for (let r = 0; r < this.#fds.length; r++) {
+      const fd = this.#fds[r]!;
+      if (fd >= 0) {
+        this.#fds[r] = -1;
+        closeSync(fd);
+      }
     }
   }
 }
