@@ -125,8 +125,9 @@ function createCleanup(): Cleanup {
     },
     async runConcurrently() {
       // Removing a file of a few hundred MB that was just written took ~45 ms here, most of it
-      // waiting in the kernel, and a run ends by removing ~10 of them (the spill files and, with
-      // --force, the parts replaced); one after another that was ~0.45 s of every run's end.
+      // waiting in the kernel, and a run used to end by removing ~10 of them (the spill files,
+      // now removed during stage 2 as it passes them, and, with --force, the parts replaced);
+      // one after another that was ~0.45 s of every run's end.
       await Promise.all(early.splice(0));
       const folders = [...paths];
       paths.clear();
