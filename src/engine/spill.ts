@@ -401,20 +401,31 @@ export class BucketWriter {
     }
   }
 
-  /** Drops buffered data (on failure; the file is removed with the spill folder). */
+  /** Drops buffered data (on failure; the files are removed with the spill folder). A failure
+   * to close is not reported: the error that led here is the one that matters. */
   abandon(): void {
     this.#queued = 0;
     for (let b = 0; b < this.chunks.length; b++) this.#fill[b] = b * this.#stride;
-    this.#closeFile();
+    try {
+      this.#closeFile();
+    } catch {
+      // Every file was still closed (see #closeFile).
+    }
   }
 
+  /** Closes every range's file; the first failure is thrown once all are closed. */
   #closeFile(): void {
+    let failure: unknown = null;
     for (let r = 0; r < this.#fds.length; r++) {
       const fd = this.#fds[r]!;
-      if (fd >= 0) {
-        this.#fds[r] = -1;
+      if (fd < 0) continue;
+      this.#fds[r] = -1;
+      try {
         closeSync(fd);
+      } catch (err) {
+        failure ??= ioError(err, this.paths[r]!, 'closing a spill file');
       }
     }
+    if (failure) throw failure;
   }
 }
