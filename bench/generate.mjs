@@ -11,6 +11,7 @@
 // --quote-all puts every CSV field in quotes, as many exporters write CSV.
 import { openSync, writeSync, closeSync, mkdirSync } from 'node:fs';
 import { dirname } from 'node:path';
+import { createRandom } from '../scripts/mulberry32.mjs';
 
 function readArgs(argv) {
   const o = { bytes: 1e6, seed: 1, out: null, format: 'csv', quoteAll: false };
@@ -28,18 +29,6 @@ function readArgs(argv) {
   if (!(o.bytes > 0)) throw new Error('--bytes must be a positive number');
   if (o.format !== 'csv' && o.format !== 'jsonl') throw new Error('--format must be csv or jsonl');
   return o;
-}
-
-/** mulberry32: small, fast, good enough for test data (not for the shuffle itself). */
-function createRandom(seed) {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
 }
 
 const FAULTS = [['none', 0.6], ['drift', 0.2], ['spike', 0.1], ['dropout', 0.07], ['overheat', 0.03]];

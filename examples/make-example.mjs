@@ -11,6 +11,7 @@
 import { mkdirSync, writeFileSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
+import { createRandom } from '../scripts/mulberry32.mjs';
 
 const here = dirname(fileURLToPath(import.meta.url));
 
@@ -25,18 +26,6 @@ function readArgs(argv) {
   }
   if (!Number.isInteger(o.rows) || o.rows < 100) throw new Error('--rows must be a whole number of at least 100');
   return o;
-}
-
-/** mulberry32: a small seeded generator, good enough for invented data. */
-function createRandom(seed) {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
 }
 
 // Shares add up to 1; the rarest class still has enough rows for 8 partitions x 5 folds.
