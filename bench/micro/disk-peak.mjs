@@ -7,7 +7,7 @@
 import { spawn } from 'node:child_process';
 import { rmSync, statfsSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { join } from 'node:path';
+import { dirname, join } from 'node:path';
 import { arg } from './options.mjs';
 
 const file = arg('file', 'bench/data/readings-1g.csv');
@@ -18,7 +18,7 @@ const extra = dash > 0 ? process.argv.slice(dash + 1) : ['--stratify', 'fault'];
 const out = join(tmpdir(), `rowdeck-disk-peak-${process.pid}`);
 
 const used = () => {
-  const s = statfsSync(out.slice(0, out.lastIndexOf('/')) || '/');
+  const s = statfsSync(dirname(out));
   return (s.blocks - s.bfree) * s.bsize;
 };
 const base = used();
