@@ -14,8 +14,11 @@ export const DEFAULT_TOLERANCE = 0.5;
 export const DEFAULT_MEMORY = 512 * 1024 * 1024;
 
 export interface ProgressEvent {
-  stage: 'scatter' | 'plan' | 'gather' | 'finish';
-  /** Work done and total in the stage's unit (bytes for scatter, buckets for gather). */
+  stage: 'scatter' | 'plan' | 'gather' | 'stats' | 'finish';
+  /**
+   * Work done and total in the stage's unit: bytes for scatter, buckets for gather, parts for
+   * stats (--stats with more parts than the lanes keep statistics for: the parts read back).
+   */
   done: number;
   total: number;
   records: number;

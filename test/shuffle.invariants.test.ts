@@ -7,8 +7,9 @@ import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { shuffle, type Manifest } from '../src/index.js';
+import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
 import { BUFFER_CAP, chooseBuckets } from '../src/engine/shuffle.js';
+import { READ_BACK_BYTES, STATS_BYTES_PER_COLUMN, statsInLanes } from '../src/engine/part-stats.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -399,5 +400,77 @@ describe('the memory plan of stage 1', () => {
     expect(big.bufferBytes / 2).toBe(64 * 1024);
     // Stage 1 of the 100 MB input touches 8 MiB of buffers a task, not 64 MiB.
     expect(2 ** small.bits * (small.bufferBytes / 2)).toBe(8 * MiB);
+  });
+});
+
+describe('the memory plan of --stats: per-part statistics in the lanes or read back from the parts', () => {
+  const MiB = 1024 * 1024;
+  it('keeps the tables in the lanes only while parts x lanes fit a quarter of the budget (or what reading back takes)', () => {
+    // 10 columns, 2 lanes: 8 parts take 25 MiB of tables at STATS_BYTES_PER_COLUMN, 256 take 800 MiB.
+    expect(statsInLanes(10, 8, 2, 512 * MiB)).toBe(true);
+    expect(statsInLanes(10, 8, 2, 64 * MiB)).toBe(true); // below READ_BACK_BYTES
+    expect(statsInLanes(10, 64, 2, 64 * MiB)).toBe(false);
+    expect(statsInLanes(10, 256, 2, 512 * MiB)).toBe(false);
+    expect(statsInLanes(10, 256, 2, 8192 * MiB)).toBe(true);
+    // The thread count counts: one lane holds half as much.
+    const parts = Math.floor((128 * MiB) / (10 * STATS_BYTES_PER_COLUMN));
+    expect(statsInLanes(10, parts, 1, 512 * MiB)).toBe(true);
+    expect(statsInLanes(10, parts, 2, 512 * MiB)).toBe(false);
+    expect(READ_BACK_BYTES).toBeLessThanOrEqual(64 * MiB);
+  });
+
+  it('gives the same manifest either way, for CSV with folds, TSV, gzip parts, JSON Lines, on this thread and on workers', async () => {
+    const { header, rows } = parseCsv(inputText);
+    const tsv = join(dir, 'stats-ways.tsv');
+    // Tabs in fields would need quoting; the sensor file has none, checked here.
+    expect(rows.some((r) => r.some((v) => v.includes('\t')))).toBe(false);
+    writeFileSync(tsv, [header, ...rows.slice(0, 6000)].map((r) => r.map((v) => (/["\r\n]/.test(v) ? `"${v.replaceAll('"', '""')}"` : v)).join('\t')).join('\r\n'));
+    const jsonl = join(dir, 'stats-ways.jsonl');
+    writeFileSync(jsonl, rows.slice(0, 6000).map((r) => JSON.stringify(Object.fromEntries(header.map((h, i) => [h, i === 0 ? Number(r[i]) : r[i] === '' ? null : r[i]])))).join('\n') + '\n');
+    const cases: [string, Partial<ShuffleOptions> & { inputs: string[] }][] = [
+      ['CSV, folds', { inputs: [input], partitions: 5, folds: 3, stratify: 'fault' }],
+      ['CSV, gzip parts, named splits', { inputs: [input], split: 'train=0.8,test=0.2', gzip: true }],
+      ['TSV with CR LF', { inputs: [tsv], partitions: 3, folds: 2 }],
+      ['JSON Lines, folds', { inputs: [jsonl], partitions: 3, folds: 2, stratify: 'fault' }],
+    ];
+    const saved = process.env.ROWDECK_PART_STATS;
+    try {
+      for (const [name, opts] of cases) {
+        for (const threads of [0, 2]) {
+          const got: Record<string, { manifest: unknown; files: Record<string, string>; readBack: boolean }> = {};
+          for (const way of ['lanes', 'files']) {
+            process.env.ROWDECK_PART_STATS = way;
+            const out = join(dir, `stats-ways-${way}`);
+            const stages = new Set<string>();
+            const m = await shuffle({ out, force: true, seed: 'ways', stats: true, threads, onProgress: (e) => void stages.add(e.stage), ...opts });
+            got[way] = { manifest: stable(m), files: outputsOf(out), readBack: stages.has('stats') };
+            expect(m.output.parts.every((p) => Array.isArray(p.stats) && (p.stats as unknown[]).length > 0), name).toBe(true);
+          }
+          // The parts were read back in one run and not in the other...
+          expect(got.lanes!.readBack, name).toBe(false);
+          expect(got.files!.readBack, name).toBe(true);
+          // ...and the outputs and manifests, statistics and all, agree.
+          expect(got.files!.files, `${name}, threads ${threads}`).toEqual(got.lanes!.files);
+          expect(got.files!.manifest, `${name}, threads ${threads}`).toEqual(got.lanes!.manifest);
+        }
+      }
+    } finally {
+      if (saved === undefined) delete process.env.ROWDECK_PART_STATS;
+      else process.env.ROWDECK_PART_STATS = saved;
+    }
+  });
+
+  it('reads the parts back by itself when there are many, with the statistics a run with few parts adds up to', async () => {
+    // 96 parts at --memory 4MiB: far more tables than the lanes may keep.
+    const stages = new Set<string>();
+    const many = await shuffle({ inputs: [input], out: join(dir, 'stats-many'), seed: 's', partitions: 96, stats: true, memory: '4MiB', threads: 2, onProgress: (e) => void stages.add(e.stage) });
+    expect(stages.has('stats')).toBe(true);
+    const few = await shuffle({ inputs: [input], out: join(dir, 'stats-few'), seed: 's', partitions: 2, stats: true, memory: '4MiB', threads: 2 });
+    // The whole input's statistics do not depend on how it was dealt, nor on the way they were made.
+    expect(many.input.stats).toEqual(few.input.stats);
+    // Each part's counts are its records (column by column: values and missing ones).
+    for (const p of many.output.parts) {
+      for (const c of p.stats as { name: string; count: number; missing: number }[]) expect(c.count + c.missing, `${p.path} ${c.name}`).toBe(p.records);
+    }
   });
 });

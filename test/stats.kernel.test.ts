@@ -316,6 +316,28 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
     expect(t.toJSON()).toEqual(tableOf(batches, false, 2).toJSON());
   });
 
+  it('an instance given back by one table and taken by the next (parts read back in turn): the same figures', () => {
+    // Each table's values differ, and the first leaves exact tables and passed-cap slots behind.
+    const first = makeBatches('release-a', 3000, COLUMNS.length, 300);
+    const second = makeBatches('release-b', 3000, COLUMNS.length, 300);
+    useStatsKernel(true);
+    const create = vi.spyOn(StatsKernel, 'create');
+    const a = tableOf(first, true, 40);
+    const before = a.toJSON();
+    a.releaseKernel();
+    const run = vi.spyOn(StatsKernel.prototype, 'run');
+    const b = tableOf(second, true, 40);
+    // The second table ran in the module, on the instance the first gave back...
+    expect(run).toHaveBeenCalled();
+    expect(create).toHaveBeenCalledTimes(2);
+    // ...and its figures are its own values' alone.
+    expect(b.toJSON()).toEqual(tableOf(second, false, 40).toJSON());
+    // The first table keeps its figures, and goes on in JavaScript.
+    expect(a.toJSON()).toEqual(before);
+    first.forEach((x) => a.addBatch(x));
+    expect(a.toJSON()).toEqual(tableOf([...first, ...first], false, 40).toJSON());
+  });
+
   it('tables merged (as threads do) equal one table in JavaScript, in either order', () => {
     const batches = makeBatches('merge', 5000, COLUMNS.length, 400);
     const half = Math.floor(batches.length / 2);

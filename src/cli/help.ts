@@ -68,8 +68,8 @@ Output and resources:
                           the input and are removed range by range as the parts are written
   --stats                 add per-column statistics of the input and of every part to the
                           manifest (types, missing, min/max/mean/sd, frequent values); this
-                          adds 35-70% to the run time, and memory outside --memory (about
-                          1.5 MiB per part and thread for 10 columns); rowdeck profile gives
+                          adds 35-70% to the run time. Within --memory: with many parts the
+                          parts are read back one at a time for theirs. rowdeck profile gives
                           the input's alone
   --exclude-values        leave data values (class names, frequent values) out of the manifest
   --json                  print the manifest on stdout

@@ -81,6 +81,17 @@ export interface SlotFigures {
   sketch: Uint8Array;
 }
 
+interface KernelExports {
+  memory: WasmMemory;
+  column: ColumnFn;
+  exact: ExactFn;
+  top: TopFn;
+}
+
+/** Instances given back by `release`, for the next `create`. */
+const released: KernelExports[] = [];
+const MAX_RELEASED = 2;
+
 export class StatsKernel {
   readonly #memory: WasmMemory;
   readonly #column: ColumnFn;
@@ -127,8 +138,18 @@ export class StatsKernel {
     // Slots are 8 KiB a column, and each table (a part's, with --stats) has its own: wider tables
     // stay in JavaScript.
     if (disabled || columns > MAX_COLUMNS) return null;
-    const exp = instantiate<{ memory: WasmMemory; column: ColumnFn; exact: ExactFn; top: TopFn }>(STATS_WASM_BASE64);
+    const exp = released.pop() ?? instantiate<KernelExports>(STATS_WASM_BASE64);
     return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
+  }
+
+  /**
+   * Hands the module instance over to the next `create` on this thread (its memory is kept, and
+   * reset by the next owner): a thread that makes one table after another (a part at a time)
+   * then holds one instance, not one per table until the collector frees them. This kernel must
+   * not be used again.
+   */
+  release(): void {
+    if (released.length < MAX_RELEASED) released.push({ memory: this.#memory, column: this.#column, exact: this.#exact, top: this.#top });
   }
 
   /** Column `col` has a table with room for `keys` keys. */

@@ -1309,6 +1309,16 @@ export class TableStats {
     for (let i = 0; i < this.cols.length; i++) this.cols[i]!.merge(other.cols[i]!, this.distinctCap);
   }
 
+  /**
+   * Gives the statistics module's instance back for the next table made on this thread (its
+   * figures merged first). The table stays usable; it goes on in JavaScript alone.
+   */
+  releaseKernel(): void {
+    this.#drainAll();
+    this.#kernel?.release();
+    this.#kernel = null;
+  }
+
   /** Canonical plain-data form: equal figures give deep-equal objects whatever the history. */
   toJSON(): SerializedStats {
     this.#drainAll();

@@ -9,11 +9,10 @@ import { Fingerprint } from '../core/hash.js';
 import { sortByKey } from '../core/sort.js';
 import { ioError } from '../errors.js';
 import type { TableStats } from '../core/stats.js';
-import { FieldKind } from '../io/batch.js';
-import { RecordReader } from '../io/reader.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 import { gatherKernel } from './gather-kernel.js';
+import { createStatsFeeder, partReader } from './part-stats.js';
 
 export interface GatherTask {
   bucket: number;
@@ -218,48 +217,6 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const data = new Uint8Array(arena, base, partStart[parts]! - base);
   for (let p = 0; p <= parts; p++) partStart[p]! -= base;
   return { bucket: task.bucket, data, partStart, counts, fingerprints: fps.map((f) => f.toJSON()), ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
-}
-
-let partReaderOf: { plan: GatherPlan; reader: RecordReader } | null = null;
-
-/**
- * A reader of the parts' CSV/TSV output (the input's columns, then the fold column if any) that
- * locates the statistics' columns; kept for the plan, since every bucket uses the same one.
- */
-function partReader(plan: GatherPlan): RecordReader {
-  if (partReaderOf?.plan === plan) return partReaderOf.reader;
-  const delimiter = String.fromCharCode(plan.delimiter);
-  const format = plan.format === 'tsv' ? 'tsv' : 'csv';
-  const reader = new RecordReader({ format, delimiter, header: false, wanted: plan.statsColumns, file: '(part output)', onBadRecord: 'fail' });
-  const columns = plan.foldColumn !== null ? [...plan.statsColumns, plan.foldColumn] : plan.statsColumns;
-  reader.adoptSchema({ format, columns, headerBytes: null, lineEnding: plan.lineEnding, delimiter: plan.delimiter });
-  partReaderOf = { plan, reader };
-  return reader;
-}
-
-/**
- * Feeds one record's fields to a part's statistics (JSON Lines): records are parsed (slower, but
- * JSON has no cheaper honest way to find every key).
- */
-function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: number, len: number) => void {
-  const cols = plan.statsColumns;
-  return (t, b, start, len) => {
-    let obj: Record<string, unknown>;
-    try {
-      obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
-    } catch {
-      obj = {};
-    }
-    for (let c = 0; c < cols.length; c++) {
-      const v = obj[cols[c]!];
-      if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
-      else {
-        const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
-        t.addField(c, text, 0, text.length, FieldKind.Plain);
-      }
-    }
-    t.addRecordDone();
-  };
 }
 
 interface BucketIndex {

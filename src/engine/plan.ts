@@ -35,6 +35,11 @@ export interface GatherPlan {
   groupsFile: string | null;
   /** Column names, for per-part statistics; empty disables them. */
   statsColumns: string[];
+  /**
+   * Whether the lanes keep every part's statistics as they deal (see src/engine/part-stats.ts);
+   * otherwise they are computed from the part files afterwards.
+   */
+  statsInLanes: boolean;
   /** Leave data values (class names, frequent values, text min/max) out of the statistics. */
   excludeValues: boolean;
 }

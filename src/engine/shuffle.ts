@@ -23,7 +23,7 @@ import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
-import { TableStats } from '../core/stats.js';
+import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import type { GatherResult, GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
@@ -32,6 +32,7 @@ import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
 import { gatherLane, type GatherFinal } from './gather-lane.js';
+import { statsInLanes, statsOfPartFile, type PartStatsTask } from './part-stats.js';
 import { spillRanges } from './spill.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
@@ -459,6 +460,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellSecret: Array.from(cellSecret),
       groupsFile,
       statsColumns: o.stats ? sc.schema.columns : [],
+      statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, partCount(deal), threads, o.memory),
       excludeValues: o.excludeValues,
     };
     const planPath = join(spillDir, 'plan.json');
@@ -488,7 +490,15 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     if (!pool) throw new RowdeckError('ERR_INTERNAL', 'no lanes for stage 2');
     const counts = new Float64Array(parts * K * nStrata);
     const fps = Array.from({ length: parts }, () => new Fingerprint());
-    const partStats = o.stats ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
+    // Statistics (--stats): each part's summary as soon as its figures are complete, and the
+    // whole input's as the parts' merged (exact, so equal to one pass over the input).
+    const partStats = o.stats && plan.statsInLanes ? Array.from({ length: parts }, () => new TableStats(sc.schema.columns)) : null;
+    const allStats = o.stats ? new TableStats(sc.schema.columns) : null;
+    const partSummaries: ColumnSummary[][] = [];
+    const partDone = (p: number, t: TableStats): void => {
+      partSummaries[p] = t.summary({ excludeValues: o.excludeValues });
+      allStats!.merge(t);
+    };
     const pending = new Map<number, Promise<GatherResult>>();
     const phases: number[] = [];
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
@@ -530,15 +540,39 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
     }
-    // Every worker hands over the statistics of all the buckets it dealt; merged in lane order
-    // (the merge is exact, so the order does not change the result).
-    const finals = await pool.finish();
-    if (partStats) for (const f of finals) f?.forEach((t, p) => partStats[p]!.merge(TableStats.fromJSON(t)));
-    await pool.destroy();
-    pool = null;
     const closed: { bytes: number; sha256: string }[] = [];
     for (const w of writers) closed.push(await w.close());
     writers.length = 0;
+    if (allStats && !plan.statsInLanes) {
+      const tStats = Date.now();
+      // Too many parts for the lanes to keep every part's statistics: each part is read back,
+      // one a lane at a time (see src/engine/part-stats.ts).
+      const headerLength = header?.length ?? 0;
+      const tasks = layout.map((part): PartStatsTask => ({ partFile: join(stage, part.path), headerBytes: headerLength }));
+      const statsLanes = pool as unknown as Lanes<PartStatsTask, SerializedStats, GatherFinal>;
+      let done = 0;
+      const onePart = async (p: number): Promise<void> => {
+        const t = threads === 0 ? await statsOfPartFile(plan, tasks[p]!) : await statsLanes.run(tasks[p]!);
+        partDone(p, TableStats.fromJSON(t));
+        o.onProgress?.({ stage: 'stats', done: ++done, total: parts, records, elapsedMs: Date.now() - t0 });
+      };
+      o.onProgress?.({ stage: 'stats', done: 0, total: parts, records, elapsedMs: Date.now() - t0 });
+      let nextPart = 0;
+      const laneLoop = async (): Promise<void> => {
+        while (nextPart < parts) await onePart(nextPart++);
+      };
+      await Promise.all(Array.from({ length: Math.max(1, threads) }, laneLoop));
+      timings.statsMs = Date.now() - tStats;
+    }
+    // Where the lanes kept them, every worker hands over the statistics of all the buckets it
+    // dealt; merged in lane order (the merge is exact, so the order does not change the result).
+    const finals = await pool.finish();
+    if (partStats) {
+      for (const f of finals) f?.forEach((t, p) => partStats[p]!.merge(TableStats.fromJSON(t)));
+      partStats.forEach((t, p) => partDone(p, t));
+    }
+    await pool.destroy();
+    pool = null;
     timings.gatherMs = Date.now() - tGather;
     if (phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(phases[k] ?? 0)));
 
@@ -570,16 +604,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         folds: K > 1 ? folds : null,
         foldStrata: K > 1 ? foldStrata : null,
         fingerprint: fps[p]!.toHex(),
-        ...(partStats ? { stats: partStats[p]!.summary({ excludeValues: o.excludeValues }) } : {}),
+        ...(allStats ? { stats: partSummaries[p]! } : {}),
       };
     });
-    // Whole-input statistics: the parts' merged (exact, so equal to one pass over the input).
-    let inputStats: unknown;
-    if (partStats) {
-      const all = new TableStats(sc.schema.columns);
-      for (const t of partStats) all.merge(t);
-      inputStats = all.summary({ excludeValues: o.excludeValues });
-    }
+    const inputStats = allStats ? allStats.summary({ excludeValues: o.excludeValues }) : undefined;
     const outFp = new Fingerprint();
     for (const f of fps) outFp.merge(f);
     // Stage 2 hashes the records it read back from the spill; their sum must be what stage 1

@@ -12,14 +12,17 @@
  * and lets its buffers go.
  *
  * Stage 2 (src/engine/gather-lane.ts): a task with a `bucket` is one bucket to deal; the plan
- * (plan.json in the spill folder) is read with the first. The second `finish` hands over every
- * part's statistics over the buckets this thread dealt.
+ * (plan.json in the spill folder) is read with the first. A task with a `partFile` reads a
+ * written part back for its statistics (--stats, where the lanes do not keep them as they deal).
+ * The second `finish` hands over every part's statistics over the buckets this thread dealt.
  */
 import { join } from 'node:path';
 import { workerData } from 'node:worker_threads';
 import { ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult } from '../engine/scatter.js';
 import type { GatherResult, GatherTask } from '../engine/gather.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
+import type { PartStatsTask } from '../engine/part-stats.js';
+import type { SerializedStats } from '../core/stats.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
 
@@ -28,11 +31,15 @@ let task: ScatterTask | null = new ScatterTask({ ...data, task: lane });
 let blocks: BlockHost | null = new BlockHost((batch, input) => task!.addBatch(batch, input));
 let gather: GatherLane | null = null;
 
-serveLane<ScatterMessage | GatherTask, BlockReply | GatherResult, ScatterTaskResult | GatherFinal>(
+serveLane<ScatterMessage | GatherTask | PartStatsTask, BlockReply | GatherResult | SerializedStats, ScatterTaskResult | GatherFinal>(
   (m) => {
     if ('bucket' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
       return gather.handle(m);
+    }
+    if ('partFile' in m) {
+      gather ??= gatherLane(join(data.spillDir, 'plan.json'));
+      return gather.partStats(m);
     }
     if (!task || !blocks) throw new Error('scatter work after stage 1 finished');
     try {

@@ -1,0 +1,139 @@
+/**
+ * Per-part statistics (`--stats`), computed in one of two places, with the same result:
+ *
+ * - in the lanes, as stage 2 deals (src/engine/gather.ts): each lane keeps a TableStats for every
+ *   part and adds each bucket's slice of that part's output, and the lanes' tables are merged at
+ *   the end. Nothing is read twice, but every lane holds every part's tables at once.
+ * - after the dealing, from the part files: one part at a time on each lane, read back (from the
+ *   page cache, as a rule: they were just written) with the same reader. Memory is one table per
+ *   lane, whatever the number of parts.
+ *
+ * A part's tables hold up to the distinct cap of values a column (then a fixed-size estimate):
+ * measured ~1.4 MiB a part and lane for the 10 columns of the benchmark files (values of up to
+ * ~60 bytes), hence STATS_BYTES_PER_COLUMN. The lanes keep the tables only while the parts times
+ * the lanes fit in a quarter of the memory budget (or in READ_BACK_BYTES, what reading back costs
+ * itself); past that, the parts are read back. Both ways
+ * feed the same records to the same kind of table, and TableStats merges exactly and without
+ * regard to order, so the manifest does not depend on which was used (test/stats.test.ts checks
+ * that they agree).
+ */
+import { TableStats, type SerializedStats } from '../core/stats.js';
+import { FieldKind } from '../io/batch.js';
+import { openInput } from '../io/input.js';
+import { RecordReader } from '../io/reader.js';
+import type { GatherPlan } from './plan.js';
+
+/** Memory a part's statistics take per column and lane, for the choice above (measured, rounded up). */
+export const STATS_BYTES_PER_COLUMN = 160 * 1024;
+
+/**
+ * What reading the parts back takes beyond the dealing, measured: 15-35 MB over a run's peak
+ * (one reader, its buffers and one table a lane). Below this, the lanes keep the tables.
+ */
+export const READ_BACK_BYTES = 32 * 1024 * 1024;
+
+/** A part to read back: its file (gzip or not, found from its bytes) and the length of its header line. */
+export interface PartStatsTask {
+  partFile: string;
+  headerBytes: number;
+}
+
+/**
+ * Whether the lanes keep every part's statistics while they deal: only while those tables, at
+ * STATS_BYTES_PER_COLUMN a column, fit in a quarter of the budget (or in what reading the parts
+ * back would take, if that is more). `ROWDECK_PART_STATS=lanes` or
+ * `=files` forces one way (tests compare the two).
+ */
+export function statsInLanes(columns: number, parts: number, lanes: number, memory: number): boolean {
+  const forced = process.env.ROWDECK_PART_STATS;
+  if (forced === 'lanes') return true;
+  if (forced === 'files') return false;
+  return columns * STATS_BYTES_PER_COLUMN * parts * Math.max(1, lanes) <= Math.max(memory / 4, READ_BACK_BYTES);
+}
+
+let partReaderOf: { plan: GatherPlan; reader: RecordReader } | null = null;
+
+/**
+ * A reader of the parts' CSV/TSV output (the input's columns, then the fold column if any) that
+ * locates the statistics' columns; kept for the plan, since every bucket uses the same one.
+ */
+export function partReader(plan: GatherPlan): RecordReader {
+  if (partReaderOf?.plan === plan) return partReaderOf.reader;
+  const reader = newPartReader(plan);
+  partReaderOf = { plan, reader };
+  return reader;
+}
+
+function newPartReader(plan: GatherPlan): RecordReader {
+  const delimiter = String.fromCharCode(plan.delimiter);
+  const format = plan.format === 'tsv' ? 'tsv' : 'csv';
+  const reader = new RecordReader({ format, delimiter, header: false, wanted: plan.statsColumns, file: '(part output)', onBadRecord: 'fail' });
+  const columns = plan.foldColumn !== null ? [...plan.statsColumns, plan.foldColumn] : plan.statsColumns;
+  reader.adoptSchema({ format, columns, headerBytes: null, lineEnding: plan.lineEnding, delimiter: plan.delimiter });
+  return reader;
+}
+
+/**
+ * Feeds one record's fields to a part's statistics (JSON Lines): records are parsed (slower, but
+ * JSON has no cheaper honest way to find every key). A fold key in the record is not a
+ * statistics column, so it is not looked at.
+ */
+export function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: number, len: number) => void {
+  const cols = plan.statsColumns;
+  return (t, b, start, len) => {
+    let obj: Record<string, unknown>;
+    try {
+      obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
+    } catch {
+      obj = {};
+    }
+    for (let c = 0; c < cols.length; c++) {
+      const v = obj[cols[c]!];
+      if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
+      else {
+        const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
+        t.addField(c, text, 0, text.length, FieldKind.Plain);
+      }
+    }
+    t.addRecordDone();
+  };
+}
+
+/** One part's statistics, read back from its file (see the top of this file). */
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<SerializedStats> {
+  const stats = new TableStats(plan.statsColumns);
+  let skip = task.headerBytes;
+  if (plan.format === 'jsonl') {
+    // A part's JSON Lines records are one a line, as the spill held them.
+    const feed = createStatsFeeder(plan);
+    let carry: Buffer | null = null;
+    for await (const chunk of openInput(task.partFile)) {
+      const d: Buffer = carry ? Buffer.concat([carry, chunk]) : chunk;
+      let s = 0;
+      // A CR before the LF is JSON whitespace: JSON.parse passes over it.
+      for (let nl = d.indexOf(10, s); nl >= 0; nl = d.indexOf(10, s)) {
+        feed(stats, d, s, nl - s);
+        s = nl + 1;
+      }
+      carry = s < d.length ? Buffer.from(d.subarray(s)) : null;
+    }
+    if (carry) feed(stats, carry, 0, carry.length);
+    return stats.toJSON();
+  }
+  const reader = newPartReader(plan);
+  for await (const chunk of openInput(task.partFile)) {
+    let c = chunk;
+    if (skip > 0) {
+      const n = Math.min(skip, c.length);
+      skip -= n;
+      c = c.subarray(n);
+      if (c.length === 0) continue;
+    }
+    const batch = reader.push(c);
+    if (batch) stats.addBatch(batch);
+  }
+  const last = reader.end();
+  if (last) stats.addBatch(last);
+  stats.releaseKernel();
+  return stats.toJSON();
+}
