@@ -470,7 +470,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
 
     // ---- stage 2: gather ----
     for (const part of layout) mkdirSync(dirname(join(stage, part.path)), { recursive: true });
-    for (const part of layout) writers.push(new PartWriter(join(stage, part.path), o.gzip));
+    // Short slices (many parts) are gathered per part before they are written: up to 64 KiB a
+    // part, an eighth of the budget over all parts, at least 8 KiB (see PartWriter).
+    const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(o.memory / 8 / layout.length)));
+    for (const part of layout) writers.push(new PartWriter(join(stage, part.path), o.gzip, gatherBytes));
     const header = headerBytes(sc, o, format);
     if (header) for (const w of writers) await w.write(header);
 
@@ -524,7 +527,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       for (let p = 0; p < parts; p++) {
         const a = r.partStart[p]!;
         const e = r.partStart[p + 1]!;
-        if (e > a) await writers[p]!.write(data.subarray(a, e));
+        if (e > a) {
+          const writing = writers[p]!.write(data.subarray(a, e));
+          if (writing) await writing;
+        }
         fps[p]!.merge(r.fingerprints[p]!);
       }
       for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;

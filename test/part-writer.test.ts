@@ -1,0 +1,82 @@
+/**
+ * The part writer: whatever the slices it is given and however many it gathers before a write,
+ * a part holds exactly their bytes in order, and its size and sha256 are those of the file on
+ * disk (node:crypto and node:zlib as the references).
+ */
+import { createHash } from 'node:crypto';
+import { readFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { gunzipSync } from 'node:zlib';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { PartWriter } from '../src/io/part-writer.js';
+import { createRandom, makeTempDir, removeDir } from './helpers/engine.js';
+
+let dir: string;
+beforeAll(() => {
+  dir = makeTempDir();
+});
+afterAll(() => removeDir(dir));
+
+/** Slices of 1 byte to 200 KiB, mostly short (as a bucket's slice of one of many parts is). */
+function makeSlices(seed: number, count: number): Uint8Array[] {
+  const rnd = createRandom(seed);
+  const source = Buffer.alloc(256 * 1024);
+  for (let i = 0; i < source.length; i++) source[i] = Math.floor(rnd() * 256);
+  return Array.from({ length: count }, () => {
+    const r = rnd();
+    const len = r < 0.7 ? 1 + Math.floor(rnd() * 3000) : r < 0.9 ? 1 + Math.floor(rnd() * 40_000) : 1 + Math.floor(rnd() * 200_000);
+    const at = Math.floor(rnd() * (source.length - len));
+    // A view into a larger buffer, as the dealing's output is: the writer must copy what it keeps.
+    return source.subarray(at, at + len);
+  });
+}
+
+async function writeAll(path: string, gzip: boolean, gatherBytes: number, slices: Uint8Array[]): Promise<{ bytes: number; sha256: string }> {
+  const w = new PartWriter(path, gzip, gatherBytes);
+  for (const s of slices) {
+    const writing = w.write(s);
+    if (writing) await writing;
+  }
+  return w.close();
+}
+
+describe('PartWriter', () => {
+  const slices = makeSlices(7, 400);
+  const whole = Buffer.concat(slices);
+
+  it.each([0, 8 * 1024, 64 * 1024, 1 << 20])('gathering up to %i bytes: the bytes in order, their size and sha256', async (gatherBytes) => {
+    const path = join(dir, `plain-${gatherBytes}.csv`);
+    const r = await writeAll(path, false, gatherBytes, slices);
+    const onDisk = readFileSync(path);
+    expect(onDisk.equals(whole)).toBe(true);
+    expect(r.bytes).toBe(whole.length);
+    expect(r.sha256).toBe(createHash('sha256').update(onDisk).digest('hex'));
+  });
+
+  it('gzip: the same compressed bytes however the slices were gathered, and they inflate to the slices', async () => {
+    const files = [0, 8 * 1024, 64 * 1024].map(async (g) => {
+      const path = join(dir, `gz-${g}.csv.gz`);
+      const r = await writeAll(path, true, g, slices);
+      const onDisk = readFileSync(path);
+      expect(r.sha256).toBe(createHash('sha256').update(onDisk).digest('hex'));
+      expect(r.bytes).toBe(onDisk.length);
+      return onDisk;
+    });
+    const [a, b, c] = await Promise.all(files);
+    expect(gunzipSync(a!).equals(whole)).toBe(true);
+    expect(b!.equals(a!)).toBe(true);
+    expect(c!.equals(a!)).toBe(true);
+  });
+
+  it('gathers short slices: a slice the caller overwrites after write() returned nothing is not changed in the part', async () => {
+    const path = join(dir, 'reuse.csv');
+    const w = new PartWriter(path, false, 1024);
+    const buf = Buffer.from('first,1\n');
+    expect(w.write(buf)).toBeUndefined();
+    buf.write('XXXXXXX\n');
+    const writing = w.write(Buffer.from('second,2\n'));
+    if (writing) await writing;
+    await w.close();
+    expect(readFileSync(path, 'utf8')).toBe('first,1\nsecond,2\n');
+  });
+});
