@@ -6,6 +6,7 @@ import { createHash } from 'node:crypto';
 import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
+import { stringify } from 'csv-stringify/sync';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
 import { BUFFER_CAP, chooseBuckets } from '../src/engine/shuffle.js';
@@ -293,6 +294,39 @@ describe('invariant 3: exact dealing', () => {
     }
     expect(N).toBe(24000);
     expect(m.balance.maxDeviation).toBeLessThanOrEqual(m.balance.tolerance);
+  });
+
+  it('counts every (part, fold, class) right when there are far more of them than records (many parts, folds and classes)', async () => {
+    // 40 parts x 5 folds x ~600 sensors: ~120,000 entries for 8,000 records, so each bucket lists
+    // its records' entries instead of sending a table of all of them (see gatherBucket). Half the
+    // records are one sensor's, so its entries count about 20 records each, the others' 0 or 1.
+    const file = join(dir, 'many-classes.csv');
+    const { header: cols, rows: all } = parseCsv(makeSensorCsv({ rows: 8000, seed: 5, sensors: 600 }));
+    all.forEach((r, i) => {
+      if (i % 2 === 0) r[cols.indexOf('sensor')] = 'S000';
+    });
+    writeFileSync(file, stringify([cols, ...all]));
+    const P = 40;
+    const K = 5;
+    for (const threads of [0, 2]) {
+      const out = join(dir, `many-classes-${threads}`);
+      const m = await shuffle({ inputs: [file], out, seed: 'cells', partitions: P, folds: K, stratify: 'sensor', tolerance: 1000, memory: '4MiB', threads });
+      const S = m.strata.values.length;
+      expect(P * K * S).toBeGreaterThan(4 * 8000 + 1024);
+      // Recounted from the files with csv-parse: per part, fold (the last column) and sensor.
+      let total = 0;
+      for (const p of m.output.parts) {
+        const { header, rows } = parseCsv(readPart(join(out, p.path)));
+        const sensorAt = header.indexOf('sensor');
+        const found = Array.from({ length: K }, () => new Array<number>(S).fill(0));
+        const index = new Map(m.strata.values.map((v, s) => [v.value![0]!, s]));
+        for (const r of rows) found[Number(r[r.length - 1])]![index.get(r[sensorAt]!)!]!++;
+        expect(p.foldStrata).toEqual(found);
+        expect(Math.max(...found.flat())).toBeGreaterThanOrEqual(20);
+        total += rows.length;
+      }
+      expect(total).toBe(8000);
+    }
   });
 
   it('deals named splits to exact sizes (fractions, counts, and * for the rest)', async () => {

@@ -25,7 +25,7 @@ import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js'
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
-import type { GatherResult, GatherTask } from './gather.js';
+import { addCounts, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
 import type { BlockReply } from '../io/blocks.js';
@@ -533,7 +533,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         }
         fps[p]!.merge(r.fingerprints[p]!);
       }
-      for (let i = 0; i < counts.length; i++) counts[i]! += r.counts[i]!;
+      addCounts(counts, r.counts);
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
       spare.push(r.data.buffer as ArrayBuffer);
       // Buckets are dealt in order: past the last bucket of a range, no task reads its files again.
