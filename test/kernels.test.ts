@@ -179,7 +179,7 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
       mkdirSync(sub);
       const w = new BucketWriter(sub, 0, 1 << bits, 4096, new Fingerprint(), 8192);
       w.setKeySecret(secret);
-      const counts = Array.from({ length: 5 }, () => new Float64Array(1 << bits));
+      const counts = Array.from({ length: 5 }, () => new Uint32Array(1 << bits));
       const rnd = createRandom(7);
       for (const { data, ends } of batches(3).filter((_, b) => b !== 3)) {
         // Records end with nothing, LF or CR LF before the next; offsets near 2^33 and 2^40.

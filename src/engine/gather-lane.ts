@@ -45,7 +45,9 @@ export function gatherLane(planPath: string): GatherLane {
   return {
     handle(task) {
       const result = gatherBucket(prep, task, stats);
-      return { result, transfer: [result.data.buffer as ArrayBuffer] };
+      const c = result.counts;
+      const counts = c instanceof Float64Array ? [c.buffer as ArrayBuffer] : [c.index.buffer as ArrayBuffer, c.value.buffer as ArrayBuffer];
+      return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
     },
     partStats: async (task) => ({ result: await statsOfPartFile(plan, task) }),
     finish: () => ({ final: stats ? stats.map((t) => t.toJSON()) : null }),

@@ -18,7 +18,7 @@ export interface GatherTask {
   bucket: number;
   /** Where the bucket's records lie: chunks of the scatter tasks' spill files. */
   pieces: SpillPiece[];
-  /** Rank, within each dealing stratum, of the first record of that stratum in this bucket. */
+  /** Rank, within each dealing stratum, of the first record of that stratum in this bucket (used up by the dealing). */
   rankStart: Float64Array;
   /**
    * A buffer to reuse (one an earlier task returned). Recycling keeps memory bounded: freed
@@ -37,7 +37,7 @@ export interface GatherResult {
   /**
    * Records written per part, fold and stratum, at `(part * K + fold) * strata + s`: every entry,
    * or, where there are many more entries than records in the bucket (many parts, folds and
-   * strata), only those that are not 0, in increasing order of index.
+   * strata), only those that are not 0 (in no particular order).
    */
   counts: Float64Array | SparseCounts;
   /** Order-independent fingerprint per part of the record contents written (fold column excluded). */
@@ -180,18 +180,20 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
 
   // Each record's cell, in key order (its rank within its stratum follows key order).
   const cellOfRec = scratch(5, n);
-  if (plan.mode === 'exact') dealExact(order, n, ix.stratum, Float64Array.from(task.rankStart), table, cellOfRec);
+  // dealExact counts the ranks on in the task's own array: the task is this bucket's alone.
+  if (plan.mode === 'exact') dealExact(order, n, ix.stratum, task.rankStart, table, cellOfRec);
   else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, keyHi[i]!, keyLo[i]!);
   else for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(prep.groups!, keyHi[i]!, keyLo[i]!);
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
   // A table of every (part, fold, stratum) costs more than the bucket's records once there are
-  // far more entries than records (1,024 parts, 5 folds and 5,000 strata: 200 MB a bucket to
-  // zero, send and add): then each record's entry is listed, and the list sorted and counted.
+  // more entries than records (1,024 parts, 5 folds and 5,000 strata: 200 MB a bucket to zero,
+  // send and add; 8 parts and 5,000 strata: 320 KB a bucket of garbage): then each record's
+  // entry is listed, and the list counted.
   const entries = parts * K * strata;
-  const dense = entries <= 4 * n + 1024;
+  const dense = entries <= n / 2 + 1024;
   const counts = dense ? new Float64Array(entries) : null;
-  const entryOf = dense ? null : new Float64Array(n);
+  const entryOf = dense ? null : scratch64(0, n);
   sizeRecords(ix, cellOfRec, K, strata, eolLen, foldLen, isJson && foldCol ? bytes : null, recSize, partBytes, counts, entryOf);
   T?.push(performance.now());
 
@@ -337,15 +339,33 @@ function sizeRecords(
 
 /** The entries listed once per record, counted: each distinct entry and how often it occurs. */
 function countEntries(entryOf: Float64Array): SparseCounts {
-  entryOf.sort();
+  // Open addressing over at most twice as many slots as records: one pass, no sort.
+  let bits = 4;
+  while (2 ** bits < 2 * entryOf.length) bits++;
+  const size = 2 ** bits;
+  const mask = size - 1;
+  const shift = 32 - bits;
+  const keys = scratch64(1, size).fill(-1);
+  const hits = scratch64(2, size).fill(0);
   let distinct = 0;
-  for (let i = 0; i < entryOf.length; i++) if (i === 0 || entryOf[i] !== entryOf[i - 1]) distinct++;
+  for (let i = 0; i < entryOf.length; i++) {
+    const e = entryOf[i]!;
+    // Fibonacci hashing: the product's top bits depend on all of the entry's bits.
+    let slot = (Math.imul((e % 4294967296) ^ Math.imul((e / 4294967296) | 0, 0x85ebca77), 0x9e3779b1) >>> shift) & mask;
+    while (keys[slot] !== e && keys[slot] !== -1) slot = (slot + 1) & mask;
+    if (keys[slot] === -1) {
+      keys[slot] = e;
+      distinct++;
+    }
+    hits[slot]!++;
+  }
   const index = new Float64Array(distinct);
   const value = new Float64Array(distinct);
-  let j = -1;
-  for (let i = 0; i < entryOf.length; i++) {
-    if (i === 0 || entryOf[i] !== entryOf[i - 1]) index[++j] = entryOf[i]!;
-    value[j]!++;
+  let j = 0;
+  for (let slot = 0; slot < size; slot++) {
+    if (keys[slot] === -1) continue;
+    index[j] = keys[slot]!;
+    value[j++] = hits[slot]!;
   }
   return { index, value };
 }
@@ -462,6 +482,17 @@ function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
 // Per-record arrays reused from bucket to bucket: a worker deals one bucket after another, and
 // fresh arrays each time cost page faults and collector work.
 const SCRATCH: Uint32Array[] = [];
+const SCRATCH64: Float64Array[] = [];
+
+/** The same for the sparse counts' lists and table (countEntries copies out what it returns). */
+function scratch64(k: number, count: number): Float64Array {
+  const have = SCRATCH64[k];
+  if (have && have.length >= count) return have.subarray(0, count);
+  const a = new Float64Array(Math.ceil(count * 1.25) + 16);
+  SCRATCH64[k] = a;
+  return a.subarray(0, count);
+}
+
 function scratch(k: number, count: number): Uint32Array {
   const have = SCRATCH[k];
   if (have && have.length >= count) return have.subarray(0, count);

@@ -88,8 +88,8 @@ export interface ScatterTaskResult {
   task: number;
   /** Local stratum id -> canonical stratum key. */
   strata: string[];
-  /** `bucketCounts[stratum][bucket]`. */
-  bucketCounts: Float64Array[];
+  /** `bucketCounts[stratum][bucket]` (a bucket holds far fewer than 2^32 records: it fits the budget). */
+  bucketCounts: Uint32Array[];
   bucketBytes: Float64Array;
   /** The task's spill files (one per range of buckets, see spillRanges; a file may not exist if
    * its range got no records) and, per bucket, its chunks in its range's file: [offset, length, …]. */
@@ -108,7 +108,7 @@ export interface ScatterResult {
   /** Union stratum id -> canonical stratum key. */
   strata: string[];
   /** `bucketCounts[stratum][bucket]` over all tasks. */
-  bucketCounts: Float64Array[];
+  bucketCounts: Uint32Array[];
   /** Per task: local stratum id -> union stratum id. */
   taskStrata: number[][];
   /** Per bucket: where its records lie, chunks of every task's spill file (task order). */
@@ -166,7 +166,7 @@ export class ScatterTask {
   readonly #fp = new Fingerprint();
   readonly #strataIds = new Map<string, number>();
   readonly #strata: string[] = [];
-  readonly #bucketCounts: Float64Array[] = [];
+  readonly #bucketCounts: Uint32Array[] = [];
   readonly #groups: Map<string, GroupEntry> | null;
   readonly #fast = new ByteIdTable();
   readonly #hasBins: boolean;
@@ -197,7 +197,7 @@ export class ScatterTask {
     }
     this.#strataIds.set(k, id);
     this.#strata.push(k);
-    this.#bucketCounts.push(new Float64Array(2 ** this.#c.bits));
+    this.#bucketCounts.push(new Uint32Array(2 ** this.#c.bits));
     return id;
   }
 
@@ -592,18 +592,21 @@ export function mergeScatterResults(
   results.sort((a, b) => a.task - b.task);
   const ids = new Map<string, number>();
   const strata: string[] = [];
-  const bucketCounts: Float64Array[] = [];
+  // A stratum's counts are added into the first task's array that has it (with thousands of
+  // strata, these tables are the largest thing stage 1 hands over).
+  const bucketCounts: Uint32Array[] = [];
   const taskStrata = results.map((r) =>
     r.strata.map((k, local) => {
+      const src = r.bucketCounts[local]!;
       let id = ids.get(k);
       if (id === undefined) {
         id = strata.length;
         ids.set(k, id);
         strata.push(k);
-        bucketCounts.push(new Float64Array(buckets));
+        bucketCounts.push(src.length === buckets ? src : new Uint32Array(buckets));
+        if (src.length === buckets) return id;
       }
       const dst = bucketCounts[id]!;
-      const src = r.bucketCounts[local]!;
       for (let b = 0; b < buckets; b++) dst[b]! += src[b]!;
       return id;
     }),

@@ -477,13 +477,17 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const header = headerBytes(sc, o, format);
     if (header) for (const w of writers) await w.write(header);
 
-    // Rank of each stratum's first record in every bucket: prefix sums over buckets.
+    // Rank of each stratum's first record in a bucket: prefix sums over the buckets before it,
+    // taken as the buckets are handed out (in order).
     const running = new Float64Array(nStrata);
-    const rankStarts: Float64Array[] = [];
-    for (let b = 0; b < buckets; b++) {
-      rankStarts.push(Float64Array.from(running));
+    let ranked = 0;
+    const rankStartOf = (b: number): Float64Array => {
+      if (b !== ranked) throw new RowdeckError('ERR_INTERNAL', `bucket ${b} handed out before bucket ${ranked}`);
+      const start = Float64Array.from(running);
       for (let l = 0; l < sc.strata.length; l++) running[localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
-    }
+      ranked++;
+      return start;
+    };
 
     if (threads === 0) {
       const lane = gatherLane(planPath);
@@ -507,10 +511,11 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
     const spare: ArrayBuffer[] = [];
     const submit = (b: number): void => {
-      const task: GatherTask = { bucket: b, pieces: sc.bucketPieces[b]!, rankStart: rankStarts[b]! };
+      const task: GatherTask = { bucket: b, pieces: sc.bucketPieces[b]!, rankStart: rankStartOf(b) };
       const arena = spare.pop();
       if (arena) task.arena = arena;
-      const p = pool!.run(task, arena ? [arena] : []);
+      // The rank starts go over without a copy (with thousands of strata they are tens of KB a bucket).
+      const p = pool!.run(task, arena ? [arena, task.rankStart.buffer as ArrayBuffer] : [task.rankStart.buffer as ArrayBuffer]);
       p.catch(() => {});
       pending.set(b, p);
     };

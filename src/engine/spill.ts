@@ -223,7 +223,7 @@ export class BucketWriter {
    * and put in the bucket of its key's top `bits` bits, as `append` would be called for each.
    * `bucketCounts[stratum][bucket]` counts them.
    */
-  enqueueRun(b: RecordBatch, i0: number, i1: number, input: number, bits: number, bucketCounts: Float64Array[]): void {
+  enqueueRun(b: RecordBatch, i0: number, i1: number, input: number, bits: number, bucketCounts: Uint32Array[]): void {
     const n = i1 - i0;
     if (!this.#keyed || !this.#staged || n > QUEUE) throw new Error('internal: enqueueRun needs the key secret and a staged run of at most QUEUE records');
     if (this.#queued + n > QUEUE) this.#drain();
