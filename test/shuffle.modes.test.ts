@@ -54,6 +54,41 @@ describe('--group keeps every group in one part', () => {
   });
 });
 
+describe('--group with thousands of groups of mixed classes', () => {
+  it('keeps each in one cell, the same on 1 or 2 threads, with the manifest counting what the files hold', async () => {
+    // ~4,000 sensors of ~5 records each, their classes mixed: most groups hold several classes.
+    const file = join(dir, 'many-groups.csv');
+    writeFileSync(file, makeSensorCsv({ rows: 20000, seed: 33, sensors: 4000 }));
+    const runs = [];
+    for (const threads of [1, 2]) {
+      const out = join(dir, `many-groups-${threads}`);
+      const m = await shuffle({ inputs: [file], out, seed: 'mg', partitions: 4, folds: 2, group: 'sensor', stratify: 'fault', tolerance: 1, threads, memory: threads === 1 ? '2MiB' : '1GiB' });
+      const cellOf = new Map<string, string>();
+      const classesOf = new Map<string, Set<string>>();
+      for (const p of m.output.parts) {
+        const { header, rows } = parseCsv(readPart(join(out, p.path)));
+        const [sensorAt, faultAt] = [header.indexOf('sensor'), header.indexOf('fault')];
+        const byClass = new Map<string, number>();
+        for (const r of rows) {
+          const cell = `${p.path}#${r[r.length - 1]}`;
+          const seen = cellOf.get(r[sensorAt]!);
+          if (seen !== undefined) expect(seen).toBe(cell);
+          cellOf.set(r[sensorAt]!, cell);
+          classesOf.set(r[sensorAt]!, (classesOf.get(r[sensorAt]!) ?? new Set()).add(r[faultAt]!));
+          byClass.set(r[faultAt]!, (byClass.get(r[faultAt]!) ?? 0) + 1);
+        }
+        m.strata.values.forEach((v, s) => expect(byClass.get(v.value![0]!) ?? 0).toBe(p.strata[s]));
+      }
+      expect(cellOf.size).toBeGreaterThan(3900);
+      expect([...classesOf.values()].filter((c) => c.size > 1).length).toBeGreaterThan(cellOf.size / 2);
+      // Small groups over 8 cells: the classes come out close to their shares.
+      expect(m.balance.maxDeviation).toBeLessThan(0.1);
+      runs.push(m.output.parts.map((p) => p.sha256));
+    }
+    expect(runs[1]).toEqual(runs[0]);
+  });
+});
+
 describe('--assign hash', () => {
   it('keeps the part of every old record when records are appended', async () => {
     const older = join(dir, 'older.csv');

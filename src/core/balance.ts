@@ -2,6 +2,7 @@
  * Class balance: the seeded order strata are dealt in, the greedy placement of whole groups,
  * and the measure the tolerance promise is checked with. Pure.
  */
+import type { GroupTable } from './group-table.js';
 import { hashBytes, type Secret } from './hash.js';
 
 /**
@@ -19,54 +20,56 @@ export function orderStrata(keys: string[], secret: Secret): number[] {
     .sort((a, b) => h[a]![0] - h[b]![0] || h[a]![1] - h[b]![1] || (keys[a]! < keys[b]! ? -1 : keys[a]! > keys[b]! ? 1 : 0));
 }
 
-export interface GroupUnit {
-  hi: number;
-  lo: number;
-  size: number;
-  /** Records per (dealing) stratum. */
-  strata: Map<number, number>;
-}
-
 /**
  * Places groups as units into cells. Largest groups first (ties by key, which is seeded); each
  * goes to the cell whose class histogram is furthest behind its target for the group's classes,
- * weighing the cell's total size too. Returns the cell of each group, in input order.
+ * weighing the cell's total size too. Returns the cell of each group, by group index.
  *
- * `cellWeight[c]` is the fraction of all records cell c should receive.
+ * `groups` holds dealing stratum ids; `cellWeight[c]` is the fraction of all records cell c
+ * should receive. A group's classes are added in increasing order of id (GroupTable.strataOf),
+ * so the scores do not depend on the order in which records were read.
  */
-export function placeGroups(groups: GroupUnit[], strataSizes: ArrayLike<number>, cellWeight: number[]): Uint32Array {
+export function placeGroups(groups: GroupTable, strataSizes: ArrayLike<number>, cellWeight: number[]): Uint32Array {
   const C = cellWeight.length;
   const nStrata = strataSizes.length;
   const total = Array.from(strataSizes).reduce((a, b) => a + b, 0);
   const have = new Float64Array(C * nStrata);
   const haveTotal = new Float64Array(C);
-  const order = groups.map((_, i) => i).sort((a, b) => groups[b]!.size - groups[a]!.size || groups[a]!.hi - groups[b]!.hi || groups[a]!.lo - groups[b]!.lo);
-  const out = new Uint32Array(groups.length);
-  for (const gi of order) {
-    const g = groups[gi]!;
+  const n = groups.count;
+  const { hi, lo, records, first } = groups;
+  const order = new Uint32Array(n);
+  for (let i = 0; i < n; i++) order[i] = i;
+  order.sort((a, b) => records[b]! - records[a]! || hi[a]! - hi[b]! || lo[a]! - lo[b]!);
+  const out = new Uint32Array(n);
+  for (let k = 0; k < n; k++) {
+    const gi = order[k]!;
+    const size = records[gi]!;
+    // Most groups are of one class: no list to make for them.
+    const several = groups.extra.has(gi) ? groups.strataOf(gi) : null;
+    const one = first[gi]!;
     let best = -1;
     let bestScore = -Infinity;
-    const rot = g.lo % C;
-    for (let k = 0; k < C; k++) {
-      const c = (k + rot) % C;
+    const rot = lo[gi]! % C;
+    for (let j = 0; j < C; j++) {
+      const c = (j + rot) % C;
       const w = cellWeight[c]!;
       if (w === 0) continue;
       // Deficit, in units of "records this cell should still get", per class of the group,
       // normalised by the class size so rare classes count as much as common ones.
       let score = 0;
-      for (const [s, n] of g.strata) {
-        const target = w * strataSizes[s]!;
-        score += (n * (target - have[c * nStrata + s]!)) / strataSizes[s]!;
-      }
-      score += (g.size * (w * total - haveTotal[c]!)) / total;
+      if (several) {
+        for (const [s, m] of several) score += (m * (w * strataSizes[s]! - have[c * nStrata + s]!)) / strataSizes[s]!;
+      } else score += (size * (w * strataSizes[one]! - have[c * nStrata + one]!)) / strataSizes[one]!;
+      score += (size * (w * total - haveTotal[c]!)) / total;
       if (score > bestScore) {
         bestScore = score;
         best = c;
       }
     }
     out[gi] = best;
-    for (const [s, n] of g.strata) have[best * nStrata + s]! += n;
-    haveTotal[best]! += g.size;
+    if (several) for (const [s, m] of several) have[best * nStrata + s]! += m;
+    else have[best * nStrata + one]! += size;
+    haveTotal[best]! += size;
   }
   return out;
 }

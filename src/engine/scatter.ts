@@ -15,6 +15,7 @@
  * sorts every bucket by key and identity.
  */
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
+import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
@@ -75,14 +76,6 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   blockBytes?: number;
 }
 
-export interface GroupEntry {
-  hi: number;
-  lo: number;
-  size: number;
-  /** Records per stratum id (task-local inside a task result; union ids after merging). */
-  strata: Map<number, number>;
-}
-
 /** What one scatter task returns; plain data (posted from a worker). */
 export interface ScatterTaskResult {
   task: number;
@@ -97,8 +90,8 @@ export interface ScatterTaskResult {
   chunks: number[][];
   records: number;
   fingerprint: { hi: number; lo: number; count: number };
-  /** Group mode: [hi, lo, size, stratum, count, stratum, count, …] per group. */
-  groups: number[][] | null;
+  /** Group mode: the task's groups (task-local stratum ids). */
+  groups: GroupTableData | null;
   /** Hash mode: `cellCounts[stratum][cell]`. */
   cellCounts: Float64Array[] | null;
 }
@@ -119,7 +112,8 @@ export interface ScatterResult {
   records: number;
   rejected: number;
   fingerprint: Fingerprint;
-  groups: GroupEntry[] | null;
+  /** Group mode: every group (union stratum ids). */
+  groups: GroupTable | null;
   /** Hash mode: `cellCounts[stratum][cell]` over all tasks (union stratum ids). */
   cellCounts: Float64Array[] | null;
 }
@@ -167,7 +161,7 @@ export class ScatterTask {
   readonly #strataIds = new Map<string, number>();
   readonly #strata: string[] = [];
   readonly #bucketCounts: Uint32Array[] = [];
-  readonly #groups: Map<string, GroupEntry> | null;
+  readonly #groups: GroupTable | null;
   readonly #fast = new ByteIdTable();
   readonly #hasBins: boolean;
   readonly #keyBuf = Buffer.allocUnsafe(4096);
@@ -180,7 +174,7 @@ export class ScatterTask {
     this.#c = c;
     this.#secret = Uint32Array.from(c.secret);
     this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
-    this.#groups = c.group !== null ? new Map() : null;
+    this.#groups = c.group !== null ? new GroupTable() : null;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
     this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
     this.#writer.setKeySecret(this.#secret);
@@ -293,13 +287,7 @@ export class ScatterTask {
         const counts = (this.#cellCounts[st] ??= new Float64Array(deal.splits.length * deal.partitions * deal.folds));
         counts[hashedCell(deal, this.#cellSecret, hi, lo)]!++;
       }
-      if (this.#groups) {
-        const gk = `${hi}:${lo}`;
-        let g = this.#groups.get(gk);
-        if (!g) this.#groups.set(gk, (g = { hi, lo, size: 0, strata: new Map() }));
-        g.size++;
-        g.strata.set(st, (g.strata.get(st) ?? 0) + 1);
-      }
+      this.#groups?.add(hi, lo, st, 1);
     }
     this.#records += n;
   }
@@ -358,7 +346,7 @@ export class ScatterTask {
       chunks: this.#writer.chunks,
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
-      groups: this.#groups ? [...this.#groups.values()].map((g) => [g.hi, g.lo, g.size, ...[...g.strata].flat()]) : null,
+      groups: this.#groups ? this.#groups.toData() : null,
       cellCounts: this.#cellSecret ? this.#strata.map((_, st) => this.#cellCounts[st] ?? new Float64Array(0)) : null,
     };
   }
@@ -613,22 +601,14 @@ export function mergeScatterResults(
   );
   const fp = new Fingerprint();
   for (const r of results) fp.merge(r.fingerprint);
-  let groups: GroupEntry[] | null = null;
+  let groups: GroupTable | null = null;
   if (results.some((r) => r.groups)) {
-    const byKey = new Map<string, GroupEntry>();
+    groups = new GroupTable(results.reduce((a, r) => Math.max(a, r.groups?.count ?? 0), 0));
     results.forEach((r, t) => {
-      for (const g of r.groups ?? []) {
-        const k = `${g[0]}:${g[1]}`;
-        let e = byKey.get(k);
-        if (!e) byKey.set(k, (e = { hi: g[0]!, lo: g[1]!, size: 0, strata: new Map() }));
-        e.size += g[2]!;
-        for (let j = 3; j < g.length; j += 2) {
-          const s = taskStrata[t]![g[j]!]!;
-          e.strata.set(s, (e.strata.get(s) ?? 0) + g[j + 1]!);
-        }
-      }
+      if (r.groups) groups!.addAll(r.groups, (s) => taskStrata[t]![s]!);
+      // Let the task's copy go before the next one is added.
+      r.groups = null;
     });
-    groups = [...byKey.values()];
   }
   let cellCounts: Float64Array[] | null = null;
   if (results.some((r) => r.cellCounts)) {

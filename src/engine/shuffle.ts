@@ -400,22 +400,30 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellCounts = new Float64Array(cells * nStrata);
       sc.cellCounts!.forEach((counts, u) => counts.forEach((n, cell) => (cellCounts[cell * nStrata + localToGlobal[u]!]! += n)));
     } else {
-      const groups = sc.groups!.map((g) => ({ hi: g.hi, lo: g.lo, size: g.size, strata: new Map([...g.strata].map(([s, n]) => [localToGlobal[s]!, n])) }));
+      const groups = sc.groups!.mapClasses((s) => localToGlobal[s]!);
+      sc.groups = null;
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
       const cellWeight: number[] = [];
       for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));
       const placed = placeGroups(groups, strataSizes, cellWeight);
       cellCounts = new Float64Array(cells * nStrata);
-      groups.forEach((g, i) => g.strata.forEach((n, s) => (cellCounts[placed[i]! * nStrata + s]! += n)));
+      const n = groups.count;
+      const { hi, lo, records, first } = groups;
+      for (let g = 0; g < n; g++) {
+        if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
+        else cellCounts[placed[g]! * nStrata + first[g]!]! += records[g]!;
+      }
       // Sorted (hi, lo) -> cell table for the workers.
-      const idx = groups.map((_, i) => i).sort((a, b) => groups[a]!.hi - groups[b]!.hi || groups[a]!.lo - groups[b]!.lo);
-      const n = groups.length;
+      const idx = new Uint32Array(n);
+      for (let g = 0; g < n; g++) idx[g] = g;
+      idx.sort((a, b) => hi[a]! - hi[b]! || lo[a]! - lo[b]!);
       const bin = new Uint32Array(n * 3);
-      idx.forEach((gi, k) => {
-        bin[k] = groups[gi]!.hi;
-        bin[n + k] = groups[gi]!.lo;
+      for (let k = 0; k < n; k++) {
+        const gi = idx[k]!;
+        bin[k] = hi[gi]!;
+        bin[n + k] = lo[gi]!;
         bin[2 * n + k] = placed[gi]!;
-      });
+      }
       groupsFile = 'groups.bin';
       writeFileSync(join(spillDir, groupsFile), bin);
     }
