@@ -104,11 +104,10 @@ export class GroupTable {
     }
   }
 
-  /** The same groups with their classes mapped by `classOf` (e.g. to dealing order). */
-  mapClasses(classOf: (s: number) => number): GroupTable {
-    const t = new GroupTable(this.count);
-    t.addAll(this.toData(), classOf);
-    return t;
+  /** Maps every class id by `classOf` (e.g. to dealing order), in place. */
+  remapClasses(classOf: (s: number) => number): void {
+    for (let g = 0; g < this.count; g++) this.first[g] = classOf(this.first[g]!);
+    for (const [g, m] of this.extra) this.extra.set(g, new Map([...m].map(([s, n]) => [classOf(s), n])));
   }
 
   #slotOf(hi: number, lo: number): number {

@@ -603,7 +603,8 @@ export function mergeScatterResults(
   for (const r of results) fp.merge(r.fingerprint);
   let groups: GroupTable | null = null;
   if (results.some((r) => r.groups)) {
-    groups = new GroupTable(results.reduce((a, r) => Math.max(a, r.groups?.count ?? 0), 0));
+    // Room for every task's groups (their sum bounds the union): the table never grows.
+    groups = new GroupTable(results.reduce((a, r) => a + (r.groups?.count ?? 0), 0));
     results.forEach((r, t) => {
       if (r.groups) groups!.addAll(r.groups, (s) => taskStrata[t]![s]!);
       // Let the task's copy go before the next one is added.

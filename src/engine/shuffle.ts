@@ -19,6 +19,7 @@ import { stringify } from 'csv-stringify/sync';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
+import { sortByKey } from '../core/sort.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
@@ -400,26 +401,27 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellCounts = new Float64Array(cells * nStrata);
       sc.cellCounts!.forEach((counts, u) => counts.forEach((n, cell) => (cellCounts[cell * nStrata + localToGlobal[u]!]! += n)));
     } else {
-      const groups = sc.groups!.mapClasses((s) => localToGlobal[s]!);
+      const groups = sc.groups!;
+      groups.remapClasses((s) => localToGlobal[s]!);
       sc.groups = null;
+      const n = groups.count;
+      const { hi, lo, records, first } = groups;
+      // The groups in key order (the radix sort of stage 2; keys of distinct groups never tie),
+      // for the placement's order among equal sizes and for the workers' table.
+      const byKey = Uint32Array.from(sortByKey({ keyHi: hi.subarray(0, n), keyLo: lo.subarray(0, n), identity: (i) => [0, i] }, n, 0));
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
       const cellWeight: number[] = [];
       for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));
-      const placed = placeGroups(groups, strataSizes, cellWeight);
+      const placed = placeGroups(groups, strataSizes, cellWeight, byKey);
       cellCounts = new Float64Array(cells * nStrata);
-      const n = groups.count;
-      const { hi, lo, records, first } = groups;
       for (let g = 0; g < n; g++) {
         if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
         else cellCounts[placed[g]! * nStrata + first[g]!]! += records[g]!;
       }
       // Sorted (hi, lo) -> cell table for the workers.
-      const idx = new Uint32Array(n);
-      for (let g = 0; g < n; g++) idx[g] = g;
-      idx.sort((a, b) => hi[a]! - hi[b]! || lo[a]! - lo[b]!);
       const bin = new Uint32Array(n * 3);
       for (let k = 0; k < n; k++) {
-        const gi = idx[k]!;
+        const gi = byKey[k]!;
         bin[k] = hi[gi]!;
         bin[n + k] = lo[gi]!;
         bin[2 * n + k] = placed[gi]!;
