@@ -481,24 +481,24 @@ function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
 
 // Per-record arrays reused from bucket to bucket: a worker deals one bucket after another, and
 // fresh arrays each time cost page faults and collector work.
+// The Float64 ones hold the sparse counts' lists and table (countEntries copies out what it returns).
 const SCRATCH: Uint32Array[] = [];
 const SCRATCH64: Float64Array[] = [];
 
-/** The same for the sparse counts' lists and table (countEntries copies out what it returns). */
-function scratch64(k: number, count: number): Float64Array {
-  const have = SCRATCH64[k];
-  if (have && have.length >= count) return have.subarray(0, count);
-  const a = new Float64Array(Math.ceil(count * 1.25) + 16);
-  SCRATCH64[k] = a;
-  return a.subarray(0, count);
+function reuse<T extends Uint32Array | Float64Array>(pool: T[], k: number, count: number, make: (n: number) => T): T {
+  const have = pool[k];
+  if (have && have.length >= count) return have.subarray(0, count) as T;
+  const a = make(Math.ceil(count * 1.25) + 16);
+  pool[k] = a;
+  return a.subarray(0, count) as T;
 }
 
 function scratch(k: number, count: number): Uint32Array {
-  const have = SCRATCH[k];
-  if (have && have.length >= count) return have.subarray(0, count);
-  const a = new Uint32Array(Math.ceil(count * 1.25) + 16);
-  SCRATCH[k] = a;
-  return a.subarray(0, count);
+  return reuse(SCRATCH, k, count, (n) => new Uint32Array(n));
+}
+
+function scratch64(k: number, count: number): Float64Array {
+  return reuse(SCRATCH64, k, count, (n) => new Float64Array(n));
 }
 
 /** True when the JSON record in bytes [s, s+len) is `{}` (with optional blanks). */
