@@ -89,6 +89,31 @@ describe('--group with thousands of groups of mixed classes', () => {
   });
 });
 
+describe('--group: a value is the same group quoted or not', () => {
+  it('puts "S7" and S7 in one cell (a plain value is hashed where it lies, a quoted one after unquoting)', async () => {
+    const file = join(dir, 'quoted-groups.csv');
+    const lines = ['id,sensor,fault'];
+    for (let i = 0; i < 3000; i++) {
+      // 149 sensors and every third record quoted: each sensor comes both ways.
+      const sensor = `S${i % 149}`;
+      lines.push(`${i},${i % 3 === 0 ? `"${sensor}"` : sensor},${i % 7 === 0 ? 'drift' : 'ok'}`);
+    }
+    writeFileSync(file, lines.join('\n') + '\n');
+    const out = join(dir, 'quoted-groups');
+    const m = await shuffle({ inputs: [file], out, seed: 'q', partitions: 4, folds: 2, group: 'sensor', stratify: 'fault', tolerance: 2 });
+    const cellOf = new Map<string, string>();
+    for (const p of m.output.parts) {
+      for (const r of parseCsv(readPart(join(out, p.path))).rows) {
+        const cell = `${p.path}#${r[3]}`;
+        const seen = cellOf.get(r[1]!);
+        if (seen !== undefined) expect(seen, r[1]).toBe(cell);
+        cellOf.set(r[1]!, cell);
+      }
+    }
+    expect(cellOf.size).toBe(149);
+  });
+});
+
 describe('--assign hash', () => {
   it('keeps the part of every old record when records are appended', async () => {
     const older = join(dir, 'older.csv');

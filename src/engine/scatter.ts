@@ -264,7 +264,12 @@ export class ScatterTask {
       }
       const offset = batch.offset[i]!;
       let h: Uint32Array;
-      if (groupSlot >= 0 || nKey > 0) {
+      const gk = groupSlot >= 0 ? i * batch.wanted + groupSlot : -1;
+      if (gk >= 0 && batch.fieldKind[gk] === FieldKind.Plain && batch.fieldEnd[gk]! > batch.fieldStart[gk]!) {
+        // A plain group value is its own key text (fieldKey's latin1 string of the same bytes):
+        // hashed where it lies, with no string made for it.
+        h = hashBytes(this.#secret, d, batch.fieldStart[gk]!, batch.fieldEnd[gk]!);
+      } else if (groupSlot >= 0 || nKey > 0) {
         // Keys from column values: equal values, equal keys, wherever the record sits.
         let text = '';
         if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
