@@ -49,6 +49,10 @@ describe('GroupTable', () => {
       expect(list.reduce((a, [, n]) => a + n, 0)).toBe(t.records[g]);
     }
     expect(t.indexOf(1, 2)).toBe(-1);
+    // Sealed, the table still reads the same, and refuses new groups.
+    t.seal();
+    expect(contents(t)).toEqual(ref);
+    expect(() => t.add(1, 2, 0, 1)).toThrow(/sealed/);
   });
 
   it('merges tables with their classes mapped, in any order, to the same groups', () => {

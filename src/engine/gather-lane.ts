@@ -4,7 +4,8 @@
  * first bucket, deals each bucket it is given, and keeps every part's statistics until the end
  * (or, where they would take too much memory, reads the parts back one at a time afterwards).
  */
-import { readFileSync } from 'node:fs';
+import { closeSync, openSync, readFileSync, readSync } from 'node:fs';
+import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
 import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type GroupTable, type PreparedPlan } from './gather.js';
@@ -15,18 +16,38 @@ export type GatherFinal = SerializedStats[] | null;
 
 export function loadGatherPlan(planPath: string): PreparedPlan {
   const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
-  let groups: GroupTable | null = null;
-  if (plan.groupsFile) {
-    const raw = readFileSync(join(dirname(planPath), plan.groupsFile));
-    const buf = new Uint8Array(raw).buffer;
-    const n = raw.byteLength / 12;
-    groups = {
-      keyHi: new Uint32Array(buf, 0, n),
-      keyLo: new Uint32Array(buf, n * 4, n),
-      cell: new Uint32Array(buf, n * 8, n),
-    };
+  const file = plan.groupsFile ? join(dirname(planPath), plan.groupsFile) : null;
+  return preparePlan(plan, file ? (bucket) => readBucketGroups(file, plan.groupStarts!, bucket) : null);
+}
+
+/**
+ * The groups whose keys fall in one bucket: the file holds every group's key high words, then
+ * low words, then cells, each column sorted by key, and a bucket's groups are a run of it
+ * (`starts[b]` up to `starts[b + 1]`). A lane reads 12 bytes a group of its bucket, not the
+ * whole table (10 M groups: 120 MB a lane).
+ */
+function readBucketGroups(file: string, starts: number[], bucket: number): GroupTable {
+  const from = starts[bucket]!;
+  const n = starts[bucket + 1]! - from;
+  const total = starts[starts.length - 1]!;
+  const buf = new ArrayBuffer(12 * n);
+  const fd = openSync(file, 'r');
+  try {
+    for (let col = 0; col < 3; col++) {
+      const view = new Uint8Array(buf, 4 * n * col, 4 * n);
+      let got = 0;
+      while (got < view.length) {
+        const r = readSync(fd, view, got, view.length - got, 4 * (col * total + from) + got);
+        if (r === 0) throw new RowdeckError('ERR_INTERNAL', `${file} is shorter than its plan says: the spill folder was changed during the run.`);
+        got += r;
+      }
+    }
+  } catch (err) {
+    throw ioError(err, file, 'reading the group table');
+  } finally {
+    closeSync(fd);
   }
-  return preparePlan(plan, groups);
+  return { keyHi: new Uint32Array(buf, 0, n), keyLo: new Uint32Array(buf, 4 * n, n), cell: new Uint32Array(buf, 8 * n, n) };
 }
 
 export interface GatherLane {

@@ -67,17 +67,20 @@ export interface GroupTable {
   cell: Uint32Array;
 }
 
-/** Caches what every task of one plan shares (the dealing table, the group table). */
+/**
+ * Caches what every task of one plan shares (the dealing table), and, in group mode, where a
+ * bucket's groups are found: their keys and cells, read for that bucket alone.
+ */
 export interface PreparedPlan {
   plan: GatherPlan;
   table: DealTable;
-  groups: GroupTable | null;
+  groupsOf: ((bucket: number) => GroupTable) | null;
   cellSecret: Uint32Array;
 }
 
-export function preparePlan(plan: GatherPlan, groups: GroupTable | null): PreparedPlan {
+export function preparePlan(plan: GatherPlan, groupsOf: ((bucket: number) => GroupTable) | null): PreparedPlan {
   const table = buildDealTableFromPlan(plan);
-  return { plan, table, groups, cellSecret: Uint32Array.from(plan.cellSecret) };
+  return { plan, table, groupsOf, cellSecret: Uint32Array.from(plan.cellSecret) };
 }
 
 function buildDealTableFromPlan(plan: GatherPlan): DealTable {
@@ -183,7 +186,10 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   // dealExact counts the ranks on in the task's own array: the task is this bucket's alone.
   if (plan.mode === 'exact') dealExact(order, n, ix.stratum, task.rankStart, table, cellOfRec);
   else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, keyHi[i]!, keyLo[i]!);
-  else for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(prep.groups!, keyHi[i]!, keyLo[i]!);
+  else {
+    const groups = prep.groupsOf!(task.bucket);
+    for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(groups, keyHi[i]!, keyLo[i]!);
+  }
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
   // A table of every (part, fold, stratum) costs more than the bucket's records once there are

@@ -33,6 +33,8 @@ export interface GatherPlan {
   cellSecret: number[];
   /** Group mode: file (in the spill folder) holding sorted group keys and their cells. */
   groupsFile: string | null;
+  /** Group mode: bucket b's groups are entries starts[b] up to starts[b + 1] of that file. */
+  groupStarts: number[] | null;
   /** Column names, for per-part statistics; empty disables them. */
   statsColumns: string[];
   /**

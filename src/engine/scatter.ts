@@ -615,6 +615,7 @@ export function mergeScatterResults(
       // Let the task's copy go before the next one is added.
       r.groups = null;
     });
+    groups.seal();
   }
   let cellCounts: Float64Array[] | null = null;
   if (results.some((r) => r.cellCounts)) {

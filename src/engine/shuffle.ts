@@ -394,6 +394,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // Expected per-(cell, stratum) counts, known before anything is written.
     let cellCounts: Float64Array;
     let groupsFile: string | null = null;
+    let groupStarts: number[] | null = null;
     if (o.assign === 'exact') {
       cellCounts = countCells(table); // [s * cells + cell]
       cellCounts = transpose(cellCounts, nStrata, cells);
@@ -428,6 +429,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
       groupsFile = 'groups.bin';
       writeFileSync(join(spillDir, groupsFile), bin);
+      // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
+      groupStarts = new Array<number>(buckets + 1).fill(0);
+      for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : bin[k]! >>> (32 - bits)) + 1]!++;
+      for (let b = 0; b < buckets; b++) groupStarts[b + 1]! += groupStarts[b]!;
     }
 
     // Tolerance: parts (files), and folds within each split.
@@ -469,6 +474,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       offset: Array.from(table.offset),
       cellSecret: Array.from(cellSecret),
       groupsFile,
+      groupStarts,
       statsColumns: o.stats ? sc.schema.columns : [],
       statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, partCount(deal), threads, o.memory),
       excludeValues: o.excludeValues,
