@@ -192,10 +192,10 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   }
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
-  // A table of every (part, fold, stratum) costs more than the bucket's records once there are
-  // more entries than records (1,024 parts, 5 folds and 5,000 strata: 200 MB a bucket to zero,
-  // send and add; 8 parts and 5,000 strata: 320 KB a bucket of garbage): then each record's
-  // entry is listed, and the list counted.
+  // A table of every (part, fold, stratum) costs more than the bucket's records once it has
+  // more entries than half the records, and 1,024 more (1,024 parts, 5 folds and 5,000 strata:
+  // 200 MB a bucket to zero, send and add; 8 parts and 5,000 strata: 320 KB a bucket of
+  // garbage): then each record's entry is listed, and the list counted.
   const entries = parts * K * strata;
   const dense = entries <= n / 2 + 1024;
   const counts = dense ? new Float64Array(entries) : null;
