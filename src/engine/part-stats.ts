@@ -12,10 +12,9 @@
  * measured ~1.4 MiB a part and lane for the 10 columns of the benchmark files (values of up to
  * ~60 bytes), hence STATS_BYTES_PER_COLUMN. The lanes keep the tables only while the parts times
  * the lanes fit in a quarter of the memory budget (or in READ_BACK_BYTES, what reading back costs
- * itself); past that, the parts are read back. Both ways
- * feed the same records to the same kind of table, and TableStats merges exactly and without
- * regard to order, so the manifest does not depend on which was used (test/stats.test.ts checks
- * that they agree).
+ * itself); past that, the parts are read back. Both ways feed the same records to the same kind
+ * of table, and TableStats merges exactly and without regard to order, so the manifest does not
+ * depend on which was used (test/shuffle.invariants.test.ts runs both and compares them).
  */
 import { TableStats, type SerializedStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
