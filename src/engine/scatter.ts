@@ -7,7 +7,7 @@
  *   stdin, gzip: main thread: RecordReader ──▶ packBatch ──▶ scatter worker k (≤ 2 in flight each)
  *                                                             ScatterTask, as above
  *                ◀── buffers back for reuse
- *   finish ──▶ each worker closes its spill files, returns counts/strata/groups/fingerprint
+ *   finish ──▶ each worker closes its spill files, returns counts/strata/fingerprint
  *
  * The per-record work runs on the workers, and for plain files the parsing too. Each
  * worker is one scatter task with its own spill files and its own local stratum ids; the plan maps
@@ -15,7 +15,6 @@
  * sorts every bucket by key and identity.
  */
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
@@ -90,8 +89,6 @@ export interface ScatterTaskResult {
   chunks: number[][];
   records: number;
   fingerprint: { hi: number; lo: number; count: number };
-  /** Group mode: the task's groups (task-local stratum ids). */
-  groups: GroupTableData | null;
   /** Hash mode: `cellCounts[stratum][cell]`. */
   cellCounts: Float64Array[] | null;
 }
@@ -112,8 +109,6 @@ export interface ScatterResult {
   records: number;
   rejected: number;
   fingerprint: Fingerprint;
-  /** Group mode: every group (union stratum ids). */
-  groups: GroupTable | null;
   /** Hash mode: `cellCounts[stratum][cell]` over all tasks (union stratum ids). */
   cellCounts: Float64Array[] | null;
 }
@@ -161,7 +156,6 @@ export class ScatterTask {
   readonly #strataIds = new Map<string, number>();
   readonly #strata: string[] = [];
   readonly #bucketCounts: Uint32Array[] = [];
-  readonly #groups: GroupTable | null;
   readonly #fast = new ByteIdTable();
   readonly #hasBins: boolean;
   readonly #keyBuf = Buffer.allocUnsafe(4096);
@@ -174,7 +168,6 @@ export class ScatterTask {
     this.#c = c;
     this.#secret = Uint32Array.from(c.secret);
     this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
-    this.#groups = c.group !== null ? new GroupTable() : null;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
     this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
     this.#writer.setKeySecret(this.#secret);
@@ -240,7 +233,7 @@ export class ScatterTask {
   addBatch(batch: RecordBatch, input: number): void {
     this.#input = input;
     const c = this.#c;
-    if (this.#writer.enqueues && c.key.length === 0 && c.group === null && !this.#cellSecret && !this.#groups) {
+    if (this.#writer.enqueues && c.key.length === 0 && c.group === null && !this.#cellSecret) {
       this.#addIdentityKeyed(batch, input);
       return;
     }
@@ -292,7 +285,6 @@ export class ScatterTask {
         const counts = (this.#cellCounts[st] ??= new Float64Array(deal.splits.length * deal.partitions * deal.folds));
         counts[hashedCell(deal, this.#cellSecret, hi, lo)]!++;
       }
-      this.#groups?.add(hi, lo, st, 1);
     }
     this.#records += n;
   }
@@ -351,7 +343,6 @@ export class ScatterTask {
       chunks: this.#writer.chunks,
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
-      groups: this.#groups ? this.#groups.toData() : null,
       cellCounts: this.#cellSecret ? this.#strata.map((_, st) => this.#cellCounts[st] ?? new Float64Array(0)) : null,
     };
   }
@@ -575,7 +566,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   }
 }
 
-/** Combines the tasks' results: union of strata (in task order), summed counts, merged groups. */
+/** Combines the tasks' results: union of strata (in task order), summed counts. */
 export function mergeScatterResults(
   results: ScatterTaskResult[],
   schema: InputSchema,
@@ -606,17 +597,6 @@ export function mergeScatterResults(
   );
   const fp = new Fingerprint();
   for (const r of results) fp.merge(r.fingerprint);
-  let groups: GroupTable | null = null;
-  if (results.some((r) => r.groups)) {
-    // Room for every task's groups (their sum bounds the union): the table never grows.
-    groups = new GroupTable(results.reduce((a, r) => a + (r.groups?.count ?? 0), 0));
-    results.forEach((r, t) => {
-      if (r.groups) groups!.addAll(r.groups, (s) => taskStrata[t]![s]!);
-      // Let the task's copy go before the next one is added.
-      r.groups = null;
-    });
-    groups.seal();
-  }
   let cellCounts: Float64Array[] | null = null;
   if (results.some((r) => r.cellCounts)) {
     cellCounts = strata.map(() => new Float64Array(0));
@@ -650,7 +630,6 @@ export function mergeScatterResults(
     records: results.reduce((a, r) => a + r.records, 0),
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),
     fingerprint: fp,
-    groups,
     cellCounts,
   };
 }

@@ -19,14 +19,14 @@ import { stringify } from 'csv-stringify/sync';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
-import { sortByKey } from '../core/sort.js';
+import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
-import { addCounts, type GatherResult, type GatherTask } from './gather.js';
+import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
 import type { BlockReply } from '../io/blocks.js';
@@ -402,14 +402,27 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cellCounts = new Float64Array(cells * nStrata);
       sc.cellCounts!.forEach((counts, u) => counts.forEach((n, cell) => (cellCounts[cell * nStrata + localToGlobal[u]!]! += n)));
     } else {
-      const groups = sc.groups!;
-      groups.remapClasses((s) => localToGlobal[s]!);
-      sc.groups = null;
+      // The groups, counted bucket by bucket from the spill (on the lanes): in key order, since
+      // buckets are ranges of keys and each bucket's groups come sorted.
+      const census: GroupTableData[] = new Array(buckets);
+      let counted = 0;
+      const countBucket = async (b: number): Promise<void> => {
+        const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
+        const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
+        census[b] = threads === 0 || !lanes ? censusBucket(task) : await lanes.run(task);
+        o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
+      };
+      let nextBucket = 0;
+      const censusLoop = async (): Promise<void> => {
+        while (nextBucket < buckets) await countBucket(nextBucket++);
+      };
+      await Promise.all(Array.from({ length: Math.max(1, threads) * 2 }, censusLoop));
+      const groups = GroupTable.concat(census);
+      census.length = 0;
       const n = groups.count;
       const { hi, lo, records, first } = groups;
-      // The groups in key order (the radix sort of stage 2; keys of distinct groups never tie),
-      // for the placement's order among equal sizes and for the workers' table.
-      const byKey = Uint32Array.from(sortByKey({ keyHi: hi.subarray(0, n), keyLo: lo.subarray(0, n), identity: (i) => [0, i] }, n, 0));
+      const byKey = new Uint32Array(n);
+      for (let g = 0; g < n; g++) byKey[g] = g;
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
       const cellWeight: number[] = [];
       for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));

@@ -11,6 +11,9 @@
  * Buffers go back to the main thread for reuse. The first `finish` hands over the task's result
  * and lets its buffers go.
  *
+ * Between the stages, in group mode, a task with `census` counts one bucket's groups from its
+ * spill files (censusBucket in src/engine/gather.ts).
+ *
  * Stage 2 (src/engine/gather-lane.ts): a task with a `bucket` is one bucket to deal; the plan
  * (plan.json in the spill folder) is read with the first. A task with a `partFile` reads a
  * written part back for its statistics (--stats, where the lanes do not keep them as they deal).
@@ -19,7 +22,8 @@
 import { join } from 'node:path';
 import { workerData } from 'node:worker_threads';
 import { ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult } from '../engine/scatter.js';
-import type { GatherResult, GatherTask } from '../engine/gather.js';
+import { censusBucket, type CensusTask, type GatherResult, type GatherTask } from '../engine/gather.js';
+import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
 import type { PartStatsTask } from '../engine/part-stats.js';
 import type { SerializedStats } from '../core/stats.js';
@@ -31,11 +35,15 @@ let task: ScatterTask | null = new ScatterTask({ ...data, task: lane });
 let blocks: BlockHost | null = new BlockHost((batch, input) => task!.addBatch(batch, input));
 let gather: GatherLane | null = null;
 
-serveLane<ScatterMessage | GatherTask | PartStatsTask, BlockReply | GatherResult | SerializedStats, ScatterTaskResult | GatherFinal>(
+serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | GatherResult | SerializedStats | GroupTableData, ScatterTaskResult | GatherFinal>(
   (m) => {
     if ('bucket' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
       return gather.handle(m);
+    }
+    if ('census' in m) {
+      const g = censusBucket(m);
+      return { result: g, transfer: [g.hi, g.lo, g.records, g.first, g.extra].map((a) => a.buffer as ArrayBuffer) };
     }
     if ('partFile' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
@@ -57,11 +65,8 @@ serveLane<ScatterMessage | GatherTask | PartStatsTask, BlockReply | GatherResult
       const final = task.finish();
       task = null;
       blocks = null;
-      // The counts and the group table go over without a copy (10 M groups: ~200 MB a task).
-      const g = final.groups;
-      const transfer = final.bucketCounts.map((a) => a.buffer as ArrayBuffer);
-      if (g) transfer.push(...[g.hi, g.lo, g.records, g.first, g.extra].map((a) => a.buffer as ArrayBuffer));
-      return { final, transfer };
+      // The counts go over without a copy (thousands of strata: tens of MB a task).
+      return { final, transfer: final.bucketCounts.map((a) => a.buffer as ArrayBuffer) };
     }
     // A lane that dealt no bucket has no statistics to add.
     return gather ? gather.finish() : { final: null };
