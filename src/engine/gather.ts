@@ -154,28 +154,8 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const bytes = input ?? new Uint8Array(arena, 0, need);
   const buf = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.byteLength);
   readPieces(task.pieces, bytes);
-  // Chunks are whole records; consecutive chunks of one task share its stratum ids.
-  const pieceEnds: number[] = [];
-  const pieceTasks: number[] = [];
-  {
-    let at = 0;
-    for (const p of task.pieces) {
-      at += p.length;
-      pieceEnds.push(at);
-      pieceTasks.push(p.task);
-    }
-  }
   const T = PHASES ? [t0, performance.now()] : null;
-  const ix: BucketIndex = {
-    u32: new Uint32Array(bytes.buffer, bytes.byteOffset, spillBytes >>> 2),
-    at: scratch(0, maxRecords),
-    keyHi: scratch(1, maxRecords),
-    keyLo: scratch(2, maxRecords),
-    lenTerm: scratch(3, maxRecords),
-    stratum: scratch(4, maxRecords),
-    count: 0,
-  };
-  indexBucket(ix, pieceEnds, pieceTasks.map((t) => plan.localToGlobal[t]!));
+  const ix = indexSpill(bytes, spillBytes, task.pieces, plan.localToGlobal);
   const n = ix.count;
   T?.push(performance.now());
   const { u32, at, keyHi, keyLo } = ix;
@@ -267,6 +247,29 @@ interface BucketIndex {
 }
 
 /** One walk over the headers of every scatter task's piece of the bucket. */
+/**
+ * The index of a bucket's spill bytes (its pieces read one after another into `bytes`): each
+ * record's header, key, length and stratum, mapped by its scatter task's `strata`. Chunks are
+ * whole records; consecutive chunks of one task share its stratum ids.
+ */
+function indexSpill(bytes: Uint8Array, spillBytes: number, pieces: SpillPiece[], strata: number[][]): BucketIndex {
+  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
+  const ix: BucketIndex = {
+    u32: new Uint32Array(bytes.buffer, bytes.byteOffset, spillBytes >>> 2),
+    at: scratch(0, maxRecords),
+    keyHi: scratch(1, maxRecords),
+    keyLo: scratch(2, maxRecords),
+    lenTerm: scratch(3, maxRecords),
+    stratum: scratch(4, maxRecords),
+    count: 0,
+  };
+  const pieceEnds: number[] = [];
+  let end = 0;
+  for (const p of pieces) pieceEnds.push((end += p.length));
+  indexBucket(ix, pieceEnds, pieces.map((p) => strata[p.task]!));
+  return ix;
+}
+
 function indexBucket(ix: BucketIndex, pieceEnds: number[], pieceStrata: number[][]): void {
   const { u32, at, keyHi, keyLo, lenTerm, stratum } = ix;
   let n = 0;
@@ -310,20 +313,7 @@ export function censusBucket(task: CensusTask): GroupTableData {
   const spillBytes = task.pieces.reduce((a, p) => a + p.length, 0);
   const bytes = new Uint8Array(spillBytes);
   readPieces(task.pieces, bytes);
-  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
-  const ix: BucketIndex = {
-    u32: new Uint32Array(bytes.buffer, 0, spillBytes >>> 2),
-    at: scratch(0, maxRecords),
-    keyHi: scratch(1, maxRecords),
-    keyLo: scratch(2, maxRecords),
-    lenTerm: scratch(3, maxRecords),
-    stratum: scratch(4, maxRecords),
-    count: 0,
-  };
-  const pieceEnds: number[] = [];
-  let end = 0;
-  for (const p of task.pieces) pieceEnds.push((end += p.length));
-  indexBucket(ix, pieceEnds, task.pieces.map((p) => task.strata[p.task]!));
+  const ix = indexSpill(bytes, spillBytes, task.pieces, task.strata);
   const { u32, at, keyHi, keyLo, stratum } = ix;
   const n = ix.count;
   const order = sortByKey({ keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) }, n, task.bits);
