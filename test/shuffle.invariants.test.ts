@@ -9,7 +9,7 @@ import { gzipSync } from 'node:zlib';
 import { stringify } from 'csv-stringify/sync';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
-import { BUFFER_CAP, chooseBuckets } from '../src/engine/shuffle.js';
+import { BUFFER_CAP, chooseBuckets, spillFactor } from '../src/engine/shuffle.js';
 import { READ_BACK_BYTES, STATS_BYTES_PER_COLUMN, statsInLanes } from '../src/engine/part-stats.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
@@ -434,6 +434,42 @@ describe('the memory plan of stage 1', () => {
     expect(big.bufferBytes / 2).toBe(64 * 1024);
     // Stage 1 of the 100 MB input touches 8 MiB of buffers a task, not 64 MiB.
     expect(2 ** small.bits * (small.bufferBytes / 2)).toBe(8 * MiB);
+  });
+});
+
+describe('the memory plan for short records', () => {
+  it('guesses the spill from the head of the input: 1.3x for 100-byte records, ~14x for 2-byte ones, 1.3 for gzip', () => {
+    // (record + 24-byte header + 3 of padding) / record, at least 1.3.
+    const wide = join(dir, 'hundred.csv');
+    writeFileSync(wide, ('x'.repeat(99) + '\n').repeat(20000));
+    expect(spillFactor([wide])).toBe(1.3);
+    const twenty = join(dir, 'twenty.csv');
+    writeFileSync(twenty, ('y'.repeat(19) + '\n').repeat(20000));
+    expect(spillFactor([twenty])).toBeCloseTo(47 / 20, 2);
+    const tiny = join(dir, 'tiny.csv');
+    writeFileSync(tiny, 'bit\n' + '0\n1\n'.repeat(50000));
+    // 2 bytes a record: (2 + 24-byte header + 3 of padding) / 2.
+    expect(spillFactor([tiny])).toBeCloseTo(14.5, 1);
+    const gz = join(dir, 'tiny.csv.gz');
+    writeFileSync(gz, gzipSync(readFileSync(tiny)));
+    expect(spillFactor([gz])).toBe(1.3);
+    expect(spillFactor(['-'])).toBe(1.3);
+  });
+
+  it('gives the same bytes for short records whatever the threads and budget (more buckets, smaller blocks)', async () => {
+    const tiny = join(dir, 'tiny-classes.csv');
+    const rows: string[] = ['c'];
+    for (let i = 0; i < 60000; i++) rows.push(String((i * 7919) % 5));
+    writeFileSync(tiny, rows.join('\n') + '\n');
+    const runs = [];
+    for (const [threads, memory] of [[0, '1GiB'], [2, '4MiB'], [1, '64MiB']] as const) {
+      const out = join(dir, `tiny-${threads}-${memory}`);
+      const m = await shuffle({ inputs: [tiny], out, seed: 't', partitions: 3, stratify: 'c', threads, memory });
+      runs.push({ files: outputsOf(out), buckets: m.run.buckets });
+    }
+    expect(runs[1]!.buckets).toBeGreaterThan(runs[0]!.buckets);
+    expect(runs[1]!.files).toEqual(runs[0]!.files);
+    expect(runs[2]!.files).toEqual(runs[0]!.files);
   });
 });
 
