@@ -66,7 +66,8 @@ Output and resources:
                           shuffled on the main thread, faster than starting threads); 0 keeps
                           all the work on the main thread. The output is the same either way
   --temp-dir DIR          where spill files go (default: beside DIR); they take about 1.3x
-                          the input and are removed range by range as the parts are written
+                          the input (records plus 24 bytes each: more for short records) and
+                          are removed range by range as the parts are written
   --stats                 add per-column statistics of the input and of every part to the
                           manifest (types, missing, min/max/mean/sd, frequent values); this
                           adds 35-70% to the run time. Within --memory: with many parts the
