@@ -440,7 +440,11 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       const countBucket = async (b: number): Promise<void> => {
         const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
         const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
-        census[b] = threads === 0 || !lanes ? censusBucket(task) : await lanes.run(task);
+        if (threads === 0 || !lanes) {
+          census[b] = censusBucket(task);
+          // On this thread: let signals (Ctrl-C cleans up) and progress in between buckets.
+          await new Promise<void>((resolve) => setImmediate(resolve));
+        } else census[b] = await lanes.run(task);
         o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
       };
       let nextBucket = 0;
