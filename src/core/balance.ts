@@ -25,11 +25,11 @@ export function orderStrata(keys: string[], secret: Secret): number[] {
  * goes to the cell whose class histogram is furthest behind its target for the group's classes,
  * weighing the cell's total size too. Returns the cell of each group, by group index.
  *
- * `groups` holds dealing stratum ids; `cellWeight[c]` is the fraction of all records cell c
- * should receive. A group's classes are added in increasing order of id (GroupTable.strataOf),
- * so the scores do not depend on the order in which records were read.
+ * `groups` holds dealing stratum ids, its groups in key order; `cellWeight[c]` is the fraction
+ * of all records cell c should receive. A group's classes are added in increasing order of id
+ * (GroupTable.strataOf), so the scores do not depend on the order in which records were read.
  */
-export function placeGroups(groups: GroupTable, strataSizes: ArrayLike<number>, cellWeight: number[], keyOrder: Uint32Array): Uint32Array {
+export function placeGroups(groups: GroupTable, strataSizes: ArrayLike<number>, cellWeight: number[]): Uint32Array {
   const C = cellWeight.length;
   const nStrata = strataSizes.length;
   const total = Array.from(strataSizes).reduce((a, b) => a + b, 0);
@@ -37,7 +37,7 @@ export function placeGroups(groups: GroupTable, strataSizes: ArrayLike<number>, 
   const haveTotal = new Float64Array(C);
   const n = groups.count;
   const { lo, records, first } = groups;
-  const order = bySizeThenKey(records, n, keyOrder);
+  const order = bySizeThenKey(records, n);
   const out = new Uint32Array(n);
   for (let k = 0; k < n; k++) {
     const gi = order[k]!;
@@ -73,44 +73,44 @@ export function placeGroups(groups: GroupTable, strataSizes: ArrayLike<number>, 
 }
 
 /**
- * Group indices by size, largest first, and by key among equal sizes: `keyOrder` (the indices in
- * key order) spread over the sizes' places in one stable pass. A comparison sort of 10 M groups
- * took seconds; there are few distinct sizes.
+ * Group indices by size, largest first, and by index (key order) among equal sizes: one stable
+ * counting pass over the sizes' places. A comparison sort of 10 M groups took seconds; there are
+ * few distinct sizes.
  */
-function bySizeThenKey(records: Float64Array, n: number, keyOrder: Uint32Array): Uint32Array {
+function bySizeThenKey(records: Float64Array, n: number): Uint32Array {
+  // Places counted from the largest size down: sizes index an array where they are not far
+  // beyond the group count, a Map of the distinct ones otherwise.
   let largest = 0;
   for (let i = 0; i < n; i++) if (records[i]! > largest) largest = records[i]!;
-  if (largest <= 4 * n + 1024) {
-    // Sizes index an array: places counted from the largest size down.
-    const at = new Float64Array(largest + 2);
-    for (let i = 0; i < n; i++) at[records[i]!]!++;
-    let sum = 0;
+  const dense = largest <= 4 * n + 1024 ? new Float64Array(largest + 1) : null;
+  const sparse = dense ? null : new Map<number, number>();
+  for (let i = 0; i < n; i++) {
+    if (dense) dense[records[i]!]!++;
+    else sparse!.set(records[i]!, (sparse!.get(records[i]!) ?? 0) + 1);
+  }
+  let sum = 0;
+  if (dense) {
     for (let size = largest; size >= 0; size--) {
-      const c = at[size]!;
-      at[size] = sum;
+      const c = dense[size]!;
+      dense[size] = sum;
       sum += c;
     }
-    const order = new Uint32Array(n);
-    for (let k = 0; k < n; k++) {
-      const g = keyOrder[k]!;
-      order[at[records[g]!]!++] = g;
+  } else {
+    for (const size of [...sparse!.keys()].sort((a, b) => b - a)) {
+      const c = sparse!.get(size)!;
+      sparse!.set(size, sum);
+      sum += c;
     }
-    return order;
-  }
-  const countOf = new Map<number, number>();
-  for (let i = 0; i < n; i++) countOf.set(records[i]!, (countOf.get(records[i]!) ?? 0) + 1);
-  const at = new Map<number, number>();
-  let sum = 0;
-  for (const size of [...countOf.keys()].sort((a, b) => b - a)) {
-    at.set(size, sum);
-    sum += countOf.get(size)!;
   }
   const order = new Uint32Array(n);
-  for (let k = 0; k < n; k++) {
-    const g = keyOrder[k]!;
-    const p = at.get(records[g]!)!;
-    order[p] = g;
-    at.set(records[g]!, p + 1);
+  for (let g = 0; g < n; g++) {
+    const size = records[g]!;
+    if (dense) order[dense[size]!++] = g;
+    else {
+      const p = sparse!.get(size)!;
+      sparse!.set(size, p + 1);
+      order[p] = g;
+    }
   }
   return order;
 }

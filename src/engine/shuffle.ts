@@ -16,6 +16,7 @@ import { fileURLToPath } from 'node:url';
 import { existsSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
 import { stringify } from 'csv-stringify/sync';
+import pLimit from 'p-limit';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
@@ -437,31 +438,24 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // buckets are ranges of keys and each bucket's groups come sorted.
       const census: GroupTableData[] = new Array(buckets);
       let counted = 0;
-      const countBucket = async (b: number): Promise<void> => {
+      const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
+      await eachAtOnce(buckets, Math.max(1, threads) * 2, async (b) => {
         const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
-        const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
         if (threads === 0 || !lanes) {
           census[b] = censusBucket(task);
           // On this thread: let signals (Ctrl-C cleans up) and progress in between buckets.
           await new Promise<void>((resolve) => setImmediate(resolve));
         } else census[b] = await lanes.run(task);
         o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
-      };
-      let nextBucket = 0;
-      const censusLoop = async (): Promise<void> => {
-        while (nextBucket < buckets) await countBucket(nextBucket++);
-      };
-      await Promise.all(Array.from({ length: Math.max(1, threads) * 2 }, censusLoop));
+      });
       const groups = GroupTable.concat(census);
       census.length = 0;
       const n = groups.count;
       const { hi, lo, records, first } = groups;
-      const byKey = new Uint32Array(n);
-      for (let g = 0; g < n; g++) byKey[g] = g;
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
       const cellWeight: number[] = [];
       for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));
-      const placed = placeGroups(groups, strataSizes, cellWeight, byKey);
+      const placed = placeGroups(groups, strataSizes, cellWeight);
       cellCounts = new Float64Array(cells * nStrata);
       for (let g = 0; g < n; g++) {
         if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
@@ -469,12 +463,9 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
       // Sorted (hi, lo) -> cell table for the workers.
       const bin = new Uint32Array(n * 3);
-      for (let k = 0; k < n; k++) {
-        const gi = byKey[k]!;
-        bin[k] = hi[gi]!;
-        bin[n + k] = lo[gi]!;
-        bin[2 * n + k] = placed[gi]!;
-      }
+      bin.set(hi, 0);
+      bin.set(lo, n);
+      bin.set(placed, 2 * n);
       groupsFile = 'groups.bin';
       writeFileSync(join(spillDir, groupsFile), bin);
       // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
@@ -626,17 +617,12 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       const tasks = layout.map((part): PartStatsTask => ({ partFile: join(stage, part.path), headerBytes: headerLength }));
       const statsLanes = pool as unknown as Lanes<PartStatsTask, SerializedStats, GatherFinal>;
       let done = 0;
-      const onePart = async (p: number): Promise<void> => {
+      o.onProgress?.({ stage: 'stats', done: 0, total: parts, records, elapsedMs: Date.now() - t0 });
+      await eachAtOnce(parts, Math.max(1, threads), async (p) => {
         const t = threads === 0 ? await statsOfPartFile(plan, tasks[p]!) : await statsLanes.run(tasks[p]!);
         partDone(p, TableStats.fromJSON(t));
         o.onProgress?.({ stage: 'stats', done: ++done, total: parts, records, elapsedMs: Date.now() - t0 });
-      };
-      o.onProgress?.({ stage: 'stats', done: 0, total: parts, records, elapsedMs: Date.now() - t0 });
-      let nextPart = 0;
-      const laneLoop = async (): Promise<void> => {
-        while (nextPart < parts) await onePart(nextPart++);
-      };
-      await Promise.all(Array.from({ length: Math.max(1, threads) }, laneLoop));
+      });
       timings.statsMs = Date.now() - tStats;
     }
     // Where the lanes kept them, every worker hands over the statistics of all the buckets it
@@ -734,6 +720,12 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     await cleanup.runConcurrently().catch(() => cleanup.run());
     unhook();
   }
+}
+
+/** Runs `task(i)` for i = 0 .. count - 1, at most `width` at once, started in order of i. */
+async function eachAtOnce(count: number, width: number, task: (i: number) => Promise<void>): Promise<void> {
+  const limit = pLimit(width);
+  await Promise.all(Array.from({ length: count }, (_, i) => limit(() => task(i))));
 }
 
 function transpose(a: Float64Array, rows: number, cols: number): Float64Array {
