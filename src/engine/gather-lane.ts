@@ -8,7 +8,7 @@ import { closeSync, openSync, readFileSync, readSync } from 'node:fs';
 import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
-import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type GroupTable, type PreparedPlan } from './gather.js';
+import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type PreparedPlan } from './gather.js';
 import { statsOfPartFile, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
 
@@ -26,7 +26,7 @@ export function loadGatherPlan(planPath: string): PreparedPlan {
  * (`starts[b]` up to `starts[b + 1]`). A lane reads 12 bytes a group of its bucket, not the
  * whole table (10 M groups: 120 MB a lane).
  */
-function readBucketGroups(file: string, starts: number[], bucket: number): GroupTable {
+function readBucketGroups(file: string, starts: number[], bucket: number): BucketGroups {
   const from = starts[bucket]!;
   const n = starts[bucket + 1]! - from;
   const total = starts[starts.length - 1]!;

@@ -62,7 +62,8 @@ export function addCounts(total: Float64Array, counts: Float64Array | SparseCoun
   }
 }
 
-export interface GroupTable {
+/** One bucket's groups for the dealing: keys in order and each group's cell (groups.bin's run). */
+export interface BucketGroups {
   keyHi: Uint32Array;
   keyLo: Uint32Array;
   cell: Uint32Array;
@@ -75,11 +76,11 @@ export interface GroupTable {
 export interface PreparedPlan {
   plan: GatherPlan;
   table: DealTable;
-  groupsOf: ((bucket: number) => GroupTable) | null;
+  groupsOf: ((bucket: number) => BucketGroups) | null;
   cellSecret: Uint32Array;
 }
 
-export function preparePlan(plan: GatherPlan, groupsOf: ((bucket: number) => GroupTable) | null): PreparedPlan {
+export function preparePlan(plan: GatherPlan, groupsOf: ((bucket: number) => BucketGroups) | null): PreparedPlan {
   const table = buildDealTableFromPlan(plan);
   return { plan, table, groupsOf, cellSecret: Uint32Array.from(plan.cellSecret) };
 }
@@ -97,7 +98,7 @@ function buildDealTableFromPlan(plan: GatherPlan): DealTable {
 }
 
 
-function findGroupCell(groups: GroupTable, hi: number, lo: number): number {
+function findGroupCell(groups: BucketGroups, hi: number, lo: number): number {
   let a = 0;
   let b = groups.keyHi.length - 1;
   while (a <= b) {
