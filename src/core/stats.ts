@@ -87,10 +87,29 @@ export interface SummaryOptions {
   excludeValues?: boolean;
 }
 
-/** Serialised column state: plain JSON data. */
-export interface SerializedColumn {
+/**
+ * Serialised column state: plain JSON data. Below the distinct cap the value table is the whole
+ * state (every figure derives from it), so only it is kept, packed: all keys' bytes in one latin1
+ * string, with their lengths and counts, sorted by key. (A pair of a string and a count for each
+ * value took ~100 bytes of heap: 2,000 columns of a few hundred values came to ~80 MB.)
+ */
+export type SerializedColumn = SerializedExactColumn | SerializedEstimatedColumn;
+
+export interface SerializedExactColumn {
   count: number;
   missing: number;
+  values: {
+    /** Every key's bytes, one after the other, as latin1 text. */
+    keys: string;
+    lengths: number[];
+    counts: number[];
+  };
+}
+
+export interface SerializedEstimatedColumn {
+  count: number;
+  missing: number;
+  values: null;
   /** Non-missing values by kind: [integer, number, boolean, datetime, text]. */
   kinds: [number, number, number, number, number];
   numMin: number | null;
@@ -104,10 +123,8 @@ export interface SerializedColumn {
   /** Smallest and largest value bytes (as latin1 text), byte order. */
   lo: string | null;
   hi: string | null;
-  /** Exact value counts, sorted by key (latin1 text of the value bytes), or null once estimated. */
-  values: [string, number][] | null;
-  /** Distinct-count estimator registers (base64), or null while exact. */
-  sketch: string | null;
+  /** Distinct-count estimator registers (base64). */
+  sketch: string;
 }
 
 export interface SerializedStats {
@@ -329,9 +346,8 @@ const SKETCH_SIZE = 1 << SKETCH_BITS;
  * seeded with the length, then murmur3's finaliser. Its top 12 bits pick the sketch register; a
  * second finalisation of it gives the rank bits (see updateSketch).
  *
- * The first three words double as the value table's key for values of up to 12 bytes (most
- * values): equal words and length mean equal bytes, so a lookup compares three integers instead
- * of the bytes.
+ * The first three words are also the statistics module's key for values of up to 12 bytes (most
+ * values): equal words and length mean equal bytes (see ValueCounter.keyWords).
  */
 function mix32(h: number): number {
   h ^= h >>> 16;
@@ -438,44 +454,38 @@ function getView(b: Uint8Array): DataView<ArrayBufferLike> {
 
 /**
  * Exact counts of distinct values, keyed by their bytes: an open-addressing table over a byte
- * arena, so counting a value that was seen before allocates nothing. Each key also keeps its hash,
- * its first three words (see hashKey) and what classifying it found (kind, double, decimal
- * mantissa and scale), so a column's figures can be derived from the table without reading a
- * value twice.
+ * arena, so counting a value that was seen before allocates nothing. A key costs 20 bytes besides
+ * its bytes and its table slots: where its bytes start, their length and hash (one Int32Array,
+ * three to a key) and its count (a Float64Array). What classifying a value finds (kind, double,
+ * decimal mantissa and scale) is found again from its bytes when the table is folded into a
+ * column's figures, once per key: a wide table holds a thousand keys in each of thousands of
+ * columns, and two arrays to grow instead of eleven keep that memory and its allocations small.
  */
 class ValueCounter {
-  private arena = Buffer.alloc(1024);
+  private arena = Buffer.alloc(256);
   private used = 0;
-  private keyStart = new Int32Array(64);
-  private keyLen = new Int32Array(64);
-  private keyHash = new Int32Array(64);
-  private kw0 = new Int32Array(64);
-  private kw1 = new Int32Array(64);
-  private kw2 = new Int32Array(64);
-  private counts = new Float64Array(64);
-  private keyKind = new Int32Array(64);
-  private keyNumber = new Float64Array(64);
-  private keyMant = new Float64Array(64);
-  private keyScale = new Int32Array(64);
-  private table = new Int32Array(128); // index + 1 of a key; 0 = empty
+  /** [start, length, hash] of key i at 3i. */
+  private meta = new Int32Array(3 * 32);
+  private counts = new Float64Array(32);
+  private table = new Int32Array(64); // index + 1 of a key; 0 = empty
   /** Table slot where the last missed find() would insert. */
   private freeSlot = 0;
   size = 0;
 
   /**
-   * Index of the value b[s, s + len) with the given hash and first words, with one more count for
-   * it; or -1 when it is new (then insert() may follow).
+   * Index of the value b[s, s + len) with the given hash, with one more count for it; or -1 when
+   * it is new (then insert() may follow).
    */
-  find(hash: number, w0: number, w1: number, w2: number, b: Uint8Array, s: number, len: number): number {
+  find(hash: number, b: Uint8Array, s: number, len: number): number {
     const table = this.table;
     const mask = table.length - 1;
-    const kh = this.keyHash;
+    const meta = this.meta;
     let slot = hash & mask;
     for (;;) {
       const k = table[slot]!;
       if (k === 0) break;
       const i = k - 1;
-      if (kh[i] === hash && this.kw0[i] === w0 && this.kw1[i] === w1 && this.kw2[i] === w2 && this.keyLen[i] === len && (len <= 12 || this.isTailEqual(i, b, s, len))) {
+      if (meta[3 * i + 2] === hash && meta[3 * i + 1] === len && this.isEqual(meta[3 * i]!, b, s, len)) {
         this.counts[i] = this.counts[i]! + 1;
         return i;
       }
@@ -485,8 +495,8 @@ class ValueCounter {
     return -1;
   }
 
-  /** Inserts a new key (after a missed find()) with its count and the last classification. */
-  insert(hash: number, w0: number, w1: number, w2: number, b: Uint8Array, s: number, e: number, n: number, kind: number): void {
+  /** Inserts a new key (after a missed find()) with its count. */
+  insert(hash: number, b: Uint8Array, s: number, e: number, n: number): void {
     const len = e - s;
     const i = this.size++;
     if (i === this.counts.length) this.growEntries();
@@ -495,31 +505,27 @@ class ValueCounter {
       this.arena.copy(na, 0, 0, this.used);
       this.arena = na;
     }
-    for (let q = 0; q < len; q++) this.arena[this.used + q] = b[s + q]!;
-    this.keyStart[i] = this.used;
-    this.keyLen[i] = len;
-    this.keyHash[i] = hash;
-    this.kw0[i] = w0;
-    this.kw1[i] = w1;
-    this.kw2[i] = w2;
+    const arena = this.arena;
+    const at = this.used;
+    for (let q = 0; q < len; q++) arena[at + q] = b[s + q]!;
+    this.meta[3 * i] = at;
+    this.meta[3 * i + 1] = len;
+    this.meta[3 * i + 2] = hash;
     this.counts[i] = n;
-    this.keyKind[i] = kind;
-    const numeric = kind <= K_NUM;
-    this.keyNumber[i] = numeric ? parsed[0]! : 0;
-    this.keyMant[i] = numeric ? parsed[1]! : 0;
-    this.keyScale[i] = numeric ? parsedScale[0]! : -1;
     this.used += len;
     this.table[this.freeSlot] = i + 1;
     if (this.size * 2 > this.table.length) this.growTable();
   }
 
-  /** Key i's hash, first three words and length, into out[0..5) (for the statistics module's table). */
+  /** Key i's hash, first three words (hashKey's) and length, into out[0..5) (for the statistics module's table). */
   keyWords(i: number, out: Int32Array): void {
-    out[0] = this.keyHash[i]!;
-    out[1] = this.kw0[i]!;
-    out[2] = this.kw1[i]!;
-    out[3] = this.kw2[i]!;
-    out[4] = this.keyLen[i]!;
+    const s = this.meta[3 * i]!;
+    const e = s + this.meta[3 * i + 1]!;
+    out[0] = this.meta[3 * i + 2]!;
+    out[1] = s < e ? loadWord(this.arena, s, e) : 0;
+    out[2] = s + 4 < e ? loadWord(this.arena, s + 4, e) : 0;
+    out[3] = s + 8 < e ? loadWord(this.arena, s + 8, e) : 0;
+    out[4] = e - s;
   }
 
   /** Adds n to key i's count (counted elsewhere: the statistics module). */
@@ -531,67 +537,86 @@ class ValueCounter {
   add(b: Buffer, s: number, e: number, n: number): void {
     hashKey(b, s, e);
     const h = keyOut[0]!;
-    const w0 = keyOut[1]!;
-    const w1 = keyOut[2]!;
-    const w2 = keyOut[3]!;
-    const i = this.find(h, w0, w1, w2, b, s, e - s);
+    const i = this.find(h, b, s, e - s);
     if (i >= 0) {
       this.counts[i] = this.counts[i]! + n - 1;
       return;
     }
-    this.insert(h, w0, w1, w2, b, s, e, n, classifyValue(b, s, e));
+    this.insert(h, b, s, e, n);
   }
 
   /** Calls fn with each key's bytes (arena, start, end) and count, in insertion order. */
   forEach(fn: (arena: Buffer, start: number, end: number, count: number) => void): void {
-    for (let i = 0; i < this.size; i++) fn(this.arena, this.keyStart[i]!, this.keyStart[i]! + this.keyLen[i]!, this.counts[i]!);
+    const meta = this.meta;
+    for (let i = 0; i < this.size; i++) fn(this.arena, meta[3 * i]!, meta[3 * i]! + meta[3 * i + 1]!, this.counts[i]!);
+  }
+
+  /** The keys, sorted by their bytes, packed with their lengths and counts (see SerializedExactColumn). */
+  toJSON(): SerializedExactColumn['values'] {
+    const meta = this.meta;
+    const arena = this.arena;
+    const order = Array.from({ length: this.size }, (_, i) => i);
+    order.sort((x, y) => {
+      const xs = meta[3 * x]!;
+      const ys = meta[3 * y]!;
+      return arena.compare(arena, ys, ys + meta[3 * y + 1]!, xs, xs + meta[3 * x + 1]!);
+    });
+    const packed = Buffer.allocUnsafe(this.used);
+    const lengths = new Array<number>(this.size);
+    const counts = new Array<number>(this.size);
+    let at = 0;
+    order.forEach((i, j) => {
+      const s = meta[3 * i]!;
+      const len = meta[3 * i + 1]!;
+      arena.copy(packed, at, s, s + len);
+      at += len;
+      lengths[j] = len;
+      counts[j] = this.counts[i]!;
+    });
+    return { keys: packed.toString('latin1', 0, at), lengths, counts };
   }
 
   /** Adds every key's hash to a distinct-count sketch. */
   addToSketch(reg: Uint8Array): void {
-    for (let i = 0; i < this.size; i++) updateSketch(reg, this.keyHash[i]!);
+    for (let i = 0; i < this.size; i++) updateSketch(reg, this.meta[3 * i + 2]!);
   }
 
-  /** Folds every key, with its count, into a column's accumulated figures. */
+  /** Folds every key, with its count, into a column's accumulated figures (classifying each key again). */
   foldInto(c: ColumnState): void {
+    const meta = this.meta;
+    const arena = this.arena;
     for (let i = 0; i < this.size; i++) {
-      const s = this.keyStart[i]!;
-      c.addCounted(this.arena, s, s + this.keyLen[i]!, this.counts[i]!, this.keyKind[i]!, this.keyNumber[i]!, this.keyMant[i]!, this.keyScale[i]!);
+      const s = meta[3 * i]!;
+      const e = s + meta[3 * i + 1]!;
+      const kind = classifyValue(arena, s, e);
+      const numeric = kind <= K_NUM;
+      c.addCounted(arena, s, e, this.counts[i]!, kind, numeric ? parsed[0]! : 0, numeric ? parsed[1]! : 0, numeric ? parsedScale[0]! : -1);
     }
   }
 
-  /** Bytes from 12 on (the first 12 are equal when the words are). */
-  private isTailEqual(i: number, b: Uint8Array, s: number, len: number): boolean {
+  /** b[s, s + len) equals the len bytes at arena[at]. */
+  private isEqual(at: number, b: Uint8Array, s: number, len: number): boolean {
     const a = this.arena;
-    const o = this.keyStart[i]!;
-    for (let q = 12; q < len; q++) if (a[o + q] !== b[s + q]) return false;
+    for (let q = 0; q < len; q++) if (a[at + q] !== b[s + q]) return false;
     return true;
   }
 
   private growEntries(): void {
     const n = this.counts.length * 2;
-    const grow = <T extends Int32Array | Float64Array>(old: T, fresh: T): T => {
-      fresh.set(old);
-      return fresh;
-    };
-    this.keyStart = grow(this.keyStart, new Int32Array(n));
-    this.keyLen = grow(this.keyLen, new Int32Array(n));
-    this.keyHash = grow(this.keyHash, new Int32Array(n));
-    this.kw0 = grow(this.kw0, new Int32Array(n));
-    this.kw1 = grow(this.kw1, new Int32Array(n));
-    this.kw2 = grow(this.kw2, new Int32Array(n));
-    this.counts = grow(this.counts, new Float64Array(n));
-    this.keyKind = grow(this.keyKind, new Int32Array(n));
-    this.keyNumber = grow(this.keyNumber, new Float64Array(n));
-    this.keyMant = grow(this.keyMant, new Float64Array(n));
-    this.keyScale = grow(this.keyScale, new Int32Array(n));
+    const meta = new Int32Array(3 * n);
+    meta.set(this.meta);
+    this.meta = meta;
+    const counts = new Float64Array(n);
+    counts.set(this.counts);
+    this.counts = counts;
   }
 
   private growTable(): void {
     const t = new Int32Array(this.table.length * 2);
     const mask = t.length - 1;
+    const meta = this.meta;
     for (let i = 0; i < this.size; i++) {
-      let slot = this.keyHash[i]! & mask;
+      let slot = meta[3 * i + 2]! & mask;
       while (t[slot] !== 0) slot = (slot + 1) & mask;
       t[slot] = i + 1;
     }
@@ -715,15 +740,15 @@ class ColumnState {
     }
     const values = this.values;
     if (values !== null) {
-      if (values.find(hash, w0, w1, w2, b, s, len) < 0) this.insertValue(values, hash, w0, w1, w2, b, s, e, cap);
+      if (values.find(hash, b, s, len) < 0) this.insertValue(values, hash, b, s, e, cap);
       return;
     }
     this.addEstimated(hash, w0, w1, b, s, e);
   }
 
   /** A value not in the table yet (exact mode). */
-  private insertValue(values: ValueCounter, hash: number, w0: number, w1: number, w2: number, b: Buffer, s: number, e: number, cap: number): void {
-    values.insert(hash, w0, w1, w2, b, s, e, 1, classifyValue(b, s, e));
+  private insertValue(values: ValueCounter, hash: number, b: Buffer, s: number, e: number, cap: number): void {
+    values.insert(hash, b, s, e, 1);
     if (values.size > cap) this.switchToSketch();
   }
 
@@ -944,16 +969,12 @@ class ColumnState {
   }
 
   toJSON(): SerializedColumn {
+    if (this.values !== null) return { count: this.count, missing: this.missing, values: this.values.toJSON() };
     const f = this.figures();
-    let values: [string, number][] | null = null;
-    if (this.values !== null) {
-      const list: [string, number][] = [];
-      this.values.forEach((a, s, e, n) => list.push([Buffer.from(a.buffer, a.byteOffset + s, e - s).toString('latin1'), n]));
-      values = list.sort((a, b) => (a[0] < b[0] ? -1 : a[0] > b[0] ? 1 : 0));
-    }
     return {
       count: this.count,
       missing: this.missing,
+      values: null,
       kinds: [f.kinds[0]!, f.kinds[1]!, f.kinds[2]!, f.kinds[3]!, f.kinds[4]!],
       numMin: Number.isFinite(f.numMin) ? f.numMin : null,
       numMax: Number.isFinite(f.numMax) ? f.numMax : null,
@@ -962,8 +983,7 @@ class ColumnState {
       decimals: f.dec.toJSON(),
       lo: f.loLen < 0 ? null : Buffer.from(f.lo.subarray(0, f.loLen)).toString('latin1'),
       hi: f.hiLen < 0 ? null : Buffer.from(f.hi.subarray(0, f.hiLen)).toString('latin1'),
-      values,
-      sketch: this.sketch === null ? null : Buffer.from(this.sketch).toString('base64'),
+      sketch: Buffer.from(this.sketch!).toString('base64'),
     };
   }
 
@@ -973,11 +993,10 @@ class ColumnState {
     c.missing = s.missing;
     if (s.values !== null) {
       // Exact mode: the table is the state; every other figure derives from it.
+      const { keys, lengths, counts } = s.values;
+      const bytes = Buffer.from(keys, 'latin1');
       const values = c.values!;
-      for (const [key, n] of s.values) {
-        const bytes = Buffer.from(key, 'latin1');
-        values.add(bytes, 0, bytes.length, n);
-      }
+      for (let i = 0, at = 0; i < lengths.length; at += lengths[i]!, i++) values.add(bytes, at, at + lengths[i]!, counts[i]!);
       return c;
     }
     for (let k = 0; k < 5; k++) {
@@ -998,7 +1017,7 @@ class ColumnState {
       const hi = Buffer.from(s.hi, 'latin1');
       c.setHi(hi, 0, hi.length);
     }
-    c.sketch = s.sketch === null ? null : new Uint8Array(Buffer.from(s.sketch, 'base64'));
+    c.sketch = new Uint8Array(Buffer.from(s.sketch, 'base64'));
     return c;
   }
 }
@@ -1338,6 +1357,16 @@ export class TableStats {
     t.records = s.records;
     for (let i = 0; i < s.stats.length; i++) t.cols[i] = ColumnState.fromJSON(s.stats[i]!);
     return t;
+  }
+
+  /** The smallest and largest value bytes of column f, in byte order (null while it has none). */
+  bounds(f: number): { lo: Buffer | null; hi: Buffer | null } {
+    this.#drainAll();
+    const c = this.cols[f]!.figures();
+    return {
+      lo: c.loLen < 0 ? null : Buffer.from(c.lo.subarray(0, c.loLen)),
+      hi: c.hiLen < 0 ? null : Buffer.from(c.hi.subarray(0, c.hiLen)),
+    };
   }
 
   /** The profile/manifest form, one entry per column, keys in a fixed order. */

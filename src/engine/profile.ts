@@ -570,11 +570,16 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       }
     }
     const cols: string[] = first?.columns ?? [];
+    // The tasks' tables are let go once serialised (threads ended, the inline task dropped), so a
+    // wide input's tables are not held twice while the profile is built from their copies.
     let results: ProfileTaskResult[];
-    if (run.inline) results = [run.inline.finish()];
-    else if (run.lanes) {
+    if (run.inline) {
+      results = [run.inline.finish()];
+      run.inline = null;
+    } else if (run.lanes) {
       await run.sender?.drain();
       results = await run.lanes.finish();
+      await run.lanes.destroy();
     } else results = [];
     const readMs = Date.now() - tRead;
     return buildProfile(o, { columns: cols, results, inputs, rejects, binEdges, secret, binsMs, readMs, t0 });
@@ -602,8 +607,15 @@ function compareKeys(a: string, b: string): number {
 }
 
 function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
-  const stats = new TableStats(g.columns);
-  for (const r of g.results) stats.merge(TableStats.fromJSON(r.stats));
+  // Each thread's tables are turned back into a table and merged one at a time, the first kept as
+  // the sum: a wide input's tables are large, and no more than two are held at once.
+  let stats: TableStats | null = null;
+  for (const r of g.results) {
+    const t = TableStats.fromJSON(r.stats);
+    if (stats === null) stats = t;
+    else stats.merge(t);
+  }
+  stats ??= new TableStats(g.columns);
   const records = g.inputs.reduce((a, x) => a + x.records, 0);
   const rejected = g.inputs.reduce((a, x) => a + x.rejected, 0);
   const columns = stats.summary({ excludeValues: o.excludeValues });
