@@ -37,12 +37,16 @@ function computeMergedStats(t: BuiltTable, rng: () => number, k: number, opts?: 
   for (const id of ids) groups[Math.floor(rng() ** 1.5 * k)]!.push(id); // uneven sizes, some empty
   const pieces = groups.map((g) => computeTableStats(t, opts, g.sort((a, b) => a - b)));
   shuffleInPlace(pieces, rng);
-  // Random binary merge tree, each result sent through JSON as between threads.
-  while (pieces.length > 1) {
+  // Random binary merge tree, each result sent through JSON as between threads: every other merge
+  // takes the other table in its serialised form (mergeSerialized, as the read-back of --stats
+  // does), and every other result goes over in table order (toTransfer) instead of sorted.
+  for (let round = 0; pieces.length > 1; round++) {
     const a = pieces.splice(Math.floor(rng() * pieces.length), 1)[0]!;
     const b = pieces.splice(Math.floor(rng() * pieces.length), 1)[0]!;
-    a.merge(b);
-    pieces.push(TableStats.fromJSON(JSON.parse(JSON.stringify(a.toJSON())) as SerializedStats));
+    if (round % 2 === 0) a.merge(b);
+    else a.mergeSerialized(JSON.parse(JSON.stringify(b.toTransfer())) as SerializedStats);
+    const sent = round % 4 < 2 ? a.toJSON() : a.toTransfer();
+    pieces.push(TableStats.fromJSON(JSON.parse(JSON.stringify(sent)) as SerializedStats));
   }
   return pieces[0]!;
 }
@@ -241,6 +245,30 @@ describe('distinct values', () => {
     expect(twice.distinct).toBe(once.distinct);
   });
 
+  it('top values equal a full sort of every value (many ties at the cut, non-ASCII values)', () => {
+    // Reference: count with a Map, sort all entries by count descending, then by String order
+    // (UTF-16 code units, ECMA-262 IsLessThan), take the first k.
+    const rng = seedrandom('top-ties');
+    const alphabet = ['a', 'b', 'Z', 'é', '€', '\u{1D11E}', '\uFF21', '0'];
+    for (let trial = 0; trial < 30; trial++) {
+      const n = 1 + Math.floor(rng() * 400);
+      const values = Array.from({ length: n }, () => {
+        const len = 1 + Math.floor(rng() * 3);
+        let v = '';
+        for (let q = 0; q < len; q++) v += alphabet[Math.floor(rng() * alphabet.length)]!;
+        return v;
+      });
+      const k = 1 + Math.floor(rng() * 12);
+      const counts = new Map<string, number>();
+      for (const v of values) counts.set(v, (counts.get(v) ?? 0) + 1);
+      const expected = [...counts]
+        .sort((x, y) => y[1] - x[1] || (x[0] < y[0] ? -1 : x[0] > y[0] ? 1 : 0))
+        .slice(0, k)
+        .map(([value, count]) => ({ value, count }));
+      expect(summarizeValues(values, { topValues: k }).top).toEqual(expected);
+    }
+  });
+
   it('top values: count descending, ties by value in code-unit order, at most topValues', () => {
     const c = summarizeValues(['b', 'a', 'c', 'b', 'a', 'd', 'Z', 'e'], { topValues: 3 });
     expect(c.top).toEqual([
@@ -294,6 +322,9 @@ describe('serialised form', () => {
     expect(JSON.stringify(a.toJSON())).toBe(JSON.stringify(b.toJSON()));
     const back = TableStats.fromJSON(JSON.parse(JSON.stringify(a)) as SerializedStats);
     expect(back.summary()).toEqual(a.summary());
+    // The form for other threads keeps the table's order, so it differs; what it holds does not.
+    expect(JSON.stringify(a.toTransfer())).not.toBe(JSON.stringify(b.toTransfer()));
+    expect(TableStats.fromJSON(JSON.parse(JSON.stringify(b.toTransfer())) as SerializedStats).toJSON()).toEqual(a.toJSON());
   });
 
   it('summary keys come in one fixed order, for every column type', () => {

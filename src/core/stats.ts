@@ -462,15 +462,24 @@ function getView(b: Uint8Array): DataView<ArrayBufferLike> {
  * columns, and two arrays to grow instead of eleven keep that memory and its allocations small.
  */
 class ValueCounter {
-  private arena = Buffer.alloc(256);
+  private arena: Buffer;
   private used = 0;
   /** [start, length, hash] of key i at 3i. */
-  private meta = new Int32Array(3 * 32);
-  private counts = new Float64Array(32);
-  private table = new Int32Array(64); // index + 1 of a key; 0 = empty
+  private meta: Int32Array;
+  private counts: Float64Array;
+  private table: Int32Array; // index + 1 of a key; 0 = empty
   /** Table slot where the last missed find() would insert. */
   private freeSlot = 0;
   size = 0;
+
+  /** Room for `keys` keys and `bytes` of their bytes before anything grows (a table read back knows both). */
+  constructor(keys = 32, bytes = 256) {
+    const n = Math.max(32, 2 ** Math.ceil(Math.log2(keys)));
+    this.arena = Buffer.alloc(Math.max(256, bytes));
+    this.meta = new Int32Array(3 * n);
+    this.counts = new Float64Array(n);
+    this.table = new Int32Array(2 * n);
+  }
 
   /**
    * Index of the value b[s, s + len) with the given hash, with one more count for it; or -1 when
@@ -545,21 +554,50 @@ class ValueCounter {
     this.insert(h, b, s, e, n);
   }
 
+  /** Adds the counts of a serialised table (its keys' bytes in `bytes`). */
+  addPacked(bytes: Buffer, packed: SerializedExactColumn['values']): void {
+    const { lengths, counts } = packed;
+    for (let i = 0, at = 0; i < lengths.length; at += lengths[i]!, i++) this.add(bytes, at, at + lengths[i]!, counts[i]!);
+  }
+
   /** Calls fn with each key's bytes (arena, start, end) and count, in insertion order. */
   forEach(fn: (arena: Buffer, start: number, end: number, count: number) => void): void {
     const meta = this.meta;
     for (let i = 0; i < this.size; i++) fn(this.arena, meta[3 * i]!, meta[3 * i]! + meta[3 * i + 1]!, this.counts[i]!);
   }
 
-  /** The keys, sorted by their bytes, packed with their lengths and counts (see SerializedExactColumn). */
-  toJSON(): SerializedExactColumn['values'] {
+  /**
+   * The keys packed with their lengths and counts (see SerializedExactColumn): sorted by their
+   * bytes when `canonical`, else in the table's order (what goes between threads, where sorting
+   * thousands of columns' keys cost more than the rest of the hand-over).
+   */
+  serialize(canonical: boolean): SerializedExactColumn['values'] {
     const meta = this.meta;
     const arena = this.arena;
-    const order = Array.from({ length: this.size }, (_, i) => i);
+    if (!canonical) {
+      const lengths = new Array<number>(this.size);
+      for (let i = 0; i < this.size; i++) lengths[i] = meta[3 * i + 1]!;
+      // Keys lie in the arena in insertion order, one after the other.
+      return { keys: arena.toString('latin1', 0, this.used), lengths, counts: Array.from(this.counts.subarray(0, this.size)) };
+    }
+    // Sorted by the first 8 bytes as two order keys (see orderKey), the rest compared only where
+    // those are equal: a comparison is two integer compares, not a call into Buffer.compare.
+    const n = this.size;
+    const k0 = new Int32Array(n);
+    const k1 = new Int32Array(n);
+    for (let i = 0; i < n; i++) {
+      const s = meta[3 * i]!;
+      const e = s + meta[3 * i + 1]!;
+      k0[i] = s < e ? orderKey(loadWord(arena, s, e)) : ORDER_KEY_ZERO;
+      k1[i] = s + 4 < e ? orderKey(loadWord(arena, s + 4, e)) : ORDER_KEY_ZERO;
+    }
+    const order = Array.from({ length: n }, (_, i) => i);
     order.sort((x, y) => {
+      if (k0[x] !== k0[y]) return k0[x]! - k0[y]!;
+      if (k1[x] !== k1[y]) return k1[x]! - k1[y]!;
       const xs = meta[3 * x]!;
       const ys = meta[3 * y]!;
-      return arena.compare(arena, ys, ys + meta[3 * y + 1]!, xs, xs + meta[3 * x + 1]!);
+      return compareBytes(arena, xs, xs + meta[3 * x + 1]!, arena.subarray(ys), meta[3 * y + 1]!);
     });
     const packed = Buffer.allocUnsafe(this.used);
     const lengths = new Array<number>(this.size);
@@ -574,6 +612,30 @@ class ValueCounter {
       counts[j] = this.counts[i]!;
     });
     return { keys: packed.toString('latin1', 0, at), lengths, counts };
+  }
+
+  /**
+   * The `k` most frequent values, by count descending, ties by value in code-unit order. Only the
+   * keys counted at least as often as the k-th most frequent are decoded and sorted.
+   */
+  top(k: number): ValueCount[] {
+    const n = this.size;
+    if (k <= 0 || n === 0) return [];
+    let least = 0;
+    if (n > k) {
+      const c = this.counts.slice(0, n).sort();
+      least = c[n - k]!;
+    }
+    const meta = this.meta;
+    const entries: ValueCount[] = [];
+    for (let i = 0; i < n; i++) {
+      const count = this.counts[i]!;
+      if (count < least) continue;
+      const s = meta[3 * i]!;
+      entries.push({ value: decodeUtf8(this.arena.subarray(s), meta[3 * i + 1]!)!, count });
+    }
+    entries.sort((a, b) => b.count - a.count || (a.value < b.value ? -1 : a.value > b.value ? 1 : 0));
+    return entries.slice(0, k);
   }
 
   /** Adds every key's hash to a distinct-count sketch. */
@@ -687,8 +749,9 @@ class ColumnState {
   numMax = -Infinity;
   /** Numeric values too large in magnitude for exact squares; moments are void when > 0. */
   huge = 0;
-  dec = new DecimalSums();
-  bin = new ExactMoments();
+  /** Made when a number is first added (an exact-mode column derives its figures from its table). */
+  #dec: DecimalSums | null = null;
+  #bin: ExactMoments | null = null;
   lo = new Uint8Array(16);
   loLen = -1; // -1: no value yet
   hi = new Uint8Array(16);
@@ -701,6 +764,22 @@ class ColumnState {
 
   constructor(exact = true) {
     this.values = exact ? new ValueCounter() : null;
+  }
+
+  get dec(): DecimalSums {
+    return (this.#dec ??= new DecimalSums());
+  }
+
+  set dec(d: DecimalSums | null) {
+    this.#dec = d;
+  }
+
+  get bin(): ExactMoments {
+    return (this.#bin ??= new ExactMoments());
+  }
+
+  set bin(b: ExactMoments | null) {
+    this.#bin = b;
   }
 
   addValue(b: Buffer, s: number, e: number, cap: number): void {
@@ -804,8 +883,8 @@ class ColumnState {
     this.numMin = Infinity;
     this.numMax = -Infinity;
     this.huge = 0;
-    this.dec = new DecimalSums();
-    this.bin = new ExactMoments();
+    this.dec = null;
+    this.bin = null;
   }
 
   /**
@@ -900,14 +979,26 @@ class ColumnState {
       this.numMin = Math.min(this.numMin, o.numMin);
       this.numMax = Math.max(this.numMax, o.numMax);
       this.huge += o.huge;
-      this.dec.merge(o.dec);
-      this.bin.merge(o.bin);
+      if (o.#dec !== null) this.dec.merge(o.#dec);
+      if (o.#bin !== null) this.bin.merge(o.#bin);
     }
     const bits = this.kindBits | o.kindBits;
     if (this.text || o.text || isTextFor(bits)) this.becomeText();
     else this.kindBits = bits;
     if (o.loLen >= 0 && (this.loLen < 0 || compareBytes(o.lo, 0, o.loLen, this.lo, this.loLen) < 0)) this.setLo(o.lo, 0, o.loLen);
     if (o.hiLen >= 0 && (this.hiLen < 0 || compareBytes(o.hi, 0, o.hiLen, this.hi, this.hiLen) > 0)) this.setHi(o.hi, 0, o.hiLen);
+  }
+
+  /** merge() of a serialised column, without making a column of it where both are exact. */
+  mergeSerialized(o: SerializedColumn, cap: number): void {
+    if (this.values === null || o.values === null) {
+      this.merge(ColumnState.fromJSON(o), cap);
+      return;
+    }
+    this.count += o.count;
+    this.missing += o.missing;
+    this.values.addPacked(Buffer.from(o.values.keys, 'latin1'), o.values);
+    if (this.values.size > cap) this.switchToSketch();
   }
 
   resolveType(): ColumnType {
@@ -947,12 +1038,7 @@ class ColumnState {
       if (sd !== null && !Number.isFinite(sd)) sd = null;
     }
     let top: ValueCount[] | null = null;
-    if (this.values !== null && !excludeValues) {
-      const entries: ValueCount[] = [];
-      this.values.forEach((a, s, e, count) => entries.push({ value: decodeUtf8(a.subarray(s), e - s)!, count }));
-      entries.sort((a, b) => b.count - a.count || (a.value < b.value ? -1 : a.value > b.value ? 1 : 0));
-      top = entries.slice(0, topValues);
-    }
+    if (this.values !== null && !excludeValues) top = this.values.top(topValues);
     return {
       name,
       type,
@@ -968,8 +1054,8 @@ class ColumnState {
     };
   }
 
-  toJSON(): SerializedColumn {
-    if (this.values !== null) return { count: this.count, missing: this.missing, values: this.values.toJSON() };
+  serialize(canonical: boolean): SerializedColumn {
+    if (this.values !== null) return { count: this.count, missing: this.missing, values: this.values.serialize(canonical) };
     const f = this.figures();
     return {
       count: this.count,
@@ -988,15 +1074,14 @@ class ColumnState {
   }
 
   static fromJSON(s: SerializedColumn): ColumnState {
-    const c = new ColumnState(s.values !== null);
+    const c = new ColumnState(false);
     c.count = s.count;
     c.missing = s.missing;
     if (s.values !== null) {
       // Exact mode: the table is the state; every other figure derives from it.
-      const { keys, lengths, counts } = s.values;
-      const bytes = Buffer.from(keys, 'latin1');
-      const values = c.values!;
-      for (let i = 0, at = 0; i < lengths.length; at += lengths[i]!, i++) values.add(bytes, at, at + lengths[i]!, counts[i]!);
+      const bytes = Buffer.from(s.values.keys, 'latin1');
+      c.values = new ValueCounter(s.values.lengths.length, bytes.length);
+      c.values.addPacked(bytes, s.values);
       return c;
     }
     for (let k = 0; k < 5; k++) {
@@ -1316,16 +1401,29 @@ export class TableStats {
 
   /** Folds another table's figures into this one: exact, and the result does not depend on order. */
   merge(other: TableStats): void {
+    this.#checkMergeable(other);
+    this.#drainAll();
+    other.#drainAll();
+    this.records += other.records;
+    for (let i = 0; i < this.cols.length; i++) this.cols[i]!.merge(other.cols[i]!, this.distinctCap);
+  }
+
+  /** merge(TableStats.fromJSON(s)), without making a table of s first (a wide one is large). */
+  mergeSerialized(s: SerializedStats): void {
+    if (s.version !== 2) throw new RowdeckError('ERR_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
+    this.#checkMergeable(s);
+    this.#drainAll();
+    this.records += s.records;
+    for (let i = 0; i < this.cols.length; i++) this.cols[i]!.mergeSerialized(s.stats[i]!, this.distinctCap);
+  }
+
+  #checkMergeable(other: { columns: readonly string[]; distinctCap: number }): void {
     if (other.columns.length !== this.columns.length || other.columns.some((c, i) => c !== this.columns[i])) {
       throw new RowdeckError('ERR_INTERNAL', `statistics: cannot merge tables with different columns (${this.columns.join(',')} vs ${other.columns.join(',')}).`);
     }
     if (other.distinctCap !== this.distinctCap) {
       throw new RowdeckError('ERR_INTERNAL', `statistics: cannot merge tables with different distinct caps (${this.distinctCap} vs ${other.distinctCap}).`);
     }
-    this.#drainAll();
-    other.#drainAll();
-    this.records += other.records;
-    for (let i = 0; i < this.cols.length; i++) this.cols[i]!.merge(other.cols[i]!, this.distinctCap);
   }
 
   /**
@@ -1340,6 +1438,18 @@ export class TableStats {
 
   /** Canonical plain-data form: equal figures give deep-equal objects whatever the history. */
   toJSON(): SerializedStats {
+    return this.serialize(true);
+  }
+
+  /**
+   * Plain-data form for another thread: toJSON's, but with exact values in table order (equal
+   * figures may give objects that differ in that order).
+   */
+  toTransfer(): SerializedStats {
+    return this.serialize(false);
+  }
+
+  private serialize(canonical: boolean): SerializedStats {
     this.#drainAll();
     return {
       version: 2,
@@ -1347,7 +1457,7 @@ export class TableStats {
       distinctCap: this.distinctCap,
       topValues: this.topValues,
       records: this.records,
-      stats: this.cols.map((c) => c.toJSON()),
+      stats: this.cols.map((c) => c.serialize(canonical)),
     };
   }
 

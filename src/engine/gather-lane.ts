@@ -9,7 +9,7 @@ import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
 import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type PreparedPlan } from './gather.js';
-import { statsOfPartFile, type PartStatsTask } from './part-stats.js';
+import { statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
 
 export type GatherFinal = SerializedStats[] | null;
@@ -54,7 +54,7 @@ export interface GatherLane {
   /** Deals one bucket; the result's bytes may be handed over without copying. */
   handle(task: GatherTask): { result: GatherResult; transfer: ArrayBuffer[] };
   /** One part's statistics, read back from its file once every bucket is dealt. */
-  partStats(task: PartStatsTask): Promise<{ result: SerializedStats }>;
+  partStats(task: PartStatsTask): Promise<{ result: PartStatsResult }>;
   /** Every part's statistics over the buckets this lane dealt (null unless the lanes keep them). */
   finish(): { final: GatherFinal };
 }
@@ -71,6 +71,6 @@ export function gatherLane(planPath: string): GatherLane {
       return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
     },
     partStats: async (task) => ({ result: await statsOfPartFile(plan, task) }),
-    finish: () => ({ final: stats ? stats.map((t) => t.toJSON()) : null }),
+    finish: () => ({ final: stats ? stats.map((t) => t.toTransfer()) : null }),
   };
 }

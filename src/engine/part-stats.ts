@@ -16,7 +16,7 @@
  * of table, and TableStats merges exactly and without regard to order, so the manifest does not
  * depend on which was used (test/shuffle.invariants.test.ts runs both and compares them).
  */
-import { TableStats, type SerializedStats } from '../core/stats.js';
+import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { FieldKind } from '../io/batch.js';
 import { openInput } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
@@ -35,6 +35,18 @@ export const READ_BACK_BYTES = 32 * 1024 * 1024;
 export interface PartStatsTask {
   partFile: string;
   headerBytes: number;
+  /** For the part's summary (made on the lane, see PartStatsResult). */
+  excludeValues: boolean;
+}
+
+/**
+ * A part's statistics read back: its summary for the manifest, made where it was read, and its
+ * table for the whole input's (merged from this form, see TableStats.mergeSerialized). The
+ * calling thread only merges, so it keeps up with the lanes on wide inputs.
+ */
+export interface PartStatsResult {
+  summary: ColumnSummary[];
+  stats: SerializedStats;
 }
 
 /**
@@ -99,7 +111,7 @@ export function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, 
 }
 
 /** One part's statistics, read back from its file (see the top of this file). */
-export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<SerializedStats> {
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<PartStatsResult> {
   const stats = new TableStats(plan.statsColumns);
   let skip = task.headerBytes;
   if (plan.format === 'jsonl') {
@@ -117,7 +129,7 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Pr
       carry = s < d.length ? Buffer.from(d.subarray(s)) : null;
     }
     if (carry) feed(stats, carry, 0, carry.length);
-    return stats.toJSON();
+    return resultOf(stats, task);
   }
   const reader = newPartReader(plan);
   for await (const chunk of openInput(task.partFile)) {
@@ -133,6 +145,10 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Pr
   }
   const last = reader.end();
   if (last) stats.addBatch(last);
+  return resultOf(stats, task);
+}
+
+function resultOf(stats: TableStats, task: PartStatsTask): PartStatsResult {
   stats.releaseKernel();
-  return stats.toJSON();
+  return { summary: stats.summary({ excludeValues: task.excludeValues }), stats: stats.toTransfer() };
 }

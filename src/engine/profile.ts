@@ -357,7 +357,7 @@ export class ProfileTask {
   finish(): ProfileTaskResult {
     const strata = new Map(this.#strata);
     this.#fast.forEach((k, n) => strata.set(k, (strata.get(k) ?? 0) + n));
-    return { stats: this.#stats.toJSON(), strata: [...strata] };
+    return { stats: this.#stats.toTransfer(), strata: [...strata] };
   }
 }
 
@@ -607,13 +607,12 @@ function compareKeys(a: string, b: string): number {
 }
 
 function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
-  // Each thread's tables are turned back into a table and merged one at a time, the first kept as
-  // the sum: a wide input's tables are large, and no more than two are held at once.
+  // The first thread's tables are turned back into a table, and the others merged into it from
+  // their serialised form: a wide input's tables are large.
   let stats: TableStats | null = null;
   for (const r of g.results) {
-    const t = TableStats.fromJSON(r.stats);
-    if (stats === null) stats = t;
-    else stats.merge(t);
+    if (stats === null) stats = TableStats.fromJSON(r.stats);
+    else stats.mergeSerialized(r.stats);
   }
   stats ??= new TableStats(g.columns);
   const records = g.inputs.reduce((a, x) => a + x.records, 0);

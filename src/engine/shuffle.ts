@@ -34,7 +34,7 @@ import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
 import { gatherLane, type GatherFinal } from './gather-lane.js';
-import { statsInLanes, statsOfPartFile, type PartStatsTask } from './part-stats.js';
+import { statsInLanes, statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import { HEADER_BYTES, spillRanges } from './spill.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
@@ -614,13 +614,14 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // Too many parts for the lanes to keep every part's statistics: each part is read back,
       // one a lane at a time (see src/engine/part-stats.ts).
       const headerLength = header?.length ?? 0;
-      const tasks = layout.map((part): PartStatsTask => ({ partFile: join(stage, part.path), headerBytes: headerLength }));
-      const statsLanes = pool as unknown as Lanes<PartStatsTask, SerializedStats, GatherFinal>;
+      const tasks = layout.map((part): PartStatsTask => ({ partFile: join(stage, part.path), headerBytes: headerLength, excludeValues: o.excludeValues }));
+      const statsLanes = pool as unknown as Lanes<PartStatsTask, PartStatsResult, GatherFinal>;
       let done = 0;
       o.onProgress?.({ stage: 'stats', done: 0, total: parts, records, elapsedMs: Date.now() - t0 });
       await eachAtOnce(parts, Math.max(1, threads), async (p) => {
         const t = threads === 0 ? await statsOfPartFile(plan, tasks[p]!) : await statsLanes.run(tasks[p]!);
-        partDone(p, TableStats.fromJSON(t));
+        partSummaries[p] = t.summary;
+        allStats.mergeSerialized(t.stats);
         o.onProgress?.({ stage: 'stats', done: ++done, total: parts, records, elapsedMs: Date.now() - t0 });
       });
       timings.statsMs = Date.now() - tStats;

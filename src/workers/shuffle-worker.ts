@@ -25,7 +25,7 @@ import { ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, 
 import { censusBucket, type CensusTask, type GatherResult, type GatherTask } from '../engine/gather.js';
 import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
-import type { PartStatsTask } from '../engine/part-stats.js';
+import type { PartStatsResult, PartStatsTask } from '../engine/part-stats.js';
 import type { SerializedStats } from '../core/stats.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
@@ -35,7 +35,7 @@ let task: ScatterTask | null = new ScatterTask({ ...data, task: lane });
 let blocks: BlockHost | null = new BlockHost((batch, input) => task!.addBatch(batch, input));
 let gather: GatherLane | null = null;
 
-serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | GatherResult | SerializedStats | GroupTableData, ScatterTaskResult | GatherFinal>(
+serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | GatherResult | PartStatsResult | GroupTableData, ScatterTaskResult | GatherFinal>(
   (m) => {
     if ('bucket' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
