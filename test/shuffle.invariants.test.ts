@@ -476,7 +476,7 @@ describe('the memory plan for short records', () => {
 describe('the memory plan of --stats: per-part statistics in the lanes or read back from the parts', () => {
   const MiB = 1024 * 1024;
   it('keeps the tables in the lanes only while parts x lanes fit a quarter of the budget (or what reading back takes)', () => {
-    // 10 columns, 2 lanes: 8 parts take 25 MiB of tables at STATS_BYTES_PER_COLUMN, 256 take 800 MiB.
+    // 10 columns, 2 lanes: 8 parts take 12.5 MiB of tables at STATS_BYTES_PER_COLUMN, 256 take 400 MiB.
     expect(statsInLanes(10, 8, 2, 512 * MiB)).toBe(true);
     expect(statsInLanes(10, 8, 2, 64 * MiB)).toBe(true); // below READ_BACK_BYTES
     expect(statsInLanes(10, 64, 2, 64 * MiB)).toBe(false);

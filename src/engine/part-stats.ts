@@ -9,8 +9,9 @@
  *   lane, whatever the number of parts.
  *
  * A part's tables hold up to the distinct cap of values a column (then a fixed-size estimate):
- * measured ~1.4 MiB a part and lane for the 10 columns of the benchmark files (values of up to
- * ~60 bytes), hence STATS_BYTES_PER_COLUMN. The lanes keep the tables only while the parts times
+ * measured ~0.63 MiB a part and lane for the 10 columns of the benchmark files (values of up to
+ * ~60 bytes; 1.2 MiB before the value tables were made leaner), and ~100 MiB more at the peak
+ * for 64 parts on two lanes than for 8 (~80 KB a column and lane), hence STATS_BYTES_PER_COLUMN. The lanes keep the tables only while the parts times
  * the lanes fit in a quarter of the memory budget (or in READ_BACK_BYTES, what reading back costs
  * itself); past that, the parts are read back. Both ways feed the same records to the same kind
  * of table, and TableStats merges exactly and without regard to order, so the manifest does not
@@ -23,7 +24,7 @@ import { RecordReader } from '../io/reader.js';
 import type { GatherPlan } from './plan.js';
 
 /** Memory a part's statistics take per column and lane, for the choice above (measured, rounded up). */
-export const STATS_BYTES_PER_COLUMN = 160 * 1024;
+export const STATS_BYTES_PER_COLUMN = 80 * 1024;
 
 /**
  * What reading the parts back takes beyond the dealing, measured: 15-35 MB over a run's peak
