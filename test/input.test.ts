@@ -4,12 +4,13 @@
  * inputs read in order with their headers checked against the first.
  */
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { execFileSync } from 'node:child_process';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
-import { detectFormat, openInput, readRecords } from '../src/io/input.js';
+import { detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
 import { fieldText } from '../src/io/reader.js';
 
 let dir = '';
@@ -90,5 +91,26 @@ describe('readRecords', () => {
   });
   it('JSON Lines inputs by extension', async () => {
     expect(await readValues([join(dir, 'r.ndjson')])).toEqual([{ input: 0, value: 'none' }]);
+  });
+});
+
+describe('ReadAhead', () => {
+  it('gives small plain files whole, and null for gzip, large, missing, stdin and pipes', async () => {
+    const big = join(dir, 'big.csv');
+    writeFileSync(big, 'sensor_id,fault\n' + 'S1,none\n'.repeat(READ_AHEAD_MAX_BYTES / 8));
+    const fifo = join(dir, 'pipe.csv');
+    execFileSync('mkfifo', [fifo]); // no writer: opening it would wait for one
+    const paths = [join(dir, 'a.csv'), join(dir, 'b.csv.gz'), join(dir, 'hidden-gzip.csv'), big, join(dir, 'missing.csv'), '-', fifo, join(dir, 'other.csv')];
+    const small = new ReadAhead(paths, 4 << 20);
+    const got = [];
+    for (let k = 0; k < paths.length; k++) got.push(await small.take(k));
+    expect(got[0]!.equals(readFileSync(paths[0]!))).toBe(true);
+    expect(got.slice(1, 7)).toEqual([null, null, null, null, null, null]);
+    expect(got[7]!.toString()).toBe('sensor_id,class\nS9,none\n');
+    // Under two blocks only: a file parsed in blocks is left to the blocks.
+    const tiny = new ReadAhead([paths[0]!, paths[7]!], 16);
+    expect(await tiny.take(0)).toBeNull();
+    // One input alone is read as before.
+    expect(await new ReadAhead([paths[0]!], 4 << 20).take(0)).toBeNull();
   });
 });

@@ -163,6 +163,40 @@ describe('agreement with shuffle', () => {
   });
 });
 
+describe('many small inputs', () => {
+  it('read ahead whole, give the profile that reading each in blocks gives (CSV, JSON Lines)', async () => {
+    for (const format of ['csv', 'jsonl'] as const) {
+      const paths: string[] = [];
+      let records = 0;
+      for (let f = 0; f < 16; f++) {
+        const { header, rows } = parseCsv(makeSensorCsv({ rows: 150, seed: 300 + f }));
+        records += rows.length; // counted by csv-parse
+        const path = join(dir, `shard-${f}.${format}`);
+        writeFileSync(
+          path,
+          format === 'csv'
+            ? stringify([header, ...rows])
+            : rows.map((r) => JSON.stringify(Object.fromEntries(header.map((h, i) => [h, r[i]])))).join('\n') + '\n',
+        );
+        paths.push(path);
+      }
+      const opts = { inputs: paths, stratify: 'fault', threads: 2 };
+      const ahead = await profile(opts);
+      const before = process.env.ROWDECK_BLOCK_BYTES;
+      process.env.ROWDECK_BLOCK_BYTES = '2048'; // every shard over two blocks: read in blocks
+      let blocks: Profile;
+      try {
+        blocks = await profile(opts);
+      } finally {
+        if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
+        else process.env.ROWDECK_BLOCK_BYTES = before;
+      }
+      expect(ahead.records).toBe(records);
+      expect(stripRun(ahead)).toEqual(stripRun(blocks));
+    }
+  });
+});
+
 describe('independent of the thread count', () => {
   it('0 (calling thread), 1 and 2 worker threads give identical profiles', async () => {
     const opts = { inputs: [big], stratify: 'fault,site' };

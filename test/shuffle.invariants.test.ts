@@ -134,6 +134,37 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     expect(rejects('inv1-blocks')).toEqual(rejects('inv1-seq'));
   });
 
+  it('gives the same bytes, manifest and rejected records when many small inputs are read ahead whole as when each is read in blocks', async () => {
+    // 24 files of ~200 records (one gzip, some with a broken record): by default each is read
+    // whole, a few ahead (ReadAhead); with 4 KiB blocks none is under two blocks, so the
+    // workers read each in blocks, as before read-ahead.
+    const paths: string[] = [];
+    for (let f = 0; f < 24; f++) {
+      const lines = makeSensorCsv({ rows: 200, seed: 100 + f }).split('\n');
+      if (f % 5 === 2) lines[7 + f] = `${f},"broken"x,site,1.0,,ok`;
+      const text = lines.join('\n');
+      const path = join(dir, `shard-${String(f).padStart(2, '0')}.csv${f === 9 ? '.gz' : ''}`);
+      writeFileSync(path, f === 9 ? gzipSync(text) : text);
+      paths.push(path);
+    }
+    const opts = { seed: 'shards', partitions: 4, stratify: 'fault', folds: 3, onBadRecord: 'quarantine' as const, threads: 2 };
+    const ahead = await shuffle({ inputs: paths, out: join(dir, 'shards-ahead'), ...opts });
+    const before = process.env.ROWDECK_BLOCK_BYTES;
+    process.env.ROWDECK_BLOCK_BYTES = '4096';
+    let blocks: Manifest;
+    try {
+      blocks = await shuffle({ inputs: paths, out: join(dir, 'shards-blocks'), ...opts });
+    } finally {
+      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
+      else process.env.ROWDECK_BLOCK_BYTES = before;
+    }
+    expect(outputsOf(join(dir, 'shards-ahead'))).toEqual(outputsOf(join(dir, 'shards-blocks')));
+    expect(ahead.input.rejected).toBe(5);
+    expect(ahead.input).toEqual(blocks.input);
+    expect(ahead.output).toEqual(blocks.output);
+    expect(ahead.input.files.map((f) => f.records)).toEqual(paths.map((_, f) => (f % 5 === 2 ? 199 : 200)));
+  });
+
   it('gives a different order for a different seed, and records the seed', async () => {
     const a = await shuffle({ inputs: [input], out: join(dir, 'seed-a'), seed: 'alpha', memory: '4MiB' });
     const b = await shuffle({ inputs: [input], out: join(dir, 'seed-b'), seed: 'beta', memory: '4MiB' });

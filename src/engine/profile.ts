@@ -25,8 +25,8 @@ import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isPlainFile, nameInput, openInput, smallInputs } from '../io/input.js';
-import { readInBlocks, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
+import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
+import { blockSizes, readInBlocks, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
@@ -38,6 +38,12 @@ import { resolveWorkerFile } from './shuffle.js';
 export const PROFILE_VERSION = 1;
 /** Blocks the workers parse (see readInBlocks). */
 const PROFILE_BLOCK_BYTES = 1 << 20;
+/** What the probe parses at a time while it looks for an input's columns. */
+const PROBE_SLICE = 64 << 10;
+
+async function* once(b: Buffer): AsyncGenerator<Buffer> {
+  yield b;
+}
 /** Rejected records listed in a profile (all are counted). */
 const MAX_LISTED_REJECTS = 20;
 /** Classes listed one by one in warnings; the rest are summed up. */
@@ -407,7 +413,9 @@ async function probeInput(
       break;
     }
     held.push(r.value);
-    probe.push(r.value);
+    // In slices: the schema is known after a header line or a first object, and a chunk may be
+    // a whole small input (see ReadAhead), read in full below.
+    for (let at = 0; at < r.value.length && probe.schema === null; at += PROBE_SLICE) probe.push(r.value.subarray(at, at + PROBE_SLICE));
   }
   const own = probe.schema?.columns ?? [];
   let wanted: string[];
@@ -501,10 +509,13 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
 
   try {
     let first: { columns: string[]; csv: boolean } | null = null;
+    const ahead = new ReadAhead(o.inputs, blockSizes({ blockBytes: PROFILE_BLOCK_BYTES }).block);
     for (let k = 0; k < o.inputs.length; k++) {
       const path = o.inputs[k]!;
       const seen = inputs[k]!;
-      const it = openInput(path)[Symbol.asyncIterator]();
+      // Small files were read ahead, whole (see ReadAhead).
+      const whole = await ahead.take(k);
+      const it = (whole ? once(whole) : openInput(path))[Symbol.asyncIterator]();
       let probed: Awaited<ReturnType<typeof probeInput>>;
       try {
         probed = await probeInput(o, k, first, onReject, it);
@@ -523,7 +534,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       if (lanes) for (let lane = 0; lane < lanes.size; lane++) void lanes.runOn(lane, { kind: 'columns', input: k, map: plan.map }).catch(() => {});
       // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
       let totals: InputTotals | null = null;
-      if (lanes && (await isPlainFile(path))) {
+      if (!whole && lanes && (await isPlainFile(path))) {
         await it.return?.(undefined);
         totals = await readInBlocks({
           path,

@@ -19,8 +19,8 @@ import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { inputReaderOptions, isPlainFile, readInput } from '../io/input.js';
-import { readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
+import { inputReaderOptions, isPlainFile, readBytes, readInput, ReadAhead } from '../io/input.js';
+import { blockSizes, readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, QUEUE, spillRanges, type SpillPiece } from './spill.js';
@@ -512,13 +512,16 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const progress = (): void => o.onProgress?.(inputs.reduce((a, x) => a + x.bytes, 0), inputs.reduce((a, x) => a + x.records, 0));
   try {
     let expected: { columns: string[]; from: string } | undefined;
+    const ahead = new ReadAhead(o.inputs, blockSizes({ ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}) }).block);
     for (let k = 0; k < o.inputs.length; k++) {
       const path = o.inputs[k]!;
       const ro = inputReaderOptions(path, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
       const seen = inputs[k]!;
-      // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
+      // Small files were read ahead, whole; other plain files are parsed by the workers in
+      // blocks; stdin and gzip are read here.
+      const whole = await ahead.take(k);
       const totals =
-        lanes && (await isPlainFile(path))
+        !whole && lanes && (await isPlainFile(path))
           ? await readInBlocks({
               path,
               input: k,
@@ -539,7 +542,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         seen.records = totals.records;
         seen.rejected = totals.rejected;
       } else {
-        for await (const { batch, schema: sch, stats } of readInput(path, ro)) {
+        for await (const { batch, schema: sch, stats } of whole ? readBytes(whole, ro) : readInput(path, ro)) {
           await send(batch, k, sch);
           seen.records += batch.count;
           seen.bytes = stats.bytes;

@@ -217,6 +217,78 @@ export async function* readInput(
   if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
 }
 
+/** The records of an input read whole (see ReadAhead), as readInput gives them. */
+export function* readBytes(bytes: Buffer, ro: RecordReaderOptions): Generator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
+  const reader = new RecordReader(ro);
+  const batch = reader.push(bytes);
+  if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
+  const last = reader.end();
+  if (last) yield { batch: last, schema: reader.schema!, stats: reader.stats };
+}
+
+/** Largest input ReadAhead reads ahead, and how many it has in flight. */
+export const READ_AHEAD_MAX_BYTES = 1 << 20;
+const READ_AHEAD_INPUTS = 8;
+
+/**
+ * Reads small inputs whole, a few ahead of the one being parsed. Each input otherwise takes
+ * several trips to the thread pool (looking at it, opening, its size, reading, closing), one after
+ * another, while the threads wait: 2,000 files of 100 KB took 3.8 s to shuffle and 6.4 s to
+ * profile against 1.7 and 1.6 s for the same records in one file. Only regular files of at most
+ * READ_AHEAD_MAX_BYTES that are not gzip are taken (at most ~9 MiB in flight); for anything else,
+ * or a file whose size changed, take() gives null and the input is read as before, which reports
+ * any error with its path.
+ */
+export class ReadAhead {
+  readonly #paths: readonly string[];
+  readonly #limit: number;
+  readonly #reads = new Map<number, Promise<Buffer | null>>();
+  #next = 0;
+
+  /**
+   * `blockBytes`: the block size the inputs would be read in. A file under two blocks is read on
+   * the calling thread either way (see readInBlocks), so only such files are taken: with
+   * the default blocks, every file up to READ_AHEAD_MAX_BYTES.
+   */
+  constructor(paths: readonly string[], blockBytes: number) {
+    this.#paths = paths;
+    this.#limit = Math.min(READ_AHEAD_MAX_BYTES, 2 * blockBytes);
+  }
+
+  /** Input k's bytes when it is a small plain file, else null; starts reading the next ones. */
+  async take(k: number): Promise<Buffer | null> {
+    if (this.#paths.length < 2) return null;
+    this.#next = Math.max(this.#next, k);
+    while (this.#next < this.#paths.length && this.#next <= k + READ_AHEAD_INPUTS) this.#start(this.#next++);
+    const read = this.#reads.get(k);
+    this.#reads.delete(k);
+    const bytes = read ? await read : null;
+    return bytes !== null && !(bytes.length >= 2 && bytes[0] === 0x1f && bytes[1] === 0x8b) ? bytes : null;
+  }
+
+  #start(k: number): void {
+    const path = this.#paths[k]!;
+    if (path !== '-') this.#reads.set(k, readSmall(path, this.#limit).catch(() => null));
+  }
+}
+
+/** The bytes of a regular file of at most `limit` bytes, or null (a pipe is not even opened). */
+async function readSmall(path: string, limit: number): Promise<Buffer | null> {
+  const first = await stat(path);
+  if (!first.isFile() || first.size > limit) return null;
+  const fh = await open(path, 'r');
+  try {
+    const st = await fh.stat();
+    if (!st.isFile() || st.size > limit) return null;
+    const b = Buffer.allocUnsafe(st.size);
+    const { bytesRead } = await fh.read(b, 0, st.size, 0);
+    // A file that grew or shrank meanwhile is read the usual way, which reports it.
+    return bytesRead === st.size && (await fh.read(Buffer.alloc(1), 0, 1, st.size)).bytesRead === 0 ? b : null;
+  } finally {
+    await fh.close();
+  }
+}
+
 /**
  * Inputs under this size (uncompressed, as far as it is known) are shuffled and profiled on the
  * calling thread by default, as `verify` reads small outputs. A worker thread takes ~0.1 s to
