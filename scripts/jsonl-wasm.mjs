@@ -67,6 +67,7 @@ export function wat() {
     (param $stack i32) (param $max i32) (result i32)
     (local $i i32) (local $c i32) (local $d i32) (local $state i32) (local $k i32) (local $w i32) (local $vs i32)
     (local $ks i32) (local $kl i32) (local $esc i32) (local $p i32) (local $q i32) (local $j i32)
+    (local $t i32) (local $h i32)
     ;; Every wanted key is missing until found.
     (block $init_done
       (loop $init
@@ -107,24 +108,34 @@ export function wat() {
         ${set('kl', `(i32.sub (i32.sub ${get('i')} (i32.const 1)) ${get('ks')})`)}
         ;; A top-level key written with escapes is left to JavaScript (it compares decoded keys).
         (if (i32.and ${get('esc')} (i32.eq ${get('d')} (i32.const 1))) (then (return (i32.const 2))))
-        ;; Which wanted key this is (top level only).
+        ;; Which wanted key this is (top level only). The search starts after the key matched
+        ;; last ($h) and wraps around: objects mostly list their keys in one order, so with
+        ;; thousands of wanted keys a key is found at the first try, not after half of them.
+        ;; (The wanted keys are distinct: src/io/jsonl.ts passes each once.)
         (if (i32.eq ${get('d')} (i32.const 1)) (then
           ${set('w', i32(-1))}
-          ${set('k', i32(0))}
+          ${set('k', get('h'))}
+          ${set('t', i32(0))}
           (block $match_done
             (loop $match
-              (br_if $match_done (i32.ge_u ${get('k')} ${get('nkeys')}))
+              (br_if $match_done (i32.ge_u ${get('t')} ${get('nkeys')}))
               ${set('p', add(get('keys'), `(i32.shl ${get('k')} (i32.const 3))`))}
               (if (i32.eq (i32.load offset=4 ${get('p')}) ${get('kl')}) (then
                 ${set('q', `(i32.load ${get('p')})`)}
                 ${set('j', i32(0))}
                 (block $cmp_done
                   (loop $cmp
-                    (if (i32.ge_u ${get('j')} ${get('kl')}) (then ${set('w', get('k'))} (br $match_done)))
+                    (if (i32.ge_u ${get('j')} ${get('kl')}) (then
+                      ${set('w', get('k'))}
+                      ${set('h', add(get('k'), i32(1)))}
+                      (if (i32.ge_u ${get('h')} ${get('nkeys')}) (then ${set('h', i32(0))}))
+                      (br $match_done)))
                     (br_if $cmp_done (i32.ne ${byte(add(get('q'), get('j')))} ${byte(add(get('ks'), get('j')))}))
                     ${inc('j')}
                     (br $cmp)))))
               ${inc('k')}
+              ${inc('t')}
+              (if (i32.ge_u ${get('k')} ${get('nkeys')}) (then ${set('k', i32(0))}))
               (br $match)))))
         ${skipSpace}
         ${load}

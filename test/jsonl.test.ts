@@ -148,6 +148,32 @@ describe.skipIf(moduleOff)('wanted keys', () => {
   });
 });
 
+describe.skipIf(moduleOff)('many wanted keys, in any order', () => {
+  it('finds each key whatever the order of the members, with keys wanted twice, absent, repeated and prefixes of others (JSON.parse as the reference)', () => {
+    // The module looks for a key starting after the one it matched last: objects in the wanted
+    // order find theirs at once, others must still find every one.
+    const rng = seedrandom('many-keys');
+    const names = Array.from({ length: 300 }, (_, i) => `k${i}`);
+    const wanted = [...names, 'k7', 'k1', 'k29']; // k1 is a prefix of k10..k19 and k100..k199
+    const c = checker(wanted);
+    for (let trial = 0; trial < 40; trial++) {
+      const present = names.filter(() => rng() < 0.9);
+      const order = trial % 3 === 0 ? present : trial % 3 === 1 ? present.slice().reverse() : present.slice().sort(() => rng() - 0.5);
+      const members = order.map((k) => `"${k}":${Math.floor(rng() * 1000)}`);
+      if (trial % 4 === 0) members.push(`"k3":"again"`, `"k1000":1`); // a repeat (the last counts), and a key not wanted
+      const line = Buffer.from(`{${members.join(',')}}`);
+      expect(verdict(c, line)).toBe(JsonlCheck.Object);
+      const obj = JSON.parse(line.toString()) as Record<string, unknown>;
+      const d = Buffer.concat([Buffer.from('\n'), line, Buffer.from('\n')]);
+      wanted.forEach((k, w) => {
+        const v = obj[k];
+        if (v === undefined) expect(c.kind(w)).toBe(3);
+        else expect(d.toString('utf8', c.start(w), c.end(w))).toBe(JSON.stringify(v));
+      });
+    }
+  });
+});
+
 /** A random JSON value of bounded depth. */
 function randomValue(rng: () => number, depth: number): unknown {
   const r = rng();

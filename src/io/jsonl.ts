@@ -46,8 +46,22 @@ export class JsonlChecker {
   #from = 0;
   #i32: Int32Array;
 
-  private constructor(k: JsonlKernel, keys: Uint8Array[]) {
+  /** Wanted key w -> its entry in the module's list, which holds each distinct key once. */
+  readonly #entry: Int32Array;
+
+  private constructor(k: JsonlKernel, wanted: Uint8Array[]) {
     this.#k = k;
+    const keys: Uint8Array[] = [];
+    const seen = new Map<string, number>();
+    this.#entry = Int32Array.from(wanted, (key) => {
+      const name = Buffer.from(key).toString('latin1');
+      let e = seen.get(name);
+      if (e === undefined) {
+        seen.set(name, (e = keys.length));
+        keys.push(key);
+      }
+      return e;
+    });
     this.#nkeys = keys.length;
     this.#keys = 64;
     let at = this.#keys + 8 * keys.length;
@@ -98,15 +112,15 @@ export class JsonlChecker {
 
   /** Wanted key `w`'s value in the last line checked as an object: its token's start in `d`. */
   start(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * w]! - this.#data + this.#from;
+    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]!]! - this.#data + this.#from;
   }
 
   end(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * w + 1]! - this.#data + this.#from;
+    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]! + 1]! - this.#data + this.#from;
   }
 
   /** FieldKind of wanted key `w`'s value: JsonString, Missing (null or absent) or Plain. */
   kind(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * w + 2]!;
+    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]! + 2]!;
   }
 }
