@@ -142,6 +142,40 @@ describe('agreement with shuffle', () => {
     expect(p.columns).toEqual(m.input.stats);
   });
 
+  it('JSON Lines written by hand (1.0, 1e2, big integers, nested values, escapes): --stats reads the values as profile does, kept by the lanes or read back', async () => {
+    // The values' own text counts, not JSON.parse's reading of it: "1.0" is a number (a decimal
+    // point), not the integer 1; 12345678901234567890 keeps its digits. Checked for the input and
+    // for each part, with a fold key added to the records.
+    const file = join(dir, 'by-hand.jsonl');
+    const lines: string[] = [];
+    for (let i = 0; i < 400; i++) {
+      const n = ['1.0', '2.50', '1e2', '-0', '12345678901234567890', '7'][i % 6];
+      const nested = i % 4 === 0 ? '{"a": [1, 2]}' : i % 4 === 1 ? '[ true ,null ]' : '"plain"';
+      const text = i % 3 === 0 ? '"caf\\u00e9\\n"' : `"t${i % 7}"`;
+      lines.push(i % 2 ? `{"id": ${i}, "n": ${n}, "nested": ${nested}, "text": ${text}}` : `{"text":${text},"nested":${nested},"id":${i},"n":${n}}`);
+    }
+    writeFileSync(file, lines.join('\n') + '\n');
+    const p = await profile({ inputs: [file], threads: 0 });
+    expect(p.columns.find((c) => c.name === 'n')!.type).toBe('number');
+    for (const way of ['lanes', 'files']) {
+      const before = process.env.ROWDECK_PART_STATS;
+      process.env.ROWDECK_PART_STATS = way;
+      let m: Awaited<ReturnType<typeof shuffle>>;
+      try {
+        m = await shuffle({ inputs: [file], out: join(dir, `by-hand-${way}`), partitions: 3, folds: 2, stats: true, seed: 'hand', threads: 2 });
+      } finally {
+        if (before === undefined) delete process.env.ROWDECK_PART_STATS;
+        else process.env.ROWDECK_PART_STATS = before;
+      }
+      expect(m.input.stats).toEqual(p.columns);
+      for (const part of m.output.parts) {
+        const pp = await profile({ inputs: [join(dir, `by-hand-${way}`, part.path)], threads: 0 });
+        // The part's records carry the fold key too: compare the input's columns.
+        expect(part.stats).toEqual(p.columns.map((c) => pp.columns.find((x) => x.name === c.name)));
+      }
+    }
+  });
+
   it('JSON Lines inputs without some of the first input\'s keys count them as missing', async () => {
     const a = join(dir, 'keys-a.jsonl');
     const b = join(dir, 'keys-b.jsonl');

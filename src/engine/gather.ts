@@ -12,7 +12,7 @@ import type { TableStats } from '../core/stats.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 import { gatherKernel } from './gather-kernel.js';
-import { createStatsFeeder, partReader } from './part-stats.js';
+import { partReader } from './part-stats.js';
 import type { GroupTableData } from '../core/group-table.js';
 
 export interface GatherTask {
@@ -153,7 +153,6 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const need = base + outCap;
   const arena = task.arena && task.arena.byteLength >= need ? task.arena : (Buffer.allocUnsafeSlow(Math.ceil(need * 1.25) + 4096).buffer as ArrayBuffer);
   const bytes = input ?? new Uint8Array(arena, 0, need);
-  const buf = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.byteLength);
   readPieces(task.pieces, bytes);
   const T = PHASES ? [t0, performance.now()] : null;
   const ix = indexSpill(bytes, spillBytes, task.pieces, plan.localToGlobal);
@@ -213,9 +212,9 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
     T?.push(performance.now());
     fingerprintParts(ix, n, cellOfRec, K, fps);
   }
-  if (stats && !isJson) {
-    // Each part's slice of output is plain CSV/TSV: read it back with the record reader (its
-    // structural scan) and add it a batch at a time, column by column.
+  if (stats) {
+    // Each part's slice of output is plain CSV/TSV or JSON Lines: read it back with the record
+    // reader (as the input was read) and add it a batch at a time, column by column.
     const reader = partReader(plan);
     for (let p = 0; p < parts; p++) {
       const from = partStart[p]!;
@@ -224,9 +223,6 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
       const batch = reader.parseBlock(Buffer.from(arena, from, to - from), 0, true, 0);
       if (batch) stats[p]!.addBatch(batch);
     }
-  } else if (stats) {
-    const addStats = createStatsFeeder(plan);
-    for (let i = 0; i < n; i++) addStats(stats[(cellOfRec[i]! / K) | 0]!, buf, ix.at[i]! * 4 + HEADER_BYTES, ix.lenTerm[i]! >>> 2);
   }
   T?.push(performance.now());
   const data = new Uint8Array(arena, base, partStart[parts]! - base);

@@ -18,7 +18,6 @@
  * depend on which was used (test/shuffle.invariants.test.ts runs both and compares them).
  */
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
-import { FieldKind } from '../io/batch.js';
 import { openInput } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import type { GatherPlan } from './plan.js';
@@ -77,6 +76,14 @@ export function partReader(plan: GatherPlan): RecordReader {
 }
 
 function newPartReader(plan: GatherPlan): RecordReader {
+  if (plan.format === 'jsonl') {
+    // Each line an object; the wanted keys are found in each (a fold key added to the records is
+    // not one of them), and their values read as the input's reader read them: a part's figures
+    // are the input's for the same records.
+    const reader = new RecordReader({ format: 'jsonl', header: false, wanted: plan.statsColumns, file: '(part output)', onBadRecord: 'fail' });
+    reader.adoptSchema({ format: 'jsonl', columns: plan.statsColumns, headerBytes: null, lineEnding: plan.lineEnding, delimiter: 0 });
+    return reader;
+  }
   const delimiter = String.fromCharCode(plan.delimiter);
   const format = plan.format === 'tsv' ? 'tsv' : 'csv';
   const reader = new RecordReader({ format, delimiter, header: false, wanted: plan.statsColumns, file: '(part output)', onBadRecord: 'fail' });
@@ -85,53 +92,10 @@ function newPartReader(plan: GatherPlan): RecordReader {
   return reader;
 }
 
-/**
- * Feeds one record's fields to a part's statistics (JSON Lines): records are parsed (slower, but
- * JSON has no cheaper honest way to find every key). A fold key in the record is not a
- * statistics column, so it is not looked at.
- */
-export function createStatsFeeder(plan: GatherPlan): (t: TableStats, b: Buffer, start: number, len: number) => void {
-  const cols = plan.statsColumns;
-  return (t, b, start, len) => {
-    let obj: Record<string, unknown>;
-    try {
-      obj = JSON.parse(b.toString('utf8', start, start + len)) as Record<string, unknown>;
-    } catch {
-      obj = {};
-    }
-    for (let c = 0; c < cols.length; c++) {
-      const v = obj[cols[c]!];
-      if (v === null || v === undefined) t.addField(c, b, 0, 0, FieldKind.Missing);
-      else {
-        const text = Buffer.from(typeof v === 'string' ? v : typeof v === 'object' ? JSON.stringify(v) : String(v), 'utf8');
-        t.addField(c, text, 0, text.length, FieldKind.Plain);
-      }
-    }
-    t.addRecordDone();
-  };
-}
-
 /** One part's statistics, read back from its file (see the top of this file). */
 export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<PartStatsResult> {
   const stats = new TableStats(plan.statsColumns);
   let skip = task.headerBytes;
-  if (plan.format === 'jsonl') {
-    // A part's JSON Lines records are one a line, as the spill held them.
-    const feed = createStatsFeeder(plan);
-    let carry: Buffer | null = null;
-    for await (const chunk of openInput(task.partFile)) {
-      const d: Buffer = carry ? Buffer.concat([carry, chunk]) : chunk;
-      let s = 0;
-      // A CR before the LF is JSON whitespace: JSON.parse passes over it.
-      for (let nl = d.indexOf(10, s); nl >= 0; nl = d.indexOf(10, s)) {
-        feed(stats, d, s, nl - s);
-        s = nl + 1;
-      }
-      carry = s < d.length ? Buffer.from(d.subarray(s)) : null;
-    }
-    if (carry) feed(stats, carry, 0, carry.length);
-    return resultOf(stats, task);
-  }
   const reader = newPartReader(plan);
   for await (const chunk of openInput(task.partFile)) {
     let c = chunk;

@@ -25,7 +25,7 @@ import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
 import { PartWriter } from '../io/part-writer.js';
-import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
+import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';

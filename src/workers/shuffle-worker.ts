@@ -26,7 +26,6 @@ import { censusBucket, type CensusTask, type GatherResult, type GatherTask } fro
 import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
 import type { PartStatsResult, PartStatsTask } from '../engine/part-stats.js';
-import type { SerializedStats } from '../core/stats.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
 
