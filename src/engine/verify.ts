@@ -278,11 +278,14 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
   let scans: PartScan[];
   if (threads > 1) {
-    // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first.
+    // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
+    // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
+    // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
     const lanes = new WorkerLanes<VerifyPartTask, SerializedPartScan, null>(resolveWorkerFile('verify-worker.js'), threads, m);
+    const limit = pLimit(2 * threads);
     try {
       scans = await Promise.all(
-        parts.map(async (p) => partDone(readPartScan(await lanes.run({ path: join(dir, p.path), display: p.path, hashes: outHashes !== null }), outHashes))),
+        parts.map((p) => limit(async () => partDone(readPartScan(await lanes.run({ path: join(dir, p.path), display: p.path, hashes: outHashes !== null }), outHashes)))),
       );
     } finally {
       await lanes.destroy();
@@ -753,9 +756,19 @@ class RecordHasher {
   }
 }
 
-/** Bytes of a file, hashed (sha256) and counted as they stream past. */
+/**
+ * Bytes of a file, hashed (sha256) and counted as they stream past. Reads of up to 1 MiB, or the
+ * file's size and one byte where that is less: a read stream takes a buffer of its read size for
+ * every read, and thousands of small parts each took a fresh 1 MiB.
+ */
 async function* hashStream(path: string, sink: { hash: ReturnType<typeof createHash>; bytes: number }): AsyncGenerator<Buffer> {
-  for await (const chunk of createReadStream(path, { highWaterMark: 1 << 20 })) {
+  let size = 1 << 20;
+  try {
+    size = Math.max(1, Math.min(size, statSync(path).size + 1));
+  } catch {
+    // The read reports it.
+  }
+  for await (const chunk of createReadStream(path, { highWaterMark: size })) {
     const b = chunk as Buffer;
     sink.hash.update(b);
     sink.bytes += b.length;

@@ -45,7 +45,15 @@ async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
     throw ioError(err, path, 'opening');
   }
   try {
-    const bufs = [Buffer.allocUnsafeSlow(READ_CHUNK_BYTES), Buffer.allocUnsafeSlow(READ_CHUNK_BYTES)];
+    // Sized for a small file (one byte more, to see its end in one read): thousands of small
+    // parts read back, each with two 1 MiB buffers, kept the collector and the page faults busy.
+    let size = READ_CHUNK_BYTES;
+    try {
+      size = Math.max(1, Math.min(READ_CHUNK_BYTES, (await fh.stat()).size + 1));
+    } catch {
+      // The read below reports what is wrong.
+    }
+    const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
     let turn = 0;
     let first = true;
     for (;;) {
