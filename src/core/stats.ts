@@ -90,8 +90,9 @@ export interface SummaryOptions {
 /**
  * Serialised column state: plain JSON data. Below the distinct cap the value table is the whole
  * state (every figure derives from it), so only it is kept, packed: all keys' bytes in one latin1
- * string, with their lengths and counts, sorted by key. (A pair of a string and a count for each
- * value took ~100 bytes of heap: 2,000 columns of a few hundred values came to ~80 MB.)
+ * string, with their lengths and counts; sorted by key in toJSON(), in the table's order in
+ * toTransfer(). (A pair of a string and a count for each value took ~100 bytes of heap: 2,000
+ * columns of a few hundred values came to ~80 MB.)
  */
 export type SerializedColumn = SerializedExactColumn | SerializedEstimatedColumn;
 

@@ -11,9 +11,10 @@
  * A part's tables hold up to the distinct cap of values a column (then a fixed-size estimate):
  * measured ~0.63 MiB a part and lane for the 10 columns of the benchmark files (values of up to
  * ~60 bytes; 1.2 MiB before the value tables were made leaner), and ~100 MiB more at the peak
- * for 64 parts on two lanes than for 8 (~80 KB a column and lane), hence STATS_BYTES_PER_COLUMN. The lanes keep the tables only while the parts times
- * the lanes fit in a quarter of the memory budget (or in READ_BACK_BYTES, what reading back costs
- * itself); past that, the parts are read back. Both ways feed the same records to the same kind
+ * for 64 parts on two lanes than for 8 (~80 KB a column and lane), hence STATS_BYTES_PER_COLUMN.
+ * The lanes keep the tables only while the parts times the lanes fit in a quarter of the memory
+ * budget (or in READ_BACK_BYTES, what reading back costs itself); past that, the parts are read
+ * back. Both ways feed the same records to the same kind
  * of table, and TableStats merges exactly and without regard to order, so the manifest does not
  * depend on which was used (test/shuffle.invariants.test.ts runs both and compares them).
  */
@@ -110,10 +111,6 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Pr
   }
   const last = reader.end();
   if (last) stats.addBatch(last);
-  return resultOf(stats, task);
-}
-
-function resultOf(stats: TableStats, task: PartStatsTask): PartStatsResult {
   stats.releaseKernel();
   return { summary: stats.summary({ excludeValues: task.excludeValues }), stats: stats.toTransfer() };
 }

@@ -630,7 +630,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // dealt; merged in lane order (the merge is exact, so the order does not change the result).
     const finals = await pool.finish();
     if (partStats) {
-      for (const f of finals) f?.forEach((t, p) => partStats[p]!.merge(TableStats.fromJSON(t)));
+      for (const f of finals) f?.forEach((t, p) => partStats[p]!.mergeSerialized(t));
       partStats.forEach((t, p) => partDone(p, t));
     }
     await pool.destroy();
