@@ -199,11 +199,14 @@ export async function* readRecords(
   opts: ReadRecordsOptions,
 ): AsyncGenerator<{ input: number; batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
   let expected: { columns: string[]; from: string } | undefined;
+  // Everything is read on this thread: any small file may be read ahead (see ReadAhead).
+  const ahead = new ReadAhead(paths, READ_AHEAD_MAX_BYTES);
   for (let k = 0; k < paths.length; k++) {
     const path = paths[k]!;
     const ro = inputReaderOptions(path, opts, expected);
     let schema: InputSchema | null = null;
-    for await (const got of readInput(path, ro)) {
+    const whole = await ahead.take(k);
+    for await (const got of whole ? readBytes(whole, ro) : readInput(path, ro)) {
       schema = got.schema;
       yield { input: k, ...got };
     }
