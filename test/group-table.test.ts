@@ -3,7 +3,11 @@
  * buckets give them, joined in order, with mixed classes and classes listed more than once.
  */
 import { describe, expect, it } from 'vitest';
+import { existsSync, mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { GroupTable, type GroupTableData } from '../src/core/group-table.js';
+import { GroupTableBuilder } from '../src/engine/group-census.js';
 import { createRandom } from './helpers/engine.js';
 
 /** A bucket's list: `count` groups, each with a first class and sometimes others. */
@@ -53,5 +57,35 @@ describe('GroupTable', () => {
     }
     // The test of the test: many groups hold several classes, and one class listed twice adds up.
     expect(several).toBeGreaterThan(300);
+  });
+});
+
+describe('GroupTableBuilder', () => {
+  it('gives the table concat gives, the lists added in any order (written to a file as their turn comes)', () => {
+    const dir = mkdtempSync(join(tmpdir(), 'rowdeck-groups-'));
+    try {
+      const rnd = createRandom(17);
+      const ref = new Map<string, Map<number, number>>();
+      const lists = [120, 0, 3000, 1, 45, 0, 700].map((n) => makeList(rnd, n, 5, ref));
+      const path = join(dir, 'census.bin');
+      const b = new GroupTableBuilder(path);
+      for (const k of [3, 0, 6, 1, 5, 2, 4]) b.add(k, lists[k]!);
+      const t = b.build();
+      const want = GroupTable.concat(lists);
+      expect(t.count).toBe(want.count);
+      expect(Array.from(t.hi)).toEqual(Array.from(want.hi));
+      expect(Array.from(t.lo)).toEqual(Array.from(want.lo));
+      expect(Array.from(t.records)).toEqual(Array.from(want.records));
+      expect(Array.from(t.first)).toEqual(Array.from(want.first));
+      for (let g = 0; g < t.count; g++) expect(t.strataOf(g)).toEqual(want.strataOf(g));
+      expect(existsSync(path)).toBe(false);
+      // A list that never comes is an error, and the file goes either way.
+      const c = new GroupTableBuilder(path);
+      c.add(1, lists[1]!);
+      expect(() => c.build()).toThrow(/bucket 0 never came back/);
+      expect(existsSync(path)).toBe(false);
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
   });
 });

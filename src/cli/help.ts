@@ -43,7 +43,7 @@ Dealing:
                           written; the achieved value is recorded in the manifest.
   --group COL             keep all records with the same COL value in one part (whole groups are
                           dealt, balancing classes as well as they allow); the groups are held
-                          in memory beside --memory while they are placed: ~50 bytes each
+                          in memory beside --memory while they are placed: ~30 bytes each
   --assign exact|hash     exact quotas (default), or hash: a record's part is a pure function of
                           its --key and the seed, so appended records never move old ones
   --key COL[,COL]         columns that identify a record (required with --assign hash)

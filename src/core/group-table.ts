@@ -52,14 +52,35 @@ export class GroupTable {
       t.lo.set(d.lo.subarray(0, d.count), base);
       t.records.set(d.records.subarray(0, d.count), base);
       t.first.set(d.first.subarray(0, d.count), base);
-      for (let j = 0; j < d.extra.length; j += 3) {
-        const g = base + d.extra[j]!;
-        let m = t.extra.get(g);
-        if (!m) t.extra.set(g, (m = new Map()));
-        m.set(d.extra[j + 1]!, (m.get(d.extra[j + 1]!) ?? 0) + d.extra[j + 2]!);
-      }
+      t.addExtra(base, d.extra);
       base += d.count;
     }
+    return t;
+  }
+
+  /** A list's [group, class, records] triples, its groups numbered from `base`. */
+  private addExtra(base: number, extra: Float64Array): void {
+    for (let j = 0; j < extra.length; j += 3) {
+      const g = base + extra[j]!;
+      let m = this.extra.get(g);
+      if (!m) this.extra.set(g, (m = new Map()));
+      m.set(extra[j + 1]!, (m.get(extra[j + 1]!) ?? 0) + extra[j + 2]!);
+    }
+  }
+
+  /**
+   * concat() of lists kept elsewhere (see GroupTableBuilder in src/engine/group-census.ts):
+   * `counts[k]` groups in list k, its classes other than the first in `extras[k]`, and its arrays
+   * read by `readInto` in order, list by list: hi, lo, records, first.
+   */
+  static assemble(counts: readonly number[], extras: readonly Float64Array[], readInto: (bytes: Uint8Array) => void): GroupTable {
+    const t = new GroupTable(counts.reduce((a, c) => a + c, 0));
+    let base = 0;
+    counts.forEach((c, k) => {
+      for (const a of [t.hi, t.lo, t.records, t.first]) readInto(new Uint8Array(a.buffer, a.byteOffset + base * a.BYTES_PER_ELEMENT, c * a.BYTES_PER_ELEMENT));
+      t.addExtra(base, extras[k]!);
+      base += c;
+    });
     return t;
   }
 
@@ -74,3 +95,4 @@ export class GroupTable {
     return out.sort((a, b) => a[0] - b[0]);
   }
 }
+

@@ -10,7 +10,7 @@
  * Spill files live in their own hidden folder, removed on success and on failure.
  */
 import { rm } from 'node:fs/promises';
-import { closeSync, mkdirSync, mkdtempSync, openSync, readdirSync, readSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import { closeSync, mkdirSync, mkdtempSync, openSync, readdirSync, readSync, renameSync, rmSync, statSync, writeFileSync, writeSync } from 'node:fs';
 import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { existsSync } from 'node:fs';
@@ -20,7 +20,8 @@ import pLimit from 'p-limit';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
-import { GroupTable, type GroupTableData } from '../core/group-table.js';
+import type { GroupTable, GroupTableData } from '../core/group-table.js';
+import { GroupTableBuilder } from './group-census.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
@@ -436,20 +437,24 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     } else {
       // The groups, counted bucket by bucket from the spill (on the lanes): in key order, since
       // buckets are ranges of keys and each bucket's groups come sorted.
-      const census: GroupTableData[] = new Array(buckets);
-      let counted = 0;
-      const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
-      await eachAtOnce(buckets, Math.max(1, threads) * 2, async (b) => {
-        const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
-        if (threads === 0 || !lanes) {
-          census[b] = censusBucket(task);
-          // On this thread: let signals (Ctrl-C cleans up) and progress in between buckets.
-          await new Promise<void>((resolve) => setImmediate(resolve));
-        } else census[b] = await lanes.run(task);
-        o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
-      });
-      const groups = GroupTable.concat(census);
-      census.length = 0;
+      const census = new GroupTableBuilder(join(spillDir, 'groups-census.bin'));
+      let groups: GroupTable;
+      try {
+        let counted = 0;
+        const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
+        await eachAtOnce(buckets, Math.max(1, threads) * 2, async (b) => {
+          const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
+          if (threads === 0 || !lanes) {
+            census.add(b, censusBucket(task));
+            // On this thread: let signals (Ctrl-C cleans up) and progress in between buckets.
+            await new Promise<void>((resolve) => setImmediate(resolve));
+          } else census.add(b, await lanes.run(task));
+          o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
+        });
+        groups = census.build();
+      } finally {
+        census.close();
+      }
       const n = groups.count;
       const { hi, lo, records, first } = groups;
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
@@ -461,16 +466,13 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
         else cellCounts[placed[g]! * nStrata + first[g]!]! += records[g]!;
       }
-      // Sorted (hi, lo) -> cell table for the workers.
-      const bin = new Uint32Array(n * 3);
-      bin.set(hi, 0);
-      bin.set(lo, n);
-      bin.set(placed, 2 * n);
+      // Sorted (hi, lo) -> cell table for the workers: hi, lo, then the cells (written from the
+      // table's arrays, not a copy of them).
       groupsFile = 'groups.bin';
-      writeFileSync(join(spillDir, groupsFile), bin);
+      writeArrays(join(spillDir, groupsFile), [hi, lo, placed]);
       // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
       groupStarts = new Array<number>(buckets + 1).fill(0);
-      for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : bin[k]! >>> (32 - bits)) + 1]!++;
+      for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : hi[k]! >>> (32 - bits)) + 1]!++;
       for (let b = 0; b < buckets; b++) groupStarts[b + 1]! += groupStarts[b]!;
     }
 
@@ -720,6 +722,19 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     if (pool) await pool.destroy().catch(() => {});
     await cleanup.runConcurrently().catch(() => cleanup.run());
     unhook();
+  }
+}
+
+/** Writes typed arrays one after the other into a new file. */
+function writeArrays(path: string, arrays: (Uint32Array | Int32Array | Float64Array)[]): void {
+  const fd = openSync(path, 'w');
+  try {
+    for (const a of arrays) {
+      const view = new Uint8Array(a.buffer, a.byteOffset, a.byteLength);
+      for (let put = 0; put < view.length; ) put += writeSync(fd, view, put, view.length - put);
+    }
+  } finally {
+    closeSync(fd);
   }
 }
 
