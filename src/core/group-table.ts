@@ -43,21 +43,6 @@ export class GroupTable {
     this.first = new Int32Array(n);
   }
 
-  /** One table of groups counted apart (no key in two of the lists), in the order given. */
-  static concat(list: GroupTableData[]): GroupTable {
-    const t = new GroupTable(list.reduce((a, d) => a + d.count, 0));
-    let base = 0;
-    for (const d of list) {
-      t.hi.set(d.hi.subarray(0, d.count), base);
-      t.lo.set(d.lo.subarray(0, d.count), base);
-      t.records.set(d.records.subarray(0, d.count), base);
-      t.first.set(d.first.subarray(0, d.count), base);
-      t.addExtra(base, d.extra);
-      base += d.count;
-    }
-    return t;
-  }
-
   /** A list's [group, class, records] triples, its groups numbered from `base`. */
   private addExtra(base: number, extra: Float64Array): void {
     for (let j = 0; j < extra.length; j += 3) {
@@ -69,9 +54,10 @@ export class GroupTable {
   }
 
   /**
-   * concat() of lists kept elsewhere (see GroupTableBuilder in src/engine/group-census.ts):
-   * `counts[k]` groups in list k, its classes other than the first in `extras[k]`, and its arrays
-   * read by `readInto` in order, list by list: hi, lo, records, first.
+   * One table of lists of groups counted apart (no key in two of them), joined in the order
+   * given: `counts[k]` groups in list k, its classes other than the first in `extras[k]`, and its
+   * arrays read by `readInto` in order, list by list: hi, lo, records, first. The lists are kept
+   * in a file until then (GroupTableBuilder in src/engine/group-census.ts).
    */
   static assemble(counts: readonly number[], extras: readonly Float64Array[], readInto: (bytes: Uint8Array) => void): GroupTable {
     const t = new GroupTable(counts.reduce((a, c) => a + c, 0));

@@ -8,7 +8,7 @@ import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 
 /**
- * Joins the buckets' lists in bucket order, as GroupTable.concat does, without holding them all:
+ * Joins the buckets' lists in bucket order (GroupTable.assemble) without holding them all:
  * the lists come back in any order, and each is written to a file as soon as it and every one
  * before it are in, keeping only its classes other than the first (few, as a rule). build() then
  * reads the file into one table. Holding every list and then the joined table took ~40 bytes a
