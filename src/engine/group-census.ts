@@ -32,11 +32,7 @@ export class GroupTableBuilder {
     this.#waiting.set(index, d);
     for (let next = this.#waiting.get(this.#counts.length); next; next = this.#waiting.get(this.#counts.length)) {
       this.#waiting.delete(this.#counts.length);
-      for (const a of [next.hi, next.lo, next.records, next.first]) {
-        const view = new Uint8Array(a.buffer, a.byteOffset, next.count * a.BYTES_PER_ELEMENT);
-        for (let put = 0; put < view.length; ) put += writeSync(this.#fd, view, put, view.length - put, this.#at + put);
-        this.#at += view.length;
-      }
+      this.#at = writeArraysAt(this.#fd, [next.hi, next.lo, next.records, next.first].map((a) => a.subarray(0, next.count)), this.#at);
       this.#counts.push(next.count);
       this.#extras.push(next.extra);
     }
@@ -67,4 +63,24 @@ export class GroupTableBuilder {
     this.#fd = -1;
     rmSync(this.#path, { force: true });
   }
+}
+
+/** The sorted key -> cell table for the lanes (groups.bin): the keys' hi and lo words, then the cells. */
+export function writeGroupsFile(path: string, hi: Uint32Array, lo: Uint32Array, cells: Uint32Array): void {
+  const fd = openSync(path, 'w');
+  try {
+    writeArraysAt(fd, [hi, lo, cells], 0);
+  } finally {
+    closeSync(fd);
+  }
+}
+
+/** Writes typed arrays one after the other from byte `at` of a file; returns where they end. */
+function writeArraysAt(fd: number, arrays: (Uint32Array | Int32Array | Float64Array)[], at: number): number {
+  for (const a of arrays) {
+    const view = new Uint8Array(a.buffer, a.byteOffset, a.byteLength);
+    for (let put = 0; put < view.length; ) put += writeSync(fd, view, put, view.length - put, at + put);
+    at += view.length;
+  }
+  return at;
 }

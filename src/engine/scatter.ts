@@ -19,7 +19,7 @@ import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, fieldText } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { inputReaderOptions, isPlainFile, readBytes, readInput, ReadAhead } from '../io/input.js';
+import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -542,7 +542,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         seen.records = totals.records;
         seen.rejected = totals.rejected;
       } else {
-        for await (const { batch, schema: sch, stats } of whole ? readBytes(whole, ro) : readInput(path, ro)) {
+        for await (const { batch, schema: sch, stats } of readInput(path, ro, whole)) {
           await send(batch, k, sch);
           seen.records += batch.count;
           seen.bytes = stats.bytes;

@@ -10,7 +10,7 @@
  * Spill files live in their own hidden folder, removed on success and on failure.
  */
 import { rm } from 'node:fs/promises';
-import { closeSync, mkdirSync, mkdtempSync, openSync, readdirSync, readSync, renameSync, rmSync, statSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, mkdirSync, mkdtempSync, openSync, readdirSync, readSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { basename, dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { existsSync } from 'node:fs';
@@ -21,7 +21,7 @@ import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core
 import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import type { GroupTable, GroupTableData } from '../core/group-table.js';
-import { GroupTableBuilder } from './group-census.js';
+import { GroupTableBuilder, writeGroupsFile } from './group-census.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
@@ -466,10 +466,9 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
         else cellCounts[placed[g]! * nStrata + first[g]!]! += records[g]!;
       }
-      // Sorted (hi, lo) -> cell table for the workers: hi, lo, then the cells (written from the
-      // table's arrays, not a copy of them).
+      // Sorted (hi, lo) -> cell table for the workers, written from the table's arrays.
       groupsFile = 'groups.bin';
-      writeArrays(join(spillDir, groupsFile), [hi, lo, placed]);
+      writeGroupsFile(join(spillDir, groupsFile), hi, lo, placed);
       // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
       groupStarts = new Array<number>(buckets + 1).fill(0);
       for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : hi[k]! >>> (32 - bits)) + 1]!++;
@@ -722,19 +721,6 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     if (pool) await pool.destroy().catch(() => {});
     await cleanup.runConcurrently().catch(() => cleanup.run());
     unhook();
-  }
-}
-
-/** Writes typed arrays one after the other into a new file. */
-function writeArrays(path: string, arrays: (Uint32Array | Int32Array | Float64Array)[]): void {
-  const fd = openSync(path, 'w');
-  try {
-    for (const a of arrays) {
-      const view = new Uint8Array(a.buffer, a.byteOffset, a.byteLength);
-      for (let put = 0; put < view.length; ) put += writeSync(fd, view, put, view.length - put);
-    }
-  } finally {
-    closeSync(fd);
   }
 }
 

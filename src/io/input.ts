@@ -206,7 +206,7 @@ export async function* readRecords(
     const ro = inputReaderOptions(path, opts, expected);
     let schema: InputSchema | null = null;
     const whole = await ahead.take(k);
-    for await (const got of whole ? readBytes(whole, ro) : readInput(path, ro)) {
+    for await (const got of readInput(path, ro, whole)) {
       schema = got.schema;
       yield { input: k, ...got };
     }
@@ -214,27 +214,22 @@ export async function* readRecords(
   }
 }
 
-/** Reads one input with the given reader options, batch by batch (each valid until the next). */
+/**
+ * Reads one input with the given reader options, batch by batch (each valid until the next):
+ * from `whole`, its bytes when they were read already (see ReadAhead), else from its path.
+ */
 export async function* readInput(
   path: string,
   ro: RecordReaderOptions,
+  whole: Buffer | null = null,
 ): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
   const reader = new RecordReader(ro);
-  for await (const chunk of openInput(path)) {
+  for await (const chunk of whole ? [whole] : openInput(path)) {
     const batch = reader.push(chunk);
     if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
   }
   const batch = reader.end();
   if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
-}
-
-/** The records of an input read whole (see ReadAhead), as readInput gives them. */
-export function* readBytes(bytes: Buffer, ro: RecordReaderOptions): Generator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
-  const reader = new RecordReader(ro);
-  const batch = reader.push(bytes);
-  if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
-  const last = reader.end();
-  if (last) yield { batch: last, schema: reader.schema!, stats: reader.stats };
 }
 
 /** Largest input ReadAhead reads ahead, and how many it has in flight. */
@@ -299,17 +294,15 @@ export class ReadAhead {
 
   /** A regular file of at most the limit, read into a pooled buffer; or null (a pipe is not even opened). */
   async #readSmall(path: string): Promise<{ bytes: Buffer; buffer: Buffer } | null> {
-    const first = await stat(path);
-    if (!first.isFile() || first.size > this.#limit) return null;
+    const st = await stat(path);
+    if (!st.isFile() || st.size > this.#limit) return null;
     const fh = await open(path, 'r');
     let buffer: Buffer | null = null;
     try {
-      const st = await fh.stat();
-      if (!st.isFile() || st.size > this.#limit) return null;
       buffer = this.#pool.pop() ?? null;
       if (buffer === null || buffer.length < st.size + 1) buffer = Buffer.allocUnsafeSlow(Math.max(st.size + 1, 64 << 10));
-      // One byte more than the size: a file that grew or shrank meanwhile is read the usual way,
-      // which reports it.
+      // One byte more than the size: a file that grew or shrank since it was looked at is read
+      // the usual way, which reports it.
       const { bytesRead } = await fh.read(buffer, 0, st.size + 1, 0);
       if (bytesRead !== st.size) return null;
       const got = { bytes: buffer.subarray(0, st.size), buffer };
