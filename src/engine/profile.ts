@@ -6,6 +6,10 @@
  *                ─▶ packBatch ─▶ profile worker k (≤ 2 batches in flight each) ─▶ buffer back
  *   finish ─▶ each worker returns its serialised TableStats and stratum counts ─▶ exact merge
  *
+ * Inputs of COLUMN_SHARE_MIN columns or more are shared out by column instead: every batch is
+ * read here and goes to every worker, each keeps the statistics of its own run of columns, and
+ * their tables are put side by side at the end (joinColumnShares), not merged.
+ *
  * The statistics merge exactly and without regard to order (see core/stats.ts), and stratum
  * counts are sums, so the profile does not depend on the thread count or on which worker saw
  * which batch. Strata use the same keys as `shuffle` (fieldKey, quantile bin labels), so a
@@ -225,6 +229,41 @@ export interface ProfileTaskConfig {
   files: string[];
   /** Stratify columns: index into `columns`, name, and quantile bin edges or null. */
   stratify: { column: number; name: string; edges: number[] | null }[];
+  /**
+   * 0: the task keeps statistics of every column (of the records it is given). N > 0: the
+   * columns are shared among N tasks, each given every record (see COLUMN_SHARE_MIN); the task
+   * of lane k keeps those of `columnShare(columns.length, N, k)`, and only lane 0 counts classes.
+   */
+  columnShares: number;
+}
+
+/**
+ * Inputs at least this wide share their columns among the threads, not their records. Each
+ * thread then keeps statistics of its own columns over every record (read on the calling thread
+ * and sent to each), so its tables are a share of the input's and nothing is merged at the end.
+ * With records shared out, every thread held tables for every column and the merge cost as
+ * much again: on 2,002 columns x 5,000 records two threads took longer than one, at twice the
+ * memory (docs/benchmarks.md, "Wide inputs"). Narrower inputs keep sharing records: parsing them
+ * is then the larger cost, and it is spread over the threads.
+ */
+export const COLUMN_SHARE_MIN = 256;
+
+/** The columns [from, to) that lane `lane` of `lanes` keeps: contiguous runs whose sizes differ by at most one. */
+export function columnShare(columns: number, lanes: number, lane: number): { from: number; to: number } {
+  return { from: Math.floor((lane * columns) / lanes), to: Math.floor(((lane + 1) * columns) / lanes) };
+}
+
+/**
+ * One result of column-sharing lanes (in lane order): their columns side by side, the records
+ * and classes of lane 0 (every lane saw every record).
+ */
+export function joinColumnShares(columns: string[], results: ProfileTaskResult[]): ProfileTaskResult {
+  const first = results[0];
+  const joined = results.flatMap((r) => r.stats.columns);
+  if (!first || joined.length !== columns.length || joined.some((c, i) => c !== columns[i]) || results.some((r) => r.stats.records !== first.stats.records)) {
+    throw new RowdeckError('ERR_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
+  }
+  return { stats: { ...first.stats, columns: columns.slice(), stats: results.flatMap((r) => r.stats.stats) }, strata: first.strata };
 }
 
 export interface ProfileTaskResult {
@@ -273,10 +312,19 @@ export class ProfileTask {
   readonly #fast = new ByteCounter();
   /** One plain stratify column without bins: counted by bytes. */
   readonly #single: boolean;
+  /** The columns this task keeps, [from, to) of `columns` (all but with column shares). */
+  readonly #from: number;
+  readonly #to: number;
+  readonly #countsStrata: boolean;
 
-  constructor(c: ProfileTaskConfig) {
+  /** `lane`: which share of the columns this task keeps, where the config shares them. */
+  constructor(c: ProfileTaskConfig, lane = 0) {
     this.#c = c;
-    this.#stats = new TableStats(c.columns);
+    const share = c.columnShares > 0 ? columnShare(c.columns.length, c.columnShares, lane) : { from: 0, to: c.columns.length };
+    this.#from = share.from;
+    this.#to = share.to;
+    this.#countsStrata = c.stratify.length > 0 && (c.columnShares === 0 || lane === 0);
+    this.#stats = new TableStats(c.columns.slice(share.from, share.to));
     this.#single = c.stratify.length === 1 && c.stratify[0]!.edges === null;
   }
 
@@ -293,23 +341,27 @@ export class ProfileTask {
 
   addBatch(batch: RecordBatch, input: number): void {
     const map = this.#maps[input] ?? null;
-    if (map === null) this.#stats.addBatch(batch);
+    if (map === null) this.#stats.addBatch(batch, this.#from);
     else this.#addMapped(batch, map);
-    if (this.#c.stratify.length > 0) this.#countStrata(batch, input);
+    if (this.#countsStrata) this.#countStrata(batch, input);
   }
 
   /** A batch holding some of the columns (a later JSON Lines input without some keys): the rest are missing. */
   #addMapped(batch: RecordBatch, map: Int32Array): void {
     const t = this.#stats;
     const W = batch.wanted;
+    const from = this.#from;
+    const to = this.#to;
     const present = new Uint8Array(this.#c.columns.length);
     for (let w = 0; w < W; w++) present[map[w]!] = 1;
     for (let i = 0; i < batch.count; i++) {
       for (let w = 0; w < W; w++) {
+        const col = map[w]!;
+        if (col < from || col >= to) continue;
         const k = i * W + w;
-        t.addField(map[w]!, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
+        t.addField(col - from, batch.data, batch.fieldStart[k]!, batch.fieldEnd[k]!, batch.fieldKind[k]! as FieldKind);
       }
-      for (let col = 0; col < present.length; col++) if (!present[col]) t.addField(col, batch.data, 0, 0, FieldKind.Missing);
+      for (let col = from; col < to; col++) if (!present[col]) t.addField(col - from, batch.data, 0, 0, FieldKind.Missing);
       t.addRecordDone();
     }
   }
@@ -487,18 +539,20 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
 
   // Started once the first input's columns are known (they size the statistics).
   type Lanes = WorkerLanes<ProfileMessage, BlockReply, ProfileTaskResult>;
-  const run: { inline: ProfileTask | null; lanes: Lanes | null; sender: BatchSender | null } = { inline: null, lanes: null, sender: null };
+  const run: { inline: ProfileTask | null; lanes: Lanes | null; sender: BatchSender | null; columnShares: boolean } = { inline: null, lanes: null, sender: null, columnShares: false };
   const start = (cols: string[]): void => {
     const stratify = o.stratify.map((s) => {
       const column = cols.indexOf(s.name);
       if (column < 0) throw unknownColumn(s.name, cols, files[0]!);
       return { column, name: s.name, edges: s.bins > 0 ? (binEdges.find((b) => b.column === s.name)?.edges ?? []) : null };
     });
-    const config: ProfileTaskConfig = { columns: cols, files, stratify };
+    const columnShares = o.threads >= 2 && cols.length >= COLUMN_SHARE_MIN ? o.threads : 0;
+    const config: ProfileTaskConfig = { columns: cols, files, stratify, columnShares };
     if (o.threads === 0) run.inline = new ProfileTask(config);
     else {
       run.lanes = new WorkerLanes(resolveWorkerFile('profile-worker.js'), o.threads, config);
-      run.sender = new BatchSender(run.lanes);
+      run.sender = new BatchSender(run.lanes, columnShares > 0);
+      run.columnShares = columnShares > 0;
     }
   };
 
@@ -532,9 +586,10 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       const lanes = run.lanes;
       // Every worker learns the input's columns before any of its records (each lane is in order).
       if (lanes) for (let lane = 0; lane < lanes.size; lane++) void lanes.runOn(lane, { kind: 'columns', input: k, map: plan.map }).catch(() => {});
-      // Plain files are parsed by the workers in blocks; stdin and gzip are read here.
+      // Plain files are parsed by the workers in blocks; stdin and gzip are read here, and so is
+      // every input when the workers share out columns (each of them takes every record).
       let totals: InputTotals | null = null;
-      if (!whole && lanes && (await isPlainFile(path))) {
+      if (!whole && lanes && !run.columnShares && (await isPlainFile(path))) {
         await it.return?.(undefined);
         totals = await readInBlocks({
           path,
@@ -591,6 +646,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       await run.sender?.drain();
       results = await run.lanes.finish();
       await run.lanes.destroy();
+      if (run.columnShares) results = [joinColumnShares(cols, results)];
     } else results = [];
     const readMs = Date.now() - tRead;
     return buildProfile(o, { columns: cols, results, inputs, rejects, binEdges, secret, binsMs, readMs, t0 });

@@ -401,28 +401,39 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
 export interface BatchLanes {
   readonly size: number;
   run(m: { kind: 'batch'; buffer: ArrayBuffer }, transfer: ArrayBuffer[]): Promise<BlockReply>;
+  runOn(lane: number, m: { kind: 'batch'; buffer: ArrayBuffer }, transfer: ArrayBuffer[]): Promise<BlockReply>;
 }
 
 /**
  * Posts batches read on the main thread to worker lanes as packed buffers: at most two waiting
  * or running per worker (bounded memory, and the reader pauses), each buffer coming back for
- * reuse (allocating ~1 MiB per batch costs page faults).
+ * reuse (allocating ~1 MiB per batch costs page faults). A batch goes to one lane, or with
+ * `everyLane` to each of them (lanes that share out columns, see `columnShare` in profile.ts).
  */
 export class BatchSender {
   readonly #lanes: BatchLanes;
+  readonly #everyLane: boolean;
   readonly #spare: ArrayBuffer[] = [];
   readonly #running = new Set<Promise<void>>();
 
-  constructor(lanes: BatchLanes) {
+  constructor(lanes: BatchLanes, everyLane = false) {
     this.#lanes = lanes;
+    this.#everyLane = everyLane;
   }
 
+  /** Sends a batch; the batch may be reused once this resolves (it is copied). */
   async send(batch: RecordBatch, input: number): Promise<void> {
     if (batch.count === 0) return;
+    if (!this.#everyLane) return this.#post(batch, input, -1);
+    for (let lane = 0; lane < this.#lanes.size; lane++) await this.#post(batch, input, lane);
+  }
+
+  /** Packs and posts one copy of the batch, to `lane` or (-1) to any lane. */
+  async #post(batch: RecordBatch, input: number, lane: number): Promise<void> {
     while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
     const buffer = packBatch(batch, input, this.#spare.pop());
-    const p: Promise<void> = this.#lanes
-      .run({ kind: 'batch', buffer }, [buffer])
+    const m = { kind: 'batch', buffer } as const;
+    const p: Promise<void> = (lane < 0 ? this.#lanes.run(m, [buffer]) : this.#lanes.runOn(lane, m, [buffer]))
       .then((back) => void (back.kind === 'released' && this.#spare.push(back.buffer)))
       .finally(() => this.#running.delete(p));
     p.catch(() => {});

@@ -10,8 +10,8 @@ import { unpackBatch } from '../engine/scatter.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
 
-const { data } = workerData as { lane: number; data: ProfileTaskConfig };
-const task = new ProfileTask(data);
+const { lane, data } = workerData as { lane: number; data: ProfileTaskConfig };
+const task = new ProfileTask(data, lane);
 const blocks = new BlockHost((batch, input) => task.addBatch(batch, input));
 
 serveLane<ProfileMessage, BlockReply, ProfileTaskResult>(
