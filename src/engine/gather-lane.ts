@@ -12,7 +12,12 @@ import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type Buc
 import { statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
 
-export type GatherFinal = SerializedStats[] | null;
+/**
+ * What a lane hands over at the end of stage 2 with `--stats`: every part's statistics over the
+ * buckets it dealt (where the lanes keep them), or its table of the parts it read back (merged
+ * as it read them); null without --stats.
+ */
+export type GatherFinal = { parts: SerializedStats[] } | { readBack: SerializedStats } | null;
 
 export function loadGatherPlan(planPath: string): PreparedPlan {
   const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
@@ -53,9 +58,9 @@ function readBucketGroups(file: string, starts: number[], bucket: number): Bucke
 export interface GatherLane {
   /** Deals one bucket; the result's bytes may be handed over without copying. */
   handle(task: GatherTask): { result: GatherResult; transfer: ArrayBuffer[] };
-  /** One part's statistics, read back from its file once every bucket is dealt. */
+  /** One part's statistics, read back from its file once every bucket is dealt: its summary (the table stays with the lane). */
   partStats(task: PartStatsTask): Promise<{ result: PartStatsResult }>;
-  /** Every part's statistics over the buckets this lane dealt (null unless the lanes keep them). */
+  /** The statistics this lane kept (see GatherFinal). */
   finish(): { final: GatherFinal };
 }
 
@@ -63,6 +68,8 @@ export function gatherLane(planPath: string): GatherLane {
   const prep = loadGatherPlan(planPath);
   const { plan } = prep;
   const stats = plan.statsColumns.length > 0 && plan.statsInLanes ? Array.from({ length: plan.deal.splits.length * plan.deal.partitions }, () => new TableStats(plan.statsColumns)) : null;
+  // The parts this lane read back, merged (exact and order-free, like every merge of statistics).
+  let readBack: TableStats | null = null;
   return {
     handle(task) {
       const result = gatherBucket(prep, task, stats);
@@ -70,7 +77,13 @@ export function gatherLane(planPath: string): GatherLane {
       const counts = c instanceof Float64Array ? [c.buffer as ArrayBuffer] : [c.index.buffer as ArrayBuffer, c.value.buffer as ArrayBuffer];
       return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
     },
-    partStats: async (task) => ({ result: await statsOfPartFile(plan, task) }),
-    finish: () => ({ final: stats ? stats.map((t) => t.toTransfer()) : null }),
+    partStats: async (task) => {
+      const t = await statsOfPartFile(plan, task);
+      const summary = t.summary({ excludeValues: task.excludeValues });
+      if (readBack) readBack.merge(t);
+      else readBack = t;
+      return { result: { summary } };
+    },
+    finish: () => ({ final: stats ? { parts: stats.map((t) => t.toTransfer()) } : readBack ? { readBack: readBack.toTransfer() } : null }),
   };
 }

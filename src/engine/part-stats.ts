@@ -18,7 +18,7 @@
  * of table, and TableStats merges exactly and without regard to order, so the manifest does not
  * depend on which was used (test/shuffle.invariants.test.ts runs both and compares them).
  */
-import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
+import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { openInput } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import type { GatherPlan } from './plan.js';
@@ -41,13 +41,13 @@ export interface PartStatsTask {
 }
 
 /**
- * A part's statistics read back: its summary for the manifest, made where it was read, and its
- * table for the whole input's (merged from this form, see TableStats.mergeSerialized). The
- * calling thread only merges, so it keeps up with the lanes on wide inputs.
+ * A part's statistics read back: its summary for the manifest, made where it was read. Its table
+ * stays there too, merged into the lane's table of every part it read (handed over once, when the
+ * lane finishes, see GatherFinal): sending each part's table to the calling thread to be merged
+ * there kept that thread busy receiving and merging while the lanes waited (wide inputs).
  */
 export interface PartStatsResult {
   summary: ColumnSummary[];
-  stats: SerializedStats;
 }
 
 /**
@@ -94,7 +94,7 @@ function newPartReader(plan: GatherPlan): RecordReader {
 }
 
 /** One part's statistics, read back from its file (see the top of this file). */
-export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<PartStatsResult> {
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<TableStats> {
   const stats = new TableStats(plan.statsColumns);
   let skip = task.headerBytes;
   const reader = newPartReader(plan);
@@ -112,5 +112,5 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Pr
   const last = reader.end();
   if (last) stats.addBatch(last);
   stats.releaseKernel();
-  return { summary: stats.summary({ excludeValues: task.excludeValues }), stats: stats.toTransfer() };
+  return stats;
 }

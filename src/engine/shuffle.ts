@@ -34,8 +34,8 @@ import { scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type Scat
 import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
-import { gatherLane, type GatherFinal } from './gather-lane.js';
-import { statsInLanes, statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
+import { gatherLane, type GatherFinal, type GatherLane } from './gather-lane.js';
+import { statsInLanes, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import { HEADER_BYTES, spillRanges } from './spill.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
@@ -545,8 +545,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       return start;
     };
 
+    let inlineLane: GatherLane | null = null;
     if (threads === 0) {
       const lane = gatherLane(planPath);
+      inlineLane = lane;
       pool = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => lane.handle(t), () => lane.finish());
     }
     // Otherwise stage 1's threads deal the buckets; each reads plan.json with its first.
@@ -620,20 +622,20 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       let done = 0;
       o.onProgress?.({ stage: 'stats', done: 0, total: parts, records, elapsedMs: Date.now() - t0 });
       await eachAtOnce(parts, Math.max(1, threads), async (p) => {
-        const t = threads === 0 ? await statsOfPartFile(plan, tasks[p]!) : await statsLanes.run(tasks[p]!);
+        const t = inlineLane ? (await inlineLane.partStats(tasks[p]!)).result : await statsLanes.run(tasks[p]!);
         partSummaries[p] = t.summary;
-        allStats.mergeSerialized(t.stats);
         o.onProgress?.({ stage: 'stats', done: ++done, total: parts, records, elapsedMs: Date.now() - t0 });
       });
       timings.statsMs = Date.now() - tStats;
     }
     // Where the lanes kept them, every worker hands over the statistics of all the buckets it
-    // dealt; merged in lane order (the merge is exact, so the order does not change the result).
+    // dealt; where the parts were read back, its table of the parts it read. Merged in lane order
+    // (the merge is exact, so the order does not change the result).
     const finals = await pool.finish();
     if (partStats) {
-      for (const f of finals) f?.forEach((t, p) => partStats[p]!.mergeSerialized(t));
+      for (const f of finals) if (f && 'parts' in f) f.parts.forEach((t, p) => partStats[p]!.mergeSerialized(t));
       partStats.forEach((t, p) => partDone(p, t));
-    }
+    } else if (allStats) for (const f of finals) if (f && 'readBack' in f) allStats.mergeSerialized(f.readBack);
     await pool.destroy();
     pool = null;
     timings.gatherMs = Date.now() - tGather;
