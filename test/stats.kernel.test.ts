@@ -383,4 +383,25 @@ describe.skipIf(!available)('the statistics module gives the figures of the Java
       }
     }
   });
+
+  it('a table that recycles a used one (parts read back in turn) gives the figures of a fresh table', () => {
+    const before = makeBatches('recycle-a', 3000, COLUMNS.length, 500);
+    const after = makeBatches('recycle-b', 2500, COLUMNS.length, 400);
+    for (const cap of [3, 40, 1000]) {
+      for (const kernel of [true, false]) {
+        useStatsKernel(kernel);
+        const used = tableOf(before, kernel, cap);
+        // The used table's columns: some past the cap (no value table to give), some below it.
+        const t = new TableStats(COLUMNS, { distinctCap: cap }, used);
+        for (const b of after) t.addBatch(b);
+        const fresh = tableOf(after, kernel, cap);
+        expect(t.toJSON()).toEqual(fresh.toJSON());
+        expect(t.summary()).toEqual(fresh.summary());
+        // Recycled again, by a table given the first batches: their figures, not a mix.
+        const again = new TableStats(COLUMNS, { distinctCap: cap }, t);
+        for (const b of before) again.addBatch(b);
+        expect(again.toJSON()).toEqual(tableOf(before, false, cap).toJSON());
+      }
+    }
+  });
 });

@@ -68,8 +68,10 @@ export function gatherLane(planPath: string): GatherLane {
   const prep = loadGatherPlan(planPath);
   const { plan } = prep;
   const stats = plan.statsColumns.length > 0 && plan.statsInLanes ? Array.from({ length: plan.deal.splits.length * plan.deal.partitions }, () => new TableStats(plan.statsColumns)) : null;
-  // The parts this lane read back, merged (exact and order-free, like every merge of statistics).
+  // The parts this lane read back, merged (exact and order-free, like every merge of statistics),
+  // and the last part's table, whose room the next part's reuses.
   let readBack: TableStats | null = null;
+  let done: TableStats | null = null;
   return {
     handle(task) {
       const result = gatherBucket(prep, task, stats);
@@ -78,10 +80,11 @@ export function gatherLane(planPath: string): GatherLane {
       return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
     },
     partStats: async (task) => {
-      const t = await statsOfPartFile(plan, task);
+      const t = await statsOfPartFile(plan, task, done ?? undefined);
       const summary = t.summary({ excludeValues: task.excludeValues });
-      if (readBack) readBack.merge(t);
-      else readBack = t;
+      readBack ??= new TableStats(plan.statsColumns);
+      readBack.merge(t);
+      done = t;
       return { result: { summary } };
     },
     finish: () => ({ final: stats ? { parts: stats.map((t) => t.toTransfer()) } : readBack ? { readBack: readBack.toTransfer() } : null }),

@@ -93,9 +93,12 @@ function newPartReader(plan: GatherPlan): RecordReader {
   return reader;
 }
 
-/** One part's statistics, read back from its file (see the top of this file). */
-export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask): Promise<TableStats> {
-  const stats = new TableStats(plan.statsColumns);
+/**
+ * One part's statistics, read back from its file (see the top of this file). `recycle`: the
+ * previous part's table, done with, whose value tables are reused.
+ */
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, recycle?: TableStats): Promise<TableStats> {
+  const stats = new TableStats(plan.statsColumns, {}, recycle);
   let skip = task.headerBytes;
   const reader = newPartReader(plan);
   for await (const chunk of openInput(task.partFile)) {
