@@ -119,6 +119,26 @@ describe('clean runs verify', () => {
     expect(runCli(['verify', out, '--against', input]).status).toBe(0);
   });
 
+  it('--stats: each part\'s column statistics and the whole input\'s are computed again from the files and hold', async () => {
+    const runs = [
+      await run('stats-folds', { partitions: 3, folds: 2, stratify: 'fault', stats: true }),
+      await run('stats-jsonl', { inputs: [jsonl], partitions: 2, folds: 3, stratify: 'fault', foldColumn: 'cv "fold"', tolerance: 5, stats: true }),
+      await run('stats-no-values', { partitions: 3, stratify: 'fault,site', stats: true, excludeValues: true }),
+    ];
+    for (const { out, m } of runs) {
+      expect(m.input.stats).toBeDefined();
+      for (const threads of [1, 2]) {
+        const r = await verify({ dir: out, threads });
+        expect(r.mismatches, out).toEqual([]);
+        for (const p of m.output.parts) expect(statusOf(r, p.path, 'statistics'), `${out} ${p.path}`).toBe('passed');
+        expect(statusOf(r, 'manifest.json', 'input statistics'), out).toBe('passed');
+      }
+    }
+    // Without --stats there are none to check.
+    const { out } = await run('no-stats', { partitions: 2, stratify: 'fault' });
+    expect((await verify({ dir: out })).checks.some((c) => /statistics/.test(c.check))).toBe(false);
+  });
+
   it('named splits, several partitions each (parts in sub-folders)', async () => {
     const { out, m } = await run('splits', { partitions: 2, split: 'train=0.7,valid=0.2,test=0.1', stratify: 'fault', folds: 2 });
     expect(m.output.parts.map((p) => p.path)).toContain('valid/part-00001.csv');
@@ -431,6 +451,36 @@ describe('damage is found and named', () => {
     expect(r.mismatches.find((x) => x.file === p0.path)).toEqual({ file: p0.path, check: 'records', expected: p0.records + 1, found: p0.records });
     expect(r.mismatches.find((x) => x.file === p1.path)).toMatchObject({ expected: p1.strata[0]! - 1, found: p1.strata[0] });
     expect(runCli(['verify', d]).status).toBe(1);
+  });
+
+  it('edited statistics, and a changed value: named by column and figure', async () => {
+    const { out, m: clean } = await run('stats-damage', { partitions: 3, stratify: 'fault', stats: true });
+    const p0 = clean.output.parts[0]!;
+    const p1 = clean.output.parts[1]!;
+    type Summary = { name: string; mean: number | null; distinct: number };
+    const d = copyOut(out, 'stats-edited');
+    const m = JSON.parse(readFileSync(join(d, 'manifest.json'), 'utf8')) as Manifest;
+    const mean = (p0.stats as Summary[]).find((c) => c.name === 'reading')!.mean!;
+    (m.output.parts[0]!.stats as Summary[]).find((c) => c.name === 'reading')!.mean = mean + 1;
+    const distinct = (clean.input.stats as Summary[]).find((c) => c.name === 'sensor')!.distinct;
+    (m.input.stats as Summary[]).find((c) => c.name === 'sensor')!.distinct = distinct + 1;
+    writeFileSync(join(d, 'manifest.json'), JSON.stringify(m, null, 2));
+    const r = await verify({ dir: d });
+    expect(failed(r)).toEqual(['manifest.json input statistics', `${p0.path} statistics`].sort());
+    expect(r.mismatches.find((x) => x.file === p0.path)).toEqual({ file: p0.path, check: 'statistics', item: 'reading: mean', expected: JSON.stringify(mean + 1), found: JSON.stringify(mean) });
+    expect(r.mismatches.find((x) => x.file === 'manifest.json')).toMatchObject({ item: 'sensor: distinct', expected: String(distinct + 1), found: String(distinct) });
+    expect(runCli(['verify', d]).status).toBe(1);
+
+    // One digit of a reading changed in a part (same size): its bytes, records and statistics.
+    const e = copyOut(out, 'stats-value');
+    const path = join(e, p1.path);
+    const text = readFileSync(path, 'utf8');
+    const at = text.search(/,-?\d+\.\d\d,/) + 1;
+    const digit = text[at] === '1' ? '2' : '1';
+    writeFileSync(path, text.slice(0, at) + digit + text.slice(at + 1));
+    const v = await verify({ dir: e });
+    expect(failed(v)).toEqual(['manifest.json input statistics', 'manifest.json output fingerprint', `${p1.path} fingerprint`, `${p1.path} sha256`, `${p1.path} statistics`].sort());
+    expect(v.mismatches.find((x) => x.file === p1.path && x.check === 'statistics')!.item).toMatch(/^reading: /);
   });
 
   it('an edited maximum deviation, and one over the tolerance', async () => {

@@ -131,9 +131,11 @@ Usage:
   rowdeck verify DIR [--against INPUT...] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
-record counts, per-class and per-fold counts, the tolerance, and the order-independent
-fingerprint of the records. With --against, also re-reads the inputs and checks that the
-output holds exactly their records (nothing lost, duplicated or altered; the fold column aside).
+record counts, per-class and per-fold counts, the tolerance, the order-independent
+fingerprint of the records, and (for a run with --stats) every part's column statistics and the
+whole input's, computed again from the parts. With --against, also re-reads the inputs and
+checks that the output holds exactly their records (nothing lost, duplicated or altered; the
+fold column aside).
 
 Options:
   --against INPUT...      the inputs of the run, in the same order (every argument up to the

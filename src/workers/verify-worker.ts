@@ -1,19 +1,22 @@
 /**
- * Worker entry for `verify`: reads whole parts (sha256, records, classes, folds, fingerprints)
- * while other threads read others. The manifest arrives once, as workerData; each task is one
+ * Worker entry for `verify`: reads whole parts (sha256, records, classes, folds, fingerprints,
+ * column statistics) while other threads read others. The manifest arrives once, as workerData; each task is one
  * part. See src/engine/verify.ts.
  */
 import { workerData } from 'node:worker_threads';
-import { scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
+import { PartStatsGather, scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
 import type { Manifest } from '../engine/manifest.js';
+import type { SerializedStats } from '../core/stats.js';
 import { serveLane } from './lanes.js';
 
 const { data } = workerData as { lane: number; data: Manifest };
+// With --stats in the manifest: this thread's statistics of the parts it reads, handed over at the end.
+const gather = data.input.stats !== undefined ? new PartStatsGather(data.input.columns) : null;
 
-serveLane<VerifyPartTask, SerializedPartScan, null>(
+serveLane<VerifyPartTask, SerializedPartScan, SerializedStats | null>(
   async (task) => {
-    const result = await scanPartTask(data, task);
+    const result = await scanPartTask(data, task, gather);
     return { result, transfer: [result.strata.buffer as ArrayBuffer, result.folds.buffer as ArrayBuffer, result.foldStrata.buffer as ArrayBuffer, ...(result.hashes ? [result.hashes.buffer as ArrayBuffer] : [])] };
   },
-  () => ({ final: null }),
+  () => ({ final: gather ? gather.whole.toTransfer() : null }),
 );
