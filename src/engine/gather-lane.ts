@@ -9,7 +9,7 @@ import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
 import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type PreparedPlan } from './gather.js';
-import { statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
+import { PartStatsGather, statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
 
 /**
@@ -68,10 +68,8 @@ export function gatherLane(planPath: string): GatherLane {
   const prep = loadGatherPlan(planPath);
   const { plan } = prep;
   const stats = plan.statsColumns.length > 0 && plan.statsInLanes ? Array.from({ length: plan.deal.splits.length * plan.deal.partitions }, () => new TableStats(plan.statsColumns)) : null;
-  // The parts this lane read back, merged (exact and order-free, like every merge of statistics),
-  // and the last part's table, whose room the next part's reuses.
-  let readBack: TableStats | null = null;
-  let done: TableStats | null = null;
+  // The parts this lane reads back (see PartStatsGather).
+  let readBack: PartStatsGather | null = null;
   return {
     handle(task) {
       const result = gatherBucket(prep, task, stats);
@@ -80,13 +78,10 @@ export function gatherLane(planPath: string): GatherLane {
       return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
     },
     partStats: async (task) => {
-      const t = await statsOfPartFile(plan, task, done ?? undefined);
-      const summary = t.summary({ excludeValues: task.excludeValues });
-      readBack ??= new TableStats(plan.statsColumns);
-      readBack.merge(t);
-      done = t;
-      return { result: { summary } };
+      readBack ??= new PartStatsGather(plan.statsColumns);
+      const t = await statsOfPartFile(plan, task, readBack.take());
+      return { result: { summary: readBack.done(t, task.excludeValues) } };
     },
-    finish: () => ({ final: stats ? { parts: stats.map((t) => t.toTransfer()) } : readBack ? { readBack: readBack.toTransfer() } : null }),
+    finish: () => ({ final: stats ? { parts: stats.map((t) => t.toTransfer()) } : readBack ? { readBack: readBack.whole.toTransfer() } : null }),
   };
 }

@@ -94,11 +94,10 @@ function newPartReader(plan: GatherPlan): RecordReader {
 }
 
 /**
- * One part's statistics, read back from its file (see the top of this file). `recycle`: the
- * previous part's table, done with, whose value tables are reused.
+ * One part's statistics, read back from its file (see the top of this file), into an empty
+ * table of the plan's columns (see PartStatsGather.take).
  */
-export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, recycle?: TableStats): Promise<TableStats> {
-  const stats = new TableStats(plan.statsColumns, {}, recycle);
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, stats = new TableStats(plan.statsColumns)): Promise<TableStats> {
   let skip = task.headerBytes;
   const reader = newPartReader(plan);
   for await (const chunk of openInput(task.partFile)) {
@@ -116,4 +115,43 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, rec
   if (last) stats.addBatch(last);
   stats.releaseKernel();
   return stats;
+}
+
+/**
+ * The column statistics of the parts one thread reads (a shuffle's lane reading parts back,
+ * or `verify`'s): each part's table is merged into the thread's table of every part it read
+ * (handed over once, at the end) and then reused for the next part (TableStats' `recycle`).
+ * Sending every part's table to the calling thread to be merged there kept that thread busy
+ * while the others waited, and a wide output's tables are large (2,002 columns: ~64 MB a part
+ * of 625 records), as is growing them from empty for each part.
+ */
+export class PartStatsGather {
+  readonly #columns: string[];
+  readonly #spare: TableStats[] = [];
+  readonly whole: TableStats;
+
+  constructor(columns: string[]) {
+    this.#columns = columns;
+    this.whole = new TableStats(columns);
+  }
+
+  /** A table for the next part. */
+  take(): TableStats {
+    return new TableStats(this.#columns, {}, this.#spare.pop());
+  }
+
+  /** A part read to its end: its summary; its figures join the whole. */
+  done(t: TableStats, excludeValues: boolean): ColumnSummary[] {
+    t.releaseKernel();
+    const summary = t.summary({ excludeValues });
+    this.whole.merge(t);
+    this.#spare.push(t);
+    return summary;
+  }
+
+  /** A part that could not be read to its end: its figures count nowhere. */
+  drop(t: TableStats): void {
+    t.releaseKernel();
+    this.#spare.push(t);
+  }
 }

@@ -18,6 +18,7 @@ import pLimit from 'p-limit';
 import { maxDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
+import { PartStatsGather } from './part-stats.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
@@ -165,43 +166,6 @@ interface PartScan {
   stats: ColumnSummary[] | null;
 }
 
-/**
- * The column statistics of the parts one thread reads: each part's table is merged into the
- * thread's table of every part it read (handed over once, at the end) and then reused for the
- * next part (TableStats' `recycle`). Sending every part's table to the calling thread to be
- * merged there kept that thread busy while the others waited, and a wide output's tables are
- * large (2,002 columns: ~64 MB a part of 625 records).
- */
-export class PartStatsGather {
-  readonly #columns: string[];
-  readonly #spare: TableStats[] = [];
-  readonly whole: TableStats;
-
-  constructor(columns: string[]) {
-    this.#columns = columns;
-    this.whole = new TableStats(columns);
-  }
-
-  /** A table for the next part. */
-  take(): TableStats {
-    return new TableStats(this.#columns, {}, this.#spare.pop());
-  }
-
-  /** A part read to its end: its summary; its figures join the whole. */
-  done(t: TableStats, excludeValues: boolean): ColumnSummary[] {
-    t.releaseKernel();
-    const summary = t.summary({ excludeValues });
-    this.whole.merge(t);
-    this.#spare.push(t);
-    return summary;
-  }
-
-  /** A part that could not be read to its end: its figures count nowhere. */
-  drop(t: TableStats): void {
-    t.releaseKernel();
-    this.#spare.push(t);
-  }
-}
 
 /** Outputs at least this large are read on worker threads by default. */
 const PARALLEL_MIN_BYTES = 32 * 1024 * 1024;

@@ -4,7 +4,8 @@
  * part. See src/engine/verify.ts.
  */
 import { workerData } from 'node:worker_threads';
-import { PartStatsGather, scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
+import { scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
+import { PartStatsGather } from '../engine/part-stats.js';
 import type { Manifest } from '../engine/manifest.js';
 import type { SerializedStats } from '../core/stats.js';
 import { serveLane } from './lanes.js';
