@@ -11,7 +11,8 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
 import { detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
-import { fieldText } from '../src/io/reader.js';
+import { fieldText, RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
+import type { RecordBatch } from '../src/io/batch.js';
 
 let dir = '';
 const csvA = 'sensor_id,fault\nS1,none\nS2,"drift, slow"\n';
@@ -114,3 +115,32 @@ describe('ReadAhead', () => {
     expect(await new ReadAhead([paths[0]!], 4 << 20).take(0)).toBeNull();
   });
 });
+
+describe('RecordReader recycle', () => {
+  /** Every record's fields as text, from pushes of `chunk` bytes. */
+  const records = (r: RecordReader, text: string, chunk: number): (string | null)[][] => {
+    const out: (string | null)[][] = [];
+    const take = (b: RecordBatch | null): void => {
+      for (let i = 0; b && i < b.count; i++) out.push(Array.from({ length: b.wanted }, (_, w) => fieldText(b, i, w)));
+    };
+    const bytes = Buffer.from(text);
+    for (let at = 0; at < bytes.length; at += chunk) take(r.push(bytes.subarray(at, at + chunk)));
+    take(r.end());
+    return out;
+  };
+  it('a reader that takes a finished one\'s arrays reads what a new one reads', () => {
+    // Quoted fields with delimiters and line breaks inside (RFC 4180 section 2, rules 5-7).
+    const a = 'id,name,note\n' + Array.from({ length: 3000 }, (_, i) => `${i},n${i % 7},"x, ""${i}""\ny"`).join('\n') + '\n';
+    const b = 'id,name,note\n' + Array.from({ length: 500 }, (_, i) => `${i * 3},m${i},plain`).join('\n') + '\n';
+    const opts = (wanted: string[]): RecordReaderOptions => ({ format: 'csv', header: true, wanted, file: 'test', onBadRecord: 'fail' });
+    const first = new RecordReader(opts(['note', 'id']));
+    const fromA = records(first, a, 4096);
+    expect(fromA.length).toBe(3000);
+    const second = new RecordReader(opts(['id', 'name']), first);
+    expect(records(second, b, 1000)).toEqual(records(new RecordReader(opts(['id', 'name'])), b, 1000));
+    // Another count of wanted fields: nothing is taken, and the reader is as good as new.
+    const third = new RecordReader(opts(['name']), second);
+    expect(records(third, a, 777)).toEqual(records(new RecordReader(opts(['name'])), a, 777));
+  });
+});
+

@@ -165,6 +165,60 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     expect(ahead.input.files.map((f) => f.records)).toEqual(paths.map((_, f) => (f % 5 === 2 ? 199 : 200)));
   });
 
+  it('gives the same bytes and manifest when the workers read the small inputs as when the calling thread does, and the same first error', async () => {
+    // 30 small files (one gzip, one JSON Lines shard set): with threads and --on-bad-record fail
+    // the workers read and parse every input after the first; with --threads 0 all are read here.
+    const csvPaths: string[] = [];
+    const jsonPaths: string[] = [];
+    let records = 0;
+    for (let f = 0; f < 30; f++) {
+      const text = makeSensorCsv({ rows: 150, seed: 400 + f });
+      records += parseCsv(text).rows.length;
+      const path = join(dir, `small-${String(f).padStart(2, '0')}.csv${f === 11 ? '.gz' : ''}`);
+      writeFileSync(path, f === 11 ? gzipSync(text) : text);
+      csvPaths.push(path);
+      if (f < 8) {
+        const { header, rows } = parseCsv(text);
+        const jpath = join(dir, `small-${f}.jsonl`);
+        writeFileSync(jpath, rows.map((r) => JSON.stringify(Object.fromEntries(header.map((h, i) => [h, r[i]])))).join('\n') + '\n');
+        jsonPaths.push(jpath);
+      }
+    }
+    for (const [name, paths] of [['csv', csvPaths], ['jsonl', jsonPaths]] as const) {
+      const opts = { seed: 'small', partitions: 3, stratify: 'fault', folds: 2 };
+      const here = await shuffle({ inputs: paths, out: join(dir, `small-here-${name}`), threads: 0, ...opts });
+      const workers = await shuffle({ inputs: paths, out: join(dir, `small-workers-${name}`), threads: 2, ...opts });
+      expect(outputsOf(join(dir, `small-workers-${name}`)), name).toEqual(outputsOf(join(dir, `small-here-${name}`)));
+      expect(workers.input, name).toEqual(here.input);
+      expect(workers.output, name).toEqual(here.output);
+      // Every record, as csv-parse counts them.
+      if (name === 'csv') expect(here.input.records).toBe(records);
+    }
+    // A broken record in input 17 and in input 24, and a header that differs in input 20: the
+    // error is input 17's, with its file and line, as when the calling thread reads them all.
+    const bad = csvPaths.map((p, f) => {
+      if (f !== 17 && f !== 20 && f !== 24) return p;
+      const lines = makeSensorCsv({ rows: 150, seed: 400 + f }).split('\n');
+      if (f === 20) lines[0] = lines[0]!.replace('site', 'place');
+      else lines[40] = `${f},"broken"x,site,1.0,,ok`;
+      const path = join(dir, `small-bad-${f}.csv`);
+      writeFileSync(path, lines.join('\n'));
+      return path;
+    });
+    const errorOf = async (threads: number): Promise<string> => {
+      try {
+        await shuffle({ inputs: bad, out: join(dir, `small-bad-${threads}`), seed: 'small', partitions: 3, threads });
+      } catch (err) {
+        return `${(err as { code?: string }).code}: ${(err as Error).message}`;
+      }
+      return 'no error';
+    };
+    const here = await errorOf(0);
+    expect(here).toMatch(/small-bad-17\.csv/);
+    expect(await errorOf(2)).toBe(here);
+    expect(existsSync(join(dir, 'small-bad-2'))).toBe(false);
+  });
+
   it('gives a different order for a different seed, and records the seed', async () => {
     const a = await shuffle({ inputs: [input], out: join(dir, 'seed-a'), seed: 'alpha', memory: '4MiB' });
     const b = await shuffle({ inputs: [input], out: join(dir, 'seed-b'), seed: 'beta', memory: '4MiB' });

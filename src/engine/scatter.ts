@@ -17,10 +17,11 @@
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
-import { decodeCsvQuoted, fieldText } from '../io/reader.js';
+import { decodeCsvQuoted, fieldText, RecordReader, type RecordReaderOptions } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
-import { blockSizes, readInBlocks, type BlockMessage, type BlockReply } from '../io/blocks.js';
+import { closeSync, openSync, readSync, statSync } from 'node:fs';
+import { giveSpareReader, inputReaderOptions, isPlainFile, READ_AHEAD_MAX_BYTES, readInput, ReadAhead, takeSpareReader } from '../io/input.js';
+import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, QUEUE, spillRanges, type SpillPiece } from './spill.js';
@@ -475,11 +476,115 @@ export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: numbe
 
 // --- orchestration -----------------------------------------------------------------------------------
 
-/** What the main thread sends a scatter worker: a packed batch it read itself, or block work. */
-export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
+/**
+ * A small input for a worker to read and parse (see SmallInputSender): its path, the size it had
+ * when looked at, and the reader's options, without callbacks.
+ */
+export interface SmallInputMessage {
+  kind: 'small';
+  input: number;
+  path: string;
+  size: number;
+  reader: Omit<RecordReaderOptions, 'onReject'>;
+}
+
+/** A worker's answer to a SmallInputMessage: what the reader counted, or that it left the input to the main thread. */
+export type SmallInputReply = { kind: 'parsed'; id: -1; records: number; bytes: number } | { kind: 'declined'; id: -1 };
+
+/** The size of a regular file small enough for a worker to read whole, or null. */
+function smallFileSize(path: string): number | null {
+  if (path === '-') return null;
+  try {
+    const st = statSync(path);
+    return st.isFile() && st.size <= READ_AHEAD_MAX_BYTES ? st.size : null;
+  } catch {
+    return null; // reported with its path when read as usual
+  }
+}
+
+/** This thread's buffer for small inputs (see addSmallInput). */
+let smallBuffer: Buffer | null = null;
+
+/**
+ * The worker's side of a SmallInputMessage: reads the file in one go and parses it into the
+ * task, as readInput would. A file that is gzip, has changed size or cannot be read is declined:
+ * the main thread then reads it the usual way, which reports any error with its path.
+ */
+export function addSmallInput(task: ScatterTask, m: SmallInputMessage): SmallInputReply {
+  if (smallBuffer === null || smallBuffer.length < m.size + 1) smallBuffer = Buffer.allocUnsafeSlow(Math.max(m.size + 1, 128 << 10));
+  const buf = smallBuffer;
+  let n = 0;
+  try {
+    const fd = openSync(m.path, 'r');
+    try {
+      // One byte more than the size: a file that grew is noticed.
+      for (let r = 1; r > 0 && n < m.size + 1; n += r) r = readSync(fd, buf, n, m.size + 1 - n, n);
+    } finally {
+      closeSync(fd);
+    }
+  } catch {
+    return { kind: 'declined', id: -1 };
+  }
+  if (n !== m.size || (n >= 2 && buf[0] === 0x1f && buf[1] === 0x8b)) return { kind: 'declined', id: -1 };
+  const reader = new RecordReader(m.reader, takeSpareReader());
+  const first = reader.push(buf.subarray(0, n));
+  if (first) task.addBatch(first, m.input);
+  const last = reader.end();
+  if (last) task.addBatch(last, m.input);
+  giveSpareReader(reader);
+  return { kind: 'parsed', id: -1, records: reader.stats.records, bytes: reader.stats.bytes };
+}
+
+/**
+ * Gives small inputs (at most READ_AHEAD_MAX_BYTES, after the first, whose columns the others
+ * are checked against) to the workers to read and parse, at most two a worker at a time. Read
+ * and parsed here, 2,000 files of 100 KB held stage 1 to this thread's parsing and its trips to
+ * the thread pool (four an input: ~0.4 ms here), 1.7 s against ~0.85 s for the same bytes in
+ * one file. Only under --on-bad-record fail: there is nothing to report in input order but an
+ * error, which ends the run, and the error raised is that of the first input that has one, as
+ * when they are read here.
+ */
+class SmallInputSender {
+  readonly #lanes: ScatterLanes;
+  readonly #running = new Set<Promise<void>>();
+  readonly #failed = new Map<number, unknown>();
+
+  constructor(lanes: ScatterLanes) {
+    this.#lanes = lanes;
+  }
+
+  async send(path: string, size: number, input: number, reader: RecordReaderOptions, done: (records: number, bytes: number) => void, declined: () => void): Promise<void> {
+    while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
+    if (this.#failed.size > 0) await this.settle(input);
+    const { onReject: _onReject, ...options } = reader;
+    const p: Promise<void> = this.#lanes
+      .run({ kind: 'small', input, path, size, reader: options })
+      .then((r) => {
+        if (r.kind === 'parsed') done(r.records, r.bytes);
+        else if (r.kind === 'declined') declined();
+        else throw new RowdeckError('ERR_INTERNAL', `scatter: a worker answered a small input with ${r.kind}`);
+      })
+      .catch((err: unknown) => void this.#failed.set(input, err))
+      .finally(() => this.#running.delete(p));
+    this.#running.add(p);
+  }
+
+  /**
+   * Waits for every input sent; then raises the error of the first of them that failed if it
+   * comes before input `before` (unless `wait` only).
+   */
+  async settle(before = Infinity, wait = false): Promise<void> {
+    await Promise.all(this.#running);
+    const first = Math.min(...this.#failed.keys());
+    if (!wait && first < before) throw this.#failed.get(first);
+  }
+}
+
+/** What the main thread sends a scatter worker: a packed batch it read itself, a small input to read, or block work. */
+export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | SmallInputMessage | BlockMessage;
 
 /** Lanes that run scatter tasks: one worker each, or the caller's (see `ScatterOptions.lanes`). */
-export type ScatterLanes = WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>;
+export type ScatterLanes = WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>;
 
 /** What every scatter task is told (its lane number aside): the worker data of the scatter lanes. */
 export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 'task'> {
@@ -513,8 +618,9 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
   if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
-  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply, ScatterTaskResult>(o.workerFile!, tasks, config));
-  const sender = lanes ? new BatchSender(lanes) : null;
+  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>(o.workerFile!, tasks, config));
+  const sender = lanes ? new BatchSender(lanes as unknown as BatchLanes) : null;
+  const small = lanes && o.onBadRecord === 'fail' && o.inputs.length > 1 ? new SmallInputSender(lanes) : null;
   const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
     takeSchema(sch);
     if (inline) inline.addBatch(batch, input);
@@ -523,13 +629,15 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const progress = (): void => o.onProgress?.(inputs.reduce((a, x) => a + x.bytes, 0), inputs.reduce((a, x) => a + x.records, 0));
   try {
     let expected: { columns: string[]; from: string } | undefined;
-    const ahead = new ReadAhead(o.inputs, blockSizes({ ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}) }).block);
-    for (let k = 0; k < o.inputs.length; k++) {
+    // With small inputs given to the workers, nothing is read ahead here (see SmallInputSender).
+    const ahead = new ReadAhead(o.inputs, blockSizes({ ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}) }).block, small ? 0 : undefined);
+    const readerOptions = (k: number): RecordReaderOptions =>
+      inputReaderOptions(o.inputs[k]!, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
+    /** Reads input k here: whole if it was read ahead, else in blocks by the workers, else as a stream. */
+    const readHere = async (k: number): Promise<void> => {
       const path = o.inputs[k]!;
-      const ro = inputReaderOptions(path, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
+      const ro = readerOptions(k);
       const seen = inputs[k]!;
-      // Small files were read ahead, whole; other plain files are parsed by the workers in
-      // blocks; stdin and gzip are read here.
       const whole = await ahead.take(k);
       const totals =
         !whole && lanes && (await isPlainFile(path))
@@ -537,7 +645,8 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
               path,
               input: k,
               reader: ro,
-              lanes,
+              // Block work is answered with block replies (the small-input replies are SmallInputSender's).
+              lanes: lanes as unknown as BlockLanes,
               ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}),
               sequential: (batch, sch) => send(batch, k, sch),
               onSchema: takeSchema,
@@ -562,6 +671,38 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         }
       }
       if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: (schema as InputSchema).columns, from: ro.file };
+    };
+    // Inputs a worker turned down (a small gzip file, one that changed size, one it could not open): read here after the others.
+    const declined: number[] = [];
+    for (let k = 0; k < o.inputs.length; k++) {
+      const size = small && schema ? smallFileSize(o.inputs[k]!) : null;
+      try {
+        if (size === null) await readHere(k);
+        else {
+          const seen = inputs[k]!;
+          await small!.send(o.inputs[k]!, size, k, readerOptions(k), (records, bytes) => {
+            seen.records = records;
+            seen.bytes = bytes;
+            progress();
+          }, () => declined.push(k));
+        }
+      } catch (err) {
+        // An input read here failed: one given to a worker before it may have failed too.
+        await small?.settle(k);
+        throw err;
+      }
+    }
+    if (small) {
+      await small.settle(Infinity, true);
+      for (const k of declined.sort((x, y) => x - y)) {
+        try {
+          await readHere(k);
+        } catch (err) {
+          await small.settle(k);
+          throw err;
+        }
+      }
+      await small.settle();
     }
     progress();
     if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });

@@ -223,13 +223,30 @@ export async function* readInput(
   ro: RecordReaderOptions,
   whole: Buffer | null = null,
 ): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
-  const reader = new RecordReader(ro);
+  const reader = new RecordReader(ro, takeSpareReader());
   for await (const chunk of whole ? [whole] : openInput(path)) {
     const batch = reader.push(chunk);
     if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
   }
   const batch = reader.end();
   if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
+  // Asked for more after its last batch: the caller is done with it, and so with the reader.
+  spareReader = reader;
+}
+
+/** The reader of the last input read to its end on this thread, whose arrays the next one takes (see RecordReader's `recycle`). */
+let spareReader: RecordReader | null = null;
+
+/** Keeps a reader done with (its batches used up) for the next one to take its arrays. */
+export function giveSpareReader(reader: RecordReader): void {
+  spareReader = reader;
+}
+
+/** The spare reader, if any (each is given out once). */
+export function takeSpareReader(): RecordReader | undefined {
+  const r = spareReader ?? undefined;
+  spareReader = null;
+  return r;
 }
 
 /** Largest input ReadAhead reads ahead, and how many it has in flight. */
@@ -255,6 +272,7 @@ export class ReadAhead {
   readonly #limit: number;
   readonly #reads = new Map<number, Promise<{ bytes: Buffer; buffer: Buffer } | null>>();
   readonly #pool: Buffer[] = [];
+  readonly #ahead: number;
   #lent: Buffer | null = null;
   #next = 0;
 
@@ -263,9 +281,10 @@ export class ReadAhead {
    * the calling thread either way (see readInBlocks), so only such files are taken: with
    * the default blocks, every file up to READ_AHEAD_MAX_BYTES.
    */
-  constructor(paths: readonly string[], blockBytes: number) {
+  constructor(paths: readonly string[], blockBytes: number, ahead = READ_AHEAD_INPUTS) {
     this.#paths = paths;
     this.#limit = Math.min(READ_AHEAD_MAX_BYTES, 2 * blockBytes);
+    this.#ahead = ahead;
   }
 
   /** Input k's bytes when it is a small plain file, else null; starts reading the next ones. */
@@ -274,7 +293,7 @@ export class ReadAhead {
     this.#lent = null;
     if (this.#paths.length < 2) return null;
     this.#next = Math.max(this.#next, k);
-    while (this.#next < this.#paths.length && this.#next <= k + READ_AHEAD_INPUTS) this.#start(this.#next++);
+    while (this.#next < this.#paths.length && this.#next <= k + this.#ahead) this.#start(this.#next++);
     const read = this.#reads.get(k);
     this.#reads.delete(k);
     const got = read ? await read : null;

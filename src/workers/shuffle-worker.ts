@@ -21,7 +21,7 @@
  */
 import { join } from 'node:path';
 import { workerData } from 'node:worker_threads';
-import { ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult } from '../engine/scatter.js';
+import { addSmallInput, ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult, type SmallInputReply } from '../engine/scatter.js';
 import { censusBucket, type CensusTask, type GatherResult, type GatherTask } from '../engine/gather.js';
 import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
@@ -34,7 +34,7 @@ let task: ScatterTask | null = new ScatterTask({ ...data, task: lane });
 let blocks: BlockHost | null = new BlockHost((batch, input) => task!.addBatch(batch, input));
 let gather: GatherLane | null = null;
 
-serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | GatherResult | PartStatsResult | GroupTableData, ScatterTaskResult | GatherFinal>(
+serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | SmallInputReply | GatherResult | PartStatsResult | GroupTableData, ScatterTaskResult | GatherFinal>(
   (m) => {
     if ('bucket' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
@@ -50,6 +50,7 @@ serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply |
     }
     if (!task || !blocks) throw new Error('scatter work after stage 1 finished');
     try {
+      if (m.kind === 'small') return { result: addSmallInput(task, m) };
       if (m.kind !== 'batch') return blocks.handle(m);
       const { batch, input } = unpackBatch(m.buffer);
       task.addBatch(batch, input);
