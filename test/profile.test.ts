@@ -317,6 +317,53 @@ describe('wide inputs: the threads share out the columns', () => {
   });
 });
 
+describe('small inputs read by the workers', () => {
+  it('give the profile the calling thread gives, with a gzip and a JSON Lines input among them, and the same first error', async () => {
+    const paths: string[] = [];
+    let records = 0;
+    for (let f = 0; f < 24; f++) {
+      const text = makeSensorCsv({ rows: 120, seed: 700 + f });
+      const { header, rows } = parseCsv(text);
+      records += rows.length; // counted by csv-parse
+      const name = `small-${String(f).padStart(2, '0')}`;
+      let path = join(dir, `${name}.csv`);
+      if (f === 5) writeFileSync((path += '.gz'), gzipSync(text));
+      else if (f === 9) writeFileSync((path = join(dir, `${name}.jsonl`)), rows.map((r) => JSON.stringify(Object.fromEntries(header.map((h, i) => [h, r[i]])))).join('\n') + '\n');
+      else writeFileSync(path, text);
+      paths.push(path);
+    }
+    const opts = { inputs: paths, stratify: 'fault' };
+    const here = await profile({ ...opts, threads: 0 });
+    const workers = await profile({ ...opts, threads: 2 });
+    expect(here.records).toBe(records);
+    expect(stripRun(workers)).toEqual(stripRun(here));
+    // A broken record in input 13 (read by a worker) and a broken line in input 14 (JSON Lines,
+    // read here, likely before the worker is done with 13): the error names input 13, as on the
+    // calling thread.
+    const bad = paths.map((p, f) => {
+      if (f === 14) {
+        const path = join(dir, 'small-bad-14.jsonl');
+        writeFileSync(path, '{"id": 1, "fault": "none"}\n{"id": 2, "fault": \n');
+        return path;
+      }
+      if (f !== 13) return p;
+      const lines = makeSensorCsv({ rows: 120, seed: 700 + f }).split('\n');
+      lines[30] = `${f},"broken"x,site,1.0,,ok`;
+      const path = join(dir, `small-bad-${f}.csv`);
+      writeFileSync(path, lines.join('\n'));
+      return path;
+    });
+    const errorOf = (threads: number): Promise<string> =>
+      profile({ inputs: bad, threads }).then(
+        () => 'no error',
+        (err: Error & { code?: string }) => `${err.code}: ${err.message}`,
+      );
+    const first = await errorOf(0);
+    expect(first).toMatch(/small-bad-13\.csv/);
+    expect(await errorOf(2)).toBe(first);
+  });
+});
+
 describe('independent of the thread count', () => {
   it('0 (calling thread), 1 and 2 worker threads give identical profiles', async () => {
     const opts = { inputs: [big], stratify: 'fault,site' };

@@ -30,13 +30,14 @@ import { TableStats, type ColumnSummary, type SerializedStats } from '../core/st
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
-import { blockSizes, readInBlocks, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
+import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
-import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP } from './scatter.js';
+import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
+import { smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { resolveWorkerFile } from './shuffle.js';
 
 export const PROFILE_VERSION = 1;
@@ -428,7 +429,7 @@ function tooManyStrata(columns: string[]): RowdeckError {
 }
 
 /** What the main thread sends a profile worker. */
-export type ProfileMessage = { kind: 'columns'; input: number; map: number[] | null } | { kind: 'batch'; buffer: ArrayBuffer } | BlockMessage;
+export type ProfileMessage = { kind: 'columns'; input: number; map: number[] | null } | { kind: 'batch'; buffer: ArrayBuffer } | SmallInputMessage | BlockMessage;
 
 // --- reading ---------------------------------------------------------------------------------------
 
@@ -483,14 +484,22 @@ async function probeInput(
     wanted = columns.filter((c) => own.includes(c));
     map = wanted.length === columns.length ? null : wanted.map((c) => columns.indexOf(c));
   }
-  const reader: RecordReaderOptions = {
-    ...base,
+  return { plan: { reader: readerOptions(o, k, wanted, expected, onReject), map }, columns, held, ended };
+}
+
+/** How input k is read: the wanted columns, and for a CSV/TSV input after the first, the first's columns its header must give. */
+function readerOptions(o: ResolvedProfileOptions, k: number, wanted: string[], expected: string[] | undefined, onReject: (r: RejectedRecord) => void): RecordReaderOptions {
+  const path = o.inputs[k]!;
+  return {
+    format: detectFormat(path, o.format ?? undefined),
+    header: o.header,
+    file: nameInput(path),
+    ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}),
     wanted,
     onBadRecord: o.onBadRecord,
     onReject,
     ...(expected ? { expectedColumns: expected, expectedFrom: nameInput(o.inputs[0]!) } : {}),
   };
-  return { plan: { reader, map }, columns, held, ended };
 }
 
 // --- orchestration -----------------------------------------------------------------------------------
@@ -538,8 +547,14 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
     o.onProgress?.({ stage: 'read', done: inputs.reduce((a, x) => a + x.bytes, 0), total: totalBytes, records: inputs.reduce((a, x) => a + x.records, 0), elapsedMs: Date.now() - tRead });
 
   // Started once the first input's columns are known (they size the statistics).
-  type Lanes = WorkerLanes<ProfileMessage, BlockReply, ProfileTaskResult>;
-  const run: { inline: ProfileTask | null; lanes: Lanes | null; sender: BatchSender | null; columnShares: boolean } = { inline: null, lanes: null, sender: null, columnShares: false };
+  type Lanes = WorkerLanes<ProfileMessage, BlockReply | SmallInputReply, ProfileTaskResult>;
+  const run: { inline: ProfileTask | null; lanes: Lanes | null; sender: BatchSender | null; columnShares: boolean; small: SmallInputSender | null } = {
+    inline: null,
+    lanes: null,
+    sender: null,
+    columnShares: false,
+    small: null,
+  };
   const start = (cols: string[]): void => {
     const stratify = o.stratify.map((s) => {
       const column = cols.indexOf(s.name);
@@ -551,8 +566,11 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
     if (o.threads === 0) run.inline = new ProfileTask(config);
     else {
       run.lanes = new WorkerLanes(resolveWorkerFile('profile-worker.js'), o.threads, config);
-      run.sender = new BatchSender(run.lanes, columnShares > 0);
+      run.sender = new BatchSender(run.lanes as unknown as BatchLanes, columnShares > 0);
       run.columnShares = columnShares > 0;
+      // Small CSV/TSV inputs after the first are read and parsed by the workers (every column
+      // wanted, as here), unless each worker needs every record (column shares).
+      if (columnShares === 0 && o.onBadRecord === 'fail' && o.inputs.length > 1) run.small = new SmallInputSender(run.lanes);
     }
   };
 
@@ -562,9 +580,13 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
   };
 
   try {
-    let first: { columns: string[]; csv: boolean } | null = null;
-    const ahead = new ReadAhead(o.inputs, blockSizes({ blockBytes: PROFILE_BLOCK_BYTES }).block);
-    for (let k = 0; k < o.inputs.length; k++) {
+    let first = null as { columns: string[]; csv: boolean } | null;
+    const blockBytes = blockSizes({ blockBytes: PROFILE_BLOCK_BYTES }).block;
+    // The first input alone, then (its columns known) the rest: nothing is read ahead for inputs
+    // the workers read themselves (see SmallInputSender).
+    let ahead = new ReadAhead(o.inputs, blockBytes, 0);
+    /** Reads input k here (whole if it was read ahead), or in blocks by the workers. */
+    const readHere = async (k: number): Promise<void> => {
       const path = o.inputs[k]!;
       const seen = inputs[k]!;
       // Small files were read ahead, whole (see ReadAhead).
@@ -595,7 +617,8 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
           path,
           input: k,
           reader: plan.reader,
-          lanes,
+          // Block work is answered with block replies (the small-input replies are SmallInputSender's).
+          lanes: lanes as unknown as BlockLanes,
           // Every column is located, so a held block's arrays are ~5 times those of a shuffle's:
           // smaller blocks keep the memory near what the sequential read used.
           blockBytes: PROFILE_BLOCK_BYTES,
@@ -611,7 +634,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
         seen.bytes = totals.bytes;
         seen.records = totals.records;
         seen.rejected = totals.rejected;
-        continue;
+        return;
       }
       const reader = new RecordReader(plan.reader);
       const take = async (batch: RecordBatch | null): Promise<void> => {
@@ -634,6 +657,39 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       } finally {
         await it.return?.(undefined);
       }
+        };
+    const declined: number[] = [];
+    for (let k = 0; k < o.inputs.length; k++) {
+      const small = run.small && first?.csv && detectFormat(o.inputs[k]!, o.format ?? undefined) !== 'jsonl' ? smallFileSize(o.inputs[k]!) : null;
+      try {
+        if (small === null) await readHere(k);
+        else {
+          const seen = inputs[k]!;
+          const columns = first!.columns;
+          await run.small!.send(o.inputs[k]!, small, k, readerOptions(o, k, columns, columns, onReject), (records, bytes) => {
+            seen.records = records;
+            seen.bytes = bytes;
+            progress();
+          }, () => declined.push(k));
+        }
+      } catch (err) {
+        // An input read here failed: one given to a worker before it may have failed too.
+        await run.small?.settle(k);
+        throw err;
+      }
+      if (k === 0) ahead = new ReadAhead(o.inputs, blockBytes, run.small ? 0 : undefined);
+    }
+    if (run.small) {
+      await run.small.settle(Infinity, true);
+      for (const k of declined.sort((x, y) => x - y)) {
+        try {
+          await readHere(k);
+        } catch (err) {
+          await run.small.settle(k);
+          throw err;
+        }
+      }
+      await run.small.settle();
     }
     const cols: string[] = first?.columns ?? [];
     // The tasks' tables are let go once serialised (threads ended, the inline task dropped), so a

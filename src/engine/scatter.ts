@@ -17,10 +17,10 @@
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
-import { decodeCsvQuoted, fieldText, RecordReader, type RecordReaderOptions } from '../io/reader.js';
+import { decodeCsvQuoted, fieldText, type RecordReaderOptions } from '../io/reader.js';
 import { binLabel, binOf, parseBinValue } from './quantiles.js';
-import { closeSync, openSync, readSync, statSync } from 'node:fs';
-import { giveSpareReader, inputReaderOptions, isPlainFile, READ_AHEAD_MAX_BYTES, readInput, ReadAhead, takeSpareReader } from '../io/input.js';
+import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
+import { readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -476,108 +476,9 @@ export function unpackBatch(ab: ArrayBuffer): { batch: RecordBatch; input: numbe
 
 // --- orchestration -----------------------------------------------------------------------------------
 
-/**
- * A small input for a worker to read and parse (see SmallInputSender): its path, the size it had
- * when looked at, and the reader's options, without callbacks.
- */
-export interface SmallInputMessage {
-  kind: 'small';
-  input: number;
-  path: string;
-  size: number;
-  reader: Omit<RecordReaderOptions, 'onReject'>;
-}
-
-/** A worker's answer to a SmallInputMessage: what the reader counted, or that it left the input to the main thread. */
-export type SmallInputReply = { kind: 'parsed'; id: -1; records: number; bytes: number } | { kind: 'declined'; id: -1 };
-
-/** The size of a regular file small enough for a worker to read whole, or null. */
-function smallFileSize(path: string): number | null {
-  if (path === '-') return null;
-  try {
-    const st = statSync(path);
-    return st.isFile() && st.size <= READ_AHEAD_MAX_BYTES ? st.size : null;
-  } catch {
-    return null; // reported with its path when read as usual
-  }
-}
-
-/** This thread's buffer for small inputs (see addSmallInput). */
-let smallBuffer: Buffer | null = null;
-
-/**
- * The worker's side of a SmallInputMessage: reads the file in one go and parses it into the
- * task, as readInput would. A file that is gzip, has changed size or cannot be read is declined:
- * the main thread then reads it the usual way, which reports any error with its path.
- */
+/** The worker's side of a SmallInputMessage for a scatter task (see src/io/small-inputs.ts). */
 export function addSmallInput(task: ScatterTask, m: SmallInputMessage): SmallInputReply {
-  if (smallBuffer === null || smallBuffer.length < m.size + 1) smallBuffer = Buffer.allocUnsafeSlow(Math.max(m.size + 1, 128 << 10));
-  const buf = smallBuffer;
-  let n = 0;
-  try {
-    const fd = openSync(m.path, 'r');
-    try {
-      // One byte more than the size: a file that grew is noticed.
-      for (let r = 1; r > 0 && n < m.size + 1; n += r) r = readSync(fd, buf, n, m.size + 1 - n, n);
-    } finally {
-      closeSync(fd);
-    }
-  } catch {
-    return { kind: 'declined', id: -1 };
-  }
-  if (n !== m.size || (n >= 2 && buf[0] === 0x1f && buf[1] === 0x8b)) return { kind: 'declined', id: -1 };
-  const reader = new RecordReader(m.reader, takeSpareReader());
-  const first = reader.push(buf.subarray(0, n));
-  if (first) task.addBatch(first, m.input);
-  const last = reader.end();
-  if (last) task.addBatch(last, m.input);
-  giveSpareReader(reader);
-  return { kind: 'parsed', id: -1, records: reader.stats.records, bytes: reader.stats.bytes };
-}
-
-/**
- * Gives small inputs (at most READ_AHEAD_MAX_BYTES, after the first, whose columns the others
- * are checked against) to the workers to read and parse, at most two a worker at a time. Read
- * and parsed here, 2,000 files of 100 KB held stage 1 to this thread's parsing and its trips to
- * the thread pool (four an input: ~0.4 ms here), 1.7 s against ~0.85 s for the same bytes in
- * one file. Only under --on-bad-record fail: there is nothing to report in input order but an
- * error, which ends the run, and the error raised is that of the first input that has one, as
- * when they are read here.
- */
-class SmallInputSender {
-  readonly #lanes: ScatterLanes;
-  readonly #running = new Set<Promise<void>>();
-  readonly #failed = new Map<number, unknown>();
-
-  constructor(lanes: ScatterLanes) {
-    this.#lanes = lanes;
-  }
-
-  async send(path: string, size: number, input: number, reader: RecordReaderOptions, done: (records: number, bytes: number) => void, declined: () => void): Promise<void> {
-    while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
-    if (this.#failed.size > 0) await this.settle(input);
-    const { onReject: _onReject, ...options } = reader;
-    const p: Promise<void> = this.#lanes
-      .run({ kind: 'small', input, path, size, reader: options })
-      .then((r) => {
-        if (r.kind === 'parsed') done(r.records, r.bytes);
-        else if (r.kind === 'declined') declined();
-        else throw new RowdeckError('ERR_INTERNAL', `scatter: a worker answered a small input with ${r.kind}`);
-      })
-      .catch((err: unknown) => void this.#failed.set(input, err))
-      .finally(() => this.#running.delete(p));
-    this.#running.add(p);
-  }
-
-  /**
-   * Waits for every input sent; then raises the error of the first of them that failed if it
-   * comes before input `before` (unless `wait` only).
-   */
-  async settle(before = Infinity, wait = false): Promise<void> {
-    await Promise.all(this.#running);
-    const first = Math.min(...this.#failed.keys());
-    if (!wait && first < before) throw this.#failed.get(first);
-  }
+  return readSmallInput(m, (batch) => task.addBatch(batch, m.input));
 }
 
 /** What the main thread sends a scatter worker: a packed batch it read itself, a small input to read, or block work. */

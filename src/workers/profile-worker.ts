@@ -8,18 +8,20 @@ import { workerData } from 'node:worker_threads';
 import { ProfileTask, type ProfileMessage, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile.js';
 import { unpackBatch } from '../engine/scatter.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
+import { readSmallInput, type SmallInputReply } from '../io/small-inputs.js';
 import { serveLane } from './lanes.js';
 
 const { lane, data } = workerData as { lane: number; data: ProfileTaskConfig };
 const task = new ProfileTask(data, lane);
 const blocks = new BlockHost((batch, input) => task.addBatch(batch, input));
 
-serveLane<ProfileMessage, BlockReply, ProfileTaskResult>(
+serveLane<ProfileMessage, BlockReply | SmallInputReply, ProfileTaskResult>(
   (m) => {
     if (m.kind === 'columns') {
       task.setInputColumns(m.input, m.map);
       return { result: { kind: 'released', id: -1, buffer: new ArrayBuffer(0) } };
     }
+    if (m.kind === 'small') return { result: readSmallInput(m, (batch) => task.addBatch(batch, m.input)) };
     if (m.kind !== 'batch') return blocks.handle(m);
     const { batch, input } = unpackBatch(m.buffer);
     task.addBatch(batch, input);

@@ -21,7 +21,8 @@
  */
 import { join } from 'node:path';
 import { workerData } from 'node:worker_threads';
-import { addSmallInput, ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult, type SmallInputReply } from '../engine/scatter.js';
+import { addSmallInput, ScatterTask, unpackBatch, type ScatterMessage, type ScatterTaskConfig, type ScatterTaskResult } from '../engine/scatter.js';
+import type { SmallInputReply } from '../io/small-inputs.js';
 import { censusBucket, type CensusTask, type GatherResult, type GatherTask } from '../engine/gather.js';
 import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
