@@ -7,7 +7,10 @@ import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import seedrandom from 'seedrandom';
 import { shuffle, verify } from '../src/index.js';
+import { binValueAt, selectRanks } from '../src/engine/quantiles.js';
+import { FieldKind, type RecordBatch } from '../src/io/batch.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -309,3 +312,52 @@ describe('class values that look alike', () => {
     expect(Object.fromEntries(m.strata.values.map((s) => [s.value![0], s.records]))).toEqual(Object.fromEntries(expected));
   });
 });
+
+describe('quantile bins: the pieces of the first pass', () => {
+  it('selectRanks gives the values Float64Array.prototype.sort() puts at those ranks (ties, zeros of both signs, sorted and reversed runs)', () => {
+    const rng = seedrandom('ranks');
+    const kinds = [
+      (_i: number): number => rng() * 100 - 50,
+      (_i: number): number => Math.floor(rng() * 5),
+      (i: number): number => i,
+      (i: number): number => -i,
+      (_i: number): number => (rng() < 0.5 ? -0 : 0),
+      (_i: number): number => [-0, 0, 1, -1, 1e-300, -1e-300][Math.floor(rng() * 6)]!,
+      (i: number): number => (i % 2 ? i : -i) * 0.5,
+    ];
+    for (let t = 0; t < 2100; t++) {
+      const n = 1 + Math.floor(rng() * (t % 10 === 0 ? 5000 : 200));
+      const make = kinds[t % kinds.length]!;
+      const v = Float64Array.from({ length: n }, (_, i) => make(i));
+      const sorted = v.slice().sort();
+      const ranks = Array.from({ length: 1 + Math.floor(rng() * 7) }, () => Math.floor(rng() * n));
+      const got = selectRanks(v.slice(), ranks);
+      // Object.is tells -0 from +0.
+      ranks.forEach((r, i) => expect(Object.is(got[i], sorted[r]), `n ${n} rank ${r}: ${got[i]} vs ${sorted[r]}`).toBe(true));
+    }
+  });
+
+  it('binValueAt reads a value as Number() reads its text, and refuses what is not a number the same way', () => {
+    const values = ['12.5', '-3', '+4', '1e3', '.5', '5.', '0x1A', '0b11', 'Infinity', 'NaN', 'abc', ' 7 ', '', '\u00a08', '1_000', '٣'];
+    const data = Buffer.from(values.join(''));
+    const starts: number[] = [];
+    let at = 0;
+    for (const v of values) {
+      starts.push(at);
+      at += Buffer.byteLength(v);
+    }
+    const n = values.length;
+    const b: RecordBatch = {
+      data, count: n, wanted: 1,
+      start: new Uint32Array(n), end: new Uint32Array(n), next: new Uint32Array(n), offset: new Float64Array(n), line: Float64Array.from(values, (_, i) => i + 2),
+      fieldStart: Uint32Array.from(starts), fieldEnd: Uint32Array.from(values, (v, i) => starts[i]! + Buffer.byteLength(v)), fieldKind: new Uint8Array(n).fill(FieldKind.Plain),
+    };
+    values.forEach((text, i) => {
+      // The reference: Number() of the decoded text, empty or blank as missing (common practice for CSV).
+      const want = text.trim() === '' ? null : Number(text);
+      if (want !== null && !Number.isFinite(want)) expect(() => binValueAt(b, i, 0, 'x', 'f.csv')).toThrow(new RegExp(`f\\.csv:${i + 2}`));
+      else expect(binValueAt(b, i, 0, 'x', 'f.csv')).toBe(want);
+    });
+  });
+});
+

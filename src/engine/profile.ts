@@ -32,10 +32,10 @@ import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, ty
 import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { fieldText, RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
+import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
-import { binLabel, binOf, computeBinEdges, parseBinValue, type BinEdges } from './quantiles.js';
+import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
 import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
 import { smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { resolveWorkerFile } from './shuffle.js';
@@ -401,7 +401,7 @@ export class ProfileTask {
     if (w < 0) return MISSING_KEY;
     const s = this.#c.stratify[j]!;
     if (s.edges === null) return fieldKey(b, i, w);
-    const v = parseBinValue(fieldText(b, i, w), s.name, this.#c.files[input] ?? '<input>', b.line[i]!);
+    const v = binValueAt(b, i, w, s.name, this.#c.files[input] ?? '<input>');
     return v === null ? MISSING_KEY : binLabel(s.edges, binOf(s.edges, v));
   }
 

@@ -8,7 +8,7 @@
  */
 import { hashWords3, type Secret } from '../core/hash.js';
 import { RowdeckError, where } from '../errors.js';
-import type { BadRecordPolicy, InputFormat } from '../io/batch.js';
+import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { isStreamInput, nameInput, readRecords } from '../io/input.js';
 import { fieldText } from '../io/reader.js';
 
@@ -72,6 +72,80 @@ export function parseBinValue(text: string | null, column: string, file: string,
   return v;
 }
 
+/**
+ * parseBinValue of wanted field w of record i: a plain field of printable ASCII (no space) is
+ * read from its bytes without decoding them (its text is the same either way, so Number() sees
+ * what it would), anything else, or a value that is not a number, as parseBinValue reads it.
+ */
+export function binValueAt(b: RecordBatch, i: number, w: number, column: string, file: string): number | null {
+  const k = i * b.wanted + w;
+  if (b.fieldKind[k] === FieldKind.Plain) {
+    const s = b.fieldStart[k]!;
+    const e = b.fieldEnd[k]!;
+    if (s === e) return null;
+    const d = b.data;
+    let p = s;
+    while (p < e && d[p]! > 0x20 && d[p]! < 0x7f) p++;
+    if (p === e) {
+      const v = Number(d.toString('latin1', s, e));
+      if (Number.isFinite(v)) return v;
+    }
+  }
+  return parseBinValue(fieldText(b, i, w), column, file, b.line[i]!);
+}
+
+/**
+ * The values at the given ranks (each in [0, v.length)) of `v` sorted as
+ * Float64Array.prototype.sort() sorts finite values (-0 before +0), found by partitioning
+ * instead of sorting (sorting a sample of millions took ~0.3 s): a range is split around the
+ * median of three of its values into [< p][== p][> p], and only the parts holding a rank are
+ * split further. A range that splits badly (more rounds than twice its size's bits) is sorted
+ * instead, so the time stays O(n log n) at worst. `v` is reordered.
+ */
+export function selectRanks(v: Float64Array, ranks: readonly number[]): number[] {
+  const wanted = [...new Set(ranks)].sort((x, y) => x - y);
+  // Ranges to split: [l, h], the wanted ranks in it wanted[r0..r1), and its round budget.
+  const stack: [number, number, number, number, number][] = [[0, v.length - 1, 0, wanted.length, 2 * Math.ceil(Math.log2(v.length + 1)) + 4]];
+  while (stack.length > 0) {
+    const [l, h, r0, r1, rounds] = stack.pop()!;
+    if (r0 >= r1 || l >= h) continue;
+    if (rounds === 0) {
+      v.subarray(l, h + 1).sort();
+      continue;
+    }
+    const m = (l + h) >>> 1;
+    const a = v[l]!, b = v[m]!, z = v[h]!;
+    const p = a < b ? (b < z ? b : a < z ? z : a) : a < z ? a : b < z ? z : b;
+    let lt = l;
+    let gt = h;
+    let i = l;
+    while (i <= gt) {
+      const x = v[i]!;
+      if (x < p) {
+        v[i] = v[lt]!;
+        v[lt++] = x;
+        i++;
+      } else if (x > p) {
+        v[i] = v[gt]!;
+        v[gt--] = x;
+      } else i++;
+    }
+    // Equal to the pivot: the same value, but for zeros, where -0 sorts before +0.
+    if (p === 0) {
+      let negative = 0;
+      for (let j = lt; j <= gt; j++) if (1 / v[j]! < 0) negative++;
+      v.fill(-0, lt, lt + negative);
+      v.fill(0, lt + negative, gt + 1);
+    }
+    let k = r0;
+    while (k < r1 && wanted[k]! < lt) k++;
+    let q = k;
+    while (q < r1 && wanted[q]! <= gt) q++;
+    stack.push([l, lt - 1, r0, k, rounds - 1], [gt + 1, h, q, r1, rounds - 1]);
+  }
+  return ranks.map((r) => v[r]!);
+}
+
 export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
   const stream = o.inputs.find(isStreamInput);
   if (stream !== undefined) {
@@ -95,7 +169,7 @@ export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
   })) {
     for (let i = 0; i < batch.count; i++) {
       for (let c = 0; c < cols.length; c++) {
-        const v = parseBinValue(fieldText(batch, i, c), cols[c]!.name, o.inputs[input]!, batch.line[i]!);
+        const v = binValueAt(batch, i, c, cols[c]!.name, o.inputs[input]!);
         if (v === null) {
           missing[c]!++;
           continue;
@@ -134,14 +208,18 @@ export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
     }
   }
   return cols.map((col, c) => {
-    const sorted = vals[c]!.slice(0, count[c]!).sort();
+    const n = count[c]!;
+    const ranks = [0];
+    for (let k = 1; k < col.bins; k++) ranks.push(Math.min(n - 1, Math.floor((k * n) / col.bins)));
+    // The values at those ranks of the sample in sorted order (sorting millions took ~0.3 s).
+    const at = n > 0 ? selectRanks(vals[c]!.subarray(0, n), ranks) : [];
     const edges: number[] = [];
     for (let k = 1; k < col.bins; k++) {
-      if (sorted.length === 0) break;
-      const e = sorted[Math.min(sorted.length - 1, Math.floor((k * sorted.length) / col.bins))]!;
+      if (n === 0) break;
+      const e = at[k]!;
       if (edges.length === 0 || e > edges[edges.length - 1]!) edges.push(e);
     }
-    if (sorted.length > 0 && edges.length > 0 && edges[0] === sorted[0]) edges.shift();
+    if (n > 0 && edges.length > 0 && edges[0] === at[0]) edges.shift();
     return { column: col.name, bins: col.bins, edges, exact: threshold[c] === 0x100000000, values: seen[c]!, missing: missing[c]! };
   });
 }

@@ -17,8 +17,8 @@
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
-import { decodeCsvQuoted, fieldText, type RecordReaderOptions } from '../io/reader.js';
-import { binLabel, binOf, parseBinValue } from './quantiles.js';
+import { decodeCsvQuoted, type RecordReaderOptions } from '../io/reader.js';
+import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
 import { readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
@@ -192,7 +192,7 @@ export class ScatterTask {
   #partKey(b: RecordBatch, i: number, w: number): string {
     const edges = this.#c.bins[w];
     if (!edges) return fieldKey(b, i, w);
-    const v = parseBinValue(fieldText(b, i, w), this.#c.stratify[w]!, this.#c.inputs[this.#input]!, b.line[i]!);
+    const v = binValueAt(b, i, w, this.#c.stratify[w]!, this.#c.inputs[this.#input]!);
     return v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
   }
 

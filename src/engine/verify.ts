@@ -23,9 +23,9 @@ import { RowdeckError, ioError } from '../errors.js';
 import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput } from '../io/input.js';
-import { RecordReader, fieldText } from '../io/reader.js';
+import { RecordReader } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
-import { binLabel, binOf, parseBinValue } from './quantiles.js';
+import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -726,7 +726,7 @@ function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): st
     let part: string;
     if (!edges) part = fieldKey(b, i, w);
     else {
-      const v = parseBinValue(fieldText(b, i, w), plan.stratify[w]!, file, b.line[i]!);
+      const v = binValueAt(b, i, w, plan.stratify[w]!, file);
       part = v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
     }
     k += (w ? TUPLE_SEP : '') + part;
