@@ -22,7 +22,7 @@ import { PartStatsGather } from './part-stats.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
-import { isStreamInput, nameInput, openInput } from '../io/input.js';
+import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import type { Manifest, PartRecord } from './manifest.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
@@ -834,9 +834,9 @@ async function hashFile(path: string): Promise<{ bytes: number; sha256: string }
  * Feeds a source through a record reader, batch by batch. A part or input with no records is
  * not an error here (the counts say whether it should have had some).
  */
-async function readAll(source: string | Readable, reader: RecordReader, onBatch: (b: RecordBatch) => void): Promise<void> {
+async function readAll(source: string | Readable | Buffer, reader: RecordReader, onBatch: (b: RecordBatch) => void): Promise<void> {
   try {
-    for await (const chunk of openInput(source)) {
+    for await (const chunk of Buffer.isBuffer(source) ? [source] : openInput(source)) {
       const b = reader.push(chunk);
       if (b) onBatch(b);
     }
@@ -988,6 +988,8 @@ function createInputReader(plan: ReadPlan, file: string): RecordReader {
 
 async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | null, progress: (done: number, records: number) => void): Promise<InputScan> {
   const res: InputScan = { records: 0, rejected: 0, perFile: [], fingerprint: new Fingerprint(), errors: [], headers: [] };
+  // Small inputs are read whole, a few ahead (thousands of shards each took their trips to the thread pool).
+  const ahead = new ReadAhead(inputs, READ_AHEAD_MAX_BYTES);
   for (let k = 0; k < inputs.length; k++) {
     const path = inputs[k]!;
     const file = nameInput(path);
@@ -999,9 +1001,10 @@ async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | n
       }
     }
     const reader = createInputReader(plan, file);
+    const whole = await ahead.take(k);
     let n = 0;
     try {
-      await readAll(path, reader, (b) => {
+      await readAll(whole ?? path, reader, (b) => {
         for (let i = 0; i < b.count; i++) {
           const h = recordHash(b.data, b.start[i]!, b.end[i]!);
           res.fingerprint.addHash(h[0]!, h[1]!);
