@@ -37,7 +37,7 @@ import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
 import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
-import { smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
+import { readInputs, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { resolveWorkerFile } from './shuffle.js';
 
 export const PROFILE_VERSION = 1;
@@ -657,40 +657,32 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       } finally {
         await it.return?.(undefined);
       }
-        };
-    const declined: number[] = [];
-    for (let k = 0; k < o.inputs.length; k++) {
-      const small = run.small && first?.csv && detectFormat(o.inputs[k]!, o.format ?? undefined) !== 'jsonl' ? smallFileSize(o.inputs[k]!) : null;
-      try {
-        if (small === null) await readHere(k);
-        else {
-          const seen = inputs[k]!;
-          const columns = first!.columns;
-          await run.small!.send(o.inputs[k]!, small, k, readerOptions(o, k, columns, columns, onReject), (records, bytes) => {
+    };
+    await readInputs(
+      o.inputs.length,
+      () => run.small,
+      (k) => {
+        // Small CSV/TSV inputs after the first (whose columns they are checked against).
+        const size = first?.csv && detectFormat(o.inputs[k]!, o.format ?? undefined) !== 'jsonl' ? smallFileSize(o.inputs[k]!) : null;
+        if (size === null) return null;
+        const seen = inputs[k]!;
+        return {
+          path: o.inputs[k]!,
+          size,
+          reader: readerOptions(o, k, first!.columns, first!.columns, onReject),
+          done: (records, bytes) => {
             seen.records = records;
             seen.bytes = bytes;
             progress();
-          }, () => declined.push(k));
-        }
-      } catch (err) {
-        // An input read here failed: one given to a worker before it may have failed too.
-        await run.small?.settle(k);
-        throw err;
-      }
-      if (k === 0) ahead = new ReadAhead(o.inputs, blockBytes, run.small ? 0 : undefined);
-    }
-    if (run.small) {
-      await run.small.settle(Infinity, true);
-      for (const k of declined.sort((x, y) => x - y)) {
-        try {
-          await readHere(k);
-        } catch (err) {
-          await run.small.settle(k);
-          throw err;
-        }
-      }
-      await run.small.settle();
-    }
+          },
+        };
+      },
+      async (k) => {
+        await readHere(k);
+        // Its columns known, the rest are read ahead unless the workers read them.
+        if (k === 0) ahead = new ReadAhead(o.inputs, blockBytes, run.small ? 0 : undefined);
+      },
+    );
     const cols: string[] = first?.columns ?? [];
     // The tasks' tables are let go once serialised (threads ended, the inline task dropped), so a
     // wide input's tables are not held twice while the profile is built from their copies.

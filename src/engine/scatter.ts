@@ -20,7 +20,7 @@ import { hashedCell, type DealSpec } from '../core/deal.js';
 import { decodeCsvQuoted, type RecordReaderOptions } from '../io/reader.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
-import { readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
+import { readInputs, readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -573,38 +573,26 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       }
       if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: (schema as InputSchema).columns, from: ro.file };
     };
-    // Inputs a worker turned down (a small gzip file, one that changed size, one it could not open): read here after the others.
-    const declined: number[] = [];
-    for (let k = 0; k < o.inputs.length; k++) {
-      const size = small && schema ? smallFileSize(o.inputs[k]!) : null;
-      try {
-        if (size === null) await readHere(k);
-        else {
-          const seen = inputs[k]!;
-          await small!.send(o.inputs[k]!, size, k, readerOptions(k), (records, bytes) => {
+    await readInputs(
+      o.inputs.length,
+      () => small,
+      (k) => {
+        const size = schema ? smallFileSize(o.inputs[k]!) : null;
+        if (size === null) return null;
+        const seen = inputs[k]!;
+        return {
+          path: o.inputs[k]!,
+          size,
+          reader: readerOptions(k),
+          done: (records, bytes) => {
             seen.records = records;
             seen.bytes = bytes;
             progress();
-          }, () => declined.push(k));
-        }
-      } catch (err) {
-        // An input read here failed: one given to a worker before it may have failed too.
-        await small?.settle(k);
-        throw err;
-      }
-    }
-    if (small) {
-      await small.settle(Infinity, true);
-      for (const k of declined.sort((x, y) => x - y)) {
-        try {
-          await readHere(k);
-        } catch (err) {
-          await small.settle(k);
-          throw err;
-        }
-      }
-      await small.settle();
-    }
+          },
+        };
+      },
+      readHere,
+    );
     progress();
     if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
     let results: ScatterTaskResult[];

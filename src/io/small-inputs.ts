@@ -122,3 +122,42 @@ export class SmallInputSender {
   }
 }
 
+/** A small input a worker may read (see readInputs): its path, size and reader options, and what to do with its counts. */
+export interface SmallInput {
+  path: string;
+  size: number;
+  reader: RecordReaderOptions;
+  done: (records: number, bytes: number) => void;
+}
+
+/**
+ * Reads inputs 0..count-1 in order: each one `small(k)` describes goes to a worker through the
+ * sender (`sender()`, when there is one: it may start with the first input), any other with
+ * `readHere(k)`; an input a worker turned down (a small gzip file, one that changed size, one
+ * it could not open) is read with `readHere` after the others. An error raised is that of the
+ * first input that has one, wherever it was read.
+ */
+export async function readInputs(count: number, sender: () => SmallInputSender | null, small: (k: number) => SmallInput | null, readHere: (k: number) => Promise<void>): Promise<void> {
+  const declined: number[] = [];
+  const here = async (k: number): Promise<void> => {
+    try {
+      await readHere(k);
+    } catch (err) {
+      // An input read here failed: one given to a worker before it may have failed too.
+      await sender()?.settle(k);
+      throw err;
+    }
+  };
+  for (let k = 0; k < count; k++) {
+    const to = sender();
+    const s = to ? small(k) : null;
+    if (s === null) await here(k);
+    else await to!.send(s.path, s.size, k, s.reader, s.done, () => declined.push(k));
+  }
+  const to = sender();
+  if (!to) return;
+  await to.settle(Infinity, true);
+  for (const k of declined.sort((x, y) => x - y)) await here(k);
+  await to.settle();
+}
+
