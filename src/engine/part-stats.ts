@@ -95,9 +95,9 @@ function newPartReader(plan: GatherPlan): RecordReader {
 
 /**
  * One part's statistics, read back from its file (see the top of this file), into an empty
- * table of the plan's columns (see PartStatsGather.take).
+ * table of the plan's columns (PartStatsGather.take; its done() gives the module back).
  */
-export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, stats = new TableStats(plan.statsColumns)): Promise<TableStats> {
+export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, stats: TableStats): Promise<TableStats> {
   let skip = task.headerBytes;
   const reader = newPartReader(plan);
   for await (const chunk of openInput(task.partFile)) {
@@ -113,7 +113,6 @@ export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, sta
   }
   const last = reader.end();
   if (last) stats.addBatch(last);
-  stats.releaseKernel();
   return stats;
 }
 

@@ -166,7 +166,6 @@ interface PartScan {
   stats: ColumnSummary[] | null;
 }
 
-
 /** Outputs at least this large are read on worker threads by default. */
 const PARALLEL_MIN_BYTES = 32 * 1024 * 1024;
 
@@ -185,6 +184,11 @@ export interface SerializedPartScan extends Omit<PartScan, 'unknown' | 'fingerpr
   /** (lo, hi) pairs, or null; `hashesOverflow` when there were too many to keep. */
   hashes: Uint32Array | null;
   hashesOverflow: boolean;
+}
+
+/** The statistics of the parts a thread reads, where the manifest holds column statistics (a run with --stats). */
+export function partStatsGatherFor(m: Manifest): PartStatsGather | null {
+  return m.input.stats !== undefined ? new PartStatsGather(m.input.columns) : null;
 }
 
 /** The worker's side: scans one part with the plan made from the manifest. */
@@ -287,7 +291,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
   let scans: PartScan[];
   // With --stats: the parts' statistics merged, for the whole input's.
-  let wholeStats: TableStats | null = plan.statsColumns !== null ? new TableStats(plan.statsColumns) : null;
+  let wholeStats: TableStats | null = null;
   if (threads > 1) {
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
@@ -300,13 +304,16 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
         parts.map((p) => limit(async () => partDone(readPartScan(await lanes.run({ path: join(dir, p.path), display: p.path, hashes: outHashes !== null }), outHashes)))),
       );
       // Each thread's statistics of the parts it read (see PartStatsGather).
-      if (wholeStats) for (const t of await lanes.finish()) if (t) wholeStats.mergeSerialized(t);
+      if (plan.statsColumns !== null) {
+        wholeStats = new TableStats(plan.statsColumns);
+        for (const t of await lanes.finish()) if (t) wholeStats.mergeSerialized(t);
+      }
     } finally {
       await lanes.destroy();
     }
   } else {
     const limit = pLimit(2);
-    const gather = plan.statsColumns !== null ? new PartStatsGather(plan.statsColumns) : null;
+    const gather = partStatsGatherFor(m);
     scans = await Promise.all(parts.map((p) => limit(async () => partDone(await scanPart(join(dir, p.path), p.path, plan, outHashes, gather)))));
     if (gather) wholeStats = gather.whole;
   }
@@ -876,12 +883,12 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
   const sink = { hash: createHash('sha256'), bytes: 0 };
   // With statistics to check, every column is wanted after the class columns (a column may be
   // both), and a table of them is fed from there (TableStats.addBatch's `first`).
-  const table = plan.statsColumns !== null && gather ? gather.take() : null;
+  const table = gather ? gather.take() : null;
   const reader = new RecordReader({
     format: plan.format,
     ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
     header: plan.header,
-    wanted: table ? [...plan.stratify, ...plan.statsColumns!] : plan.stratify,
+    wanted: table ? [...plan.stratify, ...table.columns] : plan.stratify,
     file: display,
     onBadRecord: 'fail',
   });

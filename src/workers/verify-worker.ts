@@ -1,18 +1,17 @@
 /**
  * Worker entry for `verify`: reads whole parts (sha256, records, classes, folds, fingerprints,
- * column statistics) while other threads read others. The manifest arrives once, as workerData; each task is one
- * part. See src/engine/verify.ts.
+ * column statistics) while other threads read others. The manifest arrives once, as
+ * workerData; each task is one part. See src/engine/verify.ts.
  */
 import { workerData } from 'node:worker_threads';
-import { scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
-import { PartStatsGather } from '../engine/part-stats.js';
+import { partStatsGatherFor, scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
 import type { Manifest } from '../engine/manifest.js';
 import type { SerializedStats } from '../core/stats.js';
 import { serveLane } from './lanes.js';
 
 const { data } = workerData as { lane: number; data: Manifest };
 // With --stats in the manifest: this thread's statistics of the parts it reads, handed over at the end.
-const gather = data.input.stats !== undefined ? new PartStatsGather(data.input.columns) : null;
+const gather = partStatsGatherFor(data);
 
 serveLane<VerifyPartTask, SerializedPartScan, SerializedStats | null>(
   async (task) => {
