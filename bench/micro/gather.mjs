@@ -1,6 +1,7 @@
 #!/usr/bin/env node
 // Micro-benchmark of stage 2 for one bucket: CPU time per record of each phase of gatherBucket.
-//   node bench/micro/gather.mjs [--records 40000] [--rounds 20] [--plain]   (--plain: without --stats only)
+//   node bench/micro/gather.mjs [--records 40000] [--rounds 20] [--plain] [--scheme 1|2]
+//   (--plain: without --stats only; --scheme 1: deal rank r to position r, without the rank permutation)
 // Builds one spill bucket from invented sensor records with the real scatter code, then deals it
 // `rounds` times. CPU time (process.cpuUsage) is reported, so a busy machine distorts it less.
 import { mkdtempSync, rmSync } from 'node:fs';
@@ -28,7 +29,7 @@ for (let i = 0; i < records; i++) {
 const dir = mkdtempSync(join(tmpdir(), 'rowdeck-micro-'));
 try {
   const secret = deriveSecret('micro');
-  const task = new ScatterTask({ inputs: ['x.csv'], stratify: ['fault'], bins: [null], key: [], group: null, secret: Array.from(secret), spillDir: dir, task: 0, bits: 0, bufferBytes: 1 << 20 });
+  const task = new ScatterTask({ inputs: ['x.csv'], stratify: ['fault'], bins: [null], key: [], group: null, secret: Array.from(secret), spillDir: dir, task: 0, bits: 0, bufferBytes: 1 << 20, hashCells: null, cellKeyInHeader: null });
   const reader = new RecordReader({ format: 'csv', header: true, wanted: ['fault'], file: 'x.csv', onBadRecord: 'fail' });
   const b1 = reader.push(Buffer.from(text));
   if (b1) task.addBatch(b1, 0);
@@ -36,16 +37,17 @@ try {
   if (b2) task.addBatch(b2, 0);
   const res = task.finish();
   const pieces = [];
-  for (let k = 0; k < res.chunks[0].length; k += 2) pieces.push({ task: 0, path: res.path, offset: res.chunks[0][k], length: res.chunks[0][k + 1] });
+  for (let k = 0; k < res.chunks[0].length; k += 2) pieces.push({ task: 0, path: res.paths[0], offset: res.chunks[0][k], length: res.chunks[0][k + 1] });
   const sizes = res.bucketCounts.map((c) => c[0]);
   const deal = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions: 8, folds: 1 };
-  const t = buildDealTable(sizes, deal);
+  const scheme = arg('scheme', 2);
+  const t = buildDealTable(sizes, deal, [], scheme === 2 ? deriveSecret('rank') : null);
   for (const stats of process.argv.includes('--plain') ? [false] : [false, true]) {
     const plan = {
-      version: 1, bits: 0, buckets: 1, scatterTasks: 1, format: 'csv', delimiter: 44, lineEnding: '\n', mode: 'exact', deal,
+      version: 1, bits: 0, buckets: 1, scatterTasks: 1, format: 'csv', delimiter: 44, lineEnding: '\n', mode: 'exact', order: 'random', cellKeyInHeader: false, deal,
       foldColumn: null, strataCount: sizes.length, localToGlobal: [sizes.map((_, i) => i)],
-      quota: Array.from(t.quota), cumQuota: Array.from(t.cumQuota), offset: Array.from(t.offset), cellSecret: [1, 2, 3, 4],
-      groupsFile: null, statsColumns: stats ? ['reading_id', 'sensor_id', 'site', 'taken_at', 'temp_c', 'humidity_pct', 'battery_v', 'vibration_g', 'note', 'fault'] : [], excludeValues: false,
+      quota: Array.from(t.quota), cumQuota: Array.from(t.cumQuota), offset: Array.from(t.offset), cellSecret: [1, 2, 3, 4], rankSecret: t.rankSecret ? Array.from(t.rankSecret) : null,
+      groupsFile: null, groupStarts: null, statsColumns: stats ? ['reading_id', 'sensor_id', 'site', 'taken_at', 'temp_c', 'humidity_pct', 'battery_v', 'vibration_g', 'note', 'fault'] : [], excludeValues: false,
     };
     const prep = preparePlan(plan, null);
     const tables = stats ? Array.from({ length: 8 }, () => new TableStats(plan.statsColumns)) : null;

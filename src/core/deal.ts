@@ -2,19 +2,29 @@
  * Dealing: which part (split × partition) and fold each record goes to, decided from counts
  * alone so that every bucket can be dealt independently, in any order, on any thread.
  *
- * Within one stratum the records in key order are a uniformly random ordering, so handing the
- * r-th of them to a cell chosen by a fixed rule gives a uniformly random assignment with exact
- * quotas. The rule used here:
- *   1. split: contiguous rank blocks of the stratum's split quotas (quotas within one record of
- *      the weight, leftovers to the split furthest behind overall);
- *   2. inside split i, the record's position j in that split's dealing sequence continues from
- *      stratum to stratum (strata in a seeded order), and cell t = j mod (P·K) gives the
- *      partition p = t mod P and the fold f = (t + ⌊t / lcm(P,K)⌋) mod K. Each cell is visited
- *      once per cycle (counts per stratum and cell within one), partitions cycle with period P
- *      (per stratum within one, totals within one), folds within two.
+ * Within one stratum the records in key order are a uniformly random ordering. The r-th of them
+ * (its rank) takes the dealing position x = π(r), where π is a keyed pseudorandom permutation of
+ * the stratum's ranks (permute.ts), and the position decides the cell by a fixed rule:
+ *   1. split: contiguous blocks of positions of the stratum's split quotas (quotas within one
+ *      record of the weight, leftovers to the split furthest behind overall);
+ *   2. inside split i, the position j in that split's dealing sequence continues from stratum to
+ *      stratum (strata in a seeded order), and cell t = j mod (P·K) gives the partition
+ *      p = t mod P and the fold f = (t + ⌊t / lcm(P,K)⌋) mod K. Each cell is visited once per
+ *      cycle (counts per stratum and cell within one), partitions cycle with period P (per
+ *      stratum within one, totals within one), folds within two.
+ * The counts depend only on the multiset of positions, which π does not change; π makes which
+ * record takes which position independent of key order, so the records a part holds, kept in
+ * key order, come in a uniformly random order (docs/design.md, "Membership and order").
  * This module is pure: no I/O.
  */
 import { hashToUnit, hashWords3, type Secret } from './hash.js';
+import { permuteRank, rankPermutation, type RankPermutation } from './permute.js';
+
+/**
+ * Which dealing scheme this code implements, recorded in the manifest. 1: rank r dealt to
+ * position r (parts came out with their classes evenly interleaved); 2: rank r dealt to π(r).
+ */
+export const DEALING_SCHEME = 2;
 
 export interface SplitSpec {
   name: string;
@@ -41,6 +51,23 @@ export interface DealTable {
   cumQuota: Float64Array;
   /** `offset[s * S + i]`: position in split i's dealing sequence of stratum s's first record there. */
   offset: Float64Array;
+  /** Secret of the rank permutations (derived from the seed); null deals rank r to position r (scheme 1). */
+  rankSecret: Secret | null;
+  /** Each stratum's rank permutation, made when first needed. */
+  perms: (RankPermutation | undefined)[];
+}
+
+/** Stratum s's rank permutation (over its size, cumQuota's last entry for s). */
+export function stratumPermutation(table: DealTable, s: number): RankPermutation | null {
+  if (!table.rankSecret) return null;
+  const S = table.spec.splits.length;
+  return (table.perms[s] ??= rankPermutation(table.rankSecret, s, table.cumQuota[s * (S + 1) + S]!));
+}
+
+/** The dealing position of the record of rank `rank` in stratum `s`. */
+export function dealPosition(table: DealTable, s: number, rank: number): number {
+  const p = stratumPermutation(table, s);
+  return p ? permuteRank(p, rank) : rank;
 }
 
 /** Where each split's dealing cycle starts: drawn from the seed's secret, one per split. */
@@ -107,8 +134,9 @@ export function computeQuotas(strataSizes: ArrayLike<number>, spec: DealSpec): F
  * Builds the dealing table from the stratum sizes (already in dealing order). `starts[i]` is
  * where split i's dealing sequence begins (drawn from the seed), so which partitions and folds
  * receive the leftover records of a stratum is random too, not always the first ones.
+ * `rankSecret` keys the rank permutations (see the module's comment).
  */
-export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec, starts: ArrayLike<number> = []): DealTable {
+export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec, starts: ArrayLike<number> = [], rankSecret: Secret | null = null): DealTable {
   const S = spec.splits.length;
   const nStrata = strataSizes.length;
   const quota = computeQuotas(strataSizes, spec);
@@ -126,7 +154,7 @@ export function buildDealTable(strataSizes: ArrayLike<number>, spec: DealSpec, s
     }
     cumQuota[s * (S + 1) + S] = c;
   }
-  return { spec, strataCount: nStrata, quota, cumQuota, offset };
+  return { spec, strataCount: nStrata, quota, cumQuota, offset, rankSecret, perms: [] };
 }
 
 /**
@@ -137,9 +165,10 @@ export function dealRecord(table: DealTable, s: number, rank: number): number {
   const { splits, partitions: P, folds: K } = table.spec;
   const S = splits.length;
   const base = s * (S + 1);
+  const x = dealPosition(table, s, rank);
   let i = 0;
-  while (i < S - 1 && rank >= table.cumQuota[base + i + 1]!) i++;
-  const j = table.offset[s * S + i]! + (rank - table.cumQuota[base + i]!);
+  while (i < S - 1 && x >= table.cumQuota[base + i + 1]!) i++;
+  const j = table.offset[s * S + i]! + (x - table.cumQuota[base + i]!);
   const m = P * K;
   const t = j % m;
   const l = m / gcd(P, K);
