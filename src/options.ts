@@ -50,6 +50,14 @@ export interface ShuffleOptions {
   key?: string | string[];
   /** 'exact' quotas (default) or 'hash': part = pure function of key and seed. */
   assign?: 'exact' | 'hash';
+  /**
+   * Order of the records inside each part: 'random' (default: a uniformly random order, also
+   * with `group` or `assign: 'hash'`, whose records share a part but not a place in it),
+   * 'spread' (every class spread evenly through each part; see docs/design.md for the exact
+   * guarantee) or 'grouped' (records of one group or key next to each other, in input order,
+   * groups in random order; needs `group` or `assign: 'hash'`).
+   */
+  order?: PartOrder;
   /** Memory budget in bytes, or text like '64MiB', '1GiB'. Default 512 MiB. */
   memory?: number | string;
   /**
@@ -80,6 +88,9 @@ export interface ShuffleOptions {
   onProgress?: (e: ProgressEvent) => void;
 }
 
+export type PartOrder = 'random' | 'spread' | 'grouped';
+export const PART_ORDERS: readonly PartOrder[] = ['random', 'spread', 'grouped'];
+
 export interface StratifyColumn {
   name: string;
   /** Quantile bins for a numeric column, or 0 for plain values. */
@@ -103,6 +114,7 @@ export interface ResolvedShuffleOptions {
   group: string | null;
   key: string[];
   assign: 'exact' | 'hash' | 'group';
+  order: PartOrder;
   memory: number;
   threads: number;
   tempDir: string | null;
@@ -232,6 +244,11 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (assign0 !== 'exact' && assign0 !== 'hash') throw invalid('assign', '"exact" or "hash"', assign0);
   if (assign0 === 'hash' && key.length === 0) throw invalid('key', 'one or more key columns with assign "hash" (the part must follow from the key)', o.key ?? '');
   if (assign0 === 'hash' && group !== null) throw invalid('assign', '"exact" with group (groups are dealt as units)', assign0);
+  const order = o.order ?? 'random';
+  if (!PART_ORDERS.includes(order)) throw invalid('order', '"random", "spread" or "grouped"', order);
+  if (order === 'grouped' && group === null && assign0 !== 'hash') {
+    throw invalid('order', '"random" or "spread" without group or assign "hash" ("grouped" keeps the records of one group or key together: give group, or assign "hash" with key)', order);
+  }
   const { splits, counts, rest } = parseSplits(o.split);
   if (assign0 === 'hash' && counts) throw invalid('split', 'weights as fractions with assign "hash" (its shares are approximate, so record counts cannot be met)', typeof o.split === 'string' ? o.split : JSON.stringify(o.split));
   const foldColumn = folds > 1 ? (o.foldColumn ?? 'fold') : null;
@@ -259,6 +276,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     group,
     key,
     assign: group !== null ? 'group' : assign0,
+    order,
     memory,
     threads,
     tempDir: o.tempDir ?? null,

@@ -17,6 +17,8 @@ export interface SortKeys {
   keyLo: Uint32Array;
   /** Identity tie-breaker (input ordinal, byte offset); read only for records whose keys tie. */
   identity: (i: number) => [number, number];
+  /** Last tie-breaker, for records whose keys and identities tie (where the identity words hold something else). */
+  tie?: (a: number, b: number) => number;
 }
 
 /**
@@ -142,5 +144,5 @@ export function compareRecords(keys: SortKeys, a: number, b: number): number {
   if (d !== 0) return d;
   const x = keys.identity(a);
   const y = keys.identity(b);
-  return x[0] - y[0] || x[1] - y[1];
+  return x[0] - y[0] || x[1] - y[1] || (keys.tie ? keys.tie(a, b) : 0);
 }

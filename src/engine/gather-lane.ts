@@ -22,7 +22,36 @@ export type GatherFinal = { parts: SerializedStats[] } | { readBack: SerializedS
 export function loadGatherPlan(planPath: string): PreparedPlan {
   const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
   const file = plan.groupsFile ? join(dirname(planPath), plan.groupsFile) : null;
+  if (file && plan.groupStarts === null) {
+    // Records placed individually (GatherPlan.cellKeyInHeader): any bucket may hold any group.
+    let all: BucketGroups | null = null;
+    return preparePlan(plan, () => (all ??= readAllGroups(file)));
+  }
   return preparePlan(plan, file ? (bucket) => readBucketGroups(file, plan.groupStarts!, bucket) : null);
+}
+
+/**
+ * The whole group table, for buckets whose records may belong to any group: 12 bytes a group,
+ * and a directory of where each run of keys sharing their top bits starts (about four groups a
+ * run), so a look-up searches a few entries rather than the whole table.
+ */
+function readAllGroups(file: string): BucketGroups {
+  let bytes: Buffer;
+  try {
+    bytes = readFileSync(file);
+  } catch (err) {
+    throw ioError(err, file, 'reading the group table');
+  }
+  const n = bytes.length / 12;
+  const buf = bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.length) as ArrayBuffer;
+  const keyHi = new Uint32Array(buf, 0, n);
+  let dirBits = 1;
+  while (dirBits < 24 && 2 ** (dirBits + 2) < n) dirBits++;
+  const dir = new Uint32Array(2 ** dirBits + 1);
+  const shift = 32 - dirBits;
+  for (let k = 0; k < n; k++) dir[(keyHi[k]! >>> shift) + 1]!++;
+  for (let d = 0; d < 2 ** dirBits; d++) dir[d + 1]! += dir[d]!;
+  return { keyHi, keyLo: new Uint32Array(buf, 4 * n, n), cell: new Uint32Array(buf, 8 * n, n), dir, dirShift: shift };
 }
 
 /**

@@ -4,9 +4,10 @@
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
 import { closeSync, openSync, readSync } from 'node:fs';
-import { buildDealTable, cellOf, hashedCell, type DealTable } from '../core/deal.js';
+import { buildDealTable, cellOf, hashedCell, stratumPermutation, type DealTable } from '../core/deal.js';
+import { permuteRank } from '../core/permute.js';
 import { Fingerprint } from '../core/hash.js';
-import { sortByKey } from '../core/sort.js';
+import { sortByKey, type SortKeys } from '../core/sort.js';
 import { ioError } from '../errors.js';
 import type { TableStats } from '../core/stats.js';
 import { partCount, type GatherPlan } from './plan.js';
@@ -67,6 +68,10 @@ export interface BucketGroups {
   keyHi: Uint32Array;
   keyLo: Uint32Array;
   cell: Uint32Array;
+  /** A directory of the keys' top bits: entries dir[k] up to dir[k + 1] have top bits k. */
+  dir?: Uint32Array;
+  /** 32 less the directory's bits. */
+  dirShift?: number;
 }
 
 /**
@@ -87,7 +92,7 @@ export function preparePlan(plan: GatherPlan, groupsOf: ((bucket: number) => Buc
 
 function buildDealTableFromPlan(plan: GatherPlan): DealTable {
   // The plan carries the quotas already computed; rebuild the typed views without recomputing.
-  const t = buildDealTable([], plan.deal);
+  const t = buildDealTable([], plan.deal, [], plan.rankSecret ? Uint32Array.from(plan.rankSecret) : null);
   return {
     ...t,
     strataCount: plan.strataCount,
@@ -101,6 +106,11 @@ function buildDealTableFromPlan(plan: GatherPlan): DealTable {
 function findGroupCell(groups: BucketGroups, hi: number, lo: number): number {
   let a = 0;
   let b = groups.keyHi.length - 1;
+  if (groups.dir) {
+    const d = hi >>> groups.dirShift!;
+    a = groups.dir[d]!;
+    b = groups.dir[d + 1]! - 1;
+  }
   while (a <= b) {
     const m = (a + b) >>> 1;
     const d = groups.keyHi[m]! - hi || groups.keyLo[m]! - lo;
@@ -159,17 +169,21 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const n = ix.count;
   T?.push(performance.now());
   const { u32, at, keyHi, keyLo } = ix;
-  const order = sortByKey({ keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) }, n, plan.bits);
+  const order = sortByKey(sortKeysOf(ix, bytes, plan.cellKeyInHeader), n, plan.bits);
   T?.push(performance.now());
 
   // Each record's cell, in key order (its rank within its stratum follows key order).
   const cellOfRec = scratch(5, n);
+  // The hash its cell follows from in hash and group modes: the spill key's, or (records placed
+  // individually, see GatherPlan.cellKeyInHeader) the one in the header's identity words.
+  const cellHi = plan.cellKeyInHeader ? (i: number): number => u32[at[i]! + 3]! : (i: number): number => keyHi[i]!;
+  const cellLo = plan.cellKeyInHeader ? (i: number): number => u32[at[i]! + 2]! : (i: number): number => keyLo[i]!;
   // dealExact counts the ranks on in the task's own array: the task is this bucket's alone.
   if (plan.mode === 'exact') dealExact(order, n, ix.stratum, task.rankStart, table, cellOfRec);
-  else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, keyHi[i]!, keyLo[i]!);
+  else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, cellHi(i), cellLo(i));
   else {
     const groups = prep.groupsOf!(task.bucket);
-    for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(groups, keyHi[i]!, keyLo[i]!);
+    for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(groups, cellHi(i), cellLo(i));
   }
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
@@ -313,7 +327,7 @@ export function censusBucket(task: CensusTask): GroupTableData {
   const ix = indexSpill(bytes, spillBytes, task.pieces, task.strata);
   const { u32, at, keyHi, keyLo, stratum } = ix;
   const n = ix.count;
-  const order = sortByKey({ keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) }, n, task.bits);
+  const order = sortByKey(sortKeysOf(ix, bytes, false), n, task.bits);
   let groups = 0;
   for (let k = 0; k < n; k++) {
     const i = order[k]!;
@@ -347,7 +361,7 @@ export function censusBucket(task: CensusTask): GroupTableData {
   return out;
 }
 
-/** Exact dealing: rank within stratum -> split block -> position in the split's cycle -> cell. */
+/** Exact dealing: rank within stratum -> dealing position π(rank) -> split block -> position in the split's cycle -> cell. */
 function dealExact(order: Uint32Array, n: number, stratum: Uint32Array, seen: Float64Array, table: DealTable, cellOfRec: Uint32Array): void {
   const { partitions: P, folds: K } = table.spec;
   const S = table.spec.splits.length;
@@ -363,10 +377,12 @@ function dealExact(order: Uint32Array, n: number, stratum: Uint32Array, seen: Fl
     const s = stratum[i]!;
     const rank = seen[s]!;
     seen[s] = rank + 1;
+    const perm = stratumPermutation(table, s);
+    const x = perm ? permuteRank(perm, rank) : rank;
     let split = 0;
     const base = s * (S + 1);
-    while (split < S - 1 && rank >= cumQuota[base + split + 1]!) split++;
-    const j = offset[s * S + split]! + (rank - cumQuota[base + split]!);
+    while (split < S - 1 && x >= cumQuota[base + split + 1]!) split++;
+    const j = offset[s * S + split]! + (x - cumQuota[base + split]!);
     // An integer remainder while j fits 31 bits: a floating-point one cost ~16 ns a record
     // against ~7 in a loop of this step over 1 Mi records.
     cellOfRec[i] = split * M + cycle[j < 0x80000000 ? (j | 0) % M : j % M]!;
@@ -574,6 +590,27 @@ function isEmptyObject(bytes: Uint8Array, s: number, len: number): boolean {
   let prev = close - 1;
   while (prev > s && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
   return bytes[prev] === 0x7b;
+}
+
+/**
+ * How a bucket's records are ordered: by key, then identity. Where the identity words hold the
+ * cell's hash instead (GatherPlan.cellKeyInHeader), two records can tie on both (a collision of
+ * the 64-bit identity hash within one group or key): their bytes decide, and records whose
+ * bytes are equal too are interchangeable, so the output does not depend on which came first.
+ */
+function sortKeysOf(ix: BucketIndex, bytes: Uint8Array, cellKeyInHeader: boolean): SortKeys {
+  const { u32, at, keyHi, keyLo, lenTerm } = ix;
+  const keys: SortKeys = { keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) };
+  if (cellKeyInHeader) {
+    keys.tie = (a, b) => {
+      const la = lenTerm[a]! >>> 2;
+      const lb = lenTerm[b]! >>> 2;
+      const sa = at[a]! * 4 + HEADER_BYTES;
+      const sb = at[b]! * 4 + HEADER_BYTES;
+      return Buffer.compare(bytes.subarray(sa, sa + la), bytes.subarray(sb, sb + lb));
+    };
+  }
+  return keys;
 }
 
 /** (input ordinal, byte offset) of the record whose header starts at word `w`. */

@@ -5,6 +5,7 @@
  */
 import type { DealSpec } from '../core/deal.js';
 import type { InputFormat } from '../io/batch.js';
+import type { PartOrder } from '../options.js';
 
 export type AssignMode = 'exact' | 'hash' | 'group';
 
@@ -20,6 +21,13 @@ export interface GatherPlan {
   /** Line terminator written for a record that had none (the last of an input). */
   lineEnding: '\n' | '\r\n';
   mode: AssignMode;
+  order: PartOrder;
+  /**
+   * Group and hash modes placing records individually (order random or spread): the spill key
+   * is the record's identity hash and the group or key hash, which decides the cell, is in the
+   * spill header where exact mode keeps the identity (see ScatterTaskConfig.cellKeyInHeader).
+   */
+  cellKeyInHeader: boolean;
   deal: DealSpec;
   /** Name of the appended fold column, or null when no fold column is written. */
   foldColumn: string | null;
@@ -31,9 +39,15 @@ export interface GatherPlan {
   offset: number[];
   /** Secret words for hash-mode cells (derived from the seed). */
   cellSecret: number[];
+  /** Secret words of the exact dealing's rank permutations (derived from the seed; see core/permute.ts). */
+  rankSecret: number[];
   /** Group mode: file (in the spill folder) holding sorted group keys and their cells. */
   groupsFile: string | null;
-  /** Group mode: bucket b's groups are entries starts[b] up to starts[b + 1] of that file. */
+  /**
+   * Group mode: bucket b's groups are entries starts[b] up to starts[b + 1] of that file. Null
+   * with `cellKeyInHeader`: a bucket's records may belong to any group, and a lane reads the
+   * whole table.
+   */
   groupStarts: number[] | null;
   /** Column names, for per-part statistics; empty disables them. */
   statsColumns: string[];

@@ -14,6 +14,7 @@
  * them to one dealing order. Which worker saw which record changes nothing downstream: stage 2
  * sorts every bucket by key and identity.
  */
+import { join } from 'node:path';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
@@ -49,10 +50,21 @@ export interface ScatterTaskConfig {
   bufferBytes: number;
   /** `--assign hash`: count records per (cell, stratum) as they pass, so the plan needs no re-read. */
   hashCells: { deal: DealSpec; cellSecret: number[] } | null;
+  /**
+   * Group and hash modes with records placed individually inside their part (`--order random`
+   * or `spread`): a record's spill key is the hash of its identity, like exact mode's, and the
+   * hash of its group or key values (which decides its cell) takes the identity's place in the
+   * spill header (see spill.ts). With `censusBits` (group mode), every record is also appended,
+   * without its bytes, to a census spill bucketed by the group's hash, where the groups are
+   * counted before they are placed. Null: the spill key is the group or key hash itself, and a
+   * group's records are next to each other in key order (`--order grouped`).
+   */
+  cellKeyInHeader: { censusBits: number | null; censusBufferBytes: number } | null;
 }
 
-export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells'> {
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells' | 'cellKeyInHeader'> {
   hashCells?: ScatterTaskConfig['hashCells'];
+  cellKeyInHeader?: ScatterTaskConfig['cellKeyInHeader'];
   format: InputFormat;
   delimiter: string | undefined;
   header: boolean;
@@ -92,6 +104,8 @@ export interface ScatterTaskResult {
   fingerprint: { hi: number; lo: number; count: number };
   /** Hash mode: `cellCounts[stratum][cell]`. */
   cellCounts: Float64Array[] | null;
+  /** The census spill's files and chunks (see ScatterTaskConfig.cellKeyInHeader), as `paths` and `chunks` are the spill's. */
+  census: { paths: string[]; chunks: number[][] } | null;
 }
 
 export interface ScatterResult {
@@ -112,6 +126,8 @@ export interface ScatterResult {
   fingerprint: Fingerprint;
   /** Hash mode: `cellCounts[stratum][cell]` over all tasks (union stratum ids). */
   cellCounts: Float64Array[] | null;
+  /** Per census bucket: where its records lie (see ScatterTaskConfig.cellKeyInHeader); null without a census spill. */
+  censusPieces: SpillPiece[][] | null;
 }
 
 /** Canonical text of one wanted field: the latin1 rendering of its decoded UTF-8 bytes. */
@@ -162,6 +178,8 @@ export class ScatterTask {
   readonly #keyBuf = Buffer.allocUnsafe(4096);
   readonly #cellSecret: Secret | null;
   readonly #cellCounts: Float64Array[] = [];
+  readonly #census: BucketWriter | null;
+  readonly #censusShift: number;
   #records = 0;
   #input = 0;
 
@@ -169,6 +187,9 @@ export class ScatterTask {
     this.#c = c;
     this.#secret = Uint32Array.from(c.secret);
     this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
+    const census = c.cellKeyInHeader?.censusBits ?? null;
+    this.#census = census === null ? null : new BucketWriter(censusDir(c.spillDir), c.task, 2 ** census, c.cellKeyInHeader!.censusBufferBytes, null, 0);
+    this.#censusShift = census === null || census === 0 ? 32 : 32 - census;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
     this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
     this.#writer.setKeySecret(this.#secret);
@@ -242,6 +263,7 @@ export class ScatterTask {
     const nKey = c.key.length;
     const groupSlot = c.group !== null ? nStrat + nKey : -1;
     const shift = 32 - c.bits;
+    const inHeader = c.cellKeyInHeader !== null;
     const writer = this.#writer;
     const d = batch.data;
     const n = batch.count;
@@ -277,10 +299,22 @@ export class ScatterTask {
       const hi = h[0]!;
       const lo = h[1]!;
       const st = this.#stratumOf(batch, i);
-      const bucket = c.bits === 0 ? 0 : hi >>> shift;
       const e = batch.end[i]!;
-      writer.append(bucket, hi, lo, offset, input, st, d, batch.start[i]!, e, batch.next[i]! - e);
-      this.#bucketCounts[st]![bucket]!++;
+      if (inHeader) {
+        // The spill key is the identity's hash (as exact mode's); the group or key hash goes where
+        // the identity would: high word as the word that holds input and offset's high bits.
+        const census = this.#census;
+        // `>>> 32` is `>>> 0` in JavaScript: one census bucket takes a shift of 32 apart.
+        if (census) census.append(this.#censusShift === 32 ? 0 : hi >>> this.#censusShift, hi, lo, offset, input, st, d, e, e, 0);
+        const r = hashWords3(this.#secret, input, Math.floor(offset / 0x100000000), offset >>> 0);
+        const bucket = c.bits === 0 ? 0 : r[0]! >>> shift;
+        writer.append(bucket, r[0]!, r[1]!, lo + (hi >>> 16) * 0x100000000, hi & 0xffff, st, d, batch.start[i]!, e, batch.next[i]! - e);
+        this.#bucketCounts[st]![bucket]!++;
+      } else {
+        const bucket = c.bits === 0 ? 0 : hi >>> shift;
+        writer.append(bucket, hi, lo, offset, input, st, d, batch.start[i]!, e, batch.next[i]! - e);
+        this.#bucketCounts[st]![bucket]!++;
+      }
       if (this.#cellSecret) {
         const deal = c.hashCells!.deal;
         const counts = (this.#cellCounts[st] ??= new Float64Array(deal.splits.length * deal.partitions * deal.folds));
@@ -335,6 +369,7 @@ export class ScatterTask {
 
   finish(): ScatterTaskResult {
     this.#writer.close();
+    this.#census?.close();
     return {
       task: this.#c.task,
       strata: this.#strata,
@@ -345,11 +380,13 @@ export class ScatterTask {
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
       cellCounts: this.#cellSecret ? this.#strata.map((_, st) => this.#cellCounts[st] ?? new Float64Array(0)) : null,
+      census: this.#census ? { paths: this.#census.paths, chunks: this.#census.chunks } : null,
     };
   }
 
   abandon(): void {
     this.#writer.abandon();
+    this.#census?.abandon();
   }
 }
 
@@ -501,7 +538,13 @@ export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 't
     bits: o.bits,
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
+    cellKeyInHeader: o.cellKeyInHeader ? { ...o.cellKeyInHeader, censusBufferBytes: Math.max(4096, Math.floor(o.cellKeyInHeader.censusBufferBytes / tasks)) } : null,
   };
+}
+
+/** The census spill's folder, inside the spill folder. */
+export function censusDir(spillDir: string): string {
+  return join(spillDir, 'census');
 }
 
 export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
@@ -601,7 +644,8 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       await sender!.drain();
       results = await lanes!.finish();
     }
-    return mergeScatterResults(results, schema, inputs, 2 ** o.bits);
+    const censusBits = o.cellKeyInHeader?.censusBits ?? null;
+    return mergeScatterResults(results, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits);
   } catch (err) {
     inline?.abandon();
     throw err;
@@ -616,6 +660,7 @@ export function mergeScatterResults(
   schema: InputSchema,
   inputs: ScatterResult['inputs'],
   buckets: number,
+  censusBuckets = 0,
 ): ScatterResult {
   results.sort((a, b) => a.task - b.task);
   const ids = new Map<string, number>();
@@ -652,16 +697,9 @@ export function mergeScatterResults(
       }),
     );
   }
-  const { ranges, perRange } = spillRanges(buckets);
-  const bucketPieces = Array.from({ length: buckets }, (_, b) => {
-    const pieces: SpillPiece[] = [];
-    results.forEach((r, t) => {
-      const c = r.chunks[b]!;
-      const path = r.paths[Math.floor(b / perRange)]!;
-      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path, offset: c[k]!, length: c[k + 1]! });
-    });
-    return pieces;
-  });
+  const { ranges } = spillRanges(buckets);
+  const bucketPieces = piecesOf(results.map((r) => r), buckets);
+  const censusPieces = censusBuckets > 0 ? piecesOf(results.map((r) => r.census!), censusBuckets) : null;
   const rangeFiles = Array.from({ length: ranges }, (_, g) => results.map((r) => r.paths[g]!));
   return {
     schema,
@@ -675,5 +713,20 @@ export function mergeScatterResults(
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),
     fingerprint: fp,
     cellCounts,
+    censusPieces,
   };
+}
+
+/** Per bucket, its chunks in every task's spill files (task order). */
+function piecesOf(tasks: { paths: string[]; chunks: number[][] }[], buckets: number): SpillPiece[][] {
+  const { perRange } = spillRanges(buckets);
+  return Array.from({ length: buckets }, (_, b) => {
+    const pieces: SpillPiece[] = [];
+    tasks.forEach((r, t) => {
+      const c = r.chunks[b]!;
+      const path = r.paths[Math.floor(b / perRange)]!;
+      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path, offset: c[k]!, length: c[k + 1]! });
+    });
+    return pieces;
+  });
 }

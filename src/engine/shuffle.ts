@@ -30,7 +30,7 @@ import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
+import { censusDir, scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
 import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
@@ -307,6 +307,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
   const format = o.format ?? detectFormat(o.inputs[0] === '-' ? 'stdin.csv' : o.inputs[0]!);
   const secret = deriveSecret(o.seed);
   const cellSecret = deriveSecret(`${o.seed}\u0000cell`);
+  const rankSecret = deriveSecret(`${o.seed}\u0000rank`);
 
   const parent = dirname(out);
   mkdirSync(parent, { recursive: true });
@@ -359,6 +360,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     }
 
     // ---- stage 1: scatter ----
+    const cellKeyInHeader = o.assign !== 'exact' && o.order !== 'grouped';
+    if (cellKeyInHeader && o.assign === 'group') mkdirSync(censusDir(spillDir));
     const totalBytes = o.inputs.reduce((a, p) => a + (isStreamInput(p) ? 0 : statSync(p).size), 0);
     const scatterOptions: ScatterOptions = {
       inputs: o.inputs,
@@ -390,6 +393,10 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       blockBytes: factor <= 1.5 ? blockBytesFor(o.memory) : Math.max(64 * 1024, Math.floor((blockBytesFor(o.memory) * 1.3) / factor)),
       // Hash mode: cells follow from keys alone, so stage 1 can count them on the way.
       hashCells: o.assign === 'hash' ? { deal: { splits: o.splits, exactCounts: false, partitions: o.partitions, folds: o.folds }, cellSecret: Array.from(cellSecret) } : null,
+      // Group and hash modes place records individually inside their part unless asked to keep a
+      // group's records together (see ScatterTaskConfig.cellKeyInHeader); the census buckets
+      // hold a quarter as many records as the spill's, 24 bytes each.
+      cellKeyInHeader: cellKeyInHeader ? { censusBits: o.assign === 'group' ? Math.max(0, bits - 2) : null, censusBufferBytes: spillBuffer } : null,
       onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
     };
     // The same threads do both stages (shuffle-worker.ts): started here, kept for stage 2.
@@ -419,7 +426,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       partitions: o.partitions,
       folds: o.folds,
     };
-    const table = buildDealTable(strataSizes, deal, seededStarts(secret, deal.splits.length));
+    const table = buildDealTable(strataSizes, deal, seededStarts(secret, deal.splits.length), rankSecret);
     const parts = partCount(deal);
     const K = deal.folds;
     const cells = parts * K;
@@ -442,14 +449,18 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       try {
         let counted = 0;
         const lanes = pool as unknown as Lanes<CensusTask, GroupTableData, GatherFinal> | null;
-        await eachAtOnce(buckets, Math.max(1, threads) * 2, async (b) => {
-          const task: CensusTask = { census: b, pieces: sc.bucketPieces[b]!, strata: taskToDealing, bits };
+        // Groups are counted from the census spill where the spill is keyed by record (see
+        // ScatterTaskConfig.cellKeyInHeader), else from the spill itself.
+        const censusPieces = sc.censusPieces ?? sc.bucketPieces;
+        const censusBits = sc.censusPieces ? Math.log2(censusPieces.length) : bits;
+        await eachAtOnce(censusPieces.length, Math.max(1, threads) * 2, async (b) => {
+          const task: CensusTask = { census: b, pieces: censusPieces[b]!, strata: taskToDealing, bits: censusBits };
           if (threads === 0 || !lanes) {
             census.add(b, censusBucket(task));
             // On this thread: let signals (Ctrl-C cleans up) and progress in between buckets.
             await new Promise<void>((resolve) => setImmediate(resolve));
           } else census.add(b, await lanes.run(task));
-          o.onProgress?.({ stage: 'plan', done: ++counted, total: buckets, records: sc.records, elapsedMs: Date.now() - t0 });
+          o.onProgress?.({ stage: 'plan', done: ++counted, total: censusPieces.length, records: sc.records, elapsedMs: Date.now() - t0 });
         });
         groups = census.build();
       } finally {
@@ -469,10 +480,14 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // Sorted (hi, lo) -> cell table for the workers, written from the table's arrays.
       groupsFile = 'groups.bin';
       writeGroupsFile(join(spillDir, groupsFile), hi, lo, placed);
-      // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
-      groupStarts = new Array<number>(buckets + 1).fill(0);
-      for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : hi[k]! >>> (32 - bits)) + 1]!++;
-      for (let b = 0; b < buckets; b++) groupStarts[b + 1]! += groupStarts[b]!;
+      if (!cellKeyInHeader) {
+        // Keys in order, so each bucket's groups (its keys' top bits) are a run of the file.
+        groupStarts = new Array<number>(buckets + 1).fill(0);
+        for (let k = 0; k < n; k++) groupStarts[(bits === 0 ? 0 : hi[k]! >>> (32 - bits)) + 1]!++;
+        for (let b = 0; b < buckets; b++) groupStarts[b + 1]! += groupStarts[b]!;
+      }
+      // The census spill is no longer needed.
+      if (sc.censusPieces) await cleanup.removeEarly([...new Set(sc.censusPieces.flat().map((p) => p.path))]);
     }
 
     // Tolerance: parts (files), and folds within each split.
@@ -505,6 +520,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       delimiter: sc.schema.delimiter,
       lineEnding: sc.schema.lineEnding,
       mode: o.assign,
+      order: o.order,
+      cellKeyInHeader,
       deal,
       foldColumn: o.foldColumn,
       strataCount: nStrata,
@@ -513,6 +530,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       cumQuota: Array.from(table.cumQuota),
       offset: Array.from(table.offset),
       cellSecret: Array.from(cellSecret),
+      rankSecret: Array.from(rankSecret),
       groupsFile,
       groupStarts,
       statsColumns: o.stats ? sc.schema.columns : [],
