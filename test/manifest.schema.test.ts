@@ -143,7 +143,7 @@ describe('broken manifests are rejected', () => {
     expect(has(errorsOf(broken((m) => (m.output.parts[0].path = '../elsewhere.csv'))), '/output/parts/0/path', 'pattern')).toBe(true);
     expect(has(errorsOf(broken((m) => (m.output.parts[0].path = '/etc/passwd'))), '/output/parts/0/path', 'pattern')).toBe(true);
     expect(has(errorsOf(broken((m) => (m.run.createdAt = '1 December 2026'))), '/run/createdAt', 'format')).toBe(true);
-    expect(has(errorsOf(broken((m) => (m.manifestVersion = 2))), '/manifestVersion', 'const')).toBe(true);
+    expect(has(errorsOf(broken((m) => (m.manifestVersion = 3))), '/manifestVersion', 'const')).toBe(true);
   });
 
   it('a statistics entry that is not a column summary', () => {

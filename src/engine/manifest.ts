@@ -4,13 +4,14 @@
  * partition, strata by value), so two runs with the same seed give byte-identical manifests
  * except in `run` (time, host, timings).
  */
-import type { DealSpec } from '../core/deal.js';
+import { DEALING_SCHEME, type DealSpec } from '../core/deal.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
 import type { ResolvedShuffleOptions } from '../options.js';
 import { stratumValues } from './scatter.js';
 import type { BinEdges } from './quantiles.js';
 
-export const MANIFEST_VERSION = 1;
+/** Version of the manifest's layout. 2 added `dealingScheme` and `options.order`. */
+export const MANIFEST_VERSION = 2;
 
 export interface PartRecord {
   path: string;
@@ -31,6 +32,11 @@ export interface PartRecord {
 export interface Manifest {
   manifestVersion: number;
   tool: { name: 'rowdeck'; version: string };
+  /**
+   * Which dealing scheme wrote the parts (core/deal.ts: DEALING_SCHEME). Absent from version 1
+   * manifests, whose parts came from scheme 1 (classes evenly interleaved inside a part).
+   */
+  dealingScheme?: number;
   seed: string | null;
   seedIsDefault: boolean;
   options: Record<string, unknown>;
@@ -112,6 +118,7 @@ export function buildManifest(m: ManifestInput): Manifest {
   return {
     manifestVersion: MANIFEST_VERSION,
     tool: { name: 'rowdeck', version: m.version },
+    dealingScheme: DEALING_SCHEME,
     seed: o.seed,
     seedIsDefault: o.seedWasDefault,
     options: {
@@ -125,6 +132,7 @@ export function buildManifest(m: ManifestInput): Manifest {
       group: o.group,
       key: o.key,
       assign: o.assign,
+      order: o.order,
       format: m.format,
       delimiter: m.format === 'jsonl' ? null : String.fromCharCode(m.schema.delimiter),
       header: o.header,

@@ -24,7 +24,9 @@ import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
-import type { Manifest, PartRecord } from './manifest.js';
+import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
+import { DEALING_SCHEME } from '../core/deal.js';
+import type { PartOrder } from '../options.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
@@ -95,6 +97,10 @@ export interface VerifyReport {
   /** The folder checked, as given. */
   dir: string;
   manifestVersion: number;
+  /** Which dealing scheme wrote the output (1 for manifests of version 1: see Manifest.dealingScheme). */
+  dealingScheme: number;
+  /** The order inside the parts the manifest promises (manifests of version 1: "interleaved", scheme 1's). */
+  order: PartOrder | 'interleaved';
   records: number;
   parts: number;
   checks: VerifyCheck[];
@@ -470,6 +476,8 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     ok: mismatches.length === 0,
     dir,
     manifestVersion: m.manifestVersion,
+    dealingScheme: m.dealingScheme ?? 1,
+    order: m.dealingScheme === undefined ? 'interleaved' : ((m.options as { order: PartOrder }).order),
     records: m.output.records,
     parts: parts.length,
     checks,
@@ -601,13 +609,14 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
   const strings = (v: unknown, field: string): string[] => arr(v, field).map((x, i) => str(x, `${field}[${i}]`));
 
   const m = obj(raw, '(top level)');
-  if (m.manifestVersion !== 1) {
+  if (m.manifestVersion !== 1 && m.manifestVersion !== MANIFEST_VERSION) {
     throw new RowdeckError(
       'ERR_MANIFEST',
-      `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads version 1. ${typeof m.manifestVersion === 'number' && m.manifestVersion > 1 ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
+      `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads versions 1 to ${MANIFEST_VERSION}. ${typeof m.manifestVersion === 'number' && m.manifestVersion > MANIFEST_VERSION ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
       { file: path, field: 'manifestVersion' },
     );
   }
+  if (m.manifestVersion !== 1 && m.dealingScheme !== DEALING_SCHEME) fail('dealingScheme', String(DEALING_SCHEME));
   const o = obj(m.options, 'options');
   if (!['csv', 'tsv', 'jsonl'].includes(o.format as string)) fail('options.format', '"csv", "tsv" or "jsonl"');
   if (o.delimiter !== null && typeof o.delimiter !== 'string') fail('options.delimiter', 'a string or null');
