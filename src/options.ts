@@ -14,10 +14,11 @@ export const DEFAULT_TOLERANCE = 0.5;
 export const DEFAULT_MEMORY = 512 * 1024 * 1024;
 
 export interface ProgressEvent {
-  stage: 'scatter' | 'plan' | 'gather' | 'stats' | 'finish';
+  stage: 'scatter' | 'plan' | 'gather' | 'order' | 'stats' | 'finish';
   /**
    * Work done and total in the stage's unit: bytes for scatter, buckets for gather, parts for
-   * stats (--stats with more parts than the lanes keep statistics for: the parts read back).
+   * order (`order: 'spread'`: each part put in order) and stats (--stats with more parts than
+   * the lanes keep statistics for: the parts read back).
    */
   done: number;
   total: number;
@@ -248,6 +249,9 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (!PART_ORDERS.includes(order)) throw invalid('order', '"random", "spread" or "grouped"', order);
   if (order === 'grouped' && group === null && assign0 !== 'hash') {
     throw invalid('order', '"random" or "spread" without group or assign "hash" ("grouped" keeps the records of one group or key together: give group, or assign "hash" with key)', order);
+  }
+  if (order === 'spread' && stratify.length === 0) {
+    throw invalid('order', '"random" or "grouped" without stratify ("spread" spreads every class evenly through each part: give stratify)', order);
   }
   const { splits, counts, rest } = parseSplits(o.split);
   if (assign0 === 'hash' && counts) throw invalid('split', 'weights as fractions with assign "hash" (its shares are approximate, so record counts cannot be met)', typeof o.split === 'string' ? o.split : JSON.stringify(o.split));

@@ -8,12 +8,13 @@
  * CI) and alpha = 0.001 per check; each describe block states its family-wise alpha (Bonferroni:
  * checks × 0.001). Outputs are read back with csv-parse, not with the engine's reader.
  */
-import { writeFileSync } from 'node:fs';
+import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildDealTable, dealRecord, seededStarts } from '../src/core/deal.js';
 import { deriveSecret, hashWords3 } from '../src/core/hash.js';
-import { shuffle, type Manifest } from '../src/index.js';
+import { SpreadCheck, SpreadOrder } from '../src/core/spread.js';
+import { shuffle, verify, type Manifest } from '../src/index.js';
 import { createRandom, makeTempDir, parseCsv, readPart, removeDir } from './helpers/engine.js';
 import { CHI2_001, runsTest, serialTest, Z_001 } from './helpers/order-stats.js';
 
@@ -245,5 +246,182 @@ describe('the dealing model: the rank permutation is what makes the order random
       expect(before.z, `rank r at position r: z = ${before.z.toFixed(1)}`).toBeGreaterThan(10);
       expect(Math.abs(after.z), `rank r at position π(r): z = ${after.z.toFixed(2)}`).toBeLessThan(Z_001);
     }
+  });
+});
+
+/** Largest |C_c(t) − t·n_c/n| over positions t and classes c, computed directly. */
+function prefixDeviation(seq: number[], k: number): number {
+  const total = new Array<number>(k).fill(0);
+  for (const c of seq) total[c]!++;
+  const seen = new Array<number>(k).fill(0);
+  let worst = 0;
+  seq.forEach((c, i) => {
+    seen[c]!++;
+    for (let x = 0; x < k; x++) worst = Math.max(worst, Math.abs(seen[x]! - ((i + 1) * total[x]!) / seq.length));
+  });
+  return worst;
+}
+
+/** Largest |count in window − w·share| over every window of w consecutive positions. */
+function windowDeviation(seq: number[], k: number, w: number): number {
+  const total = new Array<number>(k).fill(0);
+  for (const c of seq) total[c]!++;
+  const inWindow = new Array<number>(k).fill(0);
+  let worst = 0;
+  for (let i = 0; i < seq.length; i++) {
+    inWindow[seq[i]!]!++;
+    if (i >= w) inWindow[seq[i - w]!]!--;
+    if (i >= w - 1) for (let x = 0; x < k; x++) worst = Math.max(worst, Math.abs(inWindow[x]! - (w * total[x]!) / seq.length));
+  }
+  return worst;
+}
+
+describe('--order spread: the guarantee', () => {
+  it('every prefix within one record of each share, every window within two, for 300 random class counts', () => {
+    const rnd = createRandom(99);
+    for (let trial = 0; trial < 300; trial++) {
+      const k = 1 + Math.floor(rnd() * 9);
+      const counts = Array.from({ length: k }, () => (rnd() < 0.2 ? 0 : 1 + Math.floor(rnd() ** 3 * 800)));
+      const order = new SpreadOrder(counts);
+      const seq: number[] = [];
+      for (let c = order.next(); c >= 0; c = order.next()) seq.push(c);
+      const got = new Array<number>(k).fill(0);
+      for (const c of seq) got[c]!++;
+      expect(got).toEqual(counts);
+      expect(prefixDeviation(seq, k)).toBeLessThan(1);
+      for (const w of [2, 7, 50]) if (w <= seq.length) expect(windowDeviation(seq, k, w)).toBeLessThan(2);
+      const check = new SpreadCheck(counts);
+      for (const c of seq) check.add(c);
+      expect(check.failure).toBeNull();
+    }
+  });
+
+  it('the check refuses a random order of the same classes (a test of the test)', () => {
+    const rnd = createRandom(5);
+    const seq = Array.from({ length: 4000 }, (_, i) => (i < 3000 ? 0 : i < 3800 ? 1 : 2));
+    for (let i = seq.length - 1; i > 0; i--) {
+      const j = Math.floor(rnd() * (i + 1));
+      [seq[i], seq[j]] = [seq[j]!, seq[i]!];
+    }
+    const check = new SpreadCheck([3000, 800, 200]);
+    for (const c of seq) check.add(c);
+    expect(check.failure).not.toBeNull();
+    expect(prefixDeviation(seq, 3)).toBeGreaterThan(1);
+  });
+
+  it('stays exact for parts far beyond 2^53 / n record pairs (release and deadline as exact quotients)', () => {
+    // Counts of a part of 3·10^9 records: positions j·n pass 2^53 for the common class; the
+    // first 100,000 positions are checked against BigInt arithmetic.
+    const counts = [2_000_000_001, 999_999_998, 1];
+    const n = counts.reduce((a, b) => a + b, 0);
+    const order = new SpreadOrder(counts);
+    const seen = [0n, 0n, 0n];
+    for (let t = 1n; t <= 100000n; t++) {
+      const c = order.next();
+      seen[c]!++;
+      for (let x = 0; x < 3; x++) {
+        // |C − t·n_c/n| < 1  ⟺  |C·n − t·n_c| < n
+        const diff = seen[x]! * BigInt(n) - t * BigInt(counts[x]!);
+        expect(diff < BigInt(n) && diff > -BigInt(n)).toBe(true);
+      }
+    }
+  });
+});
+
+describe('--order spread, end to end', () => {
+  it('spreads each class through every part; the same bytes on any thread count and budget; verify checks it', async () => {
+    const input = writeSorted('spread.csv', 20000, [['calm', 0.55], ['gust', 0.3], ['squall', 0.12], ['storm', 0.03]]);
+    const a = await shuffle({ inputs: [input], out: join(dir, 'spread-a'), seed: 'spread', partitions: 3, folds: 4, stratify: 'label', order: 'spread', threads: 0 });
+    const b = await shuffle({ inputs: [input], out: join(dir, 'spread-b'), seed: 'spread', partitions: 3, folds: 4, stratify: 'label', order: 'spread', threads: 2, memory: '2MiB' });
+    expect(b.run.buckets).toBeGreaterThan(1);
+    expect(a.output.parts.map((p) => p.sha256)).toEqual(b.output.parts.map((p) => p.sha256));
+    expect(a.options.order).toBe('spread');
+    for (const part of readParts(join(dir, 'spread-a'), a)) {
+      const { ids, k } = categories(part.rows.map((r) => r[2]!));
+      expect(prefixDeviation(ids, k)).toBeLessThan(1);
+      expect(windowDeviation(ids, k, 40)).toBeLessThan(2);
+      // Folds are not spread, but still dealt at random: their pairs look random.
+      const folds = serialTest(part.rows.map((r) => Number(r[4])), 4);
+      expect(folds.chi2).toBeLessThan(CHI2_001[15]!);
+    }
+    const report = await verify({ dir: join(dir, 'spread-a') });
+    expect(report.ok).toBe(true);
+    expect(report.checks.filter((c) => c.check === 'order').map((c) => c.status)).toEqual(['passed', 'passed', 'passed']);
+  });
+
+  it('verify names the first record out of place when a spread part is reordered', async () => {
+    const out = join(dir, 'spread-a');
+    const m = JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as Manifest;
+    const path = join(out, m.output.parts[0]!.path);
+    const lines = readFileSync(path, 'utf8').split('\n');
+    // Every storm record moved to the front: the same records, but the second storm record now
+    // comes long before a part of this size owes it.
+    const body = lines.slice(1).filter((l) => l !== '');
+    const storms = body.filter((l) => l.split(',')[2] === 'storm');
+    writeFileSync(path, [lines[0], ...storms, ...body.filter((l) => l.split(',')[2] !== 'storm'), ''].join('\n'));
+    const report = await verify({ dir: out });
+    const order = report.mismatches.filter((x) => x.check === 'order');
+    expect(order).toHaveLength(1);
+    expect(order[0]!.line).toBe(3);
+    expect(String(order[0]!.expected)).toMatch(/^record 2 of label="storm" between record \d+ and \d+$/);
+  });
+
+  it('needs --stratify', async () => {
+    const input = writeSorted('spread-bad.csv', 100, [['calm', 1]]);
+    await expect(shuffle({ inputs: [input], out: join(dir, 'sb'), order: 'spread' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+  });
+
+  it('with --group and with JSON Lines and gzip output', async () => {
+    const input = writeSorted('spread-group.csv', 8000, [['calm', 0.7], ['gust', 0.3]]);
+    const g = await shuffle({ inputs: [input], out: join(dir, 'spread-g'), seed: 'sg', partitions: 2, stratify: 'label', group: 'user', order: 'spread' });
+    for (const part of readParts(join(dir, 'spread-g'), g)) {
+      const { ids, k } = categories(part.rows.map((r) => r[2]!));
+      expect(prefixDeviation(ids, k)).toBeLessThan(1);
+    }
+    const json = join(dir, 'spread.jsonl');
+    const { rows } = parseCsv(readPart(input));
+    writeFileSync(json, rows.map((r) => JSON.stringify({ id: Number(r[0]), user: r[1], label: r[2] })).join('\n') + '\n');
+    const j = await shuffle({ inputs: [json], out: join(dir, 'spread-j'), seed: 'sj', partitions: 2, folds: 3, stratify: 'label', order: 'spread', gzip: true });
+    for (const p of j.output.parts) {
+      const labels = readPart(join(dir, 'spread-j', p.path)).toString('utf8').trim().split('\n').map((l) => (JSON.parse(l) as { label: string }).label);
+      const { ids, k } = categories(labels);
+      expect(prefixDeviation(ids, k)).toBeLessThan(1);
+    }
+    expect((await verify({ dir: join(dir, 'spread-j') })).ok).toBe(true);
+  });
+});
+
+describe('verify and the order', () => {
+  it('grouped: a group split in two runs is named', async () => {
+    const input = writeSorted('grouped-verify.csv', 3000, [['calm', 1]], 60);
+    const out = join(dir, 'grouped-verify');
+    const m = await shuffle({ inputs: [input], out, seed: 'gv', partitions: 1, group: 'user', order: 'grouped' });
+    expect((await verify({ dir: out })).ok).toBe(true);
+    const path = join(out, m.output.parts[0]!.path);
+    const lines = readFileSync(path, 'utf8').split('\n');
+    const [first] = lines.splice(1, 1);
+    lines.splice(lines.length - 1, 0, first!);
+    writeFileSync(path, lines.join('\n'));
+    const order = (await verify({ dir: out })).mismatches.filter((x) => x.check === 'order');
+    expect(order).toHaveLength(1);
+    expect(String(order[0]!.found)).toContain(`user="${first!.split(',')[1]}"`);
+  });
+
+  it('an output of dealing scheme 1 (a version 1 manifest) still verifies, and says which scheme wrote it', async () => {
+    const input = writeSorted('old.csv', 2000, [['calm', 0.5], ['gust', 0.5]]);
+    const out = join(dir, 'old');
+    await shuffle({ inputs: [input], out, seed: 'old', partitions: 2, stratify: 'label' });
+    // A version 1 manifest has neither field; everything else it checks is the same.
+    const path = join(out, 'manifest.json');
+    const m = JSON.parse(readFileSync(path, 'utf8')) as Record<string, any>;
+    m.manifestVersion = 1;
+    delete m.dealingScheme;
+    delete m.options.order;
+    writeFileSync(path, JSON.stringify(m, null, 2));
+    const report = await verify({ dir: out });
+    expect(report.ok).toBe(true);
+    expect(report.dealingScheme).toBe(1);
+    expect(report.order).toBe('interleaved');
+    expect(report.checks.find((c) => c.check === 'order')!.note).toContain('scheme 1');
   });
 });

@@ -26,8 +26,9 @@ What it does:
   Every record gets a random key from the seed; records are sorted by key in two stages
   (scatter to spill files, gather bucket by bucket on worker threads) so inputs larger than
   memory work. Records are then dealt by rank within their class, so every part keeps each
-  class at its overall share (within one record). DIR/manifest.json, written last, records
-  counts, class mix, checksums, fingerprints and the seed.
+  class at its overall share (within one record), and each part's records come in a uniformly
+  random order (see --order). DIR/manifest.json, written last, records counts, class mix,
+  checksums, fingerprints and the seed.
 
 Dealing:
   --partitions N          number of partition files (default 1)
@@ -47,6 +48,16 @@ Dealing:
   --assign exact|hash     exact quotas (default), or hash: a record's part is a pure function of
                           its --key and the seed, so appended records never move old ones
   --key COL[,COL]         columns that identify a record (required with --assign hash)
+  --order random|spread|grouped
+                          order of the records inside each part. random (default): every
+                          order equally likely, also with --group and --assign hash (a group
+                          shares a part, not a place in it). spread: every class spread evenly
+                          through the part: after any number t of records each class has
+                          within one record of t x its share, so any window of w records holds
+                          each class within two of w x its share (needs --stratify; costs one
+                          more write and read of the output). grouped: the records of one
+                          group or key next to each other, in input order, the groups in
+                          random order (needs --group or --assign hash)
   --seed TEXT             any text (default: a fixed seed, printed, so every run is reproducible)
 
 Input:

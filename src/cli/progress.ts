@@ -20,7 +20,7 @@ export function createProgress(stream: NodeJS.WritableStream & { isTTY?: boolean
       let rate = '';
       if (e.stage === 'scatter' && secs > 0) rate = ` ${(e.done / 1e6 / secs).toFixed(0)} MB/s`;
       const eta = frac > 0.02 && frac < 1 ? ` ETA ${Math.max(0, (secs / frac) * (1 - frac)).toFixed(0)}s` : '';
-      const unit = e.stage === 'gather' ? `${e.done}/${e.total} buckets` : e.stage === 'stats' ? `${e.done}/${e.total} parts` : e.total > 0 ? `${formatBytes(e.done)}/${formatBytes(e.total)}` : formatBytes(e.done);
+      const unit = e.stage === 'gather' ? `${e.done}/${e.total} buckets` : e.stage === 'stats' || e.stage === 'order' ? `${e.done}/${e.total} parts` : e.total > 0 ? `${formatBytes(e.done)}/${formatBytes(e.total)}` : formatBytes(e.done);
       stream.write(`\r${e.stage.padEnd(7)} [${bar}] ${unit} ${e.records.toLocaleString('en-US')} records${rate}${eta}\x1b[K`);
       shown = true;
     },

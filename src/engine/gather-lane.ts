@@ -104,7 +104,8 @@ export function gatherLane(planPath: string): GatherLane {
       const result = gatherBucket(prep, task, stats);
       const c = result.counts;
       const counts = c instanceof Float64Array ? [c.buffer as ArrayBuffer] : [c.index.buffer as ArrayBuffer, c.value.buffer as ArrayBuffer];
-      return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts] };
+      const spread = result.spread ? [result.spread.sizes.buffer as ArrayBuffer, result.spread.records.buffer as ArrayBuffer] : [];
+      return { result, transfer: [result.data.buffer as ArrayBuffer, ...counts, ...spread] };
     },
     partStats: async (task) => {
       readBack ??= new PartStatsGather(plan.statsColumns);

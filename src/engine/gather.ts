@@ -44,6 +44,11 @@ export interface GatherResult {
   counts: Float64Array | SparseCounts;
   /** Order-independent fingerprint per part of the record contents written (fold column excluded). */
   fingerprints: { hi: number; lo: number; count: number }[];
+  /**
+   * `--order spread`: `data` and `partStart` are by unit (part × stratum: unit = part · strata +
+   * stratum, each in key order), with every record's size in that order and each unit's records.
+   */
+  spread?: { sizes: Uint32Array; records: Uint32Array };
   /** With ROWDECK_PHASES=1: milliseconds spent in load, sort, deal, copy. */
   phases?: number[];
 }
@@ -156,7 +161,12 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const outCap = spillBytes + maxRecords * growth;
   // JSON Lines with a fold column inserts the field inside the record: JavaScript does that.
   const kernel = isJson && foldCol ? null : gatherKernel();
-  const input = kernel ? kernel.reserve(spillBytes, outCap, maxRecords, parts, foldCol ? K : 0) : null;
+  // `--order spread`: each part's slice is laid out class by class (a unit is a part and a
+  // stratum), so the main thread can keep each class's records apart until the part is put in
+  // order (see src/engine/spread-parts.ts). Otherwise a unit is a part.
+  const spread = plan.order === 'spread';
+  const units = spread ? parts * strata : parts;
+  const input = kernel ? kernel.reserve(spillBytes, outCap, maxRecords, units, foldCol ? K : 0) : null;
   // Where the output starts in the arena.
   const base = input ? 0 : spillBytes;
   // allocUnsafeSlow: an ArrayBuffer of its own (transferable) without zero-filling it.
@@ -198,50 +208,95 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   sizeRecords(ix, cellOfRec, K, strata, eolLen, foldLen, isJson && foldCol ? bytes : null, recSize, partBytes, counts, entryOf);
   T?.push(performance.now());
 
-  const partStart = new Float64Array(parts + 1);
+  // Where each unit's bytes go, and each record's unit (its cell where a unit is a part).
+  let unitBytes = partBytes;
+  let layoutCell = cellOfRec;
+  if (spread) {
+    unitBytes = new Float64Array(units);
+    layoutCell = scratch(7, n);
+    const st = ix.stratum;
+    for (let i = 0; i < n; i++) {
+      const cell = cellOfRec[i]!;
+      const part = (cell / K) | 0;
+      const u = part * strata + st[i]!;
+      unitBytes[u]! += recSize[i]!;
+      layoutCell[i] = u * K + (cell - part * K);
+    }
+  }
+  const partStart = new Float64Array(units + 1);
   partStart[0] = base;
-  for (let p = 0; p < parts; p++) partStart[p + 1] = partStart[p]! + partBytes[p]!;
+  for (let u = 0; u < units; u++) partStart[u + 1] = partStart[u]! + unitBytes[u]!;
 
-  // Key-order pass: each part's bytes are written front to back (sequential writes, random
+  // Key-order pass: each unit's bytes are written front to back (sequential writes, random
   // reads; measured several times faster than the other way round). The kernel adds each record
-  // to its part's fingerprint while the record is in cache. So does JavaScript's copy without a
+  // to its unit's fingerprint while the record is in cache. So does JavaScript's copy without a
   // fold column (8% fewer instructions in stage 2 than a second pass, bench/micro/gather.mjs
   // under valgrind); with one, a second pass in storage order hashes the records as they were read.
-  const fps = Array.from({ length: parts }, () => new Fingerprint());
+  const fps = Array.from({ length: units }, () => new Fingerprint());
   const foldBytes = foldCol
     ? Array.from({ length: K }, (_, f) => (isJson ? jsonFoldField(plan.foldColumn!, f, false) : Buffer.from(String.fromCharCode(plan.delimiter) + String(f), 'latin1')))
     : null;
   if (input) {
     const { at, lenTerm } = ix;
-    kernel!.deal({ order, n, cellOfRec, at, lenTerm, partStart, K, crlf: plan.lineEnding === '\r\n', foldBytes }, new Uint8Array(arena), fps);
+    kernel!.deal({ order, n, cellOfRec: layoutCell, at, lenTerm, partStart, K, crlf: plan.lineEnding === '\r\n', foldBytes }, new Uint8Array(arena), fps);
     T?.push(performance.now());
   } else if (!foldCol) {
     // Positions fit in 31 bits (an arena is far below 2 GiB); small integers keep the loop fast.
-    const fill = Int32Array.from(partStart.subarray(0, parts));
-    copyPlain(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding === '\r\n', fps);
+    const fill = Int32Array.from(partStart.subarray(0, units));
+    copyPlain(ix, order, n, layoutCell, K, fill, recSize, bytes, plan.lineEnding === '\r\n', fps);
     T?.push(performance.now());
   } else {
-    const fill = Int32Array.from(partStart.subarray(0, parts));
-    copyWithFold(ix, order, n, cellOfRec, K, fill, recSize, bytes, plan.lineEnding, foldBytes!, isJson);
+    const fill = Int32Array.from(partStart.subarray(0, units));
+    copyWithFold(ix, order, n, layoutCell, K, fill, recSize, bytes, plan.lineEnding, foldBytes!, isJson);
     T?.push(performance.now());
-    fingerprintParts(ix, n, cellOfRec, K, fps);
+    fingerprintParts(ix, n, layoutCell, K, fps);
   }
   if (stats) {
-    // Each part's slice of output is plain CSV/TSV or JSON Lines: read it back with the record
+    // Each unit's slice of output is plain CSV/TSV or JSON Lines: read it back with the record
     // reader (as the input was read) and add it a batch at a time, column by column.
     const reader = partReader(plan);
-    for (let p = 0; p < parts; p++) {
-      const from = partStart[p]!;
-      const to = partStart[p + 1]!;
+    for (let u = 0; u < units; u++) {
+      const from = partStart[u]!;
+      const to = partStart[u + 1]!;
       if (to === from) continue;
       const batch = reader.parseBlock(Buffer.from(arena, from, to - from), 0, true, 0);
-      if (batch) stats[p]!.addBatch(batch);
+      if (batch) stats[spread ? Math.floor(u / strata) : u]!.addBatch(batch);
     }
   }
   T?.push(performance.now());
-  const data = new Uint8Array(arena, base, partStart[parts]! - base);
-  for (let p = 0; p <= parts; p++) partStart[p]! -= base;
-  return { bucket: task.bucket, data, partStart, counts: counts ?? countEntries(entryOf!), fingerprints: fps.map((f) => f.toJSON()), ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}) };
+  const data = new Uint8Array(arena, base, partStart[units]! - base);
+  for (let u = 0; u <= units; u++) partStart[u]! -= base;
+  let fingerprints = fps.map((f) => f.toJSON());
+  let spreadUnits: GatherResult['spread'];
+  if (spread) {
+    const perPart = Array.from({ length: parts }, () => new Fingerprint());
+    fps.forEach((f, u) => perPart[Math.floor(u / strata)]!.merge(f.toJSON()));
+    fingerprints = perPart.map((f) => f.toJSON());
+    spreadUnits = unitSizes(order, n, layoutCell, K, recSize, units);
+  }
+  return {
+    bucket: task.bucket,
+    data,
+    partStart,
+    counts: counts ?? countEntries(entryOf!),
+    fingerprints,
+    ...(spreadUnits ? { spread: spreadUnits } : {}),
+    ...(T ? { phases: T.slice(1).map((x, k) => x - T[k]!) } : {}),
+  };
+}
+
+/** `--order spread`: every record's size in layout order (unit by unit, key order within), and each unit's record count. */
+function unitSizes(order: Uint32Array, n: number, layoutCell: Uint32Array, K: number, recSize: Uint32Array, units: number): { sizes: Uint32Array; records: Uint32Array } {
+  const records = new Uint32Array(units);
+  for (let i = 0; i < n; i++) records[(layoutCell[i]! / K) | 0]!++;
+  const next = new Uint32Array(units);
+  for (let u = 1; u < units; u++) next[u] = next[u - 1]! + records[u - 1]!;
+  const sizes = new Uint32Array(n);
+  for (let k = 0; k < n; k++) {
+    const i = order[k]!;
+    sizes[next[(layoutCell[i]! / K) | 0]!++] = recSize[i]!;
+  }
+  return { sizes, records };
 }
 
 interface BucketIndex {

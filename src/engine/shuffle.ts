@@ -37,6 +37,7 @@ import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
 import { gatherLane, type GatherFinal, type GatherLane } from './gather-lane.js';
 import { statsInLanes, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import { HEADER_BYTES, spillRanges } from './spill.js';
+import { SpreadParts } from './spread-parts.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
 
@@ -582,6 +583,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       partSummaries[p] = t.summary({ excludeValues: o.excludeValues });
       allStats!.merge(t);
     };
+    // --order spread: each part's records kept class by class until the part is put in order.
+    const spreadParts = o.order === 'spread' ? new SpreadParts(spillDir, parts, nStrata) : null;
     const pending = new Map<number, Promise<GatherResult>>();
     const phases: number[] = [];
     // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
@@ -605,10 +608,11 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       const r = await pending.get(b)!;
       pending.delete(b);
       const data = Buffer.from(r.data.buffer, r.data.byteOffset, r.data.byteLength);
+      if (spreadParts) spreadParts.add(data, r.partStart, r.spread!);
       for (let p = 0; p < parts; p++) {
         const a = r.partStart[p]!;
         const e = r.partStart[p + 1]!;
-        if (e > a) {
+        if (!spreadParts && e > a) {
           const writing = writers[p]!.write(data.subarray(a, e));
           if (writing) await writing;
         }
@@ -626,6 +630,18 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       }
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
+    }
+    if (spreadParts) {
+      try {
+        for (let p = 0; p < parts; p++) {
+          const classCounts = new Float64Array(nStrata);
+          for (let f = 0; f < K; f++) for (let st = 0; st < nStrata; st++) classCounts[st]! += counts[(p * K + f) * nStrata + st]!;
+          await spreadParts.writePart(p, classCounts, writers[p]!);
+          o.onProgress?.({ stage: 'order', done: p + 1, total: parts, records, elapsedMs: Date.now() - t0 });
+        }
+      } finally {
+        spreadParts.close();
+      }
     }
     const closed: { bytes: number; sha256: string }[] = [];
     for (const w of writers) closed.push(await w.close());

@@ -26,6 +26,7 @@ import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } 
 import { RecordReader } from '../io/reader.js';
 import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
 import { DEALING_SCHEME } from '../core/deal.js';
+import { SpreadCheck } from '../core/spread.js';
 import type { PartOrder } from '../options.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
@@ -150,6 +151,10 @@ interface ReadPlan {
   statsColumns: string[] | null;
   /** Whether those statistics were written without data values. */
   excludeValues: boolean;
+  /** The order the manifest promises inside each part ("interleaved": dealing scheme 1's, not checked). */
+  order: PartOrder | 'interleaved';
+  /** `grouped`: the columns whose values make a group (the group column, or the key columns). */
+  groupColumns: string[];
 }
 
 interface PartScan {
@@ -170,6 +175,8 @@ interface PartScan {
   fingerprint: Fingerprint;
   /** With statsColumns: the part's column statistics as the manifest gives them (its table went to a PartStatsGather). */
   stats: ColumnSummary[] | null;
+  /** The first place the part breaks the promised order (spread or grouped), or null. */
+  orderBreak: { line: number; expected: string; found: string } | null;
 }
 
 /** Outputs at least this large are read on worker threads by default. */
@@ -200,7 +207,7 @@ export function partStatsGatherFor(m: Manifest): PartStatsGather | null {
 /** The worker's side: scans one part with the plan made from the manifest. */
 export async function scanPartTask(m: Manifest, task: VerifyPartTask, gather: PartStatsGather | null): Promise<SerializedPartScan> {
   const hashes = task.hashes ? new HashList() : null;
-  const s = await scanPart(task.path, task.display, createReadPlan(m), hashes, gather);
+  const s = await scanPart(task.path, task.display, createReadPlan(m), hashes, gather, m.output.parts.find((p) => p.path === task.display)?.strata ?? null);
   return {
     ...s,
     unknown: [...s.unknown],
@@ -320,7 +327,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   } else {
     const limit = pLimit(2);
     const gather = partStatsGatherFor(m);
-    scans = await Promise.all(parts.map((p) => limit(async () => partDone(await scanPart(join(dir, p.path), p.path, plan, outHashes, gather)))));
+    scans = await Promise.all(parts.map((p) => limit(async () => partDone(await scanPart(join(dir, p.path), p.path, plan, outHashes, gather, p.strata)))));
     if (gather) wholeStats = gather.whole;
   }
 
@@ -378,7 +385,17 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     }
     judge(f, 'fingerprint', same(p.fingerprint, s.fingerprint.toHex()));
     if (s.stats) judge(f, 'statistics', compareStats(p.stats, s.stats));
+    checkOrder(f, s);
   });
+
+  /** The order inside a part: what can be checked of the promise without the inputs. */
+  function checkOrder(f: string, s: PartScan): void {
+    const o = plan.order;
+    if (o === 'interleaved') skip(f, 'order', 'dealing scheme 1 (rowdeck 0.1): classes evenly interleaved inside the part, not shuffled; shuffle again for a random order');
+    else if (o === 'random') skip(f, 'order', 'random: no pattern to check');
+    else if (o === 'spread' && plan.strataIndex === null) skip(f, 'order', 'spread: the manifest was written without data values (excludeValues)');
+    else judge(f, 'order', s.orderBreak === null ? [] : [s.orderBreak], o === 'spread' ? 'spread: every record of a class within one of its share of the positions so far' : 'grouped: each group in one run');
+  }
 
   // ---- rejected records, kept aside by --on-bad-record quarantine ----
   if (m.input.rejectsFile !== null) {
@@ -504,6 +521,7 @@ function partCheckNames(plan: ReadPlan): string[] {
     ...(plan.folds > 1 ? ['fold values', 'folds', 'fold strata'] : []),
     'fingerprint',
     ...(plan.statsColumns !== null ? ['statistics'] : []),
+    'order',
   ];
 }
 
@@ -729,6 +747,8 @@ function createReadPlan(m: Manifest): ReadPlan {
     foldColumn: m.output.foldColumn,
     statsColumns: m.input.stats !== undefined ? m.input.columns : null,
     excludeValues: (m.options as { excludeValues?: boolean }).excludeValues === true,
+    order: m.dealingScheme === undefined ? 'interleaved' : (m.options as { order: PartOrder }).order,
+    groupColumns: m.options.group !== null ? [m.options.group as string] : (m.options.key as string[]),
   };
 }
 
@@ -753,6 +773,24 @@ function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): st
 function labelOfKey(plan: ReadPlan, key: string): string {
   const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
   return describeStratum(plan.stratify, vals, -1);
+}
+
+/** `grouped`: whether each group's records form one run (a group seen again after others breaks it). */
+class GroupRuns {
+  readonly #done = new Set<string>();
+  #current: string | null = null;
+  add(key: string): boolean {
+    if (key === this.#current) return true;
+    if (this.#current !== null) this.#done.add(this.#current);
+    this.#current = key;
+    return !this.#done.has(key);
+  }
+}
+
+function labelOfGroup(plan: ReadPlan, key: string): string {
+  if (plan.excludeValues) return 'a group';
+  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
+  return plan.groupColumns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
 }
 
 const DIGIT_0 = 0x30;
@@ -864,7 +902,7 @@ async function readAll(source: string | Readable | Buffer, reader: RecordReader,
   }
 }
 
-async function scanPart(path: string, display: string, plan: ReadPlan, hashes: HashList | null, gather: PartStatsGather | null = null): Promise<PartScan> {
+async function scanPart(path: string, display: string, plan: ReadPlan, hashes: HashList | null, gather: PartStatsGather | null = null, classCounts: number[] | null = null): Promise<PartScan> {
   const S = plan.strataCount;
   const K = plan.folds;
   const scan: PartScan = {
@@ -881,6 +919,7 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
     badFold: null,
     fingerprint: new Fingerprint(),
     stats: null,
+    orderBreak: null,
   };
   try {
     if (!statSync(path).isFile()) scan.present = false;
@@ -893,11 +932,15 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
   // With statistics to check, every column is wanted after the class columns (a column may be
   // both), and a table of them is fed from there (TableStats.addBatch's `first`).
   const table = gather ? gather.take() : null;
+  // The promised order, checked record by record (see checkOrder).
+  const spread = plan.order === 'spread' && classCounts !== null && plan.strataIndex !== null ? new SpreadCheck(classCounts) : null;
+  const grouped = plan.order === 'grouped' ? new GroupRuns() : null;
+  const groupAt = plan.stratify.length + (table ? table.columns.length : 0);
   const reader = new RecordReader({
     format: plan.format,
     ...(plan.delimiter !== undefined ? { delimiter: plan.delimiter } : {}),
     header: plan.header,
-    wanted: table ? [...plan.stratify, ...table.columns] : plan.stratify,
+    wanted: [...plan.stratify, ...(table ? table.columns : []), ...(grouped ? plan.groupColumns : [])],
     file: display,
     onBadRecord: 'fail',
   });
@@ -927,6 +970,11 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         scan.fingerprint.addHash(h[0]!, h[1]!);
         hashes?.add(h[0]!, h[1]!);
         scan.records++;
+        if (grouped && scan.orderBreak === null) {
+          let key = '';
+          for (let w = 0; w < plan.groupColumns.length; w++) key += (w ? TUPLE_SEP : '') + fieldKey(b, i, groupAt + w);
+          if (!grouped.add(key)) scan.orderBreak = { line: b.line[i]!, expected: 'the records of a group next to each other', found: `${labelOfGroup(plan, key)} again, after other groups` };
+        }
         if (fold >= 0) scan.folds[fold]!++;
         if (plan.strataIndex === null) continue;
         // A plain value of a single class column is looked up by its bytes (as stage 1 does);
@@ -949,6 +997,14 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         }
         scan.strata[st]!++;
         if (fold >= 0) scan.foldStrata[fold * S + st]!++;
+        if (spread && scan.orderBreak === null) {
+          spread.add(st);
+          const f = spread.failure;
+          if (f) {
+            const within = Number.isFinite(f.earliest) ? `between record ${f.earliest.toLocaleString('en-US')} and ${f.latest.toLocaleString('en-US')}` : 'no more of them';
+            scan.orderBreak = { line: b.line[i]!, expected: `record ${f.nth.toLocaleString('en-US')} of ${plan.strataLabels[st]} ${within}`, found: `record ${f.position.toLocaleString('en-US')}` };
+          }
+        }
       }
     });
     scan.bytes = sink.bytes;

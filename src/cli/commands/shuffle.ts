@@ -21,6 +21,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     group: { type: 'string' },
     key: { type: 'string' },
     assign: { type: 'string' },
+    order: { type: 'string' },
     memory: { type: 'string' },
     threads: { type: 'string' },
     'temp-dir': { type: 'string' },
@@ -53,6 +54,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   set('group', strArg(v.group));
   set('key', strArg(v.key));
   set('assign', strArg(v.assign) as ShuffleOptions['assign']);
+  set('order', strArg(v.order) as ShuffleOptions['order']);
   set('memory', strArg(v.memory));
   set('threads', intArg('threads', v.threads));
   set('tempDir', strArg(v['temp-dir']));

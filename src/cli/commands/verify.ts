@@ -109,6 +109,9 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
         `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}.\n`,
       );
     }
+    if (report.dealingScheme === 1) {
+      io.stderr.write(`rowdeck: ${dir} was written by dealing scheme 1 (rowdeck 0.1): its classes are evenly interleaved inside each part, not shuffled. Run the shuffle again with this version for a random order.\n`);
+    }
   }
   return report.ok ? 0 : 1;
 }
