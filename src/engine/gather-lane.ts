@@ -8,7 +8,7 @@ import { closeSync, openSync, readFileSync, readSync } from 'node:fs';
 import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
-import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type PreparedPlan } from './gather.js';
+import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type GroupRows, type PreparedPlan } from './gather.js';
 import { PartStatsGather, statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
 
@@ -24,18 +24,14 @@ export function loadGatherPlan(planPath: string): PreparedPlan {
   const file = plan.groupsFile ? join(dirname(planPath), plan.groupsFile) : null;
   if (file && plan.groupStarts === null) {
     // Records placed individually (GatherPlan.cellKeyInHeader): any bucket may hold any group.
-    let all: BucketGroups | null = null;
+    let all: GroupRows | null = null;
     return preparePlan(plan, () => (all ??= readAllGroups(file)));
   }
   return preparePlan(plan, file ? (bucket) => readBucketGroups(file, plan.groupStarts!, bucket) : null);
 }
 
-/**
- * The whole group table, for buckets whose records may belong to any group: 12 bytes a group,
- * and a directory of where each run of keys sharing their top bits starts (about four groups a
- * run), so a look-up searches a few entries rather than the whole table.
- */
-function readAllGroups(file: string): BucketGroups {
+/** The whole group table (see GroupRows), read from groups.bin's three columns. */
+function readAllGroups(file: string): GroupRows {
   let bytes: Buffer;
   try {
     bytes = readFileSync(file);
@@ -43,15 +39,23 @@ function readAllGroups(file: string): BucketGroups {
     throw ioError(err, file, 'reading the group table');
   }
   const n = bytes.length / 12;
-  const buf = bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.length) as ArrayBuffer;
-  const keyHi = new Uint32Array(buf, 0, n);
+  // Typed views need 4-byte alignment, which a Buffer from a pool may not have.
+  if (bytes.byteOffset % 4 !== 0) bytes = Buffer.from(bytes);
+  const col = (k: number): Uint32Array => new Uint32Array(bytes.buffer, bytes.byteOffset + 4 * n * k, n);
+  const [hi, lo, cell] = [col(0), col(1), col(2)];
+  const rows = new Uint32Array(3 * n);
+  for (let k = 0; k < n; k++) {
+    rows[3 * k] = hi[k]!;
+    rows[3 * k + 1] = lo[k]!;
+    rows[3 * k + 2] = cell[k]!;
+  }
   let dirBits = 1;
   while (dirBits < 24 && 2 ** (dirBits + 2) < n) dirBits++;
   const dir = new Uint32Array(2 ** dirBits + 1);
   const shift = 32 - dirBits;
-  for (let k = 0; k < n; k++) dir[(keyHi[k]! >>> shift) + 1]!++;
+  for (let k = 0; k < n; k++) dir[(hi[k]! >>> shift) + 1]!++;
   for (let d = 0; d < 2 ** dirBits; d++) dir[d + 1]! += dir[d]!;
-  return { keyHi, keyLo: new Uint32Array(buf, 4 * n, n), cell: new Uint32Array(buf, 8 * n, n), dir, dirShift: shift };
+  return { rows, dir, dirShift: shift };
 }
 
 /**

@@ -73,10 +73,30 @@ export interface BucketGroups {
   keyHi: Uint32Array;
   keyLo: Uint32Array;
   cell: Uint32Array;
-  /** A directory of the keys' top bits: entries dir[k] up to dir[k + 1] have top bits k. */
-  dir?: Uint32Array;
+}
+
+/**
+ * The whole group table, for buckets whose records may belong to any group: each group's key and
+ * cell side by side (one cache line a look-up, not three), and a directory of the keys' top bits
+ * (entries dir[k] up to dir[k + 1] have top bits k; about four a run), so a look-up reads one
+ * directory entry and a few neighbouring rows.
+ */
+export interface GroupRows {
+  /** hi, lo, cell of each group, in key order. */
+  rows: Uint32Array;
+  dir: Uint32Array;
   /** 32 less the directory's bits. */
-  dirShift?: number;
+  dirShift: number;
+}
+
+function findCellInRows(g: GroupRows, hi: number, lo: number): number {
+  const d = hi >>> g.dirShift;
+  const rows = g.rows;
+  for (let k = g.dir[d]!, end = g.dir[d + 1]!; k < end; k++) {
+    const at = 3 * k;
+    if (rows[at] === hi && rows[at + 1] === lo) return rows[at + 2]!;
+  }
+  throw new Error(`internal: group key ${hi}:${lo} missing from the plan`);
 }
 
 /**
@@ -86,11 +106,12 @@ export interface BucketGroups {
 export interface PreparedPlan {
   plan: GatherPlan;
   table: DealTable;
-  groupsOf: ((bucket: number) => BucketGroups) | null;
+  /** Group mode: a bucket's groups (GatherPlan.groupStarts), or the whole table (GatherPlan.cellKeyInHeader). */
+  groupsOf: ((bucket: number) => BucketGroups | GroupRows) | null;
   cellSecret: Uint32Array;
 }
 
-export function preparePlan(plan: GatherPlan, groupsOf: ((bucket: number) => BucketGroups) | null): PreparedPlan {
+export function preparePlan(plan: GatherPlan, groupsOf: PreparedPlan['groupsOf']): PreparedPlan {
   const table = buildDealTableFromPlan(plan);
   return { plan, table, groupsOf, cellSecret: Uint32Array.from(plan.cellSecret) };
 }
@@ -111,11 +132,6 @@ function buildDealTableFromPlan(plan: GatherPlan): DealTable {
 function findGroupCell(groups: BucketGroups, hi: number, lo: number): number {
   let a = 0;
   let b = groups.keyHi.length - 1;
-  if (groups.dir) {
-    const d = hi >>> groups.dirShift!;
-    a = groups.dir[d]!;
-    b = groups.dir[d + 1]! - 1;
-  }
   while (a <= b) {
     const m = (a + b) >>> 1;
     const d = groups.keyHi[m]! - hi || groups.keyLo[m]! - lo;
@@ -193,7 +209,8 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   else if (plan.mode === 'hash') for (let i = 0; i < n; i++) cellOfRec[i] = hashedCell(plan.deal, prep.cellSecret, cellHi(i), cellLo(i));
   else {
     const groups = prep.groupsOf!(task.bucket);
-    for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(groups, cellHi(i), cellLo(i));
+    if ('rows' in groups) for (let i = 0; i < n; i++) cellOfRec[i] = findCellInRows(groups, cellHi(i), cellLo(i));
+    else for (let i = 0; i < n; i++) cellOfRec[i] = findGroupCell(groups, cellHi(i), cellLo(i));
   }
   const recSize = scratch(6, n);
   const partBytes = new Float64Array(parts);
