@@ -12,6 +12,7 @@ import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args
 import { PROFILE_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 import { createProgress, formatBytes } from '../progress.js';
+import { writeProfileReport } from '../../report/write.js';
 
 export const DATA_VALUES_NOTE =
   'Note: this profile shows values from the data (min/max, frequent values, class names). Pass --exclude-values to leave them out before sharing it.';
@@ -24,6 +25,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     folds: { type: 'string' },
     tolerance: { type: 'string' },
     threads: { type: 'string' },
+    html: { type: 'string' },
   });
   if (v.help) {
     io.stdout.write(PROFILE_HELP);
@@ -54,6 +56,10 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     p = await profile(opts);
   } finally {
     progress.done();
+  }
+  if (v.html !== undefined) {
+    const file = writeProfileReport(p, String(v.html));
+    if (!v.quiet) io.stderr.write(`rowdeck: wrote the profile page ${file}${p.excludeValues ? '' : ' (it shows values from the data: pass --exclude-values to leave them out)'}.\n`);
   }
   if (v.json) {
     io.stdout.write(JSON.stringify(p, null, 2) + '\n');
