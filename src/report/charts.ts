@@ -148,8 +148,8 @@ export function deviationLegend(id: string, range: number, tolerance: number): s
   parts.push(tag('text', { x: x0 - 6, y: 19, 'text-anchor': 'end', class: 'lab' }, 'share below the whole'));
   parts.push(tag('text', { x: x0 + w + 6, y: 19, class: 'lab' }, 'share above'));
   if (range > 0) {
-    parts.push(tag('text', { x: x0, y: 36, class: 'num', 'data-k': 'worst.deviation' }, formatPercent(range, 2)));
-    parts.push(tag('text', { x: x0 + w, y: 36, class: 'num', 'text-anchor': 'end', 'data-k': 'worst.deviation' }, formatPercent(range, 2)));
+    parts.push(tag('text', { x: x0, y: 36, class: 'num', 'data-k': 'worst.size' }, formatPercent(range, 2)));
+    parts.push(tag('text', { x: x0 + w, y: 36, class: 'num', 'text-anchor': 'end', 'data-k': 'worst.size' }, formatPercent(range, 2)));
   }
   parts.push(tag('text', { x: x0 + w / 2, y: 36, class: 'lab', 'text-anchor': 'middle' }, 'same share'));
   let height = 44;
@@ -271,7 +271,7 @@ export function toleranceMeter(id: string, deviation: number, tolerance: number)
     tag('rect', { x: 0, y: 2, width: w, height: 10, class: 'meterbg' }) +
     tag('rect', { x: 0, y: 2, width: px(Math.max(used > 0 ? 2 : 0, used * w)), height: 10, class: used >= 1 ? 'meter over' : 'meter' }) +
     tag('line', { x1: w, x2: w, y1: 0, y2: 14, class: 'tol' });
-  return chart(id, w + 2, 14, 'Share of the tolerance used', `The largest deviation is ${formatPercent(used, 0)} of the tolerance.`, body);
+  return chart(id, w + 2, 14, 'Share of the tolerance used', 'A bar as long as the largest deviation, on a track as long as the tolerance (the red line).', body);
 }
 
 /** Horizontal bars of class counts (the profile's class balance). */

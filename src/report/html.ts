@@ -54,8 +54,9 @@ export function lbl(s: string): string {
   return `<span class="lbl">${escapeText(s)}</span>`;
 }
 
+/** A section; `title` and `lead` are markup (escape any data in them). */
 export function section(id: string, title: string, lead: string, body: string): string {
-  return `<section id="${id}">\n<h2>${escapeText(title)}</h2>\n${lead ? `<p class="lead">${lead}</p>\n` : ''}${body}\n</section>`;
+  return `<section id="${id}">\n<h2>${title}</h2>\n${lead ? `<p class="lead">${lead}</p>\n` : ''}${body}\n</section>`;
 }
 
 /**
@@ -195,12 +196,11 @@ function renderMix(m: Manifest, model: ReportModel): string {
     { ...whole, counts: countsOf(whole, columns) },
     ...chooseUnits(units, CHART_UNITS).map((u) => ({ key: u.key, label: u.label, labelIsData: true, records: u.records, counts: countsOf(u, columns) })),
   ];
-  const col = escapeText(model.classColumns);
   const figures: string[] = [];
   const folded = other.length > 0 ? ` The largest classes have their own colour; the others share the grey cross-hatch.` : '';
   const cut = (units: UnitInfo[]): string => (units.length > CHART_UNITS ? ` Only the ${units[0]!.kind}s whose mix strays most are drawn; the table lists every one.` : '');
   figures.push(
-    `<figure>${mixChart('mix-parts', rowsOf(model.parts), columns, `Class mix of each part against the whole input`, `One bar per part, split by class (${model.classColumns}); the dashed lines continue the whole input's class boundaries.`)}` +
+    `<figure>${mixChart('mix-parts', rowsOf(model.parts), columns, `Class mix of each part against the whole input`, `One bar per part, split by class; the dashed lines continue the whole input's class boundaries.`)}` +
       `<figcaption>Each bar is one part, divided by class. Dashed lines continue the whole input's boundaries: a part whose edges sit on them has the whole's mix.${folded}${cut(model.parts)}</figcaption></figure>`,
   );
   if (model.folds.length > 0) {
@@ -229,8 +229,8 @@ function renderMix(m: Manifest, model: ReportModel): string {
   ];
   return section(
     'classes',
-    `Class mix by ${model.classColumns}`,
-    `Every part should hold each class of <strong>${col}</strong> at its share of the whole input. ${fig('classes.count', plural(model.classes.length, 'class', 'classes'))} in all.`,
+    `Class mix by ${txt('strata.columns', model.classColumns)}`,
+    `Every part should hold each class of <strong>${txt('strata.columns', model.classColumns)}</strong> at its share of the whole input. ${fig('classes.count', plural(model.classes.length, 'class', 'classes'))} in all.`,
     legend(model, columns) +
       figures.join('\n') +
       table(`Records per class in each unit, then the deviation of the class's share from its share in the whole input (the whole's row gives the share).`, head, rows),
@@ -361,7 +361,7 @@ function renderSplits(m: Manifest, model: ReportModel): string {
 function renderGroups(m: Manifest, model: ReportModel): string {
   const sizes = m.output.parts.map((p) => p.records);
   const lead =
-    `Records with the same value of ${txt('option.group', String(m.options.group))} were kept in one part: whole groups were placed, largest first, ` +
+    `Records with the same value of ${txt('group.column', String(m.options.group))} were kept in one part: whole groups were placed, largest first, ` +
     `each where its classes were most wanted. Parts then differ in size as the groups do: the smallest holds ${fig('parts.minRecords', formatCount(Math.min(...sizes)))} records, the largest ${fig('parts.maxRecords', formatCount(Math.max(...sizes)))}.`;
   const balance = model.stratified
     ? `<p>The class balance this achieved: a largest deviation of ${fig('balance.maxDeviation', formatPercent(m.balance.maxDeviation, 2))}, against the tolerance of ${fig('balance.tolerance', formatPercent(m.balance.tolerance, 2))}.</p>`
@@ -426,7 +426,7 @@ function renderStats(m: Manifest, model: ReportModel): string {
       ...shown.map((u) => ({ key: u.key, label: u.label, labelIsData: true, mean: partStats[u.index]?.[ci]?.mean ?? null, sd: partStats[u.index]?.[ci]?.sd ?? null })),
     ];
     const t = table(
-      `${c.name}: every part.`,
+      'Every part: its values, missing values, mean and standard deviation.',
       [{ label: 'part' }, { label: 'values', n: true }, { label: 'missing', n: true }, { label: 'mean', n: true }, { label: 'sd', n: true }],
       model.parts.map((u) => {
         const s = partStats[u.index]?.[ci];
@@ -444,7 +444,7 @@ function renderStats(m: Manifest, model: ReportModel): string {
     blocks.push(
       `<h3>${txt(`whole.col.${ci}.name`, c.name)}</h3>` +
         (drawn
-          ? `<figure>${spreadChart(`spread-${ci}`, ci, rows, `Mean and spread of ${c.name} in each part against the whole input`, `Left: how far each part's mean is from the whole input's, in the whole's standard deviations. Right: each part's standard deviation over the whole's. The whole input sits on the dashed lines.`)}` +
+          ? `<figure>${spreadChart(`spread-${ci}`, ci, rows, `Mean and spread in each part against the whole input`, `Left: how far each part's mean is from the whole input's, in the whole's standard deviations. Right: each part's standard deviation over the whole's. The whole input sits on the dashed lines.`)}` +
             `<figcaption>Left: each part's mean, off the whole input's mean, in the whole's standard deviations (sd). Right: each part's sd against the whole's. Dots on the dashed lines match the whole.${shown.length < model.parts.length ? ' The parts whose mean is furthest from the whole are drawn.' : ''}</figcaption></figure>`
           : '') +
         t,
@@ -470,7 +470,7 @@ function renderRun(m: Manifest): string {
     })),
   );
   const sums = table(
-    'Checksums of every part: sha256 of the file as written, and the fingerprint of its records.',
+    'Checksums of every part: of the file as written, and the fingerprint of its records.',
     [{ label: 'part' }, { label: lbl('sha256') }, { label: 'fingerprint' }],
     m.output.parts.map((p, i) => ({ cells: [txt(`part.${i}.name`, p.path), txt(`part.${i}.sha256`, p.sha256, 'code'), txt(`part.${i}.fingerprint`, p.fingerprint, 'code')] })),
   );

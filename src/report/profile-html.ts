@@ -57,10 +57,10 @@ export function renderProfileReport(p: Profile, options: ProfileReportOptions = 
         rows.push({ key: `byclass.${b}.${other.join(',')}`, label: 'other classes', labelKey: null, count: other.reduce((a, v) => a + all[v]!.records, 0), share: other.reduce((a, v) => a + all[v]!.share, 0), slot: SLOTS });
       }
       blocks.push(
-        `<h3>${txt(`byclass.${b}.column`, col.column)}</h3><figure>${countChart(`balance-${b}`, rows, `Records per class of ${col.column}`, `One bar per class, as long as its count.`)}` +
+        `<h3>${txt(`byclass.${b}.column`, col.column)}</h3><figure>${countChart(`balance-${b}`, rows, `Records per class`, `One bar per class, as long as its count.`)}` +
           `<figcaption>${fig(`byclass.${b}.count`, plural(col.values.length, 'class', 'classes'))}.${other.length > 0 ? ' The smallest are drawn together as "other classes"; the table lists every one.' : ''}</figcaption></figure>` +
           table(
-            `Every class of ${col.column}.`,
+            'Every class, with its records and share.',
             [{ label: 'class' }, { label: 'records', n: true }, { label: 'share', n: true }],
             all.map((c) => ({ cells: [txt(`byclass.${b}.${c.index}.name`, c.label), fig(`byclass.${b}.${c.index}.count`, formatCount(c.records)), fig(`byclass.${b}.${c.index}.share`, formatPercent(c.share))] })),
           ),
@@ -100,7 +100,7 @@ export function renderProfileReport(p: Profile, options: ProfileReportOptions = 
       ],
     })),
   );
-  body.push(section('columns', 'Columns', 'Type, counts, range and, for numbers, mean and standard deviation (n − 1). Distinct counts marked ~ are estimates.', columnTable('Every column.', p.columns, 'col') + top));
+  body.push(section('columns', 'Columns', 'Type, counts, range and, for numbers, mean and sample standard deviation. Distinct counts marked ~ are estimates.', columnTable('Every column.', p.columns, 'col') + top));
   if (p.strata && p.strata.bins.length > 0) body.push(renderBins(p.strata.bins, 'bins'));
   const inputs = table(
     'Inputs, in the order given.',
