@@ -91,7 +91,7 @@ function pickRows(units: UnitInfo[], what: string, withDeviation: boolean): { sh
   return {
     shown,
     rest: withDeviation
-      ? `… ${hidden.length} more ${what}s, each class within ${formatPercent(largest, 2)} of its overall share`
+      ? `… ${hidden.length} more ${what}s, every class within ${formatPercent(largest, 2)}`
       : `… ${hidden.length} more ${what}s of ${formatCount(Math.min(...records))} to ${formatCount(Math.max(...records))} records`,
   };
 }
@@ -136,10 +136,10 @@ function classTable(model: ReportModel, width: number): string[] {
     for (const u of rows) lines.push(unitRow(u));
     if (rest) lines.push(rest);
   }
-  if (other.length > 0) lines.push(`(${plural(other.length, 'smaller class', 'smaller classes')} summed up as "other": the full table is in the manifest and the report)`);
-  if (worst) lines.push(`largest deviation: ${oneLine(model.classes[worst.classIndex]!.label)} in ${worst.unit.label}, ${signed(worst.unit.deviation[worst.classIndex]!)} of its share.`);
+  if (other.length > 0) lines.push(`(${plural(other.length, 'smaller class', 'smaller classes')} as "other"; all are in the manifest)`);
+  if (worst) lines.push(`largest deviation: ${signed(worst.unit.deviation[worst.classIndex]!)}, ${oneLine(model.classes[worst.classIndex]!.label)} in ${worst.unit.label}`);
   else lines.push('every class has exactly its overall share in every part.');
-  return lines;
+  return lines.map((l) => cut(l, width));
 }
 
 function sizeTable(model: ReportModel, width: number): string[] {
