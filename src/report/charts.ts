@@ -125,7 +125,7 @@ export function deviationGrid(id: string, rows: GridRow[], columns: ClassColumn[
       const list = listKey(col.classes);
       const tip = tag('title', { 'data-k': `${r.key}.dev.${list} ${r.key}.class.${list}` }, `${formatSignedPercent(cell.deviation)}, ${formatCount(cell.count)} records · ${escapeText(col.label)} in ${escapeText(r.label)}${isWorst ? ' (the largest deviation)' : ''}`);
       parts.push(tag('rect', { x: px(x + 0.5), y: px(y + 0.5), width: px(cw - 1), height: px(ch - 1), fill, class: beyond ? 'cell beyond' : 'cell' }, tip));
-      if (showText) parts.push(tag('text', { x: px(x + cw / 2), y: px(y + ch / 2 + 4), 'text-anchor': 'middle', class: 'cellnum', fill: ink, 'data-k': `${r.key}.dev.${list}` }, formatSignedPercent(cell.deviation)));
+      if (showText) parts.push(tag('text', { x: px(x + cw / 2), y: px(y + ch / 2 + 4), 'text-anchor': 'middle', class: ink === '#ffffff' ? 'cellnum on-dark' : 'cellnum', 'data-k': `${r.key}.dev.${list}` }, formatSignedPercent(cell.deviation)));
       if (isWorst) parts.push(tag('rect', { x: px(x + 1.25), y: px(y + 1.25), width: px(cw - 2.5), height: px(ch - 2.5), class: 'worst' }));
     });
   });

@@ -198,7 +198,7 @@ function renderMix(m: Manifest, model: ReportModel): string {
   ];
   const figures: string[] = [];
   const folded = other.length > 0 ? ` The largest classes have their own colour; the others share the grey cross-hatch.` : '';
-  const cut = (units: UnitInfo[]): string => (units.length > CHART_UNITS ? ` Only the ${units[0]!.kind}s whose mix strays most are drawn; the table lists every one.` : '');
+  const cut = (units: UnitInfo[]): string => (units.length > CHART_UNITS ? ` Only the ${units[0]!.kind}s whose mix strays most are drawn; the table under the deviations lists every one.` : '');
   figures.push(
     `<figure>${mixChart('mix-parts', rowsOf(model.parts), columns, `Class mix of each part against the whole input`, `One bar per part, split by class; the dashed lines continue the whole input's class boundaries.`)}` +
       `<figcaption>Each bar is one part, divided by class. Dashed lines continue the whole input's boundaries: a part whose edges sit on them has the whole's mix.${folded}${cut(model.parts)}</figcaption></figure>`,
@@ -209,6 +209,16 @@ function renderMix(m: Manifest, model: ReportModel): string {
         `<figcaption>The same for each fold, over all the parts of its split.${cut(model.folds)}</figcaption></figure>`,
     );
   }
+  return section(
+    'classes',
+    `Class mix by ${txt('strata.columns', model.classColumns)}`,
+    `Every part should hold each class of <strong>${txt('strata.columns', model.classColumns)}</strong> at its share of the whole input. ${fig('classes.count', plural(model.classes.length, 'class', 'classes'))} in all.`,
+    legend(model, columns) + figures.join('\n'),
+  );
+}
+
+/** Every unit's records per class and their deviations: the numbers behind both charts. */
+function countsTable(model: ReportModel): string {
   const head = [{ label: 'unit' }, { label: 'records', n: true }, ...model.classes.map((c) => ({ label: txt(`class.${c.index}.name`, c.label), n: true }))];
   const worst = model.worst;
   const row = (u: UnitInfo): { cells: string[]; hot?: number[] } => ({
@@ -227,14 +237,7 @@ function renderMix(m: Manifest, model: ReportModel): string {
     ...model.parts.map(row),
     ...model.folds.map(row),
   ];
-  return section(
-    'classes',
-    `Class mix by ${txt('strata.columns', model.classColumns)}`,
-    `Every part should hold each class of <strong>${txt('strata.columns', model.classColumns)}</strong> at its share of the whole input. ${fig('classes.count', plural(model.classes.length, 'class', 'classes'))} in all.`,
-    legend(model, columns) +
-      figures.join('\n') +
-      table(`Records per class in each unit, then the deviation of the class's share from its share in the whole input (the whole's row gives the share).`, head, rows),
-  );
+  return table(`Records per class in each unit, then the deviation of the class's share from its share in the whole input (the whole's row gives the share).`, head, rows);
 }
 
 // --- deviations --------------------------------------------------------------------------------------
@@ -263,7 +266,7 @@ function renderDeviations(m: Manifest, model: ReportModel): string {
     }
     figures.push(
       `<figure>${deviationGrid(id, rows, columns, range, tol, worst, `Deviation of each class's share in each ${what} from its overall share`, `Rows are ${what}s, columns classes; blue cells hold less of the class than the whole input, orange cells more.`)}` +
-        `<figcaption>${units.length > CHART_UNITS ? `The ${what}s whose mix strays most; the table above lists every one. ` : ''}Hover a cell for its figures.</figcaption></figure>`,
+        `<figcaption>${units.length > CHART_UNITS ? `The ${what}s whose mix strays most; the table below lists every one. ` : ''}Hover a cell for its figures.</figcaption></figure>`,
     );
   };
   draw('dev-parts', model.parts, 'part');
@@ -272,7 +275,7 @@ function renderDeviations(m: Manifest, model: ReportModel): string {
   const lead = w
     ? `How far each class's share in a part or fold strays from its share in the whole input, relative to that share. The largest, ${fig('worst.deviation', formatSignedPercent(w.unit.deviation[w.classIndex]!))}, is ${txt(`class.${w.classIndex}.name`, model.classes[w.classIndex]!.label)} in ${txt(`${w.unit.key}.name`, w.unit.label)} (outlined in black).`
     : 'Every class has exactly its overall share in every part and fold.';
-  return section('deviations', 'Deviation from the overall share', lead, figures.join('\n'));
+  return section('deviations', 'Deviation from the overall share', lead, figures.join('\n') + countsTable(model));
 }
 
 // --- sizes ------------------------------------------------------------------------------------------

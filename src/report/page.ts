@@ -38,6 +38,7 @@ svg.chart text.lab { fill: #2b313c; }
 svg.chart text.strong { font-weight: 700; }
 svg.chart text.num { font-variant-numeric: tabular-nums; }
 svg.chart text.cellnum { font-size: 10px; font-variant-numeric: tabular-nums; }
+svg.chart text.on-dark { fill: #ffffff; }
 svg.chart .guide { stroke: #1e2430; stroke-width: 0.8; stroke-dasharray: 2 2; opacity: 0.7; }
 svg.chart .cell { stroke: #ffffff; stroke-width: 0.5; }
 svg.chart .cell.beyond { stroke: var(--bad); stroke-width: 2; stroke-dasharray: 3 2; }
@@ -69,6 +70,7 @@ tr.whole td, tr.whole th { background: #f6f4ee; font-weight: 600; }
 td .dv { color: var(--muted); }
 td.clip { max-width: 22em; overflow: hidden; text-overflow: ellipsis; white-space: nowrap; }
 .plain { margin: 8px 0; overflow-x: auto; }
+.plain table { min-width: 0; }
 dl.opts { display: grid; grid-template-columns: repeat(auto-fill, minmax(230px, 1fr)); gap: 2px 16px; margin: 4px 0 12px; }
 dl.opts div { display: flex; gap: 8px; align-items: baseline; border-bottom: 1px solid #ece9e2; padding: 2px 0; }
 dl.opts dt { color: var(--muted); min-width: 9.5em; }
