@@ -29,6 +29,8 @@ import { checkMarks, manifestClassName, manifestValue, profileValue, type PageDa
 const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
 const EXAMPLE = fileURLToPath(new URL('../examples/sensor-readings.csv', import.meta.url));
 const chromium = findChromium();
+// CI (.ci/run) installs chromium: there, a missing browser is a failure, not a skip.
+if (!chromium && process.env.CI) throw new Error('chromium not found, but CI is set: .ci/run should have installed it (apt-get install -y chromium).');
 if (!chromium) process.stderr.write('report.browser.test.ts skipped: no chromium. Install it (apt-get install -y chromium, as .ci/run does) and run npm test again.\n');
 
 const XSS_IMG = '<img src=x onerror=alert(1)>';
