@@ -21,7 +21,7 @@ import { verify } from '../src/engine/verify.js';
 import type { Manifest } from '../src/engine/manifest.js';
 import type { Profile } from '../src/engine/profile.js';
 import { writeReport } from '../src/report/write.js';
-import { findChromium, printToPdf, renderInChromium } from './helpers/chromium.js';
+import { findChromium, renderInChromium } from './helpers/chromium.js';
 import { colourCensus, decodePng } from './helpers/png.js';
 import { find, parseDom, textOf, elements, type DomElement } from './helpers/dom.js';
 import { checkMarks, manifestClassName, manifestValue, profileValue, type PageData } from './helpers/report-keys.js';
@@ -120,9 +120,6 @@ describe.skipIf(!chromium)('the report in headless chromium', () => {
     // The largest deviation the page computes is the one the engine recorded.
     expect(Math.abs(manifestValue('worst.deviation', data, false) as number)).toBeCloseTo(m.balance.maxDeviation, 12);
     expect(marks.figures).toBeGreaterThan(300);
-    // Printable: the print style sheet gives a PDF of several pages (the long tables unrolled).
-    const pdf = printToPdf(chromium!, join(out, 'report.html'));
-    expect(pdf.subarray(0, 5).toString('latin1')).toBe('%PDF-');
   });
 
   it('named splits with groups, written by shuffle({ report: true })', async () => {

@@ -55,21 +55,3 @@ export function renderInChromium(chromium: string, file: string, width: number, 
     rmSync(profile, { recursive: true, force: true });
   }
 }
-
-/** Prints `file` to PDF with the page's print styles; returns the PDF's bytes. */
-export function printToPdf(chromium: string, file: string): Buffer {
-  const profile = mkdtempSync(join(tmpdir(), 'rowdeck-chromium-'));
-  const pdf = join(profile, 'page.pdf');
-  try {
-    const r = spawnSync(
-      chromium,
-      ['--headless', '--no-sandbox', '--disable-gpu', '--disable-background-networking', '--disable-component-update', '--disable-sync', '--no-first-run', `--user-data-dir=${profile}`, '--no-pdf-header-footer', `--print-to-pdf=${pdf}`, pathToFileURL(file).href],
-      { encoding: 'utf8', timeout: 90_000 },
-    );
-    if (r.error) throw r.error;
-    if (!existsSync(pdf)) throw new Error(`chromium wrote no PDF (exit ${r.status}): ${r.stderr.slice(-2000)}`);
-    return readFileSync(pdf);
-  } finally {
-    rmSync(profile, { recursive: true, force: true });
-  }
-}
