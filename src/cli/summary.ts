@@ -7,6 +7,7 @@ import type { Manifest } from '../engine/manifest.js';
 import type { VerifyReport } from '../engine/verify.js';
 import { countChecks, describeFiles, groupChecks } from '../report/checks.js';
 import { formatCount, formatPercent, formatSignedPercent, plural } from '../report/format.js';
+import { cutText as cut, padEnd, padStart, showValue as oneLine, widthOf } from './text.js';
 import { buildReportModel, chooseClasses, chooseUnits, otherOf, type ReportModel, type UnitInfo } from '../report/model.js';
 
 /** Rows of parts (and of folds) shown before the rest are summed up in one line. */
@@ -21,31 +22,6 @@ export interface SummaryOptions {
   report: string | null;
   /** Whether to print the table (a terminal), or the one line only. */
   table: boolean;
-}
-
-/** Width as a terminal shows it, roughly: one per code point. */
-function widthOf(s: string): number {
-  let n = 0;
-  for (const _ of s) n++;
-  return n;
-}
-
-function cut(s: string, max: number): string {
-  return widthOf(s) <= max ? s : [...s].slice(0, Math.max(1, max - 1)).join('') + '…';
-}
-
-function padEnd(s: string, w: number): string {
-  return s + ' '.repeat(Math.max(0, w - widthOf(s)));
-}
-
-function padStart(s: string, w: number): string {
-  return ' '.repeat(Math.max(0, w - widthOf(s))) + s;
-}
-
-/** A class value, on one line: control characters shown as escapes. */
-function oneLine(s: string): string {
-  // eslint-disable-next-line no-control-regex
-  return s.replace(/[\u0000-\u001f\u007f]/g, (c) => (c === '\n' ? '\\n' : c === '\r' ? '\\r' : c === '\t' ? '\\t' : `\\x${c.charCodeAt(0).toString(16).padStart(2, '0')}`));
 }
 
 /** A signed deviation for the terminal: ASCII minus, so it lines up on any terminal font. */
