@@ -28,3 +28,6 @@ export {
   type ProfileWarningCode,
 } from './engine/profile.js';
 export type { ColumnSummary, ColumnType, ValueCount } from './core/stats.js';
+export { writeReport, writeProfileReport, REPORT_FILE, type ReportOptions, type ReportResult } from './report/write.js';
+export { renderManifestReport, type ManifestReportOptions } from './report/html.js';
+export { renderProfileReport, type ProfileReportOptions } from './report/profile-html.js';

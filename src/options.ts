@@ -86,6 +86,8 @@ export interface ShuffleOptions {
    * the input's statistics alone, faster.
    */
   stats?: boolean;
+  /** Also write `report.html` (the manifest as a page of charts and tables) into the output folder. Default false. */
+  report?: boolean;
   onProgress?: (e: ProgressEvent) => void;
 }
 
@@ -127,6 +129,7 @@ export interface ResolvedShuffleOptions {
   force: boolean;
   excludeValues: boolean;
   stats: boolean;
+  report: boolean;
   onProgress: ((e: ProgressEvent) => void) | null;
 }
 
@@ -292,6 +295,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     force: o.force ?? false,
     excludeValues: o.excludeValues ?? false,
     stats: o.stats ?? false,
+    report: o.report ?? false,
     onProgress: o.onProgress ?? null,
   };
 }

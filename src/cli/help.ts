@@ -6,6 +6,7 @@ Usage:
   rowdeck shuffle INPUT... --out DIR [options]   shuffle and deal into partitions, splits, folds
   rowdeck profile INPUT... [options]             schema, statistics and class balance of inputs
   rowdeck verify DIR [--against INPUT...]        check an output folder against its manifest
+  rowdeck report DIR [--verify]                  write DIR/report.html: the result as charts
 
 Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' reads stdin.
 The same seed and inputs give the same bytes, whatever the thread count or memory budget.
@@ -86,11 +87,17 @@ Output and resources:
                           takes up to ~35 KB a thread beside it (2,000 columns: ~70 MB).
                           rowdeck profile gives the input's alone
   --exclude-values        leave data values (class names, frequent values) out of the manifest
+  --report                also write DIR/report.html, the manifest as a page of charts and
+                          tables (see rowdeck report --help)
   --json                  print the manifest on stdout
   --quiet                 no progress or summary on stderr
 
+On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
+and how far its share strays from its share in the whole input, the largest marked with *.
+
 Examples:
   rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --seed 2026
+  rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --report
   rowdeck shuffle day-*.csv.gz --out cv --folds 5 --stratify fault,site --group sensor_id
   rowdeck shuffle events.jsonl --out sets --split train=0.8,valid=0.1,test=0.1 --stratify label
 
@@ -126,14 +133,18 @@ Options:
   --format, --delimiter, --no-header   as for shuffle
   --on-bad-record MODE    fail (default), or skip: count malformed records, list the first 20
   --exclude-values        leave data values (min/max, frequent values, class names) out
+  --html FILE             also write the profile as a page: class balance as bars, missing
+                          values per column, every column's summary, the warnings. One file,
+                          no scripts, nothing loaded from the network; readable offline
   --json                  print the profile as JSON on stdout
   --quiet                 no progress or notes on stderr
 
 Caution: a profile holds values from the data (min/max, frequent values, class names). Use
 --exclude-values before publishing one for sensitive data.
 
-Example:
+Examples:
   rowdeck profile readings.csv --stratify fault --partitions 8 --folds 5
+  rowdeck profile readings.csv --stratify fault --html readings-profile.html
 `;
 
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
@@ -162,4 +173,40 @@ Exit status 0 when everything holds; otherwise 1 and a list of every mismatch on
 Examples:
   rowdeck verify parts
   rowdeck verify parts --against readings.csv
+`;
+
+export const REPORT_HELP = `rowdeck report — the result of a shuffle as a page you can read at a glance
+
+Usage:
+  rowdeck report DIR [--verify] [--threads N] [--quiet]
+
+Writes DIR/report.html from DIR/manifest.json and prints its path. The page shows:
+  * each part's and each fold's class mix against the whole input (stacked bars), and a grid of
+    how far each class's share strays from its overall share (blue below, orange above, the
+    largest outlined; the tolerance on the colour scale);
+  * part and fold sizes, the splits asked for and what they got, groups, quantile bin edges;
+  * with a --stats run, each numeric column's mean and spread in every part against the whole;
+  * the seed, the options, the inputs, and the sha256 and fingerprint of every part.
+Every chart has a table of the same numbers beside it. Class names are shown as text, never as
+markup; a run with --exclude-values shows classes as "class 1", "class 2", ...
+
+The page is one file: styles and charts inline, no script, nothing loaded from the network. It
+reads offline and prints (long tables unroll on paper). rowdeck shuffle --report writes the same
+page at the end of a run.
+
+Options:
+  --verify                re-read every part against the manifest first (as rowdeck verify),
+                          and show which checks ran on which files and what, if anything,
+                          failed; exit 1 when a check fails (the page is written either way)
+  --threads N             worker threads for --verify (as for rowdeck verify)
+  --quiet                 no progress or summary on stderr (the path still goes to stdout)
+
+Exit status: 0 when written (and, with --verify, every check held); 1 when a check failed or
+the folder has no readable manifest; 2 on a usage error.
+
+Examples:
+  rowdeck report parts
+  rowdeck report parts --verify
+  rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --report
+  xdg-open "$(rowdeck report parts)"
 `;

@@ -8,15 +8,17 @@ import { RowdeckError } from '../errors.js';
 import { VERSION } from '../version.js';
 import { MAIN_HELP } from './help.js';
 
+/** Where the commands write. Tests pass their own (`isTTY: true` and `columns` make stderr act as a terminal). */
 export interface CliIO {
   stdout: NodeJS.WritableStream & { isTTY?: boolean };
-  stderr: NodeJS.WritableStream & { isTTY?: boolean };
+  stderr: NodeJS.WritableStream & { isTTY?: boolean; columns?: number };
 }
 
 const COMMANDS: Record<string, () => Promise<{ run(argv: string[], io: CliIO): Promise<number> }>> = {
   shuffle: () => import('./commands/shuffle.js'),
   profile: () => import('./commands/profile.js'),
   verify: () => import('./commands/verify.js'),
+  report: () => import('./commands/report.js'),
 };
 
 export async function runCli(argv: string[], io: CliIO = { stdout: process.stdout, stderr: process.stderr }): Promise<number> {

@@ -29,7 +29,7 @@ import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
+import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
@@ -508,8 +508,8 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
   const o = resolveProfileOptions(options);
   const t0 = Date.now();
   const secret = deriveSecret(DEFAULT_SEED);
-  const totalBytes = o.inputs.reduce((a, p) => {
-    if (p === '-') return a;
+  // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.
+  const totalBytes = o.inputs.some(isStreamInput) ? 0 : o.inputs.reduce((a, p) => {
     try {
       return a + statSync(p).size;
     } catch {
@@ -543,8 +543,11 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
   const onReject = (r: RejectedRecord): void => {
     if (rejects.length < MAX_LISTED_REJECTS) rejects.push({ file: r.file, line: r.line, code: r.code, reason: o.excludeValues ? null : r.reason });
   };
+  // Progress counts the bytes taken from each source (compressed ones for gzip), as the file
+  // sizes in totalBytes do; the profile counts them decompressed.
+  const taken = o.inputs.map(() => 0);
   const progress = (): void =>
-    o.onProgress?.({ stage: 'read', done: inputs.reduce((a, x) => a + x.bytes, 0), total: totalBytes, records: inputs.reduce((a, x) => a + x.records, 0), elapsedMs: Date.now() - tRead });
+    o.onProgress?.({ stage: 'read', done: taken.reduce((a, b) => a + b, 0), total: totalBytes, records: inputs.reduce((a, x) => a + x.records, 0), elapsedMs: Date.now() - tRead });
 
   // Started once the first input's columns are known (they size the statistics).
   type Lanes = WorkerLanes<ProfileMessage, BlockReply | SmallInputReply, ProfileTaskResult>;
@@ -591,7 +594,8 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       const seen = inputs[k]!;
       // Small files were read ahead, whole (see ReadAhead).
       const whole = await ahead.take(k);
-      const it = (whole ? once(whole) : openInput(path))[Symbol.asyncIterator]();
+      const source = { bytes: whole ? whole.length : 0 };
+      const it = (whole ? once(whole) : openInput(path, source))[Symbol.asyncIterator]();
       let probed: Awaited<ReturnType<typeof probeInput>>;
       try {
         probed = await probeInput(o, k, first, onReject, it);
@@ -624,14 +628,14 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
           blockBytes: PROFILE_BLOCK_BYTES,
           sequential: (batch) => send(batch, k),
           onProgress: (bytes, records) => {
-            seen.bytes = bytes;
+            seen.bytes = taken[k] = bytes;
             seen.records = records;
             progress();
           },
         });
       }
       if (totals) {
-        seen.bytes = totals.bytes;
+        seen.bytes = taken[k] = totals.bytes;
         seen.records = totals.records;
         seen.rejected = totals.rejected;
         return;
@@ -641,6 +645,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
         if (batch) await send(batch, k);
         seen.records = reader.stats.records;
         seen.bytes = reader.stats.bytes;
+        taken[k] = source.bytes;
         seen.rejected = reader.stats.rejected;
         progress();
       };
@@ -672,7 +677,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
           reader: readerOptions(o, k, first!.columns, first!.columns, onReject),
           done: (records, bytes) => {
             seen.records = records;
-            seen.bytes = bytes;
+            seen.bytes = taken[k] = bytes;
             progress();
           },
         };

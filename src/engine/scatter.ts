@@ -570,7 +570,10 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     if (inline) inline.addBatch(batch, input);
     else await sender!.send(batch, input);
   };
-  const progress = (): void => o.onProgress?.(inputs.reduce((a, x) => a + x.bytes, 0), inputs.reduce((a, x) => a + x.records, 0));
+  // Progress counts the bytes taken from each source (compressed ones for gzip), which is what
+  // the file sizes it is measured against hold; the manifest counts them decompressed.
+  const taken = o.inputs.map(() => 0);
+  const progress = (): void => o.onProgress?.(taken.reduce((a, b) => a + b, 0), inputs.reduce((a, x) => a + x.records, 0));
   try {
     let expected: { columns: string[]; from: string } | undefined;
     // With small inputs given to the workers, nothing is read ahead here (see SmallInputSender).
@@ -595,19 +598,21 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
               sequential: (batch, sch) => send(batch, k, sch),
               onSchema: takeSchema,
               onProgress: (bytes, records) => {
-                seen.bytes = bytes;
+                seen.bytes = taken[k] = bytes;
                 seen.records = records;
                 progress();
               },
             })
           : null;
       if (totals) {
-        seen.bytes = totals.bytes;
+        seen.bytes = taken[k] = totals.bytes;
         seen.records = totals.records;
         seen.rejected = totals.rejected;
       } else {
-        for await (const { batch, schema: sch, stats } of readInput(path, ro, whole)) {
+        const source = { bytes: 0 };
+        for await (const { batch, schema: sch, stats } of readInput(path, ro, whole, source)) {
           await send(batch, k, sch);
+          taken[k] = source.bytes;
           seen.records += batch.count;
           seen.bytes = stats.bytes;
           seen.rejected = stats.rejected;
@@ -629,7 +634,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
           reader: readerOptions(k),
           done: (records, bytes) => {
             seen.records = records;
-            seen.bytes = bytes;
+            seen.bytes = taken[k] = bytes;
             progress();
           },
         };

@@ -40,6 +40,7 @@ import { HEADER_BYTES, spillRanges } from './spill.js';
 import { SpreadParts } from './spread-parts.js';
 import { InlineLanes, WorkerLanes, type Lanes } from '../workers/lanes.js';
 import { VERSION } from '../version.js';
+import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 
 /** Where the compiled worker lives: beside this module in dist/, or dist/ when running from src/. */
 export function resolveWorkerFile(name = 'shuffle-worker.js'): string {
@@ -289,6 +290,8 @@ export interface ShuffleRun {
   manifest: Manifest;
   /** Final output folder. */
   out: string;
+  /** The report written with `report: true` (in `out`), else null. */
+  report: string | null;
 }
 
 /** Shuffles and deals the inputs; returns the manifest written to `out/manifest.json`. */
@@ -363,7 +366,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     // ---- stage 1: scatter ----
     const cellKeyInHeader = o.assign !== 'exact' && o.order !== 'grouped';
     if (cellKeyInHeader && o.assign === 'group') mkdirSync(censusDir(spillDir));
-    const totalBytes = o.inputs.reduce((a, p) => a + (isStreamInput(p) ? 0 : statSync(p).size), 0);
+    // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.
+    const totalBytes = o.inputs.some(isStreamInput) ? 0 : o.inputs.reduce((a, p) => a + statSync(p).size, 0);
     const scatterOptions: ScatterOptions = {
       inputs: o.inputs,
       format,
@@ -742,6 +746,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
     });
     writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n');
+    // The report goes in before the rename, so a run that fails here leaves nothing behind.
+    if (o.report) writeManifestReport(stage, manifest, basename(out));
 
     // Swap into place: an old folder (with --force) is moved aside first, then removed.
     if (existsSync(out)) {
@@ -751,7 +757,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     }
     renameSync(stage, out);
     cleanup.paths.delete(stage);
-    return { manifest, out };
+    return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null };
   } finally {
     for (const w of writers) w.abandon();
     if (pool) await pool.destroy().catch(() => {});

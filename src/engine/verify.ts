@@ -581,7 +581,7 @@ function computeMaxDeviation(parts: PartRecord[], partStrata: number[][], foldSt
 
 // ---- reading the manifest -------------------------------------------------------------------
 
-function loadManifest(dir: string): Manifest {
+export function loadManifest(dir: string): Manifest {
   const path = join(dir, 'manifest.json');
   let text: string;
   try {

@@ -37,7 +37,7 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
  * valid until the next push) is kept with room to spare. Returns false, having yielded nothing,
  * when the file is gzip-compressed.
  */
-async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
+async function* readPlainFile(path: string, counter?: SourceCounter): AsyncGenerator<Buffer, boolean> {
   let fh: FileHandle;
   try {
     fh = await open(path, 'r');
@@ -70,6 +70,7 @@ async function* readPlainFile(path: string): AsyncGenerator<Buffer, boolean> {
         if (got >= 2 && buf[0] === 0x1f && buf[1] === 0x8b) return false;
       }
       if (got === 0) return true;
+      if (counter) counter.bytes += got;
       yield buf.subarray(0, got);
     }
   } finally {
@@ -119,12 +120,22 @@ export function nameInput(path: string): string {
 }
 
 /**
- * The bytes of an input: a path, '-' for stdin, or any Readable. Gzip is recognised by its magic
- * bytes (1f 8b), whatever the name, and decompressed on the fly.
+ * Bytes taken from an input's source so far: the file's or the stream's own bytes, so the
+ * compressed ones for gzip. A progress bar over a file's size measures these; the records and
+ * the manifest count the bytes after decompression.
  */
-export async function* openInput(source: string | Readable): AsyncGenerator<Buffer> {
+export interface SourceCounter {
+  bytes: number;
+}
+
+/**
+ * The bytes of an input: a path, '-' for stdin, or any Readable. Gzip is recognised by its magic
+ * bytes (1f 8b), whatever the name, and decompressed on the fly. `counter` counts the source's
+ * bytes as they are taken (ahead of decompression by up to a chunk).
+ */
+export async function* openInput(source: string | Readable, counter?: SourceCounter): AsyncGenerator<Buffer> {
   if (typeof source === 'string' && source !== '-') {
-    const plain = yield* readPlainFile(source);
+    const plain = yield* readPlainFile(source, counter);
     if (plain) return;
   }
   const name = typeof source === 'string' ? nameInput(source) : '<stream>';
@@ -148,12 +159,15 @@ export async function* openInput(source: string | Readable): AsyncGenerator<Buff
   }
   const first = head.length === 1 ? head[0]! : Buffer.concat(head);
   async function* rest(): AsyncGenerator<Buffer> {
+    if (counter) counter.bytes += first.length;
     if (first.length > 0) yield first;
     if (done) return;
     for (;;) {
       const r = await it.next();
       if (r.done) return;
-      yield typeof r.value === 'string' ? Buffer.from(r.value) : r.value;
+      const b = typeof r.value === 'string' ? Buffer.from(r.value) : r.value;
+      if (counter) counter.bytes += b.length;
+      yield b;
     }
   }
   try {
@@ -222,9 +236,11 @@ export async function* readInput(
   path: string,
   ro: RecordReaderOptions,
   whole: Buffer | null = null,
+  counter?: SourceCounter,
 ): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
   const reader = new RecordReader(ro, takeSpareReader());
-  for await (const chunk of whole ? [whole] : openInput(path)) {
+  if (whole && counter) counter.bytes += whole.length;
+  for await (const chunk of whole ? [whole] : openInput(path, counter)) {
     const batch = reader.push(chunk);
     if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
   }

@@ -12,6 +12,8 @@ import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args
 import { PROFILE_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 import { createProgress, formatBytes } from '../progress.js';
+import { cutText, padEnd, padStart, showValue, widthOf } from '../text.js';
+import { writeProfileReport } from '../../report/write.js';
 
 export const DATA_VALUES_NOTE =
   'Note: this profile shows values from the data (min/max, frequent values, class names). Pass --exclude-values to leave them out before sharing it.';
@@ -24,6 +26,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     folds: { type: 'string' },
     tolerance: { type: 'string' },
     threads: { type: 'string' },
+    html: { type: 'string' },
   });
   if (v.help) {
     io.stdout.write(PROFILE_HELP);
@@ -55,6 +58,10 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   } finally {
     progress.done();
   }
+  if (v.html !== undefined) {
+    const file = writeProfileReport(p, String(v.html));
+    if (!v.quiet) io.stderr.write(`rowdeck: wrote the profile page ${file}${p.excludeValues ? '' : ' (it shows values from the data: pass --exclude-values to leave them out)'}.\n`);
+  }
   if (v.json) {
     io.stdout.write(JSON.stringify(p, null, 2) + '\n');
     if (!v.quiet && !p.excludeValues) io.stderr.write(`rowdeck: ${DATA_VALUES_NOTE}\n`);
@@ -69,32 +76,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
 const BAR_WIDTH = 24;
 const EIGHTHS = ['', '▏', '▎', '▍', '▌', '▋', '▊', '▉'];
 
-/** Width as a terminal shows it, roughly: one per code point. */
-function widthOf(s: string): number {
-  let n = 0;
-  for (const _ of s) n++;
-  return n;
-}
-
-/** Cuts s to at most `max` columns, ending with … when cut. */
-export function cutText(s: string, max: number): string {
-  if (widthOf(s) <= max) return s;
-  return [...s].slice(0, Math.max(0, max - 1)).join('') + '…';
-}
-
-function padEnd(s: string, w: number): string {
-  return s + ' '.repeat(Math.max(0, w - widthOf(s)));
-}
-
-function padStart(s: string, w: number): string {
-  return ' '.repeat(Math.max(0, w - widthOf(s))) + s;
-}
-
-/** Line breaks, tabs and other control characters made visible, so a value stays on one line. */
-function showValue(s: string): string {
-  // eslint-disable-next-line no-control-regex
-  return s.replace(/[\u0000-\u001f\u007f]/g, (c) => (c === '\n' ? '\\n' : c === '\r' ? '\\r' : c === '\t' ? '\\t' : `\\x${c.charCodeAt(0).toString(16).padStart(2, '0')}`));
-}
+export { cutText };
 
 function formatCount(n: number): string {
   return n.toLocaleString('en-US');

@@ -6,6 +6,7 @@ import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args
 import { SHUFFLE_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 import { createProgress } from '../progress.js';
+import { formatShuffleSummary } from '../summary.js';
 
 export async function run(argv: string[], io: CliIO): Promise<number> {
   const { values: v, positionals } = parseCommandArgs(argv, {
@@ -28,6 +29,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     gzip: { type: 'boolean' },
     force: { type: 'boolean' },
     stats: { type: 'boolean' },
+    report: { type: 'boolean' },
   });
   if (v.help) {
     io.stdout.write(SHUFFLE_HELP);
@@ -65,6 +67,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   if (v.force) opts.force = true;
   if (v['exclude-values']) opts.excludeValues = true;
   if (v.stats) opts.stats = true;
+  if (v.report) opts.report = true;
   set('onBadRecord', strArg(v['on-bad-record']) as BadRecordPolicy | undefined);
   let result;
   try {
@@ -75,12 +78,10 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   const m = result.manifest;
   if (v.json) io.stdout.write(JSON.stringify(m, null, 2) + '\n');
   if (!v.quiet) {
-    const secs = (m.run.timingsMs.totalMs ?? 0) / 1000;
-    io.stderr.write(
-      `rowdeck: ${m.input.records.toLocaleString('en-US')} records -> ${m.output.parts.length} part(s) in ${result.out} ` +
-        `(${secs.toFixed(1)} s, seed ${JSON.stringify(m.seed)}${m.seedIsDefault ? ' (the default: pass --seed to choose one)' : ''}, max class deviation ${(m.balance.maxDeviation * 100).toFixed(2)}%` +
-        `${m.input.rejected ? `, ${m.input.rejected} rejected record(s)` : ''}).\n`,
-    );
+    // The table is for people at a terminal; with --json or into a file, the one line.
+    const table = io.stderr.isTTY === true && !v.json;
+    const lines = formatShuffleSummary(m, { width: io.stderr.columns ?? 80, out: result.out, report: result.report, table });
+    io.stderr.write(lines.map((l) => `${l}\n`).join(''));
   }
   return 0;
 }

@@ -7,6 +7,8 @@ import { verify, type VerifyProgress, type VerifyReport } from '../../engine/ver
 import { intArg, parseCommandArgs } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
+import { REDRAW_MS } from '../progress.js';
+import { formatVerifyChecks } from '../summary.js';
 
 /**
  * `--against a.csv b.csv` takes every argument up to the next option, which parseArgs alone
@@ -33,11 +35,11 @@ function expandAgainst(argv: string[]): string[] {
 function createVerifyProgress(io: CliIO, enabled: boolean): { update(e: VerifyProgress): void; done(): void } {
   if (!enabled || !io.stderr.isTTY) return { update() {}, done() {} };
   let shown = false;
-  let last = 0;
+  let last = -Infinity;
   return {
     update(e) {
       const now = Date.now();
-      if (now - last < 200 && e.done < e.total) return;
+      if (now - last < REDRAW_MS) return;
       last = now;
       io.stderr.write(`\rverify ${e.stage.padEnd(6)} ${e.done}/${e.total} files, ${e.records.toLocaleString('en-US')} records\x1b[K`);
       shown = true;
@@ -100,6 +102,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     const passed = report.checks.filter((c) => c.status === 'passed').length;
     const skipped = report.checks.filter((c) => c.status === 'skipped').length;
     const skippedText = skipped > 0 ? `, ${skipped} skipped (see --json)` : '';
+    io.stderr.write(formatVerifyChecks(report, io.stderr.columns ?? 100).map((l) => `${l}\n`).join(''));
     if (report.ok) {
       const inputs = report.against ? `; the input(s) hold the same ${report.against.records.toLocaleString('en-US')} records` : '';
       io.stderr.write(`rowdeck: ${dir} matches its manifest: ${report.parts} part(s), ${report.records.toLocaleString('en-US')} records, ${passed} checks passed${skippedText}${inputs}.\n`);
