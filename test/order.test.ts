@@ -298,7 +298,7 @@ describe('--order spread: the guarantee', () => {
 
   it('the check refuses a random order of the same classes (a test of the test)', () => {
     const rnd = createRandom(5);
-    const seq = Array.from({ length: 4000 }, (_, i) => (i < 3000 ? 0 : i < 3800 ? 1 : 2));
+    const seq: number[] = Array.from({ length: 4000 }, (_, i) => (i < 3000 ? 0 : i < 3800 ? 1 : 2));
     for (let i = seq.length - 1; i > 0; i--) {
       const j = Math.floor(rnd() * (i + 1));
       [seq[i], seq[j]] = [seq[j]!, seq[i]!];

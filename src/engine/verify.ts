@@ -392,7 +392,8 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   function checkOrder(f: string, s: PartScan): void {
     const o = plan.order;
     if (o === 'interleaved') skip(f, 'order', 'dealing scheme 1 (rowdeck 0.1): classes evenly interleaved inside the part, not shuffled; shuffle again for a random order');
-    else if (o === 'random') skip(f, 'order', 'random: no pattern to check');
+    // A random order has no pattern to check: nothing is listed for it.
+    else if (o === 'random') return;
     else if (o === 'spread' && plan.strataIndex === null) skip(f, 'order', 'spread: the manifest was written without data values (excludeValues)');
     else judge(f, 'order', s.orderBreak === null ? [] : [s.orderBreak], o === 'spread' ? 'spread: every record of a class within one of its share of the positions so far' : 'grouped: each group in one run');
   }
@@ -521,7 +522,7 @@ function partCheckNames(plan: ReadPlan): string[] {
     ...(plan.folds > 1 ? ['fold values', 'folds', 'fold strata'] : []),
     'fingerprint',
     ...(plan.statsColumns !== null ? ['statistics'] : []),
-    'order',
+    ...(plan.order !== 'random' ? ['order'] : []),
   ];
 }
 
