@@ -18,7 +18,7 @@
  * This module is pure: no I/O.
  */
 import { hashToUnit, hashWords3, type Secret } from './hash.js';
-import { permuteRank, rankPermutation, type RankPermutation } from './permute.js';
+import { permutationTable, permuteRank, rankPermutation, type PermutationTable, type RankPermutation } from './permute.js';
 
 /**
  * Which dealing scheme this code implements, recorded in the manifest. 1: rank r dealt to
@@ -55,6 +55,8 @@ export interface DealTable {
   rankSecret: Secret | null;
   /** Each stratum's rank permutation, made when first needed. */
   perms: (RankPermutation | undefined)[];
+  /** All of them in typed arrays (stratumPermutations), made when first needed. */
+  permTable?: PermutationTable;
 }
 
 /** Stratum s's rank permutation (over its size, cumQuota's last entry for s). */
@@ -62,6 +64,13 @@ export function stratumPermutation(table: DealTable, s: number): RankPermutation
   if (!table.rankSecret) return null;
   const S = table.spec.splits.length;
   return (table.perms[s] ??= rankPermutation(table.rankSecret, s, table.cumQuota[s * (S + 1) + S]!));
+}
+
+/** Every stratum's permutation in one table (permuteRanks), or null without a rank secret. */
+export function stratumPermutations(table: DealTable): PermutationTable | null {
+  if (!table.rankSecret) return null;
+  table.permTable ??= permutationTable(Array.from({ length: table.strataCount }, (_, s) => stratumPermutation(table, s)!));
+  return table.permTable;
 }
 
 /** The dealing position of the record of rank `rank` in stratum `s`. */

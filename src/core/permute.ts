@@ -108,3 +108,99 @@ export function permuteRank(p: RankPermutation, r: number): number {
   while (x >= p.n) x = feistel53(p, x);
   return x;
 }
+
+/**
+ * Every stratum's permutation in typed arrays, for dealing a bucket's records in one tight loop
+ * (`permuteRanks`): a function call and an object per record cost more than the four rounds.
+ */
+export interface PermutationTable {
+  n: Float64Array;
+  rightBits: Int32Array;
+  maskL: Int32Array;
+  maskR: Int32Array;
+  /** PERMUTE_ROUNDS keys a stratum. */
+  keys: Int32Array;
+  /** Strata over more than 2^31 ranks: their permutation object, taken record by record. */
+  wide: Map<number, RankPermutation>;
+}
+
+export function permutationTable(perms: RankPermutation[]): PermutationTable {
+  // permuteRanks writes the rounds out one by one.
+  if (PERMUTE_ROUNDS !== 4) throw new Error('internal: permuteRanks is written for 4 rounds');
+  const S = perms.length;
+  const t: PermutationTable = { n: new Float64Array(S), rightBits: new Int32Array(S), maskL: new Int32Array(S), maskR: new Int32Array(S), keys: new Int32Array(S * PERMUTE_ROUNDS), wide: new Map() };
+  perms.forEach((p, s) => {
+    t.n[s] = p.n;
+    if (p.leftBits + p.rightBits > 31) t.wide.set(s, p);
+    t.rightBits[s] = p.rightBits;
+    t.maskL[s] = (2 ** p.leftBits - 1) | 0;
+    t.maskR[s] = (2 ** p.rightBits - 1) | 0;
+    t.keys.set(p.keys, s * PERMUTE_ROUNDS);
+  });
+  return t;
+}
+
+/** ranks[k] ← π_{strata[k]}(ranks[k]) for k < count: `permuteRank` with its four rounds written out. */
+export function permuteRanks(t: PermutationTable, ranks: Float64Array, strata: Uint32Array, count: number): void {
+  const { n: size, rightBits, maskL, maskR, keys, wide } = t;
+  for (let k = 0; k < count; k++) {
+    const s = strata[k]!;
+    const n = size[s]!;
+    if (n <= 1) continue;
+    if (wide.size > 0 && wide.has(s)) {
+      ranks[k] = permuteRank(wide.get(s)!, ranks[k]!);
+      continue;
+    }
+    const rb = rightBits[s]!;
+    const mL = maskL[s]!;
+    const mR = maskR[s]!;
+    const ko = s * PERMUTE_ROUNDS;
+    const k0 = keys[ko]!;
+    const k1 = keys[ko + 1]!;
+    const k2 = keys[ko + 2]!;
+    const k3 = keys[ko + 3]!;
+    let x = ranks[k]! | 0;
+    do {
+      let left = x >>> rb;
+      let right = x & mR;
+      let h = right ^ k0;
+      h ^= h >>> 16;
+      h = Math.imul(h, 0x85ebca6b);
+      h ^= h >>> 13;
+      h = Math.imul(h, 0xc2b2ae35);
+      h ^= h >>> 16;
+      let next = left ^ (h & mL);
+      left = right;
+      right = next;
+      h = right ^ k1;
+      h ^= h >>> 16;
+      h = Math.imul(h, 0x85ebca6b);
+      h ^= h >>> 13;
+      h = Math.imul(h, 0xc2b2ae35);
+      h ^= h >>> 16;
+      next = left ^ (h & mR);
+      left = right;
+      right = next;
+      h = right ^ k2;
+      h ^= h >>> 16;
+      h = Math.imul(h, 0x85ebca6b);
+      h ^= h >>> 13;
+      h = Math.imul(h, 0xc2b2ae35);
+      h ^= h >>> 16;
+      next = left ^ (h & mL);
+      left = right;
+      right = next;
+      h = right ^ k3;
+      h ^= h >>> 16;
+      h = Math.imul(h, 0x85ebca6b);
+      h ^= h >>> 13;
+      h = Math.imul(h, 0xc2b2ae35);
+      h ^= h >>> 16;
+      next = left ^ (h & mR);
+      left = right;
+      right = next;
+      x = ((left << rb) | right) >>> 0;
+    } while (x >= n);
+    ranks[k] = x;
+  }
+}

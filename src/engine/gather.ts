@@ -4,8 +4,8 @@
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
 import { closeSync, openSync, readSync } from 'node:fs';
-import { buildDealTable, cellOf, hashedCell, stratumPermutation, type DealTable } from '../core/deal.js';
-import { permuteRank } from '../core/permute.js';
+import { buildDealTable, cellOf, hashedCell, stratumPermutations, type DealTable } from '../core/deal.js';
+import { permuteRanks } from '../core/permute.js';
 import { Fingerprint } from '../core/hash.js';
 import { sortByKey, type SortKeys } from '../core/sort.js';
 import { ioError } from '../errors.js';
@@ -444,13 +444,21 @@ function dealExact(order: Uint32Array, n: number, stratum: Uint32Array, seen: Fl
     cycle[t] = c.partition * K + c.fold;
   }
   const { offset, cumQuota } = table;
+  // Ranks in key order, then their positions (one tight loop over the bucket), then cells.
+  const pos = scratch64(3, n);
+  const strataInOrder = scratch(8, n);
+  for (let k = 0; k < n; k++) {
+    const s = stratum[order[k]!]!;
+    strataInOrder[k] = s;
+    pos[k] = seen[s]!;
+    seen[s]! += 1;
+  }
+  const perms = stratumPermutations(table);
+  if (perms) permuteRanks(perms, pos, strataInOrder, n);
   for (let k = 0; k < n; k++) {
     const i = order[k]!;
-    const s = stratum[i]!;
-    const rank = seen[s]!;
-    seen[s] = rank + 1;
-    const perm = stratumPermutation(table, s);
-    const x = perm ? permuteRank(perm, rank) : rank;
+    const s = strataInOrder[k]!;
+    const x = pos[k]!;
     let split = 0;
     const base = s * (S + 1);
     while (split < S - 1 && x >= cumQuota[base + split + 1]!) split++;
