@@ -6,6 +6,8 @@
  * `message`), so workers send `toWire(err)` and the main thread rebuilds with `fromWire()`.
  */
 
+import { describeOperation, describeSystemError, pathOfSystemError } from './io/os-errors.js';
+
 /** Usage errors: the command line or the options are wrong. The CLI exits 2. */
 export const USAGE_CODES = [
   'ERR_OPTION',
@@ -30,9 +32,15 @@ export const DATA_CODES = [
   'ERR_TOLERANCE',
   'ERR_SPLIT_SIZES',
   'ERR_OUTPUT_EXISTS',
+  'ERR_OUTPUT_LOCKED',
+  'ERR_FORCE_REFUSED',
+  'ERR_FIELD_TOO_LONG',
   'ERR_MANIFEST',
   'ERR_VERIFY_FAILED',
   'ERR_IO',
+  'ERR_PERMISSION',
+  'ERR_DISK_FULL',
+  'ERR_TOO_MANY_OPEN_FILES',
   'ERR_INTERNAL',
 ] as const;
 
@@ -75,23 +83,60 @@ export interface WireError {
 
 export function toWire(err: unknown): WireError {
   if (err instanceof RowdeckError) return { code: err.code, message: err.message, details: err.details };
+  // An operating-system error keeps its meaning (and its path) across the boundary.
+  const sys = describeSystemError(err);
+  if (sys) {
+    const e = systemError(err, pathOfSystemError(err) ?? '(unknown path)', describeOperation(err, 'working on'));
+    return { code: e.code, message: e.message, details: e.details };
+  }
   const e = err instanceof Error ? err : new Error(String(err));
-  const sys = (e as NodeJS.ErrnoException).code;
-  return { code: sys ? 'ERR_IO' : 'ERR_INTERNAL', message: e.message, details: sys ? { errno: sys } : { stack: e.stack } };
+  return { code: 'ERR_INTERNAL', message: e.message, details: { stack: e.stack } };
 }
 
 export function fromWire(w: WireError): RowdeckError {
   return new RowdeckError(w.code, w.message, w.details);
 }
 
-/** Wraps a Node system error (ENOENT, EACCES, ENOSPC …) into a coded error naming the path. */
+/**
+ * Wraps a Node system error met while reading an input (ENOENT, EACCES …) into a coded error
+ * naming the path: a missing input is ERR_INPUT_NOT_FOUND, anything else as `systemError`.
+ * `doing` names the operation ("reading", "creating a spill file" …); only "opening"/"reading"
+ * (an input) turn ENOENT into ERR_INPUT_NOT_FOUND.
+ */
 export function ioError(err: unknown, path: string, doing: string): RowdeckError {
   if (err instanceof RowdeckError) return err;
   const e = err as NodeJS.ErrnoException;
-  if (e?.code === 'ENOENT') {
+  if (e?.code === 'ENOENT' && (doing === 'opening' || doing === 'reading')) {
     return new RowdeckError('ERR_INPUT_NOT_FOUND', `${path}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: path });
   }
-  return new RowdeckError('ERR_IO', `${path}: ${doing} failed: ${e?.message ?? String(err)}`, { file: path, errno: e?.code });
+  return systemError(err, path, doing);
+}
+
+/**
+ * Any operating-system failure as a coded error: `path: <operation> failed: <reason>. <what to
+ * do>`, with the errno, the operation and the reason in `details`. Not a system error (no errno):
+ * ERR_IO with the error's message.
+ */
+export function systemError(err: unknown, path: string, operation: string): RowdeckError {
+  if (err instanceof RowdeckError) return err;
+  const m = describeSystemError(err);
+  if (!m) {
+    const text = err instanceof Error ? err.message : String(err);
+    return new RowdeckError('ERR_IO', `${path}: ${operation} failed: ${text}`, { file: path, operation });
+  }
+  // A rename names both ends: say which one is meant where it is not the path given.
+  const other = pathOfSystemError(err);
+  const also = other !== undefined && other !== path ? ` (${other})` : '';
+  return new RowdeckError(m.code, `${path}${also}: ${operation} failed: ${m.reason}. ${m.hint}`, { file: path, operation, errno: m.errno, reason: m.reason });
+}
+
+/**
+ * A thrown value as a coded error where it is an operating-system failure (the path and the
+ * operation taken from the error itself); anything else unchanged.
+ */
+export function codedSystemError(err: unknown, fallbackOperation = 'working on'): unknown {
+  if (err instanceof RowdeckError || !describeSystemError(err)) return err;
+  return systemError(err, pathOfSystemError(err) ?? '(unknown path)', describeOperation(err, fallbackOperation));
 }
 
 /** `file:line:column` prefix used by every data error message. */

@@ -4,7 +4,7 @@
  * error, 2 on a usage error. Logs and progress go to stderr; data (`--json`) to stdout.
  * Subcommands are imported lazily so `--help` stays instant.
  */
-import { RowdeckError } from '../errors.js';
+import { RowdeckError, codedSystemError } from '../errors.js';
 import { VERSION } from '../version.js';
 import { MAIN_HELP } from './help.js';
 
@@ -45,7 +45,9 @@ export async function runCli(argv: string[], io: CliIO = { stdout: process.stdou
   }
 }
 
-export function reportError(err: unknown, io: CliIO): number {
+export function reportError(thrown: unknown, io: CliIO): number {
+  // A fault of the environment that reached here unwrapped still gets its code, path and reason.
+  const err = codedSystemError(thrown);
   if (err instanceof RowdeckError) {
     io.stderr.write(`rowdeck: error ${err.code}: ${err.message}\n`);
     if (err.isUsage) io.stderr.write('Run with --help for usage.\n');
