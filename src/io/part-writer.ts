@@ -3,46 +3,105 @@
  * as they are written (no second read). gzip runs on libuv's thread pool through zlib, and its
  * output depends only on the bytes fed, not on how they were cut into writes, so a part's
  * compressed bytes are as reproducible as its plain ones.
+ *
+ * Open files stay bounded whatever the part count: writers that share a `FileSlots` keep at most
+ * its limit of files open, and one whose file was closed for another opens it again to append.
+ * A writer without a path only hashes and counts: `verify --against` replays a run through the
+ * very same code (gathering, gzip, hashing) without writing anything.
  */
 import { createHash, type Hash } from 'node:crypto';
 import { closeSync, openSync, writeSync } from 'node:fs';
 import { createGzip, type Gzip } from 'node:zlib';
-import { ioError } from '../errors.js';
+import { RowdeckError, systemError } from '../errors.js';
+
+/**
+ * Open output files shared by many writers: at most `limit` at once; opening one more closes the
+ * least recently used. (A run used to hold one descriptor per part for all of stage 2, and failed
+ * with EMFILE from about 1,000 parts under the common `ulimit -n 1024`.)
+ */
+export class FileSlots {
+  readonly limit: number;
+  /** Writers with an open file, least recently used first (a Set keeps insertion order). */
+  readonly #open = new Set<PartWriter>();
+
+  constructor(limit: number) {
+    this.limit = Math.max(1, Math.floor(limit));
+  }
+
+  get openCount(): number {
+    return this.#open.size;
+  }
+
+  /** Marks `w` as just used. */
+  touch(w: PartWriter): void {
+    this.#open.delete(w);
+    this.#open.add(w);
+  }
+
+  /** Makes room for `w` to open its file (closing the least recently used), then counts it as open. */
+  admit(w: PartWriter): void {
+    while (this.#open.size >= this.limit) {
+      const oldest = this.#open.values().next().value as PartWriter;
+      this.#open.delete(oldest);
+      oldest.closeFile();
+    }
+    this.#open.add(w);
+  }
+
+  drop(w: PartWriter): void {
+    this.#open.delete(w);
+  }
+}
 
 export class PartWriter {
-  readonly path: string;
+  /** The file written, or null for a writer that only hashes and counts. */
+  readonly path: string | null;
   bytes = 0;
   /** Writes shorter than half of this are gathered into a buffer of this size first (0: none). */
   readonly #gatherBytes: number;
   #gathered: Buffer | null = null;
   #gatheredLength = 0;
-  #fd: number;
+  #fd = -1;
+  /** The file exists (created by this writer): later opens append. */
+  #created = false;
+  readonly #slots: FileSlots | null;
   #hash: Hash = createHash('sha256');
   #gzip: Gzip | null = null;
-  #gzError: Error | null = null;
   #gzDone: Promise<void> | null = null;
+  /** The first failure (a coded error); every later call reports it. */
+  #failure: RowdeckError | null = null;
 
   /**
    * `gatherBytes`: with many parts, each bucket gives each part only a short slice (a bucket's
    * ~1.5 MiB over 1,024 parts is ~1.5 KiB), and a system call per slice cost more than the
    * dealing; slices under half this size are gathered and written together.
+   * `slots`: shared with the run's other writers to bound open files (none: this writer keeps its
+   * file open until `close`).
    */
-  constructor(path: string, gzip: boolean, gatherBytes = 0) {
+  constructor(path: string | null, gzip: boolean, gatherBytes = 0, slots: FileSlots | null = null) {
     this.path = path;
     this.#gatherBytes = gatherBytes;
-    try {
-      this.#fd = openSync(path, 'wx');
-    } catch (err) {
-      throw ioError(err, path, 'creating an output file');
-    }
+    this.#slots = path === null ? null : slots;
+    // Created at once (exclusively), so a name taken by something else is reported before any work.
+    if (path !== null) this.#fileFor();
     if (gzip) {
       const gz = createGzip({ level: 6 });
-      gz.on('data', (chunk: Buffer) => this.#writeRaw(chunk));
+      gz.on('data', (chunk: Buffer) => {
+        if (this.#failure) return;
+        try {
+          this.#writeRaw(chunk);
+        } catch (err) {
+          // Thrown from an event handler it would be uncaught (no cleanup): keep it, stop zlib,
+          // and let the caller's next call (or the wait below) report it.
+          this.#fail(err, 'writing an output file');
+          gz.destroy(this.#failure!);
+        }
+      });
       this.#gzDone = new Promise<void>((resolve, reject) => {
         gz.on('end', resolve);
         gz.on('error', (e) => {
-          this.#gzError = e;
-          reject(e);
+          this.#fail(e, 'compressing an output file');
+          reject(this.#failure!);
         });
       });
       this.#gzDone.catch(() => {});
@@ -50,12 +109,55 @@ export class PartWriter {
     }
   }
 
-  #writeRaw(buf: Uint8Array): void {
-    let off = 0;
+  #fail(err: unknown, doing: string): void {
+    this.#failure ??= err instanceof RowdeckError ? err : systemError(err, this.path ?? '(part)', doing);
+  }
+
+  #check(): void {
+    if (this.#failure) throw this.#failure;
+  }
+
+  /** The open descriptor, opening (to create, later to append) where it was closed. */
+  #fileFor(): number {
+    if (this.#fd >= 0) {
+      this.#slots?.touch(this);
+      return this.#fd;
+    }
+    this.#slots?.admit(this);
     try {
-      while (off < buf.byteLength) off += writeSync(this.#fd, buf, off, buf.byteLength - off);
+      this.#fd = openSync(this.path!, this.#created ? 'a' : 'wx');
     } catch (err) {
-      throw ioError(err, this.path, 'writing an output file');
+      this.#slots?.drop(this);
+      throw systemError(err, this.path!, this.#created ? 'opening an output file again' : 'creating an output file');
+    }
+    this.#created = true;
+    return this.#fd;
+  }
+
+  /** Closes the file (it is opened again, to append, when next written). Used by FileSlots. */
+  closeFile(): void {
+    if (this.#fd < 0) return;
+    const fd = this.#fd;
+    this.#fd = -1;
+    try {
+      closeSync(fd);
+    } catch (err) {
+      // A network file system may report a failed write only here.
+      this.#fail(err, 'closing an output file');
+      throw this.#failure!;
+    }
+  }
+
+  #writeRaw(buf: Uint8Array): void {
+    if (this.path !== null) {
+      const fd = this.#fileFor();
+      let off = 0;
+      try {
+        while (off < buf.byteLength) off += writeSync(fd, buf, off, buf.byteLength - off);
+      } catch (err) {
+        this.#fail(err, 'writing an output file');
+        throw this.#failure!;
+      }
     }
     this.#hash.update(buf);
     this.bytes += buf.byteLength;
@@ -67,6 +169,7 @@ export class PartWriter {
    * backpressure).
    */
   write(buf: Uint8Array): Promise<void> | undefined {
+    this.#check();
     const n = buf.byteLength;
     if (n === 0) return undefined;
     if (2 * n < this.#gatherBytes && this.#gatheredLength + n <= this.#gatherBytes) {
@@ -95,39 +198,56 @@ export class PartWriter {
   }
 
   async #pass(buf: Uint8Array): Promise<void> {
-    if (!this.#gzip) {
+    const gz = this.#gzip;
+    if (!gz) {
       this.#writeRaw(buf);
       return;
     }
-    if (this.#gzError) throw ioError(this.#gzError, this.path, 'compressing an output file');
+    this.#check();
     // zlib may keep a reference to the chunk until it is processed: give it its own copy.
-    const ok = this.#gzip.write(Buffer.from(buf));
-    if (!ok) await new Promise<void>((resolve) => this.#gzip!.once('drain', resolve));
+    if (!gz.write(Buffer.from(buf))) {
+      // 'close' too: a stream stopped by a failure never drains.
+      await new Promise<void>((resolve) => {
+        const go = (): void => {
+          gz.off('drain', go);
+          gz.off('close', go);
+          resolve();
+        };
+        gz.on('drain', go);
+        gz.on('close', go);
+      });
+    }
+    this.#check();
   }
 
   /** Finishes the file and returns its size and sha256. */
   async close(): Promise<{ bytes: number; sha256: string }> {
     try {
+      this.#check();
       await this.#flush();
       if (this.#gzip) {
         this.#gzip.end();
         await this.#gzDone;
       }
+      this.#check();
     } catch (err) {
-      throw ioError(err, this.path, 'compressing an output file');
-    } finally {
-      closeSync(this.#fd);
+      this.#fail(err, 'compressing an output file');
+      this.abandon();
+      throw this.#failure!;
     }
+    this.#slots?.drop(this);
+    this.closeFile();
     return { bytes: this.bytes, sha256: this.#hash.digest('hex') };
   }
 
   /** Closes without finishing (on failure; the file is removed with its folder). */
   abandon(): void {
+    this.#gzip?.destroy();
+    this.#slots?.drop(this);
     try {
-      this.#gzip?.destroy();
-      closeSync(this.#fd);
+      this.closeFile();
     } catch {
-      // already closed
+      // Failing anyway: the first failure is the one reported.
     }
   }
 }
