@@ -89,6 +89,12 @@ export interface ShuffleOptions {
   /** Also write `report.html` (the manifest as a page of charts and tables) into the output folder. Default false. */
   report?: boolean;
   onProgress?: (e: ProgressEvent) => void;
+  /**
+   * Told, in one line each, what the run cleaned up that was not its own (work folders of killed
+   * runs, a dead run's lock) and, when a signal stops it, what it removed. Default: nothing is
+   * said, except the line of a signal, which goes to stderr.
+   */
+  onNotice?: (text: string) => void;
 }
 
 export type PartOrder = 'random' | 'spread' | 'grouped';
@@ -131,6 +137,7 @@ export interface ResolvedShuffleOptions {
   stats: boolean;
   report: boolean;
   onProgress: ((e: ProgressEvent) => void) | null;
+  onNotice: ((text: string) => void) | null;
 }
 
 export function invalid(name: string, expected: string, got: unknown): RowdeckError {
@@ -267,6 +274,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   const onBadRecord = o.onBadRecord ?? 'fail';
   if (!['fail', 'skip', 'quarantine'].includes(onBadRecord)) throw invalid('onBadRecord', '"fail", "skip" or "quarantine"', onBadRecord);
   if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalid('onProgress', 'a function', typeof o.onProgress);
+  if (o.onNotice !== undefined && typeof o.onNotice !== 'function') throw invalid('onNotice', 'a function', typeof o.onNotice);
   return {
     inputs: [...o.inputs],
     out: o.out,
@@ -297,5 +305,6 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     stats: o.stats ?? false,
     report: o.report ?? false,
     onProgress: o.onProgress ?? null,
+    onNotice: o.onNotice ?? null,
   };
 }

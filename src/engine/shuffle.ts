@@ -9,9 +9,8 @@
  * manifest is written, so a failed or killed run never leaves a folder that looks complete.
  * Spill files live in their own hidden folder, removed on success and on failure.
  */
-import { rm } from 'node:fs/promises';
-import { closeSync, mkdirSync, mkdtempSync, openSync, readdirSync, readSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
-import { basename, dirname, join, resolve } from 'node:path';
+import { closeSync, mkdirSync, openSync, readSync, statSync, writeFileSync } from 'node:fs';
+import { basename, dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { existsSync } from 'node:fs';
 import { cpus, hostname, totalmem } from 'node:os';
@@ -22,10 +21,12 @@ import { deriveSecret, Fingerprint } from '../core/hash.js';
 import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
 import type { GroupTable, GroupTableData } from '../core/group-table.js';
 import { GroupTableBuilder, writeGroupsFile } from './group-census.js';
-import { RowdeckError } from '../errors.js';
+import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
-import { PartWriter } from '../io/part-writer.js';
+import { FileSlots, PartWriter } from '../io/part-writer.js';
+import { choosePartFileSlots } from '../io/open-files.js';
+import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
@@ -133,118 +134,8 @@ export function blockBytesFor(memory: number): number {
   return Math.max(256 * 1024, Math.min(4 * 1024 * 1024, 2 ** Math.floor(Math.log2(memory / 32))));
 }
 
-interface Cleanup {
-  paths: Set<string>;
-  /** Removes everything now (used from signal handlers). */
-  run(): void;
-  /** The same, with the files of each folder removed concurrently on libuv's thread pool. */
-  runConcurrently(): Promise<void>;
-  /** Starts removing files that are no longer needed; resolves once they are gone (runConcurrently waits for them too). */
-  removeEarly(files: string[]): Promise<void>;
-}
-
-function createCleanup(): Cleanup {
-  const paths = new Set<string>();
-  const early: Promise<unknown>[] = [];
-  return {
-    paths,
-    removeEarly(files) {
-      const done = Promise.all(files.map((f) => rm(f, { force: true }).catch(() => {}))).then(() => {});
-      early.push(done);
-      return done;
-    },
-    run() {
-      for (const p of paths) rmSync(p, { recursive: true, force: true });
-      paths.clear();
-    },
-    async runConcurrently() {
-      // Removing a file of a few hundred MB that was just written took ~45 ms here, most of it
-      // waiting in the kernel, and a run used to end by removing ~10 of them (the spill files,
-      // now removed during stage 2 as it passes them, and, with --force, the parts replaced);
-      // one after another that was ~0.45 s of every run's end.
-      await Promise.all(early.splice(0));
-      const folders = [...paths];
-      paths.clear();
-      const files: string[] = [];
-      for (const dir of folders) {
-        let names: string[] = [];
-        try {
-          names = readdirSync(dir);
-        } catch {
-          continue;
-        }
-        for (const n of names) files.push(join(dir, n));
-      }
-      await Promise.all(files.map((f) => rm(f, { recursive: true, force: true })));
-      for (const dir of folders) rmSync(dir, { recursive: true, force: true });
-    },
-  };
-}
-
-/** Removes our hidden folders if the process is interrupted, then lets the signal do its work. */
-function onSignals(cleanup: Cleanup): () => void {
-  const handler = (sig: NodeJS.Signals): void => {
-    cleanup.run();
-    process.removeListener('SIGINT', handler);
-    process.removeListener('SIGTERM', handler);
-    process.kill(process.pid, sig);
-  };
-  process.on('SIGINT', handler);
-  process.on('SIGTERM', handler);
-  return () => {
-    process.removeListener('SIGINT', handler);
-    process.removeListener('SIGTERM', handler);
-  };
-}
-
-/**
- * Removes hidden work folders left by runs that were killed outright (SIGKILL, power loss):
- * their names carry the owning process id, and a folder whose process is gone is stale.
- */
-export function removeStaleWorkFolders(dir: string): string[] {
-  const removed: string[] = [];
-  let names: string[];
-  try {
-    names = readdirSync(dir);
-  } catch {
-    return removed;
-  }
-  for (const name of names) {
-    const m = /^\.rowdeck-(?:spill|partial)-(\d+)-/.exec(name);
-    if (!m) continue;
-    const pid = Number(m[1]);
-    if (pid === process.pid || isAlive(pid)) continue;
-    rmSync(join(dir, name), { recursive: true, force: true });
-    removed.push(name);
-  }
-  return removed;
-}
-
-function isAlive(pid: number): boolean {
-  try {
-    process.kill(pid, 0);
-    return true;
-  } catch (err) {
-    return (err as NodeJS.ErrnoException).code === 'EPERM';
-  }
-}
-
-function checkTarget(out: string, force: boolean): void {
-  let entries: string[] = [];
-  try {
-    const st = statSync(out);
-    if (!st.isDirectory()) {
-      throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out} exists and is not a folder. Choose another --out path.`, { file: out });
-    }
-    entries = readdirSync(out);
-  } catch (err) {
-    if ((err as NodeJS.ErrnoException).code === 'ENOENT') return;
-    throw err;
-  }
-  if (entries.length > 0 && !force) {
-    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out} is not empty (${entries.length} entries). Choose another --out folder, or pass --force to replace it.`, { file: out });
-  }
-}
+/** Removes the work folders of dead runs in `dir` (see src/io/work-folders.ts). */
+export { removeStaleWorkFolders } from '../io/work-folders.js';
 
 export interface PartInfo {
   path: string;
@@ -300,34 +191,43 @@ export async function shuffle(options: ShuffleOptions): Promise<Manifest> {
 }
 
 export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
+  return runPipeline(options, {});
+}
+
+/** How `runPipeline` delivers: part files in an output folder, or (a replay) only their hashes. */
+export interface PipelineSink {
+  /** 'hash': nothing is written but the spill; the manifest comes back with each part's sha256 as a real run would write it. */
+  sink?: 'files' | 'hash';
+  /** With 'hash': the spill's folder unless `tempDir` is given. */
+  spillBeside?: string;
+}
+
+/** The shuffle itself; `runShuffle` writes files, `verify --against` replays through it (src/engine/replay.ts). */
+export async function runPipeline(options: ShuffleOptions, how: PipelineSink): Promise<ShuffleRun> {
   const o = resolveShuffleOptions(options);
   const t0 = Date.now();
   const timings: Record<string, number> = {};
-  const out = resolve(o.out);
-  checkTarget(out, o.force);
-  for (const p of o.inputs) {
-    if (p !== '-' && !existsSync(p)) throw new RowdeckError('ERR_INPUT_NOT_FOUND', `${p}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: p });
-  }
+  const hashOnly = how.sink === 'hash';
+  checkInputs(o.inputs);
   const format = o.format ?? detectFormat(o.inputs[0] === '-' ? 'stdin.csv' : o.inputs[0]!);
   const secret = deriveSecret(o.seed);
   const cellSecret = deriveSecret(`${o.seed}\u0000cell`);
   const rankSecret = deriveSecret(`${o.seed}\u0000rank`);
 
-  const parent = dirname(out);
-  mkdirSync(parent, { recursive: true });
-  const cleanup = createCleanup();
-  const unhook = onSignals(cleanup);
+  const work: RunWork = startRunWork({
+    out: hashOnly ? null : o.out,
+    force: o.force,
+    inputs: o.inputs,
+    tempDir: o.tempDir,
+    ...(how.spillBeside !== undefined ? { spillBeside: how.spillBeside } : {}),
+    notice: o.onNotice,
+  });
+  const out = work.claim?.out ?? o.out;
   let pool: Lanes<GatherTask, GatherResult, GatherFinal> | null = null;
   const writers: PartWriter[] = [];
   try {
-    const spillRoot = o.tempDir ? resolve(o.tempDir) : parent;
-    mkdirSync(spillRoot, { recursive: true });
-    removeStaleWorkFolders(parent);
-    if (spillRoot !== parent) removeStaleWorkFolders(spillRoot);
-    const spillDir = mkdtempSync(join(spillRoot, `.rowdeck-spill-${process.pid}-`));
-    cleanup.paths.add(spillDir);
-    const stage = mkdtempSync(join(parent, `.rowdeck-partial-${process.pid}-${basename(out)}-`));
-    cleanup.paths.add(stage);
+    const spillDir = work.spillDir;
+    const stage = work.stage;
 
     // 0 threads (small inputs by default, see resolveShuffleOptions): all on this thread.
     const threads = o.threads;
@@ -492,7 +392,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
         for (let b = 0; b < buckets; b++) groupStarts[b + 1]! += groupStarts[b]!;
       }
       // The census spill is no longer needed.
-      if (sc.censusPieces) await cleanup.removeEarly([...new Set(sc.censusPieces.flat().map((p) => p.path))]);
+      if (sc.censusPieces) await work.removeEarly([...new Set(sc.censusPieces.flat().map((p) => p.path))]);
     }
 
     // Tolerance: parts (files), and folds within each split.
@@ -548,11 +448,22 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     const tGather = Date.now();
 
     // ---- stage 2: gather ----
-    for (const part of layout) mkdirSync(dirname(join(stage, part.path)), { recursive: true });
+    if (stage !== null) {
+      for (const part of layout) {
+        const folder = dirname(join(stage, part.path));
+        try {
+          mkdirSync(folder, { recursive: true });
+        } catch (err) {
+          throw systemError(err, folder, 'creating a folder for the parts');
+        }
+      }
+    }
     // Short slices (many parts) are gathered per part before they are written: up to 64 KiB a
     // part, an eighth of the budget over all parts, at least 8 KiB (see PartWriter).
     const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(o.memory / 8 / layout.length)));
-    for (const part of layout) writers.push(new PartWriter(join(stage, part.path), o.gzip, gatherBytes));
+    // Open files stay bounded whatever the part count (see FileSlots).
+    const slots = new FileSlots(choosePartFileSlots());
+    for (const part of layout) writers.push(new PartWriter(stage === null ? null : join(stage, part.path), o.gzip, gatherBytes, slots));
     const header = headerBytes(sc, o, format);
     if (header) for (const w of writers) await w.write(header);
 
@@ -630,7 +541,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // spill never lags more than a range behind.
       if ((b + 1) % perRange === 0 || b === buckets - 1) {
         await removing;
-        removing = cleanup.removeEarly(sc.rangeFiles[Math.floor(b / perRange)]!);
+        removing = work.removeEarly(sc.rangeFiles[Math.floor(b / perRange)]!);
       }
       if (next < buckets) submit(next++);
       o.onProgress?.({ stage: 'gather', done: b + 1, total: buckets, records, elapsedMs: Date.now() - t0 });
@@ -655,6 +566,7 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       // Too many parts for the lanes to keep every part's statistics: each part is read back,
       // one a lane at a time (see src/engine/part-stats.ts).
       const headerLength = header?.length ?? 0;
+      if (stage === null) throw new RowdeckError('ERR_INTERNAL', 'statistics read back from parts that were not written');
       const tasks = layout.map((part): PartStatsTask => ({ partFile: join(stage, part.path), headerBytes: headerLength, excludeValues: o.excludeValues }));
       const statsLanes = pool as unknown as Lanes<PartStatsTask, PartStatsResult, GatherFinal>;
       let done = 0;
@@ -679,8 +591,8 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
     timings.gatherMs = Date.now() - tGather;
     if (phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(phases[k] ?? 0)));
 
-    if (rejects.length > 0) {
-      writeFileSync(join(stage, 'rejected.csv'), stringify([['file', 'line', 'code', 'reason', 'record']]) + rejects.join(''));
+    if (rejects.length > 0 && stage !== null) {
+      writeOutputFile(join(stage, 'rejected.csv'), stringify([['file', 'line', 'code', 'reason', 'record']]) + rejects.join(''), 'writing the rejected records');
     }
 
     // ---- manifest, then the rename that makes the output visible ----
@@ -745,24 +657,29 @@ export async function runShuffle(options: ShuffleOptions): Promise<ShuffleRun> {
       ...(inputStats !== undefined ? { inputStats } : {}),
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
     });
-    writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n');
-    // The report goes in before the rename, so a run that fails here leaves nothing behind.
+    if (stage === null) return { manifest, out, report: null };
+    writeOutputFile(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', 'writing the manifest');
+    // The report goes in before the commit, so a run that fails here leaves nothing behind.
     if (o.report) writeManifestReport(stage, manifest, basename(out));
-
-    // Swap into place: an old folder (with --force) is moved aside first, then removed.
-    if (existsSync(out)) {
-      const old = `${stage}-replaced`;
-      renameSync(out, old);
-      cleanup.paths.add(old);
-    }
-    renameSync(stage, out);
-    cleanup.paths.delete(stage);
+    // Into place: never over anything that appeared meanwhile, the manifest last (see output-folder.ts).
+    work.commit();
     return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null };
+  } catch (err) {
+    // A fault of the environment met anywhere above: coded, with its path and operation.
+    throw codedSystemError(err);
   } finally {
     for (const w of writers) w.abandon();
     if (pool) await pool.destroy().catch(() => {});
-    await cleanup.runConcurrently().catch(() => cleanup.run());
-    unhook();
+    await work.finish();
+  }
+}
+
+/** Writes a whole file of the output; a failure (a full disk) is a coded error naming it. */
+function writeOutputFile(path: string, text: string, doing: string): void {
+  try {
+    writeFileSync(path, text, { flag: 'wx' });
+  } catch (err) {
+    throw systemError(err, path, doing);
   }
 }
 

@@ -42,6 +42,8 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     inputs: positionals,
     out: String(v.out),
     onProgress: (e) => progress.update(e),
+    // What was cleaned up that was not this run's own, or what a signal made it remove: always said.
+    onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`),
   };
   const set = <K extends keyof ShuffleOptions>(k: K, val: ShuffleOptions[K] | undefined): void => {
     if (val !== undefined) opts[k] = val;
