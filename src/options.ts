@@ -6,6 +6,7 @@
 import { availableParallelism } from 'node:os';
 import { RowdeckError } from './errors.js';
 import { smallInputs } from './io/input.js';
+import { RESERVED_OUTPUT_NAMES } from './io/output-folder.js';
 import type { BadRecordPolicy, InputFormat } from './io/batch.js';
 import type { SplitSpec } from './core/deal.js';
 
@@ -192,6 +193,14 @@ export function parseStratify(v: string | string[] | undefined): StratifyColumn[
   });
 }
 
+/** Stems of the files rowdeck writes into an output folder: a split named so (or so followed by ".") could take their place. */
+const RESERVED_STEMS = RESERVED_OUTPUT_NAMES.map((n) => n.slice(0, n.indexOf('.')));
+
+export function isReservedSplitName(name: string): boolean {
+  const lower = name.toLowerCase();
+  return RESERVED_STEMS.some((stem) => lower === stem || lower.startsWith(`${stem}.`));
+}
+
 export function parseSplits(v: ShuffleOptions['split']): { splits: SplitSpec[]; counts: boolean; rest: number } {
   if (v === undefined) return { splits: [{ name: '', weight: 1 }], counts: false, rest: -1 };
   const entries: [string, string][] =
@@ -206,7 +215,8 @@ export function parseSplits(v: ShuffleOptions['split']): { splits: SplitSpec[]; 
   const names = new Set<string>();
   let rest = -1;
   const splits = entries.map(([name, w], i) => {
-    if (!/^[A-Za-z0-9][A-Za-z0-9_.-]*$/.test(name)) throw invalid('split', 'split names of letters, digits, "_", "-" or "."', name);
+    if (!/^[A-Za-z0-9][A-Za-z0-9_.-]*$/.test(name)) throw invalid('split', 'split names of letters, digits, "_", "-" or "." (a name, not a path), starting with a letter or digit', name);
+    if (isReservedSplitName(name)) throw invalid('split', `split names other than those of the files rowdeck writes itself (${RESERVED_STEMS.join(', ')}, in any case)`, name);
     if (names.has(name)) throw invalid('split', 'distinct split names', name);
     names.add(name);
     if (w === '*') {
