@@ -87,9 +87,26 @@ describe('fail fast (default)', () => {
     const e = readError(input, { maxRecordBytes: 1000 }, 100);
     expect(e.code).toBe('ERR_UNTERMINATED_QUOTE');
     expect(e.details).toMatchObject({ line: 3 });
-    expect(e.message).toContain('after 1000 bytes');
+    expect(e.message).toContain('never closed (read to the end of the input, past the 1000 bytes');
     // Under the limit the same input ends as an ordinary unterminated quote at EOF.
     expect(readError(input, { maxRecordBytes: 1e6 }, 100).message).toMatch(/^data\.csv:3:2: a quoted field starts here/);
+  });
+  it('a quoted field over maxRecordBytes that is closed further on is ERR_FIELD_TOO_LONG, not an open quote, whatever the chunks', () => {
+    // RFC 4180 section 2.7: a quote inside a quoted field is written twice; those must not end it.
+    const body = 'x""y\n'.repeat(400); // 2,400 bytes, doubled quotes throughout
+    for (const tail of ['",5\n6,7\n', '",5\n', '",5']) {
+      const input = `a,b\n1,2\n"${body}${tail}`;
+      for (const chunk of [1, 7, 100]) {
+        const e = readError(input, { maxRecordBytes: 1000 }, chunk);
+        expect(e.code, `tail ${JSON.stringify(tail)}, chunks of ${chunk}`).toBe('ERR_FIELD_TOO_LONG');
+        expect(e.details).toMatchObject({ line: 3 });
+        expect(e.message).toMatch(/^data\.csv:3: the record starting here holds a quoted field longer than 1000 bytes/);
+      }
+      // The same field under the limit is read as one record.
+      expect(readAll(input, { maxRecordBytes: 1e6 }).records.length).toBe(tail.endsWith('6,7\n') ? 3 : 2);
+    }
+    // Still open at the end, its doubled quotes notwithstanding: an unterminated quote.
+    for (const chunk of [1, 100]) expect(readError(`a,b\n3,"${body}`, { maxRecordBytes: 1000 }, chunk).code).toBe('ERR_UNTERMINATED_QUOTE');
   });
   it('an invalid delimiter is a usage error', () => {
     for (const delimiter of ['"', '\n', ';;', 'é']) {

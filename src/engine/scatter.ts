@@ -83,6 +83,8 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   lanes?: ScatterLanes;
   /** Called once with the first input's schema, before any record is scattered; may throw. */
   onSchema?: (schema: InputSchema) => void;
+  /** JSON Lines: a key no record may have (the fold column the output adds; see RecordReaderOptions). */
+  refuseKey?: string;
   onProgress?: (bytes: number, records: number) => void;
   /** Size of the blocks the workers parse (plain files); default DEFAULT_BLOCK_BYTES. */
   blockBytes?: number;
@@ -579,7 +581,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     // With small inputs given to the workers, nothing is read ahead here (see SmallInputSender).
     const ahead = new ReadAhead(o.inputs, blockSizes({ ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}) }).block, small ? 0 : undefined);
     const readerOptions = (k: number): RecordReaderOptions =>
-      inputReaderOptions(o.inputs[k]!, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
+      inputReaderOptions(o.inputs[k]!, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), ...(o.refuseKey !== undefined ? { refuseKey: o.refuseKey } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
     /** Reads input k here: whole if it was read ahead, else in blocks by the workers, else as a stream. */
     const readHere = async (k: number): Promise<void> => {
       const path = o.inputs[k]!;

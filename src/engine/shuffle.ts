@@ -291,6 +291,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
           );
         }
       },
+      ...(format === 'jsonl' && o.foldColumn !== null ? { refuseKey: o.foldColumn } : {}),
       bits,
       bufferBytes: spillBuffer,
       // Short records (a spill over 1.5x the input): smaller blocks, since a block's record

@@ -127,6 +127,11 @@ export interface RecordReaderOptions {
   expectedFrom?: string;
   /** A quoted field still open after this many bytes is reported as unterminated (default MAX_RECORD_BYTES). */
   maxRecordBytes?: number;
+  /**
+   * JSON Lines: a top-level key no record may have (the fold column the output adds). A record
+   * with it stops the read, whatever `onBadRecord` says: its value would be shadowed.
+   */
+  refuseKey?: string;
 }
 
 interface Counters {
@@ -200,6 +205,13 @@ export class RecordReader {
   private rPending = false;
   private rRel = 0;
   private rInQ = false;
+  /**
+   * A quoted field grew past maxRecordBytes: its bytes are dropped, and the rest of the input is
+   * only scanned for the closing quote, to tell a field that is too long (ERR_FIELD_TOO_LONG) from
+   * one that is never closed (ERR_UNTERMINATED_QUOTE). `quoteLast`: the bytes so far end in a
+   * quote whose meaning the next byte decides.
+   */
+  private over: { line: number; quoteLast: boolean } | null = null;
 
   // Output arrays, grown on demand and reused between batches.
   private cap = 0;
@@ -307,6 +319,10 @@ export class RecordReader {
     if (chunk.length === 0) return null;
     this.stats.bytes += chunk.length;
     this.lastByte = chunk[chunk.length - 1]!;
+    if (this.over) {
+      this.skipOversized(chunk);
+      return null;
+    }
     let data: Buffer;
     if (this.carryLen === 0) data = chunk;
     else {
@@ -325,6 +341,12 @@ export class RecordReader {
 
   end(): RecordBatch | null {
     if (this.ended) return null;
+    if (this.over) {
+      this.ended = true;
+      // A quote as the very last byte closed the field; otherwise it never was.
+      if (this.over.quoteLast) this.failTooLong();
+      this.failOversized();
+    }
     const batch = this.parse(this.carry[this.cur].subarray(0, this.carryLen), true);
     this.ended = true;
     this.stats.lines = this.stats.bytes === 0 ? 0 : this.lastByte === LF ? this.line - 1 : this.line;
@@ -365,7 +387,13 @@ export class RecordReader {
     if (this.rPending) {
       // A long record is still open: scan only the new bytes until its end is in sight.
       if (!this.findEnd(d, pos, n) && !atEnd) {
-        if (this.rInQ && n - pos > (this.opts.maxRecordBytes ?? MAX_RECORD_BYTES)) this.failOversized();
+        if (this.rInQ && n - pos > (this.opts.maxRecordBytes ?? MAX_RECORD_BYTES)) {
+          // findEnd stopped at the end, or at a last-byte quote it could not decide yet.
+          this.over = { line: this.line, quoteLast: pos + this.rRel < n };
+          this.carryLen = 0;
+          this.carry = [Buffer.alloc(0), Buffer.alloc(0)];
+          return null;
+        }
         return this.keep(d, pos, 0);
       }
       this.rPending = false;
@@ -437,13 +465,49 @@ export class RecordReader {
     return false;
   }
 
+  private limitText(): string {
+    const limit = this.opts.maxRecordBytes ?? MAX_RECORD_BYTES;
+    return limit >= 1 << 20 ? `${limit / (1 << 20)} MiB` : `${limit} bytes`;
+  }
+
+  /** Scans bytes after an oversized quoted field for its closing quote (see `over`). */
+  private skipOversized(c: Buffer): void {
+    const o = this.over!;
+    let j = 0;
+    if (o.quoteLast) {
+      o.quoteLast = false;
+      if (c[0] !== QUOTE) this.failTooLong();
+      j = 1; // a doubled quote: still inside the field
+    }
+    for (;;) {
+      const q = c.indexOf(QUOTE, j);
+      if (q < 0) return;
+      if (q + 1 >= c.length) {
+        o.quoteLast = true;
+        return;
+      }
+      if (c[q + 1] === QUOTE) j = q + 2;
+      else this.failTooLong();
+    }
+  }
+
   private failOversized(): never {
     const { file } = this.opts;
-    const limit = this.opts.maxRecordBytes ?? MAX_RECORD_BYTES;
+    const line = this.over?.line ?? this.line;
     throw new RowdeckError(
       'ERR_UNTERMINATED_QUOTE',
-      `${where(file, this.line)}: a record starting here is still inside a quoted field after ${limit >= 1 << 20 ? `${limit / (1 << 20)} MiB` : `${limit} bytes`}. A quote is probably never closed; check the quotes near this line.`,
-      { file, line: this.line },
+      `${where(file, line)}: a quoted field in the record starting here is never closed (read to the end of the input, past the ${this.limitText()} a record may hold). Close the quote; write quotes inside a quoted field twice ("").`,
+      { file, line },
+    );
+  }
+
+  private failTooLong(): never {
+    const { file } = this.opts;
+    const line = this.over?.line ?? this.line;
+    throw new RowdeckError(
+      'ERR_FIELD_TOO_LONG',
+      `${where(file, line)}: the record starting here holds a quoted field longer than ${this.limitText()}, the most one record may hold (the field is closed further on). Shorten or split that field, or keep such values out of the input.`,
+      { file, line },
     );
   }
 
@@ -946,7 +1010,8 @@ export class RecordReader {
   private jsonlChecker(d: Buffer, from: number): JsonlChecker | null {
     if (!this.jCheckTried) {
       this.jCheckTried = true;
-      this.jCheck = JsonlChecker.create(this.wantKeys!);
+      const refuse = this.opts.refuseKey;
+      this.jCheck = JsonlChecker.create(refuse === undefined ? this.wantKeys! : [...this.wantKeys!, Buffer.from(refuse, 'utf8')]);
     }
     return this.jCheck && this.jCheck.load(d, from, d.length) ? this.jCheck : null;
   }
@@ -975,6 +1040,8 @@ export class RecordReader {
       if (this.lineEnding === null && nl < n) this.lineEnding = e < nl ? '\r\n' : '\n';
       // The module's check first: a line it takes needs no JSON.parse and no string.
       if (jc && jc.check(a, e) === JsonlCheck.Object) {
+        // A present key's value token is never empty; an absent key's range is.
+        if (this.opts.refuseKey !== undefined && jc.end(W) > jc.start(W)) this.refuseRecord(line);
         if (count === this.cap) this.grow(count + 1);
         const fb = count * W;
         for (let w = 0; w < W; w++) {
@@ -1005,6 +1072,7 @@ export class RecordReader {
         pos = next;
         continue;
       }
+      if (this.opts.refuseKey !== undefined && Object.prototype.hasOwnProperty.call(obj, this.opts.refuseKey)) this.refuseRecord(line);
       if (!this.sch) {
         const columns = Object.keys(obj as object);
         this.setColumns(columns);
@@ -1031,6 +1099,15 @@ export class RecordReader {
     this.stats.records += count;
     this.stats.lines = line - 1;
     return this.keep(d, pos, count);
+  }
+
+  private refuseRecord(line: number): never {
+    const { file, refuseKey } = this.opts;
+    throw new RowdeckError(
+      'ERR_OPTION',
+      `${where(file, line)}: Invalid option "foldColumn": this record already has a key "${refuseKey}", the fold column the output adds (it would hold two). Name the added column otherwise with --fold-column NAME.`,
+      { file, line, option: 'foldColumn', column: refuseKey },
+    );
   }
 
   private rejectJson(line: number, column: number | undefined, msg: string, d: Buffer, s: number, e: number): void {
