@@ -124,9 +124,10 @@ export function systemError(err: unknown, path: string, operation: string): Rowd
     const text = err instanceof Error ? err.message : String(err);
     return new RowdeckError('ERR_IO', `${path}: ${operation} failed: ${text}`, { file: path, operation });
   }
-  // A rename names both ends: say which one is meant where it is not the path given.
+  // A rename names both ends: say the other one where it is not the path given.
+  const sys = (err as NodeJS.ErrnoException).syscall;
   const other = pathOfSystemError(err);
-  const also = other !== undefined && other !== path ? ` (${other})` : '';
+  const also = (sys === 'rename' || sys === 'link' || sys === 'copyfile') && other !== undefined && other !== path ? ` (from ${other})` : '';
   return new RowdeckError(m.code, `${path}${also}: ${operation} failed: ${m.reason}. ${m.hint}`, { file: path, operation, errno: m.errno, reason: m.reason });
 }
 

@@ -129,6 +129,15 @@ export function startRunWork(o: RunWorkOptions): RunWork {
     claim = o.out !== null ? claimOutput({ out: o.out, force: o.force, inputs: o.inputs, notice: tell }) : null;
     record.add(...(claim ? [claim.lockFile, claim.stage] : []));
     const spillRoot = o.tempDir !== null ? resolve(o.tempDir) : claim ? dirname(claim.out) : resolve(o.spillBeside ?? '.');
+    let rootIsFolder: boolean | null = null;
+    try {
+      rootIsFolder = statSync(spillRoot).isDirectory();
+    } catch {
+      // Made below (or the making reports why it cannot be).
+    }
+    if (rootIsFolder === false) {
+      throw new RowdeckError('ERR_IO', `${spillRoot}: creating the spill folder failed: it is a file, not a folder. Give --temp-dir a folder (it is made if missing).`, { file: spillRoot, errno: 'ENOTDIR', operation: 'creating the spill folder' });
+    }
     makeParents(spillRoot, createdForSpill);
     if (o.tempDir !== null || !claim) {
       const stale = removeStaleWorkFolders(spillRoot);

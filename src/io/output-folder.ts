@@ -198,7 +198,12 @@ function writeLockFile(path: string, content: LockContent, flag: 'wx' | 'w'): vo
   try {
     fd = openSync(path, flag, 0o644);
   } catch (err) {
-    if ((err as NodeJS.ErrnoException).code === 'EEXIST') throw err;
+    const code = (err as NodeJS.ErrnoException).code;
+    if (code === 'EEXIST') throw err;
+    if (code === 'ENOENT' && lstatOrNull(dirname(path))?.isDirectory()) {
+      // The folder is there but takes no new files: /proc, /sys and the like.
+      throw new RowdeckError('ERR_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
+    }
     throw systemError(err, path, 'creating the lock file of the output folder');
   }
   try {
