@@ -18,11 +18,12 @@ import { join } from 'node:path';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, type RecordBatch, type RejectedRecord } from '../io/batch.js';
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
-import { decodeCsvQuoted, type RecordReaderOptions } from '../io/reader.js';
+import type { RecordReaderOptions } from '../io/reader.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
 import { readInputs, readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
+import { decodeLossless } from '../core/raw-text.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { BucketWriter, QUEUE, spillRanges, type SpillPiece } from './spill.js';
@@ -141,7 +142,9 @@ export function fieldKey(b: RecordBatch, i: number, w: number): string {
     case FieldKind.Plain:
       return s === e ? MISSING_KEY : b.data.toString('latin1', s, e);
     case FieldKind.CsvQuoted:
-      return Buffer.from(decodeCsvQuoted(b.data, s, e), 'utf8').toString('latin1');
+      // The bytes between the quotes, doubled quotes undone, byte for byte (as decoding them as
+      // UTF-8 and back did for valid text, without merging different invalid values).
+      return e - s >= 2 && b.data[s] === 0x22 && b.data[e - 1] === 0x22 ? b.data.toString('latin1', s + 1, e - 1).replaceAll('""', '"') : b.data.toString('latin1', s, e).replaceAll('""', '"');
     case FieldKind.JsonString: {
       const v = JSON.parse(b.data.toString('utf8', s, e)) as string;
       return Buffer.from(v, 'utf8').toString('latin1');
@@ -161,9 +164,12 @@ function plainAscii(d: Uint8Array, s: number, e: number): boolean {
   return true;
 }
 
-/** Human form of a canonical stratum key: values decoded, missing shown as null. */
+/**
+ * Human form of a canonical stratum key: values decoded, missing shown as null. Bytes that are not
+ * UTF-8 stay distinguishable (see core/raw-text.ts).
+ */
 export function stratumValues(key: string): (string | null)[] {
-  return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
+  return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : decodeLossless(Buffer.from(v, 'latin1'))));
 }
 
 /** One scatter task: the per-record work of stage 1 for the batches it is given. */

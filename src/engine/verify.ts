@@ -16,6 +16,7 @@ import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
 import { maxDeviation } from '../core/balance.js';
+import { decodeLossless, encodeLossless } from '../core/raw-text.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
@@ -728,7 +729,7 @@ function createReadPlan(m: Manifest): ReadPlan {
   if (!withheld) {
     strataIndex = new Map();
     m.strata.values.forEach((v, i) => {
-      const key = (v.value ?? []).map((x) => (x === null ? MISSING_KEY : Buffer.from(x, 'utf8').toString('latin1'))).join(TUPLE_SEP);
+      const key = (v.value ?? []).map((x) => (x === null ? MISSING_KEY : encodeLossless(x).toString('latin1'))).join(TUPLE_SEP);
       strataIndex!.set(key, i);
     });
   }
@@ -772,7 +773,7 @@ function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): st
 }
 
 function labelOfKey(plan: ReadPlan, key: string): string {
-  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
+  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : decodeLossless(Buffer.from(v, 'latin1'))));
   return describeStratum(plan.stratify, vals, -1);
 }
 
