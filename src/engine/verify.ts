@@ -10,7 +10,7 @@
  * keeps one 64-bit hash per record and is done only up to DIFF_RECORD_LIMIT records.
  */
 import { createHash } from 'node:crypto';
-import { createReadStream, readFileSync, statSync } from 'node:fs';
+import { createReadStream, readdirSync, readFileSync, statSync, type Dirent } from 'node:fs';
 import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
@@ -21,6 +21,7 @@ import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
 import { RowdeckError, ioError } from '../errors.js';
+import { describeSystemError } from '../io/os-errors.js';
 import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } from '../io/input.js';
@@ -32,6 +33,7 @@ import type { PartOrder } from '../options.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
+import { compareReplay, environmentFault, replayable, replayShuffle } from './replay.js';
 import { WorkerLanes } from '../workers/lanes.js';
 
 /** Above this many records (input or output), a failed --against check reports counts and fingerprints only. */
@@ -108,10 +110,16 @@ export interface VerifyReport {
   checks: VerifyCheck[];
   mismatches: VerifyMismatch[];
   against: VerifyAgainst | null;
+  /**
+   * With `against`: the shuffle run again from the manifest's seed and options. `passed`: the
+   * parts are exactly what that seed gives; `failed`: they (or the manifest) are not, mismatches
+   * under the check `replay`; `skipped`: see `note`. null without `against`.
+   */
+  replay: { status: VerifyStatus; seed: string | null; note: string } | null;
 }
 
 export interface VerifyProgress {
-  stage: 'parts' | 'inputs' | 'differences';
+  stage: 'parts' | 'inputs' | 'differences' | 'replay';
   /** Files done and in all. */
   done: number;
   total: number;
@@ -124,6 +132,14 @@ export interface VerifyOptions {
   dir: string;
   /** Inputs to compare with the output ('-' reads standard input). */
   against?: string[];
+  /**
+   * With `against`: run the shuffle again from the manifest's seed and options over the inputs,
+   * writing nothing (only hashing), and check that it gives exactly these parts. Default true.
+   * Standard input or a pipe cannot be read twice: the replay is then skipped.
+   */
+  replay?: boolean;
+  /** Folder for the replay's spill (default: beside the checked folder). */
+  tempDir?: string;
   onProgress?: (e: VerifyProgress) => void;
   /**
    * Worker threads that read parts side by side. Default: the number of cores (one thread for
@@ -341,8 +357,14 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
       for (const c of partCheckNames(plan)) skip(f, c, 'the file is missing');
       return;
     }
-    judge(f, 'bytes', same(p.bytes, s.bytes));
-    judge(f, 'sha256', same(p.sha256, s.sha256));
+    if (s.sha256 === '') {
+      // Could not be read at all (permissions, an I/O error): 'readable' says why.
+      skip(f, 'bytes', 'the file could not be read');
+      skip(f, 'sha256', 'the file could not be read');
+    } else {
+      judge(f, 'bytes', same(p.bytes, s.bytes));
+      judge(f, 'sha256', same(p.sha256, s.sha256));
+    }
     judge(f, 'readable', s.readError === null ? [] : [{ expected: 'records the reader accepts', found: s.readError }]);
     if (plan.format !== 'jsonl' && plan.header) {
       const want = [...plan.columns, ...(plan.foldColumn !== null ? [plan.foldColumn] : [])];
@@ -397,6 +419,11 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     else if (o === 'random') return;
     else if (o === 'spread' && plan.strataIndex === null) skip(f, 'order', 'spread: the manifest was written without data values (excludeValues)');
     else judge(f, 'order', s.orderBreak === null ? [] : [s.orderBreak], o === 'spread' ? 'spread: every record of a class within one of its share of the positions so far' : 'grouped: each group in one run');
+  }
+
+  // ---- files that look like parts but are not listed (a stray or planted part) ----
+  for (const f of findUnlistedParts(dir, m)) {
+    judge(f, 'listed', [{ expected: 'no such file (the manifest does not list it)', found: 'a file that looks like a part' }]);
   }
 
   // ---- rejected records, kept aside by --on-bad-record quarantine ----
@@ -491,6 +518,43 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     }
   }
 
+  // ---- --against: the seed replayed ----
+  let replay: VerifyReport['replay'] = null;
+  if (options.against !== undefined) {
+    const can = replayable(m);
+    const R = '(replay)';
+    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: 'not asked for (replay: false)' };
+    else if (!can.ok) replay = { status: 'skipped', seed: m.seed, note: can.why };
+    else if (options.against.some((p) => isStreamInput(p))) replay = { status: 'skipped', seed: m.seed, note: 'standard input or a pipe can be read only once' };
+    if (replay) skip(R, 'replay', replay.note);
+    else {
+      options.onProgress?.({ stage: 'replay', done: 0, total: 1, records: 0, elapsedMs: Date.now() - t0 });
+      let replayed: Manifest | null = null;
+      try {
+        replayed = await replayShuffle(m, options.against, dir, {
+          ...(options.tempDir !== undefined ? { tempDir: options.tempDir } : {}),
+          ...(options.threads !== undefined ? { threads: options.threads } : {}),
+        });
+      } catch (err) {
+        const env = environmentFault(err);
+        if (env || !(err instanceof RowdeckError)) throw env ?? err;
+        judge(R, 'replay', [{ expected: `the shuffle to run again with seed ${JSON.stringify(m.seed)} and the manifest's options`, found: err.message }]);
+        replay = { status: 'failed', seed: m.seed, note: `the run could not be repeated: ${err.message}` };
+      }
+      if (replayed) {
+        const files = scans.map((sc) => (sc.present && sc.sha256 !== '' ? { bytes: sc.bytes, sha256: sc.sha256 } : null));
+        const diff = compareReplay(m, replayed, files);
+        let ok = judge(M, 'replay', diff.whole.map(({ item, expected, found }) => ({ item, expected, found })), 'expected: what the seed gives');
+        parts.forEach((p, k) => {
+          if (!judge(p.path, 'replay', diff.parts[k]!.map(({ item, expected, found }) => ({ item, expected, found })), 'expected: what the seed gives')) ok = false;
+        });
+        replay = ok
+          ? { status: 'passed', seed: m.seed, note: `the shuffle run again with seed ${JSON.stringify(m.seed)} and the manifest's options gives exactly these parts` }
+          : { status: 'failed', seed: m.seed, note: `the parts or the manifest are not what seed ${JSON.stringify(m.seed)} with the manifest's options gives (an edited seed or option, or altered parts)` };
+      }
+    }
+  }
+
   return {
     ok: mismatches.length === 0,
     dir,
@@ -502,7 +566,35 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     checks,
     mismatches,
     against,
+    replay,
   };
+}
+
+/**
+ * Files in the folder (and its split folders) named like parts (.csv, .tsv, .jsonl …, optionally
+ * .gz) that the manifest does not list; hidden entries (rowdeck's work folders) aside.
+ */
+function findUnlistedParts(dir: string, m: Manifest): string[] {
+  const listed = new Set(m.output.parts.map((p) => normalize(p.path)));
+  if (m.input.rejectsFile !== null) listed.add(normalize(m.input.rejectsFile));
+  const partLike = /\.(?:csv|tsv|tab|jsonl|ndjson)(?:\.gz)?$/i;
+  const found: string[] = [];
+  const walk = (rel: string, depth: number): void => {
+    let entries: Dirent[];
+    try {
+      entries = readdirSync(rel === '' ? dir : join(dir, rel), { withFileTypes: true });
+    } catch {
+      return;
+    }
+    for (const e of entries) {
+      if (e.name.startsWith('.')) continue;
+      const r = rel === '' ? e.name : join(rel, e.name);
+      if (e.isDirectory() && depth < 3) walk(r, depth + 1);
+      else if (e.isFile() && partLike.test(e.name) && !listed.has(r)) found.push(r);
+    }
+  };
+  walk('', 0);
+  return found.sort();
 }
 
 function sum(xs: number[]): number {
@@ -1014,12 +1106,18 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
     if (table) scan.stats = gather!.done(table, plan.excludeValues);
   } catch (err) {
     if (table) gather!.drop(table);
-    if (!(err instanceof RowdeckError)) throw ioError(err, display, 'reading');
-    scan.readError = err.message;
+    // A part that cannot be read (permissions, an I/O error) is a failed check, not the end of verify.
+    if (!(err instanceof RowdeckError) && !describeSystemError(err)) throw err;
+    scan.readError = (err instanceof RowdeckError ? err : ioError(err, display, 'reading a part')).message;
     // The parse stopped early: hash the whole file on its own so size and sha256 still count.
-    const whole = await hashFile(path);
-    scan.bytes = whole.bytes;
-    scan.sha256 = whole.sha256;
+    try {
+      const whole = await hashFile(path);
+      scan.bytes = whole.bytes;
+      scan.sha256 = whole.sha256;
+    } catch {
+      scan.bytes = 0;
+      scan.sha256 = '';
+    }
   }
   scan.columns = plan.format !== 'jsonl' && plan.header ? (reader.schema?.columns ?? null) : null;
   return scan;

@@ -73,6 +73,8 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     json: { type: 'boolean' },
     quiet: { type: 'boolean', short: 'q' },
     threads: { type: 'string' },
+    'temp-dir': { type: 'string' },
+    'no-replay': { type: 'boolean' },
     help: { type: 'boolean', short: 'h' },
   });
   if (v.help) {
@@ -91,7 +93,14 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   const progress = createVerifyProgress(io, !v.quiet);
   let report: VerifyReport;
   try {
-    report = await verify({ dir, ...(against ? { against } : {}), ...(threads !== undefined ? { threads } : {}), onProgress: (e) => progress.update(e) });
+    report = await verify({
+      dir,
+      ...(against ? { against } : {}),
+      ...(threads !== undefined ? { threads } : {}),
+      ...(v['temp-dir'] !== undefined ? { tempDir: String(v['temp-dir']) } : {}),
+      ...(v['no-replay'] ? { replay: false } : {}),
+      onProgress: (e) => progress.update(e),
+    });
   } finally {
     progress.done();
   }
@@ -103,13 +112,14 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     const skipped = report.checks.filter((c) => c.status === 'skipped').length;
     const skippedText = skipped > 0 ? `, ${skipped} skipped (see --json)` : '';
     io.stderr.write(formatVerifyChecks(report, io.stderr.columns ?? 100).map((l) => `${l}\n`).join(''));
+    const replay = report.replay ? `; replay ${report.replay.status}: ${report.replay.note}` : '';
     if (report.ok) {
       const inputs = report.against ? `; the input(s) hold the same ${report.against.records.toLocaleString('en-US')} records` : '';
-      io.stderr.write(`rowdeck: ${dir} matches its manifest: ${report.parts} part(s), ${report.records.toLocaleString('en-US')} records, ${passed} checks passed${skippedText}${inputs}.\n`);
+      io.stderr.write(`rowdeck: ${dir} matches its manifest: ${report.parts} part(s), ${report.records.toLocaleString('en-US')} records, ${passed} checks passed${skippedText}${inputs}${replay}.\n`);
     } else {
       const files = new Set(report.mismatches.map((x) => x.file)).size;
       io.stderr.write(
-        `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}.\n`,
+        `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}${replay}.\n`,
       );
     }
     if (report.dealingScheme === 1) {
