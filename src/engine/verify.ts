@@ -10,7 +10,7 @@
  * keeps one 64-bit hash per record and is done only up to DIFF_RECORD_LIMIT records.
  */
 import { createHash } from 'node:crypto';
-import { createReadStream, readdirSync, readFileSync, statSync, type Dirent } from 'node:fs';
+import { closeSync, createReadStream, openSync, readdirSync, readFileSync, statSync, type Dirent } from 'node:fs';
 import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
@@ -1021,6 +1021,14 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
     scan.present = false;
   }
   if (!scan.present) return scan;
+  // A part that cannot be opened (permissions) is said so by name, before any read.
+  try {
+    closeSync(openSync(path, 'r'));
+  } catch (err) {
+    scan.readError = ioError(err, display, 'opening a part').message;
+    scan.sha256 = '';
+    return scan;
+  }
 
   const sink = { hash: createHash('sha256'), bytes: 0 };
   // With statistics to check, every column is wanted after the class columns (a column may be

@@ -562,11 +562,12 @@ function createClaim(out: string, stage: string, lock: Lock, old: OldOutput | nu
         }
         staged = null;
       }
-      removed.push(...removeCreated(created));
+      // The lock before the folders made for it (it lives in the innermost of them).
       if (held) {
         lock.release();
         held = false;
       }
+      removed.push(...removeCreated(created));
       return removed;
     },
   };
