@@ -75,6 +75,7 @@ export function startRunWork(o: RunWorkOptions): RunWork {
   let spill: string | null = null;
   let aside: string[] = [];
   let done = false;
+  let committed = false;
 
   /** Everything now, synchronously (a failure, a signal, a crash). Returns what was removed. */
   const removeAllNow = (): string[] => {
@@ -97,7 +98,8 @@ export function startRunWork(o: RunWorkOptions): RunWork {
     try {
       removed = removeAllNow();
     } finally {
-      const line = `stopped by ${sig}; removed ${removed.length ? removed.join(', ') : 'nothing (no work folders yet)'}`;
+      const whole = committed && claim ? ` after the output was complete in ${claim.out}` : '';
+      const line = `stopped by ${sig}${whole}; removed ${removed.length ? removed.join(', ') : 'nothing (no work folders yet)'}`;
       if (notice) notice(line);
       else {
         try {
@@ -170,6 +172,7 @@ export function startRunWork(o: RunWorkOptions): RunWork {
     commit() {
       if (!claim) throw new RowdeckError('ERR_INTERNAL', 'commit() of a run without an output folder');
       aside = claim.commit();
+      committed = true;
       record.add(...aside);
     },
     async finish() {
