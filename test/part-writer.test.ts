@@ -8,7 +8,7 @@ import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gunzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { PartWriter } from '../src/io/part-writer.js';
+import { FileSlots, PartWriter } from '../src/io/part-writer.js';
 import { createRandom, makeTempDir, removeDir } from './helpers/engine.js';
 
 let dir: string;
@@ -78,5 +78,42 @@ describe('PartWriter', () => {
     if (writing) await writing;
     await w.close();
     expect(readFileSync(path, 'utf8')).toBe('first,1\nsecond,2\n');
+  });
+
+  it('many writers sharing 3 open files (closed and reopened to append): every part still holds exactly its bytes', async () => {
+    const slots = new FileSlots(3);
+    for (const gzip of [false, true]) {
+      const writers = Array.from({ length: 12 }, (_, k) => new PartWriter(join(dir, `slot-${gzip}-${k}.csv${gzip ? '.gz' : ''}`), gzip, k % 2 ? 4096 : 0, slots));
+      expect(slots.openCount).toBeLessThanOrEqual(3);
+      const own = writers.map(() => [] as Uint8Array[]);
+      // Round robin over the parts, as the dealing writes a bucket's slices part after part.
+      slices.slice(0, 240).forEach((s, i) => own[i % writers.length]!.push(s));
+      for (let i = 0; i < 20; i++) {
+        for (let k = 0; k < writers.length; k++) {
+          const writing = writers[k]!.write(own[k]![i]!);
+          if (writing) await writing;
+          expect(slots.openCount).toBeLessThanOrEqual(3);
+        }
+      }
+      for (let k = 0; k < writers.length; k++) {
+        const r = await writers[k]!.close();
+        const onDisk = readFileSync(writers[k]!.path!);
+        expect((gzip ? gunzipSync(onDisk) : onDisk).equals(Buffer.concat(own[k]!))).toBe(true);
+        expect(r.sha256).toBe(createHash('sha256').update(onDisk).digest('hex'));
+      }
+      expect(slots.openCount).toBe(0);
+    }
+  });
+
+  it('a writer without a path writes nothing and gives the bytes and sha256 a real one writes', async () => {
+    for (const gzip of [false, true]) {
+      const real = await writeAll(join(dir, `real-${gzip}.csv`), gzip, 8 * 1024, slices);
+      const w = new PartWriter(null, gzip, 8 * 1024);
+      for (const s of slices) {
+        const writing = w.write(s);
+        if (writing) await writing;
+      }
+      expect(await w.close()).toEqual(real);
+    }
   });
 });
