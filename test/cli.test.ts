@@ -70,7 +70,7 @@ describe('version and help', () => {
     expect(r.stderr).toBe('');
   });
 
-  it('shuffle --help exits 0 and carries the three cautions', () => {
+  it('shuffle --help exits 0 and carries the cautions', () => {
     const r = runCli(['shuffle', '--help']);
     expect(r.status, r.stderr).toBe(0);
     expect(r.stdout).toContain('--partitions');
@@ -80,6 +80,7 @@ describe('version and help', () => {
     expect(cautions).toMatch(/time-ordered/i);
     expect(cautions).toContain('--group');
     expect(cautions).toContain('--exclude-values');
+    expect(cautions).toMatch(/--force is for replacing rowdeck's own output/);
   });
 
   it('no arguments at all is a usage error (exit 2) that shows the usage', () => {

@@ -70,8 +70,13 @@ Input:
                           line number and reason, to DIR/rejected.csv
 
 Output and resources:
-  --out DIR               output folder (must be new or empty unless --force)
-  --force                 replace a non-empty DIR (only once the new output is complete)
+  --out DIR               output folder: new, or empty (then it keeps its mode, group and setgid
+                          bit); locked while the run works, so a second run into it fails
+  --force                 replace a previous output of rowdeck in DIR: only the files its
+                          manifest lists, and only once the new output is complete. Anything
+                          else in DIR stops the run (nothing is touched); refused where DIR is
+                          /, a mount point, the working or home folder or one above them, or
+                          holds an input
   --gzip                  compress parts (.gz)
   --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
   --threads N             worker threads (default: number of cores; inputs under 32 MiB are
@@ -107,6 +112,11 @@ Cautions:
   * Records of one person, device or session spread over folds leak too: use --group.
   * The manifest holds values from the data (class names). Use --exclude-values before you
     publish a manifest of sensitive data.
+  * --force is for replacing rowdeck's own output: give every output a folder of its own.
+
+Interrupted (Ctrl-C, SIGTERM, SIGHUP, SIGQUIT), a run removes its work files and says so in one
+line; after a SIGKILL the next run removes them. Split names may not be manifest, rejected or
+report (rowdeck's own files) or look like a path.
 `;
 
 export const PROFILE_HELP = `rowdeck profile — schema, statistics and class balance of inputs
@@ -150,19 +160,23 @@ Examples:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--threads N] [--json] [--quiet]
+  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, the order-independent
 fingerprint of the records, and (for a run with --stats) every part's column statistics and the
-whole input's, computed again from the parts. With --against, also re-reads the inputs and
-checks that the output holds exactly their records (nothing lost, duplicated or altered; the
-fold column aside).
+whole input's, computed again from the parts; a file that looks like a part but is not listed
+fails. With --against, also re-reads the inputs and checks that the output holds exactly their
+records (nothing lost, duplicated or altered; the fold column aside), and replays the seed: the
+shuffle runs again from the manifest's seed and options, writing nothing but its spill, and the
+parts must be byte for byte what it gives (an edited seed or option fails).
 
 Options:
   --against INPUT...      the inputs of the run, in the same order (every argument up to the
                           next option); records missing from or extra in the output are listed
                           with their file:line (up to 20 of each, for inputs up to 2 million records)
+  --temp-dir DIR          where the replay's spill goes (default: beside the checked folder)
+  --no-replay             skip the replay (standard input or a pipe is read once: skipped then)
   --threads N             worker threads that read parts side by side (default: number of cores,
                           for outputs of 32 MiB and more; 1 reads them on the main thread)
   --json                  print the report (every check and mismatch) on stdout
