@@ -5,9 +5,10 @@
  *          ─▶ gather (worker pool, one bucket per task) ─▶ ordered part writers ─▶ manifest
  *          ─▶ rename the finished folder into place
  *
- * Output goes to a hidden folder beside the target and is renamed into place only after the
- * manifest is written, so a failed or killed run never leaves a folder that looks complete.
- * Spill files live in their own hidden folder, removed on success and on failure.
+ * Output goes to a hidden staging folder and is put into place only after the manifest is
+ * written (src/io/output-folder.ts), so a failed or killed run never leaves a folder that looks
+ * complete. Spill files live in their own hidden folder, removed on success and on failure
+ * (src/engine/run-work.ts).
  */
 import { closeSync, mkdirSync, openSync, readSync, statSync, writeFileSync } from 'node:fs';
 import { basename, dirname, join } from 'node:path';

@@ -47,13 +47,7 @@ export function isProcessAlive(pid: number, start?: string | null): boolean {
  */
 export function removeStaleWorkFolders(dir: string): string[] {
   const removed: string[] = [];
-  let names: string[];
-  try {
-    names = readdirSync(dir);
-  } catch {
-    return removed;
-  }
-  for (const name of names) {
+  for (const name of listQuietly(dir)) {
     const m = WORK_NAME.exec(name);
     if (!m) continue;
     const pid = Number(m[1]);
@@ -155,13 +149,7 @@ export function sweepRunRecords(): string[] {
   const removed: string[] = [];
   if (dir === null) return removed;
   const host = hostname();
-  let names: string[];
-  try {
-    names = readdirSync(dir);
-  } catch {
-    return removed;
-  }
-  for (const name of names) {
+  for (const name of listQuietly(dir)) {
     if (!name.endsWith('.json')) continue;
     const file = join(dir, name);
     let entry: RunEntry;
@@ -192,6 +180,15 @@ export function sweepRunRecords(): string[] {
     }
   }
   return removed;
+}
+
+/** The names in `dir`, or none where it cannot be listed. */
+function listQuietly(dir: string): string[] {
+  try {
+    return readdirSync(dir);
+  } catch {
+    return [];
+  }
 }
 
 /** Whether `path` is a work folder or lock file made by process `pid`. */
