@@ -68,6 +68,16 @@ describe('--force replaces only what rowdeck wrote', () => {
     expect(diffSnapshots(before, snapshot(d))).toEqual([]);
   });
 
+  it("rowdeck's report page is replaced with the output; a page of the user's under that name is not", async () => {
+    const d = fresh('with-report');
+    const out = join(d, 'out');
+    await shuffle({ inputs: [input], out, partitions: 2, report: true });
+    await shuffle({ inputs: [input], out, partitions: 3, force: true });
+    expect(readdirSync(out).sort()).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv', 'part-00002.csv']);
+    writeFileSync(join(out, 'report.html'), '<!DOCTYPE html><title>my notes</title>');
+    await expect(shuffle({ inputs: [input], out, force: true })).rejects.toMatchObject({ code: 'ERR_FORCE_REFUSED', message: expect.stringContaining('"report.html"') });
+  });
+
   it('a failing run with --force leaves the previous output as it was', async () => {
     const d = fresh('force-fails');
     const out = join(d, 'out');

@@ -45,6 +45,8 @@ const MODES: [string, () => Omit<ShuffleOptions, 'out'>][] = [
   ['several inputs', () => ({ inputs: [input, second], partitions: 2, stratify: 'fault' })],
   ['values left out of the manifest', () => ({ inputs: [input], stratify: 'fault', partitions: 2, excludeValues: true })],
   ['bad records set aside', () => ({ inputs: [join(dir, 'with-bad.csv')], partitions: 2, onBadRecord: 'quarantine' })],
+  ['classes spread evenly inside parts', () => ({ inputs: [input], partitions: 2, stratify: 'fault', order: 'spread' })],
+  ['groups kept together inside parts', () => ({ inputs: [input], group: 'sensor', partitions: 2, order: 'grouped' })],
 ];
 
 describe('the replay passes on an untouched output, in every mode', () => {
@@ -121,6 +123,21 @@ describe('edits only the replay can see', () => {
       expect(cli.stderr).toContain('replay failed: the parts or the manifest are not what seed "field-season" with the manifest\'s options gives');
     } finally {
       writeFileSync(part, text);
+      writeFileSync(join(out, 'manifest.json'), pristine);
+    }
+  });
+
+  it('a manifest of dealing scheme 1 (version 1) is not replayed, and the report says why', async () => {
+    try {
+      editManifest((m) => {
+        m.manifestVersion = 1;
+        delete m.dealingScheme;
+        delete m.options.order;
+      });
+      const r = await verify({ dir: out, against: [input] });
+      expect(r.replay).toMatchObject({ status: 'skipped', note: expect.stringContaining('dealing scheme 1 (rowdeck 0.1)') });
+      expect(r.checks).toContainEqual(expect.objectContaining({ file: '(replay)', check: 'replay', status: 'skipped' }));
+    } finally {
       writeFileSync(join(out, 'manifest.json'), pristine);
     }
   });

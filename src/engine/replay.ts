@@ -8,16 +8,20 @@
 import { dirname, resolve } from 'node:path';
 import { RowdeckError } from '../errors.js';
 import type { ShuffleOptions } from '../options.js';
+import { DEALING_SCHEME } from '../core/deal.js';
 import type { Manifest } from './manifest.js';
 import { runPipeline } from './shuffle.js';
 
 /**
- * Whether this rowdeck can replay the run a manifest describes; the one place to refuse (for
- * instance a manifest written with a dealing scheme this version does not have). Today every
- * manifest this version reads can be replayed.
+ * Whether this rowdeck can replay the run a manifest describes; the one place to refuse. A
+ * manifest of another dealing scheme (version 1 has none: scheme 1, classes interleaved) gives
+ * other bytes by design, so it is not replayed.
  */
 export function replayable(m: Manifest): { ok: true } | { ok: false; why: string } {
-  void m;
+  const scheme = m.dealingScheme ?? 1;
+  if (scheme !== DEALING_SCHEME) {
+    return { ok: false, why: `the output was written by dealing scheme ${scheme} (${scheme === 1 ? 'rowdeck 0.1' : 'another version'}); this rowdeck deals by scheme ${DEALING_SCHEME} and cannot repeat it` };
+  }
   return { ok: true };
 }
 
@@ -40,6 +44,7 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
     gzip: boolean;
     onBadRecord: 'fail' | 'skip' | 'quarantine';
     excludeValues: boolean;
+    order?: ShuffleOptions['order'];
   };
   const o: ShuffleOptions = {
     inputs,
@@ -55,6 +60,7 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
     excludeValues: x.excludeValues,
   };
   if (x.delimiter !== null) o.delimiter = x.delimiter;
+  if (x.order !== undefined) o.order = x.order;
   if (x.folds > 1) {
     o.folds = x.folds;
     if (x.foldColumn !== null) o.foldColumn = x.foldColumn;

@@ -17,7 +17,7 @@
  * An existing folder is kept as it is (its mode, owner, group, setgid bit and ACLs): the output is
  * moved into it. A new one is made like `mkdir` makes it (the umask applies).
  */
-import { closeSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, realpathSync, renameSync, rmdirSync, rmSync, statSync, unlinkSync, writeSync, linkSync } from 'node:fs';
+import { closeSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, realpathSync, renameSync, rmdirSync, rmSync, statSync, unlinkSync, writeSync, linkSync } from 'node:fs';
 import { randomBytes } from 'node:crypto';
 import { homedir, hostname } from 'node:os';
 import { basename, dirname, isAbsolute, join, normalize, relative, resolve, sep } from 'node:path';
@@ -372,8 +372,9 @@ function readOldOutput(out: string, lock: Lock): OldOutput {
   }
   const rejects = m.input?.rejectsFile;
   if (typeof rejects === 'string' && isSafeRelative(rejects)) listed.add(normalize(rejects));
-  // Names rowdeck reserves for itself are its own where the manifest names them.
-  for (const name of RESERVED_OUTPUT_NAMES) if (text.includes(JSON.stringify(name))) listed.add(name);
+  // The report page (shuffle --report, rowdeck report) is not in the manifest (it is written
+  // after it): it is rowdeck's where its head says rowdeck made it.
+  if (isRowdeckReport(join(out, REPORT_NAME))) listed.add(REPORT_NAME);
   const folders = new Set(foldersOf([...listed]));
   const unexpected: string[] = [];
   const files: string[] = [];
@@ -400,6 +401,23 @@ function readOldOutput(out: string, lock: Lock): OldOutput {
     return refuse(`holds ${unexpected.length} entr${unexpected.length === 1 ? 'y' : 'ies'} its manifest does not list: ${unexpected.slice(0, 10).map((e) => JSON.stringify(e)).join(', ')}${unexpected.length > 10 ? ', …' : ''}.`, { entries: unexpected.slice(0, 50) });
   }
   return { files };
+}
+
+const REPORT_NAME = 'report.html';
+
+/** Whether `path` is a page rowdeck rendered (its generator meta tag, in the first KiB). */
+function isRowdeckReport(path: string): boolean {
+  let fd = -1;
+  try {
+    fd = openSync(path, 'r');
+    const head = Buffer.alloc(1024);
+    const n = readSync(fd, head, 0, head.length, 0);
+    return /<meta name="generator" content="rowdeck /.test(head.toString('utf8', 0, n));
+  } catch {
+    return false;
+  } finally {
+    if (fd >= 0) closeSync(fd);
+  }
 }
 
 /** Refuses --force where replacing could reach the user's own files. */
