@@ -80,15 +80,31 @@ export function startRunWork(o: RunWorkOptions): RunWork {
   /** Everything now, synchronously (a failure, a signal, a crash). Returns what was removed. */
   const removeAllNow = (): string[] => {
     const removed: string[] = [];
+    let failed = false;
+    // Each step on its own: one that fails (worker threads still writing into the spill while a
+    // signal removes it) must not keep the others from running.
+    const attempt = (step: () => void): void => {
+      try {
+        step();
+      } catch {
+        failed = true; // left for the next run's sweep, which the run record points to
+      }
+    };
     if (spill) {
-      rmSync(spill, { recursive: true, force: true });
-      removed.push(spill);
+      const s = spill;
+      attempt(() => {
+        rmSync(s, { recursive: true, force: true, maxRetries: 5, retryDelay: 20 });
+        removed.push(s);
+      });
       spill = null;
     }
-    for (const a of aside.splice(0)) rmSync(a, { recursive: true, force: true });
-    if (claim) removed.push(...claim.release());
-    removed.push(...removeCreated(createdForSpill));
-    record.close();
+    for (const a of aside.splice(0)) attempt(() => rmSync(a, { recursive: true, force: true, maxRetries: 5, retryDelay: 20 }));
+    if (claim) {
+      const c = claim;
+      attempt(() => removed.push(...c.release()));
+    }
+    attempt(() => removed.push(...removeCreated(createdForSpill)));
+    if (!failed) attempt(() => record.close());
     return removed;
   };
 

@@ -17,7 +17,7 @@
  * An existing folder is kept as it is (its mode, owner, group, setgid bit and ACLs): the output is
  * moved into it. A new one is made like `mkdir` makes it (the umask applies).
  */
-import { closeSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, realpathSync, renameSync, rmdirSync, rmSync, statSync, unlinkSync, writeSync, linkSync } from 'node:fs';
+import { closeSync, linkSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, realpathSync, renameSync, rmdirSync, rmSync, statSync, unlinkSync, writeFileSync, writeSync } from 'node:fs';
 import { randomBytes } from 'node:crypto';
 import { homedir, hostname } from 'node:os';
 import { basename, dirname, isAbsolute, join, normalize, relative, resolve, sep } from 'node:path';
@@ -193,27 +193,62 @@ function takeLockFile(path: string, me: LockContent, out: string, notice: (text:
   }
 }
 
+/**
+ * Writes the lock whole: its content goes to a work file first, which is then linked to the lock's
+ * name ('wx': fails with EEXIST if a lock is there) or renamed over it ('w'), so no reader ever
+ * sees it empty or half written. Where the file system has no hard links, it is created and
+ * written in place.
+ */
 function writeLockFile(path: string, content: LockContent, flag: 'wx' | 'w'): void {
-  let fd: number;
+  // Named like a work folder of this process, so a sweep removes it if the process dies here.
+  const temp = join(dirname(path), `${STAGE_PREFIX}${process.pid}-lock-${randomBytes(4).toString('hex')}`);
   try {
-    fd = openSync(path, flag, 0o644);
+    writeFileSync(temp, JSON.stringify(content) + '\n', { flag: 'wx', mode: 0o644 });
+  } catch (err) {
+    unlinkQuietly(temp);
+    throw lockWriteError(err, path);
+  }
+  try {
+    if (flag === 'w') renameSync(temp, path);
+    else linkSync(temp, path);
   } catch (err) {
     const code = (err as NodeJS.ErrnoException).code;
+    unlinkQuietly(temp);
     if (code === 'EEXIST') throw err;
-    if (code === 'ENOENT' && lstatOrNull(dirname(path))?.isDirectory()) {
-      // The folder is there but takes no new files: /proc, /sys and the like.
-      throw new RowdeckError('ERR_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
+    if (flag === 'wx' && (code === 'EPERM' || code === 'ENOTSUP' || code === 'ENOSYS' || code === 'EOPNOTSUPP')) {
+      writeLockInPlace(path, content);
+      return;
     }
-    throw systemError(err, path, 'creating the lock file of the output folder');
+    throw lockWriteError(err, path);
+  }
+  unlinkQuietly(temp);
+}
+
+function writeLockInPlace(path: string, content: LockContent): void {
+  let fd: number;
+  try {
+    fd = openSync(path, 'wx', 0o644);
+  } catch (err) {
+    if ((err as NodeJS.ErrnoException).code === 'EEXIST') throw err;
+    throw lockWriteError(err, path);
   }
   try {
     writeSync(fd, JSON.stringify(content) + '\n');
   } catch (err) {
     closeSync(fd);
     unlinkQuietly(path);
-    throw systemError(err, path, 'writing the lock file of the output folder');
+    throw lockWriteError(err, path);
   }
   closeSync(fd);
+}
+
+function lockWriteError(err: unknown, path: string): RowdeckError {
+  const code = (err as NodeJS.ErrnoException).code;
+  if (code === 'ENOENT' && lstatOrNull(dirname(path))?.isDirectory()) {
+    // The folder is there but takes no new files: /proc, /sys and the like.
+    return new RowdeckError('ERR_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
+  }
+  return systemError(err, path, 'creating the lock file of the output folder');
 }
 
 /** The lock's content, 'unreadable' (empty or damaged), or null when there is none. */
