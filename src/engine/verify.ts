@@ -544,9 +544,9 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
       if (replayed) {
         const files = scans.map((sc) => (sc.present && sc.sha256 !== '' ? { bytes: sc.bytes, sha256: sc.sha256 } : null));
         const diff = compareReplay(m, replayed, files);
-        let ok = judge(M, 'replay', diff.whole.map(({ item, expected, found }) => ({ item, expected, found })), "the shuffle run again from the manifest's seed and options (expected: what it gives)");
+        let ok = judge(M, 'replay', diff.whole.map(({ item, expected, found }) => ({ item, expected, found })), "the shuffle run again from the manifest's seed and options; expected: what it gives");
         parts.forEach((p, k) => {
-          if (!judge(p.path, 'replay', diff.parts[k]!.map(({ item, expected, found }) => ({ item, expected, found })), "the shuffle run again from the manifest's seed and options (expected: what it gives)")) ok = false;
+          if (!judge(p.path, 'replay', diff.parts[k]!.map(({ item, expected, found }) => ({ item, expected, found })), "the shuffle run again from the manifest's seed and options; expected: what it gives")) ok = false;
         });
         replay = ok
           ? { status: 'passed', seed: m.seed, note: `the shuffle run again with seed ${JSON.stringify(m.seed)} and the manifest's options gives exactly these parts` }
