@@ -32,8 +32,8 @@
  * Missing values are empty fields (also `""` and the JSON empty string) and absent/null JSON fields.
  */
 
-import { FieldKind } from '../io/batch.js';
-import type { RecordBatch } from '../io/batch.js';
+import { FieldKind } from './record-batch.js';
+import type { RecordBatch } from './record-batch.js';
 import { RowdeckError } from '../errors.js';
 import { computeMeanVariance, DecimalSums, ExactMoments } from './exact-sum.js';
 import type { SerializedDecimals, SerializedMoments } from './exact-sum.js';
