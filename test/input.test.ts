@@ -11,7 +11,8 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
 import { detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
-import { fieldText, RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
+import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
+import { fieldText } from '../src/core/record-batch.js';
 import type { RecordBatch } from '../src/io/batch.js';
 
 let dir = '';

@@ -9,7 +9,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { parse } from 'csv-parse/sync';
 import seedrandom from 'seedrandom';
 import { readAll } from './reader.helpers.js';
-import { useStructuralScan } from '../src/io/reader.js';
+import { useStructuralScan } from '../src/io/csv-records.js';
 
 const ATOMS_PLAIN = ['a', 'b', 'z', '1', '7', ' ', 'é', '名', '🌡', '.', '-', '\r'];
 const ATOMS_QUOTED = [...ATOMS_PLAIN, ',', ';', '\t', '|', '""', '\n', '\r\n', '\r', "'"];

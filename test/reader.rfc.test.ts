@@ -5,7 +5,8 @@
  */
 import { describe, expect, it } from 'vitest';
 import { readAll } from './reader.helpers.js';
-import { splitRecordFields, decodeCsvQuoted } from '../src/io/reader.js';
+import { splitRecordFields } from '../src/io/fields.js';
+import { decodeCsvQuoted } from '../src/core/record-batch.js';
 import type { RecordReaderOptions } from '../src/io/reader.js';
 
 /** Decoded fields of every record, by splitting each record's content with splitRecordFields. */

@@ -9,7 +9,7 @@ import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { setWalkLimit, structuralScanner } from '../src/io/structural.js';
 import { STRUCTURAL_WASM_BASE64 } from '../src/io/structural-wasm.js';
-import { useStructuralScan } from '../src/io/reader.js';
+import { useStructuralScan } from '../src/io/csv-records.js';
 import { readAll } from './reader.helpers.js';
 // @ts-expect-error: a plain ES module without types
 import { assemble, wat } from '../scripts/structural-wasm.mjs';

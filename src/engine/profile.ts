@@ -32,7 +32,8 @@ import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, ty
 import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
+import { RecordReader, type RecordReaderOptions } from '../io/reader.js';
+import { unknownColumn } from '../io/fields.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';

@@ -10,7 +10,7 @@ import { hashWords3, type Secret } from '../core/hash.js';
 import { RowdeckError, where } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch } from '../io/batch.js';
 import { isStreamInput, nameInput, readRecords } from '../io/input.js';
-import { fieldText } from '../io/reader.js';
+import { fieldText } from '../core/record-batch.js';
 
 export interface BinSpec {
   name: string;

@@ -25,7 +25,8 @@
  */
 import { open, type FileHandle } from 'node:fs/promises';
 import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
-import { checkNotHeaderOnly, RecordReader, type RecordReaderOptions } from './reader.js';
+import { checkNotHeaderOnly } from './fields.js';
+import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
 
 const LF = 0x0a;
