@@ -9,7 +9,8 @@ import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { shuffle, verify } from '../src/index.js';
-import { binValueAt, selectRanks } from '../src/engine/quantiles.js';
+import { selectRanks } from '../src/engine/quantiles.js';
+import { binValueAt } from '../src/core/bins.js';
 import { FieldKind, type RecordBatch } from '../src/io/batch.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 

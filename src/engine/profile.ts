@@ -36,8 +36,9 @@ import { RecordReader, type RecordReaderOptions } from '../io/reader.js';
 import { unknownColumn } from '../io/fields.js';
 import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
-import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
-import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
+import { computeBinEdges, type BinEdges } from './quantiles.js';
+import { BatchSender, type BatchLanes } from './scatter.js';
+import { columnKey, compareStratumKeys, describeStratum, keyBytes, keyParts, MAX_STRATA, MISSING_KEY, stratumKey, stratumValues, tooManyStrata, type KeyRange } from '../core/strata.js';
 import { readInputs, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { resolveWorkerFile } from './shuffle.js';
 
@@ -314,6 +315,7 @@ export class ProfileTask {
   readonly #fast = new ByteCounter();
   /** One plain stratify column without bins: counted by bytes. */
   readonly #single: boolean;
+  readonly #keyRange: KeyRange = { start: 0, end: 0 };
   /** The columns this task keeps, [from, to) of `columns` (all but with column shares). */
   readonly #from: number;
   readonly #to: number;
@@ -374,36 +376,19 @@ export class ProfileTask {
     const slotOf = (j: number): number => (slots === null ? spec[j]!.column : slots[spec[j]!.column]!);
     if (this.#single) {
       const w = slotOf(0);
+      const r = this.#keyRange;
       for (let i = 0; i < b.count; i++) {
-        const k = i * b.wanted + w;
-        const s = b.fieldStart[k]!;
-        const e = b.fieldEnd[k]!;
-        // Plain, non-empty: its bytes are its key (see fieldKey). Anything else takes the general path.
-        if (w >= 0 && b.fieldKind[k] === FieldKind.Plain && e > s) this.#fast.count(b.data, s, e);
-        else this.#add(w < 0 ? MISSING_KEY : fieldKey(b, i, w));
+        // Counted by its bytes where they are its key (keyBytes); anything else by its key.
+        if (w >= 0 && keyBytes(b, i, w, r)) this.#fast.count(b.data, r.start, r.end);
+        else this.#add(columnKey(b, i, w, spec[0]!, this.#c.files[input] ?? '<input>'));
       }
       this.#checkCount();
       return;
     }
     const ws = spec.map((_, j) => slotOf(j));
-    for (let i = 0; i < b.count; i++) {
-      let key = '';
-      for (let j = 0; j < spec.length; j++) {
-        if (j > 0) key += TUPLE_SEP;
-        key += this.#partKey(b, i, ws[j]!, j, input);
-      }
-      this.#add(key);
-    }
+    const file = this.#c.files[input] ?? '<input>';
+    for (let i = 0; i < b.count; i++) this.#add(stratumKey(b, i, ws, spec, file));
     this.#checkCount();
-  }
-
-  /** One column's part of a stratum key, as shuffle's scatter makes it. */
-  #partKey(b: RecordBatch, i: number, w: number, j: number, input: number): string {
-    if (w < 0) return MISSING_KEY;
-    const s = this.#c.stratify[j]!;
-    if (s.edges === null) return fieldKey(b, i, w);
-    const v = binValueAt(b, i, w, s.name, this.#c.files[input] ?? '<input>');
-    return v === null ? MISSING_KEY : binLabel(s.edges, binOf(s.edges, v));
   }
 
   #add(key: string): void {
@@ -419,14 +404,6 @@ export class ProfileTask {
     this.#fast.forEach((k, n) => strata.set(k, (strata.get(k) ?? 0) + n));
     return { stats: this.#stats.toTransfer(), strata: [...strata] };
   }
-}
-
-function tooManyStrata(columns: string[]): RowdeckError {
-  return new RowdeckError(
-    'ERR_OPTION',
-    `--stratify ${columns.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
-    { column: columns.join(',') },
-  );
 }
 
 /** What the main thread sends a profile worker. */
@@ -723,10 +700,6 @@ interface Gathered {
   t0: number;
 }
 
-function compareKeys(a: string, b: string): number {
-  return a < b ? -1 : a > b ? 1 : 0;
-}
-
 function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
   // The first thread's tables are turned back into a table, and the others merged into it from
   // their serialised form: a wide input's tables are large.
@@ -748,16 +721,16 @@ function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
     const merged = new Map<string, number>();
     for (const r of g.results) for (const [k, n] of r.strata) merged.set(k, (merged.get(k) ?? 0) + n);
     if (merged.size > MAX_STRATA) throw tooManyStrata(o.stratify.map((s) => s.name));
-    keys = [...merged.keys()].sort(compareKeys);
+    keys = [...merged.keys()].sort(compareStratumKeys);
     counts = keys.map((k) => merged.get(k)!);
     const share = (n: number): number => (records > 0 ? n / records : 0);
     const byColumn = o.stratify.map((s, j) => {
       const marginal = new Map<string, number>();
       keys.forEach((k, i) => {
-        const part = k.split(TUPLE_SEP)[j]!;
+        const part = keyParts(k)[j]!;
         marginal.set(part, (marginal.get(part) ?? 0) + counts[i]!);
       });
-      const parts = [...marginal.keys()].sort(compareKeys);
+      const parts = [...marginal.keys()].sort(compareStratumKeys);
       return {
         column: s.bins > 0 ? `${s.name}:bins=${s.bins}` : s.name,
         values: parts.map((p) => ({ value: o.excludeValues ? null : stratumValues(p), count: marginal.get(p)!, share: share(marginal.get(p)!) })),
@@ -790,12 +763,9 @@ function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
   };
 }
 
-/** A class as messages name it: its values, or its position when values are excluded. */
+/** A class as messages name it (core/strata.ts); `index`: its place in strata.values, key order. */
 function describeClass(o: ResolvedProfileOptions, key: string, index: number): string {
-  // Positions follow the profile's value order (strata.values), as shuffle's "stratum #N".
-  if (o.excludeValues) return o.stratify.length === 1 ? `${o.stratify[0]!.name} class #${index + 1}` : `stratum #${index + 1}`;
-  const vals = stratumValues(key);
-  return o.stratify.map((s, j) => `${s.name}=${vals[j] === null ? '(missing)' : JSON.stringify(vals[j])}`).join(', ');
+  return describeStratum(o.stratify.map((s) => s.name), o.excludeValues ? null : stratumValues(key), index);
 }
 
 /**
@@ -891,7 +861,7 @@ function warnAboutStrata(o: ResolvedProfileOptions, keys: string[], counts: numb
   o.stratify.forEach((s, j) => {
     let missing = 0;
     keys.forEach((k, i) => {
-      if (k.split(TUPLE_SEP)[j] === MISSING_KEY) missing += counts[i]!;
+      if (keyParts(k)[j] === MISSING_KEY) missing += counts[i]!;
     });
     if (missing > 0) {
       out.push({

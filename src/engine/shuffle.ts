@@ -32,7 +32,8 @@ import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
-import { censusDir, scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
+import { censusDir, scatter, scatterTaskConfig, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
+import { describeStratum, keyOrderIndex, stratumValues } from '../core/strata.js';
 import type { BlockReply } from '../io/blocks.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { buildManifest, type Manifest, type PartRecord } from './manifest.js';
@@ -708,13 +709,6 @@ function headerBytes(sc: ScatterResult, o: ResolvedShuffleOptions, format: Input
   return Buffer.concat([h, Buffer.from(sc.schema.lineEnding, 'latin1')]);
 }
 
-function describeStratum(key: string, columns: string[], excludeValues: boolean, index: number): string {
-  if (excludeValues) return `stratum #${index + 1}`;
-  const vals = stratumValues(key);
-  if (columns.length === 0) return 'all records';
-  return columns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
-}
-
 function toleranceError(
   o: ResolvedShuffleOptions,
   worst: { deviation: number; unit: number; stratum: number; kind: 'part' | 'fold' },
@@ -725,7 +719,8 @@ function toleranceError(
   records: number,
 ): RowdeckError {
   const size = strataSizes[worst.stratum]!;
-  const what = describeStratum(strataKeys[worst.stratum]!, o.stratify.map((s) => s.name), o.excludeValues, worst.stratum);
+  // Named as the manifest would list it: its place among the strata in key order.
+  const what = describeStratum(o.stratify.map((s) => s.name), o.excludeValues ? null : stratumValues(strataKeys[worst.stratum]!), keyOrderIndex(strataKeys, worst.stratum));
   const unit =
     worst.kind === 'part'
       ? `part ${layout[worst.unit]!.path}`

@@ -16,22 +16,20 @@ import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
 import { maxDeviation } from '../core/balance.js';
-import { decodeLossless, encodeLossless } from '../core/raw-text.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { describeSystemError } from '../io/os-errors.js';
-import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
-import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
+import type { InputFormat, RecordBatch } from '../io/batch.js';
+import { ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
 import { DEALING_SCHEME } from '../core/deal.js';
 import { SpreadCheck } from '../core/spread.js';
 import type { PartOrder } from '../options.js';
-import { binLabel, binOf, binValueAt } from './quantiles.js';
-import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
+import { describeStratum, describeValues, keyBytes, keyOfValues, stratumKey, stratumValues, tupleKey, type KeyColumn, type KeyRange } from '../core/strata.js';
 import { resolveWorkerFile } from './shuffle.js';
 import { compareReplay, environmentFault, replayable, replayShuffle } from './replay.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -802,12 +800,6 @@ function safePath(p: string, field: string, path: string): void {
   }
 }
 
-function describeStratum(columns: string[], value: (string | null)[] | null, index: number): string {
-  if (value === null) return `stratum #${index + 1}`;
-  if (columns.length === 0) return 'all records';
-  return columns.map((c, i) => `${c}=${value[i] === null || value[i] === undefined ? '(missing)' : JSON.stringify(value[i])}`).join(', ');
-}
-
 function createReadPlan(m: Manifest): ReadPlan {
   const o = m.options as { format: InputFormat; delimiter: string | null; header: boolean; stratify: string[]; folds: number };
   const columns = m.strata.columns;
@@ -821,7 +813,7 @@ function createReadPlan(m: Manifest): ReadPlan {
   if (!withheld) {
     strataIndex = new Map();
     m.strata.values.forEach((v, i) => {
-      const key = (v.value ?? []).map((x) => (x === null ? MISSING_KEY : encodeLossless(x).toString('latin1'))).join(TUPLE_SEP);
+      const key = keyOfValues(v.value ?? []);
       strataIndex!.set(key, i);
     });
   }
@@ -848,26 +840,6 @@ function createReadPlan(m: Manifest): ReadPlan {
 
 // ---- reading records --------------------------------------------------------------------------
 
-/** Canonical stratum key of record i, built exactly as the scatter stage builds it. */
-function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): string {
-  let k = '';
-  for (let w = 0; w < plan.stratify.length; w++) {
-    const edges = plan.bins[w];
-    let part: string;
-    if (!edges) part = fieldKey(b, i, w);
-    else {
-      const v = binValueAt(b, i, w, plan.stratify[w]!, file);
-      part = v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
-    }
-    k += (w ? TUPLE_SEP : '') + part;
-  }
-  return k;
-}
-
-function labelOfKey(plan: ReadPlan, key: string): string {
-  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : decodeLossless(Buffer.from(v, 'latin1'))));
-  return describeStratum(plan.stratify, vals, -1);
-}
 
 /** `grouped`: whether each group's records form one run (a group seen again after others breaks it). */
 class GroupRuns {
@@ -882,9 +854,7 @@ class GroupRuns {
 }
 
 function labelOfGroup(plan: ReadPlan, key: string): string {
-  if (plan.excludeValues) return 'a group';
-  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
-  return plan.groupColumns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
+  return plan.excludeValues ? 'a group' : describeValues(plan.groupColumns, stratumValues(key));
 }
 
 const DIGIT_0 = 0x30;
@@ -1049,6 +1019,9 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
   const hasher = new RecordHasher();
   const nameBytes = Buffer.from(plan.foldColumn !== null ? `${JSON.stringify(plan.foldColumn)}:` : '', 'utf8');
   const fast = plan.strataIndex !== null && plan.stratify.length === 1 && plan.bins[0] === null ? new ByteIdTable() : null;
+  const range: KeyRange = { start: 0, end: 0 };
+  const keyColumns: KeyColumn[] = plan.stratify.map((name, w) => ({ name, edges: plan.bins[w] ?? null }));
+  const keySlots = keyColumns.map((_, w) => w);
   try {
     await readAll(Readable.from(hashStream(path, sink)), reader, (b) => {
       table?.addBatch(b, plan.stratify.length);
@@ -1073,29 +1046,26 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         hashes?.add(h[0]!, h[1]!);
         scan.records++;
         if (grouped && scan.orderBreak === null) {
-          let key = '';
-          for (let w = 0; w < plan.groupColumns.length; w++) key += (w ? TUPLE_SEP : '') + fieldKey(b, i, groupAt + w);
+          const key = tupleKey(b, i, groupAt, plan.groupColumns.length);
           if (!grouped.add(key)) scan.orderBreak = { line: b.line[i]!, expected: 'the records of a group next to each other', found: `${labelOfGroup(plan, key)} again, after other groups` };
         }
         if (fold >= 0) scan.folds[fold]!++;
         if (plan.strataIndex === null) continue;
         // A plain value of a single class column is looked up by its bytes (as stage 1 does);
         // anything else, or a value not seen yet, by its canonical key.
-        const byBytes = fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain;
-        const fs = byBytes ? b.fieldStart[i * b.wanted]! : 0;
-        const fe = byBytes ? b.fieldEnd[i * b.wanted]! : 0;
-        let st = byBytes ? fast.lookup(d, fs, fe) : -1;
+        const byBytes = fast !== null && keyBytes(b, i, 0, range);
+        let st = byBytes ? fast.lookup(d, range.start, range.end) : -1;
         if (st < 0) {
-          const key = stratumKey(plan, b, i, display);
+          const key = stratumKey(b, i, keySlots, keyColumns, display);
           st = plan.strataIndex.get(key) ?? -1;
           if (st < 0) {
-            const label = labelOfKey(plan, key);
+            const label = describeStratum(plan.stratify, stratumValues(key), -1);
             const u = scan.unknown.get(label);
             if (u) u.count++;
             else scan.unknown.set(label, { count: 1, line: b.line[i]! });
             continue;
           }
-          if (byBytes && fe > fs && fe - fs <= BYTE_KEY_LIMIT) fast.insert(d, fs, fe, st);
+          if (byBytes) fast.insert(d, range.start, range.end, st);
         }
         scan.strata[st]!++;
         if (fold >= 0) scan.foldStrata[fold * S + st]!++;

@@ -7,6 +7,7 @@
  * `balance.maxDeviation` with its sign kept (positive: the class is over-represented in the unit).
  * Empty units have no shares and count as no deviation, as the manifest counts them.
  */
+import { stratumLabel } from '../core/strata.js';
 import type { Manifest } from '../engine/manifest.js';
 
 export interface ClassInfo {
@@ -52,12 +53,9 @@ export interface ReportModel {
   worst: { unit: UnitInfo; classIndex: number; deviation: number } | null;
 }
 
-/** Label of class `s` of a manifest. */
+/** Label of class `s` of a manifest (core/strata.ts: stratumLabel). */
 export function classLabel(m: Manifest, s: number): string {
-  const v = m.strata.values[s];
-  if (!v || v.value === null) return `class ${s + 1}`;
-  if (m.strata.columns.length === 0) return 'all records';
-  return v.value.map((x) => (x === null ? '(missing)' : x)).join(' · ');
+  return stratumLabel(m.strata.values[s]?.value ?? null, s);
 }
 
 /** Signed relative deviation of a class's share in a unit from its share in the whole. */

@@ -6,6 +6,7 @@
 import { RowdeckError } from '../../errors.js';
 import { profile, type Profile, type ProfileClass, type ProfileOptions } from '../../engine/profile.js';
 import type { ColumnSummary } from '../../core/stats.js';
+import { stratumLabel } from '../../core/strata.js';
 import type { InputFormat } from '../../io/batch.js';
 import type { ProgressEvent } from '../../options.js';
 import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args.js';
@@ -120,9 +121,9 @@ export function drawBar(fraction: number, width = BAR_WIDTH): string {
   return bar === '' && fraction > 0 ? '▏' : bar;
 }
 
+/** A class's label (core/strata.ts), control characters shown as escapes. */
 function describeClassValue(c: ProfileClass, index: number): string {
-  if (c.value === null) return `class #${index + 1}`;
-  return c.value.map((x) => (x === null ? '(missing)' : showValue(x))).join(' · ');
+  return showValue(stratumLabel(c.value, index));
 }
 
 function renderClasses(title: string, classes: ProfileClass[]): string[] {
@@ -178,7 +179,7 @@ export function renderProfile(p: Profile): string[] {
       const s = p.strata.values[smallest];
       out.push(
         `Strata (${p.strata.columns.join(' × ')}): ${p.strata.values.length} combinations` +
-          (s ? `; the smallest, ${s.value === null ? `stratum #${smallest + 1}` : describeClassValue(s, smallest)}, has ${formatCount(s.count)} record${s.count === 1 ? '' : 's'}.` : '.'),
+          (s ? `; the smallest, ${describeClassValue(s, smallest)}, has ${formatCount(s.count)} record${s.count === 1 ? '' : 's'}.` : '.'),
       );
     }
   }
