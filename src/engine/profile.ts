@@ -22,7 +22,7 @@
  */
 import { statSync } from 'node:fs';
 import { availableParallelism } from 'node:os';
-import { maxDeviation, orderStrata } from '../core/balance.js';
+import { dealBalance, orderStrata, withinTolerance } from '../core/balance.js';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, type Secret } from '../core/hash.js';
 import { ByteIdTable } from '../core/byte-table.js';
@@ -777,22 +777,7 @@ export function predictDeviation(keys: string[], counts: number[], partitions: n
   const sizes = order.map((i) => counts[i]!);
   const deal: DealSpec = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions, folds };
   const table = buildDealTable(sizes, deal, seededStarts(secret, 1));
-  const cc = countCells(table); // [s * cells + cell], cell = partition * K + fold
-  const nS = sizes.length;
-  const cells = partitions * folds;
-  const partStrata = new Float64Array(partitions * nS);
-  const foldStrata = new Float64Array(folds * nS);
-  for (let s = 0; s < nS; s++) {
-    for (let c = 0; c < cells; c++) {
-      const n = cc[s * cells + c]!;
-      if (n === 0) continue;
-      partStrata[Math.floor(c / folds) * nS + s]! += n;
-      foldStrata[(c % folds) * nS + s]! += n;
-    }
-  }
-  const part = maxDeviation(partStrata, partitions, sizes);
-  const fold = folds > 1 ? maxDeviation(foldStrata, folds, sizes) : { deviation: 0, unit: -1, stratum: -1 };
-  const worst = fold.deviation > part.deviation ? { ...fold, kind: 'fold' as const } : { ...part, kind: 'part' as const };
+  const worst = dealBalance(countCells(table), sizes, { splits: 1, partitions, folds }, 'by-stratum');
   return { deviation: worst.deviation, stratum: worst.stratum < 0 ? -1 : order[worst.stratum]!, kind: worst.kind };
 }
 
@@ -832,9 +817,9 @@ function warnAboutStrata(o: ResolvedProfileOptions, keys: string[], counts: numb
   const K = o.folds;
   if ((P > 1 || K > 1) && keys.length * P * K <= 5_000_000) {
     const worst = predictDeviation(keys, counts, P, K, secret);
-    if (worst.deviation > o.tolerance + 1e-12) {
+    if (!withinTolerance(worst.deviation, o.tolerance)) {
       const budget = keys.length * K * P;
-      const fits = (p: number, k: number): boolean => predictDeviation(keys, counts, p, k, secret).deviation <= o.tolerance + 1e-12;
+      const fits = (p: number, k: number): boolean => withinTolerance(predictDeviation(keys, counts, p, k, secret).deviation, o.tolerance);
       const tries = Math.max(1, Math.min(200, Math.floor(20_000_000 / Math.max(1, budget))));
       const partitions = P > 1 ? findLargest(P - 1, 1, (p) => fits(p, K), tries) : null;
       const folds = K > 1 ? findLargest(K - 1, 2, (k) => fits(P, k), tries) : null;

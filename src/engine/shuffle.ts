@@ -19,7 +19,7 @@ import { stringify } from 'csv-stringify/sync';
 import pLimit from 'p-limit';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, Fingerprint } from '../core/hash.js';
-import { maxDeviation, orderStrata, placeGroups } from '../core/balance.js';
+import { dealBalance, orderStrata, placeGroups, withinTolerance, type BalanceWorst } from '../core/balance.js';
 import type { GroupTable, GroupTableData } from '../core/group-table.js';
 import { GroupTableBuilder, writeGroupsFile } from './group-census.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
@@ -399,23 +399,9 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     }
 
     // Tolerance: parts (files), and folds within each split.
-    const partStrata = new Float64Array(parts * nStrata);
-    for (let c = 0; c < cells; c++) for (let s = 0; s < nStrata; s++) partStrata[Math.floor(c / K) * nStrata + s]! += cellCounts[c * nStrata + s]!;
     const layout = partLayout(o, format);
-    const partDev = maxDeviation(partStrata, parts, strataSizes);
-    let foldDev = { deviation: 0, unit: -1, stratum: -1 };
-    if (K > 1) {
-      const S = deal.splits.length;
-      const foldStrata = new Float64Array(S * K * nStrata);
-      for (let c = 0; c < cells; c++) {
-        const split = Math.floor(c / (deal.partitions * K));
-        const f = c % K;
-        for (let s = 0; s < nStrata; s++) foldStrata[(split * K + f) * nStrata + s]! += cellCounts[c * nStrata + s]!;
-      }
-      foldDev = maxDeviation(foldStrata, S * K, strataSizes);
-    }
-    const worst = foldDev.deviation > partDev.deviation ? { ...foldDev, kind: 'fold' as const } : { ...partDev, kind: 'part' as const };
-    if (worst.deviation > o.tolerance + 1e-12) {
+    const worst = dealBalance(cellCounts, strataSizes, { splits: deal.splits.length, partitions: deal.partitions, folds: K });
+    if (!withinTolerance(worst.deviation, o.tolerance)) {
       throw toleranceError(o, worst, strataKeys, strataSizes, layout, deal, records);
     }
 
@@ -711,7 +697,7 @@ function headerBytes(sc: ScatterResult, o: ResolvedShuffleOptions, format: Input
 
 function toleranceError(
   o: ResolvedShuffleOptions,
-  worst: { deviation: number; unit: number; stratum: number; kind: 'part' | 'fold' },
+  worst: BalanceWorst,
   strataKeys: string[],
   strataSizes: number[],
   layout: PartInfo[],

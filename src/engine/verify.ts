@@ -15,7 +15,7 @@ import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
-import { maxDeviation } from '../core/balance.js';
+import { withinTolerance, worstDeviation } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
@@ -469,7 +469,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     const dev = computeMaxDeviation(parts, partStrata, foldStrata, plan);
     const note = fromFiles ? 'from the counts read from the files' : "from the manifest's counts";
     judge(M, 'balance', Math.abs(dev - m.balance.maxDeviation) <= 1e-12 ? [] : [{ item: 'maxDeviation', expected: m.balance.maxDeviation, found: dev }], note);
-    judge(M, 'tolerance', dev <= m.balance.tolerance + 1e-12 ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
+    judge(M, 'tolerance', withinTolerance(dev, m.balance.tolerance) ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
   }
 
   // ---- --against: the inputs hold exactly the output's records ----
@@ -654,21 +654,22 @@ function computeMaxDeviation(parts: PartRecord[], partStrata: number[][], foldSt
       totals[s]! += row[s] ?? 0;
     }
   });
-  let worst = maxDeviation(partCounts, P, totals).deviation;
   const K = plan.folds;
+  let folds: Float64Array | null = null;
+  let units = 0;
   if (K > 1) {
     // Folds are compared within each split: the split's partitions together.
     const splitOf = new Map<string | null, number>();
     for (const p of parts) if (!splitOf.has(p.split)) splitOf.set(p.split, splitOf.size);
-    const units = splitOf.size * K;
+    units = splitOf.size * K;
     const counts = new Float64Array(units * S);
     parts.forEach((p, k) => {
       const base = splitOf.get(p.split)! * K;
       for (let g = 0; g < K; g++) for (let s = 0; s < S; s++) counts[(base + g) * S + s]! += foldStrata[k]?.[g]?.[s] ?? 0;
     });
-    worst = Math.max(worst, maxDeviation(counts, units, totals).deviation);
+    folds = counts;
   }
-  return worst;
+  return worstDeviation(partCounts, P, folds, units, totals).deviation;
 }
 
 // ---- reading the manifest -------------------------------------------------------------------
