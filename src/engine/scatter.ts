@@ -228,9 +228,7 @@ export class ScatterTask {
         h = hashBytes(this.#secret, d, batch.fieldStart[gk]!, batch.fieldEnd[gk]!);
       } else if (groupSlot >= 0 || nKey > 0) {
         // Keys from column values: equal values, equal keys, wherever the record sits.
-        let text = '';
-        if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
-        else text = tupleKey(batch, i, nStrat, nKey);
+        const text = groupSlot >= 0 ? fieldKey(batch, i, groupSlot) : tupleKey(batch, i, nStrat, nKey);
         const kb = this.#keyBuf;
         const len = kb.write(text, 0, 'latin1');
         h = len < kb.length ? hashBytes(this.#secret, kb, 0, len) : hashBytes(this.#secret, Buffer.from(text, 'latin1'), 0, Buffer.byteLength(text, 'latin1'));
