@@ -29,7 +29,7 @@ import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
-import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
+import { optionName, optionSetting, resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { censusDir, scatter, scatterTaskConfig, stratumValues, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
@@ -165,14 +165,14 @@ function resolveSplitWeights(o: ResolvedShuffleOptions, records: number): DealSp
   const given = o.splits.reduce((a, s, i) => (i === o.restSplit ? a : a + s.weight), 0);
   if (o.restSplit >= 0) {
     if (given > records) {
-      throw new RowdeckError('ERR_SPLIT_SIZES', `--split asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
+      throw new RowdeckError('ERR_SPLIT_SIZES', `${optionName(o.surface, 'split')} asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
     }
     return o.splits.map((s, i) => (i === o.restSplit ? { name: s.name, weight: records - given } : s));
   }
   if (given !== records) {
     throw new RowdeckError(
       'ERR_SPLIT_SIZES',
-      `--split counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
+      `${optionName(o.surface, 'split')} counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
     );
   }
   return o.splits;
@@ -287,7 +287,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
           throw new RowdeckError(
             'ERR_OPTION',
-            `Invalid option "foldColumn": the input already has a column named "${o.foldColumn}". Name the added column otherwise with --fold-column NAME.`,
+            `Invalid option ${optionName(o.surface, 'foldColumn')}: the input already has a column named "${o.foldColumn}". Name the added column otherwise (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`,
             { option: 'foldColumn', column: o.foldColumn },
           );
         }
@@ -414,7 +414,8 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       foldDev = maxDeviation(foldStrata, S * K, strataSizes);
     }
     const worst = foldDev.deviation > partDev.deviation ? { ...foldDev, kind: 'fold' as const } : { ...partDev, kind: 'part' as const };
-    if (worst.deviation > o.tolerance + 1e-12) {
+    // Hash mode enforces no tolerance: its shares are what the keys give (reported, see the summary).
+    if (o.assign !== 'hash' && worst.deviation > o.tolerance + 1e-12) {
       throw toleranceError(o, worst, strataKeys, strataSizes, layout, deal, records);
     }
 
@@ -733,12 +734,12 @@ function toleranceError(
   const units = worst.kind === 'part' ? layout.length : deal.folds * deal.splits.length;
   const hints: string[] = [];
   if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} record${size === 1 ? '' : 's'} for ${units} ${worst.kind}s)`);
-  hints.push(`a looser --tolerance (≥ ${Math.ceil(worst.deviation * 100) / 100})`);
+  hints.push(`a looser tolerance (${optionSetting(o.surface, 'tolerance', String(Math.ceil(worst.deviation * 100) / 100))} or more)`);
   if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
   if (o.assign === 'group') hints.push('smaller or more groups');
   return new RowdeckError(
     'ERR_TOLERANCE',
-    `Cannot keep class ${what} (${size} of ${records} records) within --tolerance ${o.tolerance} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
+    `Cannot keep class ${what} (${size} of ${records} records) within ${optionSetting(o.surface, 'tolerance', String(o.tolerance))} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
     { stratum: what, count: size, deviation: worst.deviation, tolerance: o.tolerance },
   );
 }

@@ -29,7 +29,7 @@ import { RecordReader } from '../io/reader.js';
 import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
 import { DEALING_SCHEME } from '../core/deal.js';
 import { SpreadCheck } from '../core/spread.js';
-import type { PartOrder } from '../options.js';
+import { resolveVerifyOptions, type PartOrder, type VerifyOptions } from '../options.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
@@ -118,35 +118,7 @@ export interface VerifyReport {
   replay: { status: VerifyStatus; seed: string | null; note: string } | null;
 }
 
-export interface VerifyProgress {
-  stage: 'parts' | 'inputs' | 'differences' | 'replay';
-  /** Files done and in all. */
-  done: number;
-  total: number;
-  records: number;
-  elapsedMs: number;
-}
-
-export interface VerifyOptions {
-  /** Output folder written by shuffle (holds manifest.json). */
-  dir: string;
-  /** Inputs to compare with the output ('-' reads standard input). */
-  against?: string[];
-  /**
-   * With `against`: run the shuffle again from the manifest's seed and options over the inputs,
-   * writing nothing (only hashing), and check that it gives exactly these parts. Default true.
-   * Standard input or a pipe cannot be read twice: the replay is then skipped.
-   */
-  replay?: boolean;
-  /** Folder for the replay's spill (default: beside the checked folder). */
-  tempDir?: string;
-  onProgress?: (e: VerifyProgress) => void;
-  /**
-   * Worker threads that read parts side by side. Default: the number of cores (one thread for
-   * outputs under 32 MiB, where starting workers costs more than it saves); 0 or 1 reads them here.
-   */
-  threads?: number;
-}
+export type { VerifyOptions, VerifyProgress } from '../options.js';
 
 /** How to read the parts and inputs, and how to recognise each record's class, from the manifest. */
 interface ReadPlan {
@@ -280,7 +252,8 @@ class HashList {
 
 const hashKey = (hi: number, lo: number): string => `${hi}:${lo}`;
 
-export async function verify(options: VerifyOptions): Promise<VerifyReport> {
+export async function verify(given: VerifyOptions): Promise<VerifyReport> {
+  const options = resolveVerifyOptions(given);
   const t0 = Date.now();
   const dir = options.dir;
   const m = loadManifest(dir);
@@ -318,11 +291,12 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
     return s;
   };
-  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
+  // 0: the calling thread reads every part (as in shuffle and profile).
+  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 0));
   let scans: PartScan[];
   // With --stats: the parts' statistics merged, for the whole input's.
   let wholeStats: TableStats | null = null;
-  if (threads > 1) {
+  if (threads > 0) {
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
     // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
@@ -523,7 +497,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   if (options.against !== undefined) {
     const can = replayable(m);
     const R = '(replay)';
-    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: 'not asked for (replay: false)' };
+    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: `not asked for (${options.surface === 'cli' ? '--no-replay' : 'replay: false'})` };
     else if (!can.ok) replay = { status: 'skipped', seed: m.seed, note: can.why };
     else if (options.against.some((p) => isStreamInput(p))) replay = { status: 'skipped', seed: m.seed, note: 'standard input or a pipe can be read only once' };
     if (replay) skip(R, 'replay', replay.note);
@@ -534,6 +508,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
         replayed = await replayShuffle(m, options.against, dir, {
           ...(options.tempDir !== undefined ? { tempDir: options.tempDir } : {}),
           ...(options.threads !== undefined ? { threads: options.threads } : {}),
+          ...(options.memory !== undefined ? { memory: options.memory } : {}),
         });
       } catch (err) {
         const env = environmentFault(err);
