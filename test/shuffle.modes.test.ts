@@ -152,7 +152,7 @@ describe('--assign hash', () => {
   });
 
   it('counts cells while scattering: the manifest matches the files', async () => {
-    const m = await shuffle({ inputs: [input], out: join(dir, 'hash-split'), seed: 'hs', assign: 'hash', key: 'id', split: 'train=0.75,test=0.25', folds: 3, stratify: 'fault', tolerance: 2 });
+    const m = await shuffle({ inputs: [input], out: join(dir, 'hash-split'), seed: 'hs', assign: 'hash', key: 'id', split: 'train=0.75,test=0.25', folds: 3, stratify: 'fault' });
     for (const p of m.output.parts) {
       const { rows } = parseCsv(readPart(join(dir, 'hash-split', p.path)));
       expect(rows.length).toBe(p.records);

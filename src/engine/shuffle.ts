@@ -24,7 +24,8 @@ import type { GroupTable, GroupTableData } from '../core/group-table.js';
 import { GroupTableBuilder, writeGroupsFile } from './group-census.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
-import { detectFormat, estimateInputBytes, isStreamInput } from '../io/input.js';
+import { estimateInputBytes, isStreamInput } from '../io/input.js';
+import { chooseFormat } from '../io/sniff.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
@@ -210,7 +211,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   const timings: Record<string, number> = {};
   const hashOnly = how.sink === 'hash';
   checkInputs(o.inputs);
-  const format = o.format ?? detectFormat(o.inputs[0] === '-' ? 'stdin.csv' : o.inputs[0]!);
+  const format = await chooseFormat(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v));
   const secret = deriveSecret(o.seed);
   const cellSecret = deriveSecret(`${o.seed}\u0000cell`);
   const rankSecret = deriveSecret(`${o.seed}\u0000rank`);
