@@ -29,6 +29,7 @@ import { chooseFormat } from '../io/sniff.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
+import { groupSizeWarnings, unitSizes } from './size-check.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { optionName, optionSetting, resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { addCounts, censusBucket, type CensusTask, type GatherResult, type GatherTask } from './gather.js';
@@ -185,6 +186,8 @@ export interface ShuffleRun {
   out: string;
   /** The report written with `report: true` (in `out`), else null. */
   report: string | null;
+  /** Warnings about the result, each also told to `onNotice` (parts far from their sizes with `group`). */
+  warnings: string[];
 }
 
 /** Shuffles and deals the inputs; returns the manifest written to `out/manifest.json`. */
@@ -343,6 +346,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     let cellCounts: Float64Array;
     let groupsFile: string | null = null;
     let groupStarts: number[] | null = null;
+    let groupCount = 0;
     if (o.assign === 'exact') {
       cellCounts = countCells(table); // [s * cells + cell]
       cellCounts = transpose(cellCounts, nStrata, cells);
@@ -375,6 +379,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         census.close();
       }
       const n = groups.count;
+      groupCount = n;
       const { hi, lo, records, first } = groups;
       const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
       const cellWeight: number[] = [];
@@ -418,6 +423,16 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     // Hash mode enforces no tolerance: its shares are what the keys give (reported, see the summary).
     if (o.assign !== 'hash' && worst.deviation > o.tolerance + 1e-12) {
       throw toleranceError(o, worst, strataKeys, strataSizes, layout, deal, records);
+    }
+    // Whole groups: sizes follow the groups; said before anything is written (see size-check.ts).
+    const warnings: string[] = [];
+    if (o.assign === 'group') {
+      const cellTotals = new Float64Array(cells);
+      for (let c = 0; c < cells; c++) for (let s = 0; s < nStrata; s++) cellTotals[c]! += cellCounts[c * nStrata + s]!;
+      for (const w of groupSizeWarnings(unitSizes(cellTotals, deal, layout.map((p) => p.path)), groupCount, o.tolerance, optionSetting(o.surface, 'group', o.group!))) {
+        warnings.push(w);
+        o.onNotice?.(w);
+      }
     }
 
     const plan: GatherPlan = {
@@ -661,13 +676,13 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       ...(inputStats !== undefined ? { inputStats } : {}),
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
     });
-    if (stage === null) return { manifest, out, report: null };
+    if (stage === null) return { manifest, out, report: null, warnings };
     writeOutputFile(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', 'writing the manifest');
     // The report goes in before the commit, so a run that fails here leaves nothing behind.
     if (o.report) writeManifestReport(stage, manifest, basename(out));
     // Into place: never over anything that appeared meanwhile, the manifest last (see output-folder.ts).
     work.commit();
-    return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null };
+    return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null, warnings };
   } catch (err) {
     // A fault of the environment met anywhere above: coded, with its path and operation.
     throw codedSystemError(err);

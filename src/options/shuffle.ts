@@ -509,27 +509,28 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
   const o = readOptions(SHUFFLE_SPEC, options, surface) as Partial<ShuffleOptions> & Pick<ShuffleOptions, 'inputs' | 'out'>;
   const c = (key: keyof ShuffleOptions): Checker => checkerFor(surface, SHUFFLE_OPTIONS, key);
   const spell = (key: keyof ShuffleOptions): string => c(key).name(key);
+  const hash = c('assign').setting('assign', 'hash');
   const stratify = o.stratify === undefined ? [] : stratifyValue.check(o.stratify, c('stratify'));
   const key = o.key === undefined ? [] : columnsValue().check(o.key, c('key'));
   const group = o.group ?? null;
   const assign0 = o.assign ?? 'exact';
   if (assign0 === 'hash' && key.length === 0) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option ${spell('assign')}: "hash" needs ${spell('key')}, the columns a record's part follows from`, { option: 'key' });
+    throw new RowdeckError('ERR_OPTION', `Invalid option ${spell('assign')}: ${hash} needs ${spell('key')}, the columns a record's part follows from`, { option: 'key' });
   }
-  if (assign0 === 'hash' && group !== null) c('assign').fail(`"exact" with ${spell('group')} (groups are dealt as units)`, assign0);
+  if (assign0 === 'hash' && group !== null) c('assign').fail(`"exact" with ${spell('group')} (groups are dealt as units, not by key hash)`, assign0);
   if (assign0 === 'hash' && o.tolerance !== undefined) {
-    c('tolerance').fail(`no tolerance with ${spell('assign')} "hash" (a record's part follows from its key alone, so class shares are reported, not enforced)`, o.tolerance);
+    c('tolerance').fail(`no tolerance with ${hash} (a record's part follows from its key alone, so class shares are reported, not enforced)`, o.tolerance);
   }
   const order = o.order ?? 'random';
   if (order === 'grouped' && group === null && assign0 !== 'hash') {
-    c('order').fail(`"random" or "spread" without ${spell('group')} or ${spell('assign')} "hash" ("grouped" keeps the records of one group or key together: give ${spell('group')}, or ${spell('assign')} "hash" with ${spell('key')})`, order);
+    c('order').fail(`"random" or "spread" without ${spell('group')} or ${hash} ("grouped" keeps the records of one group or key together: give ${spell('group')}, or ${hash} with ${spell('key')})`, order);
   }
   if (order === 'spread' && stratify.length === 0) {
     c('order').fail(`"random" or "grouped" without ${spell('stratify')} ("spread" spreads every class evenly through each part: give ${spell('stratify')})`, order);
   }
   const { splits, counts, rest } = parseSplits(o.split, c('split'));
   if (assign0 === 'hash' && counts) {
-    c('split').fail(`fractions with ${spell('assign')} "hash" (its shares are approximate, so record counts cannot be met)`, o.split);
+    c('split').fail(`fractions with ${hash} (its shares are approximate, so record counts cannot be met)`, o.split);
   }
   const folds = o.folds ?? 1;
   if (o.foldColumn !== undefined && folds < 2) c('foldColumn').fail(`a name only with ${spell('folds')} (it names the fold column that adds)`, o.foldColumn);

@@ -36,6 +36,8 @@ export interface Checker {
   reject(message: string): never;
   /** Another option's name as the caller spells it. */
   name(key: string): string;
+  /** An option with a value as the caller writes it: `--assign hash` or `assign: "hash"`. */
+  setting(key: string, value: string): string;
 }
 
 export interface OptionDef<V> {
@@ -139,6 +141,7 @@ export function checkerFor(surface: Surface, table: OptionTable, key: string, wa
       throw new RowdeckError('ERR_OPTION', `Invalid option ${spellOption(surface, table, key)}: ${message}`, { option: key });
     },
     name: (k) => spellOption(surface, table, k),
+    setting: (k, value) => (surface === 'cli' ? `${spellOption(surface, table, k)} ${value}` : `${k}: ${JSON.stringify(value)}`),
   };
 }
 
