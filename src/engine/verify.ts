@@ -30,6 +30,7 @@ import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js'
 import { DEALING_SCHEME } from '../core/deal.js';
 import { SpreadCheck } from '../core/spread.js';
 import { resolveVerifyOptions, type PartOrder, type VerifyOptions } from '../options.js';
+import { misorderedInputs } from './input-order.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
 import { resolveWorkerFile } from './shuffle.js';
@@ -452,6 +453,7 @@ export async function verify(given: VerifyOptions): Promise<VerifyReport> {
 
   // ---- --against: the inputs hold exactly the output's records ----
   let against: VerifyAgainst | null = null;
+  let misordered: { expected: string; found: string } | null = null;
   if (options.against !== undefined) {
     const inputs = options.against;
     if (inputs.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
@@ -463,7 +465,10 @@ export async function verify(given: VerifyOptions): Promise<VerifyReport> {
     const A = '(inputs)';
     for (const e of read.errors) judge(e.file, 'readable', [{ expected: 'records the reader accepts', found: e.message }]);
     for (const h of read.headers) judge(h.file, 'header', same(JSON.stringify(plan.columns), JSON.stringify(h.columns)));
-    if (inputs.length === m.input.files.length) {
+    misordered = misorderedInputs(inputs, m.input.files, read.perFile);
+    if (misordered) {
+      judge(A, 'input order', [{ item: 'the order matters: give the inputs in the order the manifest lists them', expected: misordered.expected, found: misordered.found }]);
+    } else if (inputs.length === m.input.files.length) {
       read.perFile.forEach((n, k) => judge(nameInput(inputs[k]!), 'records', same(m.input.files[k]!.records, n)));
     } else {
       judge(A, 'records', same(m.input.records, read.records), `${inputs.length} input(s) given, the manifest lists ${m.input.files.length}`);
@@ -502,6 +507,7 @@ export async function verify(given: VerifyOptions): Promise<VerifyReport> {
     if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: `not asked for (${options.surface === 'cli' ? '--no-replay' : 'replay: false'})` };
     else if (!can.ok) replay = { status: 'skipped', seed: m.seed, note: can.why };
     else if (options.against.some((p) => isStreamInput(p))) replay = { status: 'skipped', seed: m.seed, note: 'standard input or a pipe can be read only once' };
+    else if (misordered) replay = { status: 'skipped', seed: m.seed, note: `the inputs are given in another order than the manifest's (${misordered.expected}), and the order decides where each record goes` };
     if (replay) skip(R, 'replay', replay.note);
     else {
       options.onProgress?.({ stage: 'replay', done: 0, total: 1, records: 0, elapsedMs: Date.now() - t0 });
@@ -659,13 +665,14 @@ export function loadManifest(dir: string): Manifest {
     text = readFileSync(path, 'utf8');
   } catch (err) {
     const code = (err as NodeJS.ErrnoException).code;
-    let folder = true;
+    let kind: 'folder' | 'other' | 'missing' = 'missing';
     try {
-      folder = statSync(dir).isDirectory();
+      kind = statSync(dir).isDirectory() ? 'folder' : 'other';
     } catch {
-      folder = false;
+      // Not there (or not reachable): said below.
     }
-    if (!folder) throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
+    if (kind === 'other') throw new RowdeckError('ERR_MANIFEST', `${dir}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`, { file: dir });
+    if (kind === 'missing') throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
     if (code === 'ENOENT') {
       throw new RowdeckError('ERR_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
     }

@@ -5,6 +5,7 @@
 
 import { FieldKind } from './batch.js';
 import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRecord } from './batch.js';
+import { rejectReason } from './reject-reason.js';
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
 import { structuralScanner, WalkStop, type StructuralScanner } from './structural.js';
@@ -518,7 +519,7 @@ export class RecordReader {
       throw new RowdeckError(code, `${where(file, line, column)}: ${msg}`, { file, line, column });
     }
     this.stats.rejected++;
-    onReject?.({ file, line, code, reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+    onReject?.({ file, line, code, reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
   }
 
   /**
@@ -1114,7 +1115,7 @@ export class RecordReader {
     const { file, onBadRecord, onReject } = this.opts;
     if (onBadRecord === 'fail') throw new RowdeckError('ERR_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
     this.stats.rejected++;
-    onReject?.({ file, line, code: 'ERR_INVALID_JSON', reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+    onReject?.({ file, line, code: 'ERR_INVALID_JSON', reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
   }
 
   /** Finds the raw value tokens of the wanted top-level keys in one valid JSON object at `i`. */
