@@ -17,7 +17,7 @@ import {
   withHelp,
 } from './input.js';
 import { DEFAULT_TOLERANCE, SHUFFLE_OPTIONS, stratifyValue, type StratifyColumn } from './shuffle.js';
-import { checkerFor, choiceValue, functionValue, readOptions, surfaceOf, type Checker, type CommandSpec, type OptionDef, type Surface } from './spec.js';
+import { checkerFor, functionValue, readOptions, surfaceOf, type Checker, type CommandSpec, type OptionDef, type Surface } from './spec.js';
 
 export interface ProfileProgress {
   stage: 'bins' | 'read';
@@ -98,8 +98,9 @@ export const PROFILE_OPTIONS = {
     cli: { flag: 'on-bad-record', arg: 'MODE' },
     section: P,
     help: ['fail (default), or skip: count malformed records, list the first 20'],
+    text: true,
     // Profile writes no files: there is nowhere to quarantine to.
-    ...choiceValue(['fail', 'skip'] as const),
+    check: (v: unknown, c: Checker) => (v === 'fail' || v === 'skip' ? v : c.fail('"fail" or "skip" (profile writes no files, so there is nowhere to quarantine to; skipped records are counted and the first ones listed)', v)),
   },
   excludeValues: withHelp(excludeValuesOption, ['leave data values (min/max, frequent values, class names) out'], P),
   onProgress: { cli: null, ...functionValue<(e: ProfileProgress) => void>() },

@@ -533,7 +533,7 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
     c('split').fail(`fractions with ${hash} (its shares are approximate, so record counts cannot be met)`, o.split);
   }
   const folds = o.folds ?? 1;
-  if (o.foldColumn !== undefined && folds < 2) c('foldColumn').fail(`a name only with ${spell('folds')} (it names the fold column that adds)`, o.foldColumn);
+  if (o.foldColumn !== undefined && folds < 2) c('foldColumn').fail(`a name only together with ${spell('folds')} (it names the column the folds add)`, o.foldColumn);
   return {
     inputs: o.inputs,
     out: o.out,

@@ -114,6 +114,8 @@ export function showGot(v: unknown, surface: Surface, wantText = false): string 
   if (typeof v === 'string') return surface === 'cli' || wantText ? JSON.stringify(v) : `${JSON.stringify(v)} (a string)`;
   if (typeof v === 'function') return 'a function';
   if (typeof v === 'number' || typeof v === 'boolean' || v === null || typeof v === 'bigint') return String(v);
+  // On the command line a list is the arguments as typed.
+  if (surface === 'cli' && Array.isArray(v) && v.every((x) => typeof x === 'string')) return v.map((x: string) => JSON.stringify(x)).join(' ');
   let text: string;
   try {
     text = JSON.stringify(v) ?? String(v);
@@ -171,14 +173,14 @@ export function surfaceOf(o: unknown): Surface {
  * know (ERR_UNKNOWN_OPTION, with the closest name); every required key there (ERR_MISSING_ARGUMENT);
  * each value given through its option's check. Returns the checked values (absent ones left out).
  */
-export function readOptions(spec: CommandSpec, o: unknown, surface: Surface = surfaceOf(o)): Record<string, unknown> {
+export function readOptions(spec: CommandSpec, o: unknown, surface: Surface = surfaceOf(o), positional: readonly string[] = []): Record<string, unknown> {
   const { table } = spec;
   if (typeof o !== 'object' || o === null || Array.isArray(o)) {
     throw new RowdeckError('ERR_OPTION', `Invalid options of ${commandName(spec, surface)}: expected an object, got ${showGot(o, surface)}`, { option: null });
   }
   const given = o as Record<string, unknown>;
   for (const key of Object.keys(given)) {
-    if (!Object.hasOwn(table, key)) throw unknownOption(spec, key, surface);
+    if (!Object.hasOwn(table, key)) throw unknownOption(spec, key, surface, positional);
   }
   const out: Record<string, unknown> = {};
   for (const [key, def] of Object.entries(table)) {
@@ -200,14 +202,20 @@ export function missingOption(spec: CommandSpec, key: string, surface: Surface):
   return new RowdeckError('ERR_MISSING_ARGUMENT', `${commandName(spec, surface)} needs ${article}${shown}, ${def.required}.`, { option: key });
 }
 
-export function unknownOption(spec: CommandSpec, key: string, surface: Surface): RowdeckError {
-  const known = surface === 'cli' ? cliFlags(spec) : Object.keys(spec.table);
+/**
+ * An option the command does not take, with the closest one where there is one that close;
+ * otherwise the command line points to --help and the library lists its keys.
+ * `exclude`: keys that are not options in the library (writeReport's folder is its first argument).
+ */
+export function unknownOption(spec: CommandSpec, key: string, surface: Surface, exclude: readonly string[] = []): RowdeckError {
+  const known = surface === 'cli' ? cliFlags(spec) : Object.keys(spec.table).filter((k) => !exclude.includes(k));
   const typed = surface === 'cli' ? key.replace(/^-+/, '') : key;
   const near = closest(typed, known);
   const shown = surface === 'cli' ? key : `"${key}"`;
-  const hint = near !== null ? ` Did you mean ${surface === 'cli' ? `--${near}` : `"${near}"`}?` : '';
-  const list = surface === 'cli' ? ` See ${commandName(spec, surface)} --help.` : ` ${commandName(spec, surface)} takes: ${known.join(', ')}.`;
-  return new RowdeckError('ERR_UNKNOWN_OPTION', `Unknown option ${shown} for ${commandName(spec, surface)}.${hint}${list}`, { option: key, ...(near !== null ? { suggestion: near } : {}) });
+  const name = commandName(spec, surface);
+  const hint = near !== null ? ` Did you mean ${surface === 'cli' ? `--${near}` : `"${near}"`}?` : surface === 'library' ? ` It takes: ${known.join(', ')}.` : '';
+  const help = surface === 'cli' ? ` See ${name} --help.` : '';
+  return new RowdeckError('ERR_UNKNOWN_OPTION', `Unknown option ${shown} for ${name}.${hint}${help}`, { option: key, ...(near !== null ? { suggestion: near } : {}) });
 }
 
 /** Every flag of a command (without the dashes), library options first. */

@@ -163,6 +163,6 @@ export function resolveReportOptions(dir: string, options: ReportOptions = {}): 
   if (typeof options === 'object' && options !== null && Object.hasOwn(options, 'dir')) {
     throw new RowdeckError('ERR_UNKNOWN_OPTION', `Unknown option "dir" for writeReport(): the folder is its first argument, writeReport(dir, options).`, { option: 'dir' });
   }
-  const o = readOptions(REPORT_SPEC, typeof options === 'object' && options !== null ? { ...options, dir } : options, surface) as unknown as ResolvedReportOptions;
+  const o = readOptions(REPORT_SPEC, typeof options === 'object' && options !== null ? { ...options, dir } : options, surface, ['dir']) as unknown as ResolvedReportOptions;
   return { ...o, surface };
 }
