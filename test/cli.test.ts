@@ -241,6 +241,27 @@ describe('a successful run', () => {
   });
 });
 
+describe('warnings and what the summary says was kept to', () => {
+  it('--group with fewer groups than parts: a warning line before the summary, the sizes achieved after it', () => {
+    // Three fault classes as groups over eight partitions: five parts get none.
+    const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-few-groups', '--partitions', '8', '--group', 'fault', '--seed', 'g', '--threads', '0']);
+    expect(r.status, r.stderr).toBe(0);
+    const lines = r.stderr.trimEnd().split('\n');
+    expect(lines[0]).toMatch(/^rowdeck: warning: --group fault: 3 groups for 8 parts: 5 parts get no records \(part-\d{5}\.csv, part-\d{5}\.csv, part-\d{5}\.csv, …\); part sizes run from 0 to \d+ records against a target of 38 each/);
+    expect(lines[1]).toMatch(/^rowdeck: 300 records -> 8 part\(s\) in .*, whole groups of "fault"\)\.$/);
+    expect(lines[2]).toMatch(/^rowdeck: part sizes 0 to \d+ records \(target 38 each\): whole groups are dealt, so sizes follow them\.$/);
+    // --quiet keeps the warning: it is about the result.
+    const q = runCli(['shuffle', 'readings.csv', '--out', 'ok-few-groups-q', '--partitions', '8', '--group', 'fault', '--seed', 'g', '--threads', '0', '--quiet']);
+    expect(q.stderr.trimEnd().split('\n')).toEqual([lines[0]]);
+  });
+
+  it('stratified exact dealing: the classes are kept within --tolerance, said with the deviation', () => {
+    const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-kept', '--partitions', '3', '--stratify', 'fault', '--tolerance', '0.2', '--seed', 'k', '--threads', '0']);
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stderr).toMatch(/, classes within --tolerance 0\.2: max class deviation \d+\.\d\d%\)\.\n$/);
+  });
+});
+
 describe('terminal behaviour', () => {
   // util-linux `script` runs the command on a pseudo-terminal; skipped where it is missing.
   const probe = spawnSync('script', ['--version'], { encoding: 'utf8' });
@@ -267,5 +288,45 @@ describe('terminal behaviour', () => {
     expect(stderr).not.toMatch(/\n\s+at /);
     expect(stderr).not.toMatch(/EPIPE|internal error/);
     expect(code).toBe(0);
+  });
+});
+
+describe('interrupted', () => {
+  /**
+   * Runs `args` reading a standard input that never ends, sends SIGINT after `delay` ms, and
+   * returns stderr and how the process ended. A signal that lands before the command has started
+   * (node still loading) ends it silently: tried again with a longer wait.
+   */
+  async function interrupt(args: string[]): Promise<{ stderr: string; signal: NodeJS.Signals | null }> {
+    let last = { stderr: '', signal: null as NodeJS.Signals | null };
+    for (const delay of [1000, 2500, 6000]) {
+      const child = spawn(process.execPath, [CLI, ...args], { cwd: dir, stdio: ['pipe', 'ignore', 'pipe'] });
+      // A first line, so the command is past its start and waiting for more of standard input.
+      child.stdin.write('reading_id,fault\n1,none\n');
+      let stderr = '';
+      child.stderr.setEncoding('utf8');
+      child.stderr.on('data', (s: string) => (stderr += s));
+      await new Promise((res) => setTimeout(res, delay));
+      child.kill('SIGINT');
+      const signal = await new Promise<NodeJS.Signals | null>((res) => child.on('close', (_c, sig) => res(sig)));
+      child.stdin.destroy();
+      last = { stderr, signal };
+      if (stderr !== '') break;
+    }
+    return last;
+  }
+
+  it('Ctrl-C (SIGINT) during profile prints one line and ends by the signal', async () => {
+    const r = await interrupt(['profile', '-', '--format', 'csv']);
+    expect(r.stderr).toBe('rowdeck: profile stopped by SIGINT.\n');
+    expect(r.signal).toBe('SIGINT');
+  });
+
+  it('during shuffle, the line of its own cleanup, once', async () => {
+    const r = await interrupt(['shuffle', '-', '--format', 'csv', '--out', 'never-interrupted', '--threads', '0']);
+    expect(r.stderr).toMatch(/^rowdeck: stopped by SIGINT; removed \S+\.rowdeck-spill-/);
+    expect(r.stderr.trimEnd().split('\n')).toHaveLength(1);
+    expect(r.signal).toBe('SIGINT');
+    expect(leftovers()).toEqual([]);
   });
 });

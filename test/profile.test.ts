@@ -426,6 +426,21 @@ describe('independent of the thread count', () => {
   });
 });
 
+describe('distinct values', () => {
+  it('an estimate is never more than the values counted, and is marked approximate (~)', async () => {
+    // 50,000 different ids: past the exact table (1,000 values) the distinct count is estimated;
+    // for these values the estimate itself comes to 50,566, more than there are values.
+    const file = join(dir, 'ids.csv');
+    writeFileSync(file, `id\n${Array.from({ length: 50000 }, (_, i) => `S${i}`).join('\n')}\n`);
+    const [c] = (await profile({ inputs: [file], threads: 0 })).columns;
+    expect(c!.approximate).toBe(true);
+    expect(c!.count).toBe(50000);
+    expect(c!.distinct).toBe(50000);
+    const text = runCli(['profile', file]);
+    expect(text.stdout).toMatch(/^id\s+text\s+50,000\s+0\s+~50,000\s/m);
+  });
+});
+
 describe('warnings', () => {
   // 97 'ok' and 3 'rare' records.
   let file: string;

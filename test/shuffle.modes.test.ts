@@ -8,7 +8,8 @@ import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { shuffle, verify } from '../src/index.js';
+import { runShuffle, shuffle, verify } from '../src/index.js';
+import { formatShuffleSummary } from '../src/cli/summary.js';
 import { binValueAt, selectRanks } from '../src/engine/quantiles.js';
 import { FieldKind, type RecordBatch } from '../src/io/batch.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
@@ -165,6 +166,25 @@ describe('--assign hash', () => {
     const report = await verify({ dir: join(dir, 'hash-split') });
     expect(report.ok).toBe(true);
   });
+
+  it('enforces no tolerance: a small input whose hashed shares stray far still runs, and the summary says what was kept', async () => {
+    // 60 readings, 6 of the rare class, over 4 parts by key hash: the rare class cannot land
+    // near a quarter in every part (1.5 records each), so the deviation is far above 0.5.
+    const rows = Array.from({ length: 60 }, (_, i) => `${i},${i % 10 === 0 ? 'dead' : 'ok'}`);
+    const file = join(dir, 'small-hash.csv');
+    writeFileSync(file, `id,fault\n${rows.join('\n')}\n`);
+    const out = join(dir, 'small-hash');
+    const m = await shuffle({ inputs: [file], out, seed: 'tiny', partitions: 4, assign: 'hash', key: 'id', stratify: 'fault' });
+    expect(m.balance.maxDeviation).toBeGreaterThan(m.balance.tolerance);
+    const r = await verify({ dir: out });
+    expect(r.ok).toBe(true);
+    expect(r.checks.find((c) => c.file === 'manifest.json' && c.check === 'tolerance')).toMatchObject({ status: 'skipped' });
+    const summary = formatShuffleSummary(m, { width: 100, out, report: null, table: false });
+    expect(summary[0]).toContain(', parts by key hash, class shares reported, not enforced: max class deviation ');
+    expect(summary[1]).toMatch(/^rowdeck: part sizes \d+ to \d+ records \(target 15 each\): what the key hash gives, not dealt exactly\.$/);
+    // A tolerance asked for with hash would be a promise not kept: refused.
+    await expect(shuffle({ inputs: [file], out: join(dir, 'hash-tol'), partitions: 4, assign: 'hash', key: 'id', tolerance: 0.5 })).rejects.toMatchObject({ code: 'ERR_OPTION', details: { option: 'tolerance' } });
+  });
 });
 
 describe('formats', () => {
@@ -253,6 +273,60 @@ describe('--on-bad-record', () => {
     expect(rows.length).toBe(m.input.rejected);
     expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'ERR_FIELD_COUNT']);
     expect(rows[0]![4]).toBe('1,2,3');
+    // The reason says what was wrong, not to pass the option that put it there.
+    expect(rows[0]![3]).toMatch(/^record has 3 fields, the header has 6\. Quote fields that contain .*\.$/);
+    for (const r of rows) expect(r[3]).not.toContain('--on-bad-record');
+    for (const r of rows) expect(r[3]).toMatch(/\.$/);
+  });
+});
+
+describe('--group with fewer or lumpier groups than parts', () => {
+  /** Six sites of very unequal size: 1,200 readings over 8 partitions and 2 folds. */
+  const lumpy = (): string => {
+    const sites = [['north', 500], ['south', 300], ['east', 200], ['west', 100], ['ridge', 60], ['bend', 40]] as const;
+    const rows: string[] = [];
+    let id = 0;
+    for (const [site, n] of sites) for (let k = 0; k < n; k++) rows.push(`${id++},${site},${k % 4 === 0 ? 'drift' : 'ok'}`);
+    return `id,site,fault\n${rows.join('\n')}\n`;
+  };
+
+  it('warns before writing, with the sizes achieved, and still writes a correct output', async () => {
+    const file = join(dir, 'lumpy.csv');
+    writeFileSync(file, lumpy());
+    const notices: string[] = [];
+    const out = join(dir, 'lumpy');
+    const run = await runShuffle({ inputs: [file], out, seed: 'sites', partitions: 8, folds: 2, group: 'site', onNotice: (t) => notices.push(t) });
+    const m = run.manifest;
+    const sizes = m.output.parts.map((p) => p.records);
+    // Six groups for eight parts: at least two parts are empty, and the warning says which.
+    const empty = m.output.parts.filter((p) => p.records === 0).map((p) => p.path);
+    expect(empty.length).toBeGreaterThanOrEqual(2);
+    expect(run.warnings).toEqual(notices);
+    const partWarning = notices.find((t) => t.includes(' parts: '))!;
+    expect(partWarning).toContain(`warning: group "site": 6 groups for 8 parts: ${empty.length} parts get no records (${empty.slice(0, 3).join(', ')}${empty.length > 3 ? ', …' : ''}); `);
+    expect(partWarning).toContain(`part sizes run from 0 to ${Math.max(...sizes).toLocaleString('en-US')} records against a target of 150 each`);
+    expect(partWarning).toContain('more than the tolerance 0.5');
+    // The folds: warned about exactly when one strays past the tolerance (or is empty).
+    const folds = [0, 1].map((f) => m.output.parts.reduce((a, p) => a + p.folds![f]!, 0));
+    const foldWarning = notices.find((t) => t.includes(' folds: '));
+    if (Math.max(...folds.map((n) => Math.abs(n - 600) / 600)) > 0.5) {
+      expect(foldWarning).toContain(`fold sizes run from ${Math.min(...folds)} to ${Math.max(...folds)} records against a target of 600 each`);
+    } else expect(foldWarning).toBeUndefined();
+    // The summary reports the sizes achieved; without --stratify, no class deviation.
+    const summary = formatShuffleSummary(m, { width: 100, out, report: null, table: false });
+    expect(summary[0]).toContain('whole groups of "site"');
+    expect(summary[0]).not.toMatch(/deviation/);
+    expect(summary[1]).toBe(`rowdeck: part sizes 0 to ${Math.max(...sizes).toLocaleString('en-US')} records (target 150 each); fold sizes ${Math.min(...folds)} to ${Math.max(...folds)} records (target 600 each): whole groups are dealt, so sizes follow them.`);
+    // Correct all the same: every record once, each site whole.
+    expect(m.output.records).toBe(1200);
+    expect((await verify({ dir: out })).ok).toBe(true);
+  });
+
+  it('says nothing where the groups fill the parts evenly enough', async () => {
+    const notices: string[] = [];
+    const run = await runShuffle({ inputs: [input], out: join(dir, 'even-groups'), seed: 'g', partitions: 2, group: 'sensor', onNotice: (t) => notices.push(t) });
+    expect(run.warnings).toEqual([]);
+    expect(notices).toEqual([]);
   });
 });
 

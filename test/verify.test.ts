@@ -553,6 +553,17 @@ describe('damage is found and named', () => {
     const r1 = await verify({ dir: out, against: [a] });
     expect([r1.against!.differences!.missing, r1.against!.differences!.extra]).toEqual([0, 1800]);
     expect(r1.against!.differences!.listed.length).toBe(20);
+    // The same inputs in the other order: the order decides where records went, so it fails,
+    // saying so and giving the manifest's order; the replay (which would fail for it) is skipped.
+    const swapped = await verify({ dir: out, against: [b, a] });
+    expect(swapped.ok).toBe(false);
+    expect(swapped.mismatches).toEqual([
+      { file: '(inputs)', check: 'input order', item: 'the order matters: give the inputs in the order the manifest lists them', expected: `${a} ${b}`, found: `${b} ${a}` },
+    ]);
+    expect(swapped.replay).toMatchObject({ status: 'skipped', note: `the inputs are given in another order than the manifest's (${a} ${b}), and the order decides where each record goes` });
+    const cli = runCli(['verify', out, '--against', b, a]);
+    expect(cli.status).toBe(1);
+    expect(cli.stderr).toContain(`(inputs): input order (the order matters: give the inputs in the order the manifest lists them): expected ${a} ${b}, found ${b} ${a}`);
   });
 });
 
@@ -565,6 +576,12 @@ describe('unusable folders and usage', () => {
       expect(cli.status).toBe(1);
       expect(cli.stderr).toMatch(/ERR_MANIFEST: .*manifest\.json: no such file\. Give the folder rowdeck shuffle wrote/);
       await expect(verify({ dir: join(empty, 'nope') })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('no such folder') });
+      // A file (the manifest itself, say) given as DIR: not a folder, rather than "no such folder".
+      writeFileSync(join(empty, 'manifest.json'), '{}');
+      await expect(verify({ dir: join(empty, 'manifest.json') })).rejects.toMatchObject({
+        code: 'ERR_MANIFEST',
+        message: `${join(empty, 'manifest.json')}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`,
+      });
     } finally {
       removeDir(empty);
     }

@@ -1,7 +1,8 @@
 /**
  * The command line of a command, read by its option table (src/options/): `--name value`,
  * `--name=value`, switches, `--no-…` for options that default to on, `--against a b c` (every
- * argument up to the next option), `--` ending the options, `-h`. Values become the library's
+ * argument up to the next option), `--` ending the options, `-h`; an option given again replaces
+ * its value (so a script can append an override). Values become the library's
  * types here (numbers, true/false) and are checked by the library's resolver, which spells every
  * message with the flags: the options object is marked as the command line's.
  */
@@ -38,7 +39,6 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
   const options: Record<string, unknown> = {};
   const own: Record<string, string | true> = {};
   const positionals: string[] = [];
-  const seen = new Map<string, string>();
   const usage = (flag: string, message: string): RowdeckError => new RowdeckError('ERR_OPTION', `Invalid option --${flag}: ${message}`, { option: flag });
 
   for (let i = 0; i < argv.length; i++) {
@@ -81,9 +81,6 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
       const hint = next !== undefined ? ` (a value that starts with - is given as --${name}=${next})` : '';
       throw usage(name, `expected ${flag.arg} after it, got ${next !== undefined ? JSON.stringify(next) : 'nothing'}${hint}`);
     }
-    const shown = flag.arg !== undefined ? JSON.stringify(values.join(' ')) : 'once';
-    if (seen.has(name) && !multiple) throw usage(name, `given twice (${seen.get(name)}, then ${flag.arg !== undefined ? shown : 'again'}); give it once`);
-    seen.set(name, shown);
     if (flag.kind === 'own') {
       own[flag.own] = flag.arg !== undefined ? values[0]! : true;
       continue;

@@ -33,7 +33,7 @@ import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type Bloc
 import { WorkerLanes } from '../workers/lanes.js';
 import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
 import { DEFAULT_SEED, optionSetting, resolveProfileOptions, type ProfileOptions, type ResolvedProfileOptions } from '../options.js';
-import { chooseFormat } from '../io/sniff.js';
+import { chooseFormats } from '../io/sniff.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
 import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
@@ -412,8 +412,9 @@ function readerOptions(o: ResolvedProfileOptions, k: number, wanted: string[], e
 
 export async function profile(options: ProfileOptions): Promise<Profile> {
   const o = resolveProfileOptions(options);
-  // One format for every input, as a shuffle of them would read them (see io/sniff.ts).
-  o.format = await chooseFormat(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v), 'profile');
+  // The inputs' format, as a shuffle of them would read them (see io/sniff.ts); inputs named
+  // as different formats are each read as their name says (null).
+  o.format = await chooseFormats(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v), 'profile', true);
   const t0 = Date.now();
   const secret = deriveSecret(DEFAULT_SEED);
   // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.

@@ -429,7 +429,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     if (o.assign === 'group') {
       const cellTotals = new Float64Array(cells);
       for (let c = 0; c < cells; c++) for (let s = 0; s < nStrata; s++) cellTotals[c]! += cellCounts[c * nStrata + s]!;
-      for (const w of groupSizeWarnings(unitSizes(cellTotals, deal, layout.map((p) => p.path)), groupCount, o.tolerance, optionSetting(o.surface, 'group', o.group!))) {
+      for (const w of groupSizeWarnings(unitSizes(cellTotals, deal, layout.map((p) => p.path)), groupCount, o.tolerance, o.surface === 'cli' ? `--group ${o.group!}` : `group ${JSON.stringify(o.group)}`)) {
         warnings.push(w);
         o.onNotice?.(w);
       }

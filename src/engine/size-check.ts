@@ -53,7 +53,7 @@ function count(n: number): string {
 /**
  * The warnings of a group run: one line for parts and one for folds whose sizes stray from their
  * targets by more than `tolerance`, or that get no records. `group` is the option as the caller
- * spells it with its value (`--group sensor`).
+ * spells it with its value (`--group sensor`, `group "sensor"`).
  */
 export function groupSizeWarnings(sizes: { parts: UnitSize[]; folds: UnitSize[] }, groups: number, tolerance: number, group: string): string[] {
   const out: string[] = [];

@@ -39,11 +39,22 @@ interface PeekedStdin {
 
 let peeked: PeekedStdin | null = null;
 
-/** The first bytes of standard input (at least `want`, or all of it), kept for openInput. */
+/**
+ * The first bytes of standard input, kept for openInput: up to `want`, or less once they hold a
+ * first line (plain text; gzip is read on to `want` or its end), so a slow writer is not waited
+ * for longer than its first line.
+ */
 async function peekStdin(want: number): Promise<Buffer> {
   if (!peeked) peeked = { chunks: [], done: false, it: process.stdin[Symbol.asyncIterator]() as AsyncIterator<Buffer | string> };
   let have = peeked.chunks.reduce((a, b) => a + b.length, 0);
-  while (!peeked.done && have < want) {
+  const enough = (): boolean => {
+    if (have >= want) return true;
+    const head = Buffer.concat(peeked!.chunks);
+    if (head.length < 2 || isGzip(head)) return false;
+    const start = head.findIndex((b) => b !== 0x0a && b !== 0x0d && b !== 0x20 && b !== 0x09);
+    return start >= 0 && head.indexOf(0x0a, start) >= 0;
+  };
+  while (!peeked.done && !enough()) {
     const r = await peeked.it.next();
     if (r.done) {
       peeked.done = true;
@@ -195,6 +206,22 @@ async function inspect(path: string, explicit: InputFormat | null, option: (valu
  * names the command in suggested command lines.
  */
 export async function chooseFormat(inputs: readonly string[], explicit: InputFormat | null, option: (value: string) => string, command = 'shuffle'): Promise<InputFormat> {
+  const got = await chooseFormats(inputs, explicit, option, command, false);
+  return got!;
+}
+
+/**
+ * As chooseFormat, for a command that reads each input in its own format (profile): inputs whose
+ * names all say a format may differ (null: each by its name); the format is still one where any
+ * is told by its bytes, since only names are known to every reader.
+ */
+export async function chooseFormats(
+  inputs: readonly string[],
+  explicit: InputFormat | null,
+  option: (value: string) => string,
+  command: string,
+  mixedByName: boolean,
+): Promise<InputFormat | null> {
   const kinds: InputKind[] = [];
   for (const path of inputs) kinds.push(await inspect(path, explicit, explicit !== null ? () => option(explicit) : option, command));
   if (explicit !== null) return explicit;
@@ -210,6 +237,7 @@ export async function chooseFormat(inputs: readonly string[], explicit: InputFor
   const first = known[0];
   if (!first) return 'csv'; // nothing to read: the reader says so
   const other = known.find((k) => k.format !== first.format);
+  if (other && mixedByName && kinds.every((k) => k.by === 'name')) return null;
   if (other) {
     const how = (k: InputKind): string => `${k.shown} is ${FORMAT_NAMES[k.format!]} (${k.by === 'name' ? 'by its name' : 'by its first bytes'})`;
     throw formatError(
