@@ -83,7 +83,7 @@ Examples:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--threads N] [--json] [--quiet]
+  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--memory SIZE] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, the order-independent
