@@ -113,6 +113,19 @@ describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', (
   }
 });
 
+describe('the fold column already there: named as the command line names it', () => {
+  it.each([
+    ['a CSV header', 'fold-taken.csv', 'reading_id,fold\n1,a\n2,b\n', 'Invalid option --fold-column: the input already has a column named "fold". Name the added column otherwise (--fold-column NAME).'],
+    ['a JSON Lines record (found by the reader)', 'fold-taken.jsonl', '{"id":1}\n{"id":2,"fold":0}\n', 'fold-taken.jsonl:2: this record already has a key "fold", the name of the fold column the output adds (it would hold two). Name the fold column otherwise (--fold-column NAME).'],
+  ])('%s', (_what, name, text, message) => {
+    writeFileSync(join(dir, name), text);
+    const r = runCli(['shuffle', name, '--out', 'out-fold', '--folds', '2', '--threads', '0']);
+    expect(r.status).toBe(2);
+    expect(r.stderr).toBe(`rowdeck: error ERR_OPTION: ${message}\nRun with --help for usage.\n`);
+    expect(leftovers()).toEqual([]);
+  });
+});
+
 describe('data errors exit 1 and leave no output folder', () => {
   it('a missing input file', () => {
     const r = runCli(['shuffle', 'no-such-readings.csv', '--out', 'out-d1', '--seed', 's']);

@@ -131,7 +131,7 @@ describe('one format for the run', () => {
       () => null,
       (e: Error) => e,
     );
-    expect(err?.message).toContain('Pass format: jsonl if it is');
+    expect(err?.message).toContain('Pass format: "jsonl" if it is');
     expect(readdirSync(dir)).not.toContain('never');
   });
 

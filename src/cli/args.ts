@@ -7,7 +7,7 @@
  * message with the flags: the options object is marked as the command line's.
  */
 import { RowdeckError } from '../errors.js';
-import { checkerFor, cliFlags, commandName, fromCommandLine, spellOption, unknownOption, type CommandSpec, type OptionDef } from '../options.js';
+import { checkerFor, commandName, fromCommandLine, spellOption, unknownOption, type CommandSpec, type OptionDef } from '../options.js';
 
 export interface CommandLine {
   /** The library's options, marked as the command line's (see fromCommandLine). */
@@ -106,5 +106,3 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
   return { options: fromCommandLine(options), own };
 }
 
-/** Every flag a command accepts, for the help test and completion. */
-export { cliFlags };

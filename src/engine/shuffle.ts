@@ -684,6 +684,11 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     work.commit();
     return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null, warnings };
   } catch (err) {
+    // A JSON Lines record with the fold column's key: the reader does not know how the caller
+    // names the option; said here.
+    if (err instanceof RowdeckError && err.code === 'ERR_OPTION' && err.details.option === 'foldColumn' && err.message.endsWith('otherwise.')) {
+      throw new RowdeckError(err.code, `${err.message.slice(0, -1)} (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`, err.details);
+    }
     // A fault of the environment met anywhere above: coded, with its path and operation.
     throw codedSystemError(err);
   } finally {

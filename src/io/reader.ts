@@ -1106,7 +1106,8 @@ export class RecordReader {
     const { file, refuseKey } = this.opts;
     throw new RowdeckError(
       'ERR_OPTION',
-      `${where(file, line)}: Invalid option "foldColumn": this record already has a key "${refuseKey}", the fold column the output adds (it would hold two). Name the added column otherwise with --fold-column NAME.`,
+      // The option is named by the run, as its caller spells it (see shuffle.ts).
+      `${where(file, line)}: this record already has a key "${refuseKey}", the name of the fold column the output adds (it would hold two). Name the fold column otherwise.`,
       { file, line, option: 'foldColumn', column: refuseKey },
     );
   }

@@ -98,9 +98,10 @@ export function optionName(surface: Surface, key: string): string {
   return surface === 'library' ? `"${key}"` : `--${kebab(key)}`;
 }
 
-/** An option with a value, as the caller would write it: `--tolerance 0.6` or `tolerance: 0.6`. */
+/** An option with a value, as the caller would write it: `--format jsonl` or `format: "jsonl"` (numbers bare: `tolerance: 0.6`). */
 export function optionSetting(surface: Surface, key: string, value: string): string {
-  return surface === 'library' ? `${key}: ${value}` : `--${kebab(key)} ${value}`;
+  if (surface === 'cli') return `--${kebab(key)} ${value}`;
+  return `${key}: ${/^-?\d+(?:\.\d+)?$/.test(value) ? value : JSON.stringify(value)}`;
 }
 
 /** `onBadRecord` -> `on-bad-record`. */
