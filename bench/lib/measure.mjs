@@ -58,13 +58,13 @@ export function parseGnuTime(text) {
  * Runs argv once and measures it. `sync` first (when asked), so that no run pays for the writeback
  * of the one before it. stdout goes to /dev/null; stderr is kept for errors.
  */
-export function measure(argv, { tools, scratch, sync = true, env }) {
+export function measure(argv, { tools, scratch, sync = true }) {
   if (sync && tools.sync) spawnSync('sync');
   const timeFile = join(scratch, 'gnu-time.txt');
   const wrapped = ['sh', '-c', WRAP, 'sh', ...argv];
   const full = tools.gnuTime ? [GNU_TIME, '-o', timeFile, '-f', TIME_FORMAT, ...wrapped] : wrapped;
   const t0 = process.hrtime.bigint();
-  const r = spawnSync(full[0], full.slice(1), { stdio: ['ignore', 'ignore', 'pipe', 'pipe'], encoding: 'utf8', maxBuffer: 1 << 26, env: env ?? process.env });
+  const r = spawnSync(full[0], full.slice(1), { stdio: ['ignore', 'ignore', 'pipe', 'pipe'], encoding: 'utf8', maxBuffer: 1 << 26 });
   const wallS = Number(process.hrtime.bigint() - t0) / 1e9;
   let time = null;
   if (tools.gnuTime && existsSync(timeFile)) {

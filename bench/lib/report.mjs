@@ -24,7 +24,8 @@ export function casesTable(rows, { withBuild }) {
 export function figuresTable(values) {
   const goal = (v) => (v.max !== null ? `≤ ${v.max}` : v.atLeast !== null ? `≥ ${v.atLeast}` : '');
   const met = (v) => (v.met === null ? '' : v.met ? 'met' : '**not met**');
-  const lines = values.map((v) => `| ${v.text} | ${fix(v.value)} | ${v.fromMin === null ? '' : fix(v.fromMin)} | ${goal(v)} | ${met(v)} |`);
+  const num = (x) => fix(x, Math.abs(x) >= 100 ? 0 : 2);
+  const lines = values.map((v) => `| ${v.text} | ${num(v.value)} | ${v.fromMin === null ? '' : num(v.fromMin)} | ${goal(v)} | ${met(v)} |`);
   return ['| figure (same run) | value (medians) | from the minimums | goal | |', '|---|---|---|---|---|', ...lines].join('\n');
 }
 
