@@ -13,6 +13,8 @@ import { detectTools, measure, parseGnuTime, parseProcIo } from '../bench/lib/me
 import { median, schedule, summarize } from '../bench/lib/plan.mjs';
 // @ts-expect-error: a plain ES module without types
 import { budgetHolding, cases, GiB } from '../bench/cases.mjs';
+// @ts-expect-error: a plain ES module without types
+import { mergeLatest, writeDocSection } from '../bench/lib/report.mjs';
 
 const dir = mkdtempSync(join(tmpdir(), 'rowdeck-bench-harness-'));
 afterAll(() => rmSync(dir, { recursive: true, force: true }));
@@ -82,6 +84,25 @@ describe('the scale inputs', () => {
     expect(budgetHolding(1e9)).toBe(2 * GiB);
     expect(budgetHolding(4e9)).toBe(8 * GiB);
     expect(budgetHolding(1e8)).toBe(GiB);
+  });
+});
+
+describe('where the results go', () => {
+  it('replaces only the text between a group\'s markers, and appends a section where they are missing', () => {
+    const doc = join(dir, 'doc.md');
+    writeFileSync(doc, '# B\n\nbefore\n<!-- g:start -->\nold\n<!-- g:end -->\nafter\n');
+    writeDocSection(doc, 'g', 'G', 'new');
+    expect(readFileSync(doc, 'utf8')).toBe('# B\n\nbefore\n<!-- g:start -->\nnew\n<!-- g:end -->\nafter\n');
+    writeDocSection(doc, 'h', 'H', 'more');
+    expect(readFileSync(doc, 'utf8')).toBe('# B\n\nbefore\n<!-- g:start -->\nnew\n<!-- g:end -->\nafter\n\n## H\n\n<!-- h:start -->\nmore\n<!-- h:end -->\n');
+  });
+
+  it('keeps the other groups in latest.json, and a file of the one-run shape as the core group', () => {
+    const path = join(dir, 'latest.json');
+    writeFileSync(path, JSON.stringify({ machine: { commit: 'old' }, results: {} }));
+    mergeLatest(path, 'scale', { runs: 3 });
+    mergeLatest(path, 'scale', { runs: 2 });
+    expect(JSON.parse(readFileSync(path, 'utf8'))).toEqual({ groups: { core: { machine: { commit: 'old' }, results: {} }, scale: { runs: 2 } } });
   });
 });
 
