@@ -10,6 +10,12 @@ export function machineLine(m) {
   return `${m.cpu}, ${m.cores} cores, ${m.memoryGiB} GiB; Linux ${m.kernel}; Node ${m.node}${builds}; ${m.date.slice(0, 10)}; load average at the start ${m.loadAverage.join(' / ')}${m.loadAverageEnd ? `, at the end ${m.loadAverageEnd.join(' / ')}` : ''}`;
 }
 
+/** A sentence when other work shared the machine (load average above its core count), else ''. */
+export function busyNote(m) {
+  const load = Math.max(m.loadAverage[0], ...(m.loadAverageEnd ?? []).slice(0, 1));
+  return load > m.cores ? `Other work shared the machine (load average up to ${load} on ${m.cores} cores): wall times spread, so compare ratios within this run only.` : '';
+}
+
 /** The table of cases (one row per case and build). */
 export function casesTable(rows, { withBuild }) {
   const head = `| case |${withBuild ? ' build |' : ''} input MB | budget | runs | wall s min | median | max | MB/s | user s | sys s | peak RSS MiB | written MB | buckets |`;
