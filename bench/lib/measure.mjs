@@ -13,7 +13,7 @@
 import { spawnSync } from 'node:child_process';
 import { existsSync, readFileSync, rmSync, statfsSync } from 'node:fs';
 import { cpus, loadavg, release, totalmem } from 'node:os';
-import { join } from 'node:path';
+import { join, relative } from 'node:path';
 
 const GNU_TIME = '/usr/bin/time';
 const TIME_FORMAT = 'gnutime %e %U %S %M %O %F %R %c %w';
@@ -123,7 +123,7 @@ export function machineInfo(root, builds) {
     node: process.version,
     kernel: release(),
     commit: commitOf(root),
-    builds: builds.map((b) => ({ label: b.label, cli: b.cli, commit: commitOf(b.dir) })),
+    builds: builds.map((b) => ({ label: b.label, cli: relative(root, b.cli), commit: commitOf(b.dir) })),
     loadAverage: loadavg().map((x) => Math.round(x * 100) / 100),
     gnuTime: timeVersion.status === 0 ? timeVersion.stdout.split('\n')[0] || timeVersion.stderr.split('\n')[0] : null,
     date: new Date().toISOString(),

@@ -5,7 +5,7 @@
 // calls and bytes). For telling where system time goes; see "Where system time goes at 4 GB" in
 // docs/benchmarks.md.
 //   node bench/micro/kernel-counts.mjs [--no-sync] -- node dist/cli/main.js shuffle FILE --out DIR …
-import { spawn } from 'node:child_process';
+import { spawn, spawnSync } from 'node:child_process';
 import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
@@ -28,7 +28,7 @@ const COUNTERS = [
 const tools = detectTools();
 const scratch = mkdtempSync(join(tmpdir(), 'rowdeck-kernel-counts-'));
 // sync first (as the benchmark does), then the "before" snapshot.
-if (sync) measure(['sync'], { tools, scratch, sync: false });
+if (sync) spawnSync('sync');
 const before = vmstat();
 // measure() blocks this thread, so a child samples the dirty and writeback figures.
 const sampler = spawn(process.execPath, ['-e', `
