@@ -8,6 +8,12 @@ Usage:
   rowdeck verify DIR [--against INPUT...]        check an output folder against its manifest
   rowdeck report DIR [--verify]                  write DIR/report.html: the result as charts
 
+Past one machine (the same shuffle as tasks under a batch scheduler, same bytes):
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [shuffle options]
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+  rowdeck finish WORK                            join the parts, write the manifest
+  rowdeck status WORK                            which tasks are done, failed, to run
+
 Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' reads stdin.
 The same seed and inputs give the same bytes, whatever the thread count or memory budget.
 
@@ -223,4 +229,88 @@ Examples:
   rowdeck report parts --verify
   rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --report
   xdg-open "$(rowdeck report parts)"
+`;
+
+export const PLAN_HELP = `rowdeck plan — cut a shuffle into tasks for a batch scheduler (Slurm, Kubernetes, …)
+
+Usage:
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [--gather-tasks M] [shuffle options]
+
+Checks the inputs and options exactly as rowdeck shuffle does (same errors, before any work) and
+writes, into WORK (a new folder on a file system every node sees at the same path):
+  WORK/plan.json        the plan: inputs (size and time, checked by every task), options, tasks
+  WORK/slurm.sh         submits the stages as Slurm array jobs chained by afterok:
+                          sh WORK/slurm.sh [sbatch options, e.g. --partition=batch]
+  WORK/kubernetes.yaml  one Indexed Job per stage, and the order to apply them in
+
+The stages: N scatter tasks (stage 1 over the inputs: small files whole, large plain files as
+byte ranges, a gzip file whole), one deal task (checks the scatter tasks fit together, counts and
+places groups, the tolerance check), M gather tasks (stage 2 over ranges of buckets), and finish
+(joins the parts, writes the manifest, puts DIR into place). Tasks share nothing but WORK; each
+may be killed and run again, or run twice at once. The output is byte for byte what
+rowdeck shuffle gives with the same inputs, seed and options.
+
+Options (besides every option of rowdeck shuffle but --temp-dir: the spill goes in WORK):
+  --work WORK             the work folder (new or empty); it needs about 2.3x the input free
+  --tasks N               scatter tasks (fewer when the inputs cannot be cut so: a gzip file is
+                          read whole by one task)
+  --gather-tasks M        gather tasks (default N; at most the bucket count)
+  --threads T             threads of each task (default: this machine's cores); Slurm asks for
+                          T CPUs and the memory budget plus 512 MiB a task
+  --image NAME            the container image of kubernetes.yaml (default node:20-bookworm); it
+                          must run this rowdeck at the path the plan names
+  --claim NAME            the ReadWriteMany PersistentVolumeClaim holding the inputs, WORK and DIR
+                          (default rowdeck-shared)
+  --mount-path PATH       where the pods mount it (default /)
+  --json                  print the plan on stdout
+
+Standard input and pipes are refused: every task must be able to read its inputs from a file.
+Quantile bins (COL:bins=Q) are computed here, with one pass over the inputs.
+
+Example:
+  rowdeck plan /shared/logs/*.csv --out /shared/parts --work /shared/work-2026 --tasks 100 \\
+    --partitions 64 --stratify fault --seed 2026
+  sh /shared/work-2026/slurm.sh --partition=batch
+`;
+
+export const TASK_HELP = `rowdeck task — run one task of a plan
+
+Usage:
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+
+Without --index the task's number comes from the scheduler: SLURM_ARRAY_TASK_ID (Slurm),
+JOB_COMPLETION_INDEX (Kubernetes Indexed Jobs), AWS_BATCH_JOB_ARRAY_INDEX (AWS Batch),
+PBS_ARRAY_INDEX (PBS), or SGE_TASK_ID (Grid Engine) and LSB_JOBINDEX (LSF), which count from 1.
+The deal stage has one task. A task that is already done does nothing; one killed or run twice
+at once leaves nothing half-written (it works in a private folder and moves it into place).
+
+Options:
+  --stage S   scatter, deal or gather
+  --index I   the task's number, from 0
+  --quiet     no line on stderr when done
+`;
+
+export const FINISH_HELP = `rowdeck finish — join a plan's parts and write the output
+
+Usage:
+  rowdeck finish WORK [--keep-work] [--json]
+
+Checks that every task of the plan is done and was written for this plan (naming any missing or
+failed one with the command that runs it), joins the gather tasks' parts in order, writes the
+manifest (its run section lists every task's host and times), puts the output folder into place
+at once, and removes WORK.
+
+Options:
+  --keep-work   keep WORK afterwards
+  --json        print the manifest on stdout
+  --quiet       no summary line on stderr
+`;
+
+export const STATUS_HELP = `rowdeck status — a plan's tasks: done, failed, started, not started
+
+Usage:
+  rowdeck status WORK [--json]
+
+Reads WORK only. For each stage: how many tasks are done; each task that is not, with its state
+(failed, with the error; started: a run in progress, or one killed); and what to run next.
 `;

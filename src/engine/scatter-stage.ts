@@ -64,6 +64,17 @@ export interface ScatterStageInput {
   spillDir: string;
   /** When the run started, for progress. */
   t0: number;
+  /**
+   * A cluster's scatter task: only these slices of the inputs, with the bin edges the plan
+   * computed; refused records to `onReject` (with the slice told by `onSliceStart`).
+   */
+  task?: {
+    slices: NonNullable<ScatterOptions['slices']>;
+    expectedColumns?: { columns: string[]; from: string };
+    binEdges: BinEdges[];
+    onReject?: (r: RejectedRecord) => void;
+    onSliceStart?: (index: number) => void;
+  };
 }
 
 export interface ScatterStage {
@@ -86,9 +97,9 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
   const rejects = new Rejects(o.onBadRecord === 'quarantine');
 
   // Quantile bins need their edges before any record can be given a stratum.
-  let binEdges: BinEdges[] = [];
+  let binEdges: BinEdges[] = i.task?.binEdges ?? [];
   const binCols = o.stratify.filter((c) => c.bins > 0);
-  if (binCols.length > 0) {
+  if (binCols.length > 0 && !i.task) {
     binEdges = await computeBinEdges({
       inputs: o.inputs,
       format,
@@ -111,7 +122,7 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
     delimiter: o.delimiter ?? undefined,
     header: o.header,
     onBadRecord: o.onBadRecord,
-    onReject: o.onBadRecord === 'fail' ? undefined : (r) => rejects.add(r),
+    onReject: o.onBadRecord === 'fail' ? undefined : (i.task?.onReject ?? ((r) => rejects.add(r))),
     stratify: o.stratify.map((s) => s.name),
     bins: o.stratify.map((s) => binEdges.find((b) => b.column === s.name && s.bins > 0)?.edges ?? null),
     key: o.key,
@@ -137,6 +148,7 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
     // The census buckets hold a quarter as many records as the spill's, 24 bytes each.
     cellKeyInHeader: cellKeyInHeader ? { censusBits: o.assign === 'group' ? Math.max(0, size.bits - 2) : null, censusBufferBytes: size.bufferBytes } : null,
     onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
+    ...(i.task ? { slices: i.task.slices, ...(i.task.expectedColumns ? { expectedColumns: i.task.expectedColumns } : {}), ...(i.task.onSliceStart ? { onSliceStart: i.task.onSliceStart } : {}) } : {}),
   };
   // The same threads do every step (shuffle-worker.ts): started here, kept for the next ones.
   let lanes: ShuffleLanes | null = null;

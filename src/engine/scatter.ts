@@ -98,6 +98,8 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   slices?: { slice: InputSlice; schema: InputSchema | null }[];
   /** With slices: the first input's columns, that every other input's header must match. */
   expectedColumns?: { columns: string[]; from: string };
+  /** With slices: told before each slice is read (its index), so refused records can be told apart by slice. */
+  onSliceStart?: (index: number) => void;
 }
 
 /** What one scatter task returns; plain data (posted from a worker). */
@@ -562,6 +564,14 @@ export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 't
   };
 }
 
+/**
+ * Worker data for lanes that will not scatter (a plan's deal, gather and finish steps start the
+ * same worker entry): no inputs, one bucket of a small buffer, `spillDir` where plan.json is.
+ */
+export function idleScatterConfig(spillDir: string): Omit<ScatterTaskConfig, 'task'> {
+  return { inputs: [], stratify: [], bins: [], key: [], group: null, secret: [0, 0, 0, 0], spillDir, bits: 0, bufferBytes: 4096, hashCells: null, cellKeyInHeader: null };
+}
+
 /** The census spill's folder, inside the spill folder. */
 export function censusDir(spillDir: string): string {
   return join(spillDir, 'census');
@@ -644,10 +654,28 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     if (o.slices) {
       expected = o.expectedColumns;
       const reads: SliceRead[] = [];
-      for (const { slice, schema: known } of o.slices) {
+      for (const [j, { slice, schema: known }] of o.slices.entries()) {
         const k = slice.input;
         const read: SliceRead = { start: 0, end: 0, lines: 0, records: 0, bytes: 0, rejected: 0 };
-        for await (const { batch, schema: sch } of readSlice(o.inputs[k]!, slice, readerOptions(k), known, read)) await send(batch, k, sch);
+        o.onSliceStart?.(j);
+        try {
+          if (slice.start === 0 && slice.end < 0) {
+            // A whole input (gzip too): read as always; its line count matters to no slice after it.
+            for await (const { batch, schema: sch, stats } of readInput(o.inputs[k]!, readerOptions(k))) {
+              await send(batch, k, sch);
+              read.records += batch.count;
+              read.bytes = stats.bytes;
+              read.rejected = stats.rejected;
+            }
+            read.end = read.bytes;
+          } else {
+            for await (const { batch, schema: sch } of readSlice(o.inputs[k]!, slice, readerOptions(k), known, read)) await send(batch, k, sch);
+          }
+        } catch (err) {
+          // Which slice stopped: its line numbers count from its own start.
+          if (err instanceof RowdeckError) err.details.slice = j;
+          throw err;
+        }
         const seen = inputs[k]!;
         seen.records += read.records;
         seen.bytes += read.bytes;
@@ -663,7 +691,9 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         results = await lanes!.finish();
       }
       const censusBits = o.cellKeyInHeader?.censusBits ?? null;
-      return { ...mergeScatterResults(results, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits), slices: reads, results };
+      // The merge adds into the first task's count arrays: the results handed back keep their own.
+      const copies = results.map((r) => ({ ...r, bucketCounts: r.bucketCounts.map((a) => a.slice()) }));
+      return { ...mergeScatterResults(copies, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits), slices: reads, results };
     }
     await readInputs(
       o.inputs.length,

@@ -143,3 +143,23 @@ export async function* readSlice(path: string, slice: InputSlice, ro: RecordRead
     stream.destroy();
   }
 }
+
+/**
+ * An input's schema (header, delimiter, line ending; JSON Lines: the first object's keys), from its
+ * head: what a slice from the middle of it reads its records with.
+ */
+export async function headSchema(path: string, ro: RecordReaderOptions): Promise<InputSchema> {
+  const reader = new RecordReader(ro);
+  const stream = createReadStream(path, { highWaterMark: 1 << 16 });
+  try {
+    for await (const chunk of stream as AsyncIterable<Buffer>) {
+      reader.push(chunk);
+      if (reader.schema) return reader.schema;
+    }
+    reader.end();
+  } finally {
+    stream.destroy();
+  }
+  if (!reader.schema) throw new Error(`internal: ${path} has no schema`);
+  return reader.schema;
+}
