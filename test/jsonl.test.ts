@@ -1,8 +1,7 @@
 /**
- * The JSON Lines check in WebAssembly (src/io/jsonl.ts): its sources are in step; on lines made
- * by hand from RFC 8259's grammar and on many mutated random lines it takes exactly the lines
- * JSON.parse (ECMA-262, the reference here) reads as one object, and finds the same values of
- * the wanted keys as the reader's JavaScript path; and the reader gives the same records, fields,
+ * The JSON Lines check in WebAssembly (src/io/jsonl.ts): on lines made by hand from RFC 8259's
+ * grammar and on many mutated random lines it takes exactly the lines JSON.parse (ECMA-262, the
+ * reference here) reads as one object, and finds the same values of the wanted keys as the reader's JavaScript path; and the reader gives the same records, fields,
  * lines and refusals (with their messages) with it as without it.
  */
 import { readFileSync, writeFileSync } from 'node:fs';
@@ -13,23 +12,11 @@ import seedrandom from 'seedrandom';
 import { shuffle, type Manifest } from '../src/index.js';
 import { makeTempDir, removeDir } from './helpers/engine.js';
 import { JsonlCheck, JsonlChecker, MAX_DEPTH, useJsonlCheck } from '../src/io/jsonl.js';
-import { JSONL_WASM_BASE64 } from '../src/io/jsonl-wasm.js';
 import { readAll } from './reader.helpers.js';
-// @ts-expect-error: a plain ES module without types
-import { assemble, wat } from '../scripts/jsonl-wasm.mjs';
 
 afterAll(() => useJsonlCheck(true));
 /** ROWDECK_JSONL=js runs the suite through JSON.parse alone: the module's own tests skip. */
 const moduleOff = process.env.ROWDECK_JSONL === 'js';
-
-describe('sources', () => {
-  it('jsonl.wat and the embedded module are what scripts/jsonl-wasm.mjs makes', async () => {
-    const text = (wat as () => string)();
-    expect(readFileSync(new URL('../src/io/jsonl.wat', import.meta.url), 'utf8')).toBe(text);
-    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
-    expect(Buffer.from(JSONL_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
-  });
-});
 
 /** JSON.parse's verdict: is the line one JSON object? */
 function parsesAsObject(line: Buffer): boolean {

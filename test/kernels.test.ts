@@ -1,51 +1,20 @@
 /**
  * The WebAssembly kernels of the two stages: stage 1's appends to the bucket buffers
- * (BucketWriter in src/engine/spill.ts) and stage 2's key-order copy (src/engine/gather-kernel.ts).
- * Their sources, and those of the statistics module and the sort (test/stats.kernel.test.ts and
- * test/sort.test.ts check what they compute), are in step; on synthetic data they write exactly the bytes the JavaScript paths
- * (or a plain concatenation) give and the fingerprints src/core/hash.ts computes; and whole
- * shuffles give the same bytes and manifests with them as without.
+ * (BucketWriter in src/engine/spill.ts) and stage 2's key-order copy (src/engine/gather-kernel.ts):
+ * on synthetic data they write exactly the bytes the JavaScript paths (or a plain concatenation)
+ * give and the fingerprints src/core/hash.ts computes; and whole shuffles give the same bytes and
+ * manifests with them as without. (test/wasm.test.ts checks that every module's files are what its
+ * script makes; test/stats.kernel.test.ts and test/sort.test.ts what those two modules compute.)
  */
 import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { GATHER_WASM_BASE64 } from '../src/engine/gather-wasm.js';
 import { gatherKernel } from '../src/engine/gather-kernel.js';
 import { Fingerprint, hashWords3 } from '../src/core/hash.js';
 import type { RecordBatch } from '../src/io/batch.js';
 import { BucketWriter, HEADER_BYTES, QUEUE, spillFileName } from '../src/engine/spill.js';
-import { SPILL_WASM_BASE64 } from '../src/engine/spill-wasm.js';
 import { shuffle, type Manifest } from '../src/index.js';
 import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
-// @ts-expect-error: a plain ES module without types
-import * as gatherScript from '../scripts/gather-wasm.mjs';
-// @ts-expect-error: a plain ES module without types
-import * as spillScript from '../scripts/spill-wasm.mjs';
-// @ts-expect-error: a plain ES module without types
-import * as statsScript from '../scripts/stats-wasm.mjs';
-import { STATS_WASM_BASE64 } from '../src/core/stats-wasm.js';
-// @ts-expect-error: a plain ES module without types
-import * as sortScript from '../scripts/sort-wasm.mjs';
-import { SORT_WASM_BASE64 } from '../src/core/sort-wasm.js';
-
-interface ModuleScript {
-  wat(): string;
-  assemble(text: string): Promise<Buffer>;
-}
-
-describe('sources', () => {
-  it.each([
-    ['engine/gather', gatherScript as ModuleScript, GATHER_WASM_BASE64],
-    ['engine/spill', spillScript as ModuleScript, SPILL_WASM_BASE64],
-    ['core/stats', statsScript as ModuleScript, STATS_WASM_BASE64],
-    ['core/sort', sortScript as ModuleScript, SORT_WASM_BASE64],
-  ])('src/%s.wat and the embedded module are what its script makes', async (name, script, base64) => {
-    const text = script.wat();
-    expect(readFileSync(new URL(`../src/${name}.wat`, import.meta.url), 'utf8')).toBe(text);
-    const bytes = await script.assemble(text);
-    expect(Buffer.from(base64, 'base64').equals(bytes)).toBe(true);
-  });
-});
 
 interface Synthetic {
   spill: Buffer;
