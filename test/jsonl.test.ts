@@ -13,10 +13,11 @@ import { shuffle, type Manifest } from '../src/index.js';
 import { makeTempDir, removeDir } from './helpers/engine.js';
 import { JsonlCheck, JsonlChecker, MAX_DEPTH, useJsonlCheck } from '../src/io/jsonl.js';
 import { readAll } from './reader.helpers.js';
+import { flags } from '../src/flags.js';
 
 afterAll(() => useJsonlCheck(true));
 /** ROWDECK_JSONL=js runs the suite through JSON.parse alone: the module's own tests skip. */
-const moduleOff = process.env.ROWDECK_JSONL === 'js';
+const moduleOff = flags.jsonl === 'js';
 
 /** JSON.parse's verdict: is the line one JSON object? */
 function parsesAsObject(line: Buffer): boolean {

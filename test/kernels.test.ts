@@ -14,6 +14,7 @@ import { Fingerprint, hashWords3 } from '../src/core/hash.js';
 import type { RecordBatch } from '../src/io/batch.js';
 import { BucketWriter, HEADER_BYTES, QUEUE, spillFileName } from '../src/engine/spill.js';
 import { shuffle, type Manifest } from '../src/index.js';
+import { setFlag } from '../src/flags.js';
 import { createRandom, listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 
 interface Synthetic {
@@ -56,11 +57,13 @@ function syntheticBucket(n: number, seed: number): Synthetic {
 
 describe('stage 1: BucketWriter writes the same spill file with the module as without', () => {
   let dir: string;
+  let restoreSpill: () => void;
   beforeAll(() => {
     dir = makeTempDir();
+    restoreSpill = setFlag('ROWDECK_SPILL', undefined);
   });
   afterAll(() => {
-    delete process.env.ROWDECK_SPILL;
+    restoreSpill();
     removeDir(dir);
   });
 
@@ -94,8 +97,7 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
   }
 
   function write(mode: 'js' | 'auto', seed: number): { file: Buffer; w: BucketWriter; fp: Fingerprint; expected: Fingerprint } {
-    if (mode === 'js') process.env.ROWDECK_SPILL = 'js';
-    else delete process.env.ROWDECK_SPILL;
+    setFlag('ROWDECK_SPILL', mode === 'js' ? 'js' : undefined);
     const sub = join(dir, `${mode}-${seed}`);
     mkdirSync(sub);
     const fp = new Fingerprint();
@@ -140,7 +142,7 @@ describe('stage 1: BucketWriter writes the same spill file with the module as wi
   });
 
   it('enqueueRun keys, buckets and counts records as append does with hash.ts keys (offsets past 2^32)', () => {
-    delete process.env.ROWDECK_SPILL;
+    setFlag('ROWDECK_SPILL', undefined);
     const secret = Uint32Array.of(0x01234567, 0x89abcdef, 0xdeadbeef, 0x0badf00d);
     const bits = 4;
     const write2 = (how: 'enqueue' | 'append') => {
@@ -266,7 +268,11 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
   let crlf: string;
   let jsonl: string;
   let long: string;
+  /** The kernels whose switch the runs set (the statistics and the sort are compared elsewhere). */
+  const SWITCHES = ['ROWDECK_GATHER', 'ROWDECK_SPILL', 'ROWDECK_JSONL'] as const;
+  let restore: (() => void)[] = [];
   beforeAll(() => {
+    restore = SWITCHES.map((name) => setFlag(name, undefined));
     dir = makeTempDir();
     // One record of 3 MiB, longer than stage 1's staging area (2 MiB): it is keyed and appended
     // on its own, between runs the spill module keys.
@@ -285,9 +291,7 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
     writeFileSync(jsonl, lines.join('\n'));
   });
   afterAll(() => {
-    delete process.env.ROWDECK_GATHER;
-    delete process.env.ROWDECK_SPILL;
-    delete process.env.ROWDECK_JSONL;
+    for (const put of restore.reverse()) put();
     removeDir(dir);
   });
 
@@ -311,11 +315,8 @@ describe('whole shuffles: the same bytes with the kernels and with JavaScript al
   it.each(configs)('%s', async (name, input, opts) => {
     const runs: Record<string, string>[] = [];
     for (const mode of ['js', 'auto']) {
-      // Worker threads copy the environment when they start.
-      for (const name of ['ROWDECK_GATHER', 'ROWDECK_SPILL', 'ROWDECK_JSONL']) {
-        if (mode === 'js') process.env[name] = 'js';
-        else delete process.env[name];
-      }
+      // Worker threads copy the environment when they start (setFlag sets it).
+      for (const name of SWITCHES) setFlag(name, mode === 'js' ? 'js' : undefined);
       const out = join(dir, `${name.replace(/\W+/g, '-')}-${mode}`);
       const m = await shuffle({ inputs: [input()], out, seed: 'kernel', memory: '4MiB', threads: 2, ...opts });
       runs.push(snapshot(out, m));

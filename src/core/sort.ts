@@ -11,6 +11,7 @@
  */
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
 import { SORT_LAYOUT, SORT_WASM_BASE64 } from './sort-wasm.js';
+import { flags } from '../flags.js';
 
 export interface SortKeys {
   keyHi: Uint32Array;
@@ -108,7 +109,7 @@ export function sortsInWasm(): boolean {
 
 function sortKernel(): SortKernel | null {
   if (kernel !== undefined) return kernel;
-  if (process.env.ROWDECK_SORT === 'js') return (kernel = null);
+  if (flags.sort === 'js') return (kernel = null);
   const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>(SORT_WASM_BASE64);
   if (exp === null) return (kernel = null);
   const { memory, sort } = exp;

@@ -23,6 +23,7 @@
 import type { RecordBatch } from '../io/batch.js';
 import { STATS_LAYOUT, STATS_WASM_BASE64 } from './stats-wasm.js';
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
+import { flags } from '../flags.js';
 
 // The slot's layout, as scripts/stats-wasm.mjs made the module with it.
 const { slotsAt: SLOTS_AT, slot: S } = STATS_LAYOUT;
@@ -311,7 +312,7 @@ function align16(n: number): number {
   return (n + 15) & ~15;
 }
 
-let disabled = process.env.ROWDECK_STATS === 'js';
+let disabled = flags.stats === 'js';
 
 /** Tests and benchmarks: `false` keeps the statistics in JavaScript (tables created after the call). */
 export function useStatsKernel(on: boolean): void {

@@ -25,6 +25,7 @@
 import { GATHER_LAYOUT, GATHER_WASM_BASE64 } from './gather-wasm.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 import type { Fingerprint } from '../core/hash.js';
+import { flags } from '../flags.js';
 
 type DealFn = (n: number, order: number, cell: number, at: number, lenTerm: number, fill: number, fp: number, K: number, crlf: number, fold: number, src: number) => void;
 
@@ -132,7 +133,7 @@ export class GatherKernel {
 }
 
 let instance: GatherKernel | null | undefined;
-let disabled = process.env.ROWDECK_GATHER === 'js';
+let disabled = flags.gather === 'js';
 
 /** This thread's kernel, or null (no WebAssembly SIMD here, or switched off). */
 export function gatherKernel(): GatherKernel | null {

@@ -26,6 +26,7 @@ import type { Fingerprint } from '../core/hash.js';
 import type { RecordBatch } from '../io/batch.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 import { SPILL_LAYOUT, SPILL_WASM_BASE64 } from './spill-wasm.js';
+import { flags } from '../flags.js';
 
 type AppendFn = (from: number, n: number, queue: number, fill: number, ends: number, fp: number) => number;
 type EnqueueFn = (n: number, from: number, queue: number, offs: number, starts: number, ends: number, nexts: number,
@@ -43,7 +44,7 @@ const SPARE = 64;
 let spillKernelWorks = true;
 /** A fresh instance of the spill module (one per writer: its memory is the writer's), or null. */
 function spillKernel(): SpillKernel | null {
-  if (process.env.ROWDECK_SPILL === 'js' || !spillKernelWorks) return null;
+  if (flags.spill === 'js' || !spillKernelWorks) return null;
   const k = instantiate<SpillKernel>(SPILL_WASM_BASE64);
   spillKernelWorks = k !== null;
   return k;

@@ -12,6 +12,7 @@
  */
 import { JSONL_LAYOUT, JSONL_WASM_BASE64 } from './jsonl-wasm.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
+import { flags } from '../flags.js';
 
 type ObjectFn = (a: number, e: number, keys: number, nkeys: number, out: number, stack: number, max: number) => number;
 interface JsonlKernel {
@@ -33,7 +34,7 @@ export const enum JsonlCheck {
   Undecided = 2,
 }
 
-let enabled = process.env.ROWDECK_JSONL !== 'js';
+let enabled = flags.jsonl !== 'js';
 /** For tests: use the module (true) or JSON.parse only (false) in readers created from now on. */
 export function useJsonlCheck(on: boolean): void {
   enabled = on;
