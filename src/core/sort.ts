@@ -110,7 +110,7 @@ export function sortsInWasm(): boolean {
 function sortKernel(): SortKernel | null {
   if (kernel !== undefined) return kernel;
   if (flags.sort === 'js') return (kernel = null);
-  const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>(SORT_WASM_BASE64);
+  const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>('sort', SORT_WASM_BASE64, ['memory', 'sort']);
   if (exp === null) return (kernel = null);
   const { memory, sort } = exp;
   kernel = {

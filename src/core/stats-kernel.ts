@@ -126,7 +126,7 @@ export class StatsKernel {
     // Slots are 8 KiB a column, and each table (a part's, with --stats) has its own: wider tables
     // stay in JavaScript.
     if (disabled || columns > MAX_COLUMNS) return null;
-    const exp = released.pop() ?? instantiate<KernelExports>(STATS_WASM_BASE64);
+    const exp = released.pop() ?? instantiate<KernelExports>('stats', STATS_WASM_BASE64, ['memory', 'column', 'exact', 'top']);
     return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
   }
 

@@ -139,7 +139,7 @@ let disabled = flags.gather === 'js';
 export function gatherKernel(): GatherKernel | null {
   if (disabled) return null;
   if (instance === undefined) {
-    const exp = instantiate<{ memory: WasmMemory; deal: DealFn }>(GATHER_WASM_BASE64);
+    const exp = instantiate<{ memory: WasmMemory; deal: DealFn }>('gather', GATHER_WASM_BASE64, ['memory', 'deal']);
     instance = exp ? new GatherKernel(exp.memory, exp.deal) : null;
   }
   return instance;

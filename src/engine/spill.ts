@@ -45,7 +45,7 @@ let spillKernelWorks = true;
 /** A fresh instance of the spill module (one per writer: its memory is the writer's), or null. */
 function spillKernel(): SpillKernel | null {
   if (flags.spill === 'js' || !spillKernelWorks) return null;
-  const k = instantiate<SpillKernel>(SPILL_WASM_BASE64);
+  const k = instantiate<SpillKernel>('spill', SPILL_WASM_BASE64, ['memory', 'append', 'enqueue']);
   spillKernelWorks = k !== null;
   return k;
 }

@@ -91,7 +91,7 @@ export class JsonlChecker {
   /** A checker for these wanted keys (their UTF-8 bytes), or null where the module cannot run. */
   static create(keys: Uint8Array[]): JsonlChecker | null {
     if (!enabled) return null;
-    const k = instantiate<JsonlKernel>(JSONL_WASM_BASE64);
+    const k = instantiate<JsonlKernel>('jsonl', JSONL_WASM_BASE64, ['memory', 'object']);
     if (!k) return null;
     try {
       return new JsonlChecker(k, keys);

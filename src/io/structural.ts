@@ -89,7 +89,7 @@ let instance: StructuralScanner | null | undefined;
 /** The scanner of this thread, or null where WebAssembly SIMD is not available. */
 export function structuralScanner(): StructuralScanner | null {
   if (instance !== undefined) return instance;
-  const exp = instantiate<{ memory: WasmMemory; scan: ScanFn; walk: WalkFn }>(STRUCTURAL_WASM_BASE64);
+  const exp = instantiate<{ memory: WasmMemory; scan: ScanFn; walk: WalkFn }>('structural', STRUCTURAL_WASM_BASE64, ['memory', 'scan', 'walk']);
   instance = exp ? createScanner(exp.memory, exp.scan, exp.walk) : null;
   return instance;
 }
