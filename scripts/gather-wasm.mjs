@@ -25,13 +25,11 @@ export const LAYOUT = {
   foldSlotBytes: 32,
   foldTextMax: 16,
   fingerprintBytes: 16,
-  overrunBytes: 16,
 };
 const LAYOUT_DOC = {
   foldSlotBytes: "a fold's entry in the fold table: its field's length (a byte), then its bytes",
   foldTextMax: 'the longest fold field (delimiter and number): 16 bytes are copied, the length counted',
   fingerprintBytes: "a part's fingerprint sum: the i64 sum of its records' hashes, then the i64 count",
-  overrunBytes: "the copy moves 16 bytes a step: it writes up to this many bytes past a record's end",
 };
 
 export function wat() {

@@ -19,6 +19,4 @@ export const GATHER_LAYOUT = {
   foldTextMax: 16,
   /** a part's fingerprint sum: the i64 sum of its records' hashes, then the i64 count */
   fingerprintBytes: 16,
-  /** the copy moves 16 bytes a step: it writes up to this many bytes past a record's end */
-  overrunBytes: 16,
 } as const;

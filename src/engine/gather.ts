@@ -148,7 +148,6 @@ function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
   return Buffer.from(`${empty ? '' : ','}${JSON.stringify(name)}:${fold}`, 'utf8');
 }
 
-
 /**
  * Deals one bucket. `stats`, when given, receives every record's fields under its part (the
  * caller keeps the tables across buckets and merges them at the end).
