@@ -35,6 +35,8 @@ export interface Flags {
   partStats: 'auto' | 'lanes' | 'files';
   blockBytes: number | undefined;
   lookaheadBytes: number | undefined;
+  openParts: number | undefined;
+  runsDir: string | undefined;
   chromium: string | undefined;
 }
 
@@ -113,6 +115,20 @@ export const FLAG_SPECS: readonly FlagSpec[] = [
     name: 'ROWDECK_LOOKAHEAD_BYTES', key: 'lookaheadBytes', values: 'bytes (8 or more)',
     meaning: 'how far past its block a worker may read to finish its last record (a longer record goes to the main thread)',
     readBy: ['src/io/blocks.ts'], parse: number,
+  },
+  {
+    name: 'ROWDECK_OPEN_PARTS', key: 'openParts', values: 'a count (1 or more)',
+    meaning: 'part files kept open at once, instead of a quarter of the open-file limit (8 to 512)',
+    readBy: ['src/io/open-files.ts'],
+    parse: (t) => {
+      const n = Number(t);
+      return Number.isInteger(n) && n > 0 ? n : undefined;
+    },
+  },
+  {
+    name: 'ROWDECK_RUNS_DIR', key: 'runsDir', values: 'a folder',
+    meaning: 'where runs record their work folders while they work, so a later run can remove those of a killed one (default: `<tmp>/rowdeck-runs-<uid>`)',
+    readBy: ['src/io/work-folders.ts'], parse: (t) => t,
   },
   {
     name: 'ROWDECK_CHROMIUM', key: 'chromium', values: 'a path',

@@ -76,22 +76,25 @@ describe('reading the switches', () => {
   it('unset: every module where it runs, sizes chosen by the engine', () => {
     expect(readFlags({})).toEqual({
       scan: 'auto', jsonl: 'auto', spill: 'auto', gather: 'auto', sort: 'auto', stats: 'auto', phases: false,
-      bucketBits: undefined, partStats: 'auto', blockBytes: undefined, lookaheadBytes: undefined, chromium: undefined,
+      bucketBits: undefined, partStats: 'auto', blockBytes: undefined, lookaheadBytes: undefined, openParts: undefined, runsDir: undefined,
+      chromium: undefined,
     });
   });
 
   it('reads each documented value', () => {
     const f = readFlags({
       ROWDECK_SCAN: 'simd', ROWDECK_JSONL: 'js', ROWDECK_SPILL: 'js', ROWDECK_GATHER: 'js', ROWDECK_SORT: 'js', ROWDECK_STATS: 'js', ROWDECK_PHASES: '1',
-      ROWDECK_BUCKET_BITS: '0', ROWDECK_PART_STATS: 'files', ROWDECK_BLOCK_BYTES: '4096', ROWDECK_LOOKAHEAD_BYTES: '512', ROWDECK_CHROMIUM: '/opt/chromium',
+      ROWDECK_BUCKET_BITS: '0', ROWDECK_PART_STATS: 'files', ROWDECK_BLOCK_BYTES: '4096', ROWDECK_LOOKAHEAD_BYTES: '512', ROWDECK_OPEN_PARTS: '100000',
+      ROWDECK_RUNS_DIR: '/tmp/runs', ROWDECK_CHROMIUM: '/opt/chromium',
     });
     expect(f).toEqual({
       scan: 'simd', jsonl: 'js', spill: 'js', gather: 'js', sort: 'js', stats: 'js', phases: true,
-      bucketBits: 0, partStats: 'files', blockBytes: 4096, lookaheadBytes: 512, chromium: '/opt/chromium',
+      bucketBits: 0, partStats: 'files', blockBytes: 4096, lookaheadBytes: 512, openParts: 100000, runsDir: '/tmp/runs', chromium: '/opt/chromium',
     });
     expect(readFlags({ ROWDECK_SCAN: 'js', ROWDECK_PART_STATS: 'lanes' })).toMatchObject({ scan: 'js', partStats: 'lanes' });
     // Anything else leaves the default (as the scattered reads did).
-    expect(readFlags({ ROWDECK_GATHER: 'wasm', ROWDECK_PHASES: 'yes', ROWDECK_PART_STATS: 'x' })).toMatchObject({ gather: 'auto', phases: false, partStats: 'auto' });
+    expect(readFlags({ ROWDECK_GATHER: 'wasm', ROWDECK_PHASES: 'yes', ROWDECK_PART_STATS: 'x', ROWDECK_OPEN_PARTS: '0' })).toMatchObject({ gather: 'auto', phases: false, partStats: 'auto', openParts: undefined });
+    expect(readFlags({ ROWDECK_OPEN_PARTS: '2.5' }).openParts).toBeUndefined();
   });
 
   it('setFlag sets this thread and the environment, and puts both back', () => {
