@@ -6,6 +6,7 @@
 import { closeSync, openSync, readSync } from 'node:fs';
 import { estimateInputBytes, isStreamInput } from '../io/input.js';
 import { HEADER_BYTES } from './spill.js';
+import { flags } from '../flags.js';
 
 /**
  * At most this much buffer per bucket and scatter task. Stage 1 writes every byte of its buffers
@@ -33,7 +34,7 @@ export function chooseBuckets(spillEstimate: number, memory: number, threads: nu
   if (want > byBuffers) want = Math.max(byBuffers, Math.ceil(spillEstimate / memCap));
   let bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, want)))));
   // For experiments only: force the bucket bits (the output does not depend on them).
-  if (process.env.ROWDECK_BUCKET_BITS) bits = Number(process.env.ROWDECK_BUCKET_BITS);
+  if (flags.bucketBits !== undefined) bits = flags.bucketBits;
   const bufferBytes = Math.max(4096 * tasks, Math.min(BUFFER_CAP * tasks, Math.floor(memory / 4 / 2 ** bits)));
   return { bits, bufferBytes };
 }
