@@ -252,7 +252,8 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   const partitions = integerOption('partitions', o.partitions, 1, 100000, 1);
   const folds = integerOption('folds', o.folds, 2, 1000, 1);
   // Small inputs are shuffled on the calling thread unless threads are asked for (INLINE_MAX_BYTES).
-  const threads = integerOption('threads', o.threads, 0, 256, smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism()));
+  // The default looks at the inputs' sizes: only when no count is given.
+  const threads = integerOption('threads', o.threads, 0, 256, o.threads !== undefined ? 0 : smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism()));
   const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
   if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
   const memory = o.memory === undefined ? DEFAULT_MEMORY : parseSize('memory', o.memory);

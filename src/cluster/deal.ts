@@ -139,12 +139,15 @@ function mergeDones(plan: ClusterPlan, dones: ScatterDone[], schema: InputSchema
     const local = absoluteResults(d, taskDir(plan.work, 'scatter', t)).sort((a, b) => a.task - b.task);
     for (const r of local) results.push({ ...r, task: results.length });
   });
-  const inputs = plan.inputs.map((x, k) => ({
-    path: x.given,
-    bytes: dones.reduce((a, d) => a + (d.inputs[k]?.bytes ?? 0), 0),
-    records: dones.reduce((a, d) => a + (d.inputs[k]?.records ?? 0), 0),
-    rejected: dones.reduce((a, d) => a + (d.inputs[k]?.rejected ?? 0), 0),
-  }));
+  const inputs = plan.inputs.map((x) => ({ path: x.given, bytes: 0, records: 0, rejected: 0 }));
+  for (const d of dones) {
+    for (const x of d.inputs) {
+      const to = inputs[x.input]!;
+      to.bytes += x.bytes;
+      to.records += x.records;
+      to.rejected += x.rejected;
+    }
+  }
   return mergeScatterResults(results, schema, inputs, plan.size.buckets, censusBuckets);
 }
 

@@ -171,7 +171,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       timings: { finishMs: Date.now() - t0 },
       ...(stats ? { inputStats: stats.input } : {}),
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
-      plan: { id: plan.planId, tasks },
+      plan: { id: plan.planId, tasks, reread: deal.reread },
     });
     if (deal.rejectsFile !== null) writeFileSync(join(stage, 'rejected.csv'), readFileSync(join(dealDir, deal.rejectsFile)), { flag: 'wx' });
     writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', { flag: 'wx' });

@@ -47,7 +47,8 @@ export function dealPlan(plan: ClusterPlan): { gatherPlan: GatherPlan; dir: stri
 }
 
 export async function runGatherTask(plan: ClusterPlan, index: number): Promise<boolean> {
-  enterPlan(plan);
+  // Stage 2 reads the spill only.
+  enterPlan(plan, []);
   const g = plan.gather[index];
   if (!g) throw new RowdeckError('ERR_INTERNAL', `gather task ${index} is not in the plan`);
   const { gatherPlan, dir: dealDir } = dealPlan(plan);

@@ -100,7 +100,8 @@ function isGzip(path: string): boolean {
 /** Cuts the inputs into at most `tasks` scatter tasks of about equal bytes. */
 export function cutInputs(inputs: { bytes: number; gzip: boolean }[], tasks: number): { slices: InputSlice[] }[] {
   const total = inputs.reduce((a, x) => a + x.bytes, 0);
-  const target = Math.max(MIN_SLICE_BYTES, Math.ceil(total / Math.max(1, tasks)));
+  // Whole files are grouped up to the target; a plain file is cut only in pieces of at least MIN_SLICE_BYTES.
+  const target = Math.max(1, Math.ceil(total / Math.max(1, tasks)));
   const out: { slices: InputSlice[] }[] = [];
   let current: InputSlice[] = [];
   let filled = 0;
@@ -124,6 +125,7 @@ export function cutInputs(inputs: { bytes: number; gzip: boolean }[], tasks: num
         close();
         room = target;
       }
+      room = Math.max(room, MIN_SLICE_BYTES);
       // The last task takes whatever is left; a remainder too small for a slice of its own goes with this one.
       let take = out.length >= tasks - 1 ? x.bytes - at : Math.min(room, x.bytes - at);
       if (x.bytes - at - take < MIN_SLICE_BYTES) take = x.bytes - at;
@@ -263,10 +265,10 @@ export function loadPlan(workGiven: string): ClusterPlan {
 
 /**
  * Enters a plan on this machine: its folder (relative input paths count from there), the inputs
- * checked unchanged since the plan (size and modification time), and its options resolved as
- * the plan resolved them.
+ * checked unchanged since the plan (size and modification time; `check`: only those a task
+ * reads), and its options resolved as the plan resolved them.
  */
-export function enterPlan(plan: ClusterPlan): ResolvedShuffleOptions {
+export function enterPlan(plan: ClusterPlan, check: number[] | 'all' = 'all'): ResolvedShuffleOptions {
   try {
     process.chdir(plan.cwd);
   } catch {
@@ -274,7 +276,7 @@ export function enterPlan(plan: ClusterPlan): ResolvedShuffleOptions {
       throw new RowdeckError('ERR_INPUT_NOT_FOUND', `The plan was made in ${plan.cwd}, which this machine does not have, and names inputs by relative paths. Plan again from a folder every node sees, or give the inputs as absolute paths.`, { file: plan.cwd });
     }
   }
-  plan.inputs.forEach((x) => {
+  (check === 'all' ? plan.inputs : check.map((k) => plan.inputs[k]!)).forEach((x) => {
     let now: { bytes: number; mtimeMs: number };
     try {
       now = fileStamp(x.given);

@@ -37,8 +37,8 @@ export interface ScatterDone extends DoneRecord {
   rejects: RejectDone[];
   /** The first slice's input schema, its header as base64. */
   schema: Omit<InputSchema, 'headerBytes'> & { headerBytes: string | null };
-  /** Per input: bytes, records and refused records of this task's slices. */
-  inputs: { bytes: number; records: number; rejected: number }[];
+  /** Per input the task read: bytes, records and refused records of its slices. */
+  inputs: { input: number; bytes: number; records: number; rejected: number }[];
   /** Every worker's result; spill paths relative to the task's folder. */
   results: ScatterTaskResult[];
 }
@@ -47,9 +47,9 @@ export interface ScatterDone extends DoneRecord {
 export type SliceStarts = Map<number, number>;
 
 export async function runScatterTask(plan: ClusterPlan, index: number, starts: SliceStarts = new Map()): Promise<boolean> {
-  const o = enterPlan(plan);
   const task = plan.scatter[index];
   if (!task) throw new RowdeckError('ERR_INTERNAL', `scatter task ${index} is not in the plan`);
+  const o = enterPlan(plan, [...new Set([0, ...task.slices.map((s) => s.input)])]);
   const t0 = Date.now();
   return runTask<Omit<ScatterDone, keyof DoneRecord>>(plan.work, 'scatter', index, plan.planId, async (dir) => {
     const slices = task.slices.map((s, j) => (starts.has(j) ? { ...s, start: starts.get(j)!, exact: true } : s));
@@ -94,7 +94,7 @@ export async function runScatterTask(plan: ClusterPlan, index: number, starts: S
       stopped,
       rejects,
       schema: schema ? { ...schema, headerBytes: schema.headerBytes ? Buffer.from(schema.headerBytes).toString('base64') : null } : { format: plan.format, columns: [], headerBytes: null, lineEnding: '\n', delimiter: 0 },
-      inputs: (sc?.inputs ?? o.inputs.map(() => ({ bytes: 0, records: 0, rejected: 0 }))).map((x) => ({ bytes: x.bytes, records: x.records, rejected: x.rejected })),
+      inputs: [...new Set(slices.map((x) => x.input))].map((k) => ({ input: k, bytes: sc?.inputs[k]?.bytes ?? 0, records: sc?.inputs[k]?.records ?? 0, rejected: sc?.inputs[k]?.rejected ?? 0 })),
       results: (sc?.results ?? []).map((r) => ({ ...r, paths: r.paths.map(rel), census: r.census ? { ...r.census, paths: r.census.paths.map(rel) } : null })),
     };
   });

@@ -84,6 +84,8 @@ export interface Manifest {
 export interface ClusterRunInfo {
   id: string;
   tasks: { stage: string; index: number; host: string; startedAt: string; endedAt: string }[];
+  /** Scatter tasks the deal step read again (their slice began inside a quoted field). */
+  reread: number[];
 }
 
 export interface ManifestInput {

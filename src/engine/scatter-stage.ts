@@ -114,8 +114,10 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
 
   const cellKeyInHeader = placesRecordsIndividually(o);
   if (cellKeyInHeader && o.assign === 'group') mkdirSync(censusDir(spillDir));
-  // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.
-  const totalBytes = o.inputs.some(isStreamInput) ? 0 : o.inputs.reduce((a, p) => a + statSync(p).size, 0);
+  // Unknown (0: no bar) when any input is a stream: its size is not known before it ends. A
+  // cluster's task reads only its slices' inputs.
+  const read = i.task ? [...new Set(i.task.slices.map((s) => o.inputs[s.slice.input]!))] : o.inputs;
+  const totalBytes = read.some(isStreamInput) ? 0 : read.reduce((a, p) => a + statSync(p).size, 0);
   const scatterOptions: ScatterOptions = {
     inputs: o.inputs,
     format,
