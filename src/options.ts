@@ -10,3 +10,4 @@ export * from './options/input.js';
 export * from './options/shuffle.js';
 export * from './options/profile.js';
 export * from './options/verify.js';
+export * from './options/cluster.js';

@@ -14,6 +14,7 @@ import seedrandom from 'seedrandom';
 import { profile, shuffle, type Profile, RowdeckError } from '../src/index.js';
 import { COLUMN_SHARE_MIN, columnShare, joinColumnShares } from '../src/engine/profile.js';
 import { cutText, drawBar, formatNumber } from '../src/cli/commands/profile.js';
+import { setFlag } from '../src/flags.js';
 import { makeSensorCsv, makeTempDir, parseCsv, removeDir } from './helpers/engine.js';
 import { stringify } from 'csv-stringify/sync';
 
@@ -160,14 +161,12 @@ describe('agreement with shuffle', () => {
     const p = await profile({ inputs: [file], threads: 0 });
     expect(p.columns.find((c) => c.name === 'n')!.type).toBe('number');
     for (const way of ['lanes', 'files']) {
-      const before = process.env.ROWDECK_PART_STATS;
-      process.env.ROWDECK_PART_STATS = way;
+      const restore = setFlag('ROWDECK_PART_STATS', way);
       let m: Awaited<ReturnType<typeof shuffle>>;
       try {
         m = await shuffle({ inputs: [file], out: join(dir, `by-hand-${way}`), partitions: 3, folds: 2, stats: true, seed: 'hand', threads: 2 });
       } finally {
-        if (before === undefined) delete process.env.ROWDECK_PART_STATS;
-        else process.env.ROWDECK_PART_STATS = before;
+        restore();
       }
       expect(m.input.stats).toEqual(p.columns);
       for (const part of m.output.parts) {
@@ -218,14 +217,12 @@ describe('many small inputs', () => {
       }
       const opts = { inputs: paths, stratify: 'fault', threads: 2 };
       const ahead = await profile(opts);
-      const before = process.env.ROWDECK_BLOCK_BYTES;
-      process.env.ROWDECK_BLOCK_BYTES = '2048'; // every shard over two blocks: read in blocks
+      const restore = setFlag('ROWDECK_BLOCK_BYTES', '2048'); // every shard over two blocks: read in blocks
       let blocks: Profile;
       try {
         blocks = await profile(opts);
       } finally {
-        if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-        else process.env.ROWDECK_BLOCK_BYTES = before;
+        restore();
       }
       expect(ahead.records).toBe(records);
       expect(stripRun(ahead)).toEqual(stripRun(blocks));
@@ -286,16 +283,14 @@ describe('wide inputs: the threads share out the columns', () => {
     const opts = { inputs: [csv, jsonl], stratify: 'colony_state' };
     const one = await profile({ ...opts, threads: 0 });
     // Blocks small enough that a narrow input this size would be parsed by the workers in blocks.
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024);
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', String(64 * 1024));
     let two: Profile;
     let three: Profile;
     try {
       two = await profile({ ...opts, threads: 2 });
       three = await profile({ ...opts, threads: 3 });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     expect(one.records).toBe(parseCsv(readFileSync(csv, 'utf8')).rows.length + 300); // counted by csv-parse
     expect(stripRun(two)).toEqual(stripRun(one));
@@ -383,14 +378,12 @@ describe('independent of the thread count', () => {
   });
 
   it('workers parsing the input in blocks give the profile of a sequential read', async () => {
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024); // ~40 blocks, many starting inside quoted line breaks
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', String(64 * 1024)); // ~40 blocks, many starting inside quoted line breaks
     let blocks: Profile;
     try {
       blocks = await profile({ inputs: [big], stratify: 'fault,site', threads: 2 });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     const p0 = await profile({ inputs: [big], stratify: 'fault,site', threads: 0 });
     expect(JSON.stringify(stripRun(blocks))).toBe(JSON.stringify(stripRun(p0)));

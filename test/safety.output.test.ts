@@ -14,20 +14,22 @@ import { shuffle } from '../src/engine/shuffle.js';
 import { verify } from '../src/engine/verify.js';
 import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 import { diffSnapshots, runProcess, runRowdeck, snapshot, workEntries, CLI } from './helpers/safety.js';
+import { setFlag } from '../src/flags.js';
 
 let dir: string;
 let input: string;
 let runs: string;
+let restoreRuns: () => void;
 
 beforeAll(() => {
   dir = makeTempDir('rowdeck-output-');
   input = join(dir, 'readings.csv');
   writeFileSync(input, makeSensorCsv({ rows: 3000, seed: 5 }));
   runs = join(dir, 'runs-registry');
-  process.env.ROWDECK_RUNS_DIR = runs;
+  restoreRuns = setFlag('ROWDECK_RUNS_DIR', runs);
 });
 afterAll(() => {
-  delete process.env.ROWDECK_RUNS_DIR;
+  restoreRuns();
   removeDir(dir);
 });
 

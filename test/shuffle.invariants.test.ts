@@ -11,6 +11,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
 import { BUFFER_CAP, chooseBuckets, spillFactor } from '../src/engine/shuffle.js';
 import { READ_BACK_BYTES, STATS_BYTES_PER_COLUMN, statsInLanes } from '../src/engine/part-stats.js';
+import { setFlag } from '../src/flags.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -109,14 +110,12 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     const packed2 = join(dir, 'blocks-2.csv.gz');
     writeFileSync(packed2, gzipSync(text2));
     const opts = { seed: 'blocks', partitions: 3, stratify: 'fault', folds: 2, onBadRecord: 'quarantine' as const, threads: 2 };
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = '3000';
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', '3000');
     let mBlocks: Manifest;
     try {
       mBlocks = await shuffle({ inputs: [plain, plain2], out: join(dir, 'inv1-blocks'), ...opts });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     const mSeq = await shuffle({ inputs: [packed, packed2], out: join(dir, 'inv1-seq'), ...opts });
     const a = outputsOf(join(dir, 'inv1-blocks'));
@@ -149,14 +148,12 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     }
     const opts = { seed: 'shards', partitions: 4, stratify: 'fault', folds: 3, onBadRecord: 'quarantine' as const, threads: 2 };
     const ahead = await shuffle({ inputs: paths, out: join(dir, 'shards-ahead'), ...opts });
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = '4096';
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', '4096');
     let blocks: Manifest;
     try {
       blocks = await shuffle({ inputs: paths, out: join(dir, 'shards-blocks'), ...opts });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     expect(outputsOf(join(dir, 'shards-ahead'))).toEqual(outputsOf(join(dir, 'shards-blocks')));
     expect(ahead.input.rejected).toBe(5);
@@ -589,13 +586,13 @@ describe('the memory plan of --stats: per-part statistics in the lanes or read b
       ['TSV with CR LF', { inputs: [tsv], partitions: 3, folds: 2 }],
       ['JSON Lines, folds', { inputs: [jsonl], partitions: 3, folds: 2, stratify: 'fault' }],
     ];
-    const saved = process.env.ROWDECK_PART_STATS;
+    const restore = setFlag('ROWDECK_PART_STATS', undefined); // each run below sets it
     try {
       for (const [name, opts] of cases) {
         for (const threads of [0, 2]) {
           const got: Record<string, { manifest: unknown; files: Record<string, string>; readBack: boolean }> = {};
           for (const way of ['lanes', 'files']) {
-            process.env.ROWDECK_PART_STATS = way;
+            setFlag('ROWDECK_PART_STATS', way);
             const out = join(dir, `stats-ways-${way}`);
             const stages = new Set<string>();
             const m = await shuffle({ out, force: true, seed: 'ways', stats: true, threads, onProgress: (e) => void stages.add(e.stage), ...opts });
@@ -611,8 +608,7 @@ describe('the memory plan of --stats: per-part statistics in the lanes or read b
         }
       }
     } finally {
-      if (saved === undefined) delete process.env.ROWDECK_PART_STATS;
-      else process.env.ROWDECK_PART_STATS = saved;
+      restore();
     }
   });
 

@@ -3,7 +3,7 @@
  * option list is made from its option table (src/options/), so --help names every option the
  * command takes, and nothing else.
  */
-import { PROFILE_SPEC, renderOptionList, REPORT_SPEC, SHUFFLE_SPEC, VERIFY_SPEC } from '../options.js';
+import { FINISH_SPEC, PLAN_SPEC, PROFILE_SPEC, renderOptionList, REPORT_SPEC, SHUFFLE_SPEC, STATUS_SPEC, TASK_SPEC, VERIFY_SPEC } from '../options.js';
 
 export const MAIN_HELP = `rowdeck — reproducible, stratified shuffling of large tabular files
 
@@ -12,6 +12,12 @@ Usage:
   rowdeck profile INPUT... [options]             schema, statistics and class balance of inputs
   rowdeck verify DIR [--against INPUT...]        check an output folder against its manifest
   rowdeck report DIR [--verify]                  write DIR/report.html: the result as charts
+
+Past one machine (the same shuffle as tasks under a batch scheduler, same bytes):
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [shuffle options]
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+  rowdeck finish WORK                            join the parts, write the manifest
+  rowdeck status WORK                            which tasks are done, failed, to run
 
 Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' reads stdin.
 The same seed and inputs give the same bytes, whatever the thread count or memory budget.
@@ -131,3 +137,69 @@ Examples:
   rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --report
   xdg-open "$(rowdeck report parts)"
 `;
+
+export const PLAN_HELP = `rowdeck plan — cut a shuffle into tasks for a batch scheduler (Slurm, Kubernetes, …)
+
+Usage:
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [--gather-tasks M] [shuffle options]
+
+Checks the inputs and options exactly as rowdeck shuffle does (same errors, before any work) and
+writes, into WORK (a new folder on a file system every node sees at the same path):
+  WORK/plan.json        the plan: inputs (size and time, checked by every task), options, tasks
+  WORK/slurm.sh         submits the stages as Slurm array jobs chained by afterok:
+                          sh WORK/slurm.sh [sbatch options, e.g. --partition=batch]
+  WORK/kubernetes.yaml  one Indexed Job per stage, and the order to apply them in
+
+The stages: N scatter tasks (stage 1 over the inputs: small files whole, large plain files as
+byte ranges, a gzip file whole), one deal task (checks the scatter tasks fit together, counts and
+places groups, the tolerance check), M gather tasks (stage 2 over ranges of buckets), and finish
+(joins the parts, writes the manifest, puts DIR into place). Tasks share nothing but WORK; each
+may be killed and run again, or run twice at once. The output is byte for byte what
+rowdeck shuffle gives with the same inputs, seed and options.
+
+Besides every option of rowdeck shuffle but --temp-dir (the spill goes in WORK):
+
+${renderOptionList(PLAN_SPEC, ['Plan'])}
+Standard input and pipes are refused: every task must be able to read its inputs from a file.
+Quantile bins (COL:bins=Q) are computed here, with one pass over the inputs.
+
+Example:
+  rowdeck plan /shared/logs/*.csv --out /shared/parts --work /shared/work-2026 --tasks 100 \\
+    --partitions 64 --stratify fault --seed 2026
+  sh /shared/work-2026/slurm.sh --partition=batch
+`;
+
+export const TASK_HELP = `rowdeck task — run one task of a plan
+
+Usage:
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+
+Without --index the task's number comes from the scheduler: SLURM_ARRAY_TASK_ID (Slurm),
+JOB_COMPLETION_INDEX (Kubernetes Indexed Jobs), AWS_BATCH_JOB_ARRAY_INDEX (AWS Batch),
+PBS_ARRAY_INDEX (PBS), or SGE_TASK_ID (Grid Engine) and LSB_JOBINDEX (LSF), which count from 1.
+The deal stage has one task. A task that is already done does nothing; one killed or run twice
+at once leaves nothing half-written (it works in a private folder and moves it into place).
+
+${renderOptionList(TASK_SPEC)}`;
+
+export const FINISH_HELP = `rowdeck finish — join a plan's parts and write the output
+
+Usage:
+  rowdeck finish WORK [--keep-work] [--json]
+
+Checks that every task of the plan is done and was written for this plan (naming any missing or
+failed one with the command that runs it), joins the gather tasks' parts in order, writes the
+manifest (its run section lists every task's host and times), puts the output folder into place
+at once, and removes WORK.
+
+${renderOptionList(FINISH_SPEC)}`;
+
+export const STATUS_HELP = `rowdeck status — a plan's tasks: done, failed, started, not started
+
+Usage:
+  rowdeck status WORK [--json]
+
+Reads WORK only. For each stage: how many tasks are done; each task that is not, with its state
+(failed, with the error; started: a run in progress, or one killed); and what to run next.
+
+${renderOptionList(STATUS_SPEC)}`;

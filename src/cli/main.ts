@@ -22,6 +22,10 @@ const COMMANDS: Record<string, () => Promise<{ run(argv: string[], io: CliIO): P
   profile: () => import('./commands/profile.js'),
   verify: () => import('./commands/verify.js'),
   report: () => import('./commands/report.js'),
+  plan: async () => ({ run: (await import('./commands/cluster.js')).runPlan }),
+  task: async () => ({ run: (await import('./commands/cluster.js')).runTaskCommand }),
+  finish: async () => ({ run: (await import('./commands/cluster.js')).runFinish }),
+  status: async () => ({ run: (await import('./commands/cluster.js')).runStatus }),
 };
 
 export async function runCli(argv: string[], io: CliIO = { stdout: process.stdout, stderr: process.stderr }): Promise<number> {

@@ -38,7 +38,7 @@ import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
 import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
 import { readInputs, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
-import { resolveWorkerFile } from './shuffle.js';
+import { resolveWorkerFile } from '../workers/worker-file.js';
 
 export const PROFILE_VERSION = 1;
 /** Blocks the workers parse (see readInBlocks). */

@@ -33,7 +33,7 @@ import { resolveVerifyOptions, type PartOrder, type VerifyOptions } from '../opt
 import { misorderedInputs } from './input-order.js';
 import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
-import { resolveWorkerFile } from './shuffle.js';
+import { resolveWorkerFile } from '../workers/worker-file.js';
 import { compareReplay, environmentFault, replayable, replayShuffle } from './replay.js';
 import { WorkerLanes } from '../workers/lanes.js';
 

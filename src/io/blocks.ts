@@ -27,6 +27,7 @@ import { open, type FileHandle } from 'node:fs/promises';
 import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import { checkNotHeaderOnly, RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
+import { flags } from '../flags.js';
 
 const LF = 0x0a;
 
@@ -298,11 +299,10 @@ export interface InputTotals {
 
 /** Sizes of the blocks; ROWDECK_BLOCK_BYTES and ROWDECK_LOOKAHEAD_BYTES override them (tests, experiments). */
 export function blockSizes(o: { blockBytes?: number; lookaheadBytes?: number }): { block: number; lookahead: number } {
-  const env = (name: string): number | undefined => (process.env[name] ? Number(process.env[name]) : undefined);
-  const block = Math.max(16, env('ROWDECK_BLOCK_BYTES') ?? o.blockBytes ?? DEFAULT_BLOCK_BYTES);
+  const block = Math.max(16, flags.blockBytes ?? o.blockBytes ?? DEFAULT_BLOCK_BYTES);
   return {
     block,
-    lookahead: Math.max(8, env('ROWDECK_LOOKAHEAD_BYTES') ?? o.lookaheadBytes ?? DEFAULT_LOOKAHEAD_BYTES),
+    lookahead: Math.max(8, flags.lookaheadBytes ?? o.lookaheadBytes ?? DEFAULT_LOOKAHEAD_BYTES),
   };
 }
 

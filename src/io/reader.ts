@@ -11,6 +11,7 @@ import type { RowdeckErrorCode } from '../errors.js';
 import { structuralScanner, WalkStop, type StructuralScanner } from './structural.js';
 import { JsonlChecker, JsonlCheck } from './jsonl.js';
 import { LITTLE_ENDIAN } from '../core/platform.js';
+import { flags } from '../flags.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
@@ -25,7 +26,7 @@ const BACKSLASH = 0x5c;
  * it) puts every piece of data on one path: for tests and benchmarks.
  */
 const AUTO_MIN_BYTES = 4096;
-let structuralMinBytes = scanMinBytes(process.env.ROWDECK_SCAN);
+let structuralMinBytes = scanMinBytes(flags.scan);
 /**
  * The most bytes given to the structural scan at once (its memory grows to ~1.4 times that and
  * stays): larger data, such as a push holding a very long record, is scanned in windows, and the

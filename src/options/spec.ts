@@ -386,9 +386,10 @@ const HELP_COLUMN = 26;
 /**
  * The option list of a command's --help, section by section (in the order the sections first
  * appear), each option's flag, argument and help lines; the command line's own options (--json,
- * --quiet) close their sections.
+ * --quiet) close their sections. `only`: these sections alone (plan lists its own options and
+ * refers to shuffle's).
  */
-export function renderOptionList(spec: CommandSpec): string {
+export function renderOptionList(spec: CommandSpec, only?: readonly string[]): string {
   const sections = new Map<string, string[]>();
   const add = (section: string, head: string, help: readonly string[]): void => {
     const lines = sections.get(section) ?? [];
@@ -409,5 +410,8 @@ export function renderOptionList(spec: CommandSpec): string {
   for (const def of Object.values(spec.cliOnly)) {
     add(def.section, `${def.short ? `-${def.short}, ` : ''}--${def.flag}${def.arg ? ` ${def.arg}` : ''}`, def.help);
   }
-  return [...sections.entries()].map(([title, lines]) => `${title}:\n${lines.join('\n')}\n`).join('\n');
+  return [...sections.entries()]
+    .filter(([title]) => only === undefined || only.includes(title))
+    .map(([title, lines]) => `${title}:\n${lines.join('\n')}\n`)
+    .join('\n');
 }
