@@ -269,14 +269,22 @@ describe('honest errors', () => {
     writeFileSync(copy, readFileSync(small));
     await planCluster({ inputs: [copy], out, work, tasks: 2, threads: 0 });
     await expect(planCluster({ inputs: [copy], out, work, tasks: 2 })).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS' });
+    // No index from anywhere: a usage error (exit 2) naming the scheduler variables.
+    const noIndex = await rowdeck(['task', work, '--stage', 'scatter'], { env: { SLURM_ARRAY_TASK_ID: '', JOB_COMPLETION_INDEX: '' } });
+    expect(noIndex.status).toBe(2);
+    expect(noIndex.stderr).toContain('JOB_COMPLETION_INDEX');
+    const outOfRange = await rowdeck(['task', work, '--stage', 'gather'], { env: { SGE_TASK_ID: '99' } });
+    expect(outOfRange.status).toBe(2);
+    expect(outOfRange.stderr).toContain('SGE_TASK_ID');
     utimesSync(copy, new Date(), new Date(Date.now() + 5000));
     await expect(runScatterTask(loadPlan(work), 0)).rejects.toMatchObject({ code: 'ERR_INPUT_CHANGED', message: expect.stringContaining('make a new plan') });
     const planFile = join(work, 'plan.json');
     writeFileSync(planFile, readFileSync(planFile, 'utf8').replace(/"tool": "[^"]+"/, '"tool": "0.0.1"'));
     expect(() => loadPlan(work)).toThrow(expect.objectContaining({ code: 'ERR_PLAN', message: expect.stringContaining('rowdeck 0.0.1') }));
     expect(() => loadPlan(join(dir, 'nowhere'))).toThrow(expect.objectContaining({ code: 'ERR_INPUT_NOT_FOUND' }));
-    const r = await rowdeck(['task', work, '--stage', 'scatter'], { env: { SLURM_ARRAY_TASK_ID: '' } });
-    expect(r.status).toBe(1);
+    const other = await rowdeck(['task', work, '--stage', 'scatter', '--index', '0']);
+    expect(other.status).toBe(1);
+    expect(other.stderr).toContain('ERR_PLAN');
   });
 });
 

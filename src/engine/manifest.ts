@@ -76,8 +76,8 @@ export interface Manifest {
     threads: number;
     timingsMs: Record<string, number>;
     host: Record<string, unknown>;
-    /** A plan's run under a batch scheduler: its id, and every task's host and times. */
-    plan?: ClusterRunInfo;
+    /** A plan's run under a batch scheduler: its id, and every task's host and times; null for one machine's run. */
+    plan: ClusterRunInfo | null;
   };
 }
 
@@ -194,7 +194,7 @@ export function buildManifest(m: ManifestInput): Manifest {
       threads: m.threads,
       timingsMs: m.timings,
       host: m.host,
-      ...(m.plan ? { plan: m.plan } : {}),
+      plan: m.plan ?? null,
     },
   };
 }
