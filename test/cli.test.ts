@@ -90,15 +90,15 @@ describe('version and help', () => {
   });
 });
 
-describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', () => {
+describe('usage errors exit 2, print RDK_... on stderr and nothing on stdout', () => {
   const cases: [string, string[], string, RegExp][] = [
-    ['an unknown command', ['frobnicate'], 'ERR_UNKNOWN_COMMAND', /frobnicate/],
-    ['an unknown option', ['shuffle', 'readings.csv', '--out', 'out-u1', '--shuffle-harder'], 'ERR_UNKNOWN_OPTION', /--shuffle-harder/],
-    ['a non-numeric --partitions', ['shuffle', 'readings.csv', '--out', 'out-u2', '--partitions', 'x'], 'ERR_OPTION', /partitions/],
-    ['--partitions 0', ['shuffle', 'readings.csv', '--out', 'out-u3', '--partitions', '0'], 'ERR_OPTION', /partitions/],
-    ['--tolerance -1', ['shuffle', 'readings.csv', '--out', 'out-u4', '--tolerance', '-1'], 'ERR_OPTION', /tolerance/],
-    ['--tolerance=-1', ['shuffle', 'readings.csv', '--out', 'out-u5', '--tolerance=-1'], 'ERR_OPTION', /tolerance/],
-    ['a missing --out', ['shuffle', 'readings.csv'], 'ERR_MISSING_ARGUMENT', /--out/],
+    ['an unknown command', ['frobnicate'], 'RDK_UNKNOWN_COMMAND', /frobnicate/],
+    ['an unknown option', ['shuffle', 'readings.csv', '--out', 'out-u1', '--shuffle-harder'], 'RDK_UNKNOWN_OPTION', /--shuffle-harder/],
+    ['a non-numeric --partitions', ['shuffle', 'readings.csv', '--out', 'out-u2', '--partitions', 'x'], 'RDK_OPTION', /partitions/],
+    ['--partitions 0', ['shuffle', 'readings.csv', '--out', 'out-u3', '--partitions', '0'], 'RDK_OPTION', /partitions/],
+    ['--tolerance -1', ['shuffle', 'readings.csv', '--out', 'out-u4', '--tolerance', '-1'], 'RDK_OPTION', /tolerance/],
+    ['--tolerance=-1', ['shuffle', 'readings.csv', '--out', 'out-u5', '--tolerance=-1'], 'RDK_OPTION', /tolerance/],
+    ['a missing --out', ['shuffle', 'readings.csv'], 'RDK_MISSING_ARGUMENT', /--out/],
   ];
   for (const [what, args, code, mentions] of cases) {
     it(`${what}`, () => {
@@ -121,7 +121,7 @@ describe('the fold column already there: named as the command line names it', ()
     writeFileSync(join(dir, name), text);
     const r = runCli(['shuffle', name, '--out', 'out-fold', '--folds', '2', '--threads', '0']);
     expect(r.status).toBe(2);
-    expect(r.stderr).toBe(`rowdeck: error ERR_OPTION: ${message}\nRun with --help for usage.\n`);
+    expect(r.stderr).toBe(`rowdeck: error RDK_OPTION: ${message}\nRun with --help for usage.\n`);
     expect(leftovers()).toEqual([]);
   });
 });
@@ -131,7 +131,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const r = runCli(['shuffle', 'no-such-readings.csv', '--out', 'out-d1', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_INPUT_NOT_FOUND');
+    expect(r.stderr).toContain('RDK_INPUT_NOT_FOUND');
     expect(r.stderr).toContain('no-such-readings.csv');
     expect(leftovers()).toEqual([]);
   });
@@ -144,7 +144,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const r = runCli(['shuffle', 'bad.csv', '--out', 'out-d2', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_FIELD_COUNT');
+    expect(r.stderr).toContain('RDK_FIELD_COUNT');
     expect(r.stderr).toMatch(/bad\.csv:7\b/);
     expect(r.stderr).not.toMatch(/\n\s+at /);
     expect(leftovers()).toEqual([]);
@@ -157,7 +157,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const r = runCli(['shuffle', 'open.csv', '--out', 'out-d3', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_UNTERMINATED_QUOTE');
+    expect(r.stderr).toContain('RDK_UNTERMINATED_QUOTE');
     expect(r.stderr).toMatch(/open\.csv:3\b/);
     expect(leftovers()).toEqual([]);
   });

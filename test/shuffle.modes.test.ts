@@ -147,8 +147,8 @@ describe('--assign hash', () => {
   });
 
   it('needs --key, and split weights as fractions', async () => {
-    await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
-    await expect(shuffle({ inputs: [input], out: join(dir, 'hashcounts'), assign: 'hash', key: 'id', split: 'a=100,b=*' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'hashcounts'), assign: 'hash', key: 'id', split: 'a=100,b=*' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
     expect(existsSync(join(dir, 'hashcounts'))).toBe(false);
   });
 
@@ -183,7 +183,7 @@ describe('--assign hash', () => {
     expect(summary[0]).toContain(', parts by key hash, class shares reported, not enforced: max class deviation ');
     expect(summary[1]).toMatch(/^rowdeck: part sizes \d+ to \d+ records \(target 15 each\): what the key hash gives, not dealt exactly\.$/);
     // A tolerance asked for with hash would be a promise not kept: refused.
-    await expect(shuffle({ inputs: [file], out: join(dir, 'hash-tol'), partitions: 4, assign: 'hash', key: 'id', tolerance: 0.5 })).rejects.toMatchObject({ code: 'ERR_OPTION', details: { option: 'tolerance' } });
+    await expect(shuffle({ inputs: [file], out: join(dir, 'hash-tol'), partitions: 4, assign: 'hash', key: 'id', tolerance: 0.5 })).rejects.toMatchObject({ code: 'RDK_OPTION', details: { option: 'tolerance' } });
   });
 });
 
@@ -241,7 +241,7 @@ describe('formats', () => {
     expect(rowMultiset(got)).toEqual(rowMultiset(rows));
     const other = join(dir, 'other.csv');
     writeFileSync(other, 'id,sensor,site,reading,notes,fault\n1,S1,x,1,,ok\n');
-    await expect(shuffle({ inputs: [f1, other], out: join(dir, 'mismatch') })).rejects.toMatchObject({ code: 'ERR_HEADER_MISMATCH' });
+    await expect(shuffle({ inputs: [f1, other], out: join(dir, 'mismatch') })).rejects.toMatchObject({ code: 'RDK_HEADER_MISMATCH' });
   });
 });
 
@@ -271,7 +271,7 @@ describe('--on-bad-record', () => {
     const { header, rows } = parseCsv(readFileSync(join(dir, 'quarantine', 'rejected.csv')));
     expect(header).toEqual(['file', 'line', 'code', 'reason', 'record']);
     expect(rows.length).toBe(m.input.rejected);
-    expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'ERR_FIELD_COUNT']);
+    expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'RDK_FIELD_COUNT']);
     expect(rows[0]![4]).toBe('1,2,3');
     // The reason says what was wrong, not to pass the option that put it there.
     expect(rows[0]![3]).toMatch(/^record has 3 fields, the header has 6\. Quote fields that contain .*\.$/);
@@ -348,7 +348,7 @@ describe('--stratify COL:bins=Q', () => {
     const file = join(dir, 'nan.csv');
     writeFileSync(file, 'id,level\n1,3.5\n2,high\n');
     await expect(shuffle({ inputs: [file], out: join(dir, 'nan-out'), stratify: 'level:bins=2' })).rejects.toMatchObject({
-      code: 'ERR_NOT_NUMERIC',
+      code: 'RDK_NOT_NUMERIC',
       message: expect.stringContaining('nan.csv:3'),
     });
   });

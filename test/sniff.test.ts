@@ -115,10 +115,10 @@ describe('one format for the run', () => {
       '{A}: named .gz but not gzip data (it does not start with the gzip bytes 1f 8b) nor text: it is damaged, or compressed with another tool. Decompress it with that tool and pass the result on standard input (… | rowdeck shuffle - --format csv …).',
     ],
     ['UTF-16', ['wide.csv'], '{A}: UTF-16 text (it starts with a UTF-16 byte order mark); rowdeck reads UTF-8. Convert it first, e.g. iconv -f UTF-16 -t UTF-8 {A} > converted.csv.'],
-  ] as const)('%s: ERR_INPUT_FORMAT, naming the cause', async (_what, names, message) => {
+  ] as const)('%s: RDK_INPUT_FORMAT, naming the cause', async (_what, names, message) => {
     const paths = names.map(at);
     const r = await refusal(paths);
-    expect(r.code).toBe('ERR_INPUT_FORMAT');
+    expect(r.code).toBe('RDK_INPUT_FORMAT');
     expect(r.message).toBe(message.replaceAll('{A}', paths[0]!).replaceAll('{B}', paths[1] ?? ''));
   });
 
@@ -138,7 +138,7 @@ describe('one format for the run', () => {
   it('profile reads each input named as a format as that format, and refuses a mix told by bytes', async () => {
     const both = await profile({ inputs: [at('a.csv'), at('c.jsonl')], stratify: 'fault', threads: 0 });
     expect(both.inputs.map((x) => x.format)).toEqual(['csv', 'jsonl']);
-    await expect(profile({ inputs: [at('a.csv'), at('events.log')] })).rejects.toMatchObject({ code: 'ERR_INPUT_FORMAT' });
+    await expect(profile({ inputs: [at('a.csv'), at('events.log')] })).rejects.toMatchObject({ code: 'RDK_INPUT_FORMAT' });
     const p = await profile({ inputs: [at('readings.txt')], stratify: 'fault', threads: 0 });
     expect(p.inputs[0]!.format).toBe('tsv');
     expect(p.strata!.values.map((v) => v.value)).toEqual([['drift'], ['none']]);
@@ -171,7 +171,7 @@ describe('standard input: told by its first bytes, and nothing of it lost', () =
   it('JSON Lines on standard input with --format csv: the user is taken at their word', () => {
     const r = run(['shuffle', '-', '--out', 'stdin-forced', '--format', 'csv', '--quiet'], JSONL);
     expect(r.status).toBe(1);
-    expect(String(r.stderr)).not.toContain('ERR_INPUT_FORMAT');
+    expect(String(r.stderr)).not.toContain('RDK_INPUT_FORMAT');
   });
 });
 
@@ -193,7 +193,7 @@ describe('the tools that write these formats, where installed', () => {
     const packed = spawnSync(tool, args, { input: CSV });
     writeFileSync(at(`real-${tool}.csv`), packed.stdout);
     const r = await refusal([at(`real-${tool}.csv`)]);
-    expect(r.code).toBe('ERR_INPUT_FORMAT');
+    expect(r.code).toBe('RDK_INPUT_FORMAT');
     expect(r.message).toContain(`${tool}-compressed data`);
   });
 });

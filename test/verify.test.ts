@@ -253,7 +253,7 @@ describe('damage is found and named', () => {
     const cli = runCli(['verify', d]);
     expect(cli.status).toBe(1);
     expect(cli.stderr).toContain(`${part.path}: sha256: expected ${part.sha256}, found ${sha256(path)}`);
-    expect(cli.stderr).toMatch(/does not match its manifest \(ERR_VERIFY_FAILED\): 3 mismatch/);
+    expect(cli.stderr).toMatch(/does not match its manifest \(RDK_VERIFY_FAILED\): 3 mismatch/);
     // --quiet drops the summary line but keeps the list.
     const quiet = runCli(['verify', d, '--quiet']);
     expect(quiet.status).toBe(1);
@@ -568,18 +568,18 @@ describe('damage is found and named', () => {
 });
 
 describe('unusable folders and usage', () => {
-  it('no manifest: ERR_MANIFEST naming the file and what to do; CLI exit 1', async () => {
+  it('no manifest: RDK_MANIFEST naming the file and what to do; CLI exit 1', async () => {
     const empty = makeTempDir('rowdeck-verify-empty-');
     try {
-      await expect(verify({ dir: empty })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining(join(empty, 'manifest.json')) });
+      await expect(verify({ dir: empty })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining(join(empty, 'manifest.json')) });
       const cli = runCli(['verify', empty]);
       expect(cli.status).toBe(1);
-      expect(cli.stderr).toMatch(/ERR_MANIFEST: .*manifest\.json: no such file\. Give the folder rowdeck shuffle wrote/);
-      await expect(verify({ dir: join(empty, 'nope') })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('no such folder') });
+      expect(cli.stderr).toMatch(/RDK_MANIFEST: .*manifest\.json: no such file\. Give the folder rowdeck shuffle wrote/);
+      await expect(verify({ dir: join(empty, 'nope') })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('no such folder') });
       // A file (the manifest itself, say) given as DIR: not a folder, rather than "no such folder".
       writeFileSync(join(empty, 'manifest.json'), '{}');
       await expect(verify({ dir: join(empty, 'manifest.json') })).rejects.toMatchObject({
-        code: 'ERR_MANIFEST',
+        code: 'RDK_MANIFEST',
         message: `${join(empty, 'manifest.json')}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`,
       });
     } finally {
@@ -587,20 +587,20 @@ describe('unusable folders and usage', () => {
     }
   });
 
-  it('a manifest that is not JSON, or lacks a field: ERR_MANIFEST naming the field', async () => {
+  it('a manifest that is not JSON, or lacks a field: RDK_MANIFEST naming the field', async () => {
     const { out } = await run('broken', { partitions: 2 });
     const path = join(out, 'manifest.json');
     const text = readFileSync(path, 'utf8');
     writeFileSync(path, text.slice(0, 100));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('not valid JSON') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('not valid JSON') });
     const m = JSON.parse(text) as Record<string, Record<string, unknown>>;
     delete m.output!.fingerprint;
     writeFileSync(path, JSON.stringify(m));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('"output.fingerprint"') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('"output.fingerprint"') });
     (m.output!.parts as { path: string }[])[0]!.path = '../../elsewhere.csv';
     m.output!.fingerprint = '0'.repeat(16);
     writeFileSync(path, JSON.stringify(m));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('outside the output folder') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('outside the output folder') });
   });
 
   it('no DIR is a usage error (exit 2); --help exits 0 and names every option', () => {

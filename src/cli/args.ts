@@ -39,7 +39,7 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
   const options: Record<string, unknown> = {};
   const own: Record<string, string | true> = {};
   const positionals: string[] = [];
-  const usage = (flag: string, message: string): RowdeckError => new RowdeckError('ERR_OPTION', `Invalid option --${flag}: ${message}`, { option: flag });
+  const usage = (flag: string, message: string): RowdeckError => new RowdeckError('RDK_OPTION', `Invalid option --${flag}: ${message}`, { option: flag });
 
   for (let i = 0; i < argv.length; i++) {
     const arg = argv[i]!;
@@ -93,13 +93,13 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
 
   if (positional === null) {
     if (positionals.length > 0) {
-      throw new RowdeckError('ERR_OPTION', `${commandName(spec, 'cli')} takes no arguments besides its options, got ${positionals.map((p) => JSON.stringify(p)).join(' ')}. See ${commandName(spec, 'cli')} --help.`);
+      throw new RowdeckError('RDK_OPTION', `${commandName(spec, 'cli')} takes no arguments besides its options, got ${positionals.map((p) => JSON.stringify(p)).join(' ')}. See ${commandName(spec, 'cli')} --help.`);
     }
   } else if (positionals.length > 0) {
     if (!positional.many && positionals.length > 1) {
       const name = spellOption('cli', spec.table, positional.key);
       const more = spec.command === 'verify' ? ' To compare with inputs, list them after --against.' : '';
-      throw new RowdeckError('ERR_OPTION', `${commandName(spec, 'cli')} takes one ${name}, got ${positionals.length}: ${positionals.join(', ')}.${more}`, { option: positional.key });
+      throw new RowdeckError('RDK_OPTION', `${commandName(spec, 'cli')} takes one ${name}, got ${positionals.length}: ${positionals.join(', ')}.${more}`, { option: positional.key });
     }
     options[positional.key] = positional.many ? positionals : positionals[0]!;
   }

@@ -45,7 +45,7 @@ export async function runCli(argv: string[], io: CliIO = { stdout: process.stdou
     if (!load) {
       const near = closest(cmd, Object.keys(COMMANDS));
       throw new RowdeckError(
-        'ERR_UNKNOWN_COMMAND',
+        'RDK_UNKNOWN_COMMAND',
         `unknown command "${cmd}".${near !== null ? ` Did you mean "${near}"?` : ''} Commands: ${Object.keys(COMMANDS).join(', ')}. See rowdeck --help.`,
         near !== null ? { suggestion: near } : {},
       );

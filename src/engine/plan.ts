@@ -105,13 +105,13 @@ export function resolveSplitWeights(o: Pick<ResolvedShuffleOptions, 'splits' | '
   const given = o.splits.reduce((a, s, i) => (i === o.restSplit ? a : a + s.weight), 0);
   if (o.restSplit >= 0) {
     if (given > records) {
-      throw new RowdeckError('ERR_SPLIT_SIZES', `${optionName(o.surface ?? 'cli', 'split')} asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
+      throw new RowdeckError('RDK_SPLIT_SIZES', `${optionName(o.surface ?? 'cli', 'split')} asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
     }
     return o.splits.map((s, i) => (i === o.restSplit ? { name: s.name, weight: records - given } : s));
   }
   if (given !== records) {
     throw new RowdeckError(
-      'ERR_SPLIT_SIZES',
+      'RDK_SPLIT_SIZES',
       `${optionName(o.surface ?? 'cli', 'split')} counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
     );
   }
@@ -203,7 +203,7 @@ export function checkTolerance(o: ResolvedShuffleOptions, worst: Worst, d: Deali
   if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
   if (o.assign === 'group') hints.push('smaller or more groups');
   throw new RowdeckError(
-    'ERR_TOLERANCE',
+    'RDK_TOLERANCE',
     `Cannot keep class ${what} (${size} of ${records} records) within ${optionSetting(o.surface, 'tolerance', String(o.tolerance))} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
     { stratum: what, count: size, deviation: worst.deviation, tolerance: o.tolerance },
   );

@@ -168,7 +168,7 @@ export function joinColumnShares(columns: string[], results: ProfileTaskResult[]
   const first = results[0];
   const joined = results.flatMap((r) => r.stats.columns);
   if (!first || joined.length !== columns.length || joined.some((c, i) => c !== columns[i]) || results.some((r) => r.stats.records !== first.stats.records)) {
-    throw new RowdeckError('ERR_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
+    throw new RowdeckError('RDK_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
   }
   return { stats: { ...first.stats, columns: columns.slice(), stats: results.flatMap((r) => r.stats.stats) }, strata: first.strata };
 }
@@ -328,7 +328,7 @@ export class ProfileTask {
 
 function tooManyStrata(columns: string[]): RowdeckError {
   return new RowdeckError(
-    'ERR_OPTION',
+    'RDK_OPTION',
     `--stratify ${columns.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
     { column: columns.join(',') },
   );

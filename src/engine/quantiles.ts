@@ -64,7 +64,7 @@ export function parseBinValue(text: string | null, column: string, file: string,
   const v = Number(text);
   if (!Number.isFinite(v)) {
     throw new RowdeckError(
-      'ERR_NOT_NUMERIC',
+      'RDK_NOT_NUMERIC',
       `${where(file, line)}: column "${column}" holds ${JSON.stringify(text.length > 40 ? text.slice(0, 40) + '…' : text)}, not a number; ${column}:bins=… needs numbers (or empty for missing). Stratify on it without :bins to treat it as classes.`,
       { file, line, column },
     );
@@ -149,7 +149,7 @@ export function selectRanks(v: Float64Array, ranks: readonly number[]): number[]
 export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
   const stream = o.inputs.find(isStreamInput);
   if (stream !== undefined) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
+    throw new RowdeckError('RDK_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
   }
   const cols = o.columns;
   const cap = Math.max(1024, Math.floor(o.memory / 4 / 16 / Math.max(1, cols.length)));

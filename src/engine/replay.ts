@@ -94,7 +94,7 @@ export async function replayShuffle(m: Manifest, inputs: string[], dir: string, 
 }
 
 /** Codes that say the replay could not run here (the environment), not that the output differs. */
-export const REPLAY_ENVIRONMENT_CODES = new Set(['ERR_IO', 'ERR_PERMISSION', 'ERR_DISK_FULL', 'ERR_TOO_MANY_OPEN_FILES', 'ERR_INPUT_NOT_FOUND', 'ERR_INTERNAL']);
+export const REPLAY_ENVIRONMENT_CODES = new Set(['RDK_IO', 'RDK_PERMISSION', 'RDK_DISK_FULL', 'RDK_TOO_MANY_OPEN_FILES', 'RDK_INPUT_NOT_FOUND', 'RDK_INTERNAL']);
 
 export interface ReplayDifference {
   /** A part's path, or `manifest.json`. */

@@ -135,7 +135,7 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
     onSchema: (schema) => {
       if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
         throw new RowdeckError(
-          'ERR_OPTION',
+          'RDK_OPTION',
           `Invalid option ${optionName(o.surface, 'foldColumn')}: the input already has a column named "${o.foldColumn}". Name the added column otherwise (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`,
           { option: 'foldColumn', column: o.foldColumn },
         );

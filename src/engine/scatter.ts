@@ -221,7 +221,7 @@ export class ScatterTask {
     const id = this.#strata.length;
     if (id >= MAX_STRATA) {
       throw new RowdeckError(
-        'ERR_OPTION',
+        'RDK_OPTION',
         `--stratify ${this.#c.stratify.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
         { column: this.#c.stratify.join(',') },
       );
@@ -590,7 +590,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   };
 
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
-  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('RDK_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
   const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>(o.workerFile!, tasks, config));
   const sender = lanes ? new BatchSender(lanes as unknown as BatchLanes) : null;
@@ -683,7 +683,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         reads.push(read);
         progress();
       }
-      if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records in this task's slices.`, { file: o.inputs[o.slices[0]?.slice.input ?? 0] });
+      if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records in this task's slices.`, { file: o.inputs[o.slices[0]?.slice.input ?? 0] });
       let results: ScatterTaskResult[];
       if (inline) results = [inline.finish()];
       else {
@@ -716,7 +716,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       readHere,
     );
     progress();
-    if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+    if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];
     else {

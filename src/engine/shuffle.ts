@@ -112,7 +112,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
 
     // ---- plan: quotas, expected counts, the tolerance check, before anything is written ----
     const records = sc.records;
-    if (records === 0) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
     const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
     const deal = dealSpecOf(o, records);
     const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
@@ -241,7 +241,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     // write a manifest that says otherwise.
     if (outFp.toHex() !== sc.fingerprint.toHex() || outFp.count !== sc.fingerprint.count) {
       throw new RowdeckError(
-        'ERR_INTERNAL',
+        'RDK_INTERNAL',
         `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but ${sc.fingerprint.count} were read (fingerprint ${sc.fingerprint.toHex()}). Nothing was written; please report this.`,
       );
     }
@@ -280,7 +280,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   } catch (err) {
     // A JSON Lines record with the fold column's key: the reader does not know how the caller
     // names the option; said here.
-    if (err instanceof RowdeckError && err.code === 'ERR_OPTION' && err.details.option === 'foldColumn' && err.message.endsWith('otherwise.')) {
+    if (err instanceof RowdeckError && err.code === 'RDK_OPTION' && err.details.option === 'foldColumn' && err.message.endsWith('otherwise.')) {
       throw new RowdeckError(err.code, `${err.message.slice(0, -1)} (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`, err.details);
     }
     // A fault of the environment met anywhere above: coded, with its path and operation.

@@ -456,7 +456,7 @@ export async function verify(given: VerifyOptions): Promise<VerifyReport> {
   let misordered: { expected: string; found: string } | null = null;
   if (options.against !== undefined) {
     const inputs = options.against;
-    if (inputs.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
+    if (inputs.length === 0) throw new RowdeckError('RDK_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
     const inHashes = outHashes !== null ? new HashList() : null;
     // Bad records are counted, not fatal: the manifest says how many the run refused.
     const read = await scanInputs(inputs, plan, inHashes, (done, records) =>
@@ -671,18 +671,18 @@ export function loadManifest(dir: string): Manifest {
     } catch {
       // Not there (or not reachable): said below.
     }
-    if (kind === 'other') throw new RowdeckError('ERR_MANIFEST', `${dir}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`, { file: dir });
-    if (kind === 'missing') throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
+    if (kind === 'other') throw new RowdeckError('RDK_MANIFEST', `${dir}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`, { file: dir });
+    if (kind === 'missing') throw new RowdeckError('RDK_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
     if (code === 'ENOENT') {
-      throw new RowdeckError('ERR_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
+      throw new RowdeckError('RDK_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
     }
-    throw new RowdeckError('ERR_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
   }
   let raw: unknown;
   try {
     raw = JSON.parse(text);
   } catch (err) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
   }
   checkManifestShape(raw, path);
   return raw;
@@ -695,7 +695,7 @@ export function loadManifest(dir: string): Manifest {
  */
 function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest {
   const fail = (field: string, want: string): never => {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
   };
   const obj = (v: unknown, field: string): Record<string, unknown> => (typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Record<string, unknown>) : fail(field, 'an object'));
   const arr = (v: unknown, field: string): unknown[] => (Array.isArray(v) ? v : fail(field, 'an array'));
@@ -707,7 +707,7 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
   const m = obj(raw, '(top level)');
   if (m.manifestVersion !== 1 && m.manifestVersion !== MANIFEST_VERSION) {
     throw new RowdeckError(
-      'ERR_MANIFEST',
+      'RDK_MANIFEST',
       `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads versions 1 to ${MANIFEST_VERSION}. ${typeof m.manifestVersion === 'number' && m.manifestVersion > MANIFEST_VERSION ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
       { file: path, field: 'manifestVersion' },
     );
@@ -782,7 +782,7 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
 /** A part path must stay inside the folder: verify reads only what the run wrote. */
 function safePath(p: string, field: string, path: string): void {
   if (p === '' || isAbsolute(p) || normalize(p).split(/[\\/]/).includes('..')) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
   }
 }
 
@@ -975,7 +975,7 @@ async function readAll(source: string | Readable | Buffer, reader: RecordReader,
     const b = reader.end();
     if (b) onBatch(b);
   } catch (err) {
-    if (err instanceof RowdeckError && (err.code === 'ERR_INPUT_EMPTY' || err.code === 'ERR_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
+    if (err instanceof RowdeckError && (err.code === 'RDK_INPUT_EMPTY' || err.code === 'RDK_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
     throw err;
   }
 }
@@ -1178,7 +1178,7 @@ async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | n
       });
     } catch (err) {
       if (!(err instanceof RowdeckError)) throw err;
-      if (err.code === 'ERR_INPUT_NOT_FOUND') throw err;
+      if (err.code === 'RDK_INPUT_NOT_FOUND') throw err;
       res.errors.push({ file, message: err.message });
     }
     if (plan.format !== 'jsonl' && plan.header && reader.schema) res.headers.push({ file, columns: reader.schema.columns });

@@ -28,7 +28,7 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
   if (name.endsWith('.csv')) return 'csv';
   if (name.endsWith('.tsv') || name.endsWith('.tab')) return 'tsv';
   if (name.endsWith('.jsonl') || name.endsWith('.ndjson')) return 'jsonl';
-  throw new RowdeckError('ERR_OPTION', `Cannot tell the format of "${path}" from its name (expected .csv, .tsv, .jsonl or .ndjson, optionally .gz). Pass --format csv|tsv|jsonl.`, { file: path });
+  throw new RowdeckError('RDK_OPTION', `Cannot tell the format of "${path}" from its name (expected .csv, .tsv, .jsonl or .ndjson, optionally .gz). Pass --format csv|tsv|jsonl.`, { file: path });
 }
 
 /**
@@ -187,7 +187,7 @@ export async function* openInput(source: string | Readable, counter?: SourceCoun
     if (err instanceof RowdeckError) throw err;
     const e = err as NodeJS.ErrnoException;
     if (typeof e?.code === 'string' && e.code.startsWith('Z_')) {
-      throw new RowdeckError('ERR_IO', `${name}: the gzip data is damaged or cut short (${e.message}). Check that the file was fully copied.`, { file: name, errno: e.code });
+      throw new RowdeckError('RDK_IO', `${name}: the gzip data is damaged or cut short (${e.message}). Check that the file was fully copied.`, { file: name, errno: e.code });
     }
     throw ioError(err, name, 'reading');
   }

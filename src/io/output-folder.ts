@@ -62,7 +62,7 @@ export function claimOutput(o: ClaimOptions): OutputClaim {
   const notice = o.notice ?? ((): void => {});
   const st = statOrNull(out, 'looking at the output folder');
   if (st && !st.isDirectory()) {
-    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
+    throw new RowdeckError('RDK_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
   }
   const parent = dirname(out);
   // A new folder's parents are made now (the lock lives beside the folder) and removed again on failure.
@@ -79,12 +79,12 @@ export function claimOutput(o: ClaimOptions): OutputClaim {
     const now = statOrNull(out, 'looking at the output folder');
     let old: OldOutput | null = null;
     if (now) {
-      if (!now.isDirectory()) throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
+      if (!now.isDirectory()) throw new RowdeckError('RDK_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
       const entries = listOutside(out, lock);
       if (entries.length > 0) {
         if (!o.force) {
           throw new RowdeckError(
-            'ERR_OUTPUT_EXISTS',
+            'RDK_OUTPUT_EXISTS',
             `${out}: is not empty (${describeEntries(entries)}). Choose another --out folder, or pass --force to replace a previous output of rowdeck there (only the files its manifest lists are replaced).`,
             { file: out, entries: entries.slice(0, 20) },
           );
@@ -141,7 +141,7 @@ interface OldOutput {
 function readOldOutput(out: string, lock: Lock): OldOutput {
   const refuse = (why: string, details: Record<string, unknown> = {}): never => {
     throw new RowdeckError(
-      'ERR_FORCE_REFUSED',
+      'RDK_FORCE_REFUSED',
       `${out}: ${why} --force replaces only a previous output of rowdeck, and only the files its manifest lists. Nothing was changed. Choose another --out folder, or move those entries away yourself.`,
       { file: out, ...details },
     );
@@ -220,7 +220,7 @@ function isRowdeckReport(path: string): boolean {
 function refuseUnsafeForce(out: string, inputs: string[]): void {
   const real = realOrSelf(out);
   const refuse = (why: string): never => {
-    throw new RowdeckError('ERR_FORCE_REFUSED', `${out}: --force is refused here: ${why} Choose a folder of its own for the output (e.g. --out ${join(out, 'shuffled')}).`, { file: out });
+    throw new RowdeckError('RDK_FORCE_REFUSED', `${out}: --force is refused here: ${why} Choose a folder of its own for the output (e.g. --out ${join(out, 'shuffled')}).`, { file: out });
   };
   if (dirname(real) === real) refuse('it is the root of the file system.');
   if (isMountPoint(real)) refuse('it is a mount point.');
@@ -390,7 +390,7 @@ function createClaim(out: string, stage: string, lock: Lock, old: OldOutput | nu
 function appearedError(out: string, entries: string[]): RowdeckError {
   const what = entries.length ? ` (${describeEntries(entries)})` : '';
   return new RowdeckError(
-    'ERR_OUTPUT_EXISTS',
+    'RDK_OUTPUT_EXISTS',
     `${out}: something else was written there while this run was working${what}. It was left as it is; this run's output was not put in place. Choose another --out folder.`,
     { file: out, entries: entries.slice(0, 20) },
   );

@@ -44,7 +44,7 @@ export function acquireLock(out: string, exists: boolean, notice: (text: string)
   } catch (err) {
     // An existing folder whose parent cannot hold a file (the root of a mounted disk, say):
     // the lock goes inside it.
-    if (!exists || !(err instanceof RowdeckError) || err.code !== 'ERR_PERMISSION') throw err;
+    if (!exists || !(err instanceof RowdeckError) || err.code !== 'RDK_PERMISSION') throw err;
     path = join(out, INSIDE_LOCK);
     takeLockFile(path, me, out, notice);
   }
@@ -151,7 +151,7 @@ function lockWriteError(err: unknown, path: string): RowdeckError {
   const code = (err as NodeJS.ErrnoException).code;
   if (code === 'ENOENT' && lstatOrNull(dirname(path))?.isDirectory()) {
     // The folder is there but takes no new files: /proc, /sys and the like.
-    return new RowdeckError('ERR_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
+    return new RowdeckError('RDK_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
   }
   return systemError(err, path, 'creating the lock file of the output folder');
 }
@@ -205,7 +205,7 @@ function lockedError(out: string, lockPath: string, held: LockContent | null): R
   const who = held ? `run ${held.pid} on ${held.host}, started ${held.startedAt}` : 'a run that is starting';
   const remote = held && held.host !== hostname() ? ` If no such run is going on ${held.host}, remove ${lockPath}.` : '';
   return new RowdeckError(
-    'ERR_OUTPUT_LOCKED',
+    'RDK_OUTPUT_LOCKED',
     `${out}: another rowdeck run is writing this output folder (${who}; lock file ${lockPath}). Wait for it to finish, or choose another --out folder.${remote}`,
     { file: out, lock: lockPath, ...(held ? { pid: held.pid, host: held.host } : {}) },
   );

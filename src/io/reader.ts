@@ -209,8 +209,8 @@ export class RecordReader {
   private rInQ = false;
   /**
    * A quoted field grew past maxRecordBytes: its bytes are dropped, and the rest of the input is
-   * only scanned for the closing quote, to tell a field that is too long (ERR_FIELD_TOO_LONG) from
-   * one that is never closed (ERR_UNTERMINATED_QUOTE). `quoteLast`: the bytes so far end in a
+   * only scanned for the closing quote, to tell a field that is too long (RDK_FIELD_TOO_LONG) from
+   * one that is never closed (RDK_UNTERMINATED_QUOTE). `quoteLast`: the bytes so far end in a
    * quote whose meaning the next byte decides.
    */
   private over: { line: number; quoteLast: boolean } | null = null;
@@ -231,7 +231,7 @@ export class RecordReader {
   private wNext = 0;
   private wFields = 0;
   private wLfs = 0;
-  private wCode: RowdeckErrorCode = 'ERR_INTERNAL';
+  private wCode: RowdeckErrorCode = 'RDK_INTERNAL';
   private wCol = 0;
   private wLineRel = 0;
   private wMsg = '';
@@ -246,7 +246,7 @@ export class RecordReader {
     const d = opts.delimiter ?? (opts.format === 'tsv' ? '\t' : ',');
     const db = Buffer.from(d, 'utf8');
     if (db.length !== 1 || db[0] === QUOTE || db[0] === LF || db[0] === CR) {
-      throw new RowdeckError('ERR_OPTION', `Invalid option "delimiter": expected one single-byte character other than a quote or a line end, got ${JSON.stringify(d)}`, {});
+      throw new RowdeckError('RDK_OPTION', `Invalid option "delimiter": expected one single-byte character other than a quote or a line end, got ${JSON.stringify(d)}`, {});
     }
     this.delim = db[0]!;
     this.pat = Math.imul(this.delim, 0x01010101);
@@ -302,7 +302,7 @@ export class RecordReader {
    * left out. Needs `adoptSchema` first. The batch is valid until the next call.
    */
   parseBlock(d: Buffer, pos: number, atEnd: boolean, baseOffset: number): RecordBatch | null {
-    if (!this.resumed) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.parseBlock() before adoptSchema()');
+    if (!this.resumed) throw new RowdeckError('RDK_INTERNAL', 'RecordReader.parseBlock() before adoptSchema()');
     this.reset(baseOffset, 1);
     return this.opts.format === 'jsonl' ? this.parseJsonl(d, pos, atEnd) : this.parseCsv(d, pos, atEnd);
   }
@@ -317,7 +317,7 @@ export class RecordReader {
   }
 
   push(chunk: Buffer): RecordBatch | null {
-    if (this.ended) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.push() after end()');
+    if (this.ended) throw new RowdeckError('RDK_INTERNAL', 'RecordReader.push() after end()');
     if (chunk.length === 0) return null;
     this.stats.bytes += chunk.length;
     this.lastByte = chunk[chunk.length - 1]!;
@@ -356,7 +356,7 @@ export class RecordReader {
     if (this.resumed) return batch;
     if (!this.sch) {
       const why = this.stats.rejected > 0 ? ` (${this.stats.rejected} refused as bad)` : this.stats.bytes > 0 ? ' (only blank lines)' : '';
-      throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
+      throw new RowdeckError('RDK_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
     }
     if (this.stats.records + this.stats.rejected === 0) checkNotHeaderOnly(this.opts, 0);
     return batch;
@@ -497,7 +497,7 @@ export class RecordReader {
     const { file } = this.opts;
     const line = this.over?.line ?? this.line;
     throw new RowdeckError(
-      'ERR_UNTERMINATED_QUOTE',
+      'RDK_UNTERMINATED_QUOTE',
       `${where(file, line)}: a quoted field in the record starting here is never closed (read to the end of the input, past the ${this.limitText()} a record may hold). Close the quote; write quotes inside a quoted field twice ("").`,
       { file, line },
     );
@@ -507,7 +507,7 @@ export class RecordReader {
     const { file } = this.opts;
     const line = this.over?.line ?? this.line;
     throw new RowdeckError(
-      'ERR_FIELD_TOO_LONG',
+      'RDK_FIELD_TOO_LONG',
       `${where(file, line)}: the record starting here holds a quoted field longer than ${this.limitText()}, the most one record may hold (the field is closed further on). Shorten or split that field, or keep such values out of the input.`,
       { file, line },
     );
@@ -608,7 +608,7 @@ export class RecordReader {
         while (nl < stop) { lfs++; nl = d.indexOf(LF, nl + 1); if (nl < 0) nl = n; }
         if (close < 0) {
           if (!atEnd) return WALK_MORE;
-          this.wCode = 'ERR_UNTERMINATED_QUOTE'; this.wCol = c + 1; this.wLineRel = qLine;
+          this.wCode = 'RDK_UNTERMINATED_QUOTE'; this.wCol = c + 1; this.wLineRel = qLine;
           this.wMsg = `a quoted field starts here and is never closed. Close the quote, write quotes inside the field twice (""), or use --on-bad-record skip|quarantine to set the rest aside.`;
           this.wEnd = n; this.wNext = n; this.wLfs = lfs;
           return WALK_BAD;
@@ -625,7 +625,7 @@ export class RecordReader {
           if (i + 1 >= n) { if (!atEnd) return WALK_MORE; }
           else if (d[i + 1] === LF) return this.walkDone(i, i + 2, c, lfs);
         }
-        return this.walkBad(d, i, n, atEnd, lfs, c, 'ERR_STRAY_QUOTE',
+        return this.walkBad(d, i, n, atEnd, lfs, c, 'RDK_STRAY_QUOTE',
           `text follows the closing quote of a quoted field. Inside a quoted field write a quote twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
       }
       // An unquoted stretch: up to the next quote or line end.
@@ -641,7 +641,7 @@ export class RecordReader {
       }
       // A quote opens a field only at the field's start.
       if (d[seg - 1] !== D) {
-        return this.walkBad(d, seg, n, atEnd, lfs, c, 'ERR_STRAY_QUOTE',
+        return this.walkBad(d, seg, n, atEnd, lfs, c, 'RDK_STRAY_QUOTE',
           `a quote (") inside an unquoted field. Put the whole field in quotes and write each quote in it twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
       }
       i = seg;
@@ -892,7 +892,7 @@ export class RecordReader {
     const N = this.ncols;
     const ch = String.fromCharCode(this.delim);
     const shown = ch === '\t' ? 'a tab' : `"${ch}"`;
-    this.reject('ERR_FIELD_COUNT', line, f > N ? N + 1 : f + 1,
+    this.reject('RDK_FIELD_COUNT', line, f > N ? N + 1 : f + 1,
       `record has ${f} field${f === 1 ? '' : 's'}, the ${this.opts.header ? 'header' : 'first record'} has ${N}. Quote fields that contain ${shown} or use --on-bad-record skip|quarantine to set such records aside.`,
       d, s, e);
   }
@@ -930,7 +930,7 @@ export class RecordReader {
         for (let f = 0; f < k; f++) {
           const prev = seen.get(columns[f]!);
           if (prev !== undefined) {
-            throw new RowdeckError('ERR_DUPLICATE_HEADER',
+            throw new RowdeckError('RDK_DUPLICATE_HEADER',
               `${where(file, this.line, f + 1)}: the header names column "${columns[f]}" twice (columns ${prev + 1} and ${f + 1}). Rename one of them so every column can be told apart.`,
               { file, line: this.line, column: f + 1 });
           }
@@ -959,7 +959,7 @@ export class RecordReader {
       if (exp[f] !== columns[f]) {
         const { file } = this.opts;
         const from = this.opts.expectedFrom ?? 'the first input';
-        throw new RowdeckError('ERR_HEADER_MISMATCH',
+        throw new RowdeckError('RDK_HEADER_MISMATCH',
           `${where(file, this.opts.format === 'jsonl' ? undefined : 1, f + 1)}: columns differ from ${from}: column ${f + 1} is ${columns[f] === undefined ? 'missing' : `"${columns[f]}"`}, ${from} has ${exp[f] === undefined ? 'no such column' : `"${exp[f]}"`}. All inputs must have the same columns in the same order.`,
           { file, line: 1, column: f + 1, expectedFrom: from, expected: exp, found: columns });
       }
@@ -1106,7 +1106,7 @@ export class RecordReader {
   private refuseRecord(line: number): never {
     const { file, refuseKey } = this.opts;
     throw new RowdeckError(
-      'ERR_OPTION',
+      'RDK_OPTION',
       // The option is named by the run, as its caller spells it (see shuffle.ts).
       `${where(file, line)}: this record already has a key "${refuseKey}", the name of the fold column the output adds (it would hold two). Name the fold column otherwise.`,
       { file, line, option: 'foldColumn', column: refuseKey },
@@ -1115,9 +1115,9 @@ export class RecordReader {
 
   private rejectJson(line: number, column: number | undefined, msg: string, d: Buffer, s: number, e: number): void {
     const { file, onBadRecord, onReject } = this.opts;
-    if (onBadRecord === 'fail') throw new RowdeckError('ERR_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
+    if (onBadRecord === 'fail') throw new RowdeckError('RDK_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
     this.stats.rejected++;
-    onReject?.({ file, line, code: 'ERR_INVALID_JSON', reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+    onReject?.({ file, line, code: 'RDK_INVALID_JSON', reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
   }
 
   /** Finds the raw value tokens of the wanted top-level keys in one valid JSON object at `i`. */
@@ -1193,7 +1193,7 @@ function skipJsonValue(d: Buffer, i: number): number {
 export function checkNotHeaderOnly(opts: Pick<RecordReaderOptions, 'format' | 'header' | 'file'>, seen: number): void {
   if (seen === 0 && opts.format !== 'jsonl' && opts.header) {
     const { file } = opts;
-    throw new RowdeckError('ERR_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
+    throw new RowdeckError('RDK_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
   }
 }
 
@@ -1213,7 +1213,7 @@ export function fieldText(batch: RecordBatch, i: number, w: number): string | nu
   }
 }
 
-/** ERR_UNKNOWN_COLUMN naming the closest column by edit distance and listing all of them. */
+/** RDK_UNKNOWN_COLUMN naming the closest column by edit distance and listing all of them. */
 export function unknownColumn(name: string, columns: string[], file: string): RowdeckError {
   let best = '';
   let bestD = Infinity;
@@ -1223,7 +1223,7 @@ export function unknownColumn(name: string, columns: string[], file: string): Ro
   }
   const hint = columns.length > 0 ? ` Did you mean "${best}"?` : '';
   const list = columns.length > 40 ? `${columns.slice(0, 40).join(', ')}, … (${columns.length} in all)` : columns.join(', ');
-  return new RowdeckError('ERR_UNKNOWN_COLUMN', `${file}: no column named "${name}".${hint} Columns: ${list}.`, { file, column: name, suggestion: best, columns });
+  return new RowdeckError('RDK_UNKNOWN_COLUMN', `${file}: no column named "${name}".${hint} Columns: ${list}.`, { file, column: name, suggestion: best, columns });
 }
 
 /** Levenshtein distance. */

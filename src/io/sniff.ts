@@ -141,7 +141,7 @@ async function readHead(path: string): Promise<Buffer | null> {
 }
 
 function formatError(message: string, file: string): RowdeckError {
-  return new RowdeckError('ERR_INPUT_FORMAT', message, { file });
+  return new RowdeckError('RDK_INPUT_FORMAT', message, { file });
 }
 
 /** What is known of one input: its format, and how it was decided. */
@@ -229,7 +229,7 @@ export async function chooseFormats(
   const unknown = kinds.find((k) => k.format === null && k.path !== '-' && isStream(k.path));
   if (unknown) {
     throw new RowdeckError(
-      'ERR_OPTION',
+      'RDK_OPTION',
       `Cannot tell the format of "${unknown.path}": its name is not .csv, .tsv, .jsonl or .ndjson (optionally .gz), and it is not a file whose first bytes can be looked at. Pass ${option('csv|tsv|jsonl')}.`,
       { file: unknown.path, option: 'format' },
     );

@@ -115,7 +115,7 @@ export function resolvePlanOptions(options: PlanOptions): ResolvedPlanOptions {
   const surface = surfaceOf(options);
   if (typeof options === 'object' && options !== null && Object.hasOwn(options, 'tempDir')) {
     throw new RowdeckError(
-      'ERR_OPTION',
+      'RDK_OPTION',
       `Invalid option ${optionName(surface, 'tempDir')}: a plan keeps its spill in the work folder (${optionName(surface, 'work')}), where every task can read it; leave ${optionName(surface, 'tempDir')} out.`,
       { option: 'tempDir' },
     );

@@ -245,7 +245,7 @@ const SPLIT_RULE = 'Weights are fractions (with a decimal point) adding up to 1,
  * number that is not whole) from 0 to 1, a record count (a whole number), or '*' (the rest, at most
  * one). Fractions must add up to 1 within 1e-9, or to less with a '*' taking the rest; counts and
  * fractions do not mix. Counts must add up to the records (or stay within them with a '*'): that is
- * checked once they are known (ERR_SPLIT_SIZES).
+ * checked once they are known (RDK_SPLIT_SIZES).
  */
 export function parseSplits(v: ShuffleOptions['split'], c: Checker): ParsedSplits {
   if (v === undefined) return { splits: [{ name: '', weight: 1 }], counts: false, rest: -1 };
@@ -515,7 +515,7 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
   const group = o.group ?? null;
   const assign0 = o.assign ?? 'exact';
   if (assign0 === 'hash' && key.length === 0) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option ${spell('assign')}: ${hash} needs ${spell('key')}, the columns a record's part follows from`, { option: 'key' });
+    throw new RowdeckError('RDK_OPTION', `Invalid option ${spell('assign')}: ${hash} needs ${spell('key')}, the columns a record's part follows from`, { option: 'key' });
   }
   if (assign0 === 'hash' && group !== null) c('assign').fail(`"exact" with ${spell('group')} (groups are dealt as units, not by key hash)`, assign0);
   if (assign0 === 'hash' && o.tolerance !== undefined) {

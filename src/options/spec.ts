@@ -9,7 +9,7 @@
  * table `satisfies` its interface, key for key).
  *
  * Messages follow one pattern: `Invalid option --name: expected …, got …` (command line) or
- * `Invalid option "name": expected …, got …` (library), with code ERR_OPTION.
+ * `Invalid option "name": expected …, got …` (library), with code RDK_OPTION.
  */
 import { RowdeckError } from '../errors.js';
 
@@ -30,9 +30,9 @@ export interface Checker {
   readonly surface: Surface;
   /** The key of the option being checked. */
   readonly key: string;
-  /** Throws ERR_OPTION: `Invalid option <name>: expected <expected>, got <got>`. */
+  /** Throws RDK_OPTION: `Invalid option <name>: expected <expected>, got <got>`. */
   fail(expected: string, got: unknown): never;
-  /** Throws ERR_OPTION: `Invalid option <name>: <message>` (where "expected …, got …" says too little). */
+  /** Throws RDK_OPTION: `Invalid option <name>: <message>` (where "expected …, got …" says too little). */
   reject(message: string): never;
   /** Another option's name as the caller spells it. */
   name(key: string): string;
@@ -129,7 +129,7 @@ export function showGot(v: unknown, surface: Surface, wantText = false): string 
 export function optionError(surface: Surface, table: OptionTable, key: string, expected: string, got: unknown, wantText = false): RowdeckError {
   const cli = table[key]?.cli;
   const what = surface === 'cli' && cli && 'positional' in cli ? 'argument' : 'option';
-  return new RowdeckError('ERR_OPTION', `Invalid ${what} ${spellOption(surface, table, key)}: expected ${expected}, got ${showGot(got, surface, wantText)}`, { option: key });
+  return new RowdeckError('RDK_OPTION', `Invalid ${what} ${spellOption(surface, table, key)}: expected ${expected}, got ${showGot(got, surface, wantText)}`, { option: key });
 }
 
 /** The checker of option `key` of a table, for messages spelled for `surface`. */
@@ -141,7 +141,7 @@ export function checkerFor(surface: Surface, table: OptionTable, key: string, wa
       throw optionError(surface, table, key, expected, got, wantText);
     },
     reject: (message) => {
-      throw new RowdeckError('ERR_OPTION', `Invalid option ${spellOption(surface, table, key)}: ${message}`, { option: key });
+      throw new RowdeckError('RDK_OPTION', `Invalid option ${spellOption(surface, table, key)}: ${message}`, { option: key });
     },
     name: (k) => spellOption(surface, table, k),
     setting: (k, value) => (surface === 'cli' ? `${spellOption(surface, table, k)} ${value}` : `${k}: ${JSON.stringify(value)}`),
@@ -171,13 +171,13 @@ export function surfaceOf(o: unknown): Surface {
 
 /**
  * Checks an options object against the command's table: an object; no key the table does not
- * know (ERR_UNKNOWN_OPTION, with the closest name); every required key there (ERR_MISSING_ARGUMENT);
+ * know (RDK_UNKNOWN_OPTION, with the closest name); every required key there (RDK_MISSING_ARGUMENT);
  * each value given through its option's check. Returns the checked values (absent ones left out).
  */
 export function readOptions(spec: CommandSpec, o: unknown, surface: Surface = surfaceOf(o), positional: readonly string[] = []): Record<string, unknown> {
   const { table } = spec;
   if (typeof o !== 'object' || o === null || Array.isArray(o)) {
-    throw new RowdeckError('ERR_OPTION', `Invalid options of ${commandName(spec, surface)}: expected an object, got ${showGot(o, surface)}`, { option: null });
+    throw new RowdeckError('RDK_OPTION', `Invalid options of ${commandName(spec, surface)}: expected an object, got ${showGot(o, surface)}`, { option: null });
   }
   const given = o as Record<string, unknown>;
   for (const key of Object.keys(given)) {
@@ -200,7 +200,7 @@ export function missingOption(spec: CommandSpec, key: string, surface: Surface):
   const cli = def.cli;
   const shown = surface === 'cli' && cli && 'flag' in cli ? `--${cli.flag}${cli.arg ? ` ${cli.arg}` : ''}` : spellOption(surface, spec.table, key);
   const article = surface === 'cli' && cli && 'positional' in cli ? (cli.many ? 'at least one ' : '') : '';
-  return new RowdeckError('ERR_MISSING_ARGUMENT', `${commandName(spec, surface)} needs ${article}${shown}, ${def.required}.`, { option: key });
+  return new RowdeckError('RDK_MISSING_ARGUMENT', `${commandName(spec, surface)} needs ${article}${shown}, ${def.required}.`, { option: key });
 }
 
 /**
@@ -216,7 +216,7 @@ export function unknownOption(spec: CommandSpec, key: string, surface: Surface, 
   const name = commandName(spec, surface);
   const hint = near !== null ? ` Did you mean ${surface === 'cli' ? `--${near}` : `"${near}"`}?` : surface === 'library' ? ` It takes: ${known.join(', ')}.` : '';
   const help = surface === 'cli' ? ` See ${name} --help.` : '';
-  return new RowdeckError('ERR_UNKNOWN_OPTION', `Unknown option ${shown} for ${name}.${hint}${help}`, { option: key, ...(near !== null ? { suggestion: near } : {}) });
+  return new RowdeckError('RDK_UNKNOWN_OPTION', `Unknown option ${shown} for ${name}.${hint}${help}`, { option: key, ...(near !== null ? { suggestion: near } : {}) });
 }
 
 /** Every flag of a command (without the dashes), library options first. */

@@ -161,7 +161,7 @@ export interface ResolvedReportOptions extends ReportOptions {
 export function resolveReportOptions(dir: string, options: ReportOptions = {}): ResolvedReportOptions {
   const surface = surfaceOf(options);
   if (typeof options === 'object' && options !== null && Object.hasOwn(options, 'dir')) {
-    throw new RowdeckError('ERR_UNKNOWN_OPTION', `Unknown option "dir" for writeReport(): the folder is its first argument, writeReport(dir, options).`, { option: 'dir' });
+    throw new RowdeckError('RDK_UNKNOWN_OPTION', `Unknown option "dir" for writeReport(): the folder is its first argument, writeReport(dir, options).`, { option: 'dir' });
   }
   const o = readOptions(REPORT_SPEC, typeof options === 'object' && options !== null ? { ...options, dir } : options, surface, ['dir']) as unknown as ResolvedReportOptions;
   return { ...o, surface };

@@ -38,7 +38,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
   const r = result.verify;
   if (r && !r.ok) {
     io.stderr.write(formatMismatches(r).map((l) => `${l}\n`).join(''));
-    io.stderr.write(`rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${r.mismatches.length} mismatch(es); the report shows them.\n`);
+    io.stderr.write(`rowdeck: ${dir} does not match its manifest (RDK_VERIFY_FAILED): ${r.mismatches.length} mismatch(es); the report shows them.\n`);
     return 1;
   }
   if (!v.quiet) {

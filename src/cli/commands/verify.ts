@@ -76,7 +76,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     } else {
       const files = new Set(report.mismatches.map((x) => x.file)).size;
       io.stderr.write(
-        `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}${replay}.\n`,
+        `rowdeck: ${dir} does not match its manifest (RDK_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}${replay}.\n`,
       );
     }
     if (report.dealingScheme === 1) {
