@@ -1,170 +1,297 @@
 #!/usr/bin/env node
-// rowdeck's benchmark: the job against what users would otherwise run, on the same files, one
-// command after another. Prints a table, writes bench/results/latest.json and regenerates the
-// "Shuffle" section of docs/benchmarks.md.
-//
-//   npm run bench                      # 1 GB, 200 MB and wide files (generated once into bench/data/)
-//   npm run bench -- --quick           # 100 MB and 20 MB, for trying the harness
-//   npm run bench -- --runs 5 --only rowdeck-strat,shuf
-//
-// Each case runs once as a warm-up, then --runs times (default 3); the median is reported.
-// Peak RSS comes from GNU time (`/usr/bin/time -f %M`) when it is installed.
-// The SQL peer needs `npm install --prefix bench` (bench/package.json); it is skipped otherwise.
-import { execFileSync, spawnSync } from 'node:child_process';
+// rowdeck's benchmark harness: the cases of bench/cases.mjs, with one untimed warm-up of every
+// command first, then rounds that each run every command once (A B C …, A B C …), so that a slow
+// moment of this shared machine falls on all of them alike. Reports min, median and max of wall
+// time, CPU time, peak RSS and bytes written; ratios and goals come from the same rounds.
+// Run `node bench/run.mjs --help` for the options.
+import { spawnSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
-import { cpus, totalmem } from 'node:os';
+import { loadavg } from 'node:os';
 import { dirname, join, resolve } from 'node:path';
-import { fileURLToPath } from 'node:url';
+import { fileURLToPath, pathToFileURL } from 'node:url';
+import { cases as catalogue, figures as figureList, inputs as inputSpecs, reportGroups } from './cases.mjs';
+import { ensureInputs } from './lib/data.mjs';
+import { availableMemory, detectTools, freeBytes, machineInfo, measure } from './lib/measure.mjs';
+import { schedule, summarize } from './lib/plan.mjs';
+import { busyNote, casesTable, compareTable, figuresTable, machineLine, mergeLatest, writeDocSection } from './lib/report.mjs';
+
+const HELP = `npm run bench -- [options]
+
+  --group a,b      groups of cases to run (default: core). Groups: GROUPS; all: every case
+  --only x,y       only these cases (names, * matches any text; within --group if given too)
+  --runs N         timed rounds after the warm-up (default 3)
+  --quick          100 MB and 20 MB files instead of 1 GB and 200 MB, to try the harness
+  --compare DIR    also time every rowdeck case with the build in DIR (DIR/dist/cli/main.js, or
+                   a main.js itself), side by side in the same rounds, and print this build's time
+                   over that one's for each case (--cli-b PATH: the same)
+  --scratch DIR    where outputs and spill go (default bench/data/tmp); removed after the run
+  --list           print the groups and cases, and stop
+
+Writes bench/results/last-run.json. A complete run of a report group (core, scale) that is not
+--quick, --only or --compare also writes its entry in bench/results/latest.json and its section
+of docs/benchmarks.md.`;
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), '..');
 const args = process.argv.slice(2);
 const flag = (name) => args.includes(`--${name}`);
 const value = (name, dflt) => {
   const i = args.indexOf(`--${name}`);
-  return i >= 0 ? args[i + 1] : dflt;
+  if (i < 0) return dflt;
+  if (i + 1 >= args.length || args[i + 1].startsWith('--')) usage(`--${name} needs a value`);
+  return args[i + 1];
 };
+function usage(msg) {
+  console.error(`bench: ${msg}\n\n${HELP.replace('GROUPS', '…')}`);
+  process.exit(2);
+}
+const known = new Set(['group', 'only', 'runs', 'quick', 'compare', 'cli-b', 'scratch', 'list', 'help']);
+for (const a of args) if (a.startsWith('--') && !known.has(a.slice(2))) usage(`unknown option ${a}`);
+
 const quick = flag('quick');
 const runs = Number(value('runs', 3));
-const only = value('only', null)?.split(',');
-const data = join(root, 'bench', 'data');
-const tmp = join(data, 'tmp');
-mkdirSync(tmp, { recursive: true });
+if (!Number.isInteger(runs) || runs < 1) usage('--runs must be a whole number of 1 or more');
+const dataDir = join(root, 'bench', 'data');
+const specs = inputSpecs(quick);
 
-const big = join(data, quick ? 'readings-100m.csv' : 'readings-1g.csv');
-const small = join(data, quick ? 'readings-20m.csv' : 'readings-200m.csv');
-for (const [file, bytes, seed] of [
-  [big, quick ? 1e8 : 1e9, quick ? 3 : 1],
-  [small, quick ? 2e7 : 2e8, quick ? 4 : 2],
-]) {
-  if (!existsSync(file)) {
-    console.error(`generating ${file} …`);
-    execFileSync(process.execPath, [join(root, 'bench', 'generate.mjs'), '--bytes', String(bytes), '--seed', String(seed), '--out', file], { stdio: 'inherit' });
+/** An input's size: the file's if made, else what it will be (copies: times the original). */
+function inputBytes(key) {
+  const spec = specs[key];
+  const file = join(dataDir, spec.file);
+  if (existsSync(file)) return statSync(file).size;
+  if (spec.copiesOf) return spec.times * inputBytes(spec.copiesOf);
+  const i = spec.generate.indexOf('--bytes');
+  return i >= 0 ? Number(spec.generate[i + 1]) : 0;
+}
+
+const all = catalogue({ inputBytes, root });
+const groupNames = [...new Set(all.flatMap((c) => c.groups))];
+if (flag('help')) {
+  console.log(HELP.replace('GROUPS', groupNames.join(', ')));
+  process.exit(0);
+}
+if (flag('list')) {
+  for (const g of groupNames) console.log(`${g}: ${all.filter((c) => c.groups.includes(g)).map((c) => c.name).join(', ')}`);
+  process.exit(0);
+}
+
+const only = value('only', null)?.split(',');
+// --only alone looks among all cases; --group alone defaults to core.
+const groups = value('group', only ? 'all' : 'core').split(',');
+for (const g of groups) if (g !== 'all' && !groupNames.includes(g)) usage(`no group named ${g} (groups: ${groupNames.join(', ')}, all)`);
+const matches = (name, pattern) => new RegExp(`^${pattern.split('*').map((p) => p.replace(/[.+?^${}()|[\]\\]/g, '\\$&')).join('.*')}$`).test(name);
+const selected = all.filter((c) => (groups.includes('all') || c.groups.some((g) => groups.includes(g))) && (!only || only.some((p) => matches(c.name, p))));
+if (selected.length === 0) usage('no case matches --group and --only');
+
+// The builds: this checkout's, and with --compare another one.
+const builds = [{ label: 'A', dir: root, cli: join(root, 'dist', 'cli', 'main.js') }];
+const other = value('compare', null) ?? value('cli-b', null);
+if (other) {
+  const p = resolve(other);
+  const cli = existsSync(join(p, 'dist', 'cli', 'main.js')) ? join(p, 'dist', 'cli', 'main.js') : p;
+  if (!existsSync(cli) || statSync(cli).isDirectory()) usage(`--compare ${other}: neither ${join(p, 'dist', 'cli', 'main.js')} nor a main.js; build it first (npm run build there)`);
+  builds.push({ label: 'B', dir: cli.endsWith(join('dist', 'cli', 'main.js')) ? resolve(cli, '..', '..', '..') : dirname(cli), cli });
+}
+if (!existsSync(builds[0].cli)) spawnSync('npm', ['run', 'build'], { cwd: root, stdio: 'inherit' });
+
+const tools = {
+  ...detectTools(),
+  shuf: spawnSync('shuf', ['--version'], { stdio: 'ignore' }).status === 0,
+  dd: spawnSync('dd', ['--version'], { stdio: 'ignore' }).status === 0,
+  duckdb: existsSync(join(root, 'bench', 'node_modules', '@duckdb', 'node-api')),
+};
+const toolHint = {
+  shuf: 'GNU coreutils shuf is not installed',
+  dd: 'dd is not installed',
+  duckdb: 'the SQL peer is not installed (npm install --prefix bench)',
+};
+
+// Skips for a missing tool come first, and each is said with one line.
+const skipped = {};
+const runnable = [];
+for (const c of selected) {
+  if (c.requires && !tools[c.requires]) {
+    skipped[c.name] = toolHint[c.requires];
+    console.error(`skip ${c.name}: ${skipped[c.name]}`);
+  } else runnable.push(c);
+}
+if (!tools.gnuTime) console.error('note: GNU time (/usr/bin/time) is missing, so peak RSS and CPU times are not measured (Debian: apt-get install time)');
+if (!tools.procIo) console.error('note: /proc/PID/io is missing, so bytes written are not measured');
+
+const paths = ensureInputs(root, dataDir, specs, [...new Set(runnable.map((c) => c.input))]);
+const scratch = resolve(value('scratch', join(dataDir, 'tmp')), `run-${process.pid}`);
+mkdirSync(scratch, { recursive: true });
+const cleanScratch = () => rmSync(scratch, { recursive: true, force: true });
+process.on('SIGINT', () => {
+  cleanScratch();
+  process.exit(130);
+});
+
+const machine = machineInfo(root, builds);
+console.error(`\n${machineLine(machine)}\n`);
+
+/** Budget of a case for its peak RSS figure: its `--memory`, else the build's default. */
+const defaultBudgets = {};
+async function defaultBudget(build) {
+  if (!(build.label in defaultBudgets)) {
+    let v = null;
+    try {
+      const mod = await import(pathToFileURL(join(dirname(build.cli), '..', 'options.js')).href);
+      if (typeof mod.DEFAULT_MEMORY === 'number') v = mod.DEFAULT_MEMORY;
+    } catch {
+      // a build without it: the manifest may say
+    }
+    defaultBudgets[build.label] = v;
+  }
+  return defaultBudgets[build.label];
+}
+/** What a shuffle's manifest says about the run: buckets, and the budget and layout where recorded. */
+function manifestFacts(out) {
+  const file = join(out, 'manifest.json');
+  if (!existsSync(file)) return null;
+  try {
+    const m = JSON.parse(readFileSync(file, 'utf8'));
+    const run = m.run ?? {};
+    const budget = [run.memory, run.budget, run.memoryBytes, m.options?.memory].find((x) => typeof x === 'number') ?? null;
+    return { buckets: run.buckets ?? null, threads: run.threads ?? null, budget, layout: run.layout ?? null, timingsMs: run.timingsMs ?? null };
+  } catch {
+    return null;
   }
 }
-// Wide: 2,002 columns (bench/generate-wide.mjs), for the column statistics' cost per column.
-const wide = join(data, quick ? 'rig-wide-1k.csv' : 'rig-wide.csv');
-if (!existsSync(wide)) {
-  console.error(`generating ${wide} …`);
-  execFileSync(process.execPath, [join(root, 'bench', 'generate-wide.mjs'), '--rows', quick ? '1000' : '5000', '--channels', '2000', '--seed', '1', '--out', wide], { stdio: 'inherit' });
-}
-if (!existsSync(join(root, 'dist', 'cli', 'main.js'))) execFileSync('npm', ['run', 'build'], { cwd: root, stdio: 'inherit' });
 
-const hasTime = spawnSync('/usr/bin/time', ['-f', '%M', 'true'], { encoding: 'utf8' }).status === 0;
-const hasShuf = spawnSync('shuf', ['--version']).status === 0;
-const hasDd = spawnSync('dd', ['--version']).status === 0;
-const hasDuck = existsSync(join(root, 'bench', 'node_modules', '@duckdb', 'node-api'));
-const cli = join(root, 'dist', 'cli', 'main.js');
-const rowdeck = (...a) => [process.execPath, cli, ...a];
-const out = join(tmp, 'out');
+const byName = Object.fromEntries(runnable.map((c) => [c.name, c]));
+const buildOf = Object.fromEntries(builds.map((b) => [b.label, b]));
+const argvOf = (c, build, io) => (c.rowdeck ? [process.execPath, build.cli, ...c.rowdeck(io)] : c.cmd(io));
+const ioOf = (c, build) => ({ input: paths[c.input], out: join(scratch, `${c.name}-${build.label}`.replace(/[^\w.-]/g, '_')) });
 
-/** name, file, command, and what to clean after each run. */
-const cases = [
-  { name: 'cat', file: big, cmd: ['sh', '-c', `cat '${big}' > /dev/null`] },
-  { name: 'cp', file: big, cmd: ['cp', big, join(tmp, 'copy.csv')], clean: join(tmp, 'copy.csv') },
-  // cp may copy inside the kernel (copy_file_range, as coreutils 9 does here) without the bytes
-  // reaching a program; dd reads and writes them through its own memory, 1 MiB at a time, as a
-  // program that looks at every record must.
-  ...(hasDd ? [{ name: 'dd', file: big, cmd: ['dd', `if=${big}`, `of=${join(tmp, 'dd.csv')}`, 'bs=1M', 'status=none'], clean: join(tmp, 'dd.csv') }] : []),
-  ...(hasShuf ? [{ name: 'shuf', file: big, cmd: ['shuf', big, '-o', join(tmp, 'shuf.csv')], clean: join(tmp, 'shuf.csv') }] : []),
-  { name: 'rowdeck-p8', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-strat', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-strat-stats', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--stats', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-folds', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--folds', '5', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-strat-small', file: small, cmd: rowdeck('shuffle', small, '--out', out, '--partitions', '8', '--stratify', 'fault', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-mem64', file: big, cmd: rowdeck('shuffle', big, '--out', out, '--partitions', '8', '--stratify', 'fault', '--memory', '64MiB', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-mem64-small', file: small, cmd: rowdeck('shuffle', small, '--out', out, '--partitions', '8', '--stratify', 'fault', '--memory', '64MiB', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  // Many parts with statistics: each part's tables are read back from its file rather than kept
-  // by every lane, so the peak stays near the 8-part run's.
-  { name: 'rowdeck-stats-256-mem64-small', file: small, cmd: rowdeck('shuffle', small, '--out', out, '--partitions', '256', '--stats', '--memory', '64MiB', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  { name: 'rowdeck-profile', file: big, cmd: ['sh', '-c', `'${process.execPath}' '${cli}' profile '${big}' --quiet > /dev/null`] },
-  // 2,000 columns x 5,000 records (61 MB): memory and time that grow with the column count.
-  { name: 'rowdeck-profile-wide', file: wide, cmd: ['sh', '-c', `'${process.execPath}' '${cli}' profile '${wide}' --quiet > /dev/null`] },
-  { name: 'rowdeck-stats-wide', file: wide, cmd: rowdeck('shuffle', wide, '--out', out, '--partitions', '8', '--stratify', 'rig_state', '--stats', '--seed', 'bench', '--force', '--quiet'), clean: out },
-  ...(hasDuck
-    ? [
-        { name: 'sql-peer', file: big, cmd: [process.execPath, join(root, 'bench', 'duckdb-deal.mjs'), big, out], clean: out },
-        { name: 'sql-peer-1g-cap', file: big, cmd: [process.execPath, join(root, 'bench', 'duckdb-deal.mjs'), big, out, '--memory-limit', '1GB'], clean: out },
-      ]
-    : []),
-].filter((c) => !only || only.includes(c.name));
-
-const hasSync = spawnSync('sync').status === 0;
-
-function runOnce(c) {
-  const cmd = hasTime ? ['/usr/bin/time', '-f', '%M', ...c.cmd] : c.cmd;
-  // Every case starts with nothing left for the disk to write: a shuffle writes ~2.2 GB, and the
-  // kernel writing back one run's output slowed the next one (the wall time of the cases depended
-  // on their order). `sync` runs before the clock starts.
-  if (hasSync) spawnSync('sync');
-  const t0 = process.hrtime.bigint();
-  const r = spawnSync(cmd[0], cmd.slice(1), { encoding: 'utf8', maxBuffer: 1 << 26 });
-  const secs = Number(process.hrtime.bigint() - t0) / 1e9;
-  if (c.clean) rmSync(c.clean, { recursive: true, force: true });
-  if (r.status !== 0) throw new Error(`${c.name} failed (exit ${r.status}): ${r.stderr.slice(-2000)}`);
-  const rssKb = hasTime ? Number(r.stderr.trim().split('\n').pop()) : NaN;
-  return { secs, rssMiB: Number.isFinite(rssKb) ? rssKb / 1024 : null };
+/** Why a case cannot run now (disk or memory short), or null. */
+function shortOf(c) {
+  const bytes = statSync(paths[c.input]).size;
+  const disk = c.needs?.disk?.(bytes);
+  if (disk) {
+    const free = freeBytes(scratch);
+    if (free < disk) return `needs ~${(disk / 1e9).toFixed(1)} GB free on the disk of ${scratch}, ${(free / 1e9).toFixed(1)} GB free`;
+  }
+  const mem = c.needs?.memory?.(bytes);
+  if (mem) {
+    const avail = availableMemory();
+    if (avail < mem) return `needs ~${(mem / 1e9).toFixed(1)} GB of memory, ${(avail / 1e9).toFixed(1)} GB available`;
+  }
+  return null;
 }
 
-const median = (xs) => [...xs].sort((a, b) => a - b)[Math.floor(xs.length / 2)];
-const results = {};
-for (const c of cases) {
-  process.stderr.write(`${c.name} … `);
-  runOnce(c); // warm-up
-  const samples = Array.from({ length: runs }, () => runOnce(c));
-  const secs = median(samples.map((s) => s.secs));
-  const rss = samples[0].rssMiB === null ? null : median(samples.map((s) => s.rssMiB));
-  const mb = statSync(c.file).size / 1e6;
-  results[c.name] = { file: c.file.replace(root + '/', ''), mb: Math.round(mb), secs, mbPerSec: mb / secs, peakRssMiB: rss, samples: samples.map((s) => s.secs) };
-  process.stderr.write(`${secs.toFixed(2)} s\n`);
+const order = schedule(runnable, runs, builds);
+const samples = {}; // `${name} ${build}` -> samples
+const facts = {};
+const failed = {};
+const key = (e) => `${e.name} ${e.build}`;
+
+function runEntry(e, phase) {
+  const c = byName[e.name];
+  if (failed[c.name] || skipped[c.name]) return;
+  const short = shortOf(c);
+  if (short) {
+    // Short before the warm-up: the case is skipped; later: this round's sample is.
+    if (phase === 'warm-up') skipped[c.name] = short;
+    console.error(`skip ${e.name}${builds.length > 1 && c.rowdeck ? ` [${e.build}]` : ''} (${phase}): ${short}`);
+    return;
+  }
+  const build = buildOf[e.build];
+  const io = ioOf(c, build);
+  const s = measure(argvOf(c, build, io), { tools, scratch });
+  if (c.rowdeck) facts[key(e)] = manifestFacts(io.out) ?? facts[key(e)];
+  rmSync(io.out, { recursive: true, force: true });
+  const label = `${phase} ${e.name}${builds.length > 1 && c.rowdeck ? ` [${e.build}]` : ''}`;
+  if (!s.ok) {
+    failed[c.name] = `exit ${s.status}: ${s.error}`;
+    console.error(`${label}: FAILED (${failed[c.name].trim().split('\n').slice(-3).join(' / ')})`);
+    return;
+  }
+  const extra = [s.peakRssMiB !== null ? `${s.peakRssMiB.toFixed(0)} MiB` : null, s.writtenBytes !== null ? `${(s.writtenBytes / 1e9).toFixed(2)} GB written` : null].filter(Boolean);
+  console.error(`${label}: ${s.wallS.toFixed(2)} s${extra.length ? ` (${extra.join(', ')})` : ''}`);
+  if (phase !== 'warm-up') (samples[key(e)] ??= []).push(s);
 }
 
-const r = (n) => results[n]?.secs;
-const ratio = (a, b) => (a && b ? a / b : null);
-const ratios = {
-  'rowdeck-strat / shuf': ratio(r('rowdeck-strat'), r('shuf')),
-  'rowdeck-strat / (2 x cp)': ratio(r('rowdeck-strat'), r('cp') && 2 * r('cp')),
-  'rowdeck-strat / (2 x dd)': ratio(r('rowdeck-strat'), r('dd') && 2 * r('dd')),
-  'rowdeck-strat big / small': ratio(r('rowdeck-strat'), r('rowdeck-strat-small')),
-  'rowdeck-mem64 peak RSS MiB': results['rowdeck-mem64']?.peakRssMiB ?? null,
-  'rowdeck-mem64-small peak RSS MiB': results['rowdeck-mem64-small']?.peakRssMiB ?? null,
-  'rowdeck-stats-256-mem64-small peak RSS MiB': results['rowdeck-stats-256-mem64-small']?.peakRssMiB ?? null,
-  'rowdeck-profile-wide peak RSS MiB': results['rowdeck-profile-wide']?.peakRssMiB ?? null,
-  'rowdeck-stats-wide peak RSS MiB': results['rowdeck-stats-wide']?.peakRssMiB ?? null,
-  'rowdeck-profile MB/s': results['rowdeck-profile']?.mbPerSec ?? null,
+for (const e of order.warmup) runEntry(e, 'warm-up');
+order.rounds.forEach((round, r) => {
+  for (const e of round) runEntry(e, `round ${r + 1}/${runs}`);
+});
+cleanScratch();
+machine.loadAverageEnd = loadavg().map((x) => Math.round(x * 100) / 100);
+
+// Summaries, for build A and (with --compare) B.
+const summaries = {}; // label -> name -> summary
+for (const c of runnable) {
+  for (const b of builds) {
+    const got = samples[`${c.name} ${b.label}`];
+    if (!got?.length) continue;
+    (summaries[b.label] ??= {})[c.name] = { ...summarize(got, statSync(paths[c.input]).size), inputBytes: statSync(paths[c.input]).size, input: paths[c.input].replace(`${root}/`, ''), facts: facts[`${c.name} ${b.label}`] ?? null };
+  }
+}
+const budgets = {};
+for (const c of runnable) {
+  const f = facts[`${c.name} A`];
+  budgets[c.name] = typeof c.budget === 'number' ? c.budget : c.budget === 'default' ? (f?.budget ?? (await defaultBudget(builds[0]))) : null;
+}
+const f = (name) => summaries.A?.[name] ?? null;
+const figureValues = figureList({ budgetOf: (name) => budgets[name] ?? null })
+  .filter((x) => runnable.some((c) => c.groups.includes(x.group)))
+  .map((x) => {
+    const value = x.of(f, 'median');
+    const met = value === null ? null : x.max !== undefined ? value <= x.max : x.atLeast !== undefined ? value >= x.atLeast : null;
+    return { group: x.group, text: x.text, value, fromMin: x.wall ? x.of(f, 'min') : null, max: x.max ?? null, atLeast: x.atLeast ?? null, met };
+  });
+
+const rowsOf = (list) =>
+  list.flatMap((c) => builds.filter((b) => summaries[b.label]?.[c.name]).map((b) => ({ name: c.name, build: c.rowdeck ? b.label : '', s: summaries[b.label][c.name], budget: budgets[c.name], facts: summaries[b.label][c.name].facts })));
+
+console.log(`\n${machineLine(machine)}\n${busyNote(machine) ? `${busyNote(machine)}\n` : ''}`);
+console.log(casesTable(rowsOf(runnable), { withBuild: builds.length > 1 }));
+const shownFigures = figureValues.filter((v) => v.value !== null);
+if (shownFigures.length) console.log(`\n${figuresTable(shownFigures)}`);
+const pairs = builds.length > 1 ? runnable.filter((c) => summaries.A?.[c.name] && summaries.B?.[c.name]).map((c) => ({ name: c.name, a: summaries.A[c.name], b: summaries.B[c.name] })) : [];
+if (pairs.length) console.log(`\n${compareTable(pairs, [`A (${machine.builds[0].commit})`, `B (${machine.builds[1].commit})`])}`);
+const notes = [...Object.entries(skipped).map(([n, why]) => `skipped ${n}: ${why}`), ...Object.entries(failed).map(([n, why]) => `FAILED ${n}: ${why.trim().split('\n').slice(-3).join(' / ')}`)];
+if (notes.length) console.log(`\n${notes.join('\n')}`);
+
+const report = {
+  machine,
+  options: { groups, only: only ?? null, runs, quick, compare: other ? builds[1].cli : null },
+  order: 'one untimed warm-up of every command, then rounds of every command once each, each run after sync',
+  cases: Object.fromEntries(runnable.map((c) => [c.name, { groups: c.groups, budget: budgets[c.name], ...Object.fromEntries(builds.map((b) => [b.label, summaries[b.label]?.[c.name] ?? null])) }])),
+  figures: figureValues,
+  skipped,
+  failed,
 };
-const commit = spawnSync('git', ['rev-parse', '--short', 'HEAD'], { cwd: root, encoding: 'utf8' }).stdout.trim();
-const machine = { cpu: cpus()[0]?.model ?? 'unknown', cores: cpus().length, memoryGiB: Math.round(totalmem() / 2 ** 30), node: process.version, commit, date: new Date().toISOString().slice(0, 10), quick, runs };
-const report = { machine, results, ratios };
+const resultsDir = join(root, 'bench', 'results');
+mkdirSync(resultsDir, { recursive: true });
+writeFileSync(join(resultsDir, 'last-run.json'), JSON.stringify(report, null, 2) + '\n');
 
-const rows = Object.entries(results).map(([name, x]) =>
-  `| ${name} | ${x.mb} MB | ${x.secs.toFixed(2)} | ${x.mbPerSec.toFixed(0)} | ${x.peakRssMiB === null ? 'n/a' : x.peakRssMiB.toFixed(0)} |`,
-);
-const table = ['| case | input | wall s (median) | MB/s | peak RSS MiB |', '|---|---|---|---|---|', ...rows].join('\n');
-const ratioRows = Object.entries(ratios)
-  .filter(([, v]) => v !== null)
-  .map(([k, v]) => `| ${k} | ${v.toFixed(2)} |`)
-  .join('\n');
-console.log(`\n${machine.cpu}, ${machine.cores} cores, ${machine.memoryGiB} GiB, Node ${machine.node}, commit ${commit}\n\n${table}\n\n| ratio | value |\n|---|---|\n${ratioRows}`);
+// Report groups run in full (every case of the group selected), on the real files, one build.
+if (!quick && !only && builds.length === 1) {
+  for (const [g, meta] of Object.entries(reportGroups)) {
+    const members = all.filter((c) => c.groups.includes(g));
+    if (!members.every((c) => selected.includes(c))) continue;
+    const ran = runnable.filter((c) => c.groups.includes(g));
+    const entry = {
+      machine,
+      runs,
+      cases: Object.fromEntries(ran.filter((c) => summaries.A?.[c.name]).map((c) => [c.name, { budget: budgets[c.name], ...summaries.A[c.name] }])),
+      figures: figureValues.filter((v) => v.group === g),
+      skipped: Object.fromEntries(members.filter((c) => skipped[c.name]).map((c) => [c.name, skipped[c.name]])),
+      failed: Object.fromEntries(members.filter((c) => failed[c.name]).map((c) => [c.name, failed[c.name]])),
+    };
+    mergeLatest(join(resultsDir, 'latest.json'), g, entry);
+    const groupNotes = [...Object.entries(entry.skipped).map(([n, why]) => `Skipped ${n}: ${why}.`), ...Object.entries(entry.failed).map(([n]) => `${n} failed (see bench/results/latest.json).`)];
+    const body = `Generated by \`npm run bench${g === 'core' ? '' : ` -- --group ${g}`}\` (bench/run.mjs) from bench/results/latest.json — do not edit by hand.
 
-mkdirSync(join(root, 'bench', 'results'), { recursive: true });
-writeFileSync(join(root, 'bench', 'results', quick ? 'quick.json' : 'latest.json'), JSON.stringify(report, null, 2) + '\n');
-if (!quick) {
-  const doc = join(root, 'docs', 'benchmarks.md');
-  const start = '<!-- shuffle-bench:start -->';
-  const end = '<!-- shuffle-bench:end -->';
-  const section = `${start}
-Generated by \`npm run bench\` (bench/run.mjs) from bench/results/latest.json — do not edit by hand.
+Machine: ${machineLine(machine)}.${busyNote(machine) ? ` ${busyNote(machine)}` : ''}
+One untimed warm-up of every command, then ${runs} rounds that each run every command once, in the order below, each after \`sync\`. Wall time: min, median and max of the rounds; CPU times and bytes written: medians; peak RSS: the largest (GNU time); written: \`write_bytes\` of /proc/PID/io (what the run handed to the page cache for the disk, spill included, even where removed before it was written back); buckets: from the run's manifest.
 
-Machine: ${machine.cpu}, ${machine.cores} cores, ${machine.memoryGiB} GiB; Node ${machine.node}; commit ${commit}; ${machine.date}.
-Median of ${runs} runs after a warm-up, each after \`sync\`; files from \`bench/generate.mjs\` (sorted by the 5-class \`fault\` column) and, for the two wide cases, \`bench/generate-wide.mjs\` (2,002 columns).
+${casesTable(rowsOf(ran), { withBuild: false })}
 
-${table}
-
-| ratio (same run) | value |
-|---|---|
-${ratioRows}
-${end}`;
-  let text = existsSync(doc) ? readFileSync(doc, 'utf8') : '# Benchmarks\n';
-  text = text.includes(start) ? text.replace(new RegExp(`${start}[\\s\\S]*${end}`), section) : `${text.trimEnd()}\n\n## Shuffle\n\n${section}\n`;
-  writeFileSync(doc, text);
+${figuresTable(entry.figures.filter((v) => v.value !== null))}${groupNotes.length ? `\n\n${groupNotes.join('\n')}` : ''}`;
+    writeDocSection(join(root, 'docs', 'benchmarks.md'), meta.marker, meta.heading, body);
+    console.error(`wrote the ${g} section of docs/benchmarks.md and bench/results/latest.json`);
+  }
 }
+if (Object.keys(failed).length) process.exitCode = 1;

@@ -1,8 +1,8 @@
 #!/usr/bin/env node
 // Writes src/io/jsonl.wat (the WebAssembly text of the JSON Lines record check) and
 // src/io/jsonl-wasm.ts (the same module assembled, as base64), using wabt from the npm registry.
-// Run after changing this file: node scripts/jsonl-wasm.mjs
-// test/jsonl.test.ts checks that both files are what this script makes.
+// LAYOUT goes beside the bytes. Run after changing this file: npm run wasm (all six modules) or
+// node scripts/jsonl-wasm.mjs. test/wasm.test.ts checks that the files are what this script makes.
 //
 // What the module does, for one line already in its memory (src/io/jsonl.ts lays out that memory):
 // - checks that the line is one JSON object with the grammar of RFC 8259 (sections 2 to 7), as
@@ -21,6 +21,16 @@
 // was ~70 % of reading JSON Lines (node --cpu-prof, stage 1 of a 200 MB file).
 import { fileURLToPath } from 'node:url';
 import { add, get, i32, inc, set, wasmModule } from './wasm-module.mjs';
+
+/** The tables src/io/jsonl.ts writes and reads in the module's memory. */
+export const LAYOUT = {
+  keyEntryBytes: 8,
+  answerBytes: 12,
+};
+const LAYOUT_DOC = {
+  keyEntryBytes: "a wanted key's entry in the key list: the address and length of its bytes (i32 each)",
+  answerBytes: "what object() writes for a wanted key: its value's token start, end and kind (i32 each)",
+};
 
 const byte = (at) => `(i32.load8_u ${at})`;
 /** The byte at $i into $c, or return 1 (not an object) at the end of the line. */
@@ -72,7 +82,7 @@ export function wat() {
     (block $init_done
       (loop $init
         (br_if $init_done (i32.ge_u ${get('k')} ${get('nkeys')}))
-        ${set('p', add(get('out'), `(i32.mul ${get('k')} (i32.const 12))`))}
+        ${set('p', add(get('out'), `(i32.mul ${get('k')} (i32.const ${LAYOUT.answerBytes}))`))}
         (i32.store ${get('p')} ${get('a')})
         (i32.store offset=4 ${get('p')} ${get('a')})
         (i32.store offset=8 ${get('p')} (i32.const 3))
@@ -119,7 +129,7 @@ export function wat() {
           (block $match_done
             (loop $match
               (br_if $match_done (i32.ge_u ${get('t')} ${get('nkeys')}))
-              ${set('p', add(get('keys'), `(i32.shl ${get('k')} (i32.const 3))`))}
+              ${set('p', add(get('keys'), `(i32.shl ${get('k')} (i32.const ${Math.log2(LAYOUT.keyEntryBytes)}))`))}
               (if (i32.eq (i32.load offset=4 ${get('p')}) ${get('kl')}) (then
                 ${set('q', `(i32.load ${get('p')})`)}
                 ${set('j', i32(0))}
@@ -198,7 +208,7 @@ export function wat() {
         (return (i32.ne ${get('i')} ${get('e')}))))
       ;; A member of the top-level object ended: a wanted one's value is vs..i.
       (if (i32.and (i32.eq ${get('d')} (i32.const 1)) (i32.ge_s ${get('w')} (i32.const 0))) (then
-        ${set('p', add(get('out'), `(i32.mul ${get('w')} (i32.const 12))`))}
+        ${set('p', add(get('out'), `(i32.mul ${get('w')} (i32.const ${LAYOUT.answerBytes}))`))}
         (i32.store ${get('p')} ${get('vs')})
         (i32.store offset=4 ${get('p')} ${get('i')})
         ${set('c', byte(get('vs')))}
@@ -244,8 +254,9 @@ export function wat() {
   }
 }
 
-const mod = wasmModule({ script: 'scripts/jsonl-wasm.mjs', wat: 'src/io/jsonl.wat', what: 'The JSON Lines record check (see jsonl.wat)', constName: 'JSONL_WASM_BASE64' });
-export const assemble = mod.assemble;
-export const moduleSource = mod.moduleSource;
+export const wasm = wasmModule({
+  script: 'scripts/jsonl-wasm.mjs', wat: 'src/io/jsonl.wat', what: 'The JSON Lines record check (see jsonl.wat)',
+  constName: 'JSONL_WASM_BASE64', text: wat, layoutName: 'JSONL_LAYOUT', layout: LAYOUT, layoutDoc: LAYOUT_DOC,
+});
 
-if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());
+if (process.argv[1] === fileURLToPath(import.meta.url)) await wasm.write();

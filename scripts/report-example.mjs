@@ -7,6 +7,7 @@ import { mkdtempSync, rmSync, statSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
+import { flags } from '../dist/flags.js';
 
 const root = fileURLToPath(new URL('..', import.meta.url));
 const cli = join(root, 'dist', 'cli', 'main.js');
@@ -21,7 +22,7 @@ try {
   run(['report', out, '--verify', '--quiet']);
   const png = join(root, 'docs', 'report-example.png');
   const r = spawnSync(
-    process.env.ROWDECK_CHROMIUM ?? 'chromium',
+    flags.chromium ?? 'chromium',
     ['--headless', '--no-sandbox', '--disable-gpu', '--disable-background-networking', '--disable-component-update', '--disable-sync', '--no-first-run', '--hide-scrollbars', `--user-data-dir=${join(work, 'profile')}`, '--window-size=1040,1400', `--screenshot=${png}`, pathToFileURL(join(out, 'report.html')).href],
     { stdio: 'ignore' },
   );

@@ -1,8 +1,9 @@
 #!/usr/bin/env node
 // Writes src/core/sort.wat (the WebAssembly text of stage 2's radix sort of a bucket by key) and
 // src/core/sort-wasm.ts (the same module assembled, as base64), using wabt from the npm
-// registry. Run after changing this file: node scripts/sort-wasm.mjs
-// test/kernels.test.ts checks that both files are what this script makes.
+// registry, with LAYOUT beside the bytes. Run after changing this file: npm run wasm (all six
+// modules) or node scripts/sort-wasm.mjs. test/wasm.test.ts checks that the files are what
+// this script makes.
 //
 // What the module does (src/core/sort.ts, sortByKey, lays out its memory and finishes the job):
 // - takes the 32 bits of each key below the bucket's shared top bits (its digit), and sorts
@@ -13,6 +14,16 @@
 // each digit up through the index and pays bounds checks on every step.
 import { fileURLToPath } from 'node:url';
 import { add, get, inc, set, wasmModule } from './wasm-module.mjs';
+
+/** Buckets of this many records and more take two passes of 16 bits; smaller ones three of 11. */
+const WIDE_FROM = 65536;
+/** What src/core/sort.ts lays out for the module. */
+export const LAYOUT = {
+  histBytes: 4 * Math.max(3 << 11, 2 << 16),
+};
+const LAYOUT_DOC = {
+  histBytes: "room for the histograms: every pass's counts (i32), 3 * 2^11 or 2 * 2^16 of them",
+};
 
 const at4 = (base, i) => add(get(base), `(i32.shl ${get(i)} (i32.const 2))`);
 
@@ -47,7 +58,7 @@ export function wat() {
         (i32.store ${at4('d0', 'i')} ${get('d')})
         (i32.store ${at4('o0', 'i')} ${get('i')})`)}
     ;; Big buckets: two passes of 16 bits; small ones three of 11.
-    (if (i32.ge_u ${get('n')} (i32.const 65536))
+    (if (i32.ge_u ${get('n')} (i32.const ${WIDE_FROM}))
       (then ${set('width', '(i32.const 16)')} ${set('passes', '(i32.const 2)')})
       (else ${set('width', '(i32.const 11)')} ${set('passes', '(i32.const 3)')}))
     ${set('mask', `(i32.sub (i32.shl (i32.const 1) ${get('width')}) (i32.const 1))`)}
@@ -93,8 +104,9 @@ export function wat() {
 `;
 }
 
-const mod = wasmModule({ script: 'scripts/sort-wasm.mjs', wat: 'src/core/sort.wat', what: "Stage 2's radix sort of a bucket (see sort.wat)", constName: 'SORT_WASM_BASE64' });
-export const assemble = mod.assemble;
-export const moduleSource = mod.moduleSource;
+export const wasm = wasmModule({
+  script: 'scripts/sort-wasm.mjs', wat: 'src/core/sort.wat', what: "Stage 2's radix sort of a bucket (see sort.wat)",
+  constName: 'SORT_WASM_BASE64', text: wat, layoutName: 'SORT_LAYOUT', layout: LAYOUT, layoutDoc: LAYOUT_DOC,
+});
 
-if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());
+if (process.argv[1] === fileURLToPath(import.meta.url)) await wasm.write();

@@ -1,8 +1,9 @@
 #!/usr/bin/env node
 // Writes src/engine/spill.wat (the WebAssembly text of stage 1's appends to the bucket buffers)
 // and src/engine/spill-wasm.ts (the same module assembled, as base64), using wabt from the npm
-// registry. Run after changing this file: node scripts/spill-wasm.mjs
-// test/spill-kernel.test.ts checks that both files are what this script makes.
+// registry, with LAYOUT beside the bytes. Run after changing this file: npm run wasm (all six
+// modules) or node scripts/spill-wasm.mjs. test/wasm.test.ts checks that the files are what
+// this script makes.
 //
 // What the module does, for a queue of records waiting in the staging area (src/engine/spill.ts,
 // BucketWriter, lays out its memory): each record goes to the end of its bucket's buffer in the
@@ -15,6 +16,17 @@
 // bits. ScatterTask uses it where a record's key is its identity (no --key or --group).
 import { fileURLToPath } from 'node:url';
 import { copy16, finish, fingerprint, get, i32, wasmModule } from './wasm-module.mjs';
+
+/** The spill layout the module writes, and its queue (src/engine/spill.ts lays its memory out by these). */
+export const LAYOUT = {
+  headerBytes: 24,
+  queueEntryBytes: 32,
+};
+const LAYOUT_DOC = {
+  headerBytes: "a spill record's header: keyHi, keyLo, offsetLo, offsetHi << 16 | input, stratum, len << 2 | term (u32 each); its bytes follow, zero-padded to a multiple of 4",
+  queueEntryBytes: 'a queued record: 8 u32 (bucket, keyHi, keyLo, offsetLo, offsetHi << 16 | input, stratum, address of its bytes, len << 2 | term)',
+};
+const QUEUE_SHIFT = Math.log2(LAYOUT.queueEntryBytes);
 
 /** MurmurHash3's body step of lane $h with word k (hash.ts: mixWord). Uses the local $k. */
 const mix = (h, k) => `(local.set $k (i32.rotl (i32.mul ${k} ${i32(0xcc9e2d51)}) (i32.const 15)))
@@ -64,7 +76,7 @@ export function wat() {
         (local.set $lo (i32.xor ${get('h2')} (i32.mul ${get('h1')} ${i32(0x9e3779b1)})))
         (local.set $s (i32.load (i32.add ${get('starts')} ${get('i4')})))
         (local.set $end (i32.load (i32.add ${get('ends')} ${get('i4')})))
-        (local.set $e (i32.add ${get('queue')} (i32.shl (i32.add ${get('from')} ${get('i')}) (i32.const 5))))
+        (local.set $e (i32.add ${get('queue')} (i32.shl (i32.add ${get('from')} ${get('i')}) (i32.const ${QUEUE_SHIFT}))))
         (i32.store ${get('e')} (if (result i32) (i32.eqz ${get('bits')}) (then (i32.const 0))
           (else (i32.shr_u ${get('hi')} (i32.sub (i32.const 32) ${get('bits')})))))
         (i32.store offset=4 ${get('e')} ${get('hi')})
@@ -84,11 +96,11 @@ export function wat() {
     (block $done
       (loop $record
         (br_if $done (i32.ge_u ${get('i')} ${get('n')}))
-        (local.set $e (i32.add ${get('queue')} (i32.shl ${get('i')} (i32.const 5))))
+        (local.set $e (i32.add ${get('queue')} (i32.shl ${get('i')} (i32.const ${QUEUE_SHIFT}))))
         (local.set $b4 (i32.shl (i32.load ${get('e')}) (i32.const 2)))
         (local.set $x (i32.load offset=28 ${get('e')}))
         (local.set $len (i32.shr_u ${get('x')} (i32.const 2)))
-        (local.set $need (i32.add (i32.const 24) (i32.and (i32.add ${get('len')} (i32.const 3)) (i32.const -4))))
+        (local.set $need (i32.add (i32.const ${LAYOUT.headerBytes}) (i32.and (i32.add ${get('len')} (i32.const 3)) (i32.const -4))))
         (local.set $pos (i32.load (i32.add ${get('fill')} ${get('b4')})))
         (br_if $done (i32.gt_u (i32.add ${get('pos')} ${get('need')}) (i32.load (i32.add ${get('ends')} ${get('b4')}))))
         ${header(0, 1)}
@@ -97,7 +109,7 @@ export function wat() {
         ${header(3, 4)}
         ${header(4, 5)}
         (i32.store offset=20 ${get('pos')} ${get('x')})
-        (local.set $dst (i32.add ${get('pos')} (i32.const 24)))
+        (local.set $dst (i32.add ${get('pos')} (i32.const ${LAYOUT.headerBytes})))
         (local.set $src (i32.load offset=24 ${get('e')}))
         ${copy16('dst', 'src', 'len')}
         ;; Zero the padding after the bytes (the copy may have written there).
@@ -113,8 +125,9 @@ export function wat() {
 `;
 }
 
-const mod = wasmModule({ script: 'scripts/spill-wasm.mjs', wat: 'src/engine/spill.wat', what: "Stage 1's appends to the bucket buffers (see spill.wat)", constName: 'SPILL_WASM_BASE64' });
-export const assemble = mod.assemble;
-export const moduleSource = mod.moduleSource;
+export const wasm = wasmModule({
+  script: 'scripts/spill-wasm.mjs', wat: 'src/engine/spill.wat', what: "Stage 1's appends to the bucket buffers (see spill.wat)",
+  constName: 'SPILL_WASM_BASE64', text: wat, layoutName: 'SPILL_LAYOUT', layout: LAYOUT, layoutDoc: LAYOUT_DOC,
+});
 
-if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());
+if (process.argv[1] === fileURLToPath(import.meta.url)) await wasm.write();

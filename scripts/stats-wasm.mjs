@@ -1,8 +1,8 @@
 #!/usr/bin/env node
 // Writes src/core/stats.wat (the WebAssembly text of the column statistics' per-value work) and
 // src/core/stats-wasm.ts (the same module assembled, as base64), using wabt from the npm registry.
-// Run after changing this file: node scripts/stats-wasm.mjs
-// test/kernels.test.ts checks that both files are what this script makes.
+// LAYOUT goes beside the bytes. Run after changing this file: npm run wasm (all six modules) or
+// node scripts/stats-wasm.mjs. test/wasm.test.ts checks that the files are what this script makes.
 //
 // What the module does, for a run of one column's fields of a record batch (src/core/stats-kernel.ts
 // lays out its memory), each field read as addField reads it (quotes off, a CSV "" undone):
@@ -23,7 +23,7 @@
 import { fileURLToPath } from 'node:url';
 import { get, i32, wasmModule } from './wasm-module.mjs';
 
-// Memory layout, shared with src/core/stats-kernel.ts (SLOT_* constants there).
+// Memory layout; src/core/stats-kernel.ts reads it as STATS_LAYOUT (LAYOUT below).
 export const POW10_AT = 0; // 23 f64: 10^0..10^22, all exact
 export const DAYS_AT = 192; // 13 bytes: days in month 1..12 (February 29)
 export const SCRATCH_AT = 1024; // a CSV value with "" undone (up to SLOT.boundCap bytes, and slack)
@@ -50,6 +50,40 @@ export const SLOT = {
   hi: 6400, // boundCap bytes
   boundCap: 1024,
 };
+const SKETCH_REGISTERS = 4096; // u8 each, indexed by a hash's top bits
+const ACC_SCALES = 23; // DecimalSums' scales 0..22
+const ACC_PER_SCALE = 6; // f64 accumulators a scale
+const EXACT_ENTRY_BYTES = 24; // exact(): a key's entry (hash, length + 1, three words, index: i32 each)
+
+/** What stats-kernel.ts reads: the slot's layout and the sizes inside it. */
+export const LAYOUT = {
+  slotsAt: SLOTS_AT,
+  slot: SLOT,
+  sketchRegisters: SKETCH_REGISTERS,
+  accScales: ACC_SCALES,
+  accPerScale: ACC_PER_SCALE,
+  kinds: 5,
+  exactEntryBytes: EXACT_ENTRY_BYTES,
+};
+const LAYOUT_DOC = {
+  slotsAt: "the first column's slot (constants and a scratch area lie below)",
+  slot: "a column's accumulator slot: byte offsets inside it",
+  'slot.bytes': 'the size of a slot',
+  'slot.acc': "DecimalSums' accumulators: accScales x accPerScale f64",
+  'slot.count': 'f64: values added (not missing)',
+  'slot.missing': 'f64: missing values',
+  'slot.decN': 'f64: values added to the accumulators',
+  'slot.bits': 'i32: KIND_BIT of the kinds seen',
+  'slot.text': 'i32: 1 once the type is text (classifying stops)',
+  'slot.loLen': 'i32: length of the low text bound, -1 while there is none (hiLen: the high one)',
+  'slot.lo': 'the low text bound, boundCap bytes (hi: the high one)',
+  'slot.boundCap': 'the longest value the module adds itself',
+  sketchRegisters: 'registers of the distinct-count sketch (a byte each, from slot.sketch)',
+  accScales: "DecimalSums' scales (0..22), accPerScale f64 accumulators each, from slot.acc",
+  accPerScale: 'f64 accumulators a scale',
+  kinds: 'f64 counts of kinds from slot.kinds: integer, number, boolean, datetime, text',
+  exactEntryBytes: "a key's entry in a column's exact table: hash, length + 1, three words, index (i32 each); the counts (u32) follow the entries",
+};
 
 const K_TEXT = 4;
 const ESCAPE = 5;
@@ -63,7 +97,7 @@ function dataString(bytes) {
   return [...bytes].map((b) => `\\${b.toString(16).padStart(2, '0')}`).join('');
 }
 
-const pow10 = new Uint8Array(Float64Array.from({ length: 23 }, (_, k) => 10 ** k).buffer);
+const pow10 = new Uint8Array(Float64Array.from({ length: ACC_SCALES }, (_, k) => 10 ** k).buffer);
 const days = Uint8Array.of(0, 31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31);
 
 const f64 = (x) => `(f64.const ${x})`;
@@ -438,7 +472,7 @@ export function wat() {
           ;; From here on the value is this slot's.
           ${addF(get('slot'), S.count, f64(1))}
           ;; value-sketch.ts: updateSketch.
-          (local.set $r (i32.add ${get('slot')} (i32.shr_u ${get('h')} (i32.const 20))))
+          (local.set $r (i32.add ${get('slot')} (i32.shr_u ${get('h')} (i32.const ${32 - Math.log2(SKETCH_REGISTERS)}))))
           (local.set $j (i32.xor ${get('h')} ${i32(0x5bd1e995)}))
           ${mix('j')}
           (local.set $j (i32.add (i32.clz ${get('j')}) (i32.const 1)))
@@ -452,7 +486,7 @@ export function wat() {
                 ;; column-state.ts: addNumber; exact-sum.ts: DecimalSums.add.
                 (f64.store offset=${S.min} ${get('slot')} (f64.min (f64.load offset=${S.min} ${get('slot')}) (global.get $x)))
                 (f64.store offset=${S.max} ${get('slot')} (f64.max (f64.load offset=${S.max} ${get('slot')}) (global.get $x)))
-                (local.set $o (i32.add ${get('slot')} (i32.mul (global.get $scale) (i32.const 48))))
+                (local.set $o (i32.add ${get('slot')} (i32.mul (global.get $scale) (i32.const ${8 * ACC_PER_SCALE}))))
                 (local.set $a (f64.floor (f64.mul (global.get $m) ${f64(INV_TWO26)})))
                 (local.set $b (f64.sub (global.get $m) (f64.mul ${get('a')} ${f64(TWO26)})))
                 ${addF(get('o'), S.acc, get('a'))}
@@ -517,7 +551,7 @@ export function wat() {
           ;; hash, length + 1, three words, the key's index; counts after the entries).
           (local.set $e (i32.and ${get('h')} ${get('mask')}))
           (loop $probe
-            (local.set $at (i32.add ${get('table')} (i32.mul ${get('e')} (i32.const 24))))
+            (local.set $at (i32.add ${get('table')} (i32.mul ${get('e')} (i32.const ${EXACT_ENTRY_BYTES}))))
             (local.set $j (i32.load offset=4 ${get('at')}))
             (if (i32.eqz ${get('j')}) (then (return ${get('i')})))
             (if (i32.eq (i32.load ${get('at')}) ${get('h')}) (then
@@ -525,7 +559,7 @@ export function wat() {
                 (if (i32.eq (i32.load offset=8 ${get('at')}) ${get('w0')}) (then
                   (if (i32.eq (i32.load offset=12 ${get('at')}) ${get('w1')}) (then
                     (if (i32.eq (i32.load offset=16 ${get('at')}) ${get('w2')}) (then
-                      (local.set $at (i32.add (i32.add ${get('table')} (i32.mul (i32.add ${get('mask')} (i32.const 1)) (i32.const 24)))
+                      (local.set $at (i32.add (i32.add ${get('table')} (i32.mul (i32.add ${get('mask')} (i32.const 1)) (i32.const ${EXACT_ENTRY_BYTES})))
                         (i32.shl (i32.load offset=20 ${get('at')}) (i32.const 2))))
                       (i32.store ${get('at')} (i32.add (i32.load ${get('at')}) (i32.const 1)))
                       ${addF(get('slot'), SLOT.count, f64(1))}
@@ -536,8 +570,9 @@ export function wat() {
 `;
 }
 
-const mod = wasmModule({ script: 'scripts/stats-wasm.mjs', wat: 'src/core/stats.wat', what: "The column statistics' per-value work (see stats.wat)", constName: 'STATS_WASM_BASE64' });
-export const assemble = mod.assemble;
-export const moduleSource = mod.moduleSource;
+export const wasm = wasmModule({
+  script: 'scripts/stats-wasm.mjs', wat: 'src/core/stats.wat', what: "The column statistics' per-value work (see stats.wat)",
+  constName: 'STATS_WASM_BASE64', text: wat, layoutName: 'STATS_LAYOUT', layout: LAYOUT, layoutDoc: LAYOUT_DOC,
+});
 
-if (process.argv[1] === fileURLToPath(import.meta.url)) await mod.write(wat());
+if (process.argv[1] === fileURLToPath(import.meta.url)) await wasm.write();

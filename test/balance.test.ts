@@ -6,7 +6,7 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { dealBalance, maxDeviation, signedDeviation, withinTolerance, worstDeviation } from '../src/core/balance.js';
+import { dealBalance, maxDeviation, signedDeviation, withinTolerance, balanceOfUnits } from '../src/core/balance.js';
 import { shuffle, type Manifest } from '../src/index.js';
 import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 
@@ -52,7 +52,7 @@ describe('the measure', () => {
   });
 
   it('parts win a tie with folds', () => {
-    expect(worstDeviation([1, 0, 0, 1], 2, [1, 0, 0, 1], 2, [1, 1]).kind).toBe('part');
+    expect(balanceOfUnits([1, 0, 0, 1], 2, [1, 0, 0, 1], 2, [1, 1]).kind).toBe('part');
   });
 
   it('the tolerance allows for rounding, no more', () => {
@@ -80,7 +80,7 @@ describe('a run\'s manifest', () => {
     const splits = [...new Set(m.output.parts.map((p) => p.split))];
     const folds = new Float64Array(splits.length * 4 * S);
     m.output.parts.forEach((p) => p.foldStrata!.forEach((row, f) => row.forEach((n, s) => (folds[(splits.indexOf(p.split) * 4 + f) * S + s]! += n))));
-    const w = worstDeviation(parts, m.output.parts.length, folds, splits.length * 4, sizes);
+    const w = balanceOfUnits(parts, m.output.parts.length, folds, splits.length * 4, sizes);
     expect(m.balance.maxDeviation).toBeGreaterThan(0);
     expect(w.deviation).toBe(m.balance.maxDeviation);
   });

@@ -1,8 +1,7 @@
 /**
- * The JSON Lines check in WebAssembly (src/io/jsonl.ts): its sources are in step; on lines made
- * by hand from RFC 8259's grammar and on many mutated random lines it takes exactly the lines
- * JSON.parse (ECMA-262, the reference here) reads as one object, and finds the same values of
- * the wanted keys as the reader's JavaScript path; and the reader gives the same records, fields,
+ * The JSON Lines check in WebAssembly (src/io/jsonl.ts): on lines made by hand from RFC 8259's
+ * grammar and on many mutated random lines it takes exactly the lines JSON.parse (ECMA-262, the
+ * reference here) reads as one object, and finds the same values of the wanted keys as the reader's JavaScript path; and the reader gives the same records, fields,
  * lines and refusals (with their messages) with it as without it.
  */
 import { readFileSync, writeFileSync } from 'node:fs';
@@ -13,23 +12,13 @@ import seedrandom from 'seedrandom';
 import { shuffle, type Manifest } from '../src/index.js';
 import { makeTempDir, removeDir } from './helpers/engine.js';
 import { JsonlCheck, JsonlChecker, MAX_DEPTH, useJsonlCheck } from '../src/io/jsonl.js';
-import { JSONL_WASM_BASE64 } from '../src/io/jsonl-wasm.js';
 import { readAll } from './reader.helpers.js';
-// @ts-expect-error: a plain ES module without types
-import { assemble, wat } from '../scripts/jsonl-wasm.mjs';
+import { flags } from '../src/flags.js';
 
-afterAll(() => useJsonlCheck(true));
-/** ROWDECK_JSONL=js runs the suite through JSON.parse alone: the module's own tests skip. */
-const moduleOff = process.env.ROWDECK_JSONL === 'js';
-
-describe('sources', () => {
-  it('jsonl.wat and the embedded module are what scripts/jsonl-wasm.mjs makes', async () => {
-    const text = (wat as () => string)();
-    expect(readFileSync(new URL('../src/io/jsonl.wat', import.meta.url), 'utf8')).toBe(text);
-    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
-    expect(Buffer.from(JSONL_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
-  });
-});
+// The module's own tests run whatever ROWDECK_JSONL says (test/wasm.test.ts checks the switch);
+// where the module does not run, checker() throws and they fail rather than skip.
+useJsonlCheck(true);
+afterAll(() => useJsonlCheck(flags.jsonl !== 'js'));
 
 /** JSON.parse's verdict: is the line one JSON object? */
 function parsesAsObject(line: Buffer): boolean {
@@ -56,7 +45,7 @@ function verdict(c: JsonlChecker, line: Buffer): JsonlCheck {
   return c.check(a, d.length - 1);
 }
 
-describe.skipIf(moduleOff)('which lines are one JSON object (RFC 8259 grammar; JSON.parse as the reference)', () => {
+describe('which lines are one JSON object (RFC 8259 grammar; JSON.parse as the reference)', () => {
   let c: JsonlChecker;
   beforeAll(() => void (c = checker(['a'])));
   // Each line with the verdict JSON.parse gives it (also asserted, so a wrong expectation fails).
@@ -129,7 +118,7 @@ describe.skipIf(moduleOff)('which lines are one JSON object (RFC 8259 grammar; J
   });
 });
 
-describe.skipIf(moduleOff)('wanted keys', () => {
+describe('wanted keys', () => {
   it('finds the last member with each key: its token and kind (string, null, other)', () => {
     const c = checker(['a', 'b', 'é', 'missing']);
     const line = Buffer.from('{"a":1,"b":"x","a":[1,{"a":2}] , "é" : null ,"n":{"b":3}}', 'utf8');
@@ -148,7 +137,7 @@ describe.skipIf(moduleOff)('wanted keys', () => {
   });
 });
 
-describe.skipIf(moduleOff)('many wanted keys, in any order', () => {
+describe('many wanted keys, in any order', () => {
   it('finds each key whatever the order of the members, with keys wanted twice, absent, repeated and prefixes of others (JSON.parse as the reference)', () => {
     // The module looks for a key starting after the one it matched last: objects in the wanted
     // order find theirs at once, others must still find every one.
@@ -217,7 +206,7 @@ function randomLine(rng: () => number): Buffer {
   return Buffer.from(buf.toString('latin1').replace(/\n/g, ' '), 'latin1');
 }
 
-describe.skipIf(moduleOff)('differential against JSON.parse on random and mutated lines (seeded)', () => {
+describe('differential against JSON.parse on random and mutated lines (seeded)', () => {
   it('takes exactly the lines JSON.parse reads as one object, and finds the wanted values the JavaScript path finds', () => {
     const rng = seedrandom('rowdeck-jsonl-check');
     const c = checker(['a', 'cls', 'é']);

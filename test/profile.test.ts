@@ -14,6 +14,7 @@ import seedrandom from 'seedrandom';
 import { profile, shuffle, type Profile, RowdeckError } from '../src/index.js';
 import { COLUMN_SHARE_MIN, columnShare, joinColumnShares } from '../src/engine/profile.js';
 import { cutText, drawBar, formatNumber } from '../src/cli/commands/profile.js';
+import { setFlag } from '../src/flags.js';
 import { makeSensorCsv, makeTempDir, parseCsv, removeDir } from './helpers/engine.js';
 import { stringify } from 'csv-stringify/sync';
 
@@ -160,14 +161,12 @@ describe('agreement with shuffle', () => {
     const p = await profile({ inputs: [file], threads: 0 });
     expect(p.columns.find((c) => c.name === 'n')!.type).toBe('number');
     for (const way of ['lanes', 'files']) {
-      const before = process.env.ROWDECK_PART_STATS;
-      process.env.ROWDECK_PART_STATS = way;
+      const restore = setFlag('ROWDECK_PART_STATS', way);
       let m: Awaited<ReturnType<typeof shuffle>>;
       try {
         m = await shuffle({ inputs: [file], out: join(dir, `by-hand-${way}`), partitions: 3, folds: 2, stats: true, seed: 'hand', threads: 2 });
       } finally {
-        if (before === undefined) delete process.env.ROWDECK_PART_STATS;
-        else process.env.ROWDECK_PART_STATS = before;
+        restore();
       }
       expect(m.input.stats).toEqual(p.columns);
       for (const part of m.output.parts) {
@@ -218,14 +217,12 @@ describe('many small inputs', () => {
       }
       const opts = { inputs: paths, stratify: 'fault', threads: 2 };
       const ahead = await profile(opts);
-      const before = process.env.ROWDECK_BLOCK_BYTES;
-      process.env.ROWDECK_BLOCK_BYTES = '2048'; // every shard over two blocks: read in blocks
+      const restore = setFlag('ROWDECK_BLOCK_BYTES', '2048'); // every shard over two blocks: read in blocks
       let blocks: Profile;
       try {
         blocks = await profile(opts);
       } finally {
-        if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-        else process.env.ROWDECK_BLOCK_BYTES = before;
+        restore();
       }
       expect(ahead.records).toBe(records);
       expect(stripRun(ahead)).toEqual(stripRun(blocks));
@@ -286,16 +283,14 @@ describe('wide inputs: the threads share out the columns', () => {
     const opts = { inputs: [csv, jsonl], stratify: 'colony_state' };
     const one = await profile({ ...opts, threads: 0 });
     // Blocks small enough that a narrow input this size would be parsed by the workers in blocks.
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024);
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', String(64 * 1024));
     let two: Profile;
     let three: Profile;
     try {
       two = await profile({ ...opts, threads: 2 });
       three = await profile({ ...opts, threads: 3 });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     expect(one.records).toBe(parseCsv(readFileSync(csv, 'utf8')).rows.length + 300); // counted by csv-parse
     expect(stripRun(two)).toEqual(stripRun(one));
@@ -383,14 +378,12 @@ describe('independent of the thread count', () => {
   });
 
   it('workers parsing the input in blocks give the profile of a sequential read', async () => {
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = String(64 * 1024); // ~40 blocks, many starting inside quoted line breaks
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', String(64 * 1024)); // ~40 blocks, many starting inside quoted line breaks
     let blocks: Profile;
     try {
       blocks = await profile({ inputs: [big], stratify: 'fault,site', threads: 2 });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     const p0 = await profile({ inputs: [big], stratify: 'fault,site', threads: 0 });
     expect(JSON.stringify(stripRun(blocks))).toBe(JSON.stringify(stripRun(p0)));
@@ -426,6 +419,21 @@ describe('independent of the thread count', () => {
   });
 });
 
+describe('distinct values', () => {
+  it('an estimate is never more than the values counted, and is marked approximate (~)', async () => {
+    // 50,000 different ids: past the exact table (1,000 values) the distinct count is estimated;
+    // for these values the estimate itself comes to 50,566, more than there are values.
+    const file = join(dir, 'ids.csv');
+    writeFileSync(file, `id\n${Array.from({ length: 50000 }, (_, i) => `S${i}`).join('\n')}\n`);
+    const [c] = (await profile({ inputs: [file], threads: 0 })).columns;
+    expect(c!.approximate).toBe(true);
+    expect(c!.count).toBe(50000);
+    expect(c!.distinct).toBe(50000);
+    const text = runCli(['profile', file]);
+    expect(text.stdout).toMatch(/^id\s+text\s+50,000\s+0\s+~50,000\s/m);
+  });
+});
+
 describe('warnings', () => {
   // 97 'ok' and 3 'rare' records.
   let file: string;
@@ -452,7 +460,7 @@ describe('warnings', () => {
     expect(suggested).toBeGreaterThanOrEqual(1);
     expect(suggested).toBeLessThan(5);
     // The planned setting fails in shuffle with the tolerance error the warning foretold.
-    await expect(shuffle({ inputs: [file], out: join(dir, 'out-fail'), partitions: 5, stratify: 'fault' })).rejects.toMatchObject({ code: 'ERR_TOLERANCE' });
+    await expect(shuffle({ inputs: [file], out: join(dir, 'out-fail'), partitions: 5, stratify: 'fault' })).rejects.toMatchObject({ code: 'RDK_TOLERANCE' });
     // The suggested partition count and the suggested tolerance both succeed.
     const ok = await shuffle({ inputs: [file], out: join(dir, 'out-ok'), partitions: suggested, stratify: 'fault' });
     expect(ok.balance.maxDeviation).toBeLessThanOrEqual(0.5);
@@ -482,7 +490,7 @@ describe('warnings', () => {
     const p = await profile({ inputs: [f], onBadRecord: 'skip', threads: 0 });
     expect(p.records).toBe(2);
     expect(p.rejected).toBe(1);
-    expect(p.rejects).toEqual([expect.objectContaining({ file: f, line: 3, code: 'ERR_FIELD_COUNT' })]);
+    expect(p.rejects).toEqual([expect.objectContaining({ file: f, line: 3, code: 'RDK_FIELD_COUNT' })]);
     expect(p.warnings.some((w) => w.code === 'REJECTED_RECORDS')).toBe(true);
   });
 });
@@ -510,14 +518,14 @@ describe('--exclude-values', () => {
 });
 
 describe('options', () => {
-  it('rejects invalid options with ERR_OPTION and the option name', async () => {
-    await expect(profile({ inputs: [sensors], folds: 1 })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('"folds"') });
-    await expect(profile({ inputs: [sensors], onBadRecord: 'quarantine' as 'skip' })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('"onBadRecord"') });
+  it('rejects invalid options with RDK_OPTION and the option name', async () => {
+    await expect(profile({ inputs: [sensors], folds: 1 })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('"folds"') });
+    await expect(profile({ inputs: [sensors], onBadRecord: 'quarantine' as 'skip' })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('"onBadRecord"') });
     await expect(profile({ inputs: [] })).rejects.toBeInstanceOf(RowdeckError);
   });
 
   it('names an unknown stratify column and suggests the closest', async () => {
-    await expect(profile({ inputs: [sensors], stratify: 'faults', threads: 0 })).rejects.toMatchObject({ code: 'ERR_UNKNOWN_COLUMN', message: expect.stringContaining('Did you mean "fault"?') });
+    await expect(profile({ inputs: [sensors], stratify: 'faults', threads: 0 })).rejects.toMatchObject({ code: 'RDK_UNKNOWN_COLUMN', message: expect.stringContaining('Did you mean "fault"?') });
   });
 });
 
@@ -559,12 +567,12 @@ describe('rowdeck profile (CLI)', () => {
   });
 
   it.each([
-    { args: ['profile'], status: 2, err: 'ERR_MISSING_ARGUMENT' },
-    { args: ['profile', 'sensors.csv', '--bogus'], status: 2, err: 'ERR_UNKNOWN_OPTION' },
-    { args: ['profile', 'sensors.csv', '--partitions', 'x'], status: 2, err: 'ERR_OPTION' },
-    { args: ['profile', 'sensors.csv', '--on-bad-record', 'quarantine'], status: 2, err: 'ERR_OPTION' },
-    { args: ['profile', 'nope.csv'], status: 1, err: 'ERR_INPUT_NOT_FOUND' },
-    { args: ['profile', 'sensors.csv', '--stratify', 'nope'], status: 1, err: 'ERR_UNKNOWN_COLUMN' },
+    { args: ['profile'], status: 2, err: 'RDK_MISSING_ARGUMENT' },
+    { args: ['profile', 'sensors.csv', '--bogus'], status: 2, err: 'RDK_UNKNOWN_OPTION' },
+    { args: ['profile', 'sensors.csv', '--partitions', 'x'], status: 2, err: 'RDK_OPTION' },
+    { args: ['profile', 'sensors.csv', '--on-bad-record', 'quarantine'], status: 2, err: 'RDK_OPTION' },
+    { args: ['profile', 'nope.csv'], status: 1, err: 'RDK_INPUT_NOT_FOUND' },
+    { args: ['profile', 'sensors.csv', '--stratify', 'nope'], status: 1, err: 'RDK_UNKNOWN_COLUMN' },
   ])('exit $status with $err for $args', ({ args, status, err }) => {
     const r = runCli(args);
     expect(r.status, r.stderr).toBe(status);

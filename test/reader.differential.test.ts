@@ -77,7 +77,7 @@ function ourParse(text: string, delim: string, cuts: number[]): { rows: string[]
     const r = readAll(text, { header: false, delimiter: delim, format: delim === '\t' ? 'tsv' : 'csv', wanted }, cuts);
     return { rows: r.fields.map((f) => f.map((v) => v ?? '<missing>')), raw: r.raw };
   } catch (err) {
-    if ((err as { code?: string }).code?.startsWith('ERR_')) return null;
+    if ((err as { code?: string }).code?.startsWith('RDK_')) return null;
     throw err;
   }
 }

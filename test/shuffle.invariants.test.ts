@@ -11,6 +11,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
 import { BUFFER_CAP, chooseBuckets, spillFactor } from '../src/engine/shuffle.js';
 import { READ_BACK_BYTES, STATS_BYTES_PER_COLUMN, statsInLanes } from '../src/engine/part-stats.js';
+import { setFlag } from '../src/flags.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
 let dir: string;
@@ -73,7 +74,7 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     const modes: [string, Record<string, unknown>][] = [
       ['stratified folds with statistics', { partitions: 3, folds: 4, stratify: 'fault', stats: true }],
       ['groups', { partitions: 2, group: 'sensor', stratify: 'fault', tolerance: 1 }],
-      ['hash assignment by key', { partitions: 3, assign: 'hash', key: 'id', stratify: 'fault', tolerance: 2 }],
+      ['hash assignment by key', { partitions: 3, assign: 'hash', key: 'id', stratify: 'fault' }],
       ['named splits and quantile bins', { split: 'train=0.7,test=0.3', stratify: 'reading:bins=4', folds: 2, tolerance: 1 }],
       ['JSON Lines', { partitions: 2, stratify: 'fault', inputs: [jsonl] }],
     ];
@@ -109,14 +110,12 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     const packed2 = join(dir, 'blocks-2.csv.gz');
     writeFileSync(packed2, gzipSync(text2));
     const opts = { seed: 'blocks', partitions: 3, stratify: 'fault', folds: 2, onBadRecord: 'quarantine' as const, threads: 2 };
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = '3000';
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', '3000');
     let mBlocks: Manifest;
     try {
       mBlocks = await shuffle({ inputs: [plain, plain2], out: join(dir, 'inv1-blocks'), ...opts });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     const mSeq = await shuffle({ inputs: [packed, packed2], out: join(dir, 'inv1-seq'), ...opts });
     const a = outputsOf(join(dir, 'inv1-blocks'));
@@ -149,14 +148,12 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     }
     const opts = { seed: 'shards', partitions: 4, stratify: 'fault', folds: 3, onBadRecord: 'quarantine' as const, threads: 2 };
     const ahead = await shuffle({ inputs: paths, out: join(dir, 'shards-ahead'), ...opts });
-    const before = process.env.ROWDECK_BLOCK_BYTES;
-    process.env.ROWDECK_BLOCK_BYTES = '4096';
+    const restore = setFlag('ROWDECK_BLOCK_BYTES', '4096');
     let blocks: Manifest;
     try {
       blocks = await shuffle({ inputs: paths, out: join(dir, 'shards-blocks'), ...opts });
     } finally {
-      if (before === undefined) delete process.env.ROWDECK_BLOCK_BYTES;
-      else process.env.ROWDECK_BLOCK_BYTES = before;
+      restore();
     }
     expect(outputsOf(join(dir, 'shards-ahead'))).toEqual(outputsOf(join(dir, 'shards-blocks')));
     expect(ahead.input.rejected).toBe(5);
@@ -283,7 +280,7 @@ describe('invariant 2: nothing lost, nothing invented', () => {
         }
       },
     });
-    await expect(run).rejects.toMatchObject({ code: 'ERR_INTERNAL', message: expect.stringContaining('were read (fingerprint') });
+    await expect(run).rejects.toMatchObject({ code: 'RDK_INTERNAL', message: expect.stringContaining('were read (fingerprint') });
     expect(damaged).toBeGreaterThan(0);
     expect(existsSync(out)).toBe(false);
   });
@@ -433,7 +430,7 @@ describe('invariant 3: exact dealing', () => {
       ['rest/part-00000.csv', 11500],
       ['rest/part-00001.csv', 11500],
     ]);
-    await expect(shuffle({ inputs: [input], out: join(dir, 'split-bad'), split: 'a=1000,b=2000' })).rejects.toMatchObject({ code: 'ERR_SPLIT_SIZES' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'split-bad'), split: 'a=1000,b=2000' })).rejects.toMatchObject({ code: 'RDK_SPLIT_SIZES' });
     expect(existsSync(join(dir, 'split-bad'))).toBe(false);
   });
 });
@@ -445,12 +442,13 @@ describe('invariant 6: the tolerance is checked before anything is written', () 
     writeFileSync(file, text);
     const out = join(dir, 'rare-out');
     const err = await shuffle({ inputs: [file], out, partitions: 8, stratify: 'fault' }).catch((e: unknown) => e);
-    expect(err).toMatchObject({ code: 'ERR_TOLERANCE' });
+    expect(err).toMatchObject({ code: 'RDK_TOLERANCE' });
     const msg = (err as Error).message;
     expect(msg).toContain('fault="smoke"');
     expect(msg).toContain('4 of 2000');
     expect(msg).toMatch(/fewer partitions/);
-    expect(msg).toMatch(/--tolerance/);
+    // Spelled as the library is called (the command line says --tolerance 1).
+    expect(msg).toContain('a looser tolerance (tolerance: 1 or more)');
     expect(existsSync(out)).toBe(false);
     expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
     // A looser tolerance lets it through, and the achieved deviation is recorded.
@@ -469,7 +467,7 @@ describe('invariant 7: failure leaves nothing that looks complete', () => {
     writeFileSync(file, lines.join('\n'));
     const out = join(dir, 'bad-out');
     const err = await shuffle({ inputs: [file], out, partitions: 2, memory: '4MiB' }).catch((e: unknown) => e);
-    expect(err).toMatchObject({ code: 'ERR_FIELD_COUNT' });
+    expect(err).toMatchObject({ code: 'RDK_FIELD_COUNT' });
     expect(existsSync(out)).toBe(false);
     expect(readdirSync(dir).filter((f) => f.startsWith('.rowdeck-'))).toEqual([]);
   });
@@ -477,7 +475,7 @@ describe('invariant 7: failure leaves nothing that looks complete', () => {
   it('an existing non-empty folder is refused without --force, and replaced whole with it', async () => {
     const out = join(dir, 'exists');
     await shuffle({ inputs: [input], out, partitions: 3 });
-    await expect(shuffle({ inputs: [input], out, partitions: 2 })).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS' });
+    await expect(shuffle({ inputs: [input], out, partitions: 2 })).rejects.toMatchObject({ code: 'RDK_OUTPUT_EXISTS' });
     expect(listFiles(out)).toContain('part-00002.csv');
     await shuffle({ inputs: [input], out, partitions: 2, force: true });
     expect(listFiles(out)).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv']);
@@ -588,13 +586,13 @@ describe('the memory plan of --stats: per-part statistics in the lanes or read b
       ['TSV with CR LF', { inputs: [tsv], partitions: 3, folds: 2 }],
       ['JSON Lines, folds', { inputs: [jsonl], partitions: 3, folds: 2, stratify: 'fault' }],
     ];
-    const saved = process.env.ROWDECK_PART_STATS;
+    const restore = setFlag('ROWDECK_PART_STATS', undefined); // each run below sets it
     try {
       for (const [name, opts] of cases) {
         for (const threads of [0, 2]) {
           const got: Record<string, { manifest: unknown; files: Record<string, string>; readBack: boolean }> = {};
           for (const way of ['lanes', 'files']) {
-            process.env.ROWDECK_PART_STATS = way;
+            setFlag('ROWDECK_PART_STATS', way);
             const out = join(dir, `stats-ways-${way}`);
             const stages = new Set<string>();
             const m = await shuffle({ out, force: true, seed: 'ways', stats: true, threads, onProgress: (e) => void stages.add(e.stage), ...opts });
@@ -610,8 +608,7 @@ describe('the memory plan of --stats: per-part statistics in the lanes or read b
         }
       }
     } finally {
-      if (saved === undefined) delete process.env.ROWDECK_PART_STATS;
-      else process.env.ROWDECK_PART_STATS = saved;
+      restore();
     }
   });
 

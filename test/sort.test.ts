@@ -8,6 +8,7 @@
 import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { compareRecords, sortByKey, sortsInWasm, useSortKernel, type SortKeys } from '../src/core/sort.js';
+import { flags } from '../src/flags.js';
 
 // The module's sources are checked with the others' in test/kernels.test.ts.
 afterAll(() => useSortKernel(true));
@@ -40,7 +41,7 @@ function makeKeys(rng: () => number, n: number, bits: number, style: 'random' | 
 }
 
 // ROWDECK_SORT=js (a run of the suite without the modules) leaves only the JavaScript passes.
-const paths: [string, boolean][] = process.env.ROWDECK_SORT === 'js' ? [['JavaScript', false]] : [['WebAssembly', true], ['JavaScript', false]];
+const paths: [string, boolean][] = flags.sort === 'js' ? [['JavaScript', false]] : [['WebAssembly', true], ['JavaScript', false]];
 
 describe.each(paths)('sortByKey, radix passes in %s', (_, wasm) => {
   it('gives the order of a comparison sort by (key, identity), on every size path', () => {

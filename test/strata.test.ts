@@ -159,7 +159,7 @@ describe('shuffle, profile and verify name a class alike', () => {
     const input = join(dir, 'in.csv');
     const failed = await shuffle({ inputs: [input], out: join(dir, 'never'), stratify: 'fault', partitions: 4, tolerance: 0.1, excludeValues: true }).catch((e: unknown) => e);
     expect(failed).toBeInstanceOf(RowdeckError);
-    expect((failed as RowdeckError).code).toBe('ERR_TOLERANCE');
+    expect((failed as RowdeckError).code).toBe('RDK_TOLERANCE');
     expect((failed as RowdeckError).message).toMatch(new RegExp(`^Cannot keep class stratum #${rarePlace + 1} \\(2 of 42 records\\)`));
 
     const p = await profile({ inputs: [input], stratify: 'fault', partitions: 4, tolerance: 0.1, excludeValues: true });

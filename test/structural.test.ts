@@ -1,29 +1,15 @@
 /**
- * The WebAssembly structural scan (src/io/structural.ts): its sources are in step, its masks are
- * right on inputs worked out by hand, and the reader gives exactly the same records, lines,
- * fields and refusals with it as with the JavaScript byte scan, on large random inputs that
- * cross many 64-byte turns. (reader.differential.test.ts runs both scans against csv-parse.)
+ * The WebAssembly structural scan (src/io/structural.ts): its masks are right on inputs worked
+ * out by hand, and the reader gives exactly the same records, lines, fields and refusals with it
+ * as with the JavaScript byte scan, on large random inputs that cross many 64-byte turns. (reader.differential.test.ts runs both scans against csv-parse.)
  */
-import { readFileSync } from 'node:fs';
 import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { setWalkLimit, structuralScanner } from '../src/io/structural.js';
-import { STRUCTURAL_WASM_BASE64 } from '../src/io/structural-wasm.js';
 import { useStructuralScan } from '../src/io/csv-records.js';
 import { readAll } from './reader.helpers.js';
-// @ts-expect-error: a plain ES module without types
-import { assemble, wat } from '../scripts/structural-wasm.mjs';
 
 afterAll(() => useStructuralScan('auto'));
-
-describe('sources', () => {
-  it('structural.wat and the embedded module are what scripts/structural-wasm.mjs makes', async () => {
-    const text = (wat as () => string)();
-    expect(readFileSync(new URL('../src/io/structural.wat', import.meta.url), 'utf8')).toBe(text);
-    const bytes = await (assemble as (t: string) => Promise<Buffer>)(text);
-    expect(Buffer.from(STRUCTURAL_WASM_BASE64, 'base64').equals(bytes)).toBe(true);
-  });
-});
 
 /** Positions of the set bits of one mask kind (0 delimiters, 1 LFs outside quotes, 2 LFs inside). */
 function bits(kind: number, len: number): number[] {

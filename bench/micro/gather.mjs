@@ -13,6 +13,7 @@ import { buildDealTable } from '../../dist/core/deal.js';
 import { deriveSecret } from '../../dist/core/hash.js';
 import { gatherBucket, preparePlan } from '../../dist/engine/gather.js';
 import { TableStats } from '../../dist/core/stats.js';
+import { setFlag } from '../../dist/flags.js';
 
 const arg = (name, dflt) => {
   const i = process.argv.indexOf(`--${name}`);
@@ -51,7 +52,7 @@ try {
     };
     const prep = preparePlan(plan, null);
     const tables = stats ? Array.from({ length: 8 }, () => new TableStats(plan.statsColumns)) : null;
-    process.env.ROWDECK_PHASES = '1';
+    setFlag('ROWDECK_PHASES', '1');
     let arena;
     gatherBucket(prep, { bucket: 0, pieces, rankStart: new Float64Array(sizes.length) }, tables);
     const c0 = process.cpuUsage();

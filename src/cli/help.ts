@@ -1,4 +1,9 @@
-/** Help texts. Kept together so the wording stays consistent across commands. */
+/**
+ * Help texts. Kept together so the wording stays consistent across commands. Each command's
+ * option list is made from its option table (src/options/), so --help names every option the
+ * command takes, and nothing else.
+ */
+import { FINISH_SPEC, PLAN_SPEC, PROFILE_SPEC, renderOptionList, REPORT_SPEC, SHUFFLE_SPEC, STATUS_SPEC, TASK_SPEC, VERIFY_SPEC } from '../options.js';
 
 export const MAIN_HELP = `rowdeck — reproducible, stratified shuffling of large tabular files
 
@@ -8,12 +13,18 @@ Usage:
   rowdeck verify DIR [--against INPUT...]        check an output folder against its manifest
   rowdeck report DIR [--verify]                  write DIR/report.html: the result as charts
 
+Past one machine (the same shuffle as tasks under a batch scheduler, same bytes):
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [shuffle options]
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+  rowdeck finish WORK                            join the parts, write the manifest
+  rowdeck status WORK                            which tasks are done, failed, to run
+
 Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' reads stdin.
 The same seed and inputs give the same bytes, whatever the thread count or memory budget.
 
 Run 'rowdeck COMMAND --help' for a command's options and examples.
-  --version   print the version
-  --help      print this help
+  -V, --version   print the version
+  -h, --help      print this help
 
 Exit status: 0 success, 1 data error (bad input, tolerance not met, verify mismatch), 2 usage error.
 `;
@@ -31,72 +42,7 @@ What it does:
   random order (see --order). DIR/manifest.json, written last, records counts, class mix,
   checksums, fingerprints and the seed.
 
-Dealing:
-  --partitions N          number of partition files (default 1)
-  --split NAME=W,...      named splits, e.g. train=0.8,valid=0.1,test=0.1; weights may be
-                          record counts instead (train=8000,test=2000), one may be * (the rest)
-  --folds K               append a fold column (0..K-1), dealt jointly with the partitions
-  --fold-column NAME      name of that column (default fold)
-  --stratify COL[,COL]    keep the class mix of these columns in every part; a numeric column
-                          may be given as COL:bins=Q for Q quantile bins. Missing values form
-                          their own class.
-  --tolerance X           largest allowed relative deviation of a class's share in any part or
-                          fold from its overall share (default 0.5). Checked before anything is
-                          written; the achieved value is recorded in the manifest.
-  --group COL             keep all records with the same COL value in one part (whole groups are
-                          dealt, balancing classes as well as they allow); the groups are held
-                          in memory beside --memory while they are placed: ~30 bytes each
-  --assign exact|hash     exact quotas (default), or hash: a record's part is a pure function of
-                          its --key and the seed, so appended records never move old ones
-  --key COL[,COL]         columns that identify a record (required with --assign hash)
-  --order random|spread|grouped
-                          order of the records inside each part. random (default): every
-                          order equally likely, also with --group and --assign hash (a group
-                          shares a part, not a place in it). spread: every class spread evenly
-                          through the part: after any number t of records each class has
-                          within one record of t x its share, so any window of w records holds
-                          each class within two of w x its share (needs --stratify; costs one
-                          more write and read of the output). grouped: the records of one
-                          group or key next to each other, in input order, the groups in
-                          random order (needs --group or --assign hash)
-  --seed TEXT             any text (default: a fixed seed, printed, so every run is reproducible)
-
-Input:
-  --format csv|tsv|jsonl  (default: from the file name: .csv .tsv .jsonl .ndjson, with .gz)
-  --delimiter C           one-byte field delimiter (default , or tab for TSV)
-  --no-header             the first line is data; columns are named column_1, column_2, ...
-  --on-bad-record MODE    fail (default): stop at the first malformed record;
-                          skip: count and leave it out; quarantine: also write it, with its
-                          line number and reason, to DIR/rejected.csv
-
-Output and resources:
-  --out DIR               output folder: new, or empty (then it keeps its mode, group and setgid
-                          bit); locked while the run works, so a second run into it fails
-  --force                 replace a previous output of rowdeck in DIR: only the files its
-                          manifest lists, and only once the new output is complete. Anything
-                          else in DIR stops the run (nothing is touched); refused where DIR is
-                          /, a mount point, the working or home folder or one above them, or
-                          holds an input
-  --gzip                  compress parts (.gz)
-  --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
-  --threads N             worker threads (default: number of cores; inputs under 32 MiB are
-                          shuffled on the main thread, faster than starting threads); 0 keeps
-                          all the work on the main thread. The output is the same either way
-  --temp-dir DIR          where spill files go (default: beside DIR); they take about 1.3x
-                          the input (records plus 24 bytes each: more for short records) and
-                          are removed range by range as the parts are written
-  --stats                 add per-column statistics of the input and of every part to the
-                          manifest (types, missing, min/max/mean/sd, frequent values); this
-                          adds 35-70% to the run time. Within --memory: with many parts the
-                          parts are read back one at a time for theirs. Each column's table
-                          takes up to ~35 KB a thread beside it (2,000 columns: ~70 MB).
-                          rowdeck profile gives the input's alone
-  --exclude-values        leave data values (class names, frequent values) out of the manifest
-  --report                also write DIR/report.html, the manifest as a page of charts and
-                          tables (see rowdeck report --help)
-  --json                  print the manifest on stdout
-  --quiet                 no progress or summary on stderr
-
+${renderOptionList(SHUFFLE_SPEC)}
 On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
 and how far its share strays from its share in the whole input, the largest marked with *.
 
@@ -131,24 +77,7 @@ frequent values; with --stratify, the class balance as a bar chart; then warning
 small for the partitions or folds you plan (with settings that would work), missing values in
 a stratify column, empty columns.
 
-Options:
-  --stratify COL[,COL]    show the class balance of these columns (the classes a shuffle with
-                          the same --stratify deals); COL:bins=Q for Q quantile bins of a
-                          numeric column (then the inputs are read twice, as by shuffle)
-  --partitions N          warn about classes that N partitions cannot all hold
-  --folds K               warn about classes that K folds cannot all hold
-  --tolerance X           the tolerance those warnings check against (default 0.5, as shuffle)
-  --threads N             worker threads (default: number of cores, or none for inputs under
-                          32 MiB); 0 keeps the work on the main thread
-  --format, --delimiter, --no-header   as for shuffle
-  --on-bad-record MODE    fail (default), or skip: count malformed records, list the first 20
-  --exclude-values        leave data values (min/max, frequent values, class names) out
-  --html FILE             also write the profile as a page: class balance as bars, missing
-                          values per column, every column's summary, the warnings. One file,
-                          no scripts, nothing loaded from the network; readable offline
-  --json                  print the profile as JSON on stdout
-  --quiet                 no progress or notes on stderr
-
+${renderOptionList(PROFILE_SPEC)}
 Caution: a profile holds values from the data (min/max, frequent values, class names). Use
 --exclude-values before publishing one for sensitive data.
 
@@ -160,7 +89,7 @@ Examples:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--threads N] [--json] [--quiet]
+  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--memory SIZE] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, the order-independent
@@ -171,17 +100,7 @@ records (nothing lost, duplicated or altered; the fold column aside), and replay
 shuffle runs again from the manifest's seed and options, writing nothing but its spill, and the
 parts must be byte for byte what it gives (an edited seed or option fails).
 
-Options:
-  --against INPUT...      the inputs of the run, in the same order (every argument up to the
-                          next option); records missing from or extra in the output are listed
-                          with their file:line (up to 20 of each, for inputs up to 2 million records)
-  --temp-dir DIR          where the replay's spill goes (default: beside the checked folder)
-  --no-replay             skip the replay (standard input or a pipe is read once: skipped then)
-  --threads N             worker threads that read parts side by side (default: number of cores,
-                          for outputs of 32 MiB and more; 1 reads them on the main thread)
-  --json                  print the report (every check and mismatch) on stdout
-  --quiet                 no progress or summary line on stderr (mismatches are still listed)
-
+${renderOptionList(VERIFY_SPEC)}
 Exit status 0 when everything holds; otherwise 1 and a list of every mismatch on stderr.
 
 Examples:
@@ -208,13 +127,7 @@ The page is one file: styles and charts inline, no script, nothing loaded from t
 reads offline and prints (long tables unroll on paper). rowdeck shuffle --report writes the same
 page at the end of a run.
 
-Options:
-  --verify                re-read every part against the manifest first (as rowdeck verify),
-                          and show which checks ran on which files and what, if anything,
-                          failed; exit 1 when a check fails (the page is written either way)
-  --threads N             worker threads for --verify (as for rowdeck verify)
-  --quiet                 no progress or summary on stderr (the path still goes to stdout)
-
+${renderOptionList(REPORT_SPEC)}
 Exit status: 0 when written (and, with --verify, every check held); 1 when a check failed or
 the folder has no readable manifest; 2 on a usage error.
 
@@ -224,3 +137,69 @@ Examples:
   rowdeck shuffle readings.csv --out parts --partitions 8 --stratify fault --report
   xdg-open "$(rowdeck report parts)"
 `;
+
+export const PLAN_HELP = `rowdeck plan — cut a shuffle into tasks for a batch scheduler (Slurm, Kubernetes, …)
+
+Usage:
+  rowdeck plan INPUT... --out DIR --work WORK --tasks N [--gather-tasks M] [shuffle options]
+
+Checks the inputs and options exactly as rowdeck shuffle does (same errors, before any work) and
+writes, into WORK (a new folder on a file system every node sees at the same path):
+  WORK/plan.json        the plan: inputs (size and time, checked by every task), options, tasks
+  WORK/slurm.sh         submits the stages as Slurm array jobs chained by afterok:
+                          sh WORK/slurm.sh [sbatch options, e.g. --partition=batch]
+  WORK/kubernetes.yaml  one Indexed Job per stage, and the order to apply them in
+
+The stages: N scatter tasks (stage 1 over the inputs: small files whole, large plain files as
+byte ranges, a gzip file whole), one deal task (checks the scatter tasks fit together, counts and
+places groups, the tolerance check), M gather tasks (stage 2 over ranges of buckets), and finish
+(joins the parts, writes the manifest, puts DIR into place). Tasks share nothing but WORK; each
+may be killed and run again, or run twice at once. The output is byte for byte what
+rowdeck shuffle gives with the same inputs, seed and options.
+
+Besides every option of rowdeck shuffle but --temp-dir (the spill goes in WORK):
+
+${renderOptionList(PLAN_SPEC, ['Plan'])}
+Standard input and pipes are refused: every task must be able to read its inputs from a file.
+Quantile bins (COL:bins=Q) are computed here, with one pass over the inputs.
+
+Example:
+  rowdeck plan /shared/logs/*.csv --out /shared/parts --work /shared/work-2026 --tasks 100 \\
+    --partitions 64 --stratify fault --seed 2026
+  sh /shared/work-2026/slurm.sh --partition=batch
+`;
+
+export const TASK_HELP = `rowdeck task — run one task of a plan
+
+Usage:
+  rowdeck task WORK --stage scatter|deal|gather [--index I]
+
+Without --index the task's number comes from the scheduler: SLURM_ARRAY_TASK_ID (Slurm),
+JOB_COMPLETION_INDEX (Kubernetes Indexed Jobs), AWS_BATCH_JOB_ARRAY_INDEX (AWS Batch),
+PBS_ARRAY_INDEX (PBS), or SGE_TASK_ID (Grid Engine) and LSB_JOBINDEX (LSF), which count from 1.
+The deal stage has one task. A task that is already done does nothing; one killed or run twice
+at once leaves nothing half-written (it works in a private folder and moves it into place).
+
+${renderOptionList(TASK_SPEC)}`;
+
+export const FINISH_HELP = `rowdeck finish — join a plan's parts and write the output
+
+Usage:
+  rowdeck finish WORK [--keep-work] [--json]
+
+Checks that every task of the plan is done and was written for this plan (naming any missing or
+failed one with the command that runs it), joins the gather tasks' parts in order, writes the
+manifest (its run section lists every task's host and times), puts the output folder into place
+at once, and removes WORK.
+
+${renderOptionList(FINISH_SPEC)}`;
+
+export const STATUS_HELP = `rowdeck status — a plan's tasks: done, failed, started, not started
+
+Usage:
+  rowdeck status WORK [--json]
+
+Reads WORK only. For each stage: how many tasks are done; each task that is not, with its state
+(failed, with the error; started: a run in progress, or one killed); and what to run next.
+
+${renderOptionList(STATUS_SPEC)}`;

@@ -6,7 +6,7 @@
  * written), verify (the balance recomputed from the parts) and profile (what a shuffle would
  * reach): a class's share in a unit against its share in the whole (signedDeviation), its
  * largest size over units (maxDeviation), over parts and over each split's folds together
- * (worstDeviation; dealBalance from a deal's cells), checked against the tolerance with one
+ * (balanceOfUnits; dealBalance from a deal's cells), checked against the tolerance with one
  * slack for rounding (withinTolerance).
  */
 import type { GroupTable } from './group-table.js';
@@ -171,7 +171,7 @@ export interface BalanceWorst extends Deviation {
  * (`parts[u * strata + s]`, `partUnits` of them) and over the fold units (`folds`, null without
  * folds: each split's folds, the split's partitions together), the parts' where they are equal.
  */
-export function worstDeviation(
+export function balanceOfUnits(
   parts: ArrayLike<number>,
   partUnits: number,
   folds: ArrayLike<number> | null,
@@ -191,7 +191,7 @@ export interface DealShape {
 }
 
 /**
- * worstDeviation of a deal's records per cell and stratum: `cells[c * strata + s]` ('by-cell',
+ * balanceOfUnits of a deal's records per cell and stratum: `cells[c * strata + s]` ('by-cell',
  * as shuffle's plan keeps them) or `cells[s * cellCount + c]` ('by-stratum', as countCells gives
  * them). Part units are (split, partition); fold units (split, fold).
  */
@@ -211,7 +211,7 @@ export function dealBalance(cells: ArrayLike<number>, strataSizes: ArrayLike<num
       if (folds !== null) folds[fold * S + s]! += n;
     }
   }
-  return worstDeviation(parts, shape.splits * P, folds, shape.splits * K, strataSizes);
+  return balanceOfUnits(parts, shape.splits * P, folds, shape.splits * K, strataSizes);
 }
 
 /** Allowance for rounding when a deviation is held against the tolerance. */

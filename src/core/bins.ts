@@ -31,7 +31,7 @@ export function parseBinValue(text: string | null, column: string, file: string,
   const v = Number(text);
   if (!Number.isFinite(v)) {
     throw new RowdeckError(
-      'ERR_NOT_NUMERIC',
+      'RDK_NOT_NUMERIC',
       `${where(file, line)}: column "${column}" holds ${JSON.stringify(text.length > 40 ? text.slice(0, 40) + '…' : text)}, not a number; ${column}:bins=… needs numbers (or empty for missing). Stratify on it without :bins to treat it as classes.`,
       { file, line, column },
     );

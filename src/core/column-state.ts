@@ -414,7 +414,8 @@ export class ColumnState {
       type,
       count: this.count,
       missing: this.missing,
-      distinct: this.values !== null ? this.values.size : estimateDistinct(this.sketch!),
+      // An estimate can overshoot; there are never more distinct values than values.
+      distinct: this.values !== null ? this.values.size : Math.min(this.count, estimateDistinct(this.sketch!)),
       approximate: this.values === null,
       min,
       max,

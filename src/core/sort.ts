@@ -10,7 +10,8 @@
  * ROWDECK_SORT=js; the JavaScript passes below give the same order.
  */
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
-import { SORT_WASM_BASE64 } from './sort-wasm.js';
+import { SORT_LAYOUT, SORT_WASM_BASE64 } from './sort-wasm.js';
+import { flags } from '../flags.js';
 
 export interface SortKeys {
   keyHi: Uint32Array;
@@ -108,16 +109,16 @@ export function sortsInWasm(): boolean {
 
 function sortKernel(): SortKernel | null {
   if (kernel !== undefined) return kernel;
-  if (process.env.ROWDECK_SORT === 'js') return (kernel = null);
-  const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>(SORT_WASM_BASE64);
+  if (flags.sort === 'js') return (kernel = null);
+  const exp = instantiate<{ memory: WasmMemory; sort: SortFn }>('sort', SORT_WASM_BASE64, ['memory', 'sort']);
   if (exp === null) return (kernel = null);
   const { memory, sort } = exp;
   kernel = {
     sort(keyHi, keyLo, count, bits) {
-      // Keys, then two (digit, index) pair arrays, then the histograms (2 * 65536 counts at most).
+      // Keys, then two (digit, index) pair arrays, then the histograms.
       const n4 = 4 * count;
       const hist = 6 * n4;
-      if (!growTo(memory, hist + 4 * 2 * 65536)) return null;
+      if (!growTo(memory, hist + SORT_LAYOUT.histBytes)) return null;
       const buf = memory.buffer;
       new Uint32Array(buf, 0, count).set(keyHi.subarray(0, count));
       new Uint32Array(buf, n4, count).set(keyLo.subarray(0, count));

@@ -21,30 +21,18 @@
  * `ROWDECK_STATS=js`, or a runtime without WebAssembly SIMD, keeps everything in JavaScript.
  */
 import type { RecordBatch } from './record-batch.js';
-import { STATS_WASM_BASE64 } from './stats-wasm.js';
+import { STATS_LAYOUT, STATS_WASM_BASE64 } from './stats-wasm.js';
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
+import { flags } from '../flags.js';
 
-// Slot layout: scripts/stats-wasm.mjs (SLOT, SLOTS_AT). The kernel tests catch a mismatch.
-const SLOTS_AT = 4096;
-const SLOT_BYTES = 8192;
-const SKETCH = 0;
-const SKETCH_SIZE = 4096;
-const ACC = 4096;
-const ACC_COUNT = 23 * 6;
-const KINDS = 5200;
-const MIN = 5240;
-const MAX = 5248;
-const COUNT = 5256;
-const MISSING = 5264;
-const DEC_N = 5272;
-const BITS = 5280;
-const TEXT = 5284;
-const LO_LEN = 5288;
-const HI_LEN = 5292;
-const LO = 5376;
-const HI = 6400;
+// The slot's layout, as scripts/stats-wasm.mjs made the module with it.
+const { slotsAt: SLOTS_AT, slot: S } = STATS_LAYOUT;
+const SLOT_BYTES = S.bytes;
+const SKETCH_SIZE = STATS_LAYOUT.sketchRegisters;
+const ACC_COUNT = STATS_LAYOUT.accScales * STATS_LAYOUT.accPerScale;
+const KINDS_BYTES = 8 * STATS_LAYOUT.kinds;
 /** Longest value the module adds itself. */
-export const BOUND_CAP = 1024;
+export const BOUND_CAP = S.boundCap;
 /** Room after copied bytes for the module's reads past a value's end. */
 const SLACK = 16;
 /**
@@ -58,8 +46,8 @@ type TopFn = (at: number, n: number) => number;
 type ExactFn = (slot: number, table: number, mask: number, base: number, fs: number, fe: number, fk: number, W: number, f: number, i0: number, i1: number) => number;
 /** The most columns a table may have for the module to take it (their slots take 4 MiB). */
 export const MAX_COLUMNS = 512;
-/** Bytes of a key entry in a column's exact table (see exact() in scripts/stats-wasm.mjs). */
-const ENTRY = 24;
+/** Bytes of a key entry in a column's exact table. */
+const ENTRY = STATS_LAYOUT.exactEntryBytes;
 /** Longest value the exact tables hold (its bytes are its three words). */
 export const EXACT_KEY_LIMIT = 12;
 /** The exact tables of all columns together stay below this; past it, exact mode stays in JavaScript. */
@@ -138,7 +126,7 @@ export class StatsKernel {
     // Slots are 8 KiB a column, and each table (a part's, with --stats) has its own: wider tables
     // stay in JavaScript.
     if (disabled || columns > MAX_COLUMNS) return null;
-    const exp = released.pop() ?? instantiate<KernelExports>(STATS_WASM_BASE64);
+    const exp = released.pop() ?? instantiate<KernelExports>('stats', STATS_WASM_BASE64, ['memory', 'column', 'exact', 'top']);
     return exp ? new StatsKernel(exp.memory, exp.column, exp.exact, exp.top, columns, distinctCap) : null;
   }
 
@@ -222,9 +210,9 @@ export class StatsKernel {
       }
     }
     const slot = SLOTS_AT + col * SLOT_BYTES;
-    const out = { count: d.getFloat64(slot + COUNT, true), missing: d.getFloat64(slot + MISSING, true) };
-    d.setFloat64(slot + COUNT, 0, true);
-    d.setFloat64(slot + MISSING, 0, true);
+    const out = { count: d.getFloat64(slot + S.count, true), missing: d.getFloat64(slot + S.missing, true) };
+    d.setFloat64(slot + S.count, 0, true);
+    d.setFloat64(slot + S.missing, 0, true);
     return out;
   }
 
@@ -269,7 +257,7 @@ export class StatsKernel {
    */
   run(col: number, text: boolean, W: number, f: number, i0: number, i1: number): number {
     const slot = SLOTS_AT + col * SLOT_BYTES;
-    if (text) this.#dv.setInt32(slot + TEXT, 1, true);
+    if (text) this.#dv.setInt32(slot + S.text, 1, true);
     return this.#column(slot, this.#base, this.#fs, this.#fe, this.#fk, W, f, i0, i1);
   }
 
@@ -285,17 +273,17 @@ export class StatsKernel {
       return len < 0 ? null : u8.slice(slot + at, slot + at + len);
     };
     const figures: SlotFigures = {
-      count: f64(COUNT),
-      missing: f64(MISSING),
-      kinds: new Float64Array(u8.buffer.slice(slot + KINDS, slot + KINDS + 40)),
-      kindBits: d.getInt32(slot + BITS, true),
-      numMin: f64(MIN),
-      numMax: f64(MAX),
-      decN: f64(DEC_N),
-      acc: new Float64Array(u8.buffer.slice(slot + ACC, slot + ACC + 8 * ACC_COUNT)),
-      lo: bytes(LO, LO_LEN),
-      hi: bytes(HI, HI_LEN),
-      sketch: u8.slice(slot + SKETCH, slot + SKETCH + SKETCH_SIZE),
+      count: f64(S.count),
+      missing: f64(S.missing),
+      kinds: new Float64Array(u8.buffer.slice(slot + S.kinds, slot + S.kinds + KINDS_BYTES)),
+      kindBits: d.getInt32(slot + S.bits, true),
+      numMin: f64(S.min),
+      numMax: f64(S.max),
+      decN: f64(S.decN),
+      acc: new Float64Array(u8.buffer.slice(slot + S.acc, slot + S.acc + 8 * ACC_COUNT)),
+      lo: bytes(S.lo, S.loLen),
+      hi: bytes(S.hi, S.hiLen),
+      sketch: u8.slice(slot + S.sketch, slot + S.sketch + SKETCH_SIZE),
     };
     this.#reset(col);
     return figures;
@@ -313,10 +301,10 @@ export class StatsKernel {
     this.#refresh();
     this.#u8.fill(0, slot, slot + SLOT_BYTES);
     const d = this.#dv;
-    d.setFloat64(slot + MIN, Infinity, true);
-    d.setFloat64(slot + MAX, -Infinity, true);
-    d.setInt32(slot + LO_LEN, -1, true);
-    d.setInt32(slot + HI_LEN, -1, true);
+    d.setFloat64(slot + S.min, Infinity, true);
+    d.setFloat64(slot + S.max, -Infinity, true);
+    d.setInt32(slot + S.loLen, -1, true);
+    d.setInt32(slot + S.hiLen, -1, true);
   }
 }
 
@@ -324,7 +312,7 @@ function align16(n: number): number {
   return (n + 15) & ~15;
 }
 
-let disabled = process.env.ROWDECK_STATS === 'js';
+let disabled = flags.stats === 'js';
 
 /** Tests and benchmarks: `false` keeps the statistics in JavaScript (tables created after the call). */
 export function useStatsKernel(on: boolean): void {

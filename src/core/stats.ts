@@ -96,7 +96,7 @@ export class TableStats {
     this.distinctCap = opts.distinctCap ?? 1000;
     this.topValues = opts.topValues ?? 10;
     if (!Number.isInteger(this.distinctCap) || this.distinctCap < 0) {
-      throw new RowdeckError('ERR_OPTION', `distinct cap must be a whole number >= 0, got ${this.distinctCap}.`);
+      throw new RowdeckError('RDK_OPTION', `distinct cap must be a whole number >= 0, got ${this.distinctCap}.`);
     }
     const reused = recycle && recycle.cols.length === columns.length ? recycle.cols.map((c) => c.values) : null;
     if (recycle) recycle.#recycled();
@@ -124,7 +124,7 @@ export class TableStats {
   /** addField without the module: its escapes, and the per-record path. */
   #addFieldHere(col: number, data: Buffer, start: number, end: number, kind: FieldKind): void {
     const c = this.cols[col];
-    if (c === undefined) throw new RowdeckError('ERR_INTERNAL', `statistics: column ${col} out of range (${this.cols.length} columns).`);
+    if (c === undefined) throw new RowdeckError('RDK_INTERNAL', `statistics: column ${col} out of range (${this.cols.length} columns).`);
     let b: Buffer = data;
     let s = start;
     let e = end;
@@ -316,7 +316,7 @@ export class TableStats {
     if (this.#slotMode[f] === SLOT_EXACT) {
       const values = c.values;
       // Every path that can pass the cap merges these counts first.
-      if (values === null) throw new RowdeckError('ERR_INTERNAL', `statistics: column ${this.columns[f]} passed the distinct cap with counts still in the module.`);
+      if (values === null) throw new RowdeckError('RDK_INTERNAL', `statistics: column ${this.columns[f]} passed the distinct cap with counts still in the module.`);
       const seen = this.#kernel!.takeExact(f, values.size, (i, n) => values.addCount(i, n));
       c.count += seen.count;
       c.missing += seen.missing;
@@ -366,7 +366,7 @@ export class TableStats {
 
   /** merge(TableStats.fromJSON(s)), without making a table of s first (a wide one is large). */
   mergeSerialized(s: SerializedStats): void {
-    if (s.version !== 2) throw new RowdeckError('ERR_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
+    if (s.version !== 2) throw new RowdeckError('RDK_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
     this.#checkMergeable(s);
     this.#drainAll();
     this.records += s.records;
@@ -375,10 +375,10 @@ export class TableStats {
 
   #checkMergeable(other: { columns: readonly string[]; distinctCap: number }): void {
     if (other.columns.length !== this.columns.length || other.columns.some((c, i) => c !== this.columns[i])) {
-      throw new RowdeckError('ERR_INTERNAL', `statistics: cannot merge tables with different columns (${this.columns.join(',')} vs ${other.columns.join(',')}).`);
+      throw new RowdeckError('RDK_INTERNAL', `statistics: cannot merge tables with different columns (${this.columns.join(',')} vs ${other.columns.join(',')}).`);
     }
     if (other.distinctCap !== this.distinctCap) {
-      throw new RowdeckError('ERR_INTERNAL', `statistics: cannot merge tables with different distinct caps (${this.distinctCap} vs ${other.distinctCap}).`);
+      throw new RowdeckError('RDK_INTERNAL', `statistics: cannot merge tables with different distinct caps (${this.distinctCap} vs ${other.distinctCap}).`);
     }
   }
 
@@ -418,7 +418,7 @@ export class TableStats {
   }
 
   static fromJSON(s: SerializedStats): TableStats {
-    if (s.version !== 2) throw new RowdeckError('ERR_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
+    if (s.version !== 2) throw new RowdeckError('RDK_INTERNAL', `statistics: unknown serialised version ${String(s.version)}.`);
     const t = new TableStats(s.columns, { distinctCap: s.distinctCap, topValues: s.topValues });
     t.records = s.records;
     for (let i = 0; i < s.stats.length; i++) t.cols[i] = ColumnState.fromJSON(s.stats[i]!);

@@ -28,7 +28,7 @@ export const MAX_STRATA = 100_000;
 /** The error for more than MAX_STRATA strata, from shuffle and profile alike. */
 export function tooManyStrata(columns: readonly string[]): RowdeckError {
   return new RowdeckError(
-    'ERR_OPTION',
+    'RDK_OPTION',
     `--stratify ${columns.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
     { column: columns.join(',') },
   );

@@ -22,16 +22,17 @@
  * Where WebAssembly SIMD is missing, or `ROWDECK_GATHER=js` is set, `gatherKernel()` returns null
  * and gather.ts keeps its JavaScript copy.
  */
-import { GATHER_WASM_BASE64 } from './gather-wasm.js';
+import { GATHER_LAYOUT, GATHER_WASM_BASE64 } from './gather-wasm.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 import type { Fingerprint } from '../core/hash.js';
+import { flags } from '../flags.js';
 
 type DealFn = (n: number, order: number, cell: number, at: number, lenTerm: number, fill: number, fp: number, K: number, crlf: number, fold: number, src: number) => void;
 
 const IN = 64;
 const SPARE = 64;
 const PART_GAP = 32;
-const FOLD_SLOT = 32;
+const { foldSlotBytes: FOLD_SLOT, foldTextMax: FOLD_TEXT_MAX, fingerprintBytes: FP_BYTES } = GATHER_LAYOUT;
 
 const align = (x: number, a: number): number => Math.ceil(x / a) * a;
 
@@ -76,7 +77,7 @@ export class GatherKernel {
     const out = align(IN + spillBytes + SPARE, 64);
     const arrays = align(out + outCap + parts * PART_GAP + SPARE, 64);
     const fp = align(arrays + 4 * (4 * maxRecords + parts), 16);
-    const end = fp + 16 * parts + FOLD_SLOT * folds + SPARE;
+    const end = fp + FP_BYTES * parts + FOLD_SLOT * folds + SPARE;
     if (end > 0x7fff0000 || !growTo(this.#memory, end)) return null;
     this.#out = out;
     this.#arrays = arrays;
@@ -108,12 +109,12 @@ export class GatherKernel {
     const fill = A + 4 * M;
     for (let p = 0; p < P; p++) words[fill + p] = this.#out + partStart[p]! + p * PART_GAP;
     const fp = align(4 * (fill + P), 16);
-    bytes.fill(0, fp, fp + 16 * P);
+    bytes.fill(0, fp, fp + FP_BYTES * P);
     let fold = 0;
     if (d.foldBytes) {
-      fold = fp + 16 * P;
+      fold = fp + FP_BYTES * P;
       d.foldBytes.forEach((f, k) => {
-        if (f.length > 16) throw new Error('internal: fold field longer than 16 bytes');
+        if (f.length > FOLD_TEXT_MAX) throw new Error(`internal: fold field longer than ${FOLD_TEXT_MAX} bytes`);
         bytes[fold + k * FOLD_SLOT] = f.length;
         bytes.set(f, fold + k * FOLD_SLOT + 1);
       });
@@ -125,20 +126,20 @@ export class GatherKernel {
       // Every part must end exactly where the sizes said: anything else is a bug, not data.
       if (words[fill + p] !== to) throw new Error(`internal: gather kernel wrote part ${p} to ${words[fill + p]! - from} bytes, expected ${to - from}`);
       target.set(bytes.subarray(from, to), partStart[p]!);
-      const s = (fp >>> 2) + 4 * p;
+      const s = (fp + FP_BYTES * p) >>> 2;
       fps[p]!.merge({ lo: words[s]!, hi: words[s + 1]!, count: words[s + 2]! });
     }
   }
 }
 
 let instance: GatherKernel | null | undefined;
-let disabled = process.env.ROWDECK_GATHER === 'js';
+let disabled = flags.gather === 'js';
 
 /** This thread's kernel, or null (no WebAssembly SIMD here, or switched off). */
 export function gatherKernel(): GatherKernel | null {
   if (disabled) return null;
   if (instance === undefined) {
-    const exp = instantiate<{ memory: WasmMemory; deal: DealFn }>(GATHER_WASM_BASE64);
+    const exp = instantiate<{ memory: WasmMemory; deal: DealFn }>('gather', GATHER_WASM_BASE64, ['memory', 'deal']);
     instance = exp ? new GatherKernel(exp.memory, exp.deal) : null;
   }
   return instance;

@@ -15,6 +15,7 @@ import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 import { gatherKernel } from './gather-kernel.js';
 import { partReader } from './part-stats.js';
 import type { GroupTableData } from '../core/group-table.js';
+import { flags } from '../flags.js';
 
 export interface GatherTask {
   bucket: number;
@@ -147,9 +148,6 @@ function jsonFoldField(name: string, fold: number, empty: boolean): Buffer {
   return Buffer.from(`${empty ? '' : ','}${JSON.stringify(name)}:${fold}`, 'utf8');
 }
 
-/** Set ROWDECK_PHASES=1 to time the phases of gatherBucket (read, index, sort, deal, copy). */
-const PHASES = process.env.ROWDECK_PHASES === '1';
-
 /**
  * Deals one bucket. `stats`, when given, receives every record's fields under its part (the
  * caller keeps the tables across buckets and merges them at the end).
@@ -169,7 +167,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const eolLen = plan.lineEnding.length;
   const jsonFoldBase = isJson && foldCol ? Buffer.byteLength(JSON.stringify(plan.foldColumn)) + 2 : 0;
   const foldLen = Int32Array.from({ length: K }, (_, f) => (foldCol ? (isJson ? jsonFoldBase : 1) + String(f).length : 0));
-  const t0 = PHASES ? performance.now() : 0;
+  const t0 = flags.phases ? performance.now() : 0;
   const spillBytes = task.pieces.reduce((a, p) => a + p.length, 0);
   const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
   // Each record sheds a 24-byte header and gains at most its line end and fold field.
@@ -190,7 +188,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const arena = task.arena && task.arena.byteLength >= need ? task.arena : (Buffer.allocUnsafeSlow(Math.ceil(need * 1.25) + 4096).buffer as ArrayBuffer);
   const bytes = input ?? new Uint8Array(arena, 0, need);
   readPieces(task.pieces, bytes);
-  const T = PHASES ? [t0, performance.now()] : null;
+  const T = flags.phases ? [t0, performance.now()] : null;
   const ix = indexSpill(bytes, spillBytes, task.pieces, plan.localToGlobal);
   const n = ix.count;
   T?.push(performance.now());

@@ -1,11 +1,89 @@
 /**
  * The groups of `--group` gathered between the stages: the lanes count each bucket's groups from
  * its spill (censusBucket in gather.ts) and hand back one list a bucket; the table is those lists
- * joined in bucket order, which is key order (see src/core/group-table.ts).
+ * joined in bucket order, which is key order (see src/core/group-table.ts). Then the groups are
+ * placed, whole, into cells, and the key → cell table is written for stage 2 (groups.bin).
  */
 import { closeSync, openSync, readSync, rmSync, writeSync } from 'node:fs';
+import { join } from 'node:path';
+import pLimit from 'p-limit';
+import { placeGroups } from '../core/balance.js';
+import type { DealSpec } from '../core/deal.js';
 import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
+import { censusBucket, type CensusTask } from './gather.js';
+import type { SpillPiece } from './spill.js';
+
+/** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
+export interface CensusSource {
+  /** Per census bucket, its pieces: the census spill's, or the spill's where it is keyed by group. */
+  pieces: SpillPiece[][];
+  /** Key bits that select a census bucket. */
+  bits: number;
+  /** Per scatter task: its stratum ids → dealing stratum ids. */
+  taskToDealing: number[][];
+}
+
+/**
+ * Counts every group, a census bucket at a time on the lanes (or here, yielding between buckets so
+ * signals and progress get through), into one table in key order.
+ */
+export async function countGroups(src: CensusSource, workFile: string, run: ((task: CensusTask) => Promise<GroupTableData>) | null, width: number, progress: (done: number, total: number) => void): Promise<GroupTable> {
+  const census = new GroupTableBuilder(workFile);
+  try {
+    let counted = 0;
+    const limit = pLimit(width);
+    await Promise.all(
+      src.pieces.map((pieces, b) =>
+        limit(async () => {
+          const task: CensusTask = { census: b, pieces, strata: src.taskToDealing, bits: src.bits };
+          if (run) census.add(b, await run(task));
+          else {
+            census.add(b, censusBucket(task));
+            await new Promise<void>((resolve) => setImmediate(resolve));
+          }
+          progress(++counted, src.pieces.length);
+        }),
+      ),
+    );
+    return census.build();
+  } finally {
+    census.close();
+  }
+}
+
+/** Groups placed into cells: each group's cell, and every (cell, stratum)'s count, `[cell * strata + s]`. */
+export function placeAllGroups(groups: GroupTable, deal: DealSpec, strataSizes: number[]): { placed: Uint32Array; cellCounts: Float64Array } {
+  const K = deal.folds;
+  const wsum = deal.splits.reduce((a, s) => a + s.weight, 0);
+  const cellWeight: number[] = [];
+  for (const s of deal.splits) for (let c = 0; c < deal.partitions * K; c++) cellWeight.push(s.weight / wsum / (deal.partitions * K));
+  const placed = placeGroups(groups, strataSizes, cellWeight);
+  const nStrata = strataSizes.length;
+  const cellCounts = new Float64Array(cellWeight.length * nStrata);
+  const { records, first } = groups;
+  for (let g = 0; g < groups.count; g++) {
+    if (groups.extra.has(g)) for (const [s, m] of groups.strataOf(g)) cellCounts[placed[g]! * nStrata + s]! += m;
+    else cellCounts[placed[g]! * nStrata + first[g]!]! += records[g]!;
+  }
+  return { placed, cellCounts };
+}
+
+/**
+ * Writes the key → cell table (groups.bin, in `dir`) for stage 2. `bucketBits`: where the spill is
+ * keyed by group, each bucket's groups are a run of the table, and their starts are returned;
+ * null (records placed individually): every lane reads the whole table.
+ */
+export function writeGroupLookup(dir: string, groups: GroupTable, placed: Uint32Array, bucketBits: number | null): { groupsFile: string; groupStarts: number[] | null } {
+  const groupsFile = 'groups.bin';
+  writeGroupsFile(join(dir, groupsFile), groups.hi, groups.lo, placed);
+  if (bucketBits === null) return { groupsFile, groupStarts: null };
+  const buckets = 2 ** bucketBits;
+  const starts = new Array<number>(buckets + 1).fill(0);
+  for (let k = 0; k < groups.count; k++) starts[(bucketBits === 0 ? 0 : groups.hi[k]! >>> (32 - bucketBits)) + 1]!++;
+  for (let b = 0; b < buckets; b++) starts[b + 1]! += starts[b]!;
+  return { groupsFile, groupStarts: starts };
+}
 
 /**
  * Joins the buckets' lists in bucket order (GroupTable.assemble) without holding them all:
@@ -42,11 +120,11 @@ export class GroupTableBuilder {
   build(): GroupTable {
     let at = 0;
     try {
-      if (this.#waiting.size > 0) throw new RowdeckError('ERR_INTERNAL', `group census: the list of bucket ${this.#counts.length} never came back.`);
+      if (this.#waiting.size > 0) throw new RowdeckError('RDK_INTERNAL', `group census: the list of bucket ${this.#counts.length} never came back.`);
       return GroupTable.assemble(this.#counts, this.#extras, (bytes) => {
         for (let got = 0; got < bytes.length; ) {
           const n = readSync(this.#fd, bytes, got, bytes.length - got, at + got);
-          if (n === 0) throw new RowdeckError('ERR_INTERNAL', `group census: ${this.#path} ended early.`);
+          if (n === 0) throw new RowdeckError('RDK_INTERNAL', `group census: ${this.#path} ended early.`);
           got += n;
         }
         at += bytes.length;

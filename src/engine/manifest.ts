@@ -76,7 +76,16 @@ export interface Manifest {
     threads: number;
     timingsMs: Record<string, number>;
     host: Record<string, unknown>;
+    /** A plan's run under a batch scheduler: its id, and every task's host and times; null for one machine's run. */
+    plan: ClusterRunInfo | null;
   };
+}
+
+export interface ClusterRunInfo {
+  id: string;
+  tasks: { stage: string; index: number; host: string; startedAt: string; endedAt: string }[];
+  /** Scatter tasks the deal step read again (their slice began inside a quoted field). */
+  reread: number[];
 }
 
 export interface ManifestInput {
@@ -101,6 +110,7 @@ export interface ManifestInput {
   timings: Record<string, number>;
   host: Record<string, unknown>;
   inputStats?: unknown;
+  plan?: ClusterRunInfo;
 }
 
 export function buildManifest(m: ManifestInput): Manifest {
@@ -184,6 +194,7 @@ export function buildManifest(m: ManifestInput): Manifest {
       threads: m.threads,
       timingsMs: m.timings,
       host: m.host,
+      plan: m.plan ?? null,
     },
   };
 }

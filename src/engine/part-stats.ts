@@ -22,6 +22,7 @@ import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { openInput } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import type { GatherPlan } from './plan.js';
+import { flags } from '../flags.js';
 
 /** Memory a part's statistics take per column and lane, for the choice above (measured, rounded up). */
 export const STATS_BYTES_PER_COLUMN = 80 * 1024;
@@ -57,7 +58,7 @@ export interface PartStatsResult {
  * `=files` forces one way (tests compare the two).
  */
 export function statsInLanes(columns: number, parts: number, lanes: number, memory: number): boolean {
-  const forced = process.env.ROWDECK_PART_STATS;
+  const forced = flags.partStats;
   if (forced === 'lanes') return true;
   if (forced === 'files') return false;
   return columns * STATS_BYTES_PER_COLUMN * parts * Math.max(1, lanes) <= Math.max(memory / 4, READ_BACK_BYTES);

@@ -1,11 +1,17 @@
 /**
- * The plan: the small, serialisable description that stage 1 (scatter) hands to stage 2
- * (gather). Stage 2 needs nothing else but the spill files, so the two stages can run as
- * separate tasks, on separate threads, processes or machines.
+ * The plan: what stage 2 (gather) needs besides the spill files, made from stage 1's counts.
+ * It is small and serialisable (plan.json in the spill folder), so the two stages can run as
+ * separate tasks, on separate threads, processes or machines. This module holds its maths:
+ * the seeded order strata are dealt in, the dealing table, the counts every (cell, stratum)
+ * will get, the balance they give and the tolerance check, all before anything is written.
  */
-import type { DealSpec } from '../core/deal.js';
+import { buildDealTable, countCells, seededStarts, type DealSpec, type DealTable } from '../core/deal.js';
+import { dealBalance, orderStrata, withinTolerance, type BalanceWorst } from '../core/balance.js';
+import type { Secret } from '../core/hash.js';
+import { RowdeckError } from '../errors.js';
 import type { InputFormat } from '../io/batch.js';
-import type { PartOrder } from '../options.js';
+import { optionName, optionSetting, type PartOrder, type ResolvedShuffleOptions, type Surface } from '../options.js';
+import { describeStratum, keyOrderIndex, stratumValues } from '../core/strata.js';
 
 export type AssignMode = 'exact' | 'hash' | 'group';
 
@@ -63,4 +69,115 @@ export interface GatherPlan {
 /** Number of output parts: one file per (split, partition). */
 export function partCount(deal: DealSpec): number {
   return deal.splits.length * deal.partitions;
+}
+
+/** Strata in their seeded dealing order, and the maps from stage 1's ids to it. */
+export interface DealingOrder {
+  /** Union stratum id (stage 1's merged ids) → dealing stratum id. */
+  localToGlobal: number[];
+  /** Per scatter task: its own stratum ids → dealing stratum ids. */
+  taskToDealing: number[][];
+  /** By dealing id: the stratum's canonical key and its records. */
+  strataKeys: string[];
+  strataSizes: number[];
+}
+
+export function dealingOrder(strata: string[], bucketCounts: ArrayLike<number>[], taskStrata: number[][], secret: Secret): DealingOrder {
+  const order = orderStrata(strata, secret);
+  const localToGlobal = new Array<number>(strata.length);
+  order.forEach((local, g) => (localToGlobal[local] = g));
+  const sum = (a: ArrayLike<number>): number => {
+    let t = 0;
+    for (let i = 0; i < a.length; i++) t += a[i]!;
+    return t;
+  };
+  return {
+    localToGlobal,
+    taskToDealing: taskStrata.map((ids) => ids.map((u) => localToGlobal[u]!)),
+    strataKeys: order.map((l) => strata[l]!),
+    strataSizes: order.map((l) => sum(bucketCounts[l]!)),
+  };
+}
+
+/** The splits with '*' (the rest) resolved, checking that record counts fit the input. */
+export function resolveSplitWeights(o: Pick<ResolvedShuffleOptions, 'splits' | 'splitsAreCounts' | 'restSplit'> & { surface?: Surface }, records: number): DealSpec['splits'] {
+  if (!o.splitsAreCounts) return o.splits;
+  const given = o.splits.reduce((a, s, i) => (i === o.restSplit ? a : a + s.weight), 0);
+  if (o.restSplit >= 0) {
+    if (given > records) {
+      throw new RowdeckError('RDK_SPLIT_SIZES', `${optionName(o.surface ?? 'cli', 'split')} asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
+    }
+    return o.splits.map((s, i) => (i === o.restSplit ? { name: s.name, weight: records - given } : s));
+  }
+  if (given !== records) {
+    throw new RowdeckError(
+      'RDK_SPLIT_SIZES',
+      `${optionName(o.surface ?? 'cli', 'split')} counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
+    );
+  }
+  return o.splits;
+}
+
+export function dealSpecOf(o: ResolvedShuffleOptions, records: number): DealSpec {
+  return { splits: resolveSplitWeights(o, records), exactCounts: o.splitsAreCounts, partitions: o.partitions, folds: o.folds };
+}
+
+/** The dealing table of exact mode, its starts and rank permutations drawn from the seed. */
+export function dealTableOf(strataSizes: number[], deal: DealSpec, secret: Secret, rankSecret: Secret): DealTable {
+  return buildDealTable(strataSizes, deal, seededStarts(secret, deal.splits.length), rankSecret);
+}
+
+/** Exact mode: every (cell, stratum)'s count, `[cell * strata + s]`, from the table alone. */
+export function exactCellCounts(table: DealTable): Float64Array {
+  const byStratum = countCells(table); // [s * cells + cell]
+  const strata = table.strataCount;
+  const cells = byStratum.length / Math.max(1, strata);
+  const out = new Float64Array(byStratum.length);
+  for (let s = 0; s < strata; s++) for (let c = 0; c < cells; c++) out[c * strata + s] = byStratum[s * cells + c]!;
+  return out;
+}
+
+/** Hash mode: the counts stage 1 took as records passed (`[union stratum][cell]`), by dealing stratum. */
+export function hashCellCounts(byUnion: Float64Array[], localToGlobal: number[], cells: number): Float64Array {
+  const strata = localToGlobal.length;
+  const out = new Float64Array(cells * strata);
+  byUnion.forEach((counts, u) => counts.forEach((n, cell) => (out[cell * strata + localToGlobal[u]!]! += n)));
+  return out;
+}
+
+/**
+ * The largest deviation of a class's share in a part or a fold from its overall share (unit: part
+ * index, or for kind 'fold' split × folds + fold; -1 when nothing deviates).
+ */
+export type Worst = BalanceWorst;
+
+/** The balance that the counts `[cell * strata + s]` give: parts (files), and folds within each split (core/balance.ts). */
+export function worstDeviation(cellCounts: Float64Array, deal: DealSpec, strataSizes: number[]): Worst {
+  return dealBalance(cellCounts, strataSizes, { splits: deal.splits.length, partitions: deal.partitions, folds: deal.folds });
+}
+
+/**
+ * Throws, before anything is written, when the balance the counts give breaks --tolerance. Hash
+ * assignment enforces none: its shares are what the keys give (reported, see the summary).
+ */
+export function checkTolerance(o: ResolvedShuffleOptions, worst: Worst, d: DealingOrder, partPaths: string[], deal: DealSpec, records: number): void {
+  if (o.assign === 'hash' || withinTolerance(worst.deviation, o.tolerance)) return;
+  const size = d.strataSizes[worst.stratum]!;
+  // Named as the manifest would list it: its place among the strata in key order.
+  const what = describeStratum(o.stratify.map((s) => s.name), o.excludeValues ? null : stratumValues(d.strataKeys[worst.stratum]!), keyOrderIndex(d.strataKeys, worst.stratum));
+  const unit =
+    worst.kind === 'part'
+      ? `part ${partPaths[worst.unit]!}`
+      : `fold ${worst.unit % deal.folds}${deal.splits.length > 1 ? ` of split ${deal.splits[Math.floor(worst.unit / deal.folds)]!.name}` : ''}`;
+  const units = worst.kind === 'part' ? partPaths.length : deal.folds * deal.splits.length;
+  const hints: string[] = [];
+  if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} record${size === 1 ? '' : 's'} for ${units} ${worst.kind}s)`);
+  hints.push(`a looser tolerance (${optionSetting(o.surface, 'tolerance', String(Math.ceil(worst.deviation * 100) / 100))} or more)`);
+  if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
+  if (o.assign === 'group') hints.push('smaller or more groups');
+  throw new RowdeckError(
+    'RDK_TOLERANCE',
+    `Cannot keep class ${what} (${size} of ${records} records) within ${optionSetting(o.surface, 'tolerance', String(o.tolerance))} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
+    { stratum: what, count: size, deviation: worst.deviation, tolerance: o.tolerance },
+  );
 }

@@ -21,7 +21,6 @@
  * (then a fixed-size distinct estimate), and one counter per stratum.
  */
 import { statSync } from 'node:fs';
-import { availableParallelism } from 'node:os';
 import { dealBalance, orderStrata, withinTolerance } from '../core/balance.js';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, type Secret } from '../core/hash.js';
@@ -29,18 +28,19 @@ import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
+import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { RecordReader, type RecordReaderOptions } from '../io/reader.js';
 import { unknownColumn } from '../io/fields.js';
-import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
+import { DEFAULT_SEED, optionSetting, resolveProfileOptions, type ProfileOptions, type ResolvedProfileOptions } from '../options.js';
+import { chooseFormats } from '../io/sniff.js';
 import { VERSION } from '../version.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { BatchSender, type BatchLanes } from './scatter.js';
 import { columnKey, compareStratumKeys, describeStratum, keyBytes, keyParts, MAX_STRATA, MISSING_KEY, stratumKey, stratumValues, tooManyStrata, type KeyRange } from '../core/strata.js';
 import { readInputs, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
-import { resolveWorkerFile } from './shuffle.js';
+import { resolveWorkerFile } from '../workers/worker-file.js';
 
 export const PROFILE_VERSION = 1;
 /** Blocks the workers parse (see readInBlocks). */
@@ -58,41 +58,7 @@ const MAX_LISTED_CLASSES = 10;
 /** More classes than this in a stratify column reads like an identifier, not a class. */
 const MANY_CLASSES = 1000;
 
-export interface ProfileProgress {
-  stage: 'bins' | 'read';
-  /** Input bytes read so far, and the total (file sizes; 0 when unknown, e.g. stdin). */
-  done: number;
-  total: number;
-  records: number;
-  elapsedMs: number;
-}
-
-export interface ProfileOptions {
-  /** Input files; '-' reads standard input. */
-  inputs: string[];
-  /** Column(s) whose class balance to show; `name:bins=Q` for Q quantile bins of a numeric column. */
-  stratify?: string | string[];
-  /** Partitions you plan: warns about classes that cannot be spread over them. Default 1. */
-  partitions?: number;
-  /** Folds you plan (≥ 2): warns about classes that cannot be spread over them. */
-  folds?: number;
-  /** Tolerance the warnings check against, as shuffle's `tolerance`. Default 0.5. */
-  tolerance?: number;
-  format?: InputFormat;
-  delimiter?: string;
-  /** First line is a header (CSV/TSV). Default true. */
-  header?: boolean;
-  /** 'fail' (default) stops at the first malformed record; 'skip' counts and lists it. */
-  onBadRecord?: 'fail' | 'skip';
-  /** Leave data values out: min/max, frequent values, class names, bin edges, reject reasons. */
-  excludeValues?: boolean;
-  /**
-   * Worker threads for the statistics. Default: the number of cores, or none for inputs under
-   * 32 MiB; 0 works on the calling thread.
-   */
-  threads?: number;
-  onProgress?: (e: ProfileProgress) => void;
-}
+export type { ProfileOptions, ProfileProgress } from '../options.js';
 
 export interface ProfileInput {
   path: string;
@@ -163,66 +129,6 @@ export interface Profile {
   timingsMs: { bins: number; read: number; total: number };
 }
 
-interface ResolvedProfileOptions {
-  inputs: string[];
-  stratify: StratifyColumn[];
-  partitions: number;
-  folds: number;
-  tolerance: number;
-  format: InputFormat | null;
-  delimiter: string | undefined;
-  header: boolean;
-  onBadRecord: BadRecordPolicy;
-  excludeValues: boolean;
-  threads: number;
-  onProgress: ((e: ProfileProgress) => void) | null;
-}
-
-function readInteger(name: string, v: unknown, min: number, max: number, dflt: number): number {
-  if (v === undefined) return dflt;
-  if (typeof v !== 'number' || !Number.isInteger(v) || v < min || v > max) throw invalid(name, `an integer from ${min} to ${max}`, v);
-  return v;
-}
-
-/** Validates profile options; every rejection is an ERR_OPTION naming the option. */
-export function resolveProfileOptions(o: ProfileOptions): ResolvedProfileOptions {
-  if (!o || typeof o !== 'object') throw invalid('options', 'an object', o);
-  if (!Array.isArray(o.inputs) || o.inputs.length === 0 || o.inputs.some((x) => typeof x !== 'string' || x === '')) {
-    throw invalid('inputs', 'one or more input paths', o.inputs);
-  }
-  if (o.inputs.filter((x) => x === '-').length > 1) throw invalid('inputs', 'standard input (-) at most once', o.inputs.join(' '));
-  const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
-  if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
-  if (o.format !== undefined && !['csv', 'tsv', 'jsonl'].includes(o.format)) throw invalid('format', '"csv", "tsv" or "jsonl"', o.format);
-  if (o.delimiter !== undefined && (typeof o.delimiter !== 'string' || Buffer.byteLength(o.delimiter) !== 1 || o.delimiter === '"' || o.delimiter === '\n' || o.delimiter === '\r')) {
-    throw invalid('delimiter', 'one single-byte character other than a quote or a line end', o.delimiter);
-  }
-  const onBadRecord = o.onBadRecord ?? 'fail';
-  if (onBadRecord !== 'fail' && onBadRecord !== 'skip') {
-    throw invalid('onBadRecord', '"fail" or "skip" (profile writes no files, so there is nothing to quarantine to; skipped records are counted and the first ones listed)', onBadRecord);
-  }
-  if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalid('onProgress', 'a function', typeof o.onProgress);
-  const stratify = parseStratify(o.stratify);
-  const names = stratify.map((s) => s.name);
-  const dup = names.find((n, i) => names.indexOf(n) !== i);
-  if (dup !== undefined) throw invalid('stratify', 'each column once', dup);
-  return {
-    inputs: [...o.inputs],
-    stratify,
-    partitions: readInteger('partitions', o.partitions, 1, 100000, 1),
-    folds: readInteger('folds', o.folds, 2, 1000, 1),
-    tolerance,
-    format: o.format ?? null,
-    delimiter: o.delimiter,
-    header: o.header ?? true,
-    onBadRecord,
-    excludeValues: o.excludeValues ?? false,
-    // Small inputs are profiled on this thread unless threads are asked for (see INLINE_MAX_BYTES).
-    threads: readInteger('threads', o.threads, 0, 256, smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism())),
-    onProgress: o.onProgress ?? null,
-  };
-}
-
 // --- the per-batch work (worker threads, or the calling thread) ------------------------------------
 
 /** What one profile task needs: plain data, so it can be posted to a worker. */
@@ -264,7 +170,7 @@ export function joinColumnShares(columns: string[], results: ProfileTaskResult[]
   const first = results[0];
   const joined = results.flatMap((r) => r.stats.columns);
   if (!first || joined.length !== columns.length || joined.some((c, i) => c !== columns[i]) || results.some((r) => r.stats.records !== first.stats.records)) {
-    throw new RowdeckError('ERR_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
+    throw new RowdeckError('RDK_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
   }
   return { stats: { ...first.stats, columns: columns.slice(), stats: results.flatMap((r) => r.stats.stats) }, strata: first.strata };
 }
@@ -484,6 +390,9 @@ function readerOptions(o: ResolvedProfileOptions, k: number, wanted: string[], e
 
 export async function profile(options: ProfileOptions): Promise<Profile> {
   const o = resolveProfileOptions(options);
+  // The inputs' format, as a shuffle of them would read them (see io/sniff.ts); inputs named
+  // as different formats are each read as their name says (null).
+  o.format = await chooseFormats(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v), 'profile', true);
   const t0 = Date.now();
   const secret = deriveSecret(DEFAULT_SEED);
   // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.
@@ -509,7 +418,7 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       onBadRecord: o.onBadRecord,
       columns: binCols,
       secret,
-      memory: DEFAULT_MEMORY,
+      memory: o.memory,
     });
   }
   const binsMs = Date.now() - t0;

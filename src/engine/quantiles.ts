@@ -94,7 +94,7 @@ export function selectRanks(v: Float64Array, ranks: readonly number[]): number[]
 export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
   const stream = o.inputs.find(isStreamInput);
   if (stream !== undefined) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
+    throw new RowdeckError('RDK_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
   }
   const cols = o.columns;
   const cap = Math.max(1024, Math.floor(o.memory / 4 / 16 / Math.max(1, cols.length)));

@@ -21,6 +21,7 @@ import { hashedCell, type DealSpec } from '../core/deal.js';
 import type { RecordReaderOptions } from '../io/reader.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
 import { readInputs, readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
+import { readSlice, type InputSlice, type SliceRead } from '../io/slices.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -81,6 +82,16 @@ export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret
   onProgress?: (bytes: number, records: number) => void;
   /** Size of the blocks the workers parse (plain files); default DEFAULT_BLOCK_BYTES. */
   blockBytes?: number;
+  /**
+   * Read only these slices of the inputs (a cluster's scatter task), in order, instead of every
+   * input whole; `inputs` stays the whole list, so records keep their input ordinals. Each read's
+   * start, end and line count come back in `ScatterResult.slices`.
+   */
+  slices?: { slice: InputSlice; schema: InputSchema | null }[];
+  /** With slices: the first input's columns, that every other input's header must match. */
+  expectedColumns?: { columns: string[]; from: string };
+  /** With slices: told before each slice is read (its index), so refused records can be told apart by slice. */
+  onSliceStart?: (index: number) => void;
 }
 
 /** What one scatter task returns; plain data (posted from a worker). */
@@ -123,6 +134,9 @@ export interface ScatterResult {
   cellCounts: Float64Array[] | null;
   /** Per census bucket: where its records lie (see ScatterTaskConfig.cellKeyInHeader); null without a census spill. */
   censusPieces: SpillPiece[][] | null;
+  /** With ScatterOptions.slices: how each slice was read, and every scatter task's own result (for another process to merge). */
+  slices?: SliceRead[];
+  results?: ScatterTaskResult[];
 }
 
 /** One scatter task: the per-record work of stage 1 for the batches it is given. */
@@ -481,6 +495,14 @@ export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 't
   };
 }
 
+/**
+ * Worker data for lanes that will not scatter (a plan's deal, gather and finish steps start the
+ * same worker entry): no inputs, one bucket of a small buffer, `spillDir` where plan.json is.
+ */
+export function idleScatterConfig(spillDir: string): Omit<ScatterTaskConfig, 'task'> {
+  return { inputs: [], stratify: [], bins: [], key: [], group: null, secret: [0, 0, 0, 0], spillDir, bits: 0, bufferBytes: 4096, hashCells: null, cellKeyInHeader: null };
+}
+
 /** The census spill's folder, inside the spill folder. */
 export function censusDir(spillDir: string): string {
   return join(spillDir, 'census');
@@ -499,7 +521,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   };
 
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
-  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('RDK_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
   const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>(o.workerFile!, tasks, config));
   const sender = lanes ? new BatchSender(lanes as unknown as BatchLanes) : null;
@@ -560,6 +582,50 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       }
       if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: (schema as InputSchema).columns, from: ro.file };
     };
+    if (o.slices) {
+      expected = o.expectedColumns;
+      const reads: SliceRead[] = [];
+      for (const [j, { slice, schema: known }] of o.slices.entries()) {
+        const k = slice.input;
+        const read: SliceRead = { start: 0, end: 0, lines: 0, records: 0, bytes: 0, rejected: 0 };
+        o.onSliceStart?.(j);
+        try {
+          if (slice.start === 0 && slice.end < 0) {
+            // A whole input (gzip too): read as always; its line count matters to no slice after it.
+            for await (const { batch, schema: sch, stats } of readInput(o.inputs[k]!, readerOptions(k))) {
+              await send(batch, k, sch);
+              read.records += batch.count;
+              read.bytes = stats.bytes;
+              read.rejected = stats.rejected;
+            }
+            read.end = read.bytes;
+          } else {
+            for await (const { batch, schema: sch } of readSlice(o.inputs[k]!, slice, readerOptions(k), known, read)) await send(batch, k, sch);
+          }
+        } catch (err) {
+          // Which slice stopped: its line numbers count from its own start.
+          if (err instanceof RowdeckError) err.details.slice = j;
+          throw err;
+        }
+        const seen = inputs[k]!;
+        seen.records += read.records;
+        seen.bytes += read.bytes;
+        seen.rejected += read.rejected;
+        reads.push(read);
+        progress();
+      }
+      if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records in this task's slices.`, { file: o.inputs[o.slices[0]?.slice.input ?? 0] });
+      let results: ScatterTaskResult[];
+      if (inline) results = [inline.finish()];
+      else {
+        await sender!.drain();
+        results = await lanes!.finish();
+      }
+      const censusBits = o.cellKeyInHeader?.censusBits ?? null;
+      // The merge adds into the first task's count arrays: the results handed back keep their own.
+      const copies = results.map((r) => ({ ...r, bucketCounts: r.bucketCounts.map((a) => a.slice()) }));
+      return { ...mergeScatterResults(copies, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits), slices: reads, results };
+    }
     await readInputs(
       o.inputs.length,
       () => small,
@@ -581,7 +647,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       readHere,
     );
     progress();
-    if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+    if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];
     else {

@@ -25,7 +25,8 @@ import { ioError } from '../errors.js';
 import type { Fingerprint } from '../core/hash.js';
 import type { RecordBatch } from '../io/batch.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
-import { SPILL_WASM_BASE64 } from './spill-wasm.js';
+import { SPILL_LAYOUT, SPILL_WASM_BASE64 } from './spill-wasm.js';
+import { flags } from '../flags.js';
 
 type AppendFn = (from: number, n: number, queue: number, fill: number, ends: number, fp: number) => number;
 type EnqueueFn = (n: number, from: number, queue: number, offs: number, starts: number, ends: number, nexts: number,
@@ -43,14 +44,14 @@ const SPARE = 64;
 let spillKernelWorks = true;
 /** A fresh instance of the spill module (one per writer: its memory is the writer's), or null. */
 function spillKernel(): SpillKernel | null {
-  if (process.env.ROWDECK_SPILL === 'js' || !spillKernelWorks) return null;
-  const k = instantiate<SpillKernel>(SPILL_WASM_BASE64);
+  if (flags.spill === 'js' || !spillKernelWorks) return null;
+  const k = instantiate<SpillKernel>('spill', SPILL_WASM_BASE64, ['memory', 'append', 'enqueue']);
   spillKernelWorks = k !== null;
   return k;
 }
 
-export const HEADER_BYTES = 24;
-export const HEADER_WORDS = 6;
+export const HEADER_BYTES = SPILL_LAYOUT.headerBytes;
+export const HEADER_WORDS = HEADER_BYTES / 4;
 
 /** Spill files a scatter task writes at most: one per range of buckets. */
 export const SPILL_FILES = 16;
@@ -147,7 +148,7 @@ export class BucketWriter {
       this.#stride = this.#size + SPARE;
       this.#staging = this.#stride * buckets;
       this.#queueAt = Math.ceil((this.#staging + stagingBytes + SPARE) / 64) * 64;
-      const fillAt = this.#queueAt + QUEUE * 32;
+      const fillAt = this.#queueAt + QUEUE * SPILL_LAYOUT.queueEntryBytes;
       this.#fp = fillAt + 8 * buckets;
       // enqueueRun's inputs: the key secret, then a run's offsets (f64), starts, ends, nexts and strata.
       this.#secretAt = this.#fp + 16;
@@ -156,7 +157,7 @@ export class BucketWriter {
       if (need <= 0x7fff0000 && growTo(kernel.memory, need)) {
         this.#kernel = kernel;
         memory = kernel.memory.buffer;
-        this.#queue = new Uint32Array(memory, this.#queueAt, QUEUE * 8);
+        this.#queue = new Uint32Array(memory, this.#queueAt, (QUEUE * SPILL_LAYOUT.queueEntryBytes) / 4);
         this.#fill = new Int32Array(memory, fillAt, buckets);
         const ends = new Int32Array(memory, fillAt + 4 * buckets, buckets);
         for (let b = 0; b < buckets; b++) ends[b] = b * this.#stride + this.#size;

@@ -16,25 +16,27 @@ import { SpreadOrder } from '../core/spread.js';
 import { ioError, RowdeckError } from '../errors.js';
 import type { PartWriter } from '../io/part-writer.js';
 
-/** Where one bucket's records of one (part, class) lie: bytes, sizes, and how many. */
-interface Chunk {
+/** Where one bucket's records of one (part, class) lie: bytes, sizes, and how many (and, read from several runs' files, whose). */
+export interface SpreadChunk {
   offset: number;
   length: number;
   sizesAt: number;
   records: number;
+  source?: number;
 }
+type Chunk = SpreadChunk;
 
 /** Writes to a file at its end, keeping track of that end. */
 class AppendFile {
   readonly path: string;
   readonly fd: number;
   end = 0;
-  constructor(path: string) {
+  constructor(path: string, readOnly = false) {
     this.path = path;
     try {
-      this.fd = openSync(path, 'w+');
+      this.fd = openSync(path, readOnly ? 'r' : 'w+');
     } catch (err) {
-      throw ioError(err, path, 'creating a work file');
+      throw ioError(err, path, readOnly ? 'opening a work file' : 'creating a work file');
     }
   }
   append(buf: Uint8Array): number {
@@ -51,7 +53,7 @@ class AppendFile {
     try {
       for (let got = 0; got < length; ) {
         const n = readSync(this.fd, into, got, length - got, at + got);
-        if (n === 0) throw new RowdeckError('ERR_INTERNAL', `${this.path} ended early: the work folder was changed during the run.`);
+        if (n === 0) throw new RowdeckError('RDK_INTERNAL', `${this.path} ended early: the work folder was changed during the run.`);
         got += n;
       }
     } catch (err) {
@@ -66,8 +68,8 @@ class AppendFile {
 /** The records of one (part, class), in shuffled order, a chunk at a time. */
 class ClassRecords {
   readonly #chunks: Chunk[];
-  readonly #data: AppendFile;
-  readonly #sizeFile: AppendFile;
+  readonly #data: AppendFile[];
+  readonly #sizeFile: AppendFile[];
   #next = 0;
   #bytes = Buffer.alloc(0);
   #sizes = new Uint32Array(0);
@@ -75,7 +77,7 @@ class ClassRecords {
   #k = 0;
   #at = 0;
 
-  constructor(chunks: Chunk[], data: AppendFile, sizes: AppendFile) {
+  constructor(chunks: Chunk[], data: AppendFile[], sizes: AppendFile[]) {
     this.#chunks = chunks;
     this.#data = data;
     this.#sizeFile = sizes;
@@ -92,29 +94,51 @@ class ClassRecords {
 
   #load(): void {
     const c = this.#chunks[this.#next++];
-    if (!c) throw new RowdeckError('ERR_INTERNAL', 'spread order: a class ran out of records before its count.');
+    if (!c) throw new RowdeckError('RDK_INTERNAL', 'spread order: a class ran out of records before its count.');
     if (this.#bytes.length < c.length) this.#bytes = Buffer.allocUnsafe(Math.max(c.length, 2 * this.#bytes.length));
     if (this.#sizes.length < c.records) this.#sizes = new Uint32Array(Math.max(c.records, 2 * this.#sizes.length));
-    this.#data.read(this.#bytes, c.length, c.offset);
-    this.#sizeFile.read(new Uint8Array(this.#sizes.buffer, 0, 4 * c.records), 4 * c.records, c.sizesAt);
+    const source = c.source ?? 0;
+    this.#data[source]!.read(this.#bytes, c.length, c.offset);
+    this.#sizeFile[source]!.read(new Uint8Array(this.#sizes.buffer, 0, 4 * c.records), 4 * c.records, c.sizesAt);
     this.#count = c.records;
     this.#k = 0;
     this.#at = 0;
   }
 }
 
+export const SPREAD_RECORDS = 'spread-records.bin';
+export const SPREAD_SIZES = 'spread-sizes.bin';
+
 export class SpreadParts {
   readonly #strata: number;
   readonly #chunks: Chunk[][];
-  readonly #data: AppendFile;
-  readonly #sizes: AppendFile;
+  /** The files chunks are written to (one), or read from (one a run, by SpreadChunk.source). */
+  readonly #data: AppendFile[];
+  readonly #sizes: AppendFile[];
 
-  /** Work files go to `dir` (the spill folder). */
-  constructor(dir: string, parts: number, strata: number) {
+  /**
+   * Work files go to `dir` (the spill folder, or a gather task's folder). With `runs`, nothing is
+   * written: the work files of several runs (a plan's gather tasks, in bucket order) are read as
+   * one, each unit's chunks those of the first run, then the second's, and so on.
+   */
+  constructor(dir: string, parts: number, strata: number, runs?: { dir: string; chunks: SpreadChunk[][] }[]) {
     this.#strata = strata;
     this.#chunks = Array.from({ length: parts * strata }, () => []);
-    this.#data = new AppendFile(join(dir, 'spread-records.bin'));
-    this.#sizes = new AppendFile(join(dir, 'spread-sizes.bin'));
+    if (runs) {
+      runs.forEach((r, source) => r.chunks.forEach((list, u) => {
+        for (const c of list) this.#chunks[u]!.push({ ...c, source });
+      }));
+      this.#data = runs.map((r) => new AppendFile(join(r.dir, SPREAD_RECORDS), true));
+      this.#sizes = runs.map((r) => new AppendFile(join(r.dir, SPREAD_SIZES), true));
+    } else {
+      this.#data = [new AppendFile(join(dir, SPREAD_RECORDS))];
+      this.#sizes = [new AppendFile(join(dir, SPREAD_SIZES))];
+    }
+  }
+
+  /** Every unit's chunks (to be read by another process: see the constructor's `runs`). */
+  chunkList(): SpreadChunk[][] {
+    return this.#chunks;
   }
 
   /** One bucket's units (GatherResult.spread), in bucket order. */
@@ -125,8 +149,8 @@ export class SpreadParts {
       if (records === 0) continue;
       const a = unitStart[u]!;
       const e = unitStart[u + 1]!;
-      const offset = this.#data.append(data.subarray(a, e));
-      const sizesAt = this.#sizes.append(new Uint8Array(spread.sizes.buffer, spread.sizes.byteOffset + 4 * rec, 4 * records));
+      const offset = this.#data[0]!.append(data.subarray(a, e));
+      const sizesAt = this.#sizes[0]!.append(new Uint8Array(spread.sizes.buffer, spread.sizes.byteOffset + 4 * rec, 4 * records));
       this.#chunks[u]!.push({ offset, length: e - a, sizesAt, records });
       rec += records;
     }
@@ -161,7 +185,6 @@ export class SpreadParts {
   }
 
   close(): void {
-    this.#data.close();
-    this.#sizes.close();
+    for (const f of [...this.#data, ...this.#sizes]) f.close();
   }
 }

@@ -15,7 +15,7 @@ import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
-import { withinTolerance, worstDeviation } from '../core/balance.js';
+import { withinTolerance, balanceOfUnits } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
@@ -28,9 +28,10 @@ import { RecordReader } from '../io/reader.js';
 import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
 import { DEALING_SCHEME } from '../core/deal.js';
 import { SpreadCheck } from '../core/spread.js';
-import type { PartOrder } from '../options.js';
+import { resolveVerifyOptions, type PartOrder, type VerifyOptions } from '../options.js';
+import { misorderedInputs } from './input-order.js';
 import { describeStratum, describeValues, keyBytes, keyOfValues, stratumKey, stratumValues, tupleKey, type KeyColumn, type KeyRange } from '../core/strata.js';
-import { resolveWorkerFile } from './shuffle.js';
+import { resolveWorkerFile } from '../workers/worker-file.js';
 import { compareReplay, environmentFault, replayable, replayShuffle } from './replay.js';
 import { WorkerLanes } from '../workers/lanes.js';
 
@@ -116,35 +117,7 @@ export interface VerifyReport {
   replay: { status: VerifyStatus; seed: string | null; note: string } | null;
 }
 
-export interface VerifyProgress {
-  stage: 'parts' | 'inputs' | 'differences' | 'replay';
-  /** Files done and in all. */
-  done: number;
-  total: number;
-  records: number;
-  elapsedMs: number;
-}
-
-export interface VerifyOptions {
-  /** Output folder written by shuffle (holds manifest.json). */
-  dir: string;
-  /** Inputs to compare with the output ('-' reads standard input). */
-  against?: string[];
-  /**
-   * With `against`: run the shuffle again from the manifest's seed and options over the inputs,
-   * writing nothing (only hashing), and check that it gives exactly these parts. Default true.
-   * Standard input or a pipe cannot be read twice: the replay is then skipped.
-   */
-  replay?: boolean;
-  /** Folder for the replay's spill (default: beside the checked folder). */
-  tempDir?: string;
-  onProgress?: (e: VerifyProgress) => void;
-  /**
-   * Worker threads that read parts side by side. Default: the number of cores (one thread for
-   * outputs under 32 MiB, where starting workers costs more than it saves); 0 or 1 reads them here.
-   */
-  threads?: number;
-}
+export type { VerifyOptions, VerifyProgress } from '../options.js';
 
 /** How to read the parts and inputs, and how to recognise each record's class, from the manifest. */
 interface ReadPlan {
@@ -278,7 +251,8 @@ class HashList {
 
 const hashKey = (hi: number, lo: number): string => `${hi}:${lo}`;
 
-export async function verify(options: VerifyOptions): Promise<VerifyReport> {
+export async function verify(given: VerifyOptions): Promise<VerifyReport> {
+  const options = resolveVerifyOptions(given);
   const t0 = Date.now();
   const dir = options.dir;
   const m = loadManifest(dir);
@@ -316,11 +290,12 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
     return s;
   };
-  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
+  // 0: the calling thread reads every part (as in shuffle and profile).
+  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 0));
   let scans: PartScan[];
   // With --stats: the parts' statistics merged, for the whole input's.
   let wholeStats: TableStats | null = null;
-  if (threads > 1) {
+  if (threads > 0) {
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
     // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
@@ -469,14 +444,17 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     const dev = computeMaxDeviation(parts, partStrata, foldStrata, plan);
     const note = fromFiles ? 'from the counts read from the files' : "from the manifest's counts";
     judge(M, 'balance', Math.abs(dev - m.balance.maxDeviation) <= 1e-12 ? [] : [{ item: 'maxDeviation', expected: m.balance.maxDeviation, found: dev }], note);
-    judge(M, 'tolerance', withinTolerance(dev, m.balance.tolerance) ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
+    // Hash assignment promises no tolerance: its shares are what the keys give.
+    if ((m.options as { assign?: string }).assign === 'hash') skip(M, 'tolerance', 'not enforced with assign "hash": the class shares are reported, not kept within a tolerance');
+    else judge(M, 'tolerance', withinTolerance(dev, m.balance.tolerance) ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
   }
 
   // ---- --against: the inputs hold exactly the output's records ----
   let against: VerifyAgainst | null = null;
+  let misordered: { expected: string; found: string } | null = null;
   if (options.against !== undefined) {
     const inputs = options.against;
-    if (inputs.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
+    if (inputs.length === 0) throw new RowdeckError('RDK_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
     const inHashes = outHashes !== null ? new HashList() : null;
     // Bad records are counted, not fatal: the manifest says how many the run refused.
     const read = await scanInputs(inputs, plan, inHashes, (done, records) =>
@@ -485,7 +463,10 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     const A = '(inputs)';
     for (const e of read.errors) judge(e.file, 'readable', [{ expected: 'records the reader accepts', found: e.message }]);
     for (const h of read.headers) judge(h.file, 'header', same(JSON.stringify(plan.columns), JSON.stringify(h.columns)));
-    if (inputs.length === m.input.files.length) {
+    misordered = misorderedInputs(inputs, m.input.files, read.perFile);
+    if (misordered) {
+      judge(A, 'input order', [{ item: 'the order matters: give the inputs in the order the manifest lists them', expected: misordered.expected, found: misordered.found }]);
+    } else if (inputs.length === m.input.files.length) {
       read.perFile.forEach((n, k) => judge(nameInput(inputs[k]!), 'records', same(m.input.files[k]!.records, n)));
     } else {
       judge(A, 'records', same(m.input.records, read.records), `${inputs.length} input(s) given, the manifest lists ${m.input.files.length}`);
@@ -521,9 +502,10 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   if (options.against !== undefined) {
     const can = replayable(m);
     const R = '(replay)';
-    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: 'not asked for (replay: false)' };
+    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: `not asked for (${options.surface === 'cli' ? '--no-replay' : 'replay: false'})` };
     else if (!can.ok) replay = { status: 'skipped', seed: m.seed, note: can.why };
     else if (options.against.some((p) => isStreamInput(p))) replay = { status: 'skipped', seed: m.seed, note: 'standard input or a pipe can be read only once' };
+    else if (misordered) replay = { status: 'skipped', seed: m.seed, note: `the inputs are given in another order than the manifest's (${misordered.expected}), and the order decides where each record goes` };
     if (replay) skip(R, 'replay', replay.note);
     else {
       options.onProgress?.({ stage: 'replay', done: 0, total: 1, records: 0, elapsedMs: Date.now() - t0 });
@@ -532,6 +514,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
         replayed = await replayShuffle(m, options.against, dir, {
           ...(options.tempDir !== undefined ? { tempDir: options.tempDir } : {}),
           ...(options.threads !== undefined ? { threads: options.threads } : {}),
+          ...(options.memory !== undefined ? { memory: options.memory } : {}),
         });
       } catch (err) {
         const env = environmentFault(err);
@@ -669,7 +652,7 @@ function computeMaxDeviation(parts: PartRecord[], partStrata: number[][], foldSt
     });
     folds = counts;
   }
-  return worstDeviation(partCounts, P, folds, units, totals).deviation;
+  return balanceOfUnits(partCounts, P, folds, units, totals).deviation;
 }
 
 // ---- reading the manifest -------------------------------------------------------------------
@@ -681,23 +664,24 @@ export function loadManifest(dir: string): Manifest {
     text = readFileSync(path, 'utf8');
   } catch (err) {
     const code = (err as NodeJS.ErrnoException).code;
-    let folder = true;
+    let kind: 'folder' | 'other' | 'missing' = 'missing';
     try {
-      folder = statSync(dir).isDirectory();
+      kind = statSync(dir).isDirectory() ? 'folder' : 'other';
     } catch {
-      folder = false;
+      // Not there (or not reachable): said below.
     }
-    if (!folder) throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
+    if (kind === 'other') throw new RowdeckError('RDK_MANIFEST', `${dir}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`, { file: dir });
+    if (kind === 'missing') throw new RowdeckError('RDK_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
     if (code === 'ENOENT') {
-      throw new RowdeckError('ERR_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
+      throw new RowdeckError('RDK_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
     }
-    throw new RowdeckError('ERR_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
   }
   let raw: unknown;
   try {
     raw = JSON.parse(text);
   } catch (err) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
   }
   checkManifestShape(raw, path);
   return raw;
@@ -710,7 +694,7 @@ export function loadManifest(dir: string): Manifest {
  */
 function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest {
   const fail = (field: string, want: string): never => {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
   };
   const obj = (v: unknown, field: string): Record<string, unknown> => (typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Record<string, unknown>) : fail(field, 'an object'));
   const arr = (v: unknown, field: string): unknown[] => (Array.isArray(v) ? v : fail(field, 'an array'));
@@ -722,7 +706,7 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
   const m = obj(raw, '(top level)');
   if (m.manifestVersion !== 1 && m.manifestVersion !== MANIFEST_VERSION) {
     throw new RowdeckError(
-      'ERR_MANIFEST',
+      'RDK_MANIFEST',
       `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads versions 1 to ${MANIFEST_VERSION}. ${typeof m.manifestVersion === 'number' && m.manifestVersion > MANIFEST_VERSION ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
       { file: path, field: 'manifestVersion' },
     );
@@ -797,7 +781,7 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
 /** A part path must stay inside the folder: verify reads only what the run wrote. */
 function safePath(p: string, field: string, path: string): void {
   if (p === '' || isAbsolute(p) || normalize(p).split(/[\\/]/).includes('..')) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
   }
 }
 
@@ -962,7 +946,7 @@ async function readAll(source: string | Readable | Buffer, reader: RecordReader,
     const b = reader.end();
     if (b) onBatch(b);
   } catch (err) {
-    if (err instanceof RowdeckError && (err.code === 'ERR_INPUT_EMPTY' || err.code === 'ERR_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
+    if (err instanceof RowdeckError && (err.code === 'RDK_INPUT_EMPTY' || err.code === 'RDK_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
     throw err;
   }
 }
@@ -1165,7 +1149,7 @@ async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | n
       });
     } catch (err) {
       if (!(err instanceof RowdeckError)) throw err;
-      if (err.code === 'ERR_INPUT_NOT_FOUND') throw err;
+      if (err.code === 'RDK_INPUT_NOT_FOUND') throw err;
       res.errors.push({ file, message: err.message });
     }
     if (plan.format !== 'jsonl' && plan.header && reader.schema) res.headers.push({ file, columns: reader.schema.columns });

@@ -28,6 +28,7 @@ import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import { checkNotHeaderOnly } from './fields.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
+import { flags } from '../flags.js';
 
 const LF = 0x0a;
 
@@ -144,7 +145,7 @@ export class BlockHost {
 
   #take(id: number, remove: boolean): HeldBlock {
     const held = this.#held.get(id);
-    if (!held) throw new RowdeckError('ERR_INTERNAL', `block ${id} is not held by this worker`);
+    if (!held) throw new RowdeckError('RDK_INTERNAL', `block ${id} is not held by this worker`);
     if (remove) this.#held.delete(id);
     return held;
   }
@@ -299,11 +300,10 @@ export interface InputTotals {
 
 /** Sizes of the blocks; ROWDECK_BLOCK_BYTES and ROWDECK_LOOKAHEAD_BYTES override them (tests, experiments). */
 export function blockSizes(o: { blockBytes?: number; lookaheadBytes?: number }): { block: number; lookahead: number } {
-  const env = (name: string): number | undefined => (process.env[name] ? Number(process.env[name]) : undefined);
-  const block = Math.max(16, env('ROWDECK_BLOCK_BYTES') ?? o.blockBytes ?? DEFAULT_BLOCK_BYTES);
+  const block = Math.max(16, flags.blockBytes ?? o.blockBytes ?? DEFAULT_BLOCK_BYTES);
   return {
     block,
-    lookahead: Math.max(8, env('ROWDECK_LOOKAHEAD_BYTES') ?? o.lookaheadBytes ?? DEFAULT_LOOKAHEAD_BYTES),
+    lookahead: Math.max(8, flags.lookaheadBytes ?? o.lookaheadBytes ?? DEFAULT_LOOKAHEAD_BYTES),
   };
 }
 
@@ -394,7 +394,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
       let buffer = pool.pop();
       if (!buffer || buffer.byteLength < need) buffer = new ArrayBuffer(Math.max(need, B + L + 8));
       const got = await readAt(fh, new Uint8Array(buffer), need, from, file);
-      if (got !== need) throw new RowdeckError('ERR_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
+      if (got !== need) throw new RowdeckError('RDK_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
       const lane = id % T;
       const job: BlockJob = {
         kind: 'block', id, input: o.input, reader: toWorker, schema,
@@ -457,7 +457,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
       progress(expected);
     }
     if (!fellBack && !failures.length && expected !== size) {
-      throw new RowdeckError('ERR_INTERNAL', `${file}: parallel reading stopped at byte ${expected} of ${size}.`, { file });
+      throw new RowdeckError('RDK_INTERNAL', `${file}: parallel reading stopped at byte ${expected} of ${size}.`, { file });
     }
     // Blocks not committed are dropped (after their parse, so the worker still holds them).
     for (const p of pending.splice(0)) release(p.id, p.reply.then(() => o.lanes.runOn(p.lane, { kind: 'drop', id: p.id })));

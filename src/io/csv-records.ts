@@ -12,6 +12,7 @@ import { structuralScanner, WalkStop, type StructuralScanner } from './structura
 // scan reads words as little-endian; elsewhere it falls back to bytes.
 import { LITTLE_ENDIAN } from '../core/platform.js';
 import { CsvWalk, WALK_BAD, WALK_MORE } from './csv-walk.js';
+import { flags } from '../flags.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
@@ -24,7 +25,7 @@ const QUOTE = 0x22;
  * it) puts every piece of data on one path: for tests and benchmarks.
  */
 const AUTO_MIN_BYTES = 4096;
-let structuralMinBytes = scanMinBytes(process.env.ROWDECK_SCAN);
+let structuralMinBytes = scanMinBytes(flags.scan);
 /**
  * The most bytes given to the structural scan at once (its memory grows to ~1.4 times that and
  * stays): larger data, such as a push holding a very long record, is scanned in windows, and the
@@ -293,7 +294,7 @@ export class CsvRecords extends CsvWalk {
     const N = this.ncols;
     const ch = String.fromCharCode(this.delim);
     const shown = ch === '\t' ? 'a tab' : `"${ch}"`;
-    this.reject('ERR_FIELD_COUNT', line, f > N ? N + 1 : f + 1,
+    this.reject('RDK_FIELD_COUNT', line, f > N ? N + 1 : f + 1,
       `record has ${f} field${f === 1 ? '' : 's'}, the ${this.opts.header ? 'header' : 'first record'} has ${N}. Quote fields that contain ${shown} or use --on-bad-record skip|quarantine to set such records aside.`,
       d, s, e);
   }

@@ -39,8 +39,8 @@ export abstract class CsvWalk extends ReaderState {
   protected rInQ = false;
   /**
    * A quoted field grew past maxRecordBytes: its bytes are dropped, and the rest of the input is
-   * only scanned for the closing quote, to tell a field that is too long (ERR_FIELD_TOO_LONG) from
-   * one that is never closed (ERR_UNTERMINATED_QUOTE). `quoteLast`: the bytes so far end in a
+   * only scanned for the closing quote, to tell a field that is too long (RDK_FIELD_TOO_LONG) from
+   * one that is never closed (RDK_UNTERMINATED_QUOTE). `quoteLast`: the bytes so far end in a
    * quote whose meaning the next byte decides.
    */
   protected over: { line: number; quoteLast: boolean } | null = null;
@@ -50,7 +50,7 @@ export abstract class CsvWalk extends ReaderState {
   protected wNext = 0;
   protected wFields = 0;
   protected wLfs = 0;
-  protected wCode: RowdeckErrorCode = 'ERR_INTERNAL';
+  protected wCode: RowdeckErrorCode = 'RDK_INTERNAL';
   protected wCol = 0;
   protected wLineRel = 0;
   protected wMsg = '';
@@ -160,7 +160,7 @@ export abstract class CsvWalk extends ReaderState {
     const { file } = this.opts;
     const line = this.over?.line ?? this.line;
     throw new RowdeckError(
-      'ERR_UNTERMINATED_QUOTE',
+      'RDK_UNTERMINATED_QUOTE',
       `${where(file, line)}: a quoted field in the record starting here is never closed (read to the end of the input, past the ${this.limitText()} a record may hold). Close the quote; write quotes inside a quoted field twice ("").`,
       { file, line },
     );
@@ -170,7 +170,7 @@ export abstract class CsvWalk extends ReaderState {
     const { file } = this.opts;
     const line = this.over?.line ?? this.line;
     throw new RowdeckError(
-      'ERR_FIELD_TOO_LONG',
+      'RDK_FIELD_TOO_LONG',
       `${where(file, line)}: the record starting here holds a quoted field longer than ${this.limitText()}, the most one record may hold (the field is closed further on). Shorten or split that field, or keep such values out of the input.`,
       { file, line },
     );
@@ -248,7 +248,7 @@ export abstract class CsvWalk extends ReaderState {
         while (nl < stop) { lfs++; nl = d.indexOf(LF, nl + 1); if (nl < 0) nl = n; }
         if (close < 0) {
           if (!atEnd) return WALK_MORE;
-          this.wCode = 'ERR_UNTERMINATED_QUOTE'; this.wCol = c + 1; this.wLineRel = qLine;
+          this.wCode = 'RDK_UNTERMINATED_QUOTE'; this.wCol = c + 1; this.wLineRel = qLine;
           this.wMsg = `a quoted field starts here and is never closed. Close the quote, write quotes inside the field twice (""), or use --on-bad-record skip|quarantine to set the rest aside.`;
           this.wEnd = n; this.wNext = n; this.wLfs = lfs;
           return WALK_BAD;
@@ -265,7 +265,7 @@ export abstract class CsvWalk extends ReaderState {
           if (i + 1 >= n) { if (!atEnd) return WALK_MORE; }
           else if (d[i + 1] === LF) return this.walkDone(i, i + 2, c, lfs);
         }
-        return this.walkBad(d, i, n, atEnd, lfs, c, 'ERR_STRAY_QUOTE',
+        return this.walkBad(d, i, n, atEnd, lfs, c, 'RDK_STRAY_QUOTE',
           `text follows the closing quote of a quoted field. Inside a quoted field write a quote twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
       }
       // An unquoted stretch: up to the next quote or line end.
@@ -281,7 +281,7 @@ export abstract class CsvWalk extends ReaderState {
       }
       // A quote opens a field only at the field's start.
       if (d[seg - 1] !== D) {
-        return this.walkBad(d, seg, n, atEnd, lfs, c, 'ERR_STRAY_QUOTE',
+        return this.walkBad(d, seg, n, atEnd, lfs, c, 'RDK_STRAY_QUOTE',
           `a quote (") inside an unquoted field. Put the whole field in quotes and write each quote in it twice (""), or use --on-bad-record skip|quarantine to set such records aside.`);
       }
       i = seg;
@@ -337,7 +337,7 @@ export abstract class CsvWalk extends ReaderState {
         for (let f = 0; f < k; f++) {
           const prev = seen.get(columns[f]!);
           if (prev !== undefined) {
-            throw new RowdeckError('ERR_DUPLICATE_HEADER',
+            throw new RowdeckError('RDK_DUPLICATE_HEADER',
               `${where(file, this.line, f + 1)}: the header names column "${columns[f]}" twice (columns ${prev + 1} and ${f + 1}). Rename one of them so every column can be told apart.`,
               { file, line: this.line, column: f + 1 });
           }

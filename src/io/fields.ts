@@ -66,12 +66,12 @@ export function splitRecordFields(
 export function checkNotHeaderOnly(opts: { format: InputFormat; header: boolean; file: string }, seen: number): void {
   if (seen === 0 && opts.format !== 'jsonl' && opts.header) {
     const { file } = opts;
-    throw new RowdeckError('ERR_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
+    throw new RowdeckError('RDK_HEADER_ONLY', `${file}: the input has a header but no records. Check that the file was fully written, or drop it from the inputs.`, { file, line: 1 });
   }
 }
 
 
-/** ERR_UNKNOWN_COLUMN naming the closest column by edit distance and listing all of them. */
+/** RDK_UNKNOWN_COLUMN naming the closest column by edit distance and listing all of them. */
 export function unknownColumn(name: string, columns: string[], file: string): RowdeckError {
   let best = '';
   let bestD = Infinity;
@@ -81,7 +81,7 @@ export function unknownColumn(name: string, columns: string[], file: string): Ro
   }
   const hint = columns.length > 0 ? ` Did you mean "${best}"?` : '';
   const list = columns.length > 40 ? `${columns.slice(0, 40).join(', ')}, … (${columns.length} in all)` : columns.join(', ');
-  return new RowdeckError('ERR_UNKNOWN_COLUMN', `${file}: no column named "${name}".${hint} Columns: ${list}.`, { file, column: name, suggestion: best, columns });
+  return new RowdeckError('RDK_UNKNOWN_COLUMN', `${file}: no column named "${name}".${hint} Columns: ${list}.`, { file, column: name, suggestion: best, columns });
 }
 
 /** Levenshtein distance. */

@@ -10,6 +10,7 @@ import { RowdeckError, where } from '../errors.js';
 import type { InputSchema } from './batch.js';
 import { JsonlChecker, JsonlCheck } from './jsonl.js';
 import { REJECT_BYTES_CAP, ReaderState } from './reader-state.js';
+import { rejectReason } from './reject-reason.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
@@ -136,17 +137,18 @@ export class JsonlRecords extends ReaderState {
   private refuseRecord(line: number): never {
     const { file, refuseKey } = this.opts;
     throw new RowdeckError(
-      'ERR_OPTION',
-      `${where(file, line)}: Invalid option "foldColumn": this record already has a key "${refuseKey}", the fold column the output adds (it would hold two). Name the added column otherwise with --fold-column NAME.`,
+      'RDK_OPTION',
+      // The option is named by the run, as its caller spells it (see shuffle.ts).
+      `${where(file, line)}: this record already has a key "${refuseKey}", the name of the fold column the output adds (it would hold two). Name the fold column otherwise.`,
       { file, line, option: 'foldColumn', column: refuseKey },
     );
   }
 
   private rejectJson(line: number, column: number | undefined, msg: string, d: Buffer, s: number, e: number): void {
     const { file, onBadRecord, onReject } = this.opts;
-    if (onBadRecord === 'fail') throw new RowdeckError('ERR_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
+    if (onBadRecord === 'fail') throw new RowdeckError('RDK_INVALID_JSON', `${where(file, line, column)}: ${msg}`, { file, line, column });
     this.stats.rejected++;
-    onReject?.({ file, line, code: 'ERR_INVALID_JSON', reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+    onReject?.({ file, line, code: 'RDK_INVALID_JSON', reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
   }
 
   /** Finds the raw value tokens of the wanted top-level keys in one valid JSON object at `i`. */

@@ -10,14 +10,19 @@
  * One instance per reader; its memory holds the wanted keys, their answers, the container stack
  * and a copy of the bytes being read (grown to the largest such copy).
  */
-import { JSONL_WASM_BASE64 } from './jsonl-wasm.js';
+import { JSONL_LAYOUT, JSONL_WASM_BASE64 } from './jsonl-wasm.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
+import { flags } from '../flags.js';
 
 type ObjectFn = (a: number, e: number, keys: number, nkeys: number, out: number, stack: number, max: number) => number;
 interface JsonlKernel {
   memory: WasmMemory;
   object: ObjectFn;
 }
+
+/** i32 words of a wanted key's entry (address, length) and of its answer (start, end, kind). */
+const KEY_WORDS = JSONL_LAYOUT.keyEntryBytes / 4;
+const ANSWER_WORDS = JSONL_LAYOUT.answerBytes / 4;
 
 /** Containers open at once that the module follows; deeper lines go to JSON.parse. */
 export const MAX_DEPTH = 4096;
@@ -29,7 +34,7 @@ export const enum JsonlCheck {
   Undecided = 2,
 }
 
-let enabled = process.env.ROWDECK_JSONL !== 'js';
+let enabled = flags.jsonl !== 'js';
 /** For tests: use the module (true) or JSON.parse only (false) in readers created from now on. */
 export function useJsonlCheck(on: boolean): void {
   enabled = on;
@@ -64,29 +69,29 @@ export class JsonlChecker {
     });
     this.#nkeys = keys.length;
     this.#keys = 64;
-    let at = this.#keys + 8 * keys.length;
+    let at = this.#keys + JSONL_LAYOUT.keyEntryBytes * keys.length;
     const addrs: number[] = [];
     for (const key of keys) {
       addrs.push(at);
       at += key.length;
     }
     this.#out = (at + 7) & ~7;
-    this.#stack = this.#out + 12 * keys.length;
+    this.#stack = this.#out + JSONL_LAYOUT.answerBytes * keys.length;
     this.#data = (this.#stack + MAX_DEPTH + 2 + 63) & ~63;
     if (!growTo(k.memory, this.#data + 65536)) throw new Error('the JSON Lines module could not get its memory');
     const u8 = new Uint8Array(k.memory.buffer);
     this.#i32 = new Int32Array(k.memory.buffer);
     keys.forEach((key, i) => {
       u8.set(key, addrs[i]!);
-      this.#i32[(this.#keys >> 2) + 2 * i] = addrs[i]!;
-      this.#i32[(this.#keys >> 2) + 2 * i + 1] = key.length;
+      this.#i32[(this.#keys >> 2) + KEY_WORDS * i] = addrs[i]!;
+      this.#i32[(this.#keys >> 2) + KEY_WORDS * i + 1] = key.length;
     });
   }
 
   /** A checker for these wanted keys (their UTF-8 bytes), or null where the module cannot run. */
   static create(keys: Uint8Array[]): JsonlChecker | null {
     if (!enabled) return null;
-    const k = instantiate<JsonlKernel>(JSONL_WASM_BASE64);
+    const k = instantiate<JsonlKernel>('jsonl', JSONL_WASM_BASE64, ['memory', 'object']);
     if (!k) return null;
     try {
       return new JsonlChecker(k, keys);
@@ -112,15 +117,15 @@ export class JsonlChecker {
 
   /** Wanted key `w`'s value in the last line checked as an object: its token's start in `d`. */
   start(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]!]! - this.#data + this.#from;
+    return this.#i32[(this.#out >> 2) + ANSWER_WORDS * this.#entry[w]!]! - this.#data + this.#from;
   }
 
   end(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]! + 1]! - this.#data + this.#from;
+    return this.#i32[(this.#out >> 2) + ANSWER_WORDS * this.#entry[w]! + 1]! - this.#data + this.#from;
   }
 
   /** FieldKind of wanted key `w`'s value: JsonString, Missing (null or absent) or Plain. */
   kind(w: number): number {
-    return this.#i32[(this.#out >> 2) + 3 * this.#entry[w]! + 2]!;
+    return this.#i32[(this.#out >> 2) + ANSWER_WORDS * this.#entry[w]! + 2]!;
   }
 }

@@ -4,6 +4,7 @@
  * rest is left to Node, the worker threads, the spill files (16 a thread) and the inputs.
  */
 import { readFileSync } from 'node:fs';
+import { flags } from '../flags.js';
 
 /** The soft limit on open files of this process, or null where it cannot be read. */
 export function readOpenFileLimit(): number | null {
@@ -22,8 +23,7 @@ export function readOpenFileLimit(): number | null {
  * `ROWDECK_OPEN_PARTS` sets it, for tests and experiments (the output does not depend on it).
  */
 export function choosePartFileSlots(limit: number | null = readOpenFileLimit()): number {
-  const forced = Number(process.env.ROWDECK_OPEN_PARTS);
-  if (Number.isInteger(forced) && forced > 0) return forced;
+  if (flags.openParts !== undefined) return flags.openParts;
   if (limit === null) return 256;
   return Math.max(8, Math.min(512, Math.floor(limit / 4)));
 }

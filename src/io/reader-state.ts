@@ -10,6 +10,7 @@ import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRe
 import { RowdeckError, where } from '../errors.js';
 import type { RowdeckErrorCode } from '../errors.js';
 import { checkNotHeaderOnly, unknownColumn } from './fields.js';
+import { rejectReason } from './reject-reason.js';
 
 const LF = 0x0a;
 const CR = 0x0d;
@@ -116,7 +117,7 @@ export abstract class ReaderState {
     const d = opts.delimiter ?? (opts.format === 'tsv' ? '\t' : ',');
     const db = Buffer.from(d, 'utf8');
     if (db.length !== 1 || db[0] === QUOTE || db[0] === LF || db[0] === CR) {
-      throw new RowdeckError('ERR_OPTION', `Invalid option "delimiter": expected one single-byte character other than a quote or a line end, got ${JSON.stringify(d)}`, {});
+      throw new RowdeckError('RDK_OPTION', `Invalid option "delimiter": expected one single-byte character other than a quote or a line end, got ${JSON.stringify(d)}`, {});
     }
     this.delim = db[0]!;
     this.W = opts.wanted.length;
@@ -170,7 +171,7 @@ export abstract class ReaderState {
    * left out. Needs `adoptSchema` first. The batch is valid until the next call.
    */
   parseBlock(d: Buffer, pos: number, atEnd: boolean, baseOffset: number): RecordBatch | null {
-    if (!this.resumed) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.parseBlock() before adoptSchema()');
+    if (!this.resumed) throw new RowdeckError('RDK_INTERNAL', 'RecordReader.parseBlock() before adoptSchema()');
     this.reset(baseOffset, 1);
     return this.parseRecords(d, pos, atEnd);
   }
@@ -184,7 +185,7 @@ export abstract class ReaderState {
   }
 
   push(chunk: Buffer): RecordBatch | null {
-    if (this.ended) throw new RowdeckError('ERR_INTERNAL', 'RecordReader.push() after end()');
+    if (this.ended) throw new RowdeckError('RDK_INTERNAL', 'RecordReader.push() after end()');
     if (chunk.length === 0) return null;
     this.stats.bytes += chunk.length;
     this.lastByte = chunk[chunk.length - 1]!;
@@ -215,7 +216,7 @@ export abstract class ReaderState {
     if (this.resumed) return batch;
     if (!this.sch) {
       const why = this.stats.rejected > 0 ? ` (${this.stats.rejected} refused as bad)` : this.stats.bytes > 0 ? ' (only blank lines)' : '';
-      throw new RowdeckError('ERR_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
+      throw new RowdeckError('RDK_INPUT_EMPTY', `${file}: the input holds no records${why}. Check the path, or that the file was fully written.`, { file });
     }
     if (this.stats.records + this.stats.rejected === 0) checkNotHeaderOnly(this.opts, 0);
     return batch;
@@ -304,7 +305,7 @@ export abstract class ReaderState {
       throw new RowdeckError(code, `${where(file, line, column)}: ${msg}`, { file, line, column });
     }
     this.stats.rejected++;
-    onReject?.({ file, line, code, reason: msg, bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
+    onReject?.({ file, line, code, reason: rejectReason(msg), bytes: Buffer.from(d.subarray(s, Math.min(e, s + REJECT_BYTES_CAP))) });
   }
 
   protected checkExpected(columns: string[]): void {
@@ -315,7 +316,7 @@ export abstract class ReaderState {
       if (exp[f] !== columns[f]) {
         const { file } = this.opts;
         const from = this.opts.expectedFrom ?? 'the first input';
-        throw new RowdeckError('ERR_HEADER_MISMATCH',
+        throw new RowdeckError('RDK_HEADER_MISMATCH',
           `${where(file, this.opts.format === 'jsonl' ? undefined : 1, f + 1)}: columns differ from ${from}: column ${f + 1} is ${columns[f] === undefined ? 'missing' : `"${columns[f]}"`}, ${from} has ${exp[f] === undefined ? 'no such column' : `"${exp[f]}"`}. All inputs must have the same columns in the same order.`,
           { file, line: 1, column: f + 1, expectedFrom: from, expected: exp, found: columns });
       }

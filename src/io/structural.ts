@@ -13,7 +13,7 @@
  * an 8 MiB window). Where WebAssembly SIMD is missing, `structuralScanner()` returns
  * null and the reader keeps its JavaScript scan.
  */
-import { STRUCTURAL_WASM_BASE64 } from './structural-wasm.js';
+import { STRUCTURAL_LAYOUT, STRUCTURAL_WASM_BASE64 } from './structural-wasm.js';
 import { growTo, instantiate, type WasmMemory } from '../core/wasm.js';
 
 type ScanFn = (inAt: number, len: number, out: number, delim: number) => number;
@@ -38,9 +38,10 @@ export interface WalkOutput {
 }
 
 /** Where the data is copied: one byte before it holds a line end (the scan reads it). */
-const IN = 64;
-/** Zero bytes written after the data (the scan reads up to 66 bytes past its end). */
+const IN = STRUCTURAL_LAYOUT.dataAt;
+/** Zero bytes written after the data (the scan reads up to overreadBytes past its end). */
 const PAD = 192;
+const { turnBytes: TURN, maskBytes: MASKS, lineAt: LINE_AT, recordBytes: RECORD, fieldBytes: FIELD } = STRUCTURAL_LAYOUT;
 
 export interface StructuralScanner {
   /**
@@ -88,7 +89,7 @@ let instance: StructuralScanner | null | undefined;
 /** The scanner of this thread, or null where WebAssembly SIMD is not available. */
 export function structuralScanner(): StructuralScanner | null {
   if (instance !== undefined) return instance;
-  const exp = instantiate<{ memory: WasmMemory; scan: ScanFn; walk: WalkFn }>(STRUCTURAL_WASM_BASE64);
+  const exp = instantiate<{ memory: WasmMemory; scan: ScanFn; walk: WalkFn }>('structural', STRUCTURAL_WASM_BASE64, ['memory', 'scan', 'walk']);
   instance = exp ? createScanner(exp.memory, exp.scan, exp.walk) : null;
   return instance;
 }
@@ -96,14 +97,14 @@ export function structuralScanner(): StructuralScanner | null {
 function createScanner(memory: WasmMemory, run: ScanFn, runWalk: WalkFn): StructuralScanner {
   let bytes = new Uint8Array(memory.buffer);
   let state = new Int32Array(memory.buffer, 0, 8);
-  let lineAt = new Float64Array(memory.buffer, 24, 1);
+  let lineAt = new Float64Array(memory.buffer, LINE_AT, 1);
   // Where the last scan's masks end, and the walk's layout after them (prepareWalk).
   let maskEnd = 0, N = 0, W = 0, cfg = 0, rec = 0, max = 0;
   const views = (): void => {
     bytes = new Uint8Array(memory.buffer);
     s.masks = new Int32Array(memory.buffer);
     state = new Int32Array(memory.buffer, 0, 8);
-    lineAt = new Float64Array(memory.buffer, 24, 1);
+    lineAt = new Float64Array(memory.buffer, LINE_AT, 1);
   };
   const ensure = (need: number, what: string): void => {
     if (need <= memory.buffer.byteLength) return;
@@ -119,7 +120,7 @@ function createScanner(memory: WasmMemory, run: ScanFn, runWalk: WalkFn): Struct
     scan(d, pos, n, delim) {
       const len = n - pos;
       const out = (IN + len + PAD + 63) & ~63;
-      maskEnd = out + Math.ceil(len / 64) * 24 + 64;
+      maskEnd = out + Math.ceil(len / TURN) * MASKS + 64;
       ensure(maskEnd, 'scan');
       bytes[IN - 1] = 0x0a;
       bytes.set(d.subarray(pos, n), IN);
@@ -129,10 +130,10 @@ function createScanner(memory: WasmMemory, run: ScanFn, runWalk: WalkFn): Struct
     },
     prepareWalk(cols, wcol, nextMark) {
       N = cols; W = wcol.length;
-      max = Math.min(walkLimit, Math.max(2, Math.floor((1 << 20) / (28 + 9 * W)) & ~1));
+      max = Math.min(walkLimit, Math.max(2, Math.floor((1 << 20) / (RECORD + FIELD * W)) & ~1));
       cfg = maskEnd;
       rec = (cfg + 4 * (W + 2 * (N + 1)) + 7) & ~7;
-      ensure(rec + max * (28 + 9 * W) + 8, 'walk');
+      ensure(rec + max * (RECORD + FIELD * W) + 8, 'walk');
       const words = new Int32Array(memory.buffer, cfg, W + N + 1);
       words.set(wcol, 0);
       words.set(nextMark, W);

@@ -12,6 +12,7 @@
 import { closeSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, rmSync, unlinkSync, writeSync } from 'node:fs';
 import { hostname, tmpdir } from 'node:os';
 import { basename, join } from 'node:path';
+import { flags } from '../flags.js';
 
 const WORK_NAME = /^\.rowdeck-(?:spill|partial)-(\d+)-/;
 
@@ -71,7 +72,7 @@ interface RunEntry {
 
 /** The per-user folder of run records, or null where it cannot be used safely. */
 function runsFolder(): string | null {
-  const dir = process.env.ROWDECK_RUNS_DIR ?? join(tmpdir(), `rowdeck-runs-${typeof process.getuid === 'function' ? process.getuid() : 'user'}`);
+  const dir = flags.runsDir ?? join(tmpdir(), `rowdeck-runs-${typeof process.getuid === 'function' ? process.getuid() : 'user'}`);
   try {
     mkdirSync(dir, { recursive: true, mode: 0o700 });
     const st = lstatSync(dir);

@@ -8,9 +8,10 @@ import { existsSync, mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { pathToFileURL } from 'node:url';
+import { flags } from '../../src/flags.js';
 
 export function findChromium(): string | null {
-  const given = process.env.ROWDECK_CHROMIUM;
+  const given = flags.chromium;
   if (given) return existsSync(given) ? given : null;
   for (const p of ['/usr/bin/chromium', '/usr/bin/chromium-browser']) if (existsSync(p)) return p;
   return null;

@@ -1,0 +1,275 @@
+/**
+ * The deal step of a plan (one task, between the scatter and gather stages): checks that the
+ * scatter tasks' slices chain (each begins where the one before ended; a slice that began inside
+ * a quoted field is read again here, from the right start), merges their counts, gives refused
+ * records and errors their physical line numbers, counts and places the groups, and makes the
+ * plan of stage 2 exactly as `shuffle` does (src/engine/plan.ts), with, for each gather task, its
+ * buckets' spill pieces and the ranks its buckets start at.
+ */
+import { renameSync, rmSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { fromWire, RowdeckError } from '../errors.js';
+import type { InputSchema } from '../io/batch.js';
+import type { Lanes } from '../workers/lanes.js';
+import type { GroupTableData } from '../core/group-table.js';
+import type { CensusTask } from '../engine/gather.js';
+import type { GatherFinal } from '../engine/gather-lane.js';
+import { countGroups, placeAllGroups, writeGroupLookup } from '../engine/group-census.js';
+import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan, type Worst } from '../engine/plan.js';
+import { partLayout } from '../engine/parts.js';
+import { statsInLanes } from '../engine/part-stats.js';
+import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
+import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
+import type { SpillPiece } from '../engine/spill.js';
+import type { DealSpec } from '../core/deal.js';
+import { enterPlan, type ClusterPlan } from './plan.js';
+import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
+import { absoluteResults, runScatterTask, type ScatterDone, type SliceStarts } from './scatter-task.js';
+import { taskCommand } from './commands.js';
+import { dealLanes } from './lanes.js';
+
+/** What the deal step hands to the gather tasks and to finish. */
+export interface DealDone extends DoneRecord {
+  schema: Omit<InputSchema, 'headerBytes'> & { headerBytes: string | null };
+  inputs: { path: string; bytes: number; records: number; rejected: number }[];
+  records: number;
+  rejected: number;
+  /** rejected.csv's content is in the deal folder (quarantine), or null. */
+  rejectsFile: string | null;
+  strataKeys: string[];
+  strataSizes: number[];
+  deal: DealSpec;
+  worst: Worst;
+  fingerprint: { hi: number; lo: number; count: number };
+  /** Scatter tasks read again here (their slice began inside a quoted field). */
+  reread: number[];
+}
+
+/** One gather task's share: its buckets' spill pieces, the ranks they start at, and their counts. */
+export interface GatherShare {
+  first: number;
+  end: number;
+  pieces: SpillPiece[][];
+  rankStart: Float64Array;
+  /** `counts[(b - first) * strata + s]`, by dealing stratum. */
+  counts: Float64Array;
+}
+
+export const gatherShareFile = (index: number): string => `gather-${String(index).padStart(4, '0')}.json`;
+
+/** Every scatter task's done record, or an error naming those missing with the command that runs them. */
+export function scatterDones(plan: ClusterPlan): ScatterDone[] {
+  const dones = plan.scatter.map((_, i) => readDone<ScatterDone>(plan.work, 'scatter', i));
+  const missing = dones.flatMap((d, i) => (d === null || d.planId !== plan.planId ? [i] : []));
+  if (missing.length > 0) {
+    throw new RowdeckError(
+      'RDK_TASKS_INCOMPLETE',
+      `${missing.length} scatter task(s) of ${plan.scatter.length} not done: ${missing.slice(0, 20).join(', ')}${missing.length > 20 ? ', …' : ''}. Run each: ${taskCommand(plan, 'scatter', missing[0]!)} (--index ${missing.length > 1 ? 'for each' : missing[0]}), then the deal step again.`,
+      { missing },
+    );
+  }
+  return dones as ScatterDone[];
+}
+
+/**
+ * Checks the chain of slices input by input, reading again (here) every scatter task whose slice
+ * began at a wrong guess, until every slice begins where the one before it ended. Returns the
+ * done records and the tasks read again.
+ */
+async function chainSlices(plan: ClusterPlan): Promise<{ dones: ScatterDone[]; reread: number[] }> {
+  let dones = scatterDones(plan);
+  const reread: number[] = [];
+  // Walk the slices in input order (tasks are in input order, and a task's slices too).
+  for (let t = 0; t < dones.length; t++) {
+    for (let j = 0; j < dones[t]!.slices.length; j++) {
+      const s = dones[t]!.slices[j]!;
+      if (s.slice.start === 0) continue;
+      const before = previousSlice(dones, t, j);
+      if (!before || before.slice.input !== s.slice.input) throw new RowdeckError('RDK_INTERNAL', `plan: slice ${j} of scatter task ${t} has no slice before it in its input`);
+      if (s.start === before.end) continue;
+      // Read again from the start the chain gives (the task's other slices are unchanged).
+      // Only a task's first slice can begin inside an input (a task takes an input on from where the one before stopped).
+      const starts: SliceStarts = new Map([[j, before.end]]);
+      const dir = taskDir(plan.work, 'scatter', t);
+      const aside = `${dir}.replaced`;
+      rmSync(aside, { recursive: true, force: true });
+      renameSync(dir, aside);
+      try {
+        await runScatterTask(plan, t, starts);
+      } catch (err) {
+        renameSync(aside, dir);
+        throw err;
+      }
+      rmSync(aside, { recursive: true, force: true });
+      reread.push(t);
+      dones = scatterDones(plan);
+      j--;
+    }
+  }
+  return { dones, reread };
+}
+
+function previousSlice(dones: ScatterDone[], t: number, j: number): ScatterDone['slices'][number] | null {
+  if (j > 0) return dones[t]!.slices[j - 1]!;
+  for (let u = t - 1; u >= 0; u--) {
+    const s = dones[u]!.slices;
+    if (s.length > 0) return s[s.length - 1]!;
+  }
+  return null;
+}
+
+/** Lines before each slice's start, input by input (the first slice of an input counts its own). */
+function lineBases(dones: ScatterDone[]): number[][] {
+  const base: number[][] = dones.map((d) => d.slices.map(() => 0));
+  const running = new Map<number, number>();
+  dones.forEach((d, t) =>
+    d.slices.forEach((s, j) => {
+      const k = s.slice.input;
+      base[t]![j] = s.slice.start === 0 ? 0 : (running.get(k) ?? 0);
+      running.set(k, base[t]![j]! + s.lines);
+    }),
+  );
+  return base;
+}
+
+/** The scatter lanes' results of every task, renumbered in task then lane order, merged as one run's. */
+function mergeDones(plan: ClusterPlan, dones: ScatterDone[], schema: InputSchema, censusBuckets: number): ScatterResult {
+  const results: ScatterTaskResult[] = [];
+  dones.forEach((d, t) => {
+    const local = absoluteResults(d, taskDir(plan.work, 'scatter', t)).sort((a, b) => a.task - b.task);
+    for (const r of local) results.push({ ...r, task: results.length });
+  });
+  const inputs = plan.inputs.map((x) => ({ path: x.given, bytes: 0, records: 0, rejected: 0 }));
+  for (const d of dones) {
+    for (const x of d.inputs) {
+      const to = inputs[x.input]!;
+      to.bytes += x.bytes;
+      to.records += x.records;
+      to.rejected += x.rejected;
+    }
+  }
+  return mergeScatterResults(results, schema, inputs, plan.size.buckets, censusBuckets);
+}
+
+function schemaOf(d: ScatterDone): InputSchema {
+  return { ...d.schema, headerBytes: d.schema.headerBytes === null ? null : Buffer.from(d.schema.headerBytes, 'base64') } as InputSchema;
+}
+
+export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
+  const o = enterPlan(plan);
+  const secrets = deriveSecrets(o.seed);
+  return runTask<Omit<DealDone, keyof DoneRecord>>(plan.work, 'deal', 0, plan.planId, async (dir) => {
+    const { dones, reread } = await chainSlices(plan);
+    const bases = lineBases(dones);
+    // A slice that stopped at a malformed record, now known to have begun where it should: the
+    // run's error, with its physical line.
+    dones.forEach((d, t) => {
+      if (!d.stopped) return;
+      const err = fromWire(d.stopped.error);
+      const base = bases[t]![d.stopped.slice]!;
+      if (typeof err.details.line === 'number' && err.details.file) {
+        const local = err.details.line;
+        err.details.line = local + base;
+        throw new RowdeckError(err.code, err.message.replace(`${err.details.file}:${local}`, `${err.details.file}:${local + base}`), err.details);
+      }
+      throw err;
+    });
+    const schema = schemaOf(dones[0]!);
+    const cellKeyInHeader = placesRecordsIndividually(o);
+    const censusBits = cellKeyInHeader && o.assign === 'group' ? Math.max(0, plan.size.bits - 2) : null;
+    const sc = mergeDones(plan, dones, schema, censusBits === null ? 0 : 2 ** censusBits);
+    // Refused records in input order, with their physical lines (as a single run lists them).
+    const rejects = new Rejects(o.onBadRecord === 'quarantine');
+    dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
+
+    const records = sc.records;
+    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+    const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
+    const deal = dealSpecOf(o, records);
+    const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
+    const parts = partCount(deal);
+    const cells = parts * deal.folds;
+    let cellCounts: Float64Array;
+    let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
+    if (o.assign === 'exact') cellCounts = exactCellCounts(table);
+    else if (o.assign === 'hash') cellCounts = hashCellCounts(sc.cellCounts!, d.localToGlobal, cells);
+    else {
+      const threads = Math.max(1, plan.size.threads);
+      const lanes = (await dealLanes(threads, dir))!;
+      try {
+        const groups = await countGroups(
+          { pieces: sc.censusPieces ?? sc.bucketPieces, bits: sc.censusPieces ? Math.log2(sc.censusPieces.length) : plan.size.bits, taskToDealing: d.taskToDealing },
+          join(dir, 'groups-census.bin'),
+          (task) => (lanes as unknown as Lanes<CensusTask, GroupTableData, GatherFinal>).run(task),
+          threads * 2,
+          () => {},
+        );
+        const placement = placeAllGroups(groups, deal, d.strataSizes);
+        cellCounts = placement.cellCounts;
+        groupLookup = writeGroupLookup(dir, groups, placement.placed, cellKeyInHeader ? null : plan.size.bits);
+      } finally {
+        await lanes.destroy();
+      }
+    }
+    const layout = partLayout(o, plan.format);
+    const worst = worstDeviation(cellCounts, deal, d.strataSizes);
+    checkTolerance(o, worst, d, layout.map((p) => p.path), deal, records);
+    const gatherPlan: GatherPlan = {
+      version: 1,
+      bits: plan.size.bits,
+      buckets: plan.size.buckets,
+      scatterTasks: sc.taskStrata.length,
+      format: plan.format,
+      delimiter: sc.schema.delimiter,
+      lineEnding: sc.schema.lineEnding,
+      mode: o.assign,
+      order: o.order,
+      cellKeyInHeader,
+      deal,
+      foldColumn: o.foldColumn,
+      strataCount: d.strataKeys.length,
+      localToGlobal: d.taskToDealing,
+      quota: Array.from(table.quota),
+      cumQuota: Array.from(table.cumQuota),
+      offset: Array.from(table.offset),
+      cellSecret: Array.from(secrets.cellSecret),
+      rankSecret: Array.from(secrets.rankSecret),
+      ...groupLookup,
+      statsColumns: o.stats ? sc.schema.columns : [],
+      statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, parts, plan.size.threads, o.memory),
+      excludeValues: o.excludeValues,
+    };
+    writeFileSync(join(dir, 'plan.json'), JSON.stringify(gatherPlan));
+    // Each gather task's share: the ranks its first bucket starts at, its buckets' counts and pieces.
+    const S = d.strataKeys.length;
+    const running = new Float64Array(S);
+    plan.gather.forEach((g, m) => {
+      const counts = new Float64Array((g.end - g.first) * S);
+      const rankStart = Float64Array.from(running);
+      for (let b = g.first; b < g.end; b++) {
+        for (let l = 0; l < sc.strata.length; l++) {
+          const n = sc.bucketCounts[l]![b]!;
+          counts[(b - g.first) * S + d.localToGlobal[l]!]! += n;
+          running[d.localToGlobal[l]!]! += n;
+        }
+      }
+      const share: GatherShare = { first: g.first, end: g.end, pieces: sc.bucketPieces.slice(g.first, g.end), rankStart, counts };
+      writeFileSync(join(dir, gatherShareFile(m)), encodeJson(share));
+    });
+    const rejectedText = rejects.file();
+    if (rejectedText !== null) writeFileSync(join(dir, 'rejected.csv'), rejectedText);
+    return {
+      schema: dones[0]!.schema,
+      inputs: sc.inputs.map((x) => ({ ...x, rejected: rejects.perFile.get(x.path) ?? 0 })),
+      records,
+      rejected: rejects.count,
+      rejectsFile: rejectedText !== null ? 'rejected.csv' : null,
+      strataKeys: d.strataKeys,
+      strataSizes: d.strataSizes,
+      deal,
+      worst,
+      fingerprint: sc.fingerprint.toJSON(),
+      reread,
+    };
+  });
+}

@@ -1,0 +1,189 @@
+/**
+ * `rowdeck finish`: checks every task of a plan is done and consistent with it, joins the gather
+ * tasks' slices into the parts (in bucket order, so the bytes are those of `shuffle`), writes the
+ * manifest with the tasks' hosts and times in its `run` section, puts the output into place
+ * atomically (src/engine/run-work.ts, as `shuffle` does), and removes the work folder.
+ */
+import { createReadStream, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { basename, join } from 'node:path';
+import { cpus, hostname, totalmem } from 'node:os';
+import { Fingerprint } from '../core/hash.js';
+import { TableStats } from '../core/stats.js';
+import { RowdeckError, codedSystemError, systemError } from '../errors.js';
+import type { InputSchema } from '../io/batch.js';
+import type { PartWriter } from '../io/part-writer.js';
+import { VERSION } from '../version.js';
+import { REPORT_FILE, writeManifestReport } from '../report/file.js';
+import { buildManifest } from '../engine/manifest.js';
+import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, writeSpreadParts } from '../engine/parts.js';
+import { partCount } from '../engine/plan.js';
+import { startRunWork } from '../engine/run-work.js';
+import { SpreadParts } from '../engine/spread-parts.js';
+import type { ShuffleRun } from '../engine/shuffle.js';
+import { taskCommand } from './commands.js';
+import type { DealDone } from './deal.js';
+import { dealPlan, partSliceFile, type GatherDone } from './gather-task.js';
+import { dealLanes } from './lanes.js';
+import { enterPlan, type ClusterPlan } from './plan.js';
+import { readDone, readFailed, taskDir, type DoneRecord } from './records.js';
+import type { ScatterDone } from './scatter-task.js';
+
+export interface FinishOptions {
+  /** Keep the work folder (default: removed once the output is in place). */
+  keepWork?: boolean;
+  onNotice?: (text: string) => void;
+}
+
+/** Every task's done record, or an error naming the missing and failed ones with the commands that run them. */
+function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; gather: GatherDone[] } {
+  const problems: string[] = [];
+  const take = <T extends DoneRecord>(stage: 'scatter' | 'deal' | 'gather', count: number): T[] =>
+    Array.from({ length: count }, (_, i) => {
+      const d = readDone<T>(plan.work, stage, i);
+      if (d && d.planId === plan.planId) return d;
+      const failed = readFailed(plan.work, stage, i);
+      const why = d ? 'written for another plan' : failed ? `failed on ${failed.host}: ${failed.error.message}` : 'missing';
+      problems.push(`${stage} task ${i} ${why}; run: ${taskCommand(plan, stage, i)}`);
+      return null as unknown as T;
+    });
+  const scatter = take<ScatterDone>('scatter', plan.scatter.length);
+  const deal = take<DealDone>('deal', 1)[0]!;
+  const gather = take<GatherDone>('gather', plan.gather.length);
+  if (problems.length > 0) {
+    throw new RowdeckError(
+      'RDK_TASKS_INCOMPLETE',
+      `${problems.length} task(s) of plan ${plan.planId} are not done, so nothing was written:\n  ${problems.slice(0, 20).join('\n  ')}${problems.length > 20 ? `\n  … and ${problems.length - 20} more (rowdeck status ${plan.work})` : ''}`,
+      { tasks: problems.length },
+    );
+  }
+  return { scatter, deal, gather };
+}
+
+/** Appends a file to a part, a MiB at a time. */
+async function appendFile(writer: PartWriter, path: string): Promise<void> {
+  const stream = createReadStream(path, { highWaterMark: 1 << 20 });
+  try {
+    for await (const chunk of stream as AsyncIterable<Buffer>) await writer.write(chunk);
+  } catch (err) {
+    throw systemError(err, path, 'reading a gather task\'s part');
+  }
+}
+
+export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): Promise<ShuffleRun> {
+  const t0 = Date.now();
+  const o = enterPlan(plan);
+  const done = allDone(plan);
+  const { gatherPlan, dir: dealDir } = dealPlan(plan);
+  const deal = done.deal;
+  const schema = { ...deal.schema, headerBytes: deal.schema.headerBytes === null ? null : Buffer.from(deal.schema.headerBytes, 'base64') } as InputSchema;
+  const parts = partCount(gatherPlan.deal);
+  const K = gatherPlan.deal.folds;
+  const S = gatherPlan.strataCount;
+  const work = startRunWork({ out: plan.out, force: o.force, inputs: o.inputs, tempDir: join(plan.work, 'finish'), notice: f.onNotice ?? null });
+  let writers: PartWriter[] = [];
+  try {
+    const stage = work.stage!;
+    const layout = partLayout(o, plan.format);
+    const header = headerBytes(schema, o.foldColumn, plan.format);
+    writers = await openParts(stage, layout, o.gzip, o.memory, header);
+    const counts = new Float64Array(parts * K * S);
+    const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
+    for (const g of done.gather) {
+      for (let i = 0; i < counts.length; i++) counts[i]! += g.counts[i]!;
+      g.fingerprints.forEach((fp, p) => fingerprints[p]!.merge(fp));
+    }
+    if (gatherPlan.order === 'spread') {
+      const spread = new SpreadParts('', parts, S, done.gather.map((g, m) => ({ dir: taskDir(plan.work, 'gather', m), chunks: g.spread! })));
+      await writeSpreadParts(spread, writers, counts, K, S, () => {});
+    } else {
+      for (let p = 0; p < parts; p++) {
+        for (let m = 0; m < done.gather.length; m++) if (done.gather[m]!.partBytes[p]! > 0) await appendFile(writers[p]!, join(taskDir(plan.work, 'gather', m), partSliceFile(p)));
+      }
+    }
+    const closed = await closeParts(writers);
+    writers = [];
+    // Statistics: the lanes' tables of every gather task merged (exact, in any order), or each part read back.
+    let stats: { parts: ReturnType<TableStats['summary']>[]; input: ReturnType<TableStats['summary']> } | null = null;
+    if (o.stats) {
+      if (gatherPlan.statsInLanes) {
+        const tables = Array.from({ length: parts }, () => new TableStats(gatherPlan.statsColumns));
+        for (const g of done.gather) (g.stats ?? []).forEach((t, i) => tables[i % parts]!.mergeSerialized(t));
+        const whole = new TableStats(gatherPlan.statsColumns);
+        const summaries = tables.map((t) => {
+          whole.merge(t);
+          return t.summary({ excludeValues: o.excludeValues });
+        });
+        stats = { parts: summaries, input: whole.summary({ excludeValues: o.excludeValues }) };
+      } else {
+        const lanes = await dealLanes(plan.size.threads, dealDir);
+        try {
+          const { InlineLanes } = await import('../workers/lanes.js');
+          const { gatherLane } = await import('../engine/gather-lane.js');
+          const inline = lanes ? null : gatherLane(join(dealDir, 'plan.json'));
+          const run = lanes ?? new InlineLanes((t) => inline!.handle(t as never), () => inline!.finish());
+          stats = await partStatistics({
+            columns: gatherPlan.statsColumns,
+            partCount: parts,
+            statsInLanes: false,
+            excludeValues: o.excludeValues,
+            lanes: run as never,
+            inline,
+            files: layout.map((part) => join(stage, part.path)),
+            headerLength: header?.length ?? 0,
+            threads: plan.size.threads,
+            progress: () => {},
+          });
+        } finally {
+          await lanes?.destroy();
+        }
+      }
+    }
+    const outFp = new Fingerprint();
+    for (const fp of fingerprints) outFp.merge(fp);
+    const inFp = new Fingerprint();
+    inFp.merge(deal.fingerprint);
+    if (outFp.toHex() !== inFp.toHex() || outFp.count !== inFp.count) {
+      throw new RowdeckError('RDK_INTERNAL', `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but the scatter tasks read ${inFp.count} (fingerprint ${inFp.toHex()}). Nothing was written; run the plan again from the start.`);
+    }
+    const tasks = [
+      ...done.scatter.map((d) => ({ stage: 'scatter', index: d.index, host: d.host, startedAt: d.startedAt, endedAt: d.endedAt })),
+      { stage: 'deal', index: 0, host: deal.host, startedAt: deal.startedAt, endedAt: deal.endedAt },
+      ...done.gather.map((d) => ({ stage: 'gather', index: d.index, host: d.host, startedAt: d.startedAt, endedAt: d.endedAt })),
+    ];
+    const manifest = buildManifest({
+      version: VERSION,
+      options: o,
+      format: plan.format,
+      schema,
+      inputs: deal.inputs,
+      records: deal.records,
+      rejected: deal.rejected,
+      rejectsFile: deal.rejectsFile,
+      strataKeys: deal.strataKeys,
+      strataSizes: deal.strataSizes,
+      binEdges: plan.binEdges,
+      deal: deal.deal,
+      buckets: plan.size.buckets,
+      threads: plan.size.threads,
+      parts: partRecords(layout, counts, K, S, closed, fingerprints, stats?.parts ?? null),
+      deviation: { max: deal.worst.deviation, kind: deal.worst.kind, part: deal.worst.unit, stratum: deal.worst.stratum },
+      fingerprints: { input: inFp.toHex(), output: outFp.toHex() },
+      timings: { finishMs: Date.now() - t0 },
+      ...(stats ? { inputStats: stats.input } : {}),
+      host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
+      plan: { id: plan.planId, tasks, reread: deal.reread },
+    });
+    if (deal.rejectsFile !== null) writeFileSync(join(stage, 'rejected.csv'), readFileSync(join(dealDir, deal.rejectsFile)), { flag: 'wx' });
+    writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', { flag: 'wx' });
+    if (o.report) writeManifestReport(stage, manifest, basename(plan.out));
+    work.commit();
+    if (!f.keepWork) rmSync(plan.work, { recursive: true, force: true });
+    // The sizes a group run achieved are in the manifest (and the summary); the deal task checked the balance.
+    return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null, warnings: [] };
+  } catch (err) {
+    throw codedSystemError(err);
+  } finally {
+    for (const w of writers) w.abandon();
+    await work.finish();
+  }
+}

@@ -1,0 +1,14 @@
+/** Where a compiled worker entry lives: beside this module in dist/, or in dist/ when running from src/. */
+import { existsSync } from 'node:fs';
+import { dirname, join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { RowdeckError } from '../errors.js';
+
+export function resolveWorkerFile(name = 'shuffle-worker.js'): string {
+  const here = dirname(fileURLToPath(import.meta.url));
+  const beside = join(here, name);
+  if (existsSync(beside)) return beside;
+  const built = join(here, '..', '..', 'dist', 'workers', name);
+  if (existsSync(built)) return built;
+  throw new RowdeckError('RDK_INTERNAL', `worker module not found at ${beside}; run "npm run build" first.`);
+}
