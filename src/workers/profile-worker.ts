@@ -2,11 +2,11 @@
  * Worker entry for `profile`: one ProfileTask per thread, alive for the whole read, since it
  * holds its statistics and stratum counts until `finish`. A task is a packed batch read by the
  * main thread, an input's column map, or block work (src/io/blocks.ts): this thread parses a
- * block of the input itself. See src/engine/profile.ts for the flow.
+ * block of the input itself. See src/engine/profile/read.ts for the flow.
  */
 import { workerData } from 'node:worker_threads';
-import { ProfileTask, type ProfileMessage, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile.js';
-import { unpackBatch } from '../engine/scatter.js';
+import { ProfileTask, type ProfileMessage, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile/task.js';
+import { unpackBatch } from '../io/packed-batches.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
 import { readSmallInput, type SmallInputReply } from '../io/small-inputs.js';
 import { serveLane } from './lanes.js';
