@@ -5,6 +5,7 @@
  */
 import { availableParallelism } from 'node:os';
 import { RowdeckError } from './errors.js';
+import { DEFAULT_GZIP_LEVEL } from './io/gzip-members.js';
 import { smallInputs } from './io/input.js';
 import { RESERVED_OUTPUT_NAMES } from './io/output-folder.js';
 import type { BadRecordPolicy, InputFormat } from './io/batch.js';
@@ -75,6 +76,8 @@ export interface ShuffleOptions {
   header?: boolean;
   /** Write gzip-compressed parts. */
   gzip?: boolean;
+  /** Their compression level, 1 (fastest) to 9 (smallest). Default 6, gzip's own. Only with `gzip`. */
+  gzipLevel?: number;
   onBadRecord?: BadRecordPolicy;
   /** Replace an existing non-empty output folder. */
   force?: boolean;
@@ -132,6 +135,7 @@ export interface ResolvedShuffleOptions {
   delimiter: string | null;
   header: boolean;
   gzip: boolean;
+  gzipLevel: number;
   onBadRecord: BadRecordPolicy;
   force: boolean;
   excludeValues: boolean;
@@ -282,6 +286,8 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   if (o.delimiter !== undefined && (typeof o.delimiter !== 'string' || Buffer.byteLength(o.delimiter) !== 1 || o.delimiter === '"' || o.delimiter === '\n' || o.delimiter === '\r')) {
     throw invalid('delimiter', 'one single-byte character other than a quote or a line end', o.delimiter);
   }
+  const gzipLevel = integerOption('gzipLevel', o.gzipLevel, 1, 9, DEFAULT_GZIP_LEVEL);
+  if (o.gzipLevel !== undefined && o.gzip !== true) throw invalid('gzipLevel', 'it together with gzip (--gzip): the level is that of gzip-compressed parts', o.gzipLevel);
   const onBadRecord = o.onBadRecord ?? 'fail';
   if (!['fail', 'skip', 'quarantine'].includes(onBadRecord)) throw invalid('onBadRecord', '"fail", "skip" or "quarantine"', onBadRecord);
   if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalid('onProgress', 'a function', typeof o.onProgress);
@@ -310,6 +316,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     delimiter: o.delimiter ?? null,
     header: o.header ?? true,
     gzip: o.gzip ?? false,
+    gzipLevel,
     onBadRecord,
     force: o.force ?? false,
     excludeValues: o.excludeValues ?? false,

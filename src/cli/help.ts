@@ -83,7 +83,10 @@ Output and resources:
                           else in DIR stops the run (nothing is touched); refused where DIR is
                           /, a mount point, the working or home folder or one above them, or
                           holds an input
-  --gzip                  compress parts (.gz)
+  --gzip                  compress parts (.gz) on several cores at once: each part is a series
+                          of gzip members of 1 MiB of its data (smaller with over 16 parts),
+                          which gunzip, zcat and any gzip reader read as one stream
+  --gzip-level N          with --gzip: 1 (fastest) to 9 (smallest); default 6, gzip's own
   --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
   --threads N             worker threads (default: number of cores; inputs under 32 MiB are
                           shuffled on the main thread, faster than starting threads); 0 keeps

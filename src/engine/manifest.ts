@@ -147,6 +147,8 @@ export function buildManifest(m: ManifestInput): Manifest {
       delimiter: m.format === 'jsonl' ? null : String.fromCharCode(m.schema.delimiter),
       header: o.header,
       gzip: o.gzip,
+      // Only with gzip, so a plain run's manifest is what it was before the level existed.
+      ...(o.gzip ? { gzipLevel: o.gzipLevel } : {}),
       onBadRecord: o.onBadRecord,
       excludeValues: o.excludeValues,
     },

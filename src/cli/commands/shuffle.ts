@@ -27,6 +27,7 @@ export const SHUFFLE_CLI_OPTIONS: OptionSpec = {
   threads: { type: 'string' },
   'temp-dir': { type: 'string' },
   gzip: { type: 'boolean' },
+  'gzip-level': { type: 'string' },
   force: { type: 'boolean' },
   stats: { type: 'boolean' },
   report: { type: 'boolean' },
@@ -58,6 +59,7 @@ export function shuffleOptionsOf(v: Record<string, string | boolean | string[] |
   set('delimiter', strArg(v.delimiter));
   if (v['no-header']) opts.header = false;
   if (v.gzip) opts.gzip = true;
+  set('gzipLevel', intArg('gzip-level', v['gzip-level']));
   if (v.force) opts.force = true;
   if (v['exclude-values']) opts.excludeValues = true;
   if (v.stats) opts.stats = true;
