@@ -7,7 +7,7 @@
  * `gzip -dc` as a second reader (when missing, the checks that need it skip with one line).
  */
 import { spawnSync } from 'node:child_process';
-import { readdirSync, readFileSync, statSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readdirSync, readFileSync, statSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gunzipSync, gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -17,7 +17,7 @@ import { runGatherTask } from '../src/cluster/gather-task.js';
 import { loadPlan, planCluster } from '../src/cluster/plan.js';
 import { runScatterTask } from '../src/cluster/scatter-task.js';
 import { replayable } from '../src/engine/replay.js';
-import { GzipMembers, MemberCompressor, memberBytesFor } from '../src/io/gzip-members.js';
+import { GzipMembers, keepBytesFor, MemberCompressor, memberBytesFor } from '../src/io/gzip-members.js';
 import { PartWriter } from '../src/io/part-writer.js';
 import { shuffle, verify, type Manifest, type ShuffleOptions } from '../src/index.js';
 import { manifestBody, rowdeck } from './helpers/cluster.js';
@@ -25,6 +25,7 @@ import { createRandom, makeSensorCsv, makeTempDir, removeDir } from './helpers/e
 
 const KiB = 1024;
 const MiB = 1024 * 1024;
+const GiB = 1024 * MiB;
 
 /** GNU gzip, if the system has it. */
 const systemGzip = spawnSync('gzip', ['--version'], { encoding: 'utf8' }).status === 0;
@@ -161,6 +162,36 @@ describe('a gzip part', () => {
     });
   });
 
+  it('with a small share of memory a part parks its unfinished member in a file: the same bytes, and the file goes with the last part', async () => {
+    const parkDir = join(dir, 'park');
+    mkdirSync(parkDir);
+    const c = new MemberCompressor(6, 64 * KiB, 2, { dir: parkDir, keepBytes: 8 * KiB });
+    expect(c.keepBytes).toBe(8 * KiB);
+    const writers = Array.from({ length: 3 }, (_, k) => new PartWriter(join(dir, `parked-${k}.gz`), c));
+    const own = writers.map(() => [] as Uint8Array[]);
+    slices.forEach((s, i) => own[i % writers.length]!.push(s));
+    for (let i = 0; i < 80; i++) {
+      for (let k = 0; k < writers.length; k++) {
+        const writing = writers[k]!.write(own[k]![i]!);
+        if (writing) await writing;
+      }
+    }
+    expect(c.parkedBytes).toBeGreaterThan(64 * KiB);
+    expect(readdirSync(parkDir)).toHaveLength(1);
+    await writers[0]!.close();
+    await writers[1]!.close();
+    // Still in use by the third part.
+    expect(readdirSync(parkDir)).toHaveLength(1);
+    await writers[2]!.close();
+    expect(readdirSync(parkDir)).toHaveLength(0);
+    writers.forEach((w, k) => {
+      const mine = Buffer.concat(own[k]!.slice(0, 80).map((s) => Buffer.from(s)));
+      expect(readFileSync(w.path!).equals(membersOf(mine, 64 * KiB, 6)), `part ${k}`).toBe(true);
+    });
+    // Keeping a whole member (or more) parks nothing.
+    expect(new MemberCompressor(6, 64 * KiB, 2, { dir: parkDir, keepBytes: MiB }).keepBytes).toBe(64 * KiB);
+  });
+
   it('a failure while writing a member is reported by the next call, and by end()', async () => {
     const c = new MemberCompressor(6, 64 * KiB, 2);
     let written = 0;
@@ -241,6 +272,24 @@ describe('shuffle --gzip', () => {
       const file = readFileSync(join(dir, 'many-a', p.path));
       expect(file.equals(readFileSync(join(dir, 'many-b', b.output.parts[k]!.path))), p.path).toBe(true);
       expect(file.equals(membersOf(readFileSync(join(dir, 'many-plain', c.output.parts[k]!.path)), 256 * KiB, 6)), p.path).toBe(true);
+    }
+  });
+
+  it('many parts in a small budget park their unfinished members: the bytes of a budget that holds them', async () => {
+    const { folds: _folds, ...rest } = base();
+    const o = { ...rest, partitions: 200 };
+    const M = memberBytesFor(200);
+    expect(M).toBe(64 * KiB);
+    // At 4 MiB each part keeps 8 KiB of its member in memory and parks the rest; at 1 GiB, all of it.
+    expect(keepBytesFor(4 * MiB, 200, M)).toBe(8 * KiB);
+    expect(keepBytesFor(GiB, 200, M)).toBe(M);
+    const small = await shuffle({ ...o, out: join(dir, 'parked-small'), memory: '4MiB', threads: 2 });
+    const large = await shuffle({ ...o, out: join(dir, 'parked-large'), memory: '1GiB', threads: 1 });
+    const plainMany = await shuffle({ ...o, out: join(dir, 'parked-plain'), gzip: false, threads: 2 });
+    for (const [k, p] of small.output.parts.entries()) {
+      const file = readFileSync(join(dir, 'parked-small', p.path));
+      expect(file.equals(readFileSync(join(dir, 'parked-large', large.output.parts[k]!.path))), p.path).toBe(true);
+      expect(file.equals(membersOf(readFileSync(join(dir, 'parked-plain', plainMany.output.parts[k]!.path)), M, 6)), p.path).toBe(true);
     }
   });
 

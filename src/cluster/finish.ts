@@ -85,7 +85,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);
     const header = headerBytes(schema, o.foldColumn, plan.format);
-    writers = await openParts(stage, layout, o, header);
+    writers = await openParts(stage, layout, o, header, work.spillDir);
     const counts = new Float64Array(parts * K * S);
     const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
     for (const g of done.gather) {

@@ -11,7 +11,7 @@ import type { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { RowdeckError, systemError } from '../errors.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
-import { MemberCompressor, memberBytesFor, membersInFlightFor } from '../io/gzip-members.js';
+import { keepBytesFor, MemberCompressor, memberBytesFor, membersInFlightFor } from '../io/gzip-members.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import type { ResolvedShuffleOptions } from '../options.js';
@@ -63,9 +63,10 @@ export function headerBytes(schema: InputSchema, foldColumn: string | null, form
  * Short slices (many parts) are gathered per part before they are written: up to 64 KiB a part,
  * an eighth of the budget over all parts, at least 8 KiB; open files stay bounded whatever the
  * part count (FileSlots). gzip parts share one compressor: members of a size set by the part
- * count, a budget's share of them in flight (src/io/gzip-members.ts).
+ * count, a budget's share of them in flight, and each part's unfinished member kept in memory up
+ * to the same eighth of the budget, the rest parked in `spillDir` (src/io/gzip-members.ts).
  */
-export async function openParts(stage: string | null, layout: PartInfo[], o: Pick<ResolvedShuffleOptions, 'gzip' | 'gzipLevel' | 'memory'>, header: Buffer | null): Promise<PartWriter[]> {
+export async function openParts(stage: string | null, layout: PartInfo[], o: Pick<ResolvedShuffleOptions, 'gzip' | 'gzipLevel' | 'memory'>, header: Buffer | null, spillDir: string): Promise<PartWriter[]> {
   if (stage !== null) {
     for (const part of layout) {
       const folder = dirname(join(stage, part.path));
@@ -79,7 +80,8 @@ export async function openParts(stage: string | null, layout: PartInfo[], o: Pic
   const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(o.memory / 8 / layout.length)));
   const slots = new FileSlots(choosePartFileSlots());
   const memberBytes = memberBytesFor(layout.length);
-  const gzip = o.gzip ? new MemberCompressor(o.gzipLevel, memberBytes, membersInFlightFor(o.memory, memberBytes)) : null;
+  const park = { dir: spillDir, keepBytes: keepBytesFor(o.memory, layout.length, memberBytes) };
+  const gzip = o.gzip ? new MemberCompressor(o.gzipLevel, memberBytes, membersInFlightFor(o.memory, memberBytes), park) : null;
   const writers: PartWriter[] = [];
   try {
     for (const part of layout) writers.push(new PartWriter(stage === null ? null : join(stage, part.path), gzip, gatherBytes, slots));

@@ -168,7 +168,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
 
     // ---- gather: buckets dealt in order into the parts ----
     const header = headerBytes(sc.schema, o.foldColumn, format);
-    writers = await openParts(stage, layout, o, header);
+    writers = await openParts(stage, layout, o, header, spillDir);
     const spread = o.order === 'spread' ? new SpreadParts(spillDir, parts, plan.strataCount) : null;
     const { perRange } = spillRanges(size.buckets);
     let removing: Promise<void> = Promise.resolve();

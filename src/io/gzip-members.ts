@@ -7,11 +7,19 @@
  * order, and a part's file is the same whatever the threads, the memory budget, the buckets or
  * the process that joins the slices (`rowdeck finish`).
  *
- *   part bytes ──▶ member buffer (M bytes) ──full──▶ zlib (thread pool) ─┐
- *                                                                        ▼ in member order
- *                                                         out(compressed member): the part file
+ *   part bytes ──▶ its unfinished member ──full──▶ zlib (thread pool) ─┐
+ *                  (in memory; with many parts                       ▼ in member order
+ *                   for the budget, partly in a file)     out(compressed member): the part file
+ *
+ * Every part holds its unfinished member. Where those would take more than a share of the budget
+ * (many parts, a small budget), each part keeps at most its share in memory and appends the rest
+ * to a file in the spill folder (`ParkFile`), read back when the member is complete: where the
+ * bytes wait never changes the member, so never the output.
  */
+import { closeSync, openSync, readSync, rmSync, writeSync } from 'node:fs';
+import { join } from 'node:path';
 import { gzip } from 'node:zlib';
+import { systemError } from '../errors.js';
 
 /** gzip's own default, as `gzip` without a level uses. */
 export const DEFAULT_GZIP_LEVEL = 6;
@@ -22,6 +30,8 @@ export const MEMBER_BYTES_MAX = 1 << 20;
 export const MEMBER_BYTES_MIN = 64 << 10;
 /** Every part keeps its unfinished member: with many parts members get smaller, so these stay within this in all. */
 const UNFINISHED_BYTES = 16 << 20;
+/** The least of an unfinished member a part keeps in memory before it parks it (the part writers' gathering floor). */
+const KEEP_BYTES_MIN = 8 << 10;
 
 /**
  * Uncompressed bytes a member holds, for a run of `parts` parts: the largest power of two from
@@ -43,28 +53,116 @@ function threadPoolSize(): number {
 /**
  * Members being compressed at once, for a budget: two per thread of the pool keeps it busy while
  * finished members are written; fewer where each member's buffers (its bytes, the compressed copy
- * and zlib's ~270 KB) would take more than an eighth of the budget, but at least two.
+ * and zlib's ~270 KB) would take more than a sixteenth of the budget, but at least two.
  */
 export function membersInFlightFor(memory: number, memberBytes: number): number {
-  return Math.max(2, Math.min(2 * threadPoolSize(), Math.floor(memory / 8 / (2 * memberBytes))));
+  return Math.max(2, Math.min(2 * threadPoolSize(), Math.floor(memory / 16 / (2 * memberBytes))));
+}
+
+/**
+ * How much of its unfinished member each of `parts` parts keeps in memory: an eighth of the budget
+ * over all parts (as the plain parts' gathering), at least 8 KiB; the whole member where that is
+ * more than a member.
+ */
+export function keepBytesFor(memory: number, parts: number, memberBytes: number): number {
+  return Math.min(memberBytes, Math.max(KEEP_BYTES_MIN, Math.floor(memory / 8 / Math.max(1, parts))));
+}
+
+/** Where parked bytes went: a piece of the park file. */
+interface Parked {
+  at: number;
+  length: number;
+}
+
+/**
+ * The file that holds unfinished members' bytes past what their parts keep in memory: appended
+ * to, read back when a member is complete, removed when the last part is done with it. Made on
+ * first use, in the run's spill folder.
+ */
+export class ParkFile {
+  readonly path: string;
+  #fd = -1;
+  #size = 0;
+
+  constructor(dir: string) {
+    this.path = join(dir, 'gzip-unfinished.bin');
+  }
+
+  /** Bytes appended so far (for tests). */
+  get size(): number {
+    return this.#size;
+  }
+
+  append(data: Uint8Array): Parked {
+    try {
+      if (this.#fd < 0) this.#fd = openSync(this.path, 'wx+');
+      for (let done = 0; done < data.byteLength; ) done += writeSync(this.#fd, data, done, data.byteLength - done, this.#size + done);
+    } catch (err) {
+      throw systemError(err, this.path, 'writing unfinished gzip members to the spill folder');
+    }
+    const piece = { at: this.#size, length: data.byteLength };
+    this.#size += data.byteLength;
+    return piece;
+  }
+
+  /** Reads `pieces` one after another into `into` from offset 0. */
+  readInto(pieces: Parked[], into: Buffer): void {
+    let to = 0;
+    try {
+      for (const p of pieces) {
+        for (let got = 0; got < p.length; ) {
+          const n = readSync(this.#fd, into, to + got, p.length - got, p.at + got);
+          if (n === 0) throw new Error(`${this.path} ended early: it was changed during the run`);
+          got += n;
+        }
+        to += p.length;
+      }
+    } catch (err) {
+      throw systemError(err, this.path, 'reading unfinished gzip members back from the spill folder');
+    }
+  }
+
+  close(): void {
+    if (this.#fd < 0) return;
+    try {
+      closeSync(this.#fd);
+    } catch {
+      // Only read back from; the run's spill folder goes anyway.
+    }
+    this.#fd = -1;
+    rmSync(this.path, { force: true });
+  }
 }
 
 /**
  * What every part's members share in a run: the level, the member size, the bound on members in
- * flight over all parts (`acquire`/`release`), and spare member buffers.
+ * flight over all parts (`acquire`/`release`), spare member buffers, and where bytes past a part's
+ * share of memory wait (`keepBytes`, the park file).
  */
 export class MemberCompressor {
   readonly level: number;
   readonly memberBytes: number;
   readonly limit: number;
+  /** Bytes of its unfinished member a part keeps in memory (the whole member: nothing is parked). */
+  readonly keepBytes: number;
+  readonly #parkDir: string | null;
+  #park: ParkFile | null = null;
   #inFlight = 0;
   readonly #waiting: (() => void)[] = [];
   readonly #spare: Buffer[] = [];
+  /** Parts writing through this compressor (the park file closes after the last). */
+  #users = 0;
 
-  constructor(level: number, memberBytes: number, limit: number) {
+  /**
+   * `park`: where a part's unfinished member past `keepBytes` waits (a folder), and how much it
+   * keeps in memory (see `keepBytesFor`); null: every part keeps its whole member in memory.
+   */
+  constructor(level: number, memberBytes: number, limit: number, park: { dir: string; keepBytes: number } | null = null) {
     this.level = level;
     this.memberBytes = memberBytes;
     this.limit = Math.max(1, limit);
+    this.keepBytes = park ? Math.min(memberBytes, Math.max(1, park.keepBytes)) : memberBytes;
+    this.#parkDir = park && this.keepBytes < memberBytes ? park.dir : null;
   }
 
   /** Members given to zlib and not yet written (for tests). */
@@ -72,13 +170,25 @@ export class MemberCompressor {
     return this.#inFlight;
   }
 
-  /** A buffer for a member's bytes. */
+  /** The park file, made on first use. */
+  get parkFile(): ParkFile {
+    if (this.#parkDir === null) throw new Error('no folder to park unfinished members in');
+    return (this.#park ??= new ParkFile(this.#parkDir));
+  }
+
+  /** Bytes parked so far (for tests). */
+  get parkedBytes(): number {
+    return this.#park?.size ?? 0;
+  }
+
+  /** A buffer for a whole member's bytes. */
   takeBuffer(): Buffer {
     return this.#spare.pop() ?? Buffer.allocUnsafe(this.memberBytes);
   }
 
+  /** A member's buffer back; kept only as many as can be in flight. */
   giveBack(b: Buffer): void {
-    this.#spare.push(b);
+    if (b.length === this.memberBytes && this.#spare.length <= this.limit) this.#spare.push(b);
   }
 
   /** A place for one more member in flight: nothing when there is one now, else a promise of it. */
@@ -103,6 +213,18 @@ export class MemberCompressor {
     // plus the header and trailer), so zlib does not come back to this thread for more room.
     gzip(data, { level: this.level, chunkSize: data.length + (data.length >> 10) + 1024 }, done);
   }
+
+  attach(): void {
+    this.#users++;
+  }
+
+  /** A part is done (or given up): after the last, the park file goes. */
+  detach(): void {
+    if (--this.#users === 0) {
+      this.#park?.close();
+      this.#park = null;
+    }
+  }
 }
 
 /**
@@ -113,64 +235,83 @@ export class MemberCompressor {
 export class GzipMembers {
   readonly #c: MemberCompressor;
   readonly #out: (member: Buffer) => void;
+  /** The unfinished member's bytes in memory (after its parked ones): `keepBytes` long. */
   #buffer: Buffer | null = null;
   #fill = 0;
+  /** The unfinished member's first bytes, parked. */
+  #parked: Parked[] = [];
+  #parkedBytes = 0;
   #sealed = 0;
   /** Members sealed and not yet written, in order; `member` set once compressed. */
   readonly #queue: { done: boolean; member: Buffer | null }[] = [];
   #failure: unknown = null;
-  #abandoned = false;
+  #finished = false;
   #idle: (() => void) | null = null;
 
   constructor(c: MemberCompressor, out: (member: Buffer) => void) {
     this.#c = c;
     this.#out = out;
-  }
-
-  get failure(): unknown {
-    return this.#failure;
+    c.attach();
   }
 
   /**
-   * Takes bytes. Returns nothing when they are taken (copied), else a promise that resolves once
-   * they are (a full member waited for a place in flight); `buf` must stay unchanged until then.
+   * Takes bytes. Returns nothing when they are taken (copied, or parked), else a promise that
+   * resolves once they are (a full member waited for a place in flight); `buf` must stay unchanged
+   * until then.
    */
   write(buf: Uint8Array): Promise<void> | undefined {
     if (this.#failure) throw this.#failure;
+    const M = this.#c.memberBytes;
     let at = 0;
     while (at < buf.byteLength) {
-      this.#buffer ??= this.#c.takeBuffer();
-      const n = Math.min(buf.byteLength - at, this.#buffer.length - this.#fill);
+      this.#buffer ??= this.#c.keepBytes === M ? this.#c.takeBuffer() : Buffer.allocUnsafe(this.#c.keepBytes);
+      const n = Math.min(buf.byteLength - at, this.#buffer.length - this.#fill, M - this.#parkedBytes - this.#fill);
       this.#buffer.set(buf.subarray(at, at + n), this.#fill);
       this.#fill += n;
       at += n;
-      if (this.#fill === this.#buffer.length) {
+      if (this.#parkedBytes + this.#fill === M) {
         const waiting = this.#c.acquire();
         if (waiting) {
           const rest = buf.subarray(at);
           return waiting.then(() => {
-            if (this.#abandoned) return this.#c.release();
+            if (this.#finished) return this.#c.release();
             this.#seal();
             return this.write(rest);
           });
         }
         this.#seal();
+      } else if (this.#fill === this.#buffer.length) {
+        this.#parked.push(this.#c.parkFile.append(this.#buffer.subarray(0, this.#fill)));
+        this.#parkedBytes += this.#fill;
+        this.#fill = 0;
       }
     }
     return undefined;
   }
 
-  /** Compresses the member in the buffer (a place in flight is held for it). */
+  /** Compresses the unfinished member (a place in flight is held for it). */
   #seal(): void {
-    const buffer = this.#buffer;
-    const data = buffer ? buffer.subarray(0, this.#fill) : Buffer.alloc(0);
-    this.#buffer = null;
+    let data: Buffer;
+    // The buffer handed to zlib, back to the compressor when done (null: none, or the part's own).
+    let lent: Buffer | null = null;
+    if (this.#parkedBytes > 0) {
+      lent = this.#c.takeBuffer();
+      this.#c.parkFile.readInto(this.#parked, lent);
+      if (this.#fill > 0) this.#buffer!.copy(lent, this.#parkedBytes, 0, this.#fill);
+      data = lent.subarray(0, this.#parkedBytes + this.#fill);
+    } else if (this.#buffer && this.#c.keepBytes === this.#c.memberBytes) {
+      lent = this.#buffer;
+      this.#buffer = null;
+      data = lent.subarray(0, this.#fill);
+    } else data = Buffer.from(this.#buffer?.subarray(0, this.#fill) ?? Buffer.alloc(0));
     this.#fill = 0;
+    this.#parked = [];
+    this.#parkedBytes = 0;
     this.#sealed++;
     const entry: { done: boolean; member: Buffer | null } = { done: false, member: null };
     this.#queue.push(entry);
     this.#c.compress(data, (err, member) => {
-      if (buffer) this.#c.giveBack(buffer);
+      if (lent) this.#c.giveBack(lent);
       if (err) this.#failure ??= err;
       else entry.member = member;
       entry.done = true;
@@ -183,7 +324,7 @@ export class GzipMembers {
     while (this.#queue.length > 0 && this.#queue[0]!.done) {
       const { member } = this.#queue.shift()!;
       this.#c.release();
-      if (member === null || this.#failure !== null || this.#abandoned) continue;
+      if (member === null || this.#failure !== null || this.#finished) continue;
       try {
         this.#out(member);
       } catch (err) {
@@ -199,20 +340,31 @@ export class GzipMembers {
 
   /** Compresses the last member and waits until every member is written. A part of no bytes is one empty member (a valid gzip file). */
   async end(): Promise<void> {
-    if (this.#failure) throw this.#failure;
-    if (this.#fill > 0 || this.#sealed === 0) {
-      await this.#c.acquire();
-      this.#seal();
+    try {
+      if (this.#failure) throw this.#failure;
+      if (this.#fill > 0 || this.#parkedBytes > 0 || this.#sealed === 0) {
+        await this.#c.acquire();
+        this.#seal();
+      }
+      if (this.#queue.length > 0) await new Promise<void>((resolve) => (this.#idle = resolve));
+      if (this.#failure) throw this.#failure;
+    } finally {
+      this.#finish();
     }
-    if (this.#queue.length > 0) await new Promise<void>((resolve) => (this.#idle = resolve));
-    if (this.#failure) throw this.#failure;
   }
 
   /** Gives up (on failure): members still compressing are dropped when they come back. */
   abandon(): void {
-    this.#abandoned = true;
-    if (this.#buffer) this.#c.giveBack(this.#buffer);
+    this.#finish();
+  }
+
+  #finish(): void {
+    if (this.#finished) return;
+    this.#finished = true;
     this.#buffer = null;
     this.#fill = 0;
+    this.#parked = [];
+    this.#parkedBytes = 0;
+    this.#c.detach();
   }
 }
