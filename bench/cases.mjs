@@ -174,6 +174,7 @@ export function cases({ inputBytes, root }) {
 
 const ratio = (a, b) => (a !== null && a !== undefined && b ? a / b : null);
 const wall = (f, name, stat = 'median') => f(name)?.wallS[stat] ?? null;
+const cpu = (f, name) => (f(name)?.userS != null && f(name)?.sysS != null ? f(name).userS + f(name).sysS : null);
 const perGb = (f, name, stat) => {
   const s = f(name);
   return s && s.wallS[stat] !== null ? s.wallS[stat] / (s.inputBytes / 1e9) : null;
@@ -201,6 +202,8 @@ export function figures({ budgetOf }) {
     // The goal is at gzip's default level; the others are shown.
     list.push(
       { group: 'gzip', text: `${mine} / ${peer} (wall)`, wall: true, ...(level === 6 ? { max: 0.5 } : {}), of: (f, st) => ratio(wall(f, mine, st), wall(f, peer, st)) },
+      // What the wall ratio tends to when other work leaves no core idle: the CPU each spends.
+      { group: 'gzip', text: `${mine} / ${peer} (CPU: user + sys)`, of: (f) => ratio(cpu(f, mine), cpu(f, peer)) },
       { group: 'gzip', text: `${mine}: parts (MB)`, of: (f) => (f(mine)?.outBytes ?? null) && f(mine).outBytes / 1e6 },
       { group: 'gzip', text: `${peer}: output (MB)`, of: (f) => (f(peer)?.outBytes ?? null) && f(peer).outBytes / 1e6 },
     );
