@@ -349,9 +349,9 @@ describe('the option', () => {
 
   it('takes 1 to 9, only with gzip', async () => {
     for (const bad of [0, 10, 2.5, '6x', -1]) {
-      await expect(shuffle(o({ gzip: true, gzipLevel: bad as number }))).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('"gzipLevel"') });
+      await expect(shuffle(o({ gzip: true, gzipLevel: bad as number }))).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('"gzipLevel"') });
     }
-    await expect(shuffle(o({ gzipLevel: 9 }))).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('together with gzip') });
+    await expect(shuffle(o({ gzipLevel: 9 }))).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('together with "gzip"') });
   });
 
   it('on the command line: --gzip-level N, a usage error without --gzip or out of range, and in --help', async () => {

@@ -70,7 +70,7 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   const running = Float64Array.from(i.rankStart);
   let ranked = i.first;
   const rankStartOf = (b: number): Float64Array => {
-    if (b !== ranked) throw new RowdeckError('ERR_INTERNAL', `bucket ${b} handed out before bucket ${ranked}`);
+    if (b !== ranked) throw new RowdeckError('RDK_INTERNAL', `bucket ${b} handed out before bucket ${ranked}`);
     const start = Float64Array.from(running);
     i.countsOf(b, running);
     ranked++;
