@@ -6,13 +6,13 @@
 import { availableParallelism } from 'node:os';
 import { RowdeckError } from './errors.js';
 import { smallInputs } from './io/input.js';
+import { defaultMemory } from './io/memory-available.js';
 import { RESERVED_OUTPUT_NAMES } from './io/output-folder.js';
 import type { BadRecordPolicy, InputFormat } from './io/batch.js';
 import type { SplitSpec } from './core/deal.js';
 
 export const DEFAULT_SEED = 'rowdeck-default-seed';
 export const DEFAULT_TOLERANCE = 0.5;
-export const DEFAULT_MEMORY = 512 * 1024 * 1024;
 
 export interface ProgressEvent {
   stage: 'scatter' | 'plan' | 'gather' | 'order' | 'stats' | 'finish';
@@ -25,6 +25,10 @@ export interface ProgressEvent {
   total: number;
   records: number;
   elapsedMs: number;
+  /** How the records are kept between the stages (`shuffle --help`, "Memory and disk"): in memory, in spill files, or in spill files split once more in stage 2. */
+  layout?: 'memory' | 'spill' | 'multi-pass';
+  /** Stage gather in the multi-pass layout: buckets split so far (each scattered once more before it is dealt). */
+  splits?: number;
 }
 
 export interface ShuffleOptions {
@@ -60,7 +64,10 @@ export interface ShuffleOptions {
    * groups in random order; needs `group` or `assign: 'hash'`).
    */
   order?: PartOrder;
-  /** Memory budget in bytes, or text like '64MiB', '1GiB'. Default 512 MiB. */
+  /**
+   * Memory budget in bytes, or text like '64MiB', '1GiB'. Default: a quarter of the memory
+   * available when the run starts, from 128 MiB to 16 GiB (src/io/memory-available.ts).
+   */
   memory?: number | string;
   /**
    * Worker threads. Default: the number of cores, or none for inputs under 32 MiB (starting
@@ -126,6 +133,8 @@ export interface ResolvedShuffleOptions {
   assign: 'exact' | 'hash' | 'group';
   order: PartOrder;
   memory: number;
+  /** No budget was given: `memory` is the machine's default. */
+  memoryIsDefault: boolean;
   threads: number;
   tempDir: string | null;
   format: InputFormat | null;
@@ -256,7 +265,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
   const threads = integerOption('threads', o.threads, 0, 256, o.threads !== undefined ? 0 : smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism()));
   const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
   if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
-  const memory = o.memory === undefined ? DEFAULT_MEMORY : parseSize('memory', o.memory);
+  const memory = o.memory === undefined ? defaultMemory() : parseSize('memory', o.memory);
   if (memory < 1024 * 1024) throw invalid('memory', 'at least 1MiB', o.memory);
   const stratify = parseStratify(o.stratify);
   const key = listOption(o.key);
@@ -304,6 +313,7 @@ export function resolveShuffleOptions(o: ShuffleOptions): ResolvedShuffleOptions
     assign: group !== null ? 'group' : assign0,
     order,
     memory,
+    memoryIsDefault: o.memory === undefined,
     threads,
     tempDir: o.tempDir ?? null,
     format: o.format ?? null,

@@ -5,7 +5,7 @@
  * files), and the done record holds the counts, fingerprints and, where the lanes keep them, every
  * part's column statistics over these buckets. Finish joins the tasks' files in bucket order.
  */
-import { readFileSync } from 'node:fs';
+import { readFileSync, rmSync } from 'node:fs';
 import { join } from 'node:path';
 import { RowdeckError } from '../errors.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
@@ -77,7 +77,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
       const gathered = await runGatherStage({
         plan: gatherPlan,
         planPath: join(dealDir, 'plan.json'),
-        bucketPieces: pieces,
+        piecesOf: (b) => pieces[b]!,
         countsOf: (b, running) => {
           const at = (b - share.first) * S;
           for (let s = 0; s < S; s++) running[s]! += share.counts[at + s]!;
@@ -88,7 +88,10 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
         lanes,
         inFlight: plan.size.inFlight,
         sink,
+        // Buckets too large for this machine's budget are split in a folder of the task's own, removed as they are dealt.
+        split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir: join(dir, 'splits'), bufferBytes: Math.floor(plan.size.memory / 4), remove: async (d) => rmSync(d, { recursive: true, force: true }) },
       });
+      rmSync(join(dir, 'splits'), { recursive: true, force: true });
       const partBytes: number[] = [];
       for (const w of writers) partBytes.push((await w.close()).bytes);
       const finals = await gathered.lanes.finish();

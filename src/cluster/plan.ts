@@ -191,7 +191,7 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
   const binCols = o.stratify.filter((c) => c.bins > 0);
   const binEdges =
     binCols.length > 0
-      ? await computeBinEdges({ inputs: o.inputs, format, delimiter: o.delimiter ?? undefined, header: o.header, onBadRecord: o.onBadRecord, columns: binCols, secret: deriveSecrets(o.seed).secret, memory: o.memory })
+      ? await computeBinEdges({ inputs: o.inputs, format, delimiter: o.delimiter ?? undefined, header: o.header, onBadRecord: o.onBadRecord, columns: binCols, secret: deriveSecrets(o.seed).secret })
       : [];
   const scatter = cutInputs(inputs, tasks);
   const gather = cutBuckets(size.buckets, gatherTasks ?? tasks);

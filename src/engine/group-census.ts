@@ -13,41 +13,76 @@ import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 import { censusBucket, type CensusTask } from './gather.js';
 import type { SpillPiece } from './spill.js';
+import { splitPieces, unitsOf, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
 
 /** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
 export interface CensusSource {
-  /** Per census bucket, its pieces: the census spill's, or the spill's where it is keyed by group. */
-  pieces: SpillPiece[][];
+  /** Census buckets, and each one's pieces: the census spill's, or the spill's where it is keyed by group. */
+  count: number;
+  piecesOf: (bucket: number) => SpillPiece[];
   /** Key bits that select a census bucket. */
   bits: number;
   /** Per scatter task: its stratum ids → dealing stratum ids. */
   taskToDealing: number[][];
+  /**
+   * A census bucket larger than `cap` is split (split.ts) into folders in `dir` and counted as
+   * its sub-buckets, in key order (a group's records share its key, so they stay together).
+   */
+  split?: Pick<SplitPolicy, 'cap' | 'target' | 'dir' | 'bufferBytes'> & { remove: (dir: string) => Promise<void> };
 }
 
 /**
- * Counts every group, a census bucket at a time on the lanes (or here, yielding between buckets so
- * signals and progress get through), into one table in key order.
+ * Counts every group, a census bucket (or sub-bucket) at a time on the lanes (or here, yielding
+ * between buckets so signals and progress get through), into one table in key order.
  */
-export async function countGroups(src: CensusSource, workFile: string, run: ((task: CensusTask) => Promise<GroupTableData>) | null, width: number, progress: (done: number, total: number) => void): Promise<GroupTable> {
+export async function countGroups(
+  src: CensusSource,
+  workFile: string,
+  run: ((task: CensusTask | SplitTask) => Promise<GroupTableData | SplitResult>) | null,
+  width: number,
+  progress: (done: number, total: number) => void,
+): Promise<GroupTable> {
   const census = new GroupTableBuilder(workFile);
+  const yieldNow = (): Promise<void> => new Promise<void>((resolve) => setImmediate(resolve));
+  const policy: SplitPolicy | null = src.split
+    ? {
+        ...src.split,
+        shares: run ? width : 1,
+        strata: src.taskToDealing,
+        strataCount: 0,
+        run: async (t) => (run ? ((await run(t)) as SplitResult) : (await yieldNow(), splitPieces(t))),
+      }
+    : null;
+  const jobs: Promise<void>[] = [];
   try {
     let counted = 0;
+    let seq = 0;
     const limit = pLimit(width);
-    await Promise.all(
-      src.pieces.map((pieces, b) =>
-        limit(async () => {
-          const task: CensusTask = { census: b, pieces, strata: src.taskToDealing, bits: src.bits };
-          if (run) census.add(b, await run(task));
+    for (let b = 0; b < src.count; b++) {
+      const units = await unitsOf(b, src.piecesOf(b), src.bits, policy);
+      const counting = units.map((u) => {
+        const k = seq++;
+        return limit(async () => {
+          const task: CensusTask = { census: k, pieces: u.pieces, strata: src.taskToDealing, bits: u.shared };
+          if (run) census.add(k, (await run(task)) as GroupTableData);
           else {
-            census.add(b, censusBucket(task));
-            await new Promise<void>((resolve) => setImmediate(resolve));
+            census.add(k, censusBucket(task));
+            await yieldNow();
           }
-          progress(++counted, src.pieces.length);
-        }),
-      ),
-    );
+        });
+      });
+      const dirs = units.flatMap((u) => u.cleanup);
+      const job = Promise.all(counting).then(async () => {
+        await Promise.all(dirs.map((d) => src.split!.remove(d)));
+        progress(++counted, src.count);
+      });
+      job.catch(() => {});
+      jobs.push(job);
+    }
+    await Promise.all(jobs);
     return census.build();
   } finally {
+    await Promise.allSettled(jobs);
     census.close();
   }
 }

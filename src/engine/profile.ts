@@ -33,7 +33,7 @@ import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhe
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
-import { DEFAULT_MEMORY, DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
+import { DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
 import { VERSION } from '../version.js';
 import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
 import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
@@ -531,7 +531,6 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       onBadRecord: o.onBadRecord,
       columns: binCols,
       secret,
-      memory: DEFAULT_MEMORY,
     });
   }
   const binsMs = Date.now() - t0;

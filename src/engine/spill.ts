@@ -11,13 +11,29 @@
  *
  * Each scatter task writes a few spill files, one per range of buckets (`SPILL_FILES` at most): a
  * bucket's buffer, when full, is appended to its range's file as a chunk, and the task keeps the
- * (offset, length) of every chunk per bucket. Stage 2 reads a bucket as its chunks from every
+ * (bucket, place, offset, length) of every chunk in one typed array (a chunk's place is -1 for its
+ * range's file, or the slab that holds it, see below). Stage 2 reads a bucket as its chunks from every
  * task's file for that range, and deals the buckets in order, so it removes a range's files as
  * soon as it has passed the range: the spill shrinks as the parts grow, and the disk holds about
  * the spill and a range's parts at once instead of the spill and all the parts. One file per
  * bucket was simpler, but creating a file cost about a millisecond on the file systems measured
  * here (more than the rest of stage 1 for thousands of buckets), and it tied the bucket count to
  * the open-file limit.
+ *
+ * In the memory layout (sizing.ts) a chunk stays in memory instead of going to the file, in one
+ * of two stores (ram-store.ts decides which):
+ * - a file in a memory file system (tmpfs), one per task and range, opened and unlinked by the
+ *   main thread before stage 1, so that it has no name and its memory goes back to the system
+ *   when it is closed or the process ends however it ends; any thread reads it by its
+ *   descriptor. Its pages belong to the kernel: writing a chunk is one copy, with no page of the
+ *   process's own to fault in (on the benchmark machine a fresh page of the process cost ~10 µs,
+ *   a store of slabs took ~9× as long to fill as this one: docs/benchmarks.md);
+ * - slabs of shared memory (SharedArrayBuffers, one range each) that stage 2's threads read
+ *   directly, where no memory file system is at hand.
+ * Every scatter task's chunks draw on one shared allowance (`SpillStore.allowance`, KiB, taken
+ * with Atomics); once it is spent (or the memory file system is full), chunks go to the spill
+ * files as in the other layouts, so an estimate that was too low costs speed, never more memory
+ * than the budget.
  */
 import { closeSync, openSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
@@ -67,13 +83,47 @@ export function spillRanges(buckets: number): { ranges: number; perRange: number
   return { ranges, perRange: Math.ceil(buckets / ranges) };
 }
 
-/** Where part of one bucket's records lie: a chunk of one task's spill file. */
+/**
+ * Where part of one bucket's records lie: a chunk of one task's spill file, of an unnamed file in
+ * memory (`fd`), or of a slab of shared memory (`memory`); `path` is empty for the last two.
+ * `task` -1: the records' stratum words already hold dealing strata (a bucket split in stage 2,
+ * see split.ts), not a scatter task's own ids.
+ */
 export interface SpillPiece {
   task: number;
   path: string;
   offset: number;
   length: number;
+  fd?: number;
+  memory?: SharedArrayBuffer;
 }
+
+/** Stage 1 keeps chunks in memory (the memory layout). */
+export interface SpillStore {
+  /** KiB all scatter tasks may still keep: an Int32Array(1) on this buffer, used with Atomics. */
+  allowance: SharedArrayBuffer;
+  /**
+   * Per scatter task, per range of buckets: the descriptor of an unnamed file in a memory file
+   * system (ram-store.ts); null: slabs of shared memory.
+   */
+  files: number[][] | null;
+  /** Bytes of a slab (a chunk larger than that gets a slab of its own size). */
+  slabBytes: number;
+}
+
+/** A chunk's place: its range's spill file, or its range's file in memory; 0 and up: a slab. */
+export const IN_FILE = -1;
+export const IN_RAM_FILE = -2;
+
+/** A store's shared allowance for `bytes`. */
+export function storeAllowance(bytes: number): SharedArrayBuffer {
+  const sab = new SharedArrayBuffer(4);
+  new Int32Array(sab)[0] = Math.min(0x7fffffff, Math.floor(bytes / 1024));
+  return sab;
+}
+
+/** The chunks a writer made: (bucket, place, offset, length) each; place IN_FILE, IN_RAM_FILE or a slab's index. */
+export const CHUNK_FIELDS = 4;
 
 /**
  * Buffered appender for the buckets of one scatter task.
@@ -95,9 +145,9 @@ export interface SpillPiece {
  */
 export class BucketWriter {
   /** One spill file per range of buckets (see spillRanges); created at its first chunk. */
-  readonly paths: string[];
-  /** Per bucket: [offset, length, offset, length, …] of its chunks in its range's file. */
-  readonly chunks: number[][];
+  paths: string[];
+  /** Slabs of shared memory holding chunks (the memory layout), each of one range of buckets. */
+  slabs: SharedArrayBuffer[] = [];
   readonly bytes: Float64Array;
   readonly records: Float64Array;
   /** Fingerprint of every record appended, taken from the aligned copy (cheaper than from the input). */
@@ -105,6 +155,16 @@ export class BucketWriter {
   #fds: number[];
   #ends: number[];
   #perRange: number;
+  #buckets: number;
+  #chunkList = new Float64Array(CHUNK_FIELDS * 64);
+  #chunkCount = 0;
+  #store: SpillStore | null;
+  /** This task's files in memory, per range (SpillStore.files), and where each one ends. */
+  #ramFds: number[] | null = null;
+  #ramEnds: number[] = [];
+  /** Per range: its current slab (index into `slabs`) or -1, and where that slab's free space starts. */
+  #rangeSlab: Int32Array;
+  #slabFill: number[] = [];
   #arena: Uint8Array;
   #buf: Buffer;
   #u32: Uint32Array;
@@ -138,8 +198,15 @@ export class BucketWriter {
     return this.#stagingSize;
   }
 
-  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20) {
+  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20, store: SpillStore | null = null) {
     this.fingerprint = fingerprint;
+    this.#buckets = buckets;
+    this.#store = store;
+    if (store?.files) {
+      this.#ramFds = store.files[task] ?? null;
+      this.#ramEnds = new Array<number>(this.#ramFds?.length ?? 0).fill(0);
+      if (!this.#ramFds) this.#store = null;
+    }
     this.#size = Math.max(4096, bufferBytes & ~3);
     this.#stagingSize = stagingBytes;
     const kernel = spillKernel();
@@ -184,10 +251,38 @@ export class BucketWriter {
     this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
     this.#fds = new Array<number>(ranges).fill(-1);
     this.#ends = new Array<number>(ranges).fill(0);
-    this.chunks = Array.from({ length: buckets }, () => []);
+    this.#rangeSlab = new Int32Array(ranges).fill(-1);
     for (let b = 0; b < buckets; b++) this.#fill[b] = b * this.#stride;
     this.bytes = new Float64Array(buckets);
     this.records = new Float64Array(buckets);
+  }
+
+  /** This task's files in memory, per range (empty where it has none). */
+  get ramFiles(): number[] {
+    return this.#ramFds ? [...this.#ramFds] : [];
+  }
+
+  /** Every chunk written so far: CHUNK_FIELDS numbers each (a view, valid until the next write). */
+  get chunks(): Float64Array {
+    return this.#chunkList.subarray(0, this.#chunkCount * CHUNK_FIELDS);
+  }
+
+  /**
+   * Starts over, after close(), with new files named for `task` in `dir` and nothing written:
+   * the same buckets and buffers (a thread that splits bucket after bucket keeps one writer).
+   */
+  restart(dir: string, task: number): void {
+    if (this.#fds.some((fd) => fd >= 0) || this.#queued > 0) throw new Error('internal: BucketWriter.restart before close');
+    const { ranges } = spillRanges(this.#buckets);
+    this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
+    this.#ends.fill(0);
+    this.#rangeSlab.fill(-1);
+    this.slabs = [];
+    this.#slabFill = [];
+    this.#chunkCount = 0;
+    for (let b = 0; b < this.#buckets; b++) this.#fill[b] = b * this.#stride;
+    this.bytes.fill(0);
+    this.records.fill(0);
   }
 
   /**
@@ -355,10 +450,82 @@ export class BucketWriter {
     }
   }
 
-  /** Appends bytes to the bucket's range file as one chunk of `bucket`. */
+  /** Notes a chunk of `bucket` at `place` (IN_FILE, IN_RAM_FILE or a slab). */
+  #noteChunk(bucket: number, place: number, offset: number, length: number): void {
+    let list = this.#chunkList;
+    const at = this.#chunkCount * CHUNK_FIELDS;
+    if (at + CHUNK_FIELDS > list.length) {
+      list = new Float64Array(list.length * 2);
+      list.set(this.#chunkList);
+      this.#chunkList = list;
+    }
+    list[at] = bucket;
+    list[at + 1] = place;
+    list[at + 2] = offset;
+    list[at + 3] = length;
+    this.#chunkCount++;
+  }
+
+  /** Keeps a chunk in memory (see the module's comment); false once the allowance is spent or the memory file system is full. */
+  #keep(r: number, bucket: number, buf: Buffer, from: number, to: number): boolean {
+    if (this.#ramFds) return this.#keepInFile(r, bucket, buf, from, to);
+    const store = this.#store!;
+    const len = to - from;
+    let k = this.#rangeSlab[r]!;
+    if (k < 0 || this.#slabFill[k]! + len > this.slabs[k]!.byteLength) {
+      const size = Math.max(store.slabBytes, len);
+      const kib = Math.ceil(size / 1024);
+      const allowance = new Int32Array(store.allowance);
+      if (Atomics.sub(allowance, 0, kib) < kib) {
+        Atomics.add(allowance, 0, kib);
+        this.#store = null;
+        return false;
+      }
+      k = this.slabs.length;
+      this.slabs.push(new SharedArrayBuffer(size));
+      this.#slabFill.push(0);
+      this.#rangeSlab[r] = k;
+    }
+    const at = this.#slabFill[k]!;
+    new Uint8Array(this.slabs[k]!, at, len).set(buf.subarray(from, to));
+    this.#slabFill[k] = at + len;
+    this.#noteChunk(bucket, k, at, len);
+    return true;
+  }
+
+  /** Appends a chunk to its range's file in memory, its size taken from the allowance. */
+  #keepInFile(r: number, bucket: number, buf: Buffer, from: number, to: number): boolean {
+    const len = to - from;
+    const kib = Math.ceil(len / 1024);
+    const allowance = new Int32Array(this.#store!.allowance);
+    if (Atomics.sub(allowance, 0, kib) < kib) {
+      Atomics.add(allowance, 0, kib);
+      this.#store = null;
+      return false;
+    }
+    const fd = this.#ramFds![r]!;
+    const end = this.#ramEnds[r]!;
+    let off = from;
+    try {
+      while (off < to) off += writeSync(fd, buf, off, to - off, end + (off - from));
+    } catch (err) {
+      // Full (its size limit, or a quota): what is there stays, the rest goes to the spill files.
+      const code = (err as NodeJS.ErrnoException).code;
+      if (code !== 'ENOSPC' && code !== 'EDQUOT' && code !== 'EFBIG') throw ioError(err, `a file in memory (range ${r})`, 'keeping the spill in memory');
+      Atomics.add(allowance, 0, kib);
+      this.#store = null;
+      return false;
+    }
+    this.#ramEnds[r] = end + len;
+    this.#noteChunk(bucket, IN_RAM_FILE, end, len);
+    return true;
+  }
+
+  /** Appends bytes to the bucket's range file (or memory) as one chunk of `bucket`. */
   #write(bucket: number, buf: Buffer, from: number, to: number): void {
     if (to <= from) return;
     const r = Math.floor(bucket / this.#perRange);
+    if (this.#store && this.#keep(r, bucket, buf, from, to)) return;
     const path = this.paths[r]!;
     if (this.#fds[r] === -1) {
       try {
@@ -374,7 +541,7 @@ export class BucketWriter {
     } catch (err) {
       throw ioError(err, path, 'writing a spill file');
     }
-    this.chunks[bucket]!.push(end, to - from);
+    this.#noteChunk(bucket, IN_FILE, end, to - from);
     this.#ends[r] = end + (to - from);
   }
 
@@ -389,7 +556,7 @@ export class BucketWriter {
   close(): void {
     try {
       this.#drain();
-      for (let b = 0; b < this.chunks.length; b++) this.#flush(b);
+      for (let b = 0; b < this.#buckets; b++) this.#flush(b);
       if (this.#kernel && this.fingerprint) {
         // The module's sum of the records it wrote.
         const u = this.#u32;
@@ -406,7 +573,7 @@ export class BucketWriter {
    * to close is not reported: the error that led here is the one that matters. */
   abandon(): void {
     this.#queued = 0;
-    for (let b = 0; b < this.chunks.length; b++) this.#fill[b] = b * this.#stride;
+    for (let b = 0; b < this.#buckets; b++) this.#fill[b] = b * this.#stride;
     try {
       this.#closeFile();
     } catch {
