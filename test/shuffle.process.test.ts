@@ -40,8 +40,16 @@ async function interrupt(out: string, signal: NodeJS.Signals, ready: () => boole
 }
 
 const spillStarted = (): boolean => hidden(dir).some((f) => f.startsWith('.rowdeck-spill-'));
+/** A staging folder holds a part (the lock's work file, named like one for a moment, is not a folder). */
 const gatherStarted = (): boolean =>
-  hidden(dir).some((f) => f.startsWith('.rowdeck-partial-') && readdirSync(join(dir, f)).some((p) => p.startsWith('part-')));
+  hidden(dir).some((f) => {
+    if (!f.startsWith('.rowdeck-partial-')) return false;
+    try {
+      return readdirSync(join(dir, f)).some((p) => p.startsWith('part-'));
+    } catch {
+      return false;
+    }
+  });
 
 describe('an interrupted run', () => {
   // The input (~24 MB) is shuffled on the main thread by default; --threads 2 uses workers.

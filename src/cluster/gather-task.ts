@@ -34,6 +34,8 @@ export interface GatherDone extends DoneRecord {
   spread: SpreadChunk[][] | null;
   /** Where the lanes kept every part's statistics: each part's, over these buckets. */
   stats: SerializedStats[] | null;
+  /** Buckets split before they were dealt (the multi-pass layout). */
+  splits: number;
 }
 
 /** The deal step's plan of stage 2, or an error saying to run it. */
@@ -104,7 +106,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
       await gathered.lanes.destroy();
       const chunks = spread ? spread.chunkList() : null;
       spread?.close();
-      return { first: share.first, end: share.end, counts: gathered.counts, fingerprints: gathered.fingerprints.map((f) => f.toJSON()), partBytes, spread: chunks, stats };
+      return { first: share.first, end: share.end, counts: gathered.counts, fingerprints: gathered.fingerprints.map((f) => f.toJSON()), partBytes, spread: chunks, stats, splits: gathered.splits };
     } catch (err) {
       for (const w of writers) w.abandon();
       spread?.close();

@@ -23,6 +23,18 @@ export const BUFFER_CAP = 64 * 1024;
  */
 export const MIN_WRITE = 32 * 1024;
 
+/**
+ * Stage 1's buffers take a quarter of the budget, at most this much: a larger budget buys larger
+ * buckets, not more buffers (each is memory written for the first time, which costs a page fault
+ * a page, and stage 2 takes buckets up to a budget-sized cap anyway).
+ */
+export const BUFFERS_MAX = 128 * 1024 * 1024;
+
+/** Bytes of stage 1's buffers, over all buckets and tasks. */
+export function bufferShare(memory: number): number {
+  return Math.min(Math.floor(memory / 4), BUFFERS_MAX);
+}
+
 /** The share of the budget the spill may take in memory (the rest: buffers, buckets in flight, parts). */
 export const MEMORY_LAYOUT_SHARE = 0.75;
 
@@ -63,11 +75,13 @@ export interface BucketChoice {
 /**
  * The layout, the number of spill buckets, and how much buffer each gets in stage 1.
  * - `memory` (where allowed: one process) when the spill's estimate is within
- *   MEMORY_LAYOUT_SHARE of the budget; buckets of the target size.
- * - Otherwise buckets of the target size where that many buffers of MIN_WRITE per task fit a
- *   quarter of the budget, or larger ones up to the cap stage 2 takes whole: `spill`.
+ *   MEMORY_LAYOUT_SHARE of the budget.
+ * - Otherwise `spill` where one level of buckets holds it: buckets of the target size where that
+ *   many buffers of MIN_WRITE a task fit stage 1's share (bufferShare), or fewer, larger ones
+ *   up to the cap stage 2 takes whole.
  * - Otherwise `multi-pass`: as many buckets as those buffers allow; stage 2 splits the ones it
  *   cannot take whole.
+ * The memory layout takes its buckets by the same rule (stage 2 does not split them: they fit).
  */
 export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number, allowMemory = false): BucketChoice {
   const cap = bucketCap(memory, inFlight);
@@ -82,19 +96,18 @@ export function chooseBuckets(spillEstimate: number, memory: number, threads: nu
     // Buckets 8 times the size stage 2 takes whole (forcedSplit): every one is split.
     layout = 'multi-pass';
     bits = Math.max(0, log2(Math.ceil(spillEstimate / forcedSplit(spillEstimate))) - 3);
-  } else if (forced === 'memory' || (forced === undefined && allowMemory && spillEstimate <= MEMORY_LAYOUT_SHARE * memory)) {
-    layout = 'memory';
-    bits = byTarget;
   } else {
-    const maxBits = Math.floor(Math.log2(Math.max(1, Math.floor(memory / 4 / (MIN_WRITE * tasks)))));
+    // As many buckets as buffers of MIN_WRITE a task fit in stage 1's share.
+    const maxBits = Math.floor(Math.log2(Math.max(1, Math.floor(bufferShare(memory) / (MIN_WRITE * tasks)))));
     const byCap = log2(Math.ceil(spillEstimate / cap));
-    layout = forced === 'spill' || byCap <= maxBits ? 'spill' : 'multi-pass';
+    if (forced === 'memory' || (forced === undefined && allowMemory && spillEstimate <= MEMORY_LAYOUT_SHARE * memory)) layout = 'memory';
+    else layout = forced === 'spill' || byCap <= maxBits ? 'spill' : 'multi-pass';
     bits = forced === 'spill' ? byTarget : Math.min(byTarget, maxBits);
   }
   bits = Math.min(14, bits);
   // For experiments only: force the bucket bits (the output does not depend on them).
   if (flags.bucketBits !== undefined) bits = flags.bucketBits;
-  const bufferBytes = Math.max(4096 * tasks, Math.min(BUFFER_CAP * tasks, Math.floor(memory / 4 / 2 ** bits)));
+  const bufferBytes = Math.max(4096 * tasks, Math.min(BUFFER_CAP * tasks, Math.floor(bufferShare(memory) / 2 ** bits)));
   return { bits, bufferBytes, layout };
 }
 
