@@ -31,8 +31,8 @@ Usage:
 
 What it does:
   Every record gets a random key from the seed; records are sorted by key in two stages
-  (scatter to spill files, gather bucket by bucket on worker threads) so inputs larger than
-  memory work. Records are then dealt by rank within their class, so every part keeps each
+  (scatter into buckets, held in memory or spill files, then gather bucket by bucket on
+  worker threads) so inputs larger than memory work. Records are then dealt by rank within their class, so every part keeps each
   class at its overall share (within one record), and each part's records come in a uniformly
   random order (see --order). DIR/manifest.json, written last, records counts, class mix,
   checksums, fingerprints and the seed.
@@ -84,13 +84,16 @@ Output and resources:
                           /, a mount point, the working or home folder or one above them, or
                           holds an input
   --gzip                  compress parts (.gz)
-  --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default 512MiB)
+  --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default: a quarter of the memory
+                          available at start, 128MiB to 16GiB; here now: {memory-default}).
+                          It decides the layout, never the output (see Memory and disk)
   --threads N             worker threads (default: number of cores; inputs under 32 MiB are
                           shuffled on the main thread, faster than starting threads); 0 keeps
                           all the work on the main thread. The output is the same either way
   --temp-dir DIR          where spill files go (default: beside DIR); they take about 1.3x
                           the input (records plus 24 bytes each: more for short records) and
-                          are removed range by range as the parts are written
+                          are removed range by range as the parts are written; none where
+                          the spill fits in --memory
   --stats                 add per-column statistics of the input and of every part to the
                           manifest (types, missing, min/max/mean/sd, frequent values); this
                           adds 35-70% to the run time. Within --memory: with many parts the
@@ -102,6 +105,21 @@ Output and resources:
                           tables (see rowdeck report --help)
   --json                  print the manifest on stdout
   --quiet                 no progress or summary on stderr
+
+Memory and disk:
+  The input's size over --memory decides how records wait between the two stages (the
+  manifest's run.layout says which ran; progress shows it):
+    memory      the spill (about 1.3x the input) fits in 3/4 of the budget: it stays in
+                memory (unnamed files in /dev/shm, or shared memory); no spill file
+    spill       larger, up to what one level of buckets holds within the budget (each
+                bucket small enough for stage 2, each buffer of stage 1 at least 32 KiB):
+                spill files, read back bucket by bucket and removed as stage 2 passes them
+    multi-pass  larger still: as many buckets as 32 KiB buffers fit the budget, and stage 2
+                scatters each one too large for it once more, by the key's next bits, before
+                it deals it: memory stays within the budget at any input size
+  Before it reads a record, a run checks the free space of the spill's folder and of --out
+  against what it will write (spill about 1.3x the input, parts about 1x; on one disk the
+  spill and a range of parts at once) and stops with ERR_NO_SPACE if short.
 
 On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
 and how far its share strays from its share in the whole input, the largest marked with *.
@@ -124,6 +142,13 @@ Interrupted (Ctrl-C, SIGTERM, SIGHUP, SIGQUIT), a run removes its work files and
 line; after a SIGKILL the next run removes them. Split names may not be manifest, rejected or
 report (rowdeck's own files) or look like a path.
 `;
+
+/** SHUFFLE_HELP with this machine's figures filled in (the default budget as it is now). */
+export function shuffleHelp(defaultMemory: number): string {
+  const mib = defaultMemory / 2 ** 20;
+  const shown = mib >= 1024 && mib % 1024 === 0 ? `${mib / 1024}GiB` : `${Math.round(mib)}MiB`;
+  return SHUFFLE_HELP.replace('{memory-default}', shown);
+}
 
 export const PROFILE_HELP = `rowdeck profile — schema, statistics and class balance of inputs
 
@@ -257,6 +282,9 @@ Options (besides every option of rowdeck shuffle but --temp-dir: the spill goes 
   --gather-tasks M        gather tasks (default N; at most the bucket count)
   --threads T             threads of each task (default: this machine's cores); Slurm asks for
                           T CPUs and the memory budget plus 512 MiB a task
+  --memory SIZE           each task's budget (default 512MiB: this machine's memory says
+                          nothing of the nodes'); the tasks spill to files in WORK, and a
+                          gather task splits a bucket too large for it (same bytes)
   --image NAME            the container image of kubernetes.yaml (default node:20-bookworm); it
                           must run this rowdeck at the path the plan names
   --claim NAME            the ReadWriteMany PersistentVolumeClaim holding the inputs, WORK and DIR

@@ -153,6 +153,9 @@ function cliPath(): string {
   return join(here, '..', '..', 'dist', 'cli', 'main.js');
 }
 
+/** A plan's budget a task where --memory is not given (the machine planning is not the nodes). */
+export const PLAN_DEFAULT_MEMORY = '512MiB';
+
 function plannedOptions(o: ShuffleOptions): PlannedOptions {
   const { onProgress: _p, onNotice: _n, inputs: _i, out: _o, tempDir: _t, ...rest } = o;
   return JSON.parse(JSON.stringify(rest)) as PlannedOptions;
@@ -162,7 +165,9 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
   if (p.tempDir !== undefined) {
     throw new RowdeckError('ERR_OPTION', 'Invalid option "tempDir": a plan keeps its spill in the work folder (--work), where every task can read it; leave --temp-dir out.', { option: 'tempDir' });
   }
-  const { work: workGiven, tasks, gatherTasks, image, claim, mountPath, ...shuffleOptions } = p;
+  const { work: workGiven, tasks, gatherTasks, image, claim, mountPath, ...given } = p;
+  // The nodes' memory is not this machine's: without --memory a task's budget is a fixed one.
+  const shuffleOptions = { ...given, memory: given.memory ?? PLAN_DEFAULT_MEMORY };
   const o: ResolvedShuffleOptions = resolveShuffleOptions(shuffleOptions);
   if (typeof workGiven !== 'string' || workGiven === '') throw new RowdeckError('ERR_OPTION', 'Invalid option "work": expected a folder path for the tasks\' files, got nothing.', { option: 'work' });
   if (!Number.isInteger(tasks) || tasks < 1 || tasks > 100000) throw new RowdeckError('ERR_OPTION', `Invalid option "tasks": expected an integer from 1 to 100000, got ${JSON.stringify(tasks)}`, { option: 'tasks' });

@@ -3,7 +3,8 @@ import { runShuffle } from '../../engine/shuffle.js';
 import type { ShuffleOptions } from '../../options.js';
 import type { BadRecordPolicy, InputFormat } from '../../io/batch.js';
 import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg, type OptionSpec } from '../args.js';
-import { SHUFFLE_HELP } from '../help.js';
+import { shuffleHelp } from '../help.js';
+import { defaultMemory } from '../../io/memory-available.js';
 import type { CliIO } from '../main.js';
 import { createProgress } from '../progress.js';
 import { formatShuffleSummary } from '../summary.js';
@@ -69,7 +70,7 @@ export function shuffleOptionsOf(v: Record<string, string | boolean | string[] |
 export async function run(argv: string[], io: CliIO): Promise<number> {
   const { values: v, positionals } = parseCommandArgs(argv, SHUFFLE_CLI_OPTIONS);
   if (v.help) {
-    io.stdout.write(SHUFFLE_HELP);
+    io.stdout.write(shuffleHelp(defaultMemory()));
     return 0;
   }
   const progress = createProgress(io.stderr, !v.quiet);
