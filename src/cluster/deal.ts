@@ -205,7 +205,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
             piecesOf: (b) => source.pieces(b),
             bits: Math.log2(source.buckets),
             taskToDealing: d.taskToDealing,
-            split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4), remove: async (d) => rmSync(d, { recursive: true, force: true }) },
+            split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
           },
           join(dir, 'groups-census.bin'),
           (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task),

@@ -91,7 +91,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
         inFlight: plan.size.inFlight,
         sink,
         // Buckets too large for this machine's budget are split in a folder of the task's own, removed as they are dealt.
-        split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir: join(dir, 'splits'), bufferBytes: Math.floor(plan.size.memory / 4), remove: async (d) => rmSync(d, { recursive: true, force: true }) },
+        split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir: join(dir, 'splits'), bufferBytes: Math.floor(plan.size.memory / 4) },
       });
       rmSync(join(dir, 'splits'), { recursive: true, force: true });
       const partBytes: number[] = [];

@@ -13,7 +13,7 @@ import { addCounts, type GatherResult, type GatherTask } from './gather.js';
 import { gatherLane, type GatherFinal, type GatherLane } from './gather-lane.js';
 import { partCount, type GatherPlan } from './plan.js';
 import type { SpillPiece } from './spill.js';
-import { splitPieces, unitsOf, type GatherUnit, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
+import { splitPieces, SplitSlots, unitsOf, type GatherUnit, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
 
 /** Takes each bucket's result, in bucket order; the result's buffers go back to the lanes afterwards. */
 export interface GatherSink {
@@ -41,10 +41,10 @@ export interface GatherStageInput {
   passed?: (next: number) => Promise<void>;
   progress?: (done: number, total: number) => void;
   /**
-   * Buckets larger than `cap` are split (the multi-pass layout; split.ts) into folders in `dir`,
-   * each removed with `remove` once its sub-buckets are dealt; absent: every bucket is dealt whole.
+   * Buckets larger than `cap` are split (the multi-pass layout; split.ts) into files in `dir`
+   * (nameless, gone at the end); absent: every bucket is dealt whole.
    */
-  split?: Pick<SplitPolicy, 'cap' | 'target' | 'dir' | 'bufferBytes' | 'onSplit'> & { remove: (dir: string) => Promise<void> };
+  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes' | 'onSplit'> & { dir: string };
 }
 
 export interface GatherStage {
@@ -78,9 +78,13 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
   const phases: number[] = [];
   let splits = 0;
+  const slots = i.split ? new SplitSlots(i.split.dir) : null;
   const policy: SplitPolicy | null = i.split
     ? {
-        ...i.split,
+        cap: i.split.cap,
+        target: i.split.target,
+        bufferBytes: i.split.bufferBytes,
+        slots: slots!,
         shares: run.size,
         strata: plan.localToGlobal,
         strataCount: plan.strataCount,
@@ -147,7 +151,6 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   };
   const total = i.end - i.first;
   i.progress?.(0, total);
-  const removing: Promise<void>[] = [];
   try {
     await fill();
     while (pending.length > 0) {
@@ -158,7 +161,7 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
       addCounts(counts, r.counts);
       r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
       spare.push(r.data.buffer as ArrayBuffer);
-      for (const dir of unit.cleanup) removing.push(i.split!.remove(dir));
+      for (const release of unit.cleanup) release();
       // The last unit of a bucket: the bucket is passed.
       const last = pending.length > 0 ? pending[0]!.unit.bucket !== unit.bucket : at >= current.length || current[at]!.bucket !== unit.bucket;
       if (last) {
@@ -168,8 +171,9 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
       await fill();
     }
   } finally {
-    await Promise.all(expansions.values()).catch(() => {});
-    await Promise.all(removing);
+    // Splits still running (the next bucket's, after a failure) end before their files close.
+    await Promise.allSettled([...expansions.values(), ...pending.map((p) => p.result)]);
+    slots?.close();
   }
   return { counts, fingerprints, phases, lanes: run, inline, splits };
 }

@@ -13,7 +13,7 @@ import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 import { censusBucket, type CensusTask } from './gather.js';
 import type { SpillPiece } from './spill.js';
-import { splitPieces, unitsOf, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
+import { splitPieces, SplitSlots, unitsOf, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
 
 /** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
 export interface CensusSource {
@@ -25,10 +25,11 @@ export interface CensusSource {
   /** Per scatter task: its stratum ids → dealing stratum ids. */
   taskToDealing: number[][];
   /**
-   * A census bucket larger than `cap` is split (split.ts) into folders in `dir` and counted as
-   * its sub-buckets, in key order (a group's records share its key, so they stay together).
+   * A census bucket larger than `cap` is split (split.ts) into files in `dir` (nameless, gone at
+   * the end) and counted as its sub-buckets, in key order (a group's records share its key, so
+   * they stay together).
    */
-  split?: Pick<SplitPolicy, 'cap' | 'target' | 'dir' | 'bufferBytes'> & { remove: (dir: string) => Promise<void> };
+  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes'> & { dir: string };
 }
 
 /**
@@ -44,9 +45,13 @@ export async function countGroups(
 ): Promise<GroupTable> {
   const census = new GroupTableBuilder(workFile);
   const yieldNow = (): Promise<void> => new Promise<void>((resolve) => setImmediate(resolve));
+  const slots = src.split ? new SplitSlots(src.split.dir) : null;
   const policy: SplitPolicy | null = src.split
     ? {
-        ...src.split,
+        cap: src.split.cap,
+        target: src.split.target,
+        bufferBytes: src.split.bufferBytes,
+        slots: slots!,
         shares: run ? width : 1,
         strata: src.taskToDealing,
         strataCount: 0,
@@ -71,9 +76,9 @@ export async function countGroups(
           }
         });
       });
-      const dirs = units.flatMap((u) => u.cleanup);
-      const job = Promise.all(counting).then(async () => {
-        await Promise.all(dirs.map((d) => src.split!.remove(d)));
+      const releases = units.flatMap((u) => u.cleanup);
+      const job = Promise.all(counting).then(() => {
+        for (const release of releases) release();
         progress(++counted, src.count);
       });
       job.catch(() => {});
@@ -83,6 +88,7 @@ export async function countGroups(
     return census.build();
   } finally {
     await Promise.allSettled(jobs);
+    slots?.close();
     census.close();
   }
 }

@@ -142,7 +142,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
           piecesOf: (b) => source.pieces(b),
           bits: Math.log2(source.buckets),
           taskToDealing: d.taskToDealing,
-          split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4), remove: (dir) => work.removeEarly([dir]) },
+          split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
         },
         join(spillDir, 'groups-census.bin'),
         lanes ? (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task) : null,
@@ -227,7 +227,6 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         target: size.bucketTarget,
         dir: spillDir,
         bufferBytes: Math.floor(o.memory / 4),
-        remove: (dir) => work.removeEarly([dir]),
         onSplit: () => {
           splits++;
           runLayout = 'multi-pass';

@@ -158,10 +158,14 @@ export class BucketWriter {
   #buckets: number;
   #chunkList = new Float64Array(CHUNK_FIELDS * 64);
   #chunkCount = 0;
-  #store: SpillStore | null;
-  /** This task's files in memory, per range (SpillStore.files), and where each one ends. */
+  #store: SpillStore | null = null;
+  /**
+   * This task's files in memory, per range (SpillStore.files), and where each one ends (ranges
+   * may share a file: `#ramEndOf[r]` is the first range with range r's descriptor).
+   */
   #ramFds: number[] | null = null;
   #ramEnds: number[] = [];
+  #ramEndOf: number[] = [];
   /** Per range: its current slab (index into `slabs`) or -1, and where that slab's free space starts. */
   #rangeSlab: Int32Array;
   #slabFill: number[] = [];
@@ -201,12 +205,7 @@ export class BucketWriter {
   constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20, store: SpillStore | null = null) {
     this.fingerprint = fingerprint;
     this.#buckets = buckets;
-    this.#store = store;
-    if (store?.files) {
-      this.#ramFds = store.files[task] ?? null;
-      this.#ramEnds = new Array<number>(this.#ramFds?.length ?? 0).fill(0);
-      if (!this.#ramFds) this.#store = null;
-    }
+    this.#takeStore(store, task);
     this.#size = Math.max(4096, bufferBytes & ~3);
     this.#stagingSize = stagingBytes;
     const kernel = spillKernel();
@@ -257,6 +256,19 @@ export class BucketWriter {
     this.records = new Float64Array(buckets);
   }
 
+  /** Takes task `task`'s part of a store (see SpillStore). */
+  #takeStore(store: SpillStore | null, task: number): void {
+    this.#store = store;
+    this.#ramFds = null;
+    if (store?.files) {
+      const fds = store.files[task] ?? null;
+      this.#ramFds = fds;
+      this.#ramEnds = new Array<number>(fds?.length ?? 0).fill(0);
+      this.#ramEndOf = (fds ?? []).map((fd) => fds!.indexOf(fd));
+      if (!fds) this.#store = null;
+    }
+  }
+
   /** This task's files in memory, per range (empty where it has none). */
   get ramFiles(): number[] {
     return this.#ramFds ? [...this.#ramFds] : [];
@@ -268,14 +280,16 @@ export class BucketWriter {
   }
 
   /**
-   * Starts over, after close(), with new files named for `task` in `dir` and nothing written:
-   * the same buckets and buffers (a thread that splits bucket after bucket keeps one writer).
+   * Starts over, after close(), with new files named for `task` in `dir` (or `store`'s) and
+   * nothing written: the same buckets and buffers (a thread that splits bucket after bucket keeps
+   * one writer).
    */
-  restart(dir: string, task: number): void {
+  restart(dir: string, task: number, store: SpillStore | null = null): void {
     if (this.#fds.some((fd) => fd >= 0) || this.#queued > 0) throw new Error('internal: BucketWriter.restart before close');
     const { ranges } = spillRanges(this.#buckets);
     this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
     this.#ends.fill(0);
+    this.#takeStore(store, task);
     this.#rangeSlab.fill(-1);
     this.slabs = [];
     this.#slabFill = [];
@@ -504,7 +518,8 @@ export class BucketWriter {
       return false;
     }
     const fd = this.#ramFds![r]!;
-    const end = this.#ramEnds[r]!;
+    const e = this.#ramEndOf[r]!;
+    const end = this.#ramEnds[e]!;
     let off = from;
     try {
       while (off < to) off += writeSync(fd, buf, off, to - off, end + (off - from));
@@ -516,7 +531,7 @@ export class BucketWriter {
       this.#store = null;
       return false;
     }
-    this.#ramEnds[r] = end + len;
+    this.#ramEnds[e] = end + len;
     this.#noteChunk(bucket, IN_RAM_FILE, end, len);
     return true;
   }

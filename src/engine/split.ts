@@ -5,25 +5,33 @@
  * removes the folder. Concatenated in order, the sub-buckets' records in key order are the
  * bucket's records in key order, so the output is the same as if the bucket had been dealt whole.
  *
- * Each lane scatters a share of the bucket's pieces (its own files), rewriting every record's
+ * The sub-buckets go to files that are used over and over (SplitSlots): a few per lane, opened
+ * once, their names removed at once (so nothing is left after a crash), each written from its
+ * start again by the next split that takes its slot once the one before is dealt. Creating,
+ * filling and removing a folder of files for every split cost a system call's worth of
+ * bookkeeping per file and a fresh page per 4 KiB written (docs/benchmarks.md, "Where system time
+ * goes at 4 GB"); reused files keep their pages.
+ *
+ * Each lane scatters a share of the bucket's pieces (its own file), rewriting every record's
  * stratum word to its dealing stratum so that pieces of different scatter tasks can share a
  * sub-bucket (their pieces are read as task -1, see SpillPiece), and counts every sub-bucket's
  * records by stratum, which gives each sub-bucket its ranks. A sub-bucket still too large
  * (only where many records share a key: one huge group) is split again while key bits remain.
  */
-import { mkdirSync } from 'node:fs';
+import { closeSync, mkdirSync, openSync, readSync, rmSync, unlinkSync } from 'node:fs';
 import { join } from 'node:path';
-import { closeSync, openSync, readSync } from 'node:fs';
-import { ioError } from '../errors.js';
-import { BucketWriter, HEADER_BYTES, type SpillPiece } from './spill.js';
+import { randomBytes } from 'node:crypto';
+import { ioError, systemError } from '../errors.js';
+import { BucketWriter, HEADER_BYTES, spillRanges, storeAllowance, type SpillPiece, type SpillStore } from './spill.js';
 import { SpillIndex } from './spill-index.js';
 import { BUFFER_CAP } from './sizing.js';
 
 /** One lane's share of a split. */
 export interface SplitTask {
-  /** The split's folder (made by the caller); this share's files are named for `share`. */
+  /** Where this share writes: its file of the slot (`store.files[share]`), or, should that fail (a full disk), files named for `share` in `splitDir`. */
   splitDir: string;
   share: number;
+  store: SpillStore;
   pieces: SpillPiece[];
   /** Per scatter task: its stratum ids -> dealing strata (pieces of task -1 hold dealing strata). */
   strata: number[][];
@@ -40,6 +48,7 @@ export interface SplitResult {
   paths: string[];
   chunks: Float64Array;
   slabs: SharedArrayBuffer[];
+  ramFiles: number[];
   /** `counts[sub * strataCount + stratum]`, or null. */
   counts: Uint32Array | null;
 }
@@ -62,9 +71,9 @@ export function splitPieces(t: SplitTask): SplitResult {
   const shape = `${subs}:${t.bufferBytes}`;
   // One writer per thread, started over for each split (a new one each time would leave its
   // memory to the collector).
-  if (writer && writerShape === shape) writer.restart(t.splitDir, t.share);
+  if (writer && writerShape === shape) writer.restart(t.splitDir, t.share, t.store);
   else {
-    writer = new BucketWriter(t.splitDir, t.share, subs, t.bufferBytes, null, READ_BYTES);
+    writer = new BucketWriter(t.splitDir, t.share, subs, t.bufferBytes, null, READ_BYTES, t.store);
     writerShape = shape;
   }
   const w = writer;
@@ -127,7 +136,7 @@ export function splitPieces(t: SplitTask): SplitResult {
   } finally {
     if (fd >= 0) closeSync(fd);
   }
-  return { paths: [...w.paths], chunks: w.chunks.slice(), slabs: [], counts };
+  return { paths: [...w.paths], chunks: w.chunks.slice(), slabs: [], ramFiles: w.ramFiles, counts };
 }
 
 /** What a bucket is dealt as: itself, or the sub-buckets of its split. */
@@ -139,8 +148,8 @@ export interface GatherUnit {
   shared: number;
   /** A sub-bucket's records by dealing stratum (null: the bucket's own counts apply). */
   counts: Uint32Array | null;
-  /** On the last unit of a split: its folder (and those of splits inside it), to remove once the unit is dealt. */
-  cleanup: string[];
+  /** On the last unit of a split: what frees its slot (and those of splits inside it), to call once the unit is dealt. */
+  cleanup: (() => void)[];
 }
 
 /** How stage 2 splits the buckets it cannot take whole. */
@@ -149,8 +158,8 @@ export interface SplitPolicy {
   cap: number;
   /** The sub-buckets' aimed size. */
   target: number;
-  /** Where the splits' folders go. */
-  dir: string;
+  /** The files the splits write to. */
+  slots: SplitSlots;
   /** Buffers of one split, over its shares. */
   bufferBytes: number;
   /** Shares a split is cut into (the lanes). */
@@ -162,7 +171,78 @@ export interface SplitPolicy {
   onSplit?: () => void;
 }
 
-let splits = 0;
+/**
+ * The files splits write their sub-buckets to: a slot is one file per share, taken by a split
+ * and given back once its last sub-bucket is dealt; a free slot is taken again (its files written
+ * from the start), else a new one is opened. The files have no names (removed as soon as opened),
+ * in a folder of the spill's, so the disk they take goes back when they are closed or the
+ * process ends. Slots in use stay few: the split being dealt, the next bucket's, and a split
+ * inside one of them.
+ */
+export class SplitSlots {
+  readonly #dir: string;
+  readonly #free: number[] = [];
+  readonly #fds: number[][] = [];
+  readonly #allowance = storeAllowance(Number.MAX_SAFE_INTEGER);
+  #closed = false;
+
+  /** `dir`: where the files are made (and, should one fill its disk, where a share writes named files instead). */
+  constructor(dir: string) {
+    this.#dir = join(dir, `splits-${process.pid}-${randomBytes(3).toString('hex')}`);
+  }
+
+  /** A slot: its number, and for each of `shares` shares the store that writes to its file. */
+  take(shares: number, subs: number): { slot: number; dir: string; stores: SpillStore[] } {
+    if (this.#closed) throw new Error('internal: SplitSlots used after close');
+    if (this.#fds.length === 0) {
+      try {
+        mkdirSync(this.#dir, { recursive: true });
+      } catch (err) {
+        throw systemError(err, this.#dir, 'creating a folder for the split buckets');
+      }
+    }
+    const slot = this.#free.pop() ?? this.#fds.push([]) - 1;
+    const fds = this.#fds[slot]!;
+    for (let k = fds.length; k < shares; k++) {
+      const path = join(this.#dir, `slot-${slot}-${k}`);
+      try {
+        fds.push(openSync(path, 'w+', 0o600));
+        unlinkSync(path);
+      } catch (err) {
+        throw systemError(err, path, 'creating a file for the split buckets');
+      }
+    }
+    const dir = join(this.#dir, `named-${slot}`);
+    // Every range of the sub-buckets in the share's one file (its ends are kept apart by the writer).
+    const ranges = spillRanges(subs).ranges;
+    const stores = Array.from({ length: shares }, (_, k) => {
+      const files: number[][] = [];
+      files[k] = new Array<number>(ranges).fill(fds[k]!);
+      return { allowance: this.#allowance, files, slabBytes: 0 };
+    });
+    return { slot, dir, stores };
+  }
+
+  /** Gives a slot back: its files may be written again. */
+  give(slot: number): void {
+    if (!this.#closed) this.#free.push(slot);
+  }
+
+  /** Closes every file and removes the folder (after the lanes are done with them). */
+  close(): void {
+    if (this.#closed) return;
+    this.#closed = true;
+    for (const row of this.#fds) for (const fd of row) {
+      try {
+        closeSync(fd);
+      } catch {
+        // already closed with the process's other files
+      }
+    }
+    this.#fds.length = 0;
+    rmSync(this.#dir, { recursive: true, force: true });
+  }
+}
 
 /** How many sub-bucket bits split a bucket of `bytes` into sub-buckets of about `target` (0: it cannot be split further). */
 export function splitBits(bytes: number, target: number, shared: number): number {
@@ -180,16 +260,21 @@ export async function unitsOf(bucket: number, pieces: SpillPiece[], shared: numb
   const bits = policy && bytes > policy.cap ? splitBits(bytes, policy.target, shared) : 0;
   if (bits === 0) return [{ bucket, pieces, shared, counts, cleanup: [] }];
   policy!.onSplit?.();
-  const dir = join(policy!.dir, `split-${process.pid}-${++splits}`);
-  mkdirSync(dir, { recursive: true });
   const shares = shareOut(pieces, Math.max(1, Math.min(policy!.shares, pieces.length)));
   const subs = 2 ** bits;
+  const slot = policy!.slots.take(shares.length, subs);
   const bufferBytes = Math.max(4096, Math.min(BUFFER_CAP, Math.floor(policy!.bufferBytes / shares.length / subs)));
-  const results = await Promise.all(
-    shares.map((share, k) =>
-      policy!.run({ splitDir: dir, share: k, pieces: share, strata: policy!.strata, shared, bits, bufferBytes, strataCount: policy!.strataCount }),
-    ),
-  );
+  let results: SplitResult[];
+  try {
+    results = await Promise.all(
+      shares.map((share, k) =>
+        policy!.run({ splitDir: slot.dir, share: k, store: slot.stores[k]!, pieces: share, strata: policy!.strata, shared, bits, bufferBytes, strataCount: policy!.strataCount }),
+      ),
+    );
+  } catch (err) {
+    policy!.slots.give(slot.slot);
+    throw err;
+  }
   const index = new SpillIndex(results, subs, () => -1);
   const S = policy!.strataCount;
   const units: GatherUnit[] = [];
@@ -204,7 +289,7 @@ export async function unitsOf(bucket: number, pieces: SpillPiece[], shared: numb
     const again = index.bytes[j]! > policy!.cap && index.bytes[j]! < bytes ? policy : null;
     units.push(...(await unitsOf(bucket, sub, shared + bits, again, c)));
   }
-  units[units.length - 1]!.cleanup.push(dir);
+  units[units.length - 1]!.cleanup.push(() => policy!.slots.give(slot.slot));
   return units;
 }
 
