@@ -112,12 +112,12 @@ export interface MemoryStore {
 
 /**
  * The stores of a run in the memory layout: `bytes` of allowance for `tasks` scatter tasks, the
- * spill in `ranges` ranges (and the census in `censusRanges`, 0 without one), in slabs of
- * `slabBytes` where they are shared memory.
+ * spill in `ranges` ranges (and the census in `censusRanges`, 0 without one), in files of a
+ * memory file system with `room` bytes free, else in slabs of `slabBytes` of shared memory.
  */
-export function openMemoryStore(tasks: number, ranges: number, censusRanges: number, bytes: number, slabBytes: number): MemoryStore {
+export function openMemoryStore(tasks: number, ranges: number, censusRanges: number, bytes: number, slabBytes: number, room = bytes): MemoryStore {
   const allowance = storeAllowance(bytes);
-  const files = RamFiles.open(tasks, ranges, bytes);
+  const files = RamFiles.open(tasks, ranges, room);
   const censusFiles = files && censusRanges > 0 ? RamFiles.open(tasks, censusRanges, 0) : null;
   const useFiles = files !== null && (censusRanges === 0 || censusFiles !== null);
   if (!useFiles) {

@@ -337,7 +337,8 @@ function memoryStoreOf(o: ReturnType<typeof resolveShuffleOptions>, size: RunSiz
   const slabBytes = Math.min(64 << 20, Math.max(1 << 20, 2 ** Math.floor(Math.log2(Math.max(1, share)))));
   // Group mode with records placed individually keeps a census spill too (scatter-stage.ts).
   const census = o.assign === 'group' && placesRecordsIndividually(o) ? spillRanges(2 ** Math.max(0, size.bits - 2)).ranges : 0;
-  return openMemoryStore(tasks, spillRanges(size.buckets).ranges, census, size.storeBytes, slabBytes);
+  // A memory file system is taken where it has room for the spill expected (with a margin); the allowance stays the budget's.
+  return openMemoryStore(tasks, spillRanges(size.buckets).ranges, census, size.storeBytes, slabBytes, Math.min(size.storeBytes, Math.ceil(1.25 * size.spillEstimate)));
 }
 
 /** The layout that ran: the memory layout only where no chunk went to a file; multi-pass where a bucket was split. */
