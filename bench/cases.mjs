@@ -25,6 +25,7 @@ export const GiB = 2 ** 30;
 export const reportGroups = {
   core: { marker: 'shuffle-bench', heading: 'Shuffle' },
   scale: { marker: 'scale-bench', heading: 'Scale: 1×, 4× and 8× the 1 GB file' },
+  cluster: { marker: 'cluster-bench', heading: 'A plan run as local processes' },
 };
 
 export const SCALES = [1, 4, 8];
@@ -75,7 +76,17 @@ export function cases({ inputBytes, root }) {
     { name: 'dd', groups: ['core', 'floor'], input: 'big', requires: 'dd', cmd: (io) => ['dd', `if=${io.input}`, `of=${io.out}`, 'bs=1M', 'status=none'], needs: { disk: copyDisk } },
     { name: 'shuf', groups: ['core', 'peers'], input: 'big', requires: 'shuf', cmd: (io) => ['shuf', io.input, '-o', io.out], needs: { disk: copyDisk, memory: shufMemory } },
     { name: 'rowdeck-p8', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => ['shuffle', io.input, '--out', io.out, '--partitions', '8', '--seed', 'bench', '--force', '--quiet'], needs: { disk: shuffleDisk } },
-    { name: 'rowdeck-strat', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io), needs: { disk: shuffleDisk } },
+    { name: 'rowdeck-strat', groups: ['core', 'shuffle', 'cluster'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io), needs: { disk: shuffleDisk } },
+    // The same shuffle as a plan's tasks (4 scatter, 4 gather) run as local processes two at a
+    // time, one thread each: what the cluster path costs over one machine's run.
+    {
+      name: 'rowdeck-cluster-4x4',
+      groups: ['cluster'],
+      input: 'big',
+      cmd: (io) => [process.execPath, `${root}/bench/cluster-local.mjs`, io.input, io.out, '--tasks', '4', '--gather-tasks', '4', '--at-once', '2', '--cli', `${root}/dist/cli/main.js`, ...strat.filter((a) => a !== '--force')],
+      // The spill (1.3x), the gather tasks' slices (1x) and the parts (1x) are on disk at once.
+      needs: { disk: (b) => 3.5 * b + GiB / 4 },
+    },
     { name: 'rowdeck-strat-stats', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io, '--stats'), needs: { disk: shuffleDisk } },
     { name: 'rowdeck-folds', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io, '--folds', '5'), needs: { disk: shuffleDisk } },
     { name: 'rowdeck-strat-small', groups: ['core', 'shuffle'], input: 'small', budget: 'default', rowdeck: (io) => shuffle(io), needs: { disk: shuffleDisk } },
@@ -139,6 +150,7 @@ const perGb = (f, name, stat) => {
 
 export function figures({ budgetOf }) {
   const list = [
+    { group: 'cluster', text: 'rowdeck-cluster-4x4 / rowdeck-strat (wall; bytes moved: see the case\'s line)', wall: true, max: 1.3, of: (f, st) => ratio(wall(f, 'rowdeck-cluster-4x4', st), wall(f, 'rowdeck-strat', st)) },
     { group: 'core', text: 'rowdeck-strat / shuf (wall)', wall: true, max: 1, of: (f, st) => ratio(wall(f, 'rowdeck-strat', st), wall(f, 'shuf', st)) },
     { group: 'core', text: 'rowdeck-strat / (2 × cp)', wall: true, max: 4, of: (f, st) => ratio(wall(f, 'rowdeck-strat', st), wall(f, 'cp', st) && 2 * wall(f, 'cp', st)) },
     { group: 'core', text: 'rowdeck-strat / (2 × dd)', wall: true, of: (f, st) => ratio(wall(f, 'rowdeck-strat', st), wall(f, 'dd', st) && 2 * wall(f, 'dd', st)) },

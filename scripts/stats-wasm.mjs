@@ -7,7 +7,7 @@
 // What the module does, for a run of one column's fields of a record batch (src/core/stats-kernel.ts
 // lays out its memory), each field read as addField reads it (quotes off, a CSV "" undone):
 // - column(): for a column past the distinct cap, adds each value to the column's accumulator slot
-//   by the steps of ColumnState.addEstimated in src/core/stats.ts:
+//   by the steps of ColumnState.addEstimated in src/core/column-state.ts:
 //   - the value's hash (hashKey) to the distinct-count sketch (updateSketch);
 //   - its kind (classifyValue: ISO date, boolean, decimal number, or text) to the kind counts, and
 //     a number's value to the minimum, maximum and exact decimal sums (DecimalSums.add, the same
@@ -105,7 +105,7 @@ const isDigit = (x) => `(i32.lt_u (i32.sub ${x} (i32.const 48)) (i32.const 10))`
 /** Adds `v` (f64) to the f64 at address `at` + `off`. */
 const addF = (at, off, v) => `(f64.store offset=${off} ${at} (f64.add (f64.load offset=${off} ${at}) ${v}))`;
 
-/** stats.ts: readTwoDigits of the bytes at addr + off, into local $to (in line: uses $ta, $tb). */
+/** value-kind.ts: readTwoDigits of the bytes at addr + off, into local $to (in line: uses $ta, $tb). */
 function two(to, addr, off = 0) {
   return `(local.set $ta (i32.sub (i32.load8_u offset=${off} ${addr}) (i32.const 48)))
     (local.set $tb (i32.sub (i32.load8_u offset=${off + 1} ${addr}) (i32.const 48)))
@@ -113,14 +113,14 @@ function two(to, addr, off = 0) {
       (i32.and (i32.lt_u ${get('ta')} (i32.const 10)) (i32.lt_u ${get('tb')} (i32.const 10)))))`;
 }
 
-/** stats.ts: mix32 (murmur3's finaliser) of local $x, in place. */
+/** value-sketch.ts: mix32 (murmur3's finaliser) of local $x, in place. */
 function mix(x) {
   return `(local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 16))) ${i32(0x85ebca6b)}))
           (local.set $${x} (i32.mul (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 13))) ${i32(0xc2b2ae35)}))
           (local.set $${x} (i32.xor ${get(x)} (i32.shr_u ${get(x)} (i32.const 16))))`;
 }
 
-/** stats.ts: orderKey of local $w (byte-swapped, sign bit flipped). */
+/** value-bytes.ts: orderKey of local $w (byte-swapped, sign bit flipped). */
 function orderKey(w) {
   return `(i32.xor
             (i32.or (i32.or (i32.shl ${get(w)} (i32.const 24)) (i32.shl (i32.and ${get(w)} (i32.const 0xff00)) (i32.const 8)))
@@ -146,7 +146,7 @@ ${pad}  (br $${name})))`;
 }
 
 /**
- * stats.ts: one half of updateBounds, then setLo or setHi: the value at $p replaces the bound when
+ * column-state.ts: one half of updateBounds, then setLo or setHi: the value at $p replaces the bound when
  * there is none, or when it orders before it (lt_s; after it: gt_s), decided by the first 8 bytes'
  * keys and only when they tie by the bytes. (A chain of branches: i32.and and i32.or evaluate both
  * sides, and the byte comparison is the costly side.)
@@ -219,7 +219,7 @@ function field() {
             (br $next)))`;
 }
 
-/** The hash of the $len bytes at $p into $h (stats.ts: hashKey, mixed), its first words into $w0 $w1 $w2. */
+/** The hash of the $len bytes at $p into $h (column-state.ts: hashKey, mixed), its first words into $w0 $w1 $w2. */
 function hashWords() {
   // Words 0..2 in line (most values are 12 bytes or shorter), then a loop for the rest.
   const word = (n, into) => `(local.set $w (i32.load offset=${4 * n} ${get('p')}))
@@ -229,7 +229,7 @@ function hashWords() {
             ${step}`;
   const step = `(local.set $h (i32.mul (i32.xor ${get('h')} ${get('w')}) ${i32(HASH_MUL)}))
             (local.set $h (i32.xor ${get('h')} (i32.shr_u ${get('h')} (i32.const 15))))`;
-  return `;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
+  return `;; The hash (column-state.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor ${i32(HASH_SEED)} ${get('len')}))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
@@ -293,7 +293,7 @@ export function wat() {
   (global $m (mut f64) (f64.const 0))
   (global $scale (mut i32) (i32.const 0))
 
-  ;; stats.ts: isIsoDatetime, step for step.
+  ;; value-kind.ts: isIsoDatetime, step for step.
   (func $isDate (param $p i32) (param $n i32) (result i32)
     (local $e i32) (local $i i32) (local $century i32) (local $yy i32) (local $month i32) (local $day i32)
     (local $year i32) (local $c i32) (local $a i32) (local $b i32) (local $fs i32) (local $ta i32) (local $tb i32)
@@ -359,7 +359,7 @@ export function wat() {
     ${two('a', get('i'))}
     (i32.and (i32.ge_s ${get('a')} (i32.const 0)) (i32.le_s ${get('a')} (i32.const 59))))
 
-  ;; stats.ts: classifyNumber, up to its general conversion (Number of the text), where it returns
+  ;; value-kind.ts: classifyNumber, up to its general conversion (Number of the text), where it returns
   ;; ${ESCAPE} instead. Sets $x, $m and $scale for a number.
   (func $number (param $p i32) (param $n i32) (result i32)
     (local $i i32) (local $e i32) (local $c i32) (local $neg i32) (local $digitsValue i64) (local $mant f64) (local $sig i32) (local $digits i32)
@@ -420,7 +420,7 @@ export function wat() {
     ;; Below 10^15 here, so within the safe integers: an integer unless written with . or e.
     (i32.or ${get('dot')} ${get('exp')}))
 
-  ;; stats.ts: classifyValue (with isBoolean), or ${ESCAPE}.
+  ;; value-kind.ts: classifyValue (with isBoolean), or ${ESCAPE}.
   (func $classify (param $p i32) (param $n i32) (result i32)
     (local $c i32) (local $w i32)
     (local.set $c (i32.load8_u ${get('p')}))
@@ -440,7 +440,7 @@ export function wat() {
         (i32.and (i32.eq ${get('w')} ${i32(0x736c6166)}) (i32.eq (i32.or (i32.load8_u offset=4 ${get('p')}) (i32.const 0x20)) (i32.const 0x65)))))))
     (i32.const ${K_TEXT}))
 
-  ;; stats.ts: compareBytes (only the sign counts).
+  ;; value-bytes.ts: compareBytes (only the sign counts).
   (func $cmp (param $a i32) (param $an i32) (param $b i32) (param $bn i32) (result i32)
     (local $n i32) (local $j i32) (local $x i64) (local $d i32)
     (local.set $n (select ${get('an')} ${get('bn')} (i32.lt_u ${get('an')} ${get('bn')})))
@@ -471,7 +471,7 @@ export function wat() {
             (if (i32.eq ${get('kd')} (i32.const ${ESCAPE})) (then (return ${get('i')})))))
           ;; From here on the value is this slot's.
           ${addF(get('slot'), S.count, f64(1))}
-          ;; stats.ts: updateSketch.
+          ;; value-sketch.ts: updateSketch.
           (local.set $r (i32.add ${get('slot')} (i32.shr_u ${get('h')} (i32.const ${32 - Math.log2(SKETCH_REGISTERS)}))))
           (local.set $j (i32.xor ${get('h')} ${i32(0x5bd1e995)}))
           ${mix('j')}
@@ -483,7 +483,7 @@ export function wat() {
               (local.set $o (i32.add ${get('slot')} (i32.shl ${get('kd')} (i32.const 3))))
               ${addF(get('o'), S.kinds, f64(1))}
               (if (i32.le_u ${get('kd')} (i32.const 1)) (then
-                ;; stats.ts: addNumber, DecimalSums.add.
+                ;; column-state.ts: addNumber; exact-sum.ts: DecimalSums.add.
                 (f64.store offset=${S.min} ${get('slot')} (f64.min (f64.load offset=${S.min} ${get('slot')}) (global.get $x)))
                 (f64.store offset=${S.max} ${get('slot')} (f64.max (f64.load offset=${S.max} ${get('slot')}) (global.get $x)))
                 (local.set $o (i32.add ${get('slot')} (i32.mul (global.get $scale) (i32.const ${8 * ACC_PER_SCALE}))))
@@ -512,7 +512,7 @@ export function wat() {
               (if (i32.or (i32.and ${get('bits')} (i32.const 8)) (i32.and ${get('bits')} (i32.sub ${get('bits')} (i32.const 1)))) (then
                 (local.set $text (i32.const 1))
                 (i32.store offset=${S.text} ${get('slot')} (i32.const 1))))))
-          ;; stats.ts: updateBounds, setLo, setHi.
+          ;; column-state.ts: updateBounds, setLo, setHi.
           (local.set $k0 ${orderKey('w0')})
           (local.set $k1 ${orderKey('w1')})
           ${bound('lo', 'lt_s', 'loLen', 'loK0', 'loK1', 'lo')}
@@ -547,7 +547,7 @@ export function wat() {
         (param $fk i32) (param $W i32) (param $f i32) (param $i0 i32) (param $i1 i32) (result i32)
     (local $i i32) (local $k i32) (local $s i32) (local $len i32) (local $p i32) (local $h i32) (local $w i32)
     (local $w0 i32) (local $w1 i32) (local $w2 i32) (local $j i32) (local $out i32) (local $kd i32) (local $e i32) (local $at i32)
-    ${eachValue(12, `          ;; stats.ts: ValueCounter.find, over the keys JavaScript registered (entries of 24 bytes:
+    ${eachValue(12, `          ;; value-counter.ts: ValueCounter.find, over the keys JavaScript registered (entries of 24 bytes:
           ;; hash, length + 1, three words, the key's index; counts after the entries).
           (local.set $e (i32.and ${get('h')} ${get('mask')}))
           (loop $probe

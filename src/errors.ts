@@ -10,42 +10,43 @@ import { describeOperation, describeSystemError, pathOfSystemError } from './io/
 
 /** Usage errors: the command line or the options are wrong. The CLI exits 2. */
 export const USAGE_CODES = [
-  'ERR_OPTION',
-  'ERR_UNKNOWN_OPTION',
-  'ERR_MISSING_ARGUMENT',
-  'ERR_UNKNOWN_COMMAND',
+  'RDK_OPTION',
+  'RDK_UNKNOWN_OPTION',
+  'RDK_MISSING_ARGUMENT',
+  'RDK_UNKNOWN_COMMAND',
 ] as const;
 
 /** Data and environment errors: the inputs or outputs are not as they must be. The CLI exits 1. */
 export const DATA_CODES = [
-  'ERR_INPUT_NOT_FOUND',
-  'ERR_INPUT_EMPTY',
-  'ERR_HEADER_ONLY',
-  'ERR_HEADER_MISMATCH',
-  'ERR_DUPLICATE_HEADER',
-  'ERR_UNKNOWN_COLUMN',
-  'ERR_FIELD_COUNT',
-  'ERR_UNTERMINATED_QUOTE',
-  'ERR_STRAY_QUOTE',
-  'ERR_INVALID_JSON',
-  'ERR_NOT_NUMERIC',
-  'ERR_TOLERANCE',
-  'ERR_SPLIT_SIZES',
-  'ERR_OUTPUT_EXISTS',
-  'ERR_OUTPUT_LOCKED',
-  'ERR_FORCE_REFUSED',
-  'ERR_FIELD_TOO_LONG',
-  'ERR_MANIFEST',
-  'ERR_VERIFY_FAILED',
-  'ERR_IO',
-  'ERR_PERMISSION',
-  'ERR_DISK_FULL',
-  'ERR_NO_SPACE',
-  'ERR_TOO_MANY_OPEN_FILES',
-  'ERR_PLAN',
-  'ERR_INPUT_CHANGED',
-  'ERR_TASKS_INCOMPLETE',
-  'ERR_INTERNAL',
+  'RDK_INPUT_NOT_FOUND',
+  'RDK_INPUT_EMPTY',
+  'RDK_INPUT_FORMAT',
+  'RDK_HEADER_ONLY',
+  'RDK_HEADER_MISMATCH',
+  'RDK_DUPLICATE_HEADER',
+  'RDK_UNKNOWN_COLUMN',
+  'RDK_FIELD_COUNT',
+  'RDK_UNTERMINATED_QUOTE',
+  'RDK_STRAY_QUOTE',
+  'RDK_INVALID_JSON',
+  'RDK_NOT_NUMERIC',
+  'RDK_TOLERANCE',
+  'RDK_SPLIT_SIZES',
+  'RDK_OUTPUT_EXISTS',
+  'RDK_OUTPUT_LOCKED',
+  'RDK_FORCE_REFUSED',
+  'RDK_FIELD_TOO_LONG',
+  'RDK_MANIFEST',
+  'RDK_VERIFY_FAILED',
+  'RDK_IO',
+  'RDK_PERMISSION',
+  'RDK_DISK_FULL',
+  'RDK_NO_SPACE',
+  'RDK_TOO_MANY_OPEN_FILES',
+  'RDK_PLAN',
+  'RDK_INPUT_CHANGED',
+  'RDK_TASKS_INCOMPLETE',
+  'RDK_INTERNAL',
 ] as const;
 
 export type RowdeckErrorCode = (typeof USAGE_CODES)[number] | (typeof DATA_CODES)[number];
@@ -94,7 +95,7 @@ export function toWire(err: unknown): WireError {
     return { code: e.code, message: e.message, details: e.details };
   }
   const e = err instanceof Error ? err : new Error(String(err));
-  return { code: 'ERR_INTERNAL', message: e.message, details: { stack: e.stack } };
+  return { code: 'RDK_INTERNAL', message: e.message, details: { stack: e.stack } };
 }
 
 export function fromWire(w: WireError): RowdeckError {
@@ -103,15 +104,15 @@ export function fromWire(w: WireError): RowdeckError {
 
 /**
  * Wraps a Node system error met while reading an input (ENOENT, EACCES …) into a coded error
- * naming the path: a missing input is ERR_INPUT_NOT_FOUND, anything else as `systemError`.
+ * naming the path: a missing input is RDK_INPUT_NOT_FOUND, anything else as `systemError`.
  * `doing` names the operation ("reading", "creating a spill file" …); only "opening"/"reading"
- * (an input) turn ENOENT into ERR_INPUT_NOT_FOUND.
+ * (an input) turn ENOENT into RDK_INPUT_NOT_FOUND.
  */
 export function ioError(err: unknown, path: string, doing: string): RowdeckError {
   if (err instanceof RowdeckError) return err;
   const e = err as NodeJS.ErrnoException;
   if (e?.code === 'ENOENT' && (doing === 'opening' || doing === 'reading')) {
-    return new RowdeckError('ERR_INPUT_NOT_FOUND', `${path}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: path });
+    return new RowdeckError('RDK_INPUT_NOT_FOUND', `${path}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: path });
   }
   return systemError(err, path, doing);
 }
@@ -119,14 +120,14 @@ export function ioError(err: unknown, path: string, doing: string): RowdeckError
 /**
  * Any operating-system failure as a coded error: `path: <operation> failed: <reason>. <what to
  * do>`, with the errno, the operation and the reason in `details`. Not a system error (no errno):
- * ERR_IO with the error's message.
+ * RDK_IO with the error's message.
  */
 export function systemError(err: unknown, path: string, operation: string): RowdeckError {
   if (err instanceof RowdeckError) return err;
   const m = describeSystemError(err);
   if (!m) {
     const text = err instanceof Error ? err.message : String(err);
-    return new RowdeckError('ERR_IO', `${path}: ${operation} failed: ${text}`, { file: path, operation });
+    return new RowdeckError('RDK_IO', `${path}: ${operation} failed: ${text}`, { file: path, operation });
   }
   // A rename names both ends: say the other one where it is not the path given.
   const sys = (err as NodeJS.ErrnoException).syscall;

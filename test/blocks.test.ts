@@ -225,6 +225,6 @@ describe('reading in blocks gives what a sequential read gives', () => {
 
   it('a header followed by nothing but blank lines is refused as header-only', async () => {
     const text = 'a,b\n' + '\n'.repeat(500);
-    await expect(readBlocks(text, {}, { block: 32, lookahead: 16, lanes: 2, seed: 'h' })).rejects.toMatchObject({ code: 'ERR_HEADER_ONLY' });
+    await expect(readBlocks(text, {}, { block: 32, lookahead: 16, lanes: 2, seed: 'h' })).rejects.toMatchObject({ code: 'RDK_HEADER_ONLY' });
   });
 });

@@ -90,15 +90,15 @@ describe('version and help', () => {
   });
 });
 
-describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', () => {
+describe('usage errors exit 2, print RDK_... on stderr and nothing on stdout', () => {
   const cases: [string, string[], string, RegExp][] = [
-    ['an unknown command', ['frobnicate'], 'ERR_UNKNOWN_COMMAND', /frobnicate/],
-    ['an unknown option', ['shuffle', 'readings.csv', '--out', 'out-u1', '--shuffle-harder'], 'ERR_UNKNOWN_OPTION', /--shuffle-harder/],
-    ['a non-numeric --partitions', ['shuffle', 'readings.csv', '--out', 'out-u2', '--partitions', 'x'], 'ERR_OPTION', /partitions/],
-    ['--partitions 0', ['shuffle', 'readings.csv', '--out', 'out-u3', '--partitions', '0'], 'ERR_OPTION', /partitions/],
-    ['--tolerance -1', ['shuffle', 'readings.csv', '--out', 'out-u4', '--tolerance', '-1'], 'ERR_OPTION', /tolerance/],
-    ['--tolerance=-1', ['shuffle', 'readings.csv', '--out', 'out-u5', '--tolerance=-1'], 'ERR_OPTION', /tolerance/],
-    ['a missing --out', ['shuffle', 'readings.csv'], 'ERR_MISSING_ARGUMENT', /--out/],
+    ['an unknown command', ['frobnicate'], 'RDK_UNKNOWN_COMMAND', /frobnicate/],
+    ['an unknown option', ['shuffle', 'readings.csv', '--out', 'out-u1', '--shuffle-harder'], 'RDK_UNKNOWN_OPTION', /--shuffle-harder/],
+    ['a non-numeric --partitions', ['shuffle', 'readings.csv', '--out', 'out-u2', '--partitions', 'x'], 'RDK_OPTION', /partitions/],
+    ['--partitions 0', ['shuffle', 'readings.csv', '--out', 'out-u3', '--partitions', '0'], 'RDK_OPTION', /partitions/],
+    ['--tolerance -1', ['shuffle', 'readings.csv', '--out', 'out-u4', '--tolerance', '-1'], 'RDK_OPTION', /tolerance/],
+    ['--tolerance=-1', ['shuffle', 'readings.csv', '--out', 'out-u5', '--tolerance=-1'], 'RDK_OPTION', /tolerance/],
+    ['a missing --out', ['shuffle', 'readings.csv'], 'RDK_MISSING_ARGUMENT', /--out/],
   ];
   for (const [what, args, code, mentions] of cases) {
     it(`${what}`, () => {
@@ -113,12 +113,25 @@ describe('usage errors exit 2, print ERR_... on stderr and nothing on stdout', (
   }
 });
 
+describe('the fold column already there: named as the command line names it', () => {
+  it.each([
+    ['a CSV header', 'fold-taken.csv', 'reading_id,fold\n1,a\n2,b\n', 'Invalid option --fold-column: the input already has a column named "fold". Name the added column otherwise (--fold-column NAME).'],
+    ['a JSON Lines record (found by the reader)', 'fold-taken.jsonl', '{"id":1}\n{"id":2,"fold":0}\n', 'fold-taken.jsonl:2: this record already has a key "fold", the name of the fold column the output adds (it would hold two). Name the fold column otherwise (--fold-column NAME).'],
+  ])('%s', (_what, name, text, message) => {
+    writeFileSync(join(dir, name), text);
+    const r = runCli(['shuffle', name, '--out', 'out-fold', '--folds', '2', '--threads', '0']);
+    expect(r.status).toBe(2);
+    expect(r.stderr).toBe(`rowdeck: error RDK_OPTION: ${message}\nRun with --help for usage.\n`);
+    expect(leftovers()).toEqual([]);
+  });
+});
+
 describe('data errors exit 1 and leave no output folder', () => {
   it('a missing input file', () => {
     const r = runCli(['shuffle', 'no-such-readings.csv', '--out', 'out-d1', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_INPUT_NOT_FOUND');
+    expect(r.stderr).toContain('RDK_INPUT_NOT_FOUND');
     expect(r.stderr).toContain('no-such-readings.csv');
     expect(leftovers()).toEqual([]);
   });
@@ -131,7 +144,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const r = runCli(['shuffle', 'bad.csv', '--out', 'out-d2', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_FIELD_COUNT');
+    expect(r.stderr).toContain('RDK_FIELD_COUNT');
     expect(r.stderr).toMatch(/bad\.csv:7\b/);
     expect(r.stderr).not.toMatch(/\n\s+at /);
     expect(leftovers()).toEqual([]);
@@ -144,7 +157,7 @@ describe('data errors exit 1 and leave no output folder', () => {
     const r = runCli(['shuffle', 'open.csv', '--out', 'out-d3', '--seed', 's']);
     expect(r.status, r.stderr).toBe(1);
     expect(r.stdout).toBe('');
-    expect(r.stderr).toContain('ERR_UNTERMINATED_QUOTE');
+    expect(r.stderr).toContain('RDK_UNTERMINATED_QUOTE');
     expect(r.stderr).toMatch(/open\.csv:3\b/);
     expect(leftovers()).toEqual([]);
   });
@@ -241,6 +254,27 @@ describe('a successful run', () => {
   });
 });
 
+describe('warnings and what the summary says was kept to', () => {
+  it('--group with fewer groups than parts: a warning line before the summary, the sizes achieved after it', () => {
+    // Three fault classes as groups over eight partitions: five parts get none.
+    const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-few-groups', '--partitions', '8', '--group', 'fault', '--seed', 'g', '--threads', '0']);
+    expect(r.status, r.stderr).toBe(0);
+    const lines = r.stderr.trimEnd().split('\n');
+    expect(lines[0]).toMatch(/^rowdeck: warning: --group fault: 3 groups for 8 parts: 5 parts get no records \(part-\d{5}\.csv, part-\d{5}\.csv, part-\d{5}\.csv, …\); part sizes run from 0 to \d+ records against a target of 38 each/);
+    expect(lines[1]).toMatch(/^rowdeck: 300 records -> 8 part\(s\) in .*, whole groups of "fault"\)\.$/);
+    expect(lines[2]).toMatch(/^rowdeck: part sizes 0 to \d+ records \(target 38 each\): whole groups are dealt, so sizes follow them\.$/);
+    // --quiet keeps the warning: it is about the result.
+    const q = runCli(['shuffle', 'readings.csv', '--out', 'ok-few-groups-q', '--partitions', '8', '--group', 'fault', '--seed', 'g', '--threads', '0', '--quiet']);
+    expect(q.stderr.trimEnd().split('\n')).toEqual([lines[0]]);
+  });
+
+  it('stratified exact dealing: the classes are kept within --tolerance, said with the deviation', () => {
+    const r = runCli(['shuffle', 'readings.csv', '--out', 'ok-kept', '--partitions', '3', '--stratify', 'fault', '--tolerance', '0.2', '--seed', 'k', '--threads', '0']);
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stderr).toMatch(/, classes within --tolerance 0\.2: max class deviation \d+\.\d\d%\)\.\n$/);
+  });
+});
+
 describe('terminal behaviour', () => {
   // util-linux `script` runs the command on a pseudo-terminal; skipped where it is missing.
   const probe = spawnSync('script', ['--version'], { encoding: 'utf8' });
@@ -267,5 +301,45 @@ describe('terminal behaviour', () => {
     expect(stderr).not.toMatch(/\n\s+at /);
     expect(stderr).not.toMatch(/EPIPE|internal error/);
     expect(code).toBe(0);
+  });
+});
+
+describe('interrupted', () => {
+  /**
+   * Runs `args` reading a standard input that never ends, sends SIGINT after `delay` ms, and
+   * returns stderr and how the process ended. A signal that lands before the command has started
+   * (node still loading) ends it silently: tried again with a longer wait.
+   */
+  async function interrupt(args: string[]): Promise<{ stderr: string; signal: NodeJS.Signals | null }> {
+    let last = { stderr: '', signal: null as NodeJS.Signals | null };
+    for (const delay of [1000, 2500, 6000]) {
+      const child = spawn(process.execPath, [CLI, ...args], { cwd: dir, stdio: ['pipe', 'ignore', 'pipe'] });
+      // A first line, so the command is past its start and waiting for more of standard input.
+      child.stdin.write('reading_id,fault\n1,none\n');
+      let stderr = '';
+      child.stderr.setEncoding('utf8');
+      child.stderr.on('data', (s: string) => (stderr += s));
+      await new Promise((res) => setTimeout(res, delay));
+      child.kill('SIGINT');
+      const signal = await new Promise<NodeJS.Signals | null>((res) => child.on('close', (_c, sig) => res(sig)));
+      child.stdin.destroy();
+      last = { stderr, signal };
+      if (stderr !== '') break;
+    }
+    return last;
+  }
+
+  it('Ctrl-C (SIGINT) during profile prints one line and ends by the signal', async () => {
+    const r = await interrupt(['profile', '-', '--format', 'csv']);
+    expect(r.stderr).toBe('rowdeck: profile stopped by SIGINT.\n');
+    expect(r.signal).toBe('SIGINT');
+  });
+
+  it('during shuffle, the line of its own cleanup, once', async () => {
+    const r = await interrupt(['shuffle', '-', '--format', 'csv', '--out', 'never-interrupted', '--threads', '0']);
+    expect(r.stderr).toMatch(/^rowdeck: stopped by SIGINT; removed \S+\.rowdeck-spill-/);
+    expect(r.stderr.trimEnd().split('\n')).toHaveLength(1);
+    expect(r.signal).toBe('SIGINT');
+    expect(leftovers()).toEqual([]);
   });
 });

@@ -94,10 +94,10 @@ describe('the task index', () => {
   });
 
   it('none set, out of range, or not a number: a usage error naming the variables and the range', () => {
-    expect(() => resolveTaskIndex(undefined, 4, 'scatter', {})).toThrow(expect.objectContaining({ code: 'ERR_MISSING_ARGUMENT', message: expect.stringContaining('SLURM_ARRAY_TASK_ID, JOB_COMPLETION_INDEX, AWS_BATCH_JOB_ARRAY_INDEX, PBS_ARRAY_INDEX, SGE_TASK_ID, LSB_JOBINDEX') }));
-    expect(() => resolveTaskIndex(undefined, 4, 'scatter', { JOB_COMPLETION_INDEX: '4' })).toThrow(expect.objectContaining({ code: 'ERR_OPTION', message: expect.stringContaining('0 to 3') }));
-    expect(() => resolveTaskIndex(undefined, 4, 'scatter', { LSB_JOBINDEX: '0' })).toThrow(expect.objectContaining({ code: 'ERR_OPTION', message: expect.stringContaining('counted from 1') }));
-    expect(() => resolveTaskIndex('x', 4, 'scatter', {})).toThrow(expect.objectContaining({ code: 'ERR_OPTION' }));
+    expect(() => resolveTaskIndex(undefined, 4, 'scatter', {})).toThrow(expect.objectContaining({ code: 'RDK_MISSING_ARGUMENT', message: expect.stringContaining('SLURM_ARRAY_TASK_ID, JOB_COMPLETION_INDEX, AWS_BATCH_JOB_ARRAY_INDEX, PBS_ARRAY_INDEX, SGE_TASK_ID, LSB_JOBINDEX') }));
+    expect(() => resolveTaskIndex(undefined, 4, 'scatter', { JOB_COMPLETION_INDEX: '4' })).toThrow(expect.objectContaining({ code: 'RDK_OPTION', message: expect.stringContaining('0 to 3') }));
+    expect(() => resolveTaskIndex(undefined, 4, 'scatter', { LSB_JOBINDEX: '0' })).toThrow(expect.objectContaining({ code: 'RDK_OPTION', message: expect.stringContaining('counted from 1') }));
+    expect(() => resolveTaskIndex('x', 4, 'scatter', {})).toThrow(expect.objectContaining({ code: 'RDK_OPTION' }));
   });
 });
 
@@ -245,7 +245,7 @@ describe('tasks as processes', () => {
     const left = [0, 1, 2].find((i) => !existsSync(join(work, 'gather', String(i).padStart(4, '0'), 'done.json')))!;
     const refused = await rowdeck(['finish', work]);
     expect(refused.status).toBe(1);
-    expect(refused.stderr).toContain('ERR_TASKS_INCOMPLETE');
+    expect(refused.stderr).toContain('RDK_TASKS_INCOMPLETE');
     expect(refused.stderr).toContain(`gather task ${left} missing`);
     expect(refused.stderr).toContain(`--stage' 'gather' --index ${left}`);
     expect(existsSync(out)).toBe(false);
@@ -269,21 +269,29 @@ describe('honest errors', () => {
   it('stdin, --temp-dir, a work folder in use, an input changed since the plan, another version, no such folder', async () => {
     const work = join(dir, 'err-work');
     const out = join(dir, 'err-out');
-    await expect(planCluster({ inputs: ['-'], out, work, tasks: 2 })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('standard input') });
-    await expect(planCluster({ inputs: [small], out, work, tasks: 2, tempDir: dir })).rejects.toMatchObject({ code: 'ERR_OPTION' });
-    await expect(planCluster({ inputs: [small], out, work, tasks: 2, partitions: 0 })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('partitions') });
+    await expect(planCluster({ inputs: ['-'], out, work, tasks: 2 })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('standard input') });
+    await expect(planCluster({ inputs: [small], out, work, tasks: 2, tempDir: dir })).rejects.toMatchObject({ code: 'RDK_OPTION' });
+    await expect(planCluster({ inputs: [small], out, work, tasks: 2, partitions: 0 })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('partitions') });
     const copy = join(dir, 'changing.csv');
     writeFileSync(copy, readFileSync(small));
     await planCluster({ inputs: [copy], out, work, tasks: 2, threads: 0 });
-    await expect(planCluster({ inputs: [copy], out, work, tasks: 2 })).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS' });
+    await expect(planCluster({ inputs: [copy], out, work, tasks: 2 })).rejects.toMatchObject({ code: 'RDK_OUTPUT_EXISTS' });
+    // No index from anywhere: a usage error (exit 2) naming the scheduler variables.
+    const noIndex = await rowdeck(['task', work, '--stage', 'scatter'], { env: { SLURM_ARRAY_TASK_ID: '', JOB_COMPLETION_INDEX: '' } });
+    expect(noIndex.status).toBe(2);
+    expect(noIndex.stderr).toContain('JOB_COMPLETION_INDEX');
+    const outOfRange = await rowdeck(['task', work, '--stage', 'gather'], { env: { SGE_TASK_ID: '99' } });
+    expect(outOfRange.status).toBe(2);
+    expect(outOfRange.stderr).toContain('SGE_TASK_ID');
     utimesSync(copy, new Date(), new Date(Date.now() + 5000));
-    await expect(runScatterTask(loadPlan(work), 0)).rejects.toMatchObject({ code: 'ERR_INPUT_CHANGED', message: expect.stringContaining('make a new plan') });
+    await expect(runScatterTask(loadPlan(work), 0)).rejects.toMatchObject({ code: 'RDK_INPUT_CHANGED', message: expect.stringContaining('make a new plan') });
     const planFile = join(work, 'plan.json');
     writeFileSync(planFile, readFileSync(planFile, 'utf8').replace(/"tool": "[^"]+"/, '"tool": "0.0.1"'));
-    expect(() => loadPlan(work)).toThrow(expect.objectContaining({ code: 'ERR_PLAN', message: expect.stringContaining('rowdeck 0.0.1') }));
-    expect(() => loadPlan(join(dir, 'nowhere'))).toThrow(expect.objectContaining({ code: 'ERR_INPUT_NOT_FOUND' }));
-    const r = await rowdeck(['task', work, '--stage', 'scatter'], { env: { SLURM_ARRAY_TASK_ID: '' } });
-    expect(r.status).toBe(1);
+    expect(() => loadPlan(work)).toThrow(expect.objectContaining({ code: 'RDK_PLAN', message: expect.stringContaining('rowdeck 0.0.1') }));
+    expect(() => loadPlan(join(dir, 'nowhere'))).toThrow(expect.objectContaining({ code: 'RDK_INPUT_NOT_FOUND' }));
+    const other = await rowdeck(['task', work, '--stage', 'scatter', '--index', '0']);
+    expect(other.status).toBe(1);
+    expect(other.stderr).toContain('RDK_PLAN');
   });
 });
 

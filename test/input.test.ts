@@ -11,7 +11,8 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
 import { detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
-import { fieldText, RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
+import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
+import { fieldText } from '../src/core/record-batch.js';
 import type { RecordBatch } from '../src/io/batch.js';
 
 let dir = '';
@@ -51,7 +52,7 @@ describe('detectFormat', () => {
     expect(detectFormat('x.jsonl.gz')).toBe('jsonl');
     expect(detectFormat('x.txt', 'tsv')).toBe('tsv');
     expect(detectFormat('-')).toBe('csv');
-    expect(() => detectFormat('x.txt')).toThrow(expect.objectContaining({ code: 'ERR_OPTION' }));
+    expect(() => detectFormat('x.txt')).toThrow(expect.objectContaining({ code: 'RDK_OPTION' }));
   });
 });
 
@@ -68,9 +69,9 @@ describe('openInput', () => {
     expect(await collectBytes(openInput(Readable.from([Buffer.from('x')])))).toBe('x');
     expect(await collectBytes(openInput(Readable.from([])))).toBe('');
   });
-  it('a missing file is ERR_INPUT_NOT_FOUND, damaged gzip is ERR_IO', async () => {
-    await expect(collectBytes(openInput(join(dir, 'nope.csv')))).rejects.toMatchObject({ code: 'ERR_INPUT_NOT_FOUND' });
-    await expect(collectBytes(openInput(join(dir, 'broken.csv.gz')))).rejects.toMatchObject({ code: 'ERR_IO' });
+  it('a missing file is RDK_INPUT_NOT_FOUND, damaged gzip is RDK_IO', async () => {
+    await expect(collectBytes(openInput(join(dir, 'nope.csv')))).rejects.toMatchObject({ code: 'RDK_INPUT_NOT_FOUND' });
+    await expect(collectBytes(openInput(join(dir, 'broken.csv.gz')))).rejects.toMatchObject({ code: 'RDK_IO' });
   });
 });
 
@@ -83,9 +84,9 @@ describe('readRecords', () => {
       { input: 2, value: 'spike' },
     ]);
   });
-  it('a second input with other columns is ERR_HEADER_MISMATCH naming both files', async () => {
+  it('a second input with other columns is RDK_HEADER_MISMATCH naming both files', async () => {
     const err = await readValues([join(dir, 'a.csv'), join(dir, 'other.csv')]).catch((e: unknown) => e);
-    expect(err).toMatchObject({ code: 'ERR_HEADER_MISMATCH' });
+    expect(err).toMatchObject({ code: 'RDK_HEADER_MISMATCH' });
     const msg = (err as Error).message;
     expect(msg).toContain(join(dir, 'other.csv'));
     expect(msg).toContain(join(dir, 'a.csv'));

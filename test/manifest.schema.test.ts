@@ -52,7 +52,7 @@ describe('real manifests validate', () => {
     ['folds', () => run('folds', { partitions: 3, folds: 4, stratify: 'fault' })],
     ['splits', () => run('splits', { split: 'train=1000,valid=300,test=*', stratify: 'fault', folds: 2 })],
     ['group', () => run('group', { partitions: 2, folds: 3, group: 'sensor', stratify: 'fault', tolerance: 2 })],
-    ['hash', () => run('hash', { partitions: 3, assign: 'hash', key: 'id', tolerance: 2 })],
+    ['hash', () => run('hash', { partitions: 3, assign: 'hash', key: 'id' })],
     ['bins', () => run('bins', { partitions: 2, stratify: 'reading:bins=4,fault', tolerance: 1 })],
     ['gzip', () => run('gzip', { partitions: 2, gzip: true, stratify: 'fault' })],
     ['excluded values', () => run('excluded', { partitions: 2, stratify: 'reading:bins=3,fault', folds: 2, excludeValues: true, tolerance: 1 })],

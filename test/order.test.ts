@@ -207,7 +207,7 @@ describe('groups and keys decide the part, not the place in it', () => {
 
   it('--order grouped needs --group or --assign hash', async () => {
     const input = writeSorted('grouped-bad.csv', 100, [['calm', 1]]);
-    await expect(shuffle({ inputs: [input], out: join(dir, 'gb'), order: 'grouped' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'gb'), order: 'grouped' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
   });
 });
 
@@ -368,7 +368,7 @@ describe('--order spread, end to end', () => {
 
   it('needs --stratify', async () => {
     const input = writeSorted('spread-bad.csv', 100, [['calm', 1]]);
-    await expect(shuffle({ inputs: [input], out: join(dir, 'sb'), order: 'spread' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'sb'), order: 'spread' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
   });
 
   it('with --group and with JSON Lines and gzip output', async () => {

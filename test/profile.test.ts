@@ -419,6 +419,21 @@ describe('independent of the thread count', () => {
   });
 });
 
+describe('distinct values', () => {
+  it('an estimate is never more than the values counted, and is marked approximate (~)', async () => {
+    // 50,000 different ids: past the exact table (1,000 values) the distinct count is estimated;
+    // for these values the estimate itself comes to 50,566, more than there are values.
+    const file = join(dir, 'ids.csv');
+    writeFileSync(file, `id\n${Array.from({ length: 50000 }, (_, i) => `S${i}`).join('\n')}\n`);
+    const [c] = (await profile({ inputs: [file], threads: 0 })).columns;
+    expect(c!.approximate).toBe(true);
+    expect(c!.count).toBe(50000);
+    expect(c!.distinct).toBe(50000);
+    const text = runCli(['profile', file]);
+    expect(text.stdout).toMatch(/^id\s+text\s+50,000\s+0\s+~50,000\s/m);
+  });
+});
+
 describe('warnings', () => {
   // 97 'ok' and 3 'rare' records.
   let file: string;
@@ -445,7 +460,7 @@ describe('warnings', () => {
     expect(suggested).toBeGreaterThanOrEqual(1);
     expect(suggested).toBeLessThan(5);
     // The planned setting fails in shuffle with the tolerance error the warning foretold.
-    await expect(shuffle({ inputs: [file], out: join(dir, 'out-fail'), partitions: 5, stratify: 'fault' })).rejects.toMatchObject({ code: 'ERR_TOLERANCE' });
+    await expect(shuffle({ inputs: [file], out: join(dir, 'out-fail'), partitions: 5, stratify: 'fault' })).rejects.toMatchObject({ code: 'RDK_TOLERANCE' });
     // The suggested partition count and the suggested tolerance both succeed.
     const ok = await shuffle({ inputs: [file], out: join(dir, 'out-ok'), partitions: suggested, stratify: 'fault' });
     expect(ok.balance.maxDeviation).toBeLessThanOrEqual(0.5);
@@ -475,7 +490,7 @@ describe('warnings', () => {
     const p = await profile({ inputs: [f], onBadRecord: 'skip', threads: 0 });
     expect(p.records).toBe(2);
     expect(p.rejected).toBe(1);
-    expect(p.rejects).toEqual([expect.objectContaining({ file: f, line: 3, code: 'ERR_FIELD_COUNT' })]);
+    expect(p.rejects).toEqual([expect.objectContaining({ file: f, line: 3, code: 'RDK_FIELD_COUNT' })]);
     expect(p.warnings.some((w) => w.code === 'REJECTED_RECORDS')).toBe(true);
   });
 });
@@ -503,14 +518,14 @@ describe('--exclude-values', () => {
 });
 
 describe('options', () => {
-  it('rejects invalid options with ERR_OPTION and the option name', async () => {
-    await expect(profile({ inputs: [sensors], folds: 1 })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('"folds"') });
-    await expect(profile({ inputs: [sensors], onBadRecord: 'quarantine' as 'skip' })).rejects.toMatchObject({ code: 'ERR_OPTION', message: expect.stringContaining('"onBadRecord"') });
+  it('rejects invalid options with RDK_OPTION and the option name', async () => {
+    await expect(profile({ inputs: [sensors], folds: 1 })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('"folds"') });
+    await expect(profile({ inputs: [sensors], onBadRecord: 'quarantine' as 'skip' })).rejects.toMatchObject({ code: 'RDK_OPTION', message: expect.stringContaining('"onBadRecord"') });
     await expect(profile({ inputs: [] })).rejects.toBeInstanceOf(RowdeckError);
   });
 
   it('names an unknown stratify column and suggests the closest', async () => {
-    await expect(profile({ inputs: [sensors], stratify: 'faults', threads: 0 })).rejects.toMatchObject({ code: 'ERR_UNKNOWN_COLUMN', message: expect.stringContaining('Did you mean "fault"?') });
+    await expect(profile({ inputs: [sensors], stratify: 'faults', threads: 0 })).rejects.toMatchObject({ code: 'RDK_UNKNOWN_COLUMN', message: expect.stringContaining('Did you mean "fault"?') });
   });
 });
 
@@ -552,12 +567,12 @@ describe('rowdeck profile (CLI)', () => {
   });
 
   it.each([
-    { args: ['profile'], status: 2, err: 'ERR_MISSING_ARGUMENT' },
-    { args: ['profile', 'sensors.csv', '--bogus'], status: 2, err: 'ERR_UNKNOWN_OPTION' },
-    { args: ['profile', 'sensors.csv', '--partitions', 'x'], status: 2, err: 'ERR_OPTION' },
-    { args: ['profile', 'sensors.csv', '--on-bad-record', 'quarantine'], status: 2, err: 'ERR_OPTION' },
-    { args: ['profile', 'nope.csv'], status: 1, err: 'ERR_INPUT_NOT_FOUND' },
-    { args: ['profile', 'sensors.csv', '--stratify', 'nope'], status: 1, err: 'ERR_UNKNOWN_COLUMN' },
+    { args: ['profile'], status: 2, err: 'RDK_MISSING_ARGUMENT' },
+    { args: ['profile', 'sensors.csv', '--bogus'], status: 2, err: 'RDK_UNKNOWN_OPTION' },
+    { args: ['profile', 'sensors.csv', '--partitions', 'x'], status: 2, err: 'RDK_OPTION' },
+    { args: ['profile', 'sensors.csv', '--on-bad-record', 'quarantine'], status: 2, err: 'RDK_OPTION' },
+    { args: ['profile', 'nope.csv'], status: 1, err: 'RDK_INPUT_NOT_FOUND' },
+    { args: ['profile', 'sensors.csv', '--stratify', 'nope'], status: 1, err: 'RDK_UNKNOWN_COLUMN' },
   ])('exit $status with $err for $args', ({ args, status, err }) => {
     const r = runCli(args);
     expect(r.status, r.stderr).toBe(status);

@@ -9,7 +9,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { parse } from 'csv-parse/sync';
 import seedrandom from 'seedrandom';
 import { readAll } from './reader.helpers.js';
-import { useStructuralScan } from '../src/io/reader.js';
+import { useStructuralScan } from '../src/io/csv-records.js';
 
 const ATOMS_PLAIN = ['a', 'b', 'z', '1', '7', ' ', 'é', '名', '🌡', '.', '-', '\r'];
 const ATOMS_QUOTED = [...ATOMS_PLAIN, ',', ';', '\t', '|', '""', '\n', '\r\n', '\r', "'"];
@@ -77,7 +77,7 @@ function ourParse(text: string, delim: string, cuts: number[]): { rows: string[]
     const r = readAll(text, { header: false, delimiter: delim, format: delim === '\t' ? 'tsv' : 'csv', wanted }, cuts);
     return { rows: r.fields.map((f) => f.map((v) => v ?? '<missing>')), raw: r.raw };
   } catch (err) {
-    if ((err as { code?: string }).code?.startsWith('ERR_')) return null;
+    if ((err as { code?: string }).code?.startsWith('RDK_')) return null;
     throw err;
   }
 }

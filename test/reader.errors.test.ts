@@ -16,63 +16,63 @@ function bothChunkings(input: string, opts: Parameters<typeof readError>[1] = {}
 }
 
 describe('fail fast (default)', () => {
-  it('ERR_FIELD_COUNT names the physical line after a multi-line record, and the column', () => {
+  it('RDK_FIELD_COUNT names the physical line after a multi-line record, and the column', () => {
     const input = 'id,note,v,w\n1,"two\nlines",3,4\n2,x,3,4,5\n';
     const e = bothChunkings(input);
-    expect(e.code).toBe('ERR_FIELD_COUNT');
+    expect(e.code).toBe('RDK_FIELD_COUNT');
     expect(e.details).toMatchObject({ file: 'data.csv', line: 4, column: 5 });
     expect(e.message).toBe('data.csv:4:5: record has 5 fields, the header has 4. Quote fields that contain "," or use --on-bad-record skip|quarantine to set such records aside.');
   });
-  it('ERR_FIELD_COUNT for too few fields, in a quoted record and in TSV', () => {
+  it('RDK_FIELD_COUNT for too few fields, in a quoted record and in TSV', () => {
     expect(bothChunkings('a,b,c\n"x",y\n').details).toMatchObject({ line: 2, column: 3 });
     const t = bothChunkings('a\tb\n1\n', { format: 'tsv' });
-    expect(t.code).toBe('ERR_FIELD_COUNT');
+    expect(t.code).toBe('RDK_FIELD_COUNT');
     expect(t.message).toContain('contain a tab');
   });
-  it('ERR_UNTERMINATED_QUOTE at EOF reports the line where the quoted field began', () => {
+  it('RDK_UNTERMINATED_QUOTE at EOF reports the line where the quoted field began', () => {
     const e = bothChunkings('a,b\n1,2\n3,"never closed\nmore\nand more\n');
-    expect(e.code).toBe('ERR_UNTERMINATED_QUOTE');
+    expect(e.code).toBe('RDK_UNTERMINATED_QUOTE');
     expect(e.details).toMatchObject({ line: 3, column: 2 });
     // The quote opens on a later physical line of a multi-line record.
     const f = bothChunkings('a,b\n"x\ny","\nz\n');
     expect(f.details).toMatchObject({ line: 3, column: 2 });
   });
-  it('ERR_STRAY_QUOTE for a quote inside an unquoted field and for text after a closing quote', () => {
+  it('RDK_STRAY_QUOTE for a quote inside an unquoted field and for text after a closing quote', () => {
     const a = bothChunkings('a,b\n1,ab"c\n');
-    expect(a.code).toBe('ERR_STRAY_QUOTE');
+    expect(a.code).toBe('RDK_STRAY_QUOTE');
     expect(a.details).toMatchObject({ line: 2, column: 2 });
     const b = bothChunkings('a,b\n"x\ny"z,1\n');
-    expect(b.code).toBe('ERR_STRAY_QUOTE');
+    expect(b.code).toBe('RDK_STRAY_QUOTE');
     expect(b.details).toMatchObject({ line: 3, column: 1 });
     expect(b.message).toMatch(/^data\.csv:3:1: text follows the closing quote/);
   });
-  it('ERR_INPUT_EMPTY for no bytes, a BOM only, or blank lines only', () => {
+  it('RDK_INPUT_EMPTY for no bytes, a BOM only, or blank lines only', () => {
     for (const input of ['', '\ufeff', '\n\r\n\n']) {
-      expect(bothChunkings(input).code).toBe('ERR_INPUT_EMPTY');
-      expect(readError(input, { header: false }).code).toBe('ERR_INPUT_EMPTY');
+      expect(bothChunkings(input).code).toBe('RDK_INPUT_EMPTY');
+      expect(readError(input, { header: false }).code).toBe('RDK_INPUT_EMPTY');
     }
   });
-  it('ERR_HEADER_ONLY with or without a final line end, and after blank lines', () => {
-    for (const input of ['a,b\n', 'a,b', 'a,b\r\n\r\n\n']) expect(bothChunkings(input).code).toBe('ERR_HEADER_ONLY');
+  it('RDK_HEADER_ONLY with or without a final line end, and after blank lines', () => {
+    for (const input of ['a,b\n', 'a,b', 'a,b\r\n\r\n\n']) expect(bothChunkings(input).code).toBe('RDK_HEADER_ONLY');
   });
-  it('ERR_DUPLICATE_HEADER names both positions', () => {
+  it('RDK_DUPLICATE_HEADER names both positions', () => {
     const e = bothChunkings('site,temp,"site"\n1,2,3\n');
-    expect(e.code).toBe('ERR_DUPLICATE_HEADER');
+    expect(e.code).toBe('RDK_DUPLICATE_HEADER');
     expect(e.details).toMatchObject({ line: 1, column: 3 });
     expect(e.message).toContain('columns 1 and 3');
   });
   it('a bad header fails whatever the policy', () => {
-    expect(readError('a,b"\n1,2\n', { onBadRecord: 'skip' }).code).toBe('ERR_STRAY_QUOTE');
+    expect(readError('a,b"\n1,2\n', { onBadRecord: 'skip' }).code).toBe('RDK_STRAY_QUOTE');
   });
-  it('ERR_UNKNOWN_COLUMN suggests the closest name and lists the columns', () => {
+  it('RDK_UNKNOWN_COLUMN suggests the closest name and lists the columns', () => {
     const e = bothChunkings('sensor_id,fault,temp_c\n1,none,3\n', { wanted: ['falut'] });
-    expect(e.code).toBe('ERR_UNKNOWN_COLUMN');
+    expect(e.code).toBe('RDK_UNKNOWN_COLUMN');
     expect(e.message).toBe('data.csv: no column named "falut". Did you mean "fault"? Columns: sensor_id, fault, temp_c.');
     expect(readError('{"a":1,"site":2}\n', { format: 'jsonl', wanted: ['sites'] }).message).toContain('Did you mean "site"?');
   });
-  it('ERR_HEADER_MISMATCH names both inputs and the first differing column', () => {
+  it('RDK_HEADER_MISMATCH names both inputs and the first differing column', () => {
     const e = readError('a,c\n1,2\n', { expectedColumns: ['a', 'b'], expectedFrom: 'first.csv' });
-    expect(e.code).toBe('ERR_HEADER_MISMATCH');
+    expect(e.code).toBe('RDK_HEADER_MISMATCH');
     expect(e.message).toContain('data.csv:1:2');
     expect(e.message).toContain('first.csv has "b"');
     expect(readError('a,b,c\n1,2,3\n', { expectedColumns: ['a', 'b'] }).details).toMatchObject({ column: 3 });
@@ -85,20 +85,20 @@ describe('fail fast (default)', () => {
   it('a quoted field still open after maxRecordBytes is reported at the line its record began', () => {
     const input = 'a,b\n1,2\n3,"open' + 'x\n'.repeat(2000);
     const e = readError(input, { maxRecordBytes: 1000 }, 100);
-    expect(e.code).toBe('ERR_UNTERMINATED_QUOTE');
+    expect(e.code).toBe('RDK_UNTERMINATED_QUOTE');
     expect(e.details).toMatchObject({ line: 3 });
     expect(e.message).toContain('never closed (read to the end of the input, past the 1000 bytes');
     // Under the limit the same input ends as an ordinary unterminated quote at EOF.
     expect(readError(input, { maxRecordBytes: 1e6 }, 100).message).toMatch(/^data\.csv:3:2: a quoted field starts here/);
   });
-  it('a quoted field over maxRecordBytes that is closed further on is ERR_FIELD_TOO_LONG, not an open quote, whatever the chunks', () => {
+  it('a quoted field over maxRecordBytes that is closed further on is RDK_FIELD_TOO_LONG, not an open quote, whatever the chunks', () => {
     // RFC 4180 section 2.7: a quote inside a quoted field is written twice; those must not end it.
     const body = 'x""y\n'.repeat(400); // 2,400 bytes, doubled quotes throughout
     for (const tail of ['",5\n6,7\n', '",5\n', '",5']) {
       const input = `a,b\n1,2\n"${body}${tail}`;
       for (const chunk of [1, 7, 100]) {
         const e = readError(input, { maxRecordBytes: 1000 }, chunk);
-        expect(e.code, `tail ${JSON.stringify(tail)}, chunks of ${chunk}`).toBe('ERR_FIELD_TOO_LONG');
+        expect(e.code, `tail ${JSON.stringify(tail)}, chunks of ${chunk}`).toBe('RDK_FIELD_TOO_LONG');
         expect(e.details).toMatchObject({ line: 3 });
         expect(e.message).toMatch(/^data\.csv:3: the record starting here holds a quoted field longer than 1000 bytes/);
       }
@@ -106,11 +106,11 @@ describe('fail fast (default)', () => {
       expect(readAll(input, { maxRecordBytes: 1e6 }).records.length).toBe(tail.endsWith('6,7\n') ? 3 : 2);
     }
     // Still open at the end, its doubled quotes notwithstanding: an unterminated quote.
-    for (const chunk of [1, 100]) expect(readError(`a,b\n3,"${body}`, { maxRecordBytes: 1000 }, chunk).code).toBe('ERR_UNTERMINATED_QUOTE');
+    for (const chunk of [1, 100]) expect(readError(`a,b\n3,"${body}`, { maxRecordBytes: 1000 }, chunk).code).toBe('RDK_UNTERMINATED_QUOTE');
   });
   it('an invalid delimiter is a usage error', () => {
     for (const delimiter of ['"', '\n', ';;', 'é']) {
-      expect(() => new RecordReader({ format: 'csv', delimiter, header: true, wanted: [], file: 'x', onBadRecord: 'fail' })).toThrow(expect.objectContaining({ code: 'ERR_OPTION' }));
+      expect(() => new RecordReader({ format: 'csv', delimiter, header: true, wanted: [], file: 'x', onBadRecord: 'fail' })).toThrow(expect.objectContaining({ code: 'RDK_OPTION' }));
     }
   });
 });
@@ -136,11 +136,11 @@ describe('skip and quarantine', () => {
         expect(r.fields.map((f) => f[0])).toEqual(['1', '3', '7']);
         expect(r.lines).toEqual([2, 4, 9]);
         expect(r.rejected.map((x) => [x.line, x.code])).toEqual([
-          [3, 'ERR_FIELD_COUNT'],
-          [6, 'ERR_STRAY_QUOTE'],
-          [7, 'ERR_STRAY_QUOTE'],
-          [8, 'ERR_FIELD_COUNT'],
-          [10, 'ERR_UNTERMINATED_QUOTE'],
+          [3, 'RDK_FIELD_COUNT'],
+          [6, 'RDK_STRAY_QUOTE'],
+          [7, 'RDK_STRAY_QUOTE'],
+          [8, 'RDK_FIELD_COUNT'],
+          [10, 'RDK_UNTERMINATED_QUOTE'],
         ]);
         expect(r.rejected.map((x) => x.bytes.toString())).toEqual(['2,too,many,fields', '4,bad"quote,4', '5,"after"x,5', '6,short', '8,"open at the end\nstill open']);
         expect(r.rejected.every((x) => x.file === 'data.csv' && x.reason.length > 20)).toBe(true);
@@ -177,10 +177,10 @@ describe('JSON Lines', () => {
       expect(r.records[2]).toBe('  {"fault":"drift","site":"\\u00e9t\\u00e9"}  ');
     }
   });
-  it('ERR_INVALID_JSON names the line and the position; skip counts it', () => {
+  it('RDK_INVALID_JSON names the line and the position; skip counts it', () => {
     const bad = '{"a":1}\n{"a":2,}\n[1,2]\n{"a":3}\n';
     const e = readError(bad, { format: 'jsonl', file: 'x.jsonl' });
-    expect(e.code).toBe('ERR_INVALID_JSON');
+    expect(e.code).toBe('RDK_INVALID_JSON');
     expect(e.details).toMatchObject({ line: 2 });
     expect(e.message).toMatch(/^x\.jsonl:2(:\d+)?: invalid JSON/);
     const r = readAll(bad, { format: 'jsonl', onBadRecord: 'skip', wanted: ['a'] }, 2);
@@ -191,7 +191,7 @@ describe('JSON Lines', () => {
     expect(readAll('{"a":1,"b":"x"}\n', { format: 'jsonl', wanted: ['b', 'a', 'b'] }).fields).toEqual([['x', '1', 'x']]);
     expect(readAll('a,b\n1,"x"\n', { wanted: ['b', 'a', 'b'] }).fields).toEqual([['x', '1', 'x']]);
   });
-  it('an empty JSON Lines input is ERR_INPUT_EMPTY', () => {
-    expect(readError('\n  \n', { format: 'jsonl' }).code).toBe('ERR_INPUT_EMPTY');
+  it('an empty JSON Lines input is RDK_INPUT_EMPTY', () => {
+    expect(readError('\n  \n', { format: 'jsonl' }).code).toBe('RDK_INPUT_EMPTY');
   });
 });

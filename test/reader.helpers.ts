@@ -1,5 +1,6 @@
 /** Test helpers: feed a whole input to a RecordReader in chunks and collect plain results. */
-import { RecordReader, fieldText } from '../src/io/reader.js';
+import { RecordReader } from '../src/io/reader.js';
+import { fieldText } from '../src/core/record-batch.js';
 import type { RecordReaderOptions } from '../src/io/reader.js';
 import type { RecordBatch, RejectedRecord } from '../src/io/batch.js';
 

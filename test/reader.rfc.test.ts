@@ -5,7 +5,8 @@
  */
 import { describe, expect, it } from 'vitest';
 import { readAll } from './reader.helpers.js';
-import { splitRecordFields, decodeCsvQuoted } from '../src/io/reader.js';
+import { splitRecordFields } from '../src/io/fields.js';
+import { decodeCsvQuoted } from '../src/core/record-batch.js';
 import type { RecordReaderOptions } from '../src/io/reader.js';
 
 /** Decoded fields of every record, by splitting each record's content with splitRecordFields. */
@@ -48,12 +49,12 @@ describe('RFC 4180 section 2', () => {
     // RFC 4180 §2.4
     expectAllChunkings(' aaa , bbb,ccc \r\n', { header: false }, [[' aaa ', ' bbb', 'ccc ']]);
     const e = (() => { try { readAll('aaa,bbb,ccc\r\nzzz,yyy\r\n', { header: false }); } catch (err) { return err as { code: string }; } return null; })();
-    expect(e?.code).toBe('ERR_FIELD_COUNT');
+    expect(e?.code).toBe('RDK_FIELD_COUNT');
   });
   it('rule 5: fields may be quoted; quotes may not appear inside unquoted fields', () => {
     // RFC 4180 §2.5
     expectAllChunkings('"aaa","bbb","ccc"\r\nzzz,yyy,xxx', { header: false }, [['aaa', 'bbb', 'ccc'], ['zzz', 'yyy', 'xxx']]);
-    expect(() => readAll('aaa,b"bb,ccc\r\n', { header: false })).toThrow(expect.objectContaining({ code: 'ERR_STRAY_QUOTE' }));
+    expect(() => readAll('aaa,b"bb,ccc\r\n', { header: false })).toThrow(expect.objectContaining({ code: 'RDK_STRAY_QUOTE' }));
   });
   it('rule 6: fields with line breaks, double quotes or commas are quoted', () => {
     // RFC 4180 §2.6

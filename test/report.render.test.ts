@@ -189,7 +189,7 @@ describe('writeReport', () => {
     expect(r.verify).toBeNull();
   });
 
-  it('a report that cannot be written is an ERR_IO naming the file, and leaves nothing behind', async () => {
+  it('a report that cannot be written is an RDK_IO naming the file, and leaves nothing behind', async () => {
     const out = join(dir, 'blocked');
     await runShuffle({ inputs: [join(dir, 'r.csv')], out, seed: 'render', threads: 0 });
     // A folder where the file should go: the rename fails.
@@ -197,7 +197,7 @@ describe('writeReport', () => {
     writeFileSync(join(out, 'report.html', 'keep'), 'x');
     const err = await writeReport(out).catch((e: unknown) => e);
     expect(err).toBeInstanceOf(RowdeckError);
-    expect((err as RowdeckError).code).toBe('ERR_IO');
+    expect((err as RowdeckError).code).toBe('RDK_IO');
     expect((err as RowdeckError).message).toContain(join(out, 'report.html'));
     expect(readdirSync(out).filter((f) => f.endsWith('.tmp'))).toEqual([]);
     expect(existsSync(join(out, 'report.html', 'keep'))).toBe(true);
@@ -217,8 +217,8 @@ describe('writeReport', () => {
     expect(html).toContain(`data-s="verify.mismatch.0.file">${folds.output.parts[1]!.path}<`);
   });
 
-  it('a folder without a manifest is ERR_MANIFEST, as for verify', async () => {
+  it('a folder without a manifest is RDK_MANIFEST, as for verify', async () => {
     const err = await writeReport(join(dir, 'nowhere')).catch((e: unknown) => e);
-    expect((err as RowdeckError).code).toBe('ERR_MANIFEST');
+    expect((err as RowdeckError).code).toBe('RDK_MANIFEST');
   });
 });

@@ -60,7 +60,7 @@ describe('a full disk', () => {
     ['the spill (--temp-dir) on a full disk', 'spill', false],
     ['the parts on a full disk', 'parts', false],
     ['the parts on a full disk, --gzip', 'parts', true],
-  ] as const)('%s: ERR_DISK_FULL naming the file, nothing left on either disk', async (_name, where, gzip) => {
+  ] as const)('%s: RDK_DISK_FULL naming the file, nothing left on either disk', async (_name, where, gzip) => {
     if (!mounts) return console.log(MOUNT_SKIP);
     const mnt = join(dir, `full-${where}-${gzip}`);
     const elsewhere = join(dir, `other-${where}-${gzip}`);
@@ -75,14 +75,14 @@ describe('a full disk', () => {
     const r = await runInNamespace(onTmpfs(mnt, 96, args, '', input), dir);
     expect(rcOf(r.stdout), r.stderr).toBe(1);
     const e = printedError(r.stderr);
-    expect(e?.code, r.stderr).toBe('ERR_DISK_FULL');
+    expect(e?.code, r.stderr).toBe('RDK_DISK_FULL');
     expect(e!.message).toMatch(where === 'spill' ? /\.rowdeck-spill-\d+-\w+\/scatter-\d+-\d+\.spill: writing a spill file failed: no space left on the device/ : /part-\d+\.csv(\.gz)?: writing an output file failed: no space left on the device/);
     expect(r.stderr).not.toContain('internal error');
     expect(leftIn(r.stdout)).toEqual([]);
     expect(readdirSync(elsewhere)).toEqual([]);
   });
 
-  it('the manifest does not fit after the parts did: ERR_DISK_FULL naming manifest.json, nothing left', async () => {
+  it('the manifest does not fit after the parts did: RDK_DISK_FULL naming manifest.json, nothing left', async () => {
     if (!mounts) return console.log(MOUNT_SKIP);
     // The parts' size, from a run elsewhere (the same seed gives the same bytes).
     const ref = join(dir, 'manifest-ref');
@@ -94,7 +94,7 @@ describe('a full disk', () => {
     // Room for the parts and the lock file (a page each, at least), none for the manifest.
     const r = await runInNamespace(onTmpfs(mnt, (pages + 1) * pageKiB, ['shuffle', input, '--out', join(mnt, 'out'), '--temp-dir', spill, '--partitions', '3', '--quiet']), dir);
     expect(rcOf(r.stdout), r.stderr).toBe(1);
-    expect(printedError(r.stderr)).toMatchObject({ code: 'ERR_DISK_FULL', message: expect.stringMatching(/manifest\.json: writing the manifest failed: no space left on the device/) });
+    expect(printedError(r.stderr)).toMatchObject({ code: 'RDK_DISK_FULL', message: expect.stringMatching(/manifest\.json: writing the manifest failed: no space left on the device/) });
     expect(leftIn(r.stdout)).toEqual([]);
     // The spill folder it made is gone too.
     expect(readdirSync(dir).filter((n) => n === 'full-manifest-spill')).toEqual([]);
@@ -112,7 +112,7 @@ describe('too little room, found before any work', () => {
     ['the spill folder (--temp-dir)', 'spill'],
     ['--out', 'parts'],
     ['one disk for both', 'both'],
-  ] as const)('%s too small for the estimate: ERR_NO_SPACE naming it, both figures and --temp-dir; nothing written', async (_name, where) => {
+  ] as const)('%s too small for the estimate: RDK_NO_SPACE naming it, both figures and --temp-dir; nothing written', async (_name, where) => {
     if (!mounts) return console.log(MOUNT_SKIP);
     const mnt = join(dir, `short-${where}`);
     const elsewhere = join(dir, `short-other-${where}`);
@@ -126,7 +126,7 @@ describe('too little room, found before any work', () => {
     const r = await runInNamespace(onTmpfs(mnt, kib, ['shuffle', input, '--out', out, '--temp-dir', temp, ...common]), dir);
     expect(rcOf(r.stdout), r.stderr).toBe(1);
     const e = printedError(r.stderr);
-    expect(e?.code, r.stderr).toBe('ERR_NO_SPACE');
+    expect(e?.code, r.stderr).toBe('RDK_NO_SPACE');
     expect(e!.message).toMatch(figures);
     // The folder named is the one that is short, as the user gave it.
     expect(e!.message.startsWith(`${where === 'parts' ? out : temp}: not enough free space`)).toBe(true);
@@ -151,7 +151,7 @@ describe('too little room, found before any work', () => {
 });
 
 describe('read-only file systems and mount points', () => {
-  it('--out or --temp-dir on a read-only file system: ERR_PERMISSION, "read-only file system"', async () => {
+  it('--out or --temp-dir on a read-only file system: RDK_PERMISSION, "read-only file system"', async () => {
     if (!mounts) return console.log(MOUNT_SKIP);
     const mnt = join(dir, 'ro');
     mkdirSync(mnt);
@@ -161,7 +161,7 @@ describe('read-only file systems and mount points', () => {
     ]) {
       const r = await runInNamespace(onTmpfs(mnt, 64, args, 'ro'), dir);
       expect(rcOf(r.stdout), r.stderr).toBe(1);
-      expect(printedError(r.stderr)).toMatchObject({ code: 'ERR_PERMISSION', message: expect.stringContaining('failed: read-only file system') });
+      expect(printedError(r.stderr)).toMatchObject({ code: 'RDK_PERMISSION', message: expect.stringContaining('failed: read-only file system') });
       expect(workEntries(dir)).toEqual([]);
     }
     expect(readdirSync(dir).includes('ro-out')).toBe(false);
@@ -185,7 +185,7 @@ describe('read-only file systems and mount points', () => {
     expect(r.stdout).toContain('mode=2775 group=100');
     expect(r.stdout.split('\n').filter((l) => l.startsWith('entry: '))).toEqual(['entry: manifest.json', 'entry: part-00000.csv', 'entry: part-00001.csv']);
     expect(r.stdout).toContain('verify=0');
-    expect(r.stdout).toMatch(/ERR_FORCE_REFUSED: .*mounted: --force is refused here: it is a mount point/);
+    expect(r.stdout).toMatch(/RDK_FORCE_REFUSED: .*mounted: --force is refused here: it is a mount point/);
     expect(r.stdout).toContain('force=1');
   });
 });
@@ -204,7 +204,7 @@ describe('open files', () => {
     const out = join(dir, 'many-parts-unbounded');
     const r = await runProcess('sh', ['-c', `ulimit -n 256 && exec "${process.execPath}" "${CLI}" shuffle "${input}" --out "${out}" --partitions 3000 --quiet`], { cwd: dir, env: { ROWDECK_OPEN_PARTS: '100000' } });
     expect(r.status).toBe(1);
-    expect(printedError(r.stderr)).toMatchObject({ code: 'ERR_TOO_MANY_OPEN_FILES', message: expect.stringMatching(/part-\d+\.csv: creating an output file failed: too many open files/) });
+    expect(printedError(r.stderr)).toMatchObject({ code: 'RDK_TOO_MANY_OPEN_FILES', message: expect.stringMatching(/part-\d+\.csv: creating an output file failed: too many open files/) });
     expect(workEntries(dir)).toEqual([]);
   });
 });
@@ -219,13 +219,13 @@ describe('two runs, one --out', () => {
       const failed = [a, b].filter((r) => r.status !== 0);
       expect(ok.length, `${a.stderr}\n${b.stderr}`).toBe(1);
       expect(failed[0]!.status).toBe(1);
-      expect(['ERR_OUTPUT_LOCKED', 'ERR_OUTPUT_EXISTS']).toContain(printedError(failed[0]!.stderr)?.code);
+      expect(['RDK_OUTPUT_LOCKED', 'RDK_OUTPUT_EXISTS']).toContain(printedError(failed[0]!.stderr)?.code);
       expect((await verify({ dir: out })).ok).toBe(true);
       expect(workEntries(dir)).toEqual([]);
     }
   });
 
-  it('a second run while the first works (paused while it holds the lock): ERR_OUTPUT_LOCKED at once, nothing of the first lost', async () => {
+  it('a second run while the first works (paused while it holds the lock): RDK_OUTPUT_LOCKED at once, nothing of the first lost', async () => {
     const out = join(dir, 'race-late');
     const args = ['shuffle', input, '--out', out, '--partitions', '4', '--seed', 'late', '--quiet'];
     const first = spawn(process.execPath, [CLI, ...args], { cwd: dir, stdio: ['ignore', 'ignore', 'pipe'] });
@@ -239,7 +239,7 @@ describe('two runs, one --out', () => {
       for (const extra of [[], ['--force']]) {
         const second = await runRowdeck([...args, ...extra], { cwd: dir });
         expect(second.status, second.stderr).toBe(1);
-        expect(printedError(second.stderr)).toMatchObject({ code: 'ERR_OUTPUT_LOCKED', message: expect.stringContaining(`run ${first.pid} on `) });
+        expect(printedError(second.stderr)).toMatchObject({ code: 'RDK_OUTPUT_LOCKED', message: expect.stringContaining(`run ${first.pid} on `) });
       }
     } finally {
       first.kill('SIGCONT');

@@ -136,7 +136,7 @@ describe('kills at random moments', () => {
       if (existed) {
         // The output from before is there: without --force the rerun refuses and changes nothing.
         expect(again.status, again.stderr).toBe(1);
-        expect(again.stderr).toContain('ERR_OUTPUT_EXISTS');
+        expect(again.stderr).toContain('RDK_OUTPUT_EXISTS');
       } else {
         expect(again.status, `${what}\nrerun: ${again.stderr}`).toBe(0);
         if (hadLeftovers) {

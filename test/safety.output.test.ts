@@ -66,7 +66,7 @@ describe('--force replaces only what rowdeck wrote', () => {
     await shuffle({ inputs: [input], out, partitions: 2 });
     writeFileSync(join(out, '.notes'), 'mine');
     const before = snapshot(d);
-    await expect(shuffle({ inputs: [input], out, partitions: 3, force: true })).rejects.toMatchObject({ code: 'ERR_FORCE_REFUSED', message: expect.stringContaining('".notes"') });
+    await expect(shuffle({ inputs: [input], out, partitions: 3, force: true })).rejects.toMatchObject({ code: 'RDK_FORCE_REFUSED', message: expect.stringContaining('".notes"') });
     expect(diffSnapshots(before, snapshot(d))).toEqual([]);
   });
 
@@ -77,7 +77,7 @@ describe('--force replaces only what rowdeck wrote', () => {
     await shuffle({ inputs: [input], out, partitions: 3, force: true });
     expect(readdirSync(out).sort()).toEqual(['manifest.json', 'part-00000.csv', 'part-00001.csv', 'part-00002.csv']);
     writeFileSync(join(out, 'report.html'), '<!DOCTYPE html><title>my notes</title>');
-    await expect(shuffle({ inputs: [input], out, force: true })).rejects.toMatchObject({ code: 'ERR_FORCE_REFUSED', message: expect.stringContaining('"report.html"') });
+    await expect(shuffle({ inputs: [input], out, force: true })).rejects.toMatchObject({ code: 'RDK_FORCE_REFUSED', message: expect.stringContaining('"report.html"') });
   });
 
   it('a failing run with --force leaves the previous output as it was', async () => {
@@ -87,7 +87,7 @@ describe('--force replaces only what rowdeck wrote', () => {
     const before = snapshot(d);
     const broken = join(dir, 'broken.csv');
     writeFileSync(broken, 'a,b\n1,2\n3\n');
-    await expect(shuffle({ inputs: [broken], out, force: true })).rejects.toMatchObject({ code: 'ERR_FIELD_COUNT' });
+    await expect(shuffle({ inputs: [broken], out, force: true })).rejects.toMatchObject({ code: 'RDK_FIELD_COUNT' });
     expect(diffSnapshots(before, snapshot(d))).toEqual([]);
   });
 
@@ -95,7 +95,7 @@ describe('--force replaces only what rowdeck wrote', () => {
     const home = fresh('home');
     writeFileSync(join(home, 'dotfile'), 'x');
     const r = await runRowdeck(['shuffle', input, '--out', home, '--force'], { cwd: dir, env: { HOME: home } });
-    expect(r.stderr).toMatch(/ERR_FORCE_REFUSED: .*home: --force is refused here: it is the home folder/);
+    expect(r.stderr).toMatch(/RDK_FORCE_REFUSED: .*home: --force is refused here: it is the home folder/);
     expect(readdirSync(home)).toEqual(['dotfile']);
   });
 });
@@ -115,7 +115,7 @@ describe('the final step never replaces what appeared meanwhile', () => {
         }
       },
     });
-    await expect(p).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS', message: expect.stringContaining('while this run was working') });
+    await expect(p).rejects.toMatchObject({ code: 'RDK_OUTPUT_EXISTS', message: expect.stringContaining('while this run was working') });
     expect(readdirSync(out)).toEqual(['theirs.txt']);
     expect(workEntries(d)).toEqual([]);
   });
@@ -131,7 +131,7 @@ describe('the final step never replaces what appeared meanwhile', () => {
         if (e.stage === 'gather' && !existsSync(join(out, 'theirs.txt'))) writeFileSync(join(out, 'theirs.txt'), 'theirs');
       },
     });
-    await expect(p).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS', message: expect.stringContaining('"theirs.txt"') });
+    await expect(p).rejects.toMatchObject({ code: 'RDK_OUTPUT_EXISTS', message: expect.stringContaining('"theirs.txt"') });
     expect(readdirSync(out)).toEqual(['theirs.txt']);
     expect(workEntries(d)).toEqual([]);
   });
@@ -227,12 +227,12 @@ describe('what killed runs left', () => {
     const lock = join(d, '.out.rowdeck-lock');
     const write = (c: object): void => writeFileSync(lock, JSON.stringify({ host: hostname(), start: null, startedAt: '2026-01-01T00:00:00.000Z', out, ...c }));
     write({ pid: process.pid });
-    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'ERR_OUTPUT_LOCKED', details: { pid: process.pid } });
+    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'RDK_OUTPUT_LOCKED', details: { pid: process.pid } });
     write({ pid: 4242, host: 'another-machine' });
-    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'ERR_OUTPUT_LOCKED', message: expect.stringContaining(`If no such run is going on another-machine, remove ${lock}`) });
+    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'RDK_OUTPUT_LOCKED', message: expect.stringContaining(`If no such run is going on another-machine, remove ${lock}`) });
     // Empty (a run killed while writing it): busy while young, taken over once old.
     writeFileSync(lock, '');
-    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'ERR_OUTPUT_LOCKED' });
+    await expect(shuffle({ inputs: [input], out })).rejects.toMatchObject({ code: 'RDK_OUTPUT_LOCKED' });
     utimesSync(lock, new Date(Date.now() - 60_000), new Date(Date.now() - 60_000));
     await shuffle({ inputs: [input], out });
     rmOut(out);
@@ -261,7 +261,7 @@ describe('what killed runs left', () => {
     writeFileSync(join(out, 'part-00002.csv'), 'id\nnew\n');
     writeFileSync(join(d, '.out.rowdeck-lock'), JSON.stringify({ pid, host: hostname(), start: null, startedAt: 'x', out, finishing: ['part-00000.csv', 'part-00001.csv', 'part-00002.csv', 'manifest.json'] }));
     const notes: string[] = [];
-    await expect(shuffle({ inputs: [input], out, onNotice: (t) => notes.push(t) })).rejects.toMatchObject({ code: 'ERR_OUTPUT_EXISTS' });
+    await expect(shuffle({ inputs: [input], out, onNotice: (t) => notes.push(t) })).rejects.toMatchObject({ code: 'RDK_OUTPUT_EXISTS' });
     expect(notes.join('\n')).toMatch(/took over the lock of run \d+, which ended without releasing it, removed the 2 file\(s\) of its unfinished output, put back the 3 file\(s\) of the output it was replacing/);
     expect(diffSnapshots(old, snapshot(out))).toEqual([]);
     expect((await verify({ dir: out })).ok).toBe(true);

@@ -38,7 +38,7 @@ const MODES: [string, () => Omit<ShuffleOptions, 'out'>][] = [
   ['splits as fractions, with partitions', () => ({ inputs: [input], split: 'train=0.7,valid=0.2,test=0.1', partitions: 2, stratify: 'fault' })],
   ['splits as counts with the rest', () => ({ inputs: [input], split: 'train=2000,test=*', stratify: 'fault' })],
   ['groups', () => ({ inputs: [input], group: 'sensor', partitions: 3 })],
-  ['hash assignment by key', () => ({ inputs: [input], assign: 'hash', key: 'id', partitions: 3, tolerance: 10 })],
+  ['hash assignment by key', () => ({ inputs: [input], assign: 'hash', key: 'id', partitions: 3 })],
   ['JSON Lines with folds', () => ({ inputs: [jsonl], stratify: 'fault', folds: 3 })],
   ['gzip parts', () => ({ inputs: [input], partitions: 2, gzip: true })],
   ['quantile bins', () => ({ inputs: [input], stratify: 'reading:bins=4', partitions: 2 })],

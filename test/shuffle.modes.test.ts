@@ -8,8 +8,10 @@ import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { shuffle, verify } from '../src/index.js';
-import { binValueAt, selectRanks } from '../src/engine/quantiles.js';
+import { runShuffle, shuffle, verify } from '../src/index.js';
+import { formatShuffleSummary } from '../src/cli/summary.js';
+import { selectRanks } from '../src/engine/quantiles.js';
+import { binValueAt } from '../src/core/bins.js';
 import { FieldKind, type RecordBatch } from '../src/io/batch.js';
 import { listFiles, makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir, rowMultiset } from './helpers/engine.js';
 
@@ -146,13 +148,13 @@ describe('--assign hash', () => {
   });
 
   it('needs --key, and split weights as fractions', async () => {
-    await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
-    await expect(shuffle({ inputs: [input], out: join(dir, 'hashcounts'), assign: 'hash', key: 'id', split: 'a=100,b=*' })).rejects.toMatchObject({ code: 'ERR_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'nokey'), assign: 'hash' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
+    await expect(shuffle({ inputs: [input], out: join(dir, 'hashcounts'), assign: 'hash', key: 'id', split: 'a=100,b=*' })).rejects.toMatchObject({ code: 'RDK_OPTION' });
     expect(existsSync(join(dir, 'hashcounts'))).toBe(false);
   });
 
   it('counts cells while scattering: the manifest matches the files', async () => {
-    const m = await shuffle({ inputs: [input], out: join(dir, 'hash-split'), seed: 'hs', assign: 'hash', key: 'id', split: 'train=0.75,test=0.25', folds: 3, stratify: 'fault', tolerance: 2 });
+    const m = await shuffle({ inputs: [input], out: join(dir, 'hash-split'), seed: 'hs', assign: 'hash', key: 'id', split: 'train=0.75,test=0.25', folds: 3, stratify: 'fault' });
     for (const p of m.output.parts) {
       const { rows } = parseCsv(readPart(join(dir, 'hash-split', p.path)));
       expect(rows.length).toBe(p.records);
@@ -164,6 +166,25 @@ describe('--assign hash', () => {
     // verify recomputes the deviation from the files: it must equal the one checked in advance.
     const report = await verify({ dir: join(dir, 'hash-split') });
     expect(report.ok).toBe(true);
+  });
+
+  it('enforces no tolerance: a small input whose hashed shares stray far still runs, and the summary says what was kept', async () => {
+    // 60 readings, 6 of the rare class, over 4 parts by key hash: the rare class cannot land
+    // near a quarter in every part (1.5 records each), so the deviation is far above 0.5.
+    const rows = Array.from({ length: 60 }, (_, i) => `${i},${i % 10 === 0 ? 'dead' : 'ok'}`);
+    const file = join(dir, 'small-hash.csv');
+    writeFileSync(file, `id,fault\n${rows.join('\n')}\n`);
+    const out = join(dir, 'small-hash');
+    const m = await shuffle({ inputs: [file], out, seed: 'tiny', partitions: 4, assign: 'hash', key: 'id', stratify: 'fault' });
+    expect(m.balance.maxDeviation).toBeGreaterThan(m.balance.tolerance);
+    const r = await verify({ dir: out });
+    expect(r.ok).toBe(true);
+    expect(r.checks.find((c) => c.file === 'manifest.json' && c.check === 'tolerance')).toMatchObject({ status: 'skipped' });
+    const summary = formatShuffleSummary(m, { width: 100, out, report: null, table: false });
+    expect(summary[0]).toContain(', parts by key hash, class shares reported, not enforced: max class deviation ');
+    expect(summary[1]).toMatch(/^rowdeck: part sizes \d+ to \d+ records \(target 15 each\): what the key hash gives, not dealt exactly\.$/);
+    // A tolerance asked for with hash would be a promise not kept: refused.
+    await expect(shuffle({ inputs: [file], out: join(dir, 'hash-tol'), partitions: 4, assign: 'hash', key: 'id', tolerance: 0.5 })).rejects.toMatchObject({ code: 'RDK_OPTION', details: { option: 'tolerance' } });
   });
 });
 
@@ -221,7 +242,7 @@ describe('formats', () => {
     expect(rowMultiset(got)).toEqual(rowMultiset(rows));
     const other = join(dir, 'other.csv');
     writeFileSync(other, 'id,sensor,site,reading,notes,fault\n1,S1,x,1,,ok\n');
-    await expect(shuffle({ inputs: [f1, other], out: join(dir, 'mismatch') })).rejects.toMatchObject({ code: 'ERR_HEADER_MISMATCH' });
+    await expect(shuffle({ inputs: [f1, other], out: join(dir, 'mismatch') })).rejects.toMatchObject({ code: 'RDK_HEADER_MISMATCH' });
   });
 });
 
@@ -251,8 +272,62 @@ describe('--on-bad-record', () => {
     const { header, rows } = parseCsv(readFileSync(join(dir, 'quarantine', 'rejected.csv')));
     expect(header).toEqual(['file', 'line', 'code', 'reason', 'record']);
     expect(rows.length).toBe(m.input.rejected);
-    expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'ERR_FIELD_COUNT']);
+    expect(rows[0]!.slice(0, 3)).toEqual([file, '11', 'RDK_FIELD_COUNT']);
     expect(rows[0]![4]).toBe('1,2,3');
+    // The reason says what was wrong, not to pass the option that put it there.
+    expect(rows[0]![3]).toMatch(/^record has 3 fields, the header has 6\. Quote fields that contain .*\.$/);
+    for (const r of rows) expect(r[3]).not.toContain('--on-bad-record');
+    for (const r of rows) expect(r[3]).toMatch(/\.$/);
+  });
+});
+
+describe('--group with fewer or lumpier groups than parts', () => {
+  /** Six sites of very unequal size: 1,200 readings over 8 partitions and 2 folds. */
+  const lumpy = (): string => {
+    const sites = [['north', 500], ['south', 300], ['east', 200], ['west', 100], ['ridge', 60], ['bend', 40]] as const;
+    const rows: string[] = [];
+    let id = 0;
+    for (const [site, n] of sites) for (let k = 0; k < n; k++) rows.push(`${id++},${site},${k % 4 === 0 ? 'drift' : 'ok'}`);
+    return `id,site,fault\n${rows.join('\n')}\n`;
+  };
+
+  it('warns before writing, with the sizes achieved, and still writes a correct output', async () => {
+    const file = join(dir, 'lumpy.csv');
+    writeFileSync(file, lumpy());
+    const notices: string[] = [];
+    const out = join(dir, 'lumpy');
+    const run = await runShuffle({ inputs: [file], out, seed: 'sites', partitions: 8, folds: 2, group: 'site', onNotice: (t) => notices.push(t) });
+    const m = run.manifest;
+    const sizes = m.output.parts.map((p) => p.records);
+    // Six groups for eight parts: at least two parts are empty, and the warning says which.
+    const empty = m.output.parts.filter((p) => p.records === 0).map((p) => p.path);
+    expect(empty.length).toBeGreaterThanOrEqual(2);
+    expect(run.warnings).toEqual(notices);
+    const partWarning = notices.find((t) => t.includes(' parts: '))!;
+    expect(partWarning).toContain(`warning: group "site": 6 groups for 8 parts: ${empty.length} parts get no records (${empty.slice(0, 3).join(', ')}${empty.length > 3 ? ', …' : ''}); `);
+    expect(partWarning).toContain(`part sizes run from 0 to ${Math.max(...sizes).toLocaleString('en-US')} records against a target of 150 each`);
+    expect(partWarning).toContain('more than the tolerance 0.5');
+    // The folds: warned about exactly when one strays past the tolerance (or is empty).
+    const folds = [0, 1].map((f) => m.output.parts.reduce((a, p) => a + p.folds![f]!, 0));
+    const foldWarning = notices.find((t) => t.includes(' folds: '));
+    if (Math.max(...folds.map((n) => Math.abs(n - 600) / 600)) > 0.5) {
+      expect(foldWarning).toContain(`fold sizes run from ${Math.min(...folds)} to ${Math.max(...folds)} records against a target of 600 each`);
+    } else expect(foldWarning).toBeUndefined();
+    // The summary reports the sizes achieved; without --stratify, no class deviation.
+    const summary = formatShuffleSummary(m, { width: 100, out, report: null, table: false });
+    expect(summary[0]).toContain('whole groups of "site"');
+    expect(summary[0]).not.toMatch(/deviation/);
+    expect(summary[1]).toBe(`rowdeck: part sizes 0 to ${Math.max(...sizes).toLocaleString('en-US')} records (target 150 each); fold sizes ${Math.min(...folds)} to ${Math.max(...folds)} records (target 600 each): whole groups are dealt, so sizes follow them.`);
+    // Correct all the same: every record once, each site whole.
+    expect(m.output.records).toBe(1200);
+    expect((await verify({ dir: out })).ok).toBe(true);
+  });
+
+  it('says nothing where the groups fill the parts evenly enough', async () => {
+    const notices: string[] = [];
+    const run = await runShuffle({ inputs: [input], out: join(dir, 'even-groups'), seed: 'g', partitions: 2, group: 'sensor', onNotice: (t) => notices.push(t) });
+    expect(run.warnings).toEqual([]);
+    expect(notices).toEqual([]);
   });
 });
 
@@ -274,7 +349,7 @@ describe('--stratify COL:bins=Q', () => {
     const file = join(dir, 'nan.csv');
     writeFileSync(file, 'id,level\n1,3.5\n2,high\n');
     await expect(shuffle({ inputs: [file], out: join(dir, 'nan-out'), stratify: 'level:bins=2' })).rejects.toMatchObject({
-      code: 'ERR_NOT_NUMERIC',
+      code: 'RDK_NOT_NUMERIC',
       message: expect.stringContaining('nan.csv:3'),
     });
   });

@@ -40,16 +40,15 @@ async function interrupt(out: string, signal: NodeJS.Signals, ready: () => boole
 }
 
 const spillStarted = (): boolean => hidden(dir).some((f) => f.startsWith('.rowdeck-spill-'));
-/** A staging folder holds a part (the lock's work file, named like one for a moment, is not a folder). */
-const gatherStarted = (): boolean =>
-  hidden(dir).some((f) => {
-    if (!f.startsWith('.rowdeck-partial-')) return false;
-    try {
-      return readdirSync(join(dir, f)).some((p) => p.startsWith('part-'));
-    } catch {
-      return false;
-    }
-  });
+/** Entries of a folder; none for what is not one (the lock is written aside under the stage prefix first, as a file). */
+function entriesOf(d: string): string[] {
+  try {
+    return readdirSync(d);
+  } catch {
+    return [];
+  }
+}
+const gatherStarted = (): boolean => hidden(dir).some((f) => f.startsWith('.rowdeck-partial-') && entriesOf(join(dir, f)).some((p) => p.startsWith('part-')));
 
 describe('an interrupted run', () => {
   // The input (~24 MB) is shuffled on the main thread by default; --threads 2 uses workers.

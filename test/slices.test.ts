@@ -114,6 +114,6 @@ describe('reading an input in slices', () => {
     expect(read.lines).toBe(3);
     // The next slice, from there, meets it (under fail, the error names its physical line once shifted: local line 1).
     const next = readSlice(path, { input: 0, start: good.length, end: -1, exact: true }, options(path), reader.schema, { ...read });
-    await expect(next.next()).rejects.toMatchObject({ code: 'ERR_FIELD_COUNT', details: { line: 1 } });
+    await expect(next.next()).rejects.toMatchObject({ code: 'RDK_FIELD_COUNT', details: { line: 1 } });
   });
 });

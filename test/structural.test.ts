@@ -6,7 +6,7 @@
 import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
 import { setWalkLimit, structuralScanner } from '../src/io/structural.js';
-import { useStructuralScan } from '../src/io/reader.js';
+import { useStructuralScan } from '../src/io/csv-records.js';
 import { readAll } from './reader.helpers.js';
 
 afterAll(() => useStructuralScan('auto'));

@@ -173,7 +173,7 @@ describe('the CLI on a terminal (stderr with isTTY)', () => {
     expect(t.err()).toMatch(/verify passed \(\d+ checks\)/);
     const missing = terminal(100);
     expect(await runCli(['report', join(dir, 'nowhere')], missing.io)).toBe(1);
-    expect(missing.err()).toContain('ERR_MANIFEST');
+    expect(missing.err()).toContain('RDK_MANIFEST');
     const usage = terminal(100);
     expect(await runCli(['report'], usage.io)).toBe(2);
     const help = terminal(100);

@@ -105,7 +105,9 @@ describe('clean runs verify', () => {
     for (const p of m.output.parts) {
       for (const c of ['present', 'bytes', 'sha256', 'readable', 'records', 'fingerprint']) expect(statusOf(r, p.path, c), `${p.path} ${c}`).toBe('passed');
     }
-    for (const c of ['output records', 'output fingerprint', 'input fingerprint', 'strata totals', 'balance', 'tolerance']) expect(statusOf(r, 'manifest.json', c), c).toBe('passed');
+    for (const c of ['output records', 'output fingerprint', 'input fingerprint', 'strata totals', 'balance']) expect(statusOf(r, 'manifest.json', c), c).toBe('passed');
+    // Hash assignment keeps no tolerance: the check is skipped, saying why.
+    expect(statusOf(r, 'manifest.json', 'tolerance')).toBe((m.options as { assign: string }).assign === 'hash' ? 'skipped' : 'passed');
   };
 
   it('CSV with folds: every per-class, per-fold and fold x class count is checked and holds', async () => {
@@ -127,7 +129,7 @@ describe('clean runs verify', () => {
     ];
     for (const { out, m } of runs) {
       expect(m.input.stats).toBeDefined();
-      for (const threads of [1, 2]) {
+      for (const threads of [0, 2]) {
         const r = await verify({ dir: out, threads });
         expect(r.mismatches, out).toEqual([]);
         for (const p of m.output.parts) expect(statusOf(r, p.path, 'statistics'), `${out} ${p.path}`).toBe('passed');
@@ -180,7 +182,7 @@ describe('clean runs verify', () => {
   it('--group (units are groups, shares only near their targets) and hash assignment', async () => {
     const g = await run('group', { partitions: 2, folds: 3, group: 'sensor', stratify: 'fault', tolerance: 2 });
     expectClean(await verify({ dir: g.out, against: [input] }), g.m);
-    const h = await run('hash', { partitions: 3, assign: 'hash', key: 'id', stratify: 'fault', tolerance: 2 });
+    const h = await run('hash', { partitions: 3, assign: 'hash', key: 'id', stratify: 'fault' });
     expectClean(await verify({ dir: h.out }), h.m);
   });
 
@@ -251,7 +253,7 @@ describe('damage is found and named', () => {
     const cli = runCli(['verify', d]);
     expect(cli.status).toBe(1);
     expect(cli.stderr).toContain(`${part.path}: sha256: expected ${part.sha256}, found ${sha256(path)}`);
-    expect(cli.stderr).toMatch(/does not match its manifest \(ERR_VERIFY_FAILED\): 3 mismatch/);
+    expect(cli.stderr).toMatch(/does not match its manifest \(RDK_VERIFY_FAILED\): 3 mismatch/);
     // --quiet drops the summary line but keeps the list.
     const quiet = runCli(['verify', d, '--quiet']);
     expect(quiet.status).toBe(1);
@@ -318,7 +320,7 @@ describe('damage is found and named', () => {
     const t2 = readFileSync(join(d, ps[2]!.path), 'utf8');
     writeFileSync(join(d, ps[2]!.path), t2 + t2.split('\n')[plainLines(t2)[0]!] + '\n');
     for (const folder of [base.out, d]) {
-      const here = await verify({ dir: folder, against: [input], threads: 1 });
+      const here = await verify({ dir: folder, against: [input], threads: 0 });
       const workers = await verify({ dir: folder, against: [input], threads: 2 });
       expect(workers).toEqual(here);
       expect(here.ok).toBe(folder === base.out);
@@ -328,7 +330,7 @@ describe('damage is found and named', () => {
     expect(cli.stderr).toContain('fault="meltdown"');
     const bad = runCli(['verify', d, '--threads', 'two']);
     expect(bad.status).toBe(2);
-    expect(bad.stderr).toContain('Invalid option "threads": expected a whole number, got "two"');
+    expect(bad.stderr).toContain('Invalid option --threads: expected an integer from 0 to 256, got "two"');
   });
 
   it('a record moved from one part to another: both parts fail their counts, the total fingerprint still matches', async () => {
@@ -551,37 +553,54 @@ describe('damage is found and named', () => {
     const r1 = await verify({ dir: out, against: [a] });
     expect([r1.against!.differences!.missing, r1.against!.differences!.extra]).toEqual([0, 1800]);
     expect(r1.against!.differences!.listed.length).toBe(20);
+    // The same inputs in the other order: the order decides where records went, so it fails,
+    // saying so and giving the manifest's order; the replay (which would fail for it) is skipped.
+    const swapped = await verify({ dir: out, against: [b, a] });
+    expect(swapped.ok).toBe(false);
+    expect(swapped.mismatches).toEqual([
+      { file: '(inputs)', check: 'input order', item: 'the order matters: give the inputs in the order the manifest lists them', expected: `${a} ${b}`, found: `${b} ${a}` },
+    ]);
+    expect(swapped.replay).toMatchObject({ status: 'skipped', note: `the inputs are given in another order than the manifest's (${a} ${b}), and the order decides where each record goes` });
+    const cli = runCli(['verify', out, '--against', b, a]);
+    expect(cli.status).toBe(1);
+    expect(cli.stderr).toContain(`(inputs): input order (the order matters: give the inputs in the order the manifest lists them): expected ${a} ${b}, found ${b} ${a}`);
   });
 });
 
 describe('unusable folders and usage', () => {
-  it('no manifest: ERR_MANIFEST naming the file and what to do; CLI exit 1', async () => {
+  it('no manifest: RDK_MANIFEST naming the file and what to do; CLI exit 1', async () => {
     const empty = makeTempDir('rowdeck-verify-empty-');
     try {
-      await expect(verify({ dir: empty })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining(join(empty, 'manifest.json')) });
+      await expect(verify({ dir: empty })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining(join(empty, 'manifest.json')) });
       const cli = runCli(['verify', empty]);
       expect(cli.status).toBe(1);
-      expect(cli.stderr).toMatch(/ERR_MANIFEST: .*manifest\.json: no such file\. Give the folder rowdeck shuffle wrote/);
-      await expect(verify({ dir: join(empty, 'nope') })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('no such folder') });
+      expect(cli.stderr).toMatch(/RDK_MANIFEST: .*manifest\.json: no such file\. Give the folder rowdeck shuffle wrote/);
+      await expect(verify({ dir: join(empty, 'nope') })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('no such folder') });
+      // A file (the manifest itself, say) given as DIR: not a folder, rather than "no such folder".
+      writeFileSync(join(empty, 'manifest.json'), '{}');
+      await expect(verify({ dir: join(empty, 'manifest.json') })).rejects.toMatchObject({
+        code: 'RDK_MANIFEST',
+        message: `${join(empty, 'manifest.json')}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`,
+      });
     } finally {
       removeDir(empty);
     }
   });
 
-  it('a manifest that is not JSON, or lacks a field: ERR_MANIFEST naming the field', async () => {
+  it('a manifest that is not JSON, or lacks a field: RDK_MANIFEST naming the field', async () => {
     const { out } = await run('broken', { partitions: 2 });
     const path = join(out, 'manifest.json');
     const text = readFileSync(path, 'utf8');
     writeFileSync(path, text.slice(0, 100));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('not valid JSON') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('not valid JSON') });
     const m = JSON.parse(text) as Record<string, Record<string, unknown>>;
     delete m.output!.fingerprint;
     writeFileSync(path, JSON.stringify(m));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('"output.fingerprint"') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('"output.fingerprint"') });
     (m.output!.parts as { path: string }[])[0]!.path = '../../elsewhere.csv';
     m.output!.fingerprint = '0'.repeat(16);
     writeFileSync(path, JSON.stringify(m));
-    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'ERR_MANIFEST', message: expect.stringContaining('outside the output folder') });
+    await expect(verify({ dir: out })).rejects.toMatchObject({ code: 'RDK_MANIFEST', message: expect.stringContaining('outside the output folder') });
   });
 
   it('no DIR is a usage error (exit 2); --help exits 0 and names every option', () => {

@@ -6,7 +6,7 @@
  * - this Node has WebAssembly SIMD, and every module instantiates here and is taken up by its
  *   kernel (unless its switch selects the JavaScript twin): a module that does not compile fails
  *   here instead of leaving the twins to run in its place;
- * - bytes that do not compile or link throw ERR_INTERNAL, naming the module and its switch;
+ * - bytes that do not compile or link throw RDK_INTERNAL, naming the module and its switch;
  * - without WebAssembly (node --jitless) the modules are not tried and nothing throws.
  */
 import { spawnSync } from 'node:child_process';
@@ -122,24 +122,24 @@ describe('a broken module fails loudly', () => {
     throw new Error('expected a throw');
   }
 
-  it('bytes that do not compile: ERR_INTERNAL naming the .wat and the switch to run without it', () => {
+  it('bytes that do not compile: RDK_INTERNAL naming the .wat and the switch to run without it', () => {
     const bytes = Buffer.from(GATHER_WASM_BASE64, 'base64');
     const cut = bytes.subarray(0, bytes.length - 7).toString('base64'); // the code section ends early
     const err = thrown(() => instantiate<Record<string, unknown>>('gather', cut, ['memory', 'deal']));
-    expect(err.code).toBe('ERR_INTERNAL');
+    expect(err.code).toBe('RDK_INTERNAL');
     expect(err.message).toMatch(/^src\/engine\/gather\.wat: the embedded WebAssembly module does not compile on Node v\d+.*\(CompileError: /);
     expect(err.message).toContain('ROWDECK_GATHER=js runs without this module meanwhile');
     expect(err.details).toEqual({ module: 'gather' });
   });
 
-  it('a module that needs an import (none is given) does not instantiate: ERR_INTERNAL', async () => {
+  it('a module that needs an import (none is given) does not instantiate: RDK_INTERNAL', async () => {
     const base64 = await bytesOf('(module (import "env" "clock" (func)) (memory (export "memory") 1) (func (export "sort")))');
     const err = thrown(() => instantiate<Record<string, unknown>>('sort', base64, ['memory', 'sort']));
-    expect(err.code).toBe('ERR_INTERNAL');
+    expect(err.code).toBe('RDK_INTERNAL');
     expect(err.message).toMatch(/^src\/core\/sort\.wat: the embedded WebAssembly module does not instantiate on Node .*ROWDECK_SORT=js runs without/);
   });
 
-  it('a module without an export its kernel calls: ERR_INTERNAL', async () => {
+  it('a module without an export its kernel calls: RDK_INTERNAL', async () => {
     const base64 = await bytesOf('(module (memory (export "memory") 1) (func (export "sorted")))');
     const err = thrown(() => instantiate<Record<string, unknown>>('sort', base64, ['memory', 'sort']));
     expect(err.message).toMatch(/^src\/core\/sort\.wat: the embedded WebAssembly module has no export sort on Node/);

@@ -2,7 +2,8 @@
 // The record reader alone, over bytes already in memory, `--rounds` times: for counting
 // instructions (count-instructions.sh), where timings on a shared machine are too noisy.
 //   node bench/micro/read.mjs [--file bench/data/readings-100m.csv] [--mb 40] [--rounds 1] [--columns fault] [--scan auto|js|simd]
-import { RecordReader, useStructuralScan } from '../../dist/io/reader.js';
+import { RecordReader } from '../../dist/io/reader.js';
+import { useStructuralScan } from '../../dist/io/csv-records.js';
 import { arg, loadInput } from './options.mjs';
 
 const { file, data, rounds } = loadInput();

@@ -1,4 +1,9 @@
-/** Help texts. Kept together so the wording stays consistent across commands. */
+/**
+ * Help texts. Kept together so the wording stays consistent across commands. Each command's
+ * option list is made from its option table (src/options/), so --help names every option the
+ * command takes, and nothing else.
+ */
+import { FINISH_SPEC, PLAN_SPEC, PROFILE_SPEC, renderOptionList, REPORT_SPEC, SHUFFLE_SPEC, STATUS_SPEC, TASK_SPEC, VERIFY_SPEC } from '../options.js';
 
 export const MAIN_HELP = `rowdeck — reproducible, stratified shuffling of large tabular files
 
@@ -18,8 +23,8 @@ Inputs are CSV (RFC 4180), TSV or JSON Lines, optionally gzip-compressed; '-' re
 The same seed and inputs give the same bytes, whatever the thread count or memory budget.
 
 Run 'rowdeck COMMAND --help' for a command's options and examples.
-  --version   print the version
-  --help      print this help
+  -V, --version   print the version
+  -h, --help      print this help
 
 Exit status: 0 success, 1 data error (bad input, tolerance not met, verify mismatch), 2 usage error.
 `;
@@ -37,74 +42,7 @@ What it does:
   random order (see --order). DIR/manifest.json, written last, records counts, class mix,
   checksums, fingerprints and the seed.
 
-Dealing:
-  --partitions N          number of partition files (default 1)
-  --split NAME=W,...      named splits, e.g. train=0.8,valid=0.1,test=0.1; weights may be
-                          record counts instead (train=8000,test=2000), one may be * (the rest)
-  --folds K               append a fold column (0..K-1), dealt jointly with the partitions
-  --fold-column NAME      name of that column (default fold)
-  --stratify COL[,COL]    keep the class mix of these columns in every part; a numeric column
-                          may be given as COL:bins=Q for Q quantile bins. Missing values form
-                          their own class.
-  --tolerance X           largest allowed relative deviation of a class's share in any part or
-                          fold from its overall share (default 0.5). Checked before anything is
-                          written; the achieved value is recorded in the manifest.
-  --group COL             keep all records with the same COL value in one part (whole groups are
-                          dealt, balancing classes as well as they allow); the groups are held
-                          in memory beside --memory while they are placed: ~30 bytes each
-  --assign exact|hash     exact quotas (default), or hash: a record's part is a pure function of
-                          its --key and the seed, so appended records never move old ones
-  --key COL[,COL]         columns that identify a record (required with --assign hash)
-  --order random|spread|grouped
-                          order of the records inside each part. random (default): every
-                          order equally likely, also with --group and --assign hash (a group
-                          shares a part, not a place in it). spread: every class spread evenly
-                          through the part: after any number t of records each class has
-                          within one record of t x its share, so any window of w records holds
-                          each class within two of w x its share (needs --stratify; costs one
-                          more write and read of the output). grouped: the records of one
-                          group or key next to each other, in input order, the groups in
-                          random order (needs --group or --assign hash)
-  --seed TEXT             any text (default: a fixed seed, printed, so every run is reproducible)
-
-Input:
-  --format csv|tsv|jsonl  (default: from the file name: .csv .tsv .jsonl .ndjson, with .gz)
-  --delimiter C           one-byte field delimiter (default , or tab for TSV)
-  --no-header             the first line is data; columns are named column_1, column_2, ...
-  --on-bad-record MODE    fail (default): stop at the first malformed record;
-                          skip: count and leave it out; quarantine: also write it, with its
-                          line number and reason, to DIR/rejected.csv
-
-Output and resources:
-  --out DIR               output folder: new, or empty (then it keeps its mode, group and setgid
-                          bit); locked while the run works, so a second run into it fails
-  --force                 replace a previous output of rowdeck in DIR: only the files its
-                          manifest lists, and only once the new output is complete. Anything
-                          else in DIR stops the run (nothing is touched); refused where DIR is
-                          /, a mount point, the working or home folder or one above them, or
-                          holds an input
-  --gzip                  compress parts (.gz)
-  --memory SIZE           memory budget, e.g. 64MiB, 2GiB (default: a quarter of the memory
-                          available at start, 128MiB to 16GiB; here now: {memory-default}).
-                          It decides the layout, never the output (see Memory and disk)
-  --threads N             worker threads (default: number of cores; inputs under 32 MiB are
-                          shuffled on the main thread, faster than starting threads); 0 keeps
-                          all the work on the main thread. The output is the same either way
-  --temp-dir DIR          where spill files go (default: beside DIR); they take about 1.3x
-                          the input (records plus 24 bytes each: more for short records) and
-                          are removed range by range as the parts are written; none where
-                          the spill fits in --memory
-  --stats                 add per-column statistics of the input and of every part to the
-                          manifest (types, missing, min/max/mean/sd, frequent values); this
-                          adds 35-70% to the run time. Within --memory: with many parts the
-                          parts are read back one at a time for theirs. Each column's table
-                          takes up to ~35 KB a thread beside it (2,000 columns: ~70 MB).
-                          rowdeck profile gives the input's alone
-  --exclude-values        leave data values (class names, frequent values) out of the manifest
-  --report                also write DIR/report.html, the manifest as a page of charts and
-                          tables (see rowdeck report --help)
-  --json                  print the manifest on stdout
-  --quiet                 no progress or summary on stderr
+${renderOptionList(SHUFFLE_SPEC)}
 
 Memory and disk:
   The input's size over --memory decides how records wait between the two stages (the
@@ -119,7 +57,7 @@ Memory and disk:
                 it deals it: memory stays within the budget at any input size
   Before it reads a record, a run checks the free space of the spill's folder and of --out
   against what it will write (spill about 1.3x the input, parts about 1x; on one disk the
-  spill and a range of parts at once) and stops with ERR_NO_SPACE if short.
+  spill and a range of parts at once) and stops with RDK_NO_SPACE if short.
 
 On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
 and how far its share strays from its share in the whole input, the largest marked with *.
@@ -162,24 +100,7 @@ frequent values; with --stratify, the class balance as a bar chart; then warning
 small for the partitions or folds you plan (with settings that would work), missing values in
 a stratify column, empty columns.
 
-Options:
-  --stratify COL[,COL]    show the class balance of these columns (the classes a shuffle with
-                          the same --stratify deals); COL:bins=Q for Q quantile bins of a
-                          numeric column (then the inputs are read twice, as by shuffle)
-  --partitions N          warn about classes that N partitions cannot all hold
-  --folds K               warn about classes that K folds cannot all hold
-  --tolerance X           the tolerance those warnings check against (default 0.5, as shuffle)
-  --threads N             worker threads (default: number of cores, or none for inputs under
-                          32 MiB); 0 keeps the work on the main thread
-  --format, --delimiter, --no-header   as for shuffle
-  --on-bad-record MODE    fail (default), or skip: count malformed records, list the first 20
-  --exclude-values        leave data values (min/max, frequent values, class names) out
-  --html FILE             also write the profile as a page: class balance as bars, missing
-                          values per column, every column's summary, the warnings. One file,
-                          no scripts, nothing loaded from the network; readable offline
-  --json                  print the profile as JSON on stdout
-  --quiet                 no progress or notes on stderr
-
+${renderOptionList(PROFILE_SPEC)}
 Caution: a profile holds values from the data (min/max, frequent values, class names). Use
 --exclude-values before publishing one for sensitive data.
 
@@ -191,7 +112,7 @@ Examples:
 export const VERIFY_HELP = `rowdeck verify — check an output folder against its manifest
 
 Usage:
-  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--threads N] [--json] [--quiet]
+  rowdeck verify DIR [--against INPUT...] [--temp-dir DIR] [--no-replay] [--memory SIZE] [--threads N] [--json] [--quiet]
 
 Re-reads every output file and checks it against DIR/manifest.json: presence, size, sha256,
 record counts, per-class and per-fold counts, the tolerance, the order-independent
@@ -202,17 +123,7 @@ records (nothing lost, duplicated or altered; the fold column aside), and replay
 shuffle runs again from the manifest's seed and options, writing nothing but its spill, and the
 parts must be byte for byte what it gives (an edited seed or option fails).
 
-Options:
-  --against INPUT...      the inputs of the run, in the same order (every argument up to the
-                          next option); records missing from or extra in the output are listed
-                          with their file:line (up to 20 of each, for inputs up to 2 million records)
-  --temp-dir DIR          where the replay's spill goes (default: beside the checked folder)
-  --no-replay             skip the replay (standard input or a pipe is read once: skipped then)
-  --threads N             worker threads that read parts side by side (default: number of cores,
-                          for outputs of 32 MiB and more; 1 reads them on the main thread)
-  --json                  print the report (every check and mismatch) on stdout
-  --quiet                 no progress or summary line on stderr (mismatches are still listed)
-
+${renderOptionList(VERIFY_SPEC)}
 Exit status 0 when everything holds; otherwise 1 and a list of every mismatch on stderr.
 
 Examples:
@@ -239,13 +150,7 @@ The page is one file: styles and charts inline, no script, nothing loaded from t
 reads offline and prints (long tables unroll on paper). rowdeck shuffle --report writes the same
 page at the end of a run.
 
-Options:
-  --verify                re-read every part against the manifest first (as rowdeck verify),
-                          and show which checks ran on which files and what, if anything,
-                          failed; exit 1 when a check fails (the page is written either way)
-  --threads N             worker threads for --verify (as for rowdeck verify)
-  --quiet                 no progress or summary on stderr (the path still goes to stdout)
-
+${renderOptionList(REPORT_SPEC)}
 Exit status: 0 when written (and, with --verify, every check held); 1 when a check failed or
 the folder has no readable manifest; 2 on a usage error.
 
@@ -275,23 +180,9 @@ places groups, the tolerance check), M gather tasks (stage 2 over ranges of buck
 may be killed and run again, or run twice at once. The output is byte for byte what
 rowdeck shuffle gives with the same inputs, seed and options.
 
-Options (besides every option of rowdeck shuffle but --temp-dir: the spill goes in WORK):
-  --work WORK             the work folder (new or empty); it needs about 2.3x the input free
-  --tasks N               scatter tasks (fewer when the inputs cannot be cut so: a gzip file is
-                          read whole by one task)
-  --gather-tasks M        gather tasks (default N; at most the bucket count)
-  --threads T             threads of each task (default: this machine's cores); Slurm asks for
-                          T CPUs and the memory budget plus 512 MiB a task
-  --memory SIZE           each task's budget (default 512MiB: this machine's memory says
-                          nothing of the nodes'); the tasks spill to files in WORK, and a
-                          gather task splits a bucket too large for it (same bytes)
-  --image NAME            the container image of kubernetes.yaml (default node:20-bookworm); it
-                          must run this rowdeck at the path the plan names
-  --claim NAME            the ReadWriteMany PersistentVolumeClaim holding the inputs, WORK and DIR
-                          (default rowdeck-shared)
-  --mount-path PATH       where the pods mount it (default /)
-  --json                  print the plan on stdout
+Besides every option of rowdeck shuffle but --temp-dir (the spill goes in WORK):
 
+${renderOptionList(PLAN_SPEC, ['Plan'])}
 Standard input and pipes are refused: every task must be able to read its inputs from a file.
 Quantile bins (COL:bins=Q) are computed here, with one pass over the inputs.
 
@@ -312,11 +203,7 @@ PBS_ARRAY_INDEX (PBS), or SGE_TASK_ID (Grid Engine) and LSB_JOBINDEX (LSF), whic
 The deal stage has one task. A task that is already done does nothing; one killed or run twice
 at once leaves nothing half-written (it works in a private folder and moves it into place).
 
-Options:
-  --stage S   scatter, deal or gather
-  --index I   the task's number, from 0
-  --quiet     no line on stderr when done
-`;
+${renderOptionList(TASK_SPEC)}`;
 
 export const FINISH_HELP = `rowdeck finish — join a plan's parts and write the output
 
@@ -328,11 +215,7 @@ failed one with the command that runs it), joins the gather tasks' parts in orde
 manifest (its run section lists every task's host and times), puts the output folder into place
 at once, and removes WORK.
 
-Options:
-  --keep-work   keep WORK afterwards
-  --json        print the manifest on stdout
-  --quiet       no summary line on stderr
-`;
+${renderOptionList(FINISH_SPEC)}`;
 
 export const STATUS_HELP = `rowdeck status — a plan's tasks: done, failed, started, not started
 
@@ -341,4 +224,5 @@ Usage:
 
 Reads WORK only. For each stage: how many tasks are done; each task that is not, with its state
 (failed, with the error; started: a run in progress, or one killed); and what to run next.
-`;
+
+${renderOptionList(STATUS_SPEC)}`;

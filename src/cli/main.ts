@@ -5,6 +5,9 @@
  * Subcommands are imported lazily so `--help` stays instant.
  */
 import { RowdeckError, codedSystemError } from '../errors.js';
+import { writeSync } from 'node:fs';
+import { closest } from '../options/spec.js';
+import { hookInterrupt } from './interrupt.js';
 import { VERSION } from '../version.js';
 import { MAIN_HELP } from './help.js';
 
@@ -40,10 +43,21 @@ export async function runCli(argv: string[], io: CliIO = { stdout: process.stdou
   const load = COMMANDS[cmd];
   try {
     if (!load) {
-      throw new RowdeckError('ERR_UNKNOWN_COMMAND', `unknown command "${cmd}". Commands: ${Object.keys(COMMANDS).join(', ')}. See rowdeck --help.`);
+      const near = closest(cmd, Object.keys(COMMANDS));
+      throw new RowdeckError(
+        'RDK_UNKNOWN_COMMAND',
+        `unknown command "${cmd}".${near !== null ? ` Did you mean "${near}"?` : ''} Commands: ${Object.keys(COMMANDS).join(', ')}. See rowdeck --help.`,
+        near !== null ? { suggestion: near } : {},
+      );
     }
     const mod = await load();
-    return await mod.run(rest, io);
+    // Only a real process (not a test's in-process call) gets the signal line.
+    const unhook = io.stderr === process.stderr ? hookInterrupt(cmd, (line) => writeSync(2, line)) : null;
+    try {
+      return await mod.run(rest, io);
+    } finally {
+      unhook?.();
+    }
   } catch (err) {
     return reportError(err, io);
   }

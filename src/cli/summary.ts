@@ -29,16 +29,64 @@ function signed(d: number): string {
   return formatSignedPercent(d).replace('\u2212', '-');
 }
 
-/** The first line: what went where, how long it took, the seed, and (stratified) the balance. */
+/**
+ * The first line: what went where, how long it took, the seed, what the dealing kept to (exact
+ * quotas within --tolerance; whole groups; or, by key hash, nothing but the key) and, stratified,
+ * the balance achieved.
+ */
 export function summaryHeadline(m: Manifest, out: string): string {
   const secs = (m.run.timingsMs.totalMs ?? 0) / 1000;
   const stratified = m.strata.columns.length > 0;
+  const o = m.options as { assign?: string; group?: string | null };
+  const tolerance = `within --tolerance ${m.balance.tolerance}`;
+  const kept =
+    o.assign === 'hash'
+      ? `, parts by key hash${stratified ? ', class shares reported, not enforced' : ''}`
+      : o.assign === 'group'
+        ? `, whole groups of ${JSON.stringify(o.group ?? '')}${stratified ? `, classes ${tolerance}` : ''}`
+        : stratified
+          ? `, classes ${tolerance}`
+          : '';
   return (
     `rowdeck: ${formatCount(m.input.records)} records -> ${m.output.parts.length} part(s) in ${out} ` +
     `(${secs.toFixed(1)} s, seed ${JSON.stringify(m.seed)}${m.seedIsDefault ? ' (the default: pass --seed to choose one)' : ''}` +
-    `${stratified ? `, max class deviation ${formatPercent(m.balance.maxDeviation, 2)}` : ''}` +
-    `${m.input.rejected ? `, ${m.input.rejected} rejected record(s)` : ''}).`
+    `${m.input.rejected ? `, ${m.input.rejected} rejected record(s)` : ''}${kept}` +
+    `${stratified ? `: max class deviation ${formatPercent(m.balance.maxDeviation, 2)}` : ''}).`
   );
+}
+
+/**
+ * Where sizes are not dealt exactly (whole groups, key hash): the part and fold sizes achieved
+ * against their targets, one line; null where every size is exact.
+ */
+export function summarySizes(m: Manifest): string | null {
+  const o = m.options as { assign?: string; split?: { name: string; weight: number }[] | null; partitions?: number; folds?: number };
+  if (o.assign !== 'hash' && o.assign !== 'group') return null;
+  const P = o.partitions ?? 1;
+  const K = o.folds ?? 1;
+  const splits = o.split ?? [{ name: '', weight: 1 }];
+  const wsum = splits.reduce((a, s) => a + s.weight, 0);
+  const splitOf = (p: { split: string | null }): number => Math.max(0, splits.findIndex((s) => s.name === (p.split ?? '')));
+  const target = (p: { split: string | null }): number => (wsum > 0 ? (m.input.records * splits[splitOf(p)]!.weight) / wsum : 0);
+  const range = (sizes: number[], targets: number[]): string => {
+    const t = [...new Set(targets.map((x) => Math.round(x)))];
+    const against = t.length === 1 ? `target ${formatCount(t[0]!)} each` : `targets ${formatCount(Math.min(...t))} to ${formatCount(Math.max(...t))}`;
+    return `${formatCount(Math.min(...sizes))} to ${formatCount(Math.max(...sizes))} records (${against})`;
+  };
+  const parts = m.output.parts;
+  let line = `rowdeck: part sizes ${range(parts.map((p) => p.records), parts.map((p) => target(p) / P))}`;
+  if (K > 1 && parts.every((p) => p.folds)) {
+    const folds: number[] = [];
+    const targets: number[] = [];
+    splits.forEach((s, i) => {
+      for (let f = 0; f < K; f++) {
+        folds.push(parts.filter((p) => splitOf(p) === i).reduce((a, p) => a + p.folds![f]!, 0));
+        targets.push(target({ split: s.name === '' ? null : s.name }) / K);
+      }
+    });
+    line += `; fold sizes ${range(folds, targets)}`;
+  }
+  return `${line}${o.assign === 'hash' ? ': what the key hash gives, not dealt exactly' : ': whole groups are dealt, so sizes follow them'}.`;
 }
 
 /**
@@ -49,6 +97,8 @@ export function summaryHeadline(m: Manifest, out: string): string {
  */
 export function formatShuffleSummary(m: Manifest, o: SummaryOptions): string[] {
   const lines = [summaryHeadline(m, o.out)];
+  const sizes = summarySizes(m);
+  if (sizes !== null) lines.push(sizes);
   if (o.table) {
     const model = buildReportModel(m);
     lines.push(...(model.stratified ? classTable(model, o.width) : sizeTable(model, o.width)));

@@ -64,7 +64,7 @@ export function scatterDones(plan: ClusterPlan): ScatterDone[] {
   const missing = dones.flatMap((d, i) => (d === null || d.planId !== plan.planId ? [i] : []));
   if (missing.length > 0) {
     throw new RowdeckError(
-      'ERR_TASKS_INCOMPLETE',
+      'RDK_TASKS_INCOMPLETE',
       `${missing.length} scatter task(s) of ${plan.scatter.length} not done: ${missing.slice(0, 20).join(', ')}${missing.length > 20 ? ', …' : ''}. Run each: ${taskCommand(plan, 'scatter', missing[0]!)} (--index ${missing.length > 1 ? 'for each' : missing[0]}), then the deal step again.`,
       { missing },
     );
@@ -86,7 +86,7 @@ async function chainSlices(plan: ClusterPlan): Promise<{ dones: ScatterDone[]; r
       const s = dones[t]!.slices[j]!;
       if (s.slice.start === 0) continue;
       const before = previousSlice(dones, t, j);
-      if (!before || before.slice.input !== s.slice.input) throw new RowdeckError('ERR_INTERNAL', `plan: slice ${j} of scatter task ${t} has no slice before it in its input`);
+      if (!before || before.slice.input !== s.slice.input) throw new RowdeckError('RDK_INTERNAL', `plan: slice ${j} of scatter task ${t} has no slice before it in its input`);
       if (s.start === before.end) continue;
       // Read again from the start the chain gives (the task's other slices are unchanged).
       // Only a task's first slice can begin inside an input (a task takes an input on from where the one before stopped).
@@ -184,7 +184,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
 
     const records = sc.records;
-    if (records === 0) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
     const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
     const deal = dealSpecOf(o, records);
     const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);

@@ -51,7 +51,7 @@ function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; g
   const gather = take<GatherDone>('gather', plan.gather.length);
   if (problems.length > 0) {
     throw new RowdeckError(
-      'ERR_TASKS_INCOMPLETE',
+      'RDK_TASKS_INCOMPLETE',
       `${problems.length} task(s) of plan ${plan.planId} are not done, so nothing was written:\n  ${problems.slice(0, 20).join('\n  ')}${problems.length > 20 ? `\n  … and ${problems.length - 20} more (rowdeck status ${plan.work})` : ''}`,
       { tasks: problems.length },
     );
@@ -143,7 +143,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     const inFp = new Fingerprint();
     inFp.merge(deal.fingerprint);
     if (outFp.toHex() !== inFp.toHex() || outFp.count !== inFp.count) {
-      throw new RowdeckError('ERR_INTERNAL', `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but the scatter tasks read ${inFp.count} (fingerprint ${inFp.toHex()}). Nothing was written; run the plan again from the start.`);
+      throw new RowdeckError('RDK_INTERNAL', `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but the scatter tasks read ${inFp.count} (fingerprint ${inFp.toHex()}). Nothing was written; run the plan again from the start.`);
     }
     const tasks = [
       ...done.scatter.map((d) => ({ stage: 'scatter', index: d.index, host: d.host, startedAt: d.startedAt, endedAt: d.endedAt })),
@@ -181,7 +181,8 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     if (o.report) writeManifestReport(stage, manifest, basename(plan.out));
     work.commit();
     if (!f.keepWork) rmSync(plan.work, { recursive: true, force: true });
-    return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null };
+    // The sizes a group run achieved are in the manifest (and the summary); the deal task checked the balance.
+    return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null, warnings: [] };
   } catch (err) {
     throw codedSystemError(err);
   } finally {

@@ -42,7 +42,7 @@ export interface GatherDone extends DoneRecord {
 export function dealPlan(plan: ClusterPlan): { gatherPlan: GatherPlan; dir: string } {
   const done = readDone(plan.work, 'deal', 0);
   if (!done || done.planId !== plan.planId) {
-    throw new RowdeckError('ERR_TASKS_INCOMPLETE', `The deal step of this plan has not run. Run it first: ${taskCommand(plan, 'deal')}`, {});
+    throw new RowdeckError('RDK_TASKS_INCOMPLETE', `The deal step of this plan has not run. Run it first: ${taskCommand(plan, 'deal')}`, {});
   }
   const dir = taskDir(plan.work, 'deal', 0);
   return { gatherPlan: JSON.parse(readFileSync(join(dir, 'plan.json'), 'utf8')) as GatherPlan, dir };
@@ -52,7 +52,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
   // Stage 2 reads the spill only.
   enterPlan(plan, []);
   const g = plan.gather[index];
-  if (!g) throw new RowdeckError('ERR_INTERNAL', `gather task ${index} is not in the plan`);
+  if (!g) throw new RowdeckError('RDK_INTERNAL', `gather task ${index} is not in the plan`);
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
   const share = decodeJson<GatherShare>(readFileSync(join(dealDir, gatherShareFile(index)), 'utf8'));
   return runTask<Omit<GatherDone, keyof DoneRecord>>(plan.work, 'gather', index, plan.planId, async (dir) => {

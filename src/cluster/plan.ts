@@ -14,9 +14,10 @@ import { dirname, isAbsolute, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { RowdeckError, systemError } from '../errors.js';
 import type { InputFormat } from '../io/batch.js';
-import { detectFormat, isStreamInput, nameInput } from '../io/input.js';
+import { isStreamInput, nameInput } from '../io/input.js';
+import { chooseFormat } from '../io/sniff.js';
 import type { InputSlice } from '../io/slices.js';
-import { resolveShuffleOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
+import { optionSetting, PLAN_DEFAULT_MEMORY, resolvePlanOptions, resolveShuffleOptions, type PlanOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { checkInputs } from '../engine/run-work.js';
 import { computeBinEdges, type BinEdges } from '../engine/quantiles.js';
@@ -64,18 +65,7 @@ export interface ClusterPlan {
   kubernetes: ScriptPlan['kubernetes'];
 }
 
-export interface PlanOptions extends ShuffleOptions {
-  /** The work folder (new or empty), on a file system every node sees at the same path. */
-  work: string;
-  /** Scatter tasks wanted. */
-  tasks: number;
-  /** Gather tasks; default: as many as scatter tasks. */
-  gatherTasks?: number;
-  /** For kubernetes.yaml: the container image, the ReadWriteMany claim, and where it is mounted. */
-  image?: string;
-  claim?: string;
-  mountPath?: string;
-}
+export type { PlanOptions } from '../options.js';
 
 /** A byte range of a plain file is at least this large (a smaller one is not worth a task of its own). */
 export const MIN_SLICE_BYTES = 1 << 20;
@@ -153,43 +143,35 @@ function cliPath(): string {
   return join(here, '..', '..', 'dist', 'cli', 'main.js');
 }
 
-/** A plan's budget a task where --memory is not given (the machine planning is not the nodes). */
-export const PLAN_DEFAULT_MEMORY = '512MiB';
-
 function plannedOptions(o: ShuffleOptions): PlannedOptions {
   const { onProgress: _p, onNotice: _n, inputs: _i, out: _o, tempDir: _t, ...rest } = o;
   return JSON.parse(JSON.stringify(rest)) as PlannedOptions;
 }
 
 export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; files: string[] }> {
-  if (p.tempDir !== undefined) {
-    throw new RowdeckError('ERR_OPTION', 'Invalid option "tempDir": a plan keeps its spill in the work folder (--work), where every task can read it; leave --temp-dir out.', { option: 'tempDir' });
-  }
-  const { work: workGiven, tasks, gatherTasks, image, claim, mountPath, ...given } = p;
-  // The nodes' memory is not this machine's: without --memory a task's budget is a fixed one.
+  // Every option checked by plan's table (src/options/cluster.ts): shuffle's, less the spill's folder, and its own.
+  const r = resolvePlanOptions(p);
+  const { work: workGiven, tasks, gatherTasks, image, claim, mountPath: mount } = r;
+  const o: ResolvedShuffleOptions = r.shuffle;
+  const { work: _w, tasks: _t, gatherTasks: _g, image: _i, claim: _c, mountPath: _m, ...given } = p;
+  // The nodes' memory is not this machine's: without --memory a task's budget is a fixed one (resolvePlanOptions too).
   const shuffleOptions = { ...given, memory: given.memory ?? PLAN_DEFAULT_MEMORY };
-  const o: ResolvedShuffleOptions = resolveShuffleOptions(shuffleOptions);
-  if (typeof workGiven !== 'string' || workGiven === '') throw new RowdeckError('ERR_OPTION', 'Invalid option "work": expected a folder path for the tasks\' files, got nothing.', { option: 'work' });
-  if (!Number.isInteger(tasks) || tasks < 1 || tasks > 100000) throw new RowdeckError('ERR_OPTION', `Invalid option "tasks": expected an integer from 1 to 100000, got ${JSON.stringify(tasks)}`, { option: 'tasks' });
-  if (gatherTasks !== undefined && (!Number.isInteger(gatherTasks) || gatherTasks < 1 || gatherTasks > 100000)) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option "gatherTasks": expected an integer from 1 to 100000, got ${JSON.stringify(gatherTasks)}`, { option: 'gatherTasks' });
-  }
   for (const input of o.inputs) {
     if (isStreamInput(input)) {
-      throw new RowdeckError('ERR_OPTION', `Invalid input ${nameInput(input)}: a plan's tasks read their inputs from files on a shared folder, and standard input or a pipe can be read only once, by one process. Save it to a file first.`, { file: input });
+      throw new RowdeckError('RDK_OPTION', `Invalid input ${nameInput(input)}: a plan's tasks read their inputs from files on a shared folder, and standard input or a pipe can be read only once, by one process. Save it to a file first.`, { file: input });
     }
   }
   checkInputs(o.inputs);
-  const format = o.format ?? detectFormat(o.inputs[0]!);
+  const format = await chooseFormat(o.inputs, o.format, (v) => optionSetting(r.surface, 'format', v), 'plan');
   const work = resolve(workGiven);
   const out = resolve(o.out);
   if (existsSync(work) && (!statSync(work).isDirectory() || readdirSync(work).length > 0)) {
-    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${workGiven} is not a new or empty folder. Give a new --work folder for this plan (each plan has its own).`, { file: workGiven });
+    throw new RowdeckError('RDK_OUTPUT_EXISTS', `${workGiven} is not a new or empty folder. Give a new --work folder for this plan (each plan has its own).`, { file: workGiven });
   }
   if (existsSync(out) && !o.force && (!statSync(out).isDirectory() || readdirSync(out).length > 0)) {
-    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${o.out} is not empty. Choose another --out folder, or pass --force to replace a previous rowdeck output there (finish checks it again).`, { file: o.out });
+    throw new RowdeckError('RDK_OUTPUT_EXISTS', `${o.out} is not empty. Choose another --out folder, or pass --force to replace a previous rowdeck output there (finish checks it again).`, { file: o.out });
   }
-  const threads = shuffleOptions.threads === undefined ? Math.max(1, availableParallelism()) : o.threads;
+  const threads = r.threadsGiven ? o.threads : Math.max(1, availableParallelism());
   const inputs: PlannedInput[] = o.inputs.map((given) => ({ given, ...fileStamp(given), gzip: isGzip(given) }));
   const size = sizeRun({ inputs: o.inputs, memory: o.memory, threads });
   // Quantile bins need one pass over the inputs before any record can be given a stratum.
@@ -200,8 +182,6 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
       : [];
   const scatter = cutInputs(inputs, tasks);
   const gather = cutBuckets(size.buckets, gatherTasks ?? tasks);
-  const mount = mountPath ?? '/';
-  if (!isAbsolute(mount)) throw new RowdeckError('ERR_OPTION', `Invalid option "mountPath": expected an absolute path, got ${JSON.stringify(mount)}`, { option: 'mountPath' });
   const body: Omit<ClusterPlan, 'planId'> = {
     kind: 'rowdeck-cluster-plan',
     version: PLAN_VERSION,
@@ -248,22 +228,22 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
 export function loadPlan(workGiven: string): ClusterPlan {
   const work = resolve(workGiven);
   const path = join(work, PLAN_FILE);
-  if (!existsSync(work)) throw new RowdeckError('ERR_INPUT_NOT_FOUND', `${workGiven}: no such folder. Give the --work folder of a plan (rowdeck plan writes it); it must be on a file system this machine sees.`, { file: workGiven });
-  if (!existsSync(path)) throw new RowdeckError('ERR_PLAN', `${path}: no plan in this folder. Run rowdeck plan first, or give the work folder it wrote.`, { file: path });
+  if (!existsSync(work)) throw new RowdeckError('RDK_INPUT_NOT_FOUND', `${workGiven}: no such folder. Give the --work folder of a plan (rowdeck plan writes it); it must be on a file system this machine sees.`, { file: workGiven });
+  if (!existsSync(path)) throw new RowdeckError('RDK_PLAN', `${path}: no plan in this folder. Run rowdeck plan first, or give the work folder it wrote.`, { file: path });
   let plan: ClusterPlan;
   try {
     plan = JSON.parse(readFileSync(path, 'utf8')) as ClusterPlan;
   } catch (err) {
-    throw new RowdeckError('ERR_PLAN', `${path}: not a readable plan (${(err as Error).message}). Make a new one with rowdeck plan.`, { file: path });
+    throw new RowdeckError('RDK_PLAN', `${path}: not a readable plan (${(err as Error).message}). Make a new one with rowdeck plan.`, { file: path });
   }
   if (plan.kind !== 'rowdeck-cluster-plan' || plan.version !== PLAN_VERSION) {
-    throw new RowdeckError('ERR_PLAN', `${path}: a plan of layout ${JSON.stringify(plan.version)}; this rowdeck reads layout ${PLAN_VERSION}. Make a new plan with this rowdeck.`, { file: path });
+    throw new RowdeckError('RDK_PLAN', `${path}: a plan of layout ${JSON.stringify(plan.version)}; this rowdeck reads layout ${PLAN_VERSION}. Make a new plan with this rowdeck.`, { file: path });
   }
   if (plan.tool !== VERSION) {
-    throw new RowdeckError('ERR_PLAN', `${path}: written by rowdeck ${plan.tool}, and this is rowdeck ${VERSION}. Every task must run the version that made the plan: install rowdeck ${plan.tool} on the nodes, or plan again with this one.`, { file: path });
+    throw new RowdeckError('RDK_PLAN', `${path}: written by rowdeck ${plan.tool}, and this is rowdeck ${VERSION}. Every task must run the version that made the plan: install rowdeck ${plan.tool} on the nodes, or plan again with this one.`, { file: path });
   }
   if (plan.work !== work && existsSync(plan.work) === false) {
-    throw new RowdeckError('ERR_PLAN', `${path}: the plan names its work folder ${plan.work}, which this machine does not see. The work folder must be at the same path on every node.`, { file: path });
+    throw new RowdeckError('RDK_PLAN', `${path}: the plan names its work folder ${plan.work}, which this machine does not see. The work folder must be at the same path on every node.`, { file: path });
   }
   return plan;
 }
@@ -278,7 +258,7 @@ export function enterPlan(plan: ClusterPlan, check: number[] | 'all' = 'all'): R
     process.chdir(plan.cwd);
   } catch {
     if (plan.inputs.some((x) => !isAbsolute(x.given))) {
-      throw new RowdeckError('ERR_INPUT_NOT_FOUND', `The plan was made in ${plan.cwd}, which this machine does not have, and names inputs by relative paths. Plan again from a folder every node sees, or give the inputs as absolute paths.`, { file: plan.cwd });
+      throw new RowdeckError('RDK_INPUT_NOT_FOUND', `The plan was made in ${plan.cwd}, which this machine does not have, and names inputs by relative paths. Plan again from a folder every node sees, or give the inputs as absolute paths.`, { file: plan.cwd });
     }
   }
   (check === 'all' ? plan.inputs : check.map((k) => plan.inputs[k]!)).forEach((x) => {
@@ -290,7 +270,7 @@ export function enterPlan(plan: ClusterPlan, check: number[] | 'all' = 'all'): R
     }
     if (now.bytes !== x.bytes || now.mtimeMs !== x.mtimeMs) {
       throw new RowdeckError(
-        'ERR_INPUT_CHANGED',
+        'RDK_INPUT_CHANGED',
         `${x.given} changed since the plan was made (${x.bytes} bytes, modified ${new Date(x.mtimeMs).toISOString()}; now ${now.bytes} bytes, modified ${new Date(now.mtimeMs).toISOString()}). A plan's tasks must all read the same inputs: make a new plan (rowdeck plan) and run it from the start.`,
         { file: x.given },
       );

@@ -203,5 +203,5 @@ export function fileStamp(path: string): { bytes: number; mtimeMs: number } {
 }
 
 export function internal(message: string): RowdeckError {
-  return new RowdeckError('ERR_INTERNAL', message);
+  return new RowdeckError('RDK_INTERNAL', message);
 }

@@ -48,7 +48,7 @@ export type SliceStarts = Map<number, number>;
 
 export async function runScatterTask(plan: ClusterPlan, index: number, starts: SliceStarts = new Map()): Promise<boolean> {
   const task = plan.scatter[index];
-  if (!task) throw new RowdeckError('ERR_INTERNAL', `scatter task ${index} is not in the plan`);
+  if (!task) throw new RowdeckError('RDK_INTERNAL', `scatter task ${index} is not in the plan`);
   const o = enterPlan(plan, [...new Set([0, ...task.slices.map((s) => s.input)])]);
   const t0 = Date.now();
   return runTask<Omit<ScatterDone, keyof DoneRecord>>(plan.work, 'scatter', index, plan.planId, async (dir) => {

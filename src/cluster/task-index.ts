@@ -24,12 +24,12 @@ export function resolveTaskIndex(given: string | number | undefined, count: numb
   const range = `0 to ${count - 1}`;
   const check = (text: string, base: 0 | 1, from: string): { index: number; from: string } => {
     if (!/^\s*\d+\s*$/.test(text)) {
-      throw new RowdeckError('ERR_OPTION', `Invalid task index from ${from}: expected a whole number, got ${JSON.stringify(text)}.`, { option: 'index' });
+      throw new RowdeckError('RDK_OPTION', `Invalid task index from ${from}: expected a whole number, got ${JSON.stringify(text)}.`, { option: 'index' });
     }
     const index = Number(text) - base;
     if (index < 0 || index >= count) {
       const shown = base === 1 ? `${text} (counted from 1, so task ${index})` : text;
-      throw new RowdeckError('ERR_OPTION', `Task index ${shown} from ${from} is out of range: the ${stage} stage of this plan has ${count} task(s), ${range}.`, { option: 'index' });
+      throw new RowdeckError('RDK_OPTION', `Task index ${shown} from ${from} is out of range: the ${stage} stage of this plan has ${count} task(s), ${range}.`, { option: 'index' });
     }
     return { index, from };
   };
@@ -39,7 +39,7 @@ export function resolveTaskIndex(given: string | number | undefined, count: numb
     if (text !== undefined && text !== '') return check(text, v.base, `${v.name} (${v.scheduler})`);
   }
   throw new RowdeckError(
-    'ERR_MISSING_ARGUMENT',
+    'RDK_MISSING_ARGUMENT',
     `No task index: pass --index I (${range}), or run under a scheduler that sets one of ${INDEX_VARIABLES.map((v) => v.name).join(', ')}.`,
     { option: 'index' },
   );

@@ -1,6 +1,13 @@
 /**
  * Class balance: the seeded order strata are dealt in, the greedy placement of whole groups,
  * and the measure the tolerance promise is checked with. Pure.
+ *
+ * The measure is the one balance report of shuffle (the tolerance check before anything is
+ * written), verify (the balance recomputed from the parts) and profile (what a shuffle would
+ * reach): a class's share in a unit against its share in the whole (signedDeviation), its
+ * largest size over units (maxDeviation), over parts and over each split's folds together
+ * (balanceOfUnits; dealBalance from a deal's cells), checked against the tolerance with one
+ * slack for rounding (withinTolerance).
  */
 import type { GroupTable } from './group-table.js';
 import { hashBytes, type Secret } from './hash.js';
@@ -116,29 +123,101 @@ function bySizeThenKey(records: Float64Array, n: number): Uint32Array {
 }
 
 /**
+ * Signed relative deviation of a class's share in a unit from its share in the whole:
+ * (n/unitRecords − classRecords/total) / (classRecords/total); 0 for an empty unit or class.
+ */
+export function signedDeviation(n: number, unitRecords: number, classRecords: number, total: number): number {
+  if (unitRecords <= 0 || classRecords <= 0 || total <= 0) return 0;
+  const overall = classRecords / total;
+  return (n / unitRecords - overall) / overall;
+}
+
+/** A largest deviation and where it is: unit (part, or fold unit) and stratum; -1 where there is none. */
+export interface Deviation {
+  deviation: number;
+  unit: number;
+  stratum: number;
+}
+
+/**
  * Largest relative deviation of a stratum's share in a unit (a part, or a fold) from its share
- * in the whole: max over units u and strata s of |n(u,s)/n(u) − N(s)/N| / (N(s)/N).
+ * in the whole: max over units u and strata s of |signedDeviation|, N(s) the strata's sizes.
  * `counts[u * strata + s]`. Units with no records are skipped. Returns the worst case too.
  */
-export function maxDeviation(
-  counts: ArrayLike<number>,
-  units: number,
-  strataSizes: ArrayLike<number>,
-): { deviation: number; unit: number; stratum: number } {
+export function maxDeviation(counts: ArrayLike<number>, units: number, strataSizes: ArrayLike<number>): Deviation {
   const nStrata = strataSizes.length;
   let total = 0;
   for (let s = 0; s < nStrata; s++) total += strataSizes[s]!;
-  let worst = { deviation: 0, unit: -1, stratum: -1 };
+  let worst: Deviation = { deviation: 0, unit: -1, stratum: -1 };
   for (let u = 0; u < units; u++) {
     let nu = 0;
     for (let s = 0; s < nStrata; s++) nu += counts[u * nStrata + s]!;
     if (nu === 0) continue;
     for (let s = 0; s < nStrata; s++) {
-      const global = strataSizes[s]! / total;
-      if (global === 0) continue;
-      const dev = Math.abs(counts[u * nStrata + s]! / nu - global) / global;
+      const dev = Math.abs(signedDeviation(counts[u * nStrata + s]!, nu, strataSizes[s]!, total));
       if (dev > worst.deviation + 1e-15) worst = { deviation: dev, unit: u, stratum: s };
     }
   }
   return worst;
+}
+
+/** The balance a deal reaches: its largest deviation, where, and whether in a part or a fold. */
+export interface BalanceWorst extends Deviation {
+  kind: 'part' | 'fold';
+}
+
+/**
+ * The measure the tolerance promise is about: the larger of maxDeviation over the parts
+ * (`parts[u * strata + s]`, `partUnits` of them) and over the fold units (`folds`, null without
+ * folds: each split's folds, the split's partitions together), the parts' where they are equal.
+ */
+export function balanceOfUnits(
+  parts: ArrayLike<number>,
+  partUnits: number,
+  folds: ArrayLike<number> | null,
+  foldUnits: number,
+  strataSizes: ArrayLike<number>,
+): BalanceWorst {
+  const part = maxDeviation(parts, partUnits, strataSizes);
+  const fold = folds === null ? { deviation: 0, unit: -1, stratum: -1 } : maxDeviation(folds, foldUnits, strataSizes);
+  return fold.deviation > part.deviation ? { ...fold, kind: 'fold' } : { ...part, kind: 'part' };
+}
+
+/** A deal's cells: (split, partition, fold), cell = (split * partitions + partition) * folds + fold. */
+export interface DealShape {
+  splits: number;
+  partitions: number;
+  folds: number;
+}
+
+/**
+ * balanceOfUnits of a deal's records per cell and stratum: `cells[c * strata + s]` ('by-cell',
+ * as shuffle's plan keeps them) or `cells[s * cellCount + c]` ('by-stratum', as countCells gives
+ * them). Part units are (split, partition); fold units (split, fold).
+ */
+export function dealBalance(cells: ArrayLike<number>, strataSizes: ArrayLike<number>, shape: DealShape, layout: 'by-cell' | 'by-stratum' = 'by-cell'): BalanceWorst {
+  const S = strataSizes.length;
+  const P = shape.partitions;
+  const K = shape.folds;
+  const C = shape.splits * P * K;
+  const parts = new Float64Array(shape.splits * P * S);
+  const folds = K > 1 ? new Float64Array(shape.splits * K * S) : null;
+  for (let c = 0; c < C; c++) {
+    const part = Math.floor(c / K);
+    const fold = Math.floor(c / (P * K)) * K + (c % K);
+    for (let s = 0; s < S; s++) {
+      const n = layout === 'by-cell' ? cells[c * S + s]! : cells[s * C + c]!;
+      parts[part * S + s]! += n;
+      if (folds !== null) folds[fold * S + s]! += n;
+    }
+  }
+  return balanceOfUnits(parts, shape.splits * P, folds, shape.splits * K, strataSizes);
+}
+
+/** Allowance for rounding when a deviation is held against the tolerance. */
+const TOLERANCE_SLACK = 1e-12;
+
+/** Whether a deviation keeps the tolerance (the one comparison shuffle, verify and profile make). */
+export function withinTolerance(deviation: number, tolerance: number): boolean {
+  return deviation <= tolerance + TOLERANCE_SLACK;
 }

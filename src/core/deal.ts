@@ -28,7 +28,7 @@ export const DEALING_SCHEME = 2;
 
 export interface SplitSpec {
   name: string;
-  /** Fraction of the records (weights are normalised) or, with `exact`, a record count. */
+  /** Fraction of the records (the options make them add up to 1; here they are normalised) or, with `exact`, a record count. */
   weight: number;
 }
 

@@ -20,7 +20,7 @@
  * (the module cannot see a JavaScript buffer).
  * `ROWDECK_STATS=js`, or a runtime without WebAssembly SIMD, keeps everything in JavaScript.
  */
-import type { RecordBatch } from '../io/batch.js';
+import type { RecordBatch } from './record-batch.js';
 import { STATS_LAYOUT, STATS_WASM_BASE64 } from './stats-wasm.js';
 import { growTo, instantiate, type WasmMemory } from './wasm.js';
 import { flags } from '../flags.js';

@@ -17,7 +17,7 @@
   (global $m (mut f64) (f64.const 0))
   (global $scale (mut i32) (i32.const 0))
 
-  ;; stats.ts: isIsoDatetime, step for step.
+  ;; value-kind.ts: isIsoDatetime, step for step.
   (func $isDate (param $p i32) (param $n i32) (result i32)
     (local $e i32) (local $i i32) (local $century i32) (local $yy i32) (local $month i32) (local $day i32)
     (local $year i32) (local $c i32) (local $a i32) (local $b i32) (local $fs i32) (local $ta i32) (local $tb i32)
@@ -110,7 +110,7 @@
       (i32.and (i32.lt_u (local.get $ta) (i32.const 10)) (i32.lt_u (local.get $tb) (i32.const 10)))))
     (i32.and (i32.ge_s (local.get $a) (i32.const 0)) (i32.le_s (local.get $a) (i32.const 59))))
 
-  ;; stats.ts: classifyNumber, up to its general conversion (Number of the text), where it returns
+  ;; value-kind.ts: classifyNumber, up to its general conversion (Number of the text), where it returns
   ;; 5 instead. Sets $x, $m and $scale for a number.
   (func $number (param $p i32) (param $n i32) (result i32)
     (local $i i32) (local $e i32) (local $c i32) (local $neg i32) (local $digitsValue i64) (local $mant f64) (local $sig i32) (local $digits i32)
@@ -187,7 +187,7 @@
     ;; Below 10^15 here, so within the safe integers: an integer unless written with . or e.
     (i32.or (local.get $dot) (local.get $exp)))
 
-  ;; stats.ts: classifyValue (with isBoolean), or 5.
+  ;; value-kind.ts: classifyValue (with isBoolean), or 5.
   (func $classify (param $p i32) (param $n i32) (result i32)
     (local $c i32) (local $w i32)
     (local.set $c (i32.load8_u (local.get $p)))
@@ -207,7 +207,7 @@
         (i32.and (i32.eq (local.get $w) (i32.const 1936482662)) (i32.eq (i32.or (i32.load8_u offset=4 (local.get $p)) (i32.const 0x20)) (i32.const 0x65)))))))
     (i32.const 4))
 
-  ;; stats.ts: compareBytes (only the sign counts).
+  ;; value-bytes.ts: compareBytes (only the sign counts).
   (func $cmp (param $a i32) (param $an i32) (param $b i32) (param $bn i32) (result i32)
     (local $n i32) (local $j i32) (local $x i64) (local $d i32)
     (local.set $n (select (local.get $an) (local.get $bn) (i32.lt_u (local.get $an) (local.get $bn))))
@@ -281,7 +281,7 @@
             (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
             (br $next)))
           (if (i32.gt_u (local.get $len) (i32.const 1024)) (then (return (local.get $i))))
-          ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
+          ;; The hash (column-state.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
@@ -324,7 +324,7 @@
             (if (i32.eq (local.get $kd) (i32.const 5)) (then (return (local.get $i))))))
           ;; From here on the value is this slot's.
           (f64.store offset=5256 (local.get $slot) (f64.add (f64.load offset=5256 (local.get $slot)) (f64.const 1)))
-          ;; stats.ts: updateSketch.
+          ;; value-sketch.ts: updateSketch.
           (local.set $r (i32.add (local.get $slot) (i32.shr_u (local.get $h) (i32.const 20))))
           (local.set $j (i32.xor (local.get $h) (i32.const 1540483477)))
           (local.set $j (i32.mul (i32.xor (local.get $j) (i32.shr_u (local.get $j) (i32.const 16))) (i32.const -2048144789)))
@@ -338,7 +338,7 @@
               (local.set $o (i32.add (local.get $slot) (i32.shl (local.get $kd) (i32.const 3))))
               (f64.store offset=5200 (local.get $o) (f64.add (f64.load offset=5200 (local.get $o)) (f64.const 1)))
               (if (i32.le_u (local.get $kd) (i32.const 1)) (then
-                ;; stats.ts: addNumber, DecimalSums.add.
+                ;; column-state.ts: addNumber; exact-sum.ts: DecimalSums.add.
                 (f64.store offset=5240 (local.get $slot) (f64.min (f64.load offset=5240 (local.get $slot)) (global.get $x)))
                 (f64.store offset=5248 (local.get $slot) (f64.max (f64.load offset=5248 (local.get $slot)) (global.get $x)))
                 (local.set $o (i32.add (local.get $slot) (i32.mul (global.get $scale) (i32.const 48))))
@@ -367,7 +367,7 @@
               (if (i32.or (i32.and (local.get $bits) (i32.const 8)) (i32.and (local.get $bits) (i32.sub (local.get $bits) (i32.const 1)))) (then
                 (local.set $text (i32.const 1))
                 (i32.store offset=5284 (local.get $slot) (i32.const 1))))))
-          ;; stats.ts: updateBounds, setLo, setHi.
+          ;; column-state.ts: updateBounds, setLo, setHi.
           (local.set $k0 (i32.xor
             (i32.or (i32.or (i32.shl (local.get $w0) (i32.const 24)) (i32.shl (i32.and (local.get $w0) (i32.const 0xff00)) (i32.const 8)))
                     (i32.or (i32.and (i32.shr_u (local.get $w0) (i32.const 8)) (i32.const 0xff00)) (i32.shr_u (local.get $w0) (i32.const 24))))
@@ -481,7 +481,7 @@
             (f64.store offset=5264 (local.get $slot) (f64.add (f64.load offset=5264 (local.get $slot)) (f64.const 1)))
             (br $next)))
           (if (i32.gt_u (local.get $len) (i32.const 12)) (then (return (local.get $i))))
-          ;; The hash (stats.ts: hashKey): little-endian words, the last one zero-padded.
+          ;; The hash (column-state.ts: hashKey): little-endian words, the last one zero-padded.
           (local.set $h (i32.xor (i32.const -2128831035) (local.get $len)))
           (local.set $w1 (i32.const 0))
           (local.set $w2 (i32.const 0))
@@ -519,7 +519,7 @@
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))) (i32.const -2048144789)))
           (local.set $h (i32.mul (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 13))) (i32.const -1028477387)))
           (local.set $h (i32.xor (local.get $h) (i32.shr_u (local.get $h) (i32.const 16))))
-          ;; stats.ts: ValueCounter.find, over the keys JavaScript registered (entries of 24 bytes:
+          ;; value-counter.ts: ValueCounter.find, over the keys JavaScript registered (entries of 24 bytes:
           ;; hash, length + 1, three words, the key's index; counts after the entries).
           (local.set $e (i32.and (local.get $h) (local.get $mask)))
           (loop $probe

@@ -7,7 +7,7 @@
  * cannot run the modules: no WebAssembly (as under --jitless), no 128-bit SIMD, a big-endian
  * machine (typed arrays would see the module's memory byte-swapped), or no memory left for a new
  * instance. A module of our own that does not compile or link where WebAssembly SIMD is there is a
- * bug, not a missing feature: `instantiate` throws ERR_INTERNAL for it, so it fails the tests
+ * bug, not a missing feature: `instantiate` throws RDK_INTERNAL for it, so it fails the tests
  * instead of quietly running the twins.
  */
 import { LITTLE_ENDIAN } from './platform.js';
@@ -61,7 +61,7 @@ export function wasmSimdAvailable(): boolean {
 /**
  * The exports of a fresh instance of `module` (its bytes in `base64`), or null where this runtime
  * cannot run the modules (see wasmSimdAvailable) or has no memory for another instance: callers
- * then keep their JavaScript twin. Throws ERR_INTERNAL when the bytes do not compile or link, or
+ * then keep their JavaScript twin. Throws RDK_INTERNAL when the bytes do not compile or link, or
  * an export in `needs` is missing.
  */
 export function instantiate<E>(module: WasmModuleName, base64: string, needs: readonly (keyof E & string)[]): E | null {
@@ -95,7 +95,7 @@ const compiled = new Map<string, object>();
 function brokenModule(module: WasmModuleName, what: string, err?: unknown): RowdeckError {
   const why = err instanceof Error ? ` (${err.name}: ${err.message})` : '';
   return new RowdeckError(
-    'ERR_INTERNAL',
+    'RDK_INTERNAL',
     `${WASM_SOURCES[module]}: the embedded WebAssembly module ${what} on Node ${process.version}${why}. ` +
       `This is a bug in rowdeck, not in the data: please report it; ${twinSwitch(module)}=js runs without this module meanwhile.`,
     { module },

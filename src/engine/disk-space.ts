@@ -4,8 +4,8 @@
  * input where the layout spills (none in the memory layout), parts of about the input's size (a
  * third with gzip; twice with `--order spread`, whose work files hold every part once more). On
  * one file system the spill is removed range by range as the parts are written, so the most it
- * holds at once is about the spill and one range's parts. A shortfall is ERR_NO_SPACE naming the
- * folder, the figures and --temp-dir, instead of ERR_DISK_FULL minutes later.
+ * holds at once is about the spill and one range's parts. A shortfall is RDK_NO_SPACE naming the
+ * folder, the figures and --temp-dir, instead of RDK_DISK_FULL minutes later.
  */
 import { statfsSync, statSync } from 'node:fs';
 import { dirname } from 'node:path';
@@ -48,7 +48,7 @@ export interface SpaceNeed {
   out: string;
 }
 
-/** Throws ERR_NO_SPACE where a folder's file system has less room than the run expects to write there. */
+/** Throws RDK_NO_SPACE where a folder's file system has less room than the run expects to write there. */
 export function checkFreeSpace(n: SpaceNeed, free: (path: string) => number | null = freeBytes): void {
   const spill = n.spillBytes;
   const parts = n.outDir === null ? 0 : n.partBytes;
@@ -57,7 +57,7 @@ export function checkFreeSpace(n: SpaceNeed, free: (path: string) => number | nu
   const fmt = formatSize;
   const fail = (dir: string, need: number, have: number, what: string): never => {
     throw new RowdeckError(
-      'ERR_NO_SPACE',
+      'RDK_NO_SPACE',
       `${dir}: not enough free space: this run needs about ${fmt(need)} there (${what}), and ${fmt(have)} is free. Nothing was written. Free some space, or give --temp-dir a folder on a disk with room for the spill (the parts go to --out), or a larger --memory (a spill that fits in it takes no disk).`,
       { file: dir, need, free: have },
     );

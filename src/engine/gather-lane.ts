@@ -76,7 +76,7 @@ function readBucketGroups(file: string, starts: number[], bucket: number): Bucke
       let got = 0;
       while (got < view.length) {
         const r = readSync(fd, view, got, view.length - got, 4 * (col * total + from) + got);
-        if (r === 0) throw new RowdeckError('ERR_INTERNAL', `${file} is shorter than its plan says: the spill folder was changed during the run.`);
+        if (r === 0) throw new RowdeckError('RDK_INTERNAL', `${file} is shorter than its plan says: the spill folder was changed during the run.`);
         got += r;
       }
     }

@@ -161,11 +161,11 @@ export class GroupTableBuilder {
   build(): GroupTable {
     let at = 0;
     try {
-      if (this.#waiting.size > 0) throw new RowdeckError('ERR_INTERNAL', `group census: the list of bucket ${this.#counts.length} never came back.`);
+      if (this.#waiting.size > 0) throw new RowdeckError('RDK_INTERNAL', `group census: the list of bucket ${this.#counts.length} never came back.`);
       return GroupTable.assemble(this.#counts, this.#extras, (bytes) => {
         for (let got = 0; got < bytes.length; ) {
           const n = readSync(this.#fd, bytes, got, bytes.length - got, at + got);
-          if (n === 0) throw new RowdeckError('ERR_INTERNAL', `group census: ${this.#path} ended early.`);
+          if (n === 0) throw new RowdeckError('RDK_INTERNAL', `group census: ${this.#path} ended early.`);
           got += n;
         }
         at += bytes.length;

@@ -7,7 +7,7 @@
 import { DEALING_SCHEME, type DealSpec } from '../core/deal.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
 import type { ResolvedShuffleOptions } from '../options.js';
-import { stratumValues } from './scatter.js';
+import { compareStratumKeys, stratumValues } from '../core/strata.js';
 import type { BinEdges } from './quantiles.js';
 
 /** Version of the manifest's layout. 2 added `dealingScheme` and `options.order`. */
@@ -84,8 +84,8 @@ export interface Manifest {
     threads: number;
     timingsMs: Record<string, number>;
     host: Record<string, unknown>;
-    /** A plan's run under a batch scheduler: its id, and every task's host and times. */
-    plan?: ClusterRunInfo;
+    /** A plan's run under a batch scheduler: its id, and every task's host and times; null for one machine's run. */
+    plan: ClusterRunInfo | null;
   };
 }
 
@@ -126,7 +126,7 @@ export interface ManifestInput {
 export function buildManifest(m: ManifestInput): Manifest {
   const o = m.options;
   // Strata are listed by value (stable, readable); parts' counts are re-indexed to match.
-  const byValue = m.strataKeys.map((_, i) => i).sort((a, b) => (m.strataKeys[a]! < m.strataKeys[b]! ? -1 : m.strataKeys[a]! > m.strataKeys[b]! ? 1 : 0));
+  const byValue = m.strataKeys.map((_, i) => i).sort((a, b) => compareStratumKeys(m.strataKeys[a]!, m.strataKeys[b]!));
   const reindex = (arr: number[]): number[] => byValue.map((i) => arr[i]!);
   const newIndex = new Array<number>(byValue.length);
   byValue.forEach((old, k) => (newIndex[old] = k));
@@ -208,7 +208,7 @@ export function buildManifest(m: ManifestInput): Manifest {
       threads: m.threads,
       timingsMs: m.timings,
       host: m.host,
-      ...(m.plan ? { plan: m.plan } : {}),
+      plan: m.plan ?? null,
     },
   };
 }

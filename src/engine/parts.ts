@@ -167,7 +167,7 @@ export async function partStatistics(a: {
   const whole = new TableStats(a.columns);
   const parts: ColumnSummary[][] = [];
   if (!a.statsInLanes) {
-    if (a.files === null) throw new RowdeckError('ERR_INTERNAL', 'statistics read back from parts that were not written');
+    if (a.files === null) throw new RowdeckError('RDK_INTERNAL', 'statistics read back from parts that were not written');
     const files = a.files;
     const statsLanes = a.lanes as unknown as Lanes<PartStatsTask, PartStatsResult, GatherFinal>;
     let done = 0;

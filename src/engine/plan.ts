@@ -6,12 +6,12 @@
  * will get, the balance they give and the tolerance check, all before anything is written.
  */
 import { buildDealTable, countCells, seededStarts, type DealSpec, type DealTable } from '../core/deal.js';
-import { maxDeviation, orderStrata } from '../core/balance.js';
+import { dealBalance, orderStrata, withinTolerance, type BalanceWorst } from '../core/balance.js';
 import type { Secret } from '../core/hash.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat } from '../io/batch.js';
-import type { PartOrder, ResolvedShuffleOptions } from '../options.js';
-import { stratumValues } from './scatter.js';
+import { optionName, optionSetting, type PartOrder, type ResolvedShuffleOptions, type Surface } from '../options.js';
+import { describeStratum, keyOrderIndex, stratumValues } from '../core/strata.js';
 
 export type AssignMode = 'exact' | 'hash' | 'group';
 
@@ -100,19 +100,19 @@ export function dealingOrder(strata: string[], bucketCounts: ArrayLike<number>[]
 }
 
 /** The splits with '*' (the rest) resolved, checking that record counts fit the input. */
-export function resolveSplitWeights(o: Pick<ResolvedShuffleOptions, 'splits' | 'splitsAreCounts' | 'restSplit'>, records: number): DealSpec['splits'] {
+export function resolveSplitWeights(o: Pick<ResolvedShuffleOptions, 'splits' | 'splitsAreCounts' | 'restSplit'> & { surface?: Surface }, records: number): DealSpec['splits'] {
   if (!o.splitsAreCounts) return o.splits;
   const given = o.splits.reduce((a, s, i) => (i === o.restSplit ? a : a + s.weight), 0);
   if (o.restSplit >= 0) {
     if (given > records) {
-      throw new RowdeckError('ERR_SPLIT_SIZES', `--split asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
+      throw new RowdeckError('RDK_SPLIT_SIZES', `${optionName(o.surface ?? 'cli', 'split')} asks for ${given} records before "*", but the input has ${records}. Lower the counts.`);
     }
     return o.splits.map((s, i) => (i === o.restSplit ? { name: s.name, weight: records - given } : s));
   }
   if (given !== records) {
     throw new RowdeckError(
-      'ERR_SPLIT_SIZES',
-      `--split counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
+      'RDK_SPLIT_SIZES',
+      `${optionName(o.surface ?? 'cli', 'split')} counts add up to ${given}, but the input has ${records} records. Make them add up, give one split as * (the rest), or use fractions such as 0.8.`,
     );
   }
   return o.splits;
@@ -145,50 +145,26 @@ export function hashCellCounts(byUnion: Float64Array[], localToGlobal: number[],
   return out;
 }
 
-/** The largest deviation of a class's share in a part or a fold from its overall share. */
-export interface Worst {
-  deviation: number;
-  /** Part index, or (kind 'fold') split × folds + fold; -1 when nothing deviates. */
-  unit: number;
-  stratum: number;
-  kind: 'part' | 'fold';
-}
+/**
+ * The largest deviation of a class's share in a part or a fold from its overall share (unit: part
+ * index, or for kind 'fold' split × folds + fold; -1 when nothing deviates).
+ */
+export type Worst = BalanceWorst;
 
-/** The balance that the counts `[cell * strata + s]` give: parts (files), and folds within each split. */
+/** The balance that the counts `[cell * strata + s]` give: parts (files), and folds within each split (core/balance.ts). */
 export function worstDeviation(cellCounts: Float64Array, deal: DealSpec, strataSizes: number[]): Worst {
-  const K = deal.folds;
-  const parts = partCount(deal);
-  const cells = parts * K;
-  const nStrata = strataSizes.length;
-  const partStrata = new Float64Array(parts * nStrata);
-  for (let c = 0; c < cells; c++) for (let s = 0; s < nStrata; s++) partStrata[Math.floor(c / K) * nStrata + s]! += cellCounts[c * nStrata + s]!;
-  const partDev = maxDeviation(partStrata, parts, strataSizes);
-  let foldDev = { deviation: 0, unit: -1, stratum: -1 };
-  if (K > 1) {
-    const S = deal.splits.length;
-    const foldStrata = new Float64Array(S * K * nStrata);
-    for (let c = 0; c < cells; c++) {
-      const split = Math.floor(c / (deal.partitions * K));
-      const f = c % K;
-      for (let s = 0; s < nStrata; s++) foldStrata[(split * K + f) * nStrata + s]! += cellCounts[c * nStrata + s]!;
-    }
-    foldDev = maxDeviation(foldStrata, S * K, strataSizes);
-  }
-  return foldDev.deviation > partDev.deviation ? { ...foldDev, kind: 'fold' } : { ...partDev, kind: 'part' };
+  return dealBalance(cellCounts, strataSizes, { splits: deal.splits.length, partitions: deal.partitions, folds: deal.folds });
 }
 
-function describeStratum(key: string, columns: string[], excludeValues: boolean, index: number): string {
-  if (excludeValues) return `stratum #${index + 1}`;
-  const vals = stratumValues(key);
-  if (columns.length === 0) return 'all records';
-  return columns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
-}
-
-/** Throws, before anything is written, when the balance the counts give breaks --tolerance. */
+/**
+ * Throws, before anything is written, when the balance the counts give breaks --tolerance. Hash
+ * assignment enforces none: its shares are what the keys give (reported, see the summary).
+ */
 export function checkTolerance(o: ResolvedShuffleOptions, worst: Worst, d: DealingOrder, partPaths: string[], deal: DealSpec, records: number): void {
-  if (worst.deviation <= o.tolerance + 1e-12) return;
+  if (o.assign === 'hash' || withinTolerance(worst.deviation, o.tolerance)) return;
   const size = d.strataSizes[worst.stratum]!;
-  const what = describeStratum(d.strataKeys[worst.stratum]!, o.stratify.map((s) => s.name), o.excludeValues, worst.stratum);
+  // Named as the manifest would list it: its place among the strata in key order.
+  const what = describeStratum(o.stratify.map((s) => s.name), o.excludeValues ? null : stratumValues(d.strataKeys[worst.stratum]!), keyOrderIndex(d.strataKeys, worst.stratum));
   const unit =
     worst.kind === 'part'
       ? `part ${partPaths[worst.unit]!}`
@@ -196,12 +172,12 @@ export function checkTolerance(o: ResolvedShuffleOptions, worst: Worst, d: Deali
   const units = worst.kind === 'part' ? partPaths.length : deal.folds * deal.splits.length;
   const hints: string[] = [];
   if (size < units) hints.push(`fewer ${worst.kind === 'part' ? 'partitions' : 'folds'} (this class has ${size} record${size === 1 ? '' : 's'} for ${units} ${worst.kind}s)`);
-  hints.push(`a looser --tolerance (≥ ${Math.ceil(worst.deviation * 100) / 100})`);
+  hints.push(`a looser tolerance (${optionSetting(o.surface, 'tolerance', String(Math.ceil(worst.deviation * 100) / 100))} or more)`);
   if (o.stratify.length > 0) hints.push('merging rare classes into one before the shuffle');
   if (o.assign === 'group') hints.push('smaller or more groups');
   throw new RowdeckError(
-    'ERR_TOLERANCE',
-    `Cannot keep class ${what} (${size} of ${records} records) within --tolerance ${o.tolerance} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
+    'RDK_TOLERANCE',
+    `Cannot keep class ${what} (${size} of ${records} records) within ${optionSetting(o.surface, 'tolerance', String(o.tolerance))} in every ${worst.kind}: its share in ${unit} deviates by ${(worst.deviation * 100).toFixed(1)}% from its overall share. Nothing was written. What would work: ${hints.join('; ')}.`,
     { stratum: what, count: size, deviation: worst.deviation, tolerance: o.tolerance },
   );
 }

@@ -21,22 +21,24 @@
  * (then a fixed-size distinct estimate), and one counter per stratum.
  */
 import { statSync } from 'node:fs';
-import { availableParallelism } from 'node:os';
-import { maxDeviation, orderStrata } from '../core/balance.js';
+import { dealBalance, orderStrata, withinTolerance } from '../core/balance.js';
 import { buildDealTable, countCells, seededStarts, type DealSpec } from '../core/deal.js';
 import { deriveSecret, type Secret } from '../core/hash.js';
 import { ByteIdTable } from '../core/byte-table.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { RowdeckError } from '../errors.js';
 import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch, type RejectedRecord } from '../io/batch.js';
-import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead, smallInputs } from '../io/input.js';
+import { detectFormat, isPlainFile, isStreamInput, nameInput, openInput, ReadAhead } from '../io/input.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../io/blocks.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { RecordReader, unknownColumn, type RecordReaderOptions } from '../io/reader.js';
-import { DEFAULT_SEED, DEFAULT_TOLERANCE, invalid, parseStratify, type StratifyColumn } from '../options.js';
+import { RecordReader, type RecordReaderOptions } from '../io/reader.js';
+import { unknownColumn } from '../io/fields.js';
+import { DEFAULT_SEED, optionSetting, resolveProfileOptions, type ProfileOptions, type ResolvedProfileOptions } from '../options.js';
+import { chooseFormats } from '../io/sniff.js';
 import { VERSION } from '../version.js';
-import { binLabel, binOf, computeBinEdges, binValueAt, type BinEdges } from './quantiles.js';
-import { BatchSender, fieldKey, MAX_STRATA, MISSING_KEY, stratumValues, TUPLE_SEP, type BatchLanes } from './scatter.js';
+import { computeBinEdges, type BinEdges } from './quantiles.js';
+import { BatchSender, type BatchLanes } from './scatter.js';
+import { columnKey, compareStratumKeys, describeStratum, keyBytes, keyParts, MAX_STRATA, MISSING_KEY, stratumKey, stratumValues, tooManyStrata, type KeyRange } from '../core/strata.js';
 import { readInputs, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { resolveWorkerFile } from '../workers/worker-file.js';
 
@@ -56,41 +58,7 @@ const MAX_LISTED_CLASSES = 10;
 /** More classes than this in a stratify column reads like an identifier, not a class. */
 const MANY_CLASSES = 1000;
 
-export interface ProfileProgress {
-  stage: 'bins' | 'read';
-  /** Input bytes read so far, and the total (file sizes; 0 when unknown, e.g. stdin). */
-  done: number;
-  total: number;
-  records: number;
-  elapsedMs: number;
-}
-
-export interface ProfileOptions {
-  /** Input files; '-' reads standard input. */
-  inputs: string[];
-  /** Column(s) whose class balance to show; `name:bins=Q` for Q quantile bins of a numeric column. */
-  stratify?: string | string[];
-  /** Partitions you plan: warns about classes that cannot be spread over them. Default 1. */
-  partitions?: number;
-  /** Folds you plan (≥ 2): warns about classes that cannot be spread over them. */
-  folds?: number;
-  /** Tolerance the warnings check against, as shuffle's `tolerance`. Default 0.5. */
-  tolerance?: number;
-  format?: InputFormat;
-  delimiter?: string;
-  /** First line is a header (CSV/TSV). Default true. */
-  header?: boolean;
-  /** 'fail' (default) stops at the first malformed record; 'skip' counts and lists it. */
-  onBadRecord?: 'fail' | 'skip';
-  /** Leave data values out: min/max, frequent values, class names, bin edges, reject reasons. */
-  excludeValues?: boolean;
-  /**
-   * Worker threads for the statistics. Default: the number of cores, or none for inputs under
-   * 32 MiB; 0 works on the calling thread.
-   */
-  threads?: number;
-  onProgress?: (e: ProfileProgress) => void;
-}
+export type { ProfileOptions, ProfileProgress } from '../options.js';
 
 export interface ProfileInput {
   path: string;
@@ -161,66 +129,6 @@ export interface Profile {
   timingsMs: { bins: number; read: number; total: number };
 }
 
-interface ResolvedProfileOptions {
-  inputs: string[];
-  stratify: StratifyColumn[];
-  partitions: number;
-  folds: number;
-  tolerance: number;
-  format: InputFormat | null;
-  delimiter: string | undefined;
-  header: boolean;
-  onBadRecord: BadRecordPolicy;
-  excludeValues: boolean;
-  threads: number;
-  onProgress: ((e: ProfileProgress) => void) | null;
-}
-
-function readInteger(name: string, v: unknown, min: number, max: number, dflt: number): number {
-  if (v === undefined) return dflt;
-  if (typeof v !== 'number' || !Number.isInteger(v) || v < min || v > max) throw invalid(name, `an integer from ${min} to ${max}`, v);
-  return v;
-}
-
-/** Validates profile options; every rejection is an ERR_OPTION naming the option. */
-export function resolveProfileOptions(o: ProfileOptions): ResolvedProfileOptions {
-  if (!o || typeof o !== 'object') throw invalid('options', 'an object', o);
-  if (!Array.isArray(o.inputs) || o.inputs.length === 0 || o.inputs.some((x) => typeof x !== 'string' || x === '')) {
-    throw invalid('inputs', 'one or more input paths', o.inputs);
-  }
-  if (o.inputs.filter((x) => x === '-').length > 1) throw invalid('inputs', 'standard input (-) at most once', o.inputs.join(' '));
-  const tolerance = o.tolerance ?? DEFAULT_TOLERANCE;
-  if (typeof tolerance !== 'number' || !(tolerance >= 0) || !Number.isFinite(tolerance)) throw invalid('tolerance', 'a number ≥ 0 (e.g. 0.1 for 10%)', o.tolerance);
-  if (o.format !== undefined && !['csv', 'tsv', 'jsonl'].includes(o.format)) throw invalid('format', '"csv", "tsv" or "jsonl"', o.format);
-  if (o.delimiter !== undefined && (typeof o.delimiter !== 'string' || Buffer.byteLength(o.delimiter) !== 1 || o.delimiter === '"' || o.delimiter === '\n' || o.delimiter === '\r')) {
-    throw invalid('delimiter', 'one single-byte character other than a quote or a line end', o.delimiter);
-  }
-  const onBadRecord = o.onBadRecord ?? 'fail';
-  if (onBadRecord !== 'fail' && onBadRecord !== 'skip') {
-    throw invalid('onBadRecord', '"fail" or "skip" (profile writes no files, so there is nothing to quarantine to; skipped records are counted and the first ones listed)', onBadRecord);
-  }
-  if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalid('onProgress', 'a function', typeof o.onProgress);
-  const stratify = parseStratify(o.stratify);
-  const names = stratify.map((s) => s.name);
-  const dup = names.find((n, i) => names.indexOf(n) !== i);
-  if (dup !== undefined) throw invalid('stratify', 'each column once', dup);
-  return {
-    inputs: [...o.inputs],
-    stratify,
-    partitions: readInteger('partitions', o.partitions, 1, 100000, 1),
-    folds: readInteger('folds', o.folds, 2, 1000, 1),
-    tolerance,
-    format: o.format ?? null,
-    delimiter: o.delimiter,
-    header: o.header ?? true,
-    onBadRecord,
-    excludeValues: o.excludeValues ?? false,
-    // Small inputs are profiled on this thread unless threads are asked for (see INLINE_MAX_BYTES).
-    threads: readInteger('threads', o.threads, 0, 256, smallInputs(o.inputs) ? 0 : Math.max(1, availableParallelism())),
-    onProgress: o.onProgress ?? null,
-  };
-}
-
 // --- the per-batch work (worker threads, or the calling thread) ------------------------------------
 
 /** What one profile task needs: plain data, so it can be posted to a worker. */
@@ -262,7 +170,7 @@ export function joinColumnShares(columns: string[], results: ProfileTaskResult[]
   const first = results[0];
   const joined = results.flatMap((r) => r.stats.columns);
   if (!first || joined.length !== columns.length || joined.some((c, i) => c !== columns[i]) || results.some((r) => r.stats.records !== first.stats.records)) {
-    throw new RowdeckError('ERR_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
+    throw new RowdeckError('RDK_INTERNAL', `profile: the threads' column shares do not add up to the input's ${columns.length} columns.`);
   }
   return { stats: { ...first.stats, columns: columns.slice(), stats: results.flatMap((r) => r.stats.stats) }, strata: first.strata };
 }
@@ -313,6 +221,7 @@ export class ProfileTask {
   readonly #fast = new ByteCounter();
   /** One plain stratify column without bins: counted by bytes. */
   readonly #single: boolean;
+  readonly #keyRange: KeyRange = { start: 0, end: 0 };
   /** The columns this task keeps, [from, to) of `columns` (all but with column shares). */
   readonly #from: number;
   readonly #to: number;
@@ -373,36 +282,19 @@ export class ProfileTask {
     const slotOf = (j: number): number => (slots === null ? spec[j]!.column : slots[spec[j]!.column]!);
     if (this.#single) {
       const w = slotOf(0);
+      const r = this.#keyRange;
       for (let i = 0; i < b.count; i++) {
-        const k = i * b.wanted + w;
-        const s = b.fieldStart[k]!;
-        const e = b.fieldEnd[k]!;
-        // Plain, non-empty: its bytes are its key (see fieldKey). Anything else takes the general path.
-        if (w >= 0 && b.fieldKind[k] === FieldKind.Plain && e > s) this.#fast.count(b.data, s, e);
-        else this.#add(w < 0 ? MISSING_KEY : fieldKey(b, i, w));
+        // Counted by its bytes where they are its key (keyBytes); anything else by its key.
+        if (w >= 0 && keyBytes(b, i, w, r)) this.#fast.count(b.data, r.start, r.end);
+        else this.#add(columnKey(b, i, w, spec[0]!, this.#c.files[input] ?? '<input>'));
       }
       this.#checkCount();
       return;
     }
     const ws = spec.map((_, j) => slotOf(j));
-    for (let i = 0; i < b.count; i++) {
-      let key = '';
-      for (let j = 0; j < spec.length; j++) {
-        if (j > 0) key += TUPLE_SEP;
-        key += this.#partKey(b, i, ws[j]!, j, input);
-      }
-      this.#add(key);
-    }
+    const file = this.#c.files[input] ?? '<input>';
+    for (let i = 0; i < b.count; i++) this.#add(stratumKey(b, i, ws, spec, file));
     this.#checkCount();
-  }
-
-  /** One column's part of a stratum key, as shuffle's scatter makes it. */
-  #partKey(b: RecordBatch, i: number, w: number, j: number, input: number): string {
-    if (w < 0) return MISSING_KEY;
-    const s = this.#c.stratify[j]!;
-    if (s.edges === null) return fieldKey(b, i, w);
-    const v = binValueAt(b, i, w, s.name, this.#c.files[input] ?? '<input>');
-    return v === null ? MISSING_KEY : binLabel(s.edges, binOf(s.edges, v));
   }
 
   #add(key: string): void {
@@ -418,14 +310,6 @@ export class ProfileTask {
     this.#fast.forEach((k, n) => strata.set(k, (strata.get(k) ?? 0) + n));
     return { stats: this.#stats.toTransfer(), strata: [...strata] };
   }
-}
-
-function tooManyStrata(columns: string[]): RowdeckError {
-  return new RowdeckError(
-    'ERR_OPTION',
-    `--stratify ${columns.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
-    { column: columns.join(',') },
-  );
 }
 
 /** What the main thread sends a profile worker. */
@@ -506,6 +390,9 @@ function readerOptions(o: ResolvedProfileOptions, k: number, wanted: string[], e
 
 export async function profile(options: ProfileOptions): Promise<Profile> {
   const o = resolveProfileOptions(options);
+  // The inputs' format, as a shuffle of them would read them (see io/sniff.ts); inputs named
+  // as different formats are each read as their name says (null).
+  o.format = await chooseFormats(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v), 'profile', true);
   const t0 = Date.now();
   const secret = deriveSecret(DEFAULT_SEED);
   // Unknown (0: no bar) when any input is a stream: its size is not known before it ends.
@@ -721,10 +608,6 @@ interface Gathered {
   t0: number;
 }
 
-function compareKeys(a: string, b: string): number {
-  return a < b ? -1 : a > b ? 1 : 0;
-}
-
 function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
   // The first thread's tables are turned back into a table, and the others merged into it from
   // their serialised form: a wide input's tables are large.
@@ -746,16 +629,16 @@ function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
     const merged = new Map<string, number>();
     for (const r of g.results) for (const [k, n] of r.strata) merged.set(k, (merged.get(k) ?? 0) + n);
     if (merged.size > MAX_STRATA) throw tooManyStrata(o.stratify.map((s) => s.name));
-    keys = [...merged.keys()].sort(compareKeys);
+    keys = [...merged.keys()].sort(compareStratumKeys);
     counts = keys.map((k) => merged.get(k)!);
     const share = (n: number): number => (records > 0 ? n / records : 0);
     const byColumn = o.stratify.map((s, j) => {
       const marginal = new Map<string, number>();
       keys.forEach((k, i) => {
-        const part = k.split(TUPLE_SEP)[j]!;
+        const part = keyParts(k)[j]!;
         marginal.set(part, (marginal.get(part) ?? 0) + counts[i]!);
       });
-      const parts = [...marginal.keys()].sort(compareKeys);
+      const parts = [...marginal.keys()].sort(compareStratumKeys);
       return {
         column: s.bins > 0 ? `${s.name}:bins=${s.bins}` : s.name,
         values: parts.map((p) => ({ value: o.excludeValues ? null : stratumValues(p), count: marginal.get(p)!, share: share(marginal.get(p)!) })),
@@ -788,12 +671,9 @@ function buildProfile(o: ResolvedProfileOptions, g: Gathered): Profile {
   };
 }
 
-/** A class as messages name it: its values, or its position when values are excluded. */
+/** A class as messages name it (core/strata.ts); `index`: its place in strata.values, key order. */
 function describeClass(o: ResolvedProfileOptions, key: string, index: number): string {
-  // Positions follow the profile's value order (strata.values), as shuffle's "stratum #N".
-  if (o.excludeValues) return o.stratify.length === 1 ? `${o.stratify[0]!.name} class #${index + 1}` : `stratum #${index + 1}`;
-  const vals = stratumValues(key);
-  return o.stratify.map((s, j) => `${s.name}=${vals[j] === null ? '(missing)' : JSON.stringify(vals[j])}`).join(', ');
+  return describeStratum(o.stratify.map((s) => s.name), o.excludeValues ? null : stratumValues(key), index);
 }
 
 /**
@@ -805,22 +685,7 @@ export function predictDeviation(keys: string[], counts: number[], partitions: n
   const sizes = order.map((i) => counts[i]!);
   const deal: DealSpec = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions, folds };
   const table = buildDealTable(sizes, deal, seededStarts(secret, 1));
-  const cc = countCells(table); // [s * cells + cell], cell = partition * K + fold
-  const nS = sizes.length;
-  const cells = partitions * folds;
-  const partStrata = new Float64Array(partitions * nS);
-  const foldStrata = new Float64Array(folds * nS);
-  for (let s = 0; s < nS; s++) {
-    for (let c = 0; c < cells; c++) {
-      const n = cc[s * cells + c]!;
-      if (n === 0) continue;
-      partStrata[Math.floor(c / folds) * nS + s]! += n;
-      foldStrata[(c % folds) * nS + s]! += n;
-    }
-  }
-  const part = maxDeviation(partStrata, partitions, sizes);
-  const fold = folds > 1 ? maxDeviation(foldStrata, folds, sizes) : { deviation: 0, unit: -1, stratum: -1 };
-  const worst = fold.deviation > part.deviation ? { ...fold, kind: 'fold' as const } : { ...part, kind: 'part' as const };
+  const worst = dealBalance(countCells(table), sizes, { splits: 1, partitions, folds }, 'by-stratum');
   return { deviation: worst.deviation, stratum: worst.stratum < 0 ? -1 : order[worst.stratum]!, kind: worst.kind };
 }
 
@@ -860,9 +725,9 @@ function warnAboutStrata(o: ResolvedProfileOptions, keys: string[], counts: numb
   const K = o.folds;
   if ((P > 1 || K > 1) && keys.length * P * K <= 5_000_000) {
     const worst = predictDeviation(keys, counts, P, K, secret);
-    if (worst.deviation > o.tolerance + 1e-12) {
+    if (!withinTolerance(worst.deviation, o.tolerance)) {
       const budget = keys.length * K * P;
-      const fits = (p: number, k: number): boolean => predictDeviation(keys, counts, p, k, secret).deviation <= o.tolerance + 1e-12;
+      const fits = (p: number, k: number): boolean => withinTolerance(predictDeviation(keys, counts, p, k, secret).deviation, o.tolerance);
       const tries = Math.max(1, Math.min(200, Math.floor(20_000_000 / Math.max(1, budget))));
       const partitions = P > 1 ? findLargest(P - 1, 1, (p) => fits(p, K), tries) : null;
       const folds = K > 1 ? findLargest(K - 1, 2, (k) => fits(P, k), tries) : null;
@@ -889,7 +754,7 @@ function warnAboutStrata(o: ResolvedProfileOptions, keys: string[], counts: numb
   o.stratify.forEach((s, j) => {
     let missing = 0;
     keys.forEach((k, i) => {
-      if (k.split(TUPLE_SEP)[j] === MISSING_KEY) missing += counts[i]!;
+      if (keyParts(k)[j] === MISSING_KEY) missing += counts[i]!;
     });
     if (missing > 0) {
       out.push({

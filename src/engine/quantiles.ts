@@ -8,10 +8,10 @@
  * budgets give the same edges, and they are recorded in the manifest.
  */
 import { hashWords3, type Secret } from '../core/hash.js';
-import { RowdeckError, where } from '../errors.js';
-import { FieldKind, type BadRecordPolicy, type InputFormat, type RecordBatch } from '../io/batch.js';
+import { binValueAt } from '../core/bins.js';
+import { RowdeckError } from '../errors.js';
+import type { BadRecordPolicy, InputFormat } from '../io/batch.js';
 import { isStreamInput, nameInput, readRecords } from '../io/input.js';
-import { fieldText } from '../io/reader.js';
 
 export interface BinSpec {
   name: string;
@@ -45,61 +45,6 @@ export interface QuantileOptions {
  * budget; with more values than this the sample's quantiles stand in for the column's.
  */
 export const SAMPLE_VALUES = 4 * 1024 * 1024;
-
-/** Number of the bin a value falls in. */
-export function binOf(edges: ArrayLike<number>, v: number): number {
-  let lo = 0;
-  let hi = edges.length;
-  while (lo < hi) {
-    const m = (lo + hi) >>> 1;
-    if (v >= edges[m]!) lo = m + 1;
-    else hi = m;
-  }
-  return lo;
-}
-
-/** A readable, sortable label of bin k: "03 [12.5, 17.25)". */
-export function binLabel(edges: ArrayLike<number>, k: number): string {
-  const lo = k === 0 ? '-inf' : String(edges[k - 1]);
-  const hi = k === edges.length ? '+inf' : String(edges[k]);
-  return `${String(k + 1).padStart(2, '0')} [${lo}, ${hi})`;
-}
-
-/** Parses a bin column's text: null for missing, a number, or throws with file:line. */
-export function parseBinValue(text: string | null, column: string, file: string, line: number): number | null {
-  if (text === null || text.trim() === '') return null;
-  const v = Number(text);
-  if (!Number.isFinite(v)) {
-    throw new RowdeckError(
-      'ERR_NOT_NUMERIC',
-      `${where(file, line)}: column "${column}" holds ${JSON.stringify(text.length > 40 ? text.slice(0, 40) + '…' : text)}, not a number; ${column}:bins=… needs numbers (or empty for missing). Stratify on it without :bins to treat it as classes.`,
-      { file, line, column },
-    );
-  }
-  return v;
-}
-
-/**
- * parseBinValue of wanted field w of record i: a plain field of printable ASCII (no space) is
- * read from its bytes without decoding them (its text is the same either way, so Number() sees
- * what it would), anything else, or a value that is not a number, as parseBinValue reads it.
- */
-export function binValueAt(b: RecordBatch, i: number, w: number, column: string, file: string): number | null {
-  const k = i * b.wanted + w;
-  if (b.fieldKind[k] === FieldKind.Plain) {
-    const s = b.fieldStart[k]!;
-    const e = b.fieldEnd[k]!;
-    if (s === e) return null;
-    const d = b.data;
-    let p = s;
-    while (p < e && d[p]! > 0x20 && d[p]! < 0x7f) p++;
-    if (p === e) {
-      const v = Number(d.toString('latin1', s, e));
-      if (Number.isFinite(v)) return v;
-    }
-  }
-  return parseBinValue(fieldText(b, i, w), column, file, b.line[i]!);
-}
 
 /**
  * The values at the given ranks (each in [0, v.length)) of `v` sorted as
@@ -156,7 +101,7 @@ export function selectRanks(v: Float64Array, ranks: readonly number[]): number[]
 export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
   const stream = o.inputs.find(isStreamInput);
   if (stream !== undefined) {
-    throw new RowdeckError('ERR_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
+    throw new RowdeckError('RDK_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
   }
   const cols = o.columns;
   const cap = Math.max(1024, Math.floor(SAMPLE_VALUES / Math.max(1, cols.length)));

@@ -26,7 +26,7 @@ export function replayable(m: Manifest): { ok: true } | { ok: false; why: string
 }
 
 /** The options of the run the manifest describes, over `inputs` (statistics left out: they do not change the parts). */
-export function replayOptions(m: Manifest, inputs: string[], dir: string, extra: { tempDir?: string; threads?: number } = {}): ShuffleOptions {
+export function replayOptions(m: Manifest, inputs: string[], dir: string, extra: { tempDir?: string; threads?: number; memory?: number } = {}): ShuffleOptions {
   const x = m.options as {
     partitions: number;
     stratify: string[];
@@ -52,13 +52,14 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
     seed: m.seed ?? undefined,
     partitions: x.partitions,
     stratify: x.stratify,
-    tolerance: x.tolerance,
     format: x.format,
     header: x.header,
     gzip: x.gzip,
     onBadRecord: x.onBadRecord,
     excludeValues: x.excludeValues,
   };
+  // Hash mode enforces no tolerance, so it takes none.
+  if (x.assign !== 'hash') o.tolerance = x.tolerance;
   if (x.delimiter !== null) o.delimiter = x.delimiter;
   if (x.order !== undefined) o.order = x.order;
   if (x.folds > 1) {
@@ -67,28 +68,33 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
   }
   if (x.split !== null) {
     // The manifest holds the weights as dealt. Record counts are given with the last split as the
-    // rest: the same counts whenever the inputs hold the same records (and counts such as 1 and 1
-    // would otherwise read as fractions).
-    const split: Record<string, number | '*'> = {};
-    x.split.forEach((s, i) => (split[s.name] = x.splitWeightsAreCounts && i === x.split!.length - 1 ? '*' : s.weight));
-    o.split = split;
+    // rest: the same counts whenever the inputs hold the same records. Fractions are written with
+    // a decimal point, so a fraction such as 1 or 0 stays a fraction (see parseSplits).
+    o.split = x.split
+      .map((s, i) => {
+        if (x.splitWeightsAreCounts) return `${s.name}=${i === x.split!.length - 1 ? '*' : String(s.weight)}`;
+        const w = String(s.weight);
+        return `${s.name}=${/^\d+$/.test(w) ? `${w}.0` : w}`;
+      })
+      .join(',');
   }
   if (x.assign === 'group' && x.group !== null) o.group = x.group;
   if (x.key.length > 0) o.key = x.key;
   if (x.assign === 'hash') o.assign = 'hash';
   if (extra.tempDir !== undefined) o.tempDir = extra.tempDir;
   if (extra.threads !== undefined) o.threads = extra.threads;
+  if (extra.memory !== undefined) o.memory = extra.memory;
   return o;
 }
 
 /** Runs the shuffle again without writing parts; returns the manifest it would have written. The spill goes beside `dir` unless `tempDir` says otherwise. */
-export async function replayShuffle(m: Manifest, inputs: string[], dir: string, extra: { tempDir?: string; threads?: number } = {}): Promise<Manifest> {
+export async function replayShuffle(m: Manifest, inputs: string[], dir: string, extra: { tempDir?: string; threads?: number; memory?: number } = {}): Promise<Manifest> {
   const run = await runPipeline(replayOptions(m, inputs, dir, extra), { sink: 'hash', spillBeside: dirname(resolve(dir)) });
   return run.manifest;
 }
 
 /** Codes that say the replay could not run here (the environment), not that the output differs. */
-export const REPLAY_ENVIRONMENT_CODES = new Set(['ERR_IO', 'ERR_PERMISSION', 'ERR_DISK_FULL', 'ERR_TOO_MANY_OPEN_FILES', 'ERR_INPUT_NOT_FOUND', 'ERR_INTERNAL']);
+export const REPLAY_ENVIRONMENT_CODES = new Set(['RDK_IO', 'RDK_PERMISSION', 'RDK_DISK_FULL', 'RDK_TOO_MANY_OPEN_FILES', 'RDK_INPUT_NOT_FOUND', 'RDK_INTERNAL']);
 
 export interface ReplayDifference {
   /** A part's path, or `manifest.json`. */

@@ -52,11 +52,11 @@ export function checkInputs(inputs: string[]): void {
       st = statSync(p);
     } catch (err) {
       if ((err as NodeJS.ErrnoException).code === 'ENOENT') {
-        throw new RowdeckError('ERR_INPUT_NOT_FOUND', `${p}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: p });
+        throw new RowdeckError('RDK_INPUT_NOT_FOUND', `${p}: no such file. Check the path (it is relative to ${process.cwd()}).`, { file: p });
       }
       throw systemError(err, p, 'looking at an input');
     }
-    if (st.isDirectory()) throw new RowdeckError('ERR_IO', `${p}: reading an input failed: it is a folder, not a file. Give the files in it instead (e.g. ${join(p, '*.csv')}).`, { file: p, errno: 'EISDIR', operation: 'reading an input' });
+    if (st.isDirectory()) throw new RowdeckError('RDK_IO', `${p}: reading an input failed: it is a folder, not a file. Give the files in it instead (e.g. ${join(p, '*.csv')}).`, { file: p, errno: 'EISDIR', operation: 'reading an input' });
     try {
       accessSync(p, constants.R_OK);
     } catch (err) {
@@ -154,7 +154,7 @@ export function startRunWork(o: RunWorkOptions): RunWork {
       // Made below (or the making reports why it cannot be).
     }
     if (rootIsFolder === false) {
-      throw new RowdeckError('ERR_IO', `${spillRoot}: creating the spill folder failed: it is a file, not a folder. Give --temp-dir a folder (it is made if missing).`, { file: spillRoot, errno: 'ENOTDIR', operation: 'creating the spill folder' });
+      throw new RowdeckError('RDK_IO', `${spillRoot}: creating the spill folder failed: it is a file, not a folder. Give --temp-dir a folder (it is made if missing).`, { file: spillRoot, errno: 'ENOTDIR', operation: 'creating the spill folder' });
     }
     makeParents(spillRoot, createdForSpill);
     if (o.tempDir !== null || !claim) {
@@ -186,7 +186,7 @@ export function startRunWork(o: RunWorkOptions): RunWork {
       return d;
     },
     commit() {
-      if (!claim) throw new RowdeckError('ERR_INTERNAL', 'commit() of a run without an output folder');
+      if (!claim) throw new RowdeckError('RDK_INTERNAL', 'commit() of a run without an output folder');
       aside = claim.commit();
       committed = true;
       record.add(...aside);

@@ -9,7 +9,7 @@ import { deriveSecret, type Secret } from '../core/hash.js';
 import { RowdeckError } from '../errors.js';
 import type { InputFormat, RejectedRecord } from '../io/batch.js';
 import { isStreamInput } from '../io/input.js';
-import type { ResolvedShuffleOptions } from '../options.js';
+import { optionName, optionSetting, type ResolvedShuffleOptions } from '../options.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { resolveWorkerFile } from '../workers/worker-file.js';
 import type { BlockReply } from '../io/blocks.js';
@@ -139,8 +139,8 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
     onSchema: (schema) => {
       if (o.foldColumn !== null && schema.columns.includes(o.foldColumn)) {
         throw new RowdeckError(
-          'ERR_OPTION',
-          `Invalid option "foldColumn": the input already has a column named "${o.foldColumn}". Name the added column otherwise with --fold-column NAME.`,
+          'RDK_OPTION',
+          `Invalid option ${optionName(o.surface, 'foldColumn')}: the input already has a column named "${o.foldColumn}". Name the added column otherwise (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`,
           { option: 'foldColumn', column: o.foldColumn },
         );
       }

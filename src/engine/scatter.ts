@@ -19,24 +19,16 @@ import { FieldKind, type BadRecordPolicy, type InputFormat, type InputSchema, ty
 import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js';
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import type { RecordReaderOptions } from '../io/reader.js';
-import { binLabel, binOf, binValueAt } from './quantiles.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
 import { readInputs, readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
 import { readSlice, type InputSlice, type SliceRead } from '../io/slices.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
-import { decodeLossless } from '../core/raw-text.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { BucketWriter, QUEUE, type SpillStore } from './spill.js';
+import { BucketWriter, QUEUE, spillRanges, type SpillPiece, type SpillStore } from './spill.js';
 import { SpillIndex } from './spill-index.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
-
-/** Stratum key of a missing value. Cannot collide with text: keys are latin1 renderings of UTF-8 bytes. */
-export const MISSING_KEY = '\uffff';
-/** Separator between the values of a multi-column stratum key (outside the latin1 range). */
-export const TUPLE_SEP = '\u0100';
-/** More strata than this is almost always a mistake (an ID column given to --stratify). */
-export const MAX_STRATA = 100_000;
+import { fieldKey, keyBytes, MAX_STRATA, stratumKey, tooManyStrata, tupleKey, type KeyColumn, type KeyRange } from '../core/strata.js';
 
 /** What one scatter task needs to know: plain data, so it can be posted to a worker. */
 export interface ScatterTaskConfig {
@@ -158,45 +150,6 @@ export interface ScatterResult {
   results?: ScatterTaskResult[];
 }
 
-/** Canonical text of one wanted field: the latin1 rendering of its decoded UTF-8 bytes. */
-export function fieldKey(b: RecordBatch, i: number, w: number): string {
-  const k = i * b.wanted + w;
-  const s = b.fieldStart[k]!;
-  const e = b.fieldEnd[k]!;
-  switch (b.fieldKind[k]) {
-    case FieldKind.Plain:
-      return s === e ? MISSING_KEY : b.data.toString('latin1', s, e);
-    case FieldKind.CsvQuoted:
-      // The bytes between the quotes, doubled quotes undone, byte for byte (as decoding them as
-      // UTF-8 and back did for valid text, without merging different invalid values).
-      return e - s >= 2 && b.data[s] === 0x22 && b.data[e - 1] === 0x22 ? b.data.toString('latin1', s + 1, e - 1).replaceAll('""', '"') : b.data.toString('latin1', s, e).replaceAll('""', '"');
-    case FieldKind.JsonString: {
-      const v = JSON.parse(b.data.toString('utf8', s, e)) as string;
-      return Buffer.from(v, 'utf8').toString('latin1');
-    }
-    default:
-      return MISSING_KEY;
-  }
-}
-
-/** True when `d[s, e)` holds only bytes 0x20-0x7E other than '"' and '\\'. */
-function plainAscii(d: Uint8Array, s: number, e: number): boolean {
-  if (e - s > BYTE_KEY_LIMIT) return false;
-  for (let i = s; i < e; i++) {
-    const c = d[i]!;
-    if (c < 0x20 || c > 0x7e || c === 0x22 || c === 0x5c) return false;
-  }
-  return true;
-}
-
-/**
- * Human form of a canonical stratum key: values decoded, missing shown as null. Bytes that are not
- * UTF-8 stay distinguishable (see core/raw-text.ts).
- */
-export function stratumValues(key: string): (string | null)[] {
-  return key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : decodeLossless(Buffer.from(v, 'latin1'))));
-}
-
 /** One scatter task: the per-record work of stage 1 for the batches it is given. */
 export class ScatterTask {
   readonly #c: ScatterTaskConfig;
@@ -208,6 +161,10 @@ export class ScatterTask {
   readonly #bucketCounts: Uint32Array[] = [];
   readonly #fast = new ByteIdTable();
   readonly #hasBins: boolean;
+  /** The stratify columns as stratum keys read them, from the first wanted fields, in order. */
+  readonly #keyColumns: KeyColumn[];
+  readonly #keySlots: Int32Array;
+  readonly #keyRange: KeyRange = { start: 0, end: 0 };
   readonly #keyBuf = Buffer.allocUnsafe(4096);
   readonly #cellSecret: Secret | null;
   readonly #cellCounts: Float64Array[] = [];
@@ -224,60 +181,36 @@ export class ScatterTask {
     this.#census = census === null ? null : new BucketWriter(censusDir(c.spillDir), c.task, 2 ** census, c.cellKeyInHeader!.censusBufferBytes, null, 0, c.censusStore);
     this.#censusShift = census === null || census === 0 ? 32 : 32 - census;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
+    this.#keyColumns = c.stratify.map((name, w) => ({ name, edges: c.bins[w] ?? null }));
+    this.#keySlots = Int32Array.from(c.stratify, (_, w) => w);
     this.#cellSecret = c.hashCells ? Uint32Array.from(c.hashCells.cellSecret) : null;
     this.#writer.setKeySecret(this.#secret);
   }
 
   #newStratum(k: string): number {
     const id = this.#strata.length;
-    if (id >= MAX_STRATA) {
-      throw new RowdeckError(
-        'ERR_OPTION',
-        `--stratify ${this.#c.stratify.join(',')} has more than ${MAX_STRATA} distinct values. Stratify on a class column; for a numeric column use NAME:bins=Q; to keep records of one entity together use --group.`,
-        { column: this.#c.stratify.join(',') },
-      );
-    }
+    if (id >= MAX_STRATA) throw tooManyStrata(this.#c.stratify);
     this.#strataIds.set(k, id);
     this.#strata.push(k);
     this.#bucketCounts.push(new Uint32Array(2 ** this.#c.bits));
     return id;
   }
 
-  #partKey(b: RecordBatch, i: number, w: number): string {
-    const edges = this.#c.bins[w];
-    if (!edges) return fieldKey(b, i, w);
-    const v = binValueAt(b, i, w, this.#c.stratify[w]!, this.#c.inputs[this.#input]!);
-    return v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
-  }
-
   #stratumOf(b: RecordBatch, i: number): number {
     const nStrat = this.#c.stratify.length;
     if (nStrat === 0) return this.#strata.length ? 0 : this.#newStratum('');
-    const kind = b.fieldKind[i * b.wanted];
-    if (nStrat === 1 && !this.#hasBins && kind !== FieldKind.Missing) {
-      // Look the field's bytes up directly, where they are the key fieldKey() would build: a
-      // plain field's, or a quoted one's (CSV or JSON string) between the quotes when they are
-      // printable ASCII without a quote or backslash (nothing to decode, and no invalid UTF-8
-      // that decoding would replace).
-      let fs = b.fieldStart[i * b.wanted]!;
-      let fe = b.fieldEnd[i * b.wanted]!;
-      if (kind !== FieldKind.Plain) {
-        fs++;
-        fe--;
-        if (!plainAscii(b.data, fs, fe)) fe = fs;
+    const r = this.#keyRange;
+    // One column of classes: looked up by the field's bytes where they are its key (keyBytes).
+    if (nStrat === 1 && !this.#hasBins && keyBytes(b, i, 0, r)) {
+      let id = this.#fast.lookup(b.data, r.start, r.end);
+      if (id < 0) {
+        const k = b.data.toString('latin1', r.start, r.end);
+        id = this.#strataIds.get(k) ?? this.#newStratum(k);
+        this.#fast.insert(b.data, r.start, r.end, id);
       }
-      if (fe > fs && fe - fs <= BYTE_KEY_LIMIT) {
-        let id = this.#fast.lookup(b.data, fs, fe);
-        if (id < 0) {
-          const k = b.data.toString('latin1', fs, fe);
-          id = this.#strataIds.get(k) ?? this.#newStratum(k);
-          this.#fast.insert(b.data, fs, fe, id);
-        }
-        return id;
-      }
+      return id;
     }
-    let k = this.#partKey(b, i, 0);
-    for (let w = 1; w < nStrat; w++) k += TUPLE_SEP + this.#partKey(b, i, w);
+    const k = stratumKey(b, i, this.#keySlots, this.#keyColumns, this.#c.inputs[this.#input]!);
     return this.#strataIds.get(k) ?? this.#newStratum(k);
   }
 
@@ -320,9 +253,7 @@ export class ScatterTask {
         h = hashBytes(this.#secret, d, batch.fieldStart[gk]!, batch.fieldEnd[gk]!);
       } else if (groupSlot >= 0 || nKey > 0) {
         // Keys from column values: equal values, equal keys, wherever the record sits.
-        let text = '';
-        if (groupSlot >= 0) text = fieldKey(batch, i, groupSlot);
-        else for (let w = 0; w < nKey; w++) text += (w ? TUPLE_SEP : '') + fieldKey(batch, i, nStrat + w);
+        const text = groupSlot >= 0 ? fieldKey(batch, i, groupSlot) : tupleKey(batch, i, nStrat, nKey);
         const kb = this.#keyBuf;
         const len = kb.write(text, 0, 'latin1');
         h = len < kb.length ? hashBytes(this.#secret, kb, 0, len) : hashBytes(this.#secret, Buffer.from(text, 'latin1'), 0, Buffer.byteLength(text, 'latin1'));
@@ -605,7 +536,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   };
 
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
-  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('ERR_INTERNAL', 'scatter: no worker module given');
+  if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('RDK_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
   const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>(o.workerFile!, tasks, config));
   const sender = lanes ? new BatchSender(lanes as unknown as BatchLanes) : null;
@@ -698,7 +629,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
         reads.push(read);
         progress();
       }
-      if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records in this task's slices.`, { file: o.inputs[o.slices[0]?.slice.input ?? 0] });
+      if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records in this task's slices.`, { file: o.inputs[o.slices[0]?.slice.input ?? 0] });
       let results: ScatterTaskResult[];
       if (inline) results = [inline.finish()];
       else {
@@ -731,7 +662,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       readHere,
     );
     progress();
-    if (!schema) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
+    if (!schema) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle.`, { file: o.inputs[0] });
     let results: ScatterTaskResult[];
     if (inline) results = [inline.finish()];
     else {

@@ -24,10 +24,10 @@ import { cpus, hostname, totalmem } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
 import type { GroupTableData } from '../core/group-table.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
-import { detectFormat } from '../io/input.js';
+import { chooseFormat } from '../io/sniff.js';
 import type { PartWriter } from '../io/part-writer.js';
 import type { Lanes } from '../workers/lanes.js';
-import { resolveShuffleOptions, type ProgressEvent, type ShuffleOptions } from '../options.js';
+import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import type { CensusTask, GatherResult, GatherTask } from './gather.js';
@@ -46,6 +46,7 @@ import { openMemoryStore, type MemoryStore } from './ram-store.js';
 import { checkFreeSpace } from './disk-space.js';
 import { estimateInputBytes, isStreamInput } from '../io/input.js';
 import type { SplitResult, SplitTask } from './split.js';
+import { groupSizeWarnings, unitSizes } from './size-check.js';
 import { SpreadParts } from './spread-parts.js';
 
 export { BUFFER_CAP, chooseBuckets, spillFactor } from './sizing.js';
@@ -60,6 +61,8 @@ export interface ShuffleRun {
   out: string;
   /** The report written with `report: true` (in `out`), else null. */
   report: string | null;
+  /** Warnings about the result, each also told to `onNotice` (parts far from their sizes with `group`). */
+  warnings: string[];
 }
 
 /** Shuffles and deals the inputs; returns the manifest written to `out/manifest.json`. */
@@ -85,7 +88,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   const t0 = Date.now();
   const timings: Record<string, number> = {};
   checkInputs(o.inputs);
-  const format = o.format ?? detectFormat(o.inputs[0] === '-' ? 'stdin.csv' : o.inputs[0]!);
+  const format = await chooseFormat(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v));
   const secrets = deriveSecrets(o.seed);
   let runLayout: Layout | undefined;
   let splits = 0;
@@ -123,7 +126,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
 
     // ---- plan: quotas, expected counts, the tolerance check, before anything is written ----
     const records = sc.records;
-    if (records === 0) throw new RowdeckError('ERR_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
     const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
     const deal = dealSpecOf(o, records);
     const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
@@ -131,6 +134,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const cells = parts * deal.folds;
     let cellCounts: Float64Array;
     let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
+    let groupCount = 0;
     if (o.assign === 'exact') cellCounts = exactCellCounts(table);
     else if (o.assign === 'hash') cellCounts = hashCellCounts(sc.cellCounts!, d.localToGlobal, cells);
     else {
@@ -149,6 +153,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         Math.max(1, size.threads) * 2,
         progress('plan', records),
       );
+      groupCount = groups.count;
       const placement = placeAllGroups(groups, deal, d.strataSizes);
       cellCounts = placement.cellCounts;
       groupLookup = writeGroupLookup(spillDir, groups, placement.placed, scattered.cellKeyInHeader ? null : size.bits);
@@ -162,6 +167,14 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const layout = partLayout(o, format);
     const worst = worstDeviation(cellCounts, deal, d.strataSizes);
     checkTolerance(o, worst, d, layout.map((p) => p.path), deal, records);
+    // Whole groups: sizes follow the groups; said before anything is written (see size-check.ts).
+    const warnings: string[] = [];
+    if (o.assign === 'group') {
+      for (const w of groupSizeWarnings(unitSizes(cellTotals(cellCounts, cells), deal, layout.map((p) => p.path)), groupCount, o.tolerance, o.surface === 'cli' ? `--group ${o.group!}` : `group ${JSON.stringify(o.group)}`)) {
+        warnings.push(w);
+        o.onNotice?.(w);
+      }
+    }
     const plan: GatherPlan = {
       version: 1,
       bits: size.bits,
@@ -266,7 +279,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     // write a manifest that says otherwise.
     if (outFp.toHex() !== sc.fingerprint.toHex() || outFp.count !== sc.fingerprint.count) {
       throw new RowdeckError(
-        'ERR_INTERNAL',
+        'RDK_INTERNAL',
         `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but ${sc.fingerprint.count} were read (fingerprint ${sc.fingerprint.toHex()}). Nothing was written; please report this.`,
       );
     }
@@ -296,15 +309,20 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       ...(stats ? { inputStats: stats.input } : {}),
       host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
     });
-    if (stage === null) return { manifest, out, report: null };
+    if (stage === null) return { manifest, out, report: null, warnings };
     if (rejected !== null) writeOutputFile(join(stage, 'rejected.csv'), rejected, 'writing the rejected records');
     writeOutputFile(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', 'writing the manifest');
     // The report goes in before the commit, so a run that fails here leaves nothing behind.
     if (o.report) writeManifestReport(stage, manifest, basename(out));
     // Into place: never over anything that appeared meanwhile, the manifest last (see output-folder.ts).
     work.commit();
-    return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null };
+    return { manifest, out, report: o.report ? join(out, REPORT_FILE) : null, warnings };
   } catch (err) {
+    // A JSON Lines record with the fold column's key: the reader does not know how the caller
+    // names the option; said here.
+    if (err instanceof RowdeckError && err.code === 'RDK_OPTION' && err.details.option === 'foldColumn' && err.message.endsWith('otherwise.')) {
+      throw new RowdeckError(err.code, `${err.message.slice(0, -1)} (${optionSetting(o.surface, 'foldColumn', 'NAME')}).`, err.details);
+    }
     // A fault of the environment met anywhere above: coded, with its path and operation.
     throw codedSystemError(err);
   } finally {
@@ -346,6 +364,14 @@ function ranLayout(size: RunSize, placement: { memory: number; files: number }, 
   if (splits > 0) return 'multi-pass';
   if (size.layout === 'memory' && placement.files === 0) return 'memory';
   return 'spill';
+}
+
+/** Records per cell, from the counts per (cell, stratum). */
+function cellTotals(cellCounts: Float64Array, cells: number): Float64Array {
+  const strata = cells > 0 ? cellCounts.length / cells : 0;
+  const totals = new Float64Array(cells);
+  for (let c = 0; c < cells; c++) for (let s = 0; s < strata; s++) totals[c]! += cellCounts[c * strata + s]!;
+  return totals;
 }
 
 /** Writes a whole file of the output; a failure (a full disk) is a coded error naming it. */

@@ -53,7 +53,7 @@ class AppendFile {
     try {
       for (let got = 0; got < length; ) {
         const n = readSync(this.fd, into, got, length - got, at + got);
-        if (n === 0) throw new RowdeckError('ERR_INTERNAL', `${this.path} ended early: the work folder was changed during the run.`);
+        if (n === 0) throw new RowdeckError('RDK_INTERNAL', `${this.path} ended early: the work folder was changed during the run.`);
         got += n;
       }
     } catch (err) {
@@ -94,7 +94,7 @@ class ClassRecords {
 
   #load(): void {
     const c = this.#chunks[this.#next++];
-    if (!c) throw new RowdeckError('ERR_INTERNAL', 'spread order: a class ran out of records before its count.');
+    if (!c) throw new RowdeckError('RDK_INTERNAL', 'spread order: a class ran out of records before its count.');
     if (this.#bytes.length < c.length) this.#bytes = Buffer.allocUnsafe(Math.max(c.length, 2 * this.#bytes.length));
     if (this.#sizes.length < c.records) this.#sizes = new Uint32Array(Math.max(c.records, 2 * this.#sizes.length));
     const source = c.source ?? 0;

@@ -15,23 +15,22 @@ import { isAbsolute, join, normalize } from 'node:path';
 import { Readable } from 'node:stream';
 import { availableParallelism } from 'node:os';
 import pLimit from 'p-limit';
-import { maxDeviation } from '../core/balance.js';
-import { decodeLossless, encodeLossless } from '../core/raw-text.js';
+import { withinTolerance, balanceOfUnits } from '../core/balance.js';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary, type SerializedStats } from '../core/stats.js';
 import { PartStatsGather } from './part-stats.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { describeSystemError } from '../io/os-errors.js';
-import { FieldKind, type InputFormat, type RecordBatch } from '../io/batch.js';
-import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
+import type { InputFormat, RecordBatch } from '../io/batch.js';
+import { ByteIdTable } from '../core/byte-table.js';
 import { isStreamInput, nameInput, openInput, READ_AHEAD_MAX_BYTES, ReadAhead } from '../io/input.js';
 import { RecordReader } from '../io/reader.js';
 import { MANIFEST_VERSION, type Manifest, type PartRecord } from './manifest.js';
 import { DEALING_SCHEME } from '../core/deal.js';
 import { SpreadCheck } from '../core/spread.js';
-import type { PartOrder } from '../options.js';
-import { binLabel, binOf, binValueAt } from './quantiles.js';
-import { MISSING_KEY, TUPLE_SEP, fieldKey } from './scatter.js';
+import { resolveVerifyOptions, type PartOrder, type VerifyOptions } from '../options.js';
+import { misorderedInputs } from './input-order.js';
+import { describeStratum, describeValues, keyBytes, keyOfValues, stratumKey, stratumValues, tupleKey, type KeyColumn, type KeyRange } from '../core/strata.js';
 import { resolveWorkerFile } from '../workers/worker-file.js';
 import { compareReplay, environmentFault, replayable, replayShuffle } from './replay.js';
 import { WorkerLanes } from '../workers/lanes.js';
@@ -118,35 +117,7 @@ export interface VerifyReport {
   replay: { status: VerifyStatus; seed: string | null; note: string } | null;
 }
 
-export interface VerifyProgress {
-  stage: 'parts' | 'inputs' | 'differences' | 'replay';
-  /** Files done and in all. */
-  done: number;
-  total: number;
-  records: number;
-  elapsedMs: number;
-}
-
-export interface VerifyOptions {
-  /** Output folder written by shuffle (holds manifest.json). */
-  dir: string;
-  /** Inputs to compare with the output ('-' reads standard input). */
-  against?: string[];
-  /**
-   * With `against`: run the shuffle again from the manifest's seed and options over the inputs,
-   * writing nothing (only hashing), and check that it gives exactly these parts. Default true.
-   * Standard input or a pipe cannot be read twice: the replay is then skipped.
-   */
-  replay?: boolean;
-  /** Folder for the replay's spill (default: beside the checked folder). */
-  tempDir?: string;
-  onProgress?: (e: VerifyProgress) => void;
-  /**
-   * Worker threads that read parts side by side. Default: the number of cores (one thread for
-   * outputs under 32 MiB, where starting workers costs more than it saves); 0 or 1 reads them here.
-   */
-  threads?: number;
-}
+export type { VerifyOptions, VerifyProgress } from '../options.js';
 
 /** How to read the parts and inputs, and how to recognise each record's class, from the manifest. */
 interface ReadPlan {
@@ -280,7 +251,8 @@ class HashList {
 
 const hashKey = (hi: number, lo: number): string => `${hi}:${lo}`;
 
-export async function verify(options: VerifyOptions): Promise<VerifyReport> {
+export async function verify(given: VerifyOptions): Promise<VerifyReport> {
+  const options = resolveVerifyOptions(given);
   const t0 = Date.now();
   const dir = options.dir;
   const m = loadManifest(dir);
@@ -318,11 +290,12 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     options.onProgress?.({ stage: 'parts', done: partsDone, total: parts.length, records: recordsSeen, elapsedMs: Date.now() - t0 });
     return s;
   };
-  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 1));
+  // 0: the calling thread reads every part (as in shuffle and profile).
+  const threads = Math.min(parts.length, options.threads ?? (sum(parts.map((p) => p.bytes)) >= PARALLEL_MIN_BYTES ? availableParallelism() : 0));
   let scans: PartScan[];
   // With --stats: the parts' statistics merged, for the whole input's.
   let wholeStats: TableStats | null = null;
-  if (threads > 1) {
+  if (threads > 0) {
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
     // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
@@ -471,14 +444,17 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     const dev = computeMaxDeviation(parts, partStrata, foldStrata, plan);
     const note = fromFiles ? 'from the counts read from the files' : "from the manifest's counts";
     judge(M, 'balance', Math.abs(dev - m.balance.maxDeviation) <= 1e-12 ? [] : [{ item: 'maxDeviation', expected: m.balance.maxDeviation, found: dev }], note);
-    judge(M, 'tolerance', dev <= m.balance.tolerance + 1e-12 ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
+    // Hash assignment promises no tolerance: its shares are what the keys give.
+    if ((m.options as { assign?: string }).assign === 'hash') skip(M, 'tolerance', 'not enforced with assign "hash": the class shares are reported, not kept within a tolerance');
+    else judge(M, 'tolerance', withinTolerance(dev, m.balance.tolerance) ? [] : [{ item: 'maxDeviation', expected: `<= ${m.balance.tolerance}`, found: dev }], note);
   }
 
   // ---- --against: the inputs hold exactly the output's records ----
   let against: VerifyAgainst | null = null;
+  let misordered: { expected: string; found: string } | null = null;
   if (options.against !== undefined) {
     const inputs = options.against;
-    if (inputs.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
+    if (inputs.length === 0) throw new RowdeckError('RDK_MISSING_ARGUMENT', 'verify: against needs at least one input file.');
     const inHashes = outHashes !== null ? new HashList() : null;
     // Bad records are counted, not fatal: the manifest says how many the run refused.
     const read = await scanInputs(inputs, plan, inHashes, (done, records) =>
@@ -487,7 +463,10 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
     const A = '(inputs)';
     for (const e of read.errors) judge(e.file, 'readable', [{ expected: 'records the reader accepts', found: e.message }]);
     for (const h of read.headers) judge(h.file, 'header', same(JSON.stringify(plan.columns), JSON.stringify(h.columns)));
-    if (inputs.length === m.input.files.length) {
+    misordered = misorderedInputs(inputs, m.input.files, read.perFile);
+    if (misordered) {
+      judge(A, 'input order', [{ item: 'the order matters: give the inputs in the order the manifest lists them', expected: misordered.expected, found: misordered.found }]);
+    } else if (inputs.length === m.input.files.length) {
       read.perFile.forEach((n, k) => judge(nameInput(inputs[k]!), 'records', same(m.input.files[k]!.records, n)));
     } else {
       judge(A, 'records', same(m.input.records, read.records), `${inputs.length} input(s) given, the manifest lists ${m.input.files.length}`);
@@ -523,9 +502,10 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
   if (options.against !== undefined) {
     const can = replayable(m);
     const R = '(replay)';
-    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: 'not asked for (replay: false)' };
+    if (options.replay === false) replay = { status: 'skipped', seed: m.seed, note: `not asked for (${options.surface === 'cli' ? '--no-replay' : 'replay: false'})` };
     else if (!can.ok) replay = { status: 'skipped', seed: m.seed, note: can.why };
     else if (options.against.some((p) => isStreamInput(p))) replay = { status: 'skipped', seed: m.seed, note: 'standard input or a pipe can be read only once' };
+    else if (misordered) replay = { status: 'skipped', seed: m.seed, note: `the inputs are given in another order than the manifest's (${misordered.expected}), and the order decides where each record goes` };
     if (replay) skip(R, 'replay', replay.note);
     else {
       options.onProgress?.({ stage: 'replay', done: 0, total: 1, records: 0, elapsedMs: Date.now() - t0 });
@@ -534,6 +514,7 @@ export async function verify(options: VerifyOptions): Promise<VerifyReport> {
         replayed = await replayShuffle(m, options.against, dir, {
           ...(options.tempDir !== undefined ? { tempDir: options.tempDir } : {}),
           ...(options.threads !== undefined ? { threads: options.threads } : {}),
+          ...(options.memory !== undefined ? { memory: options.memory } : {}),
         });
       } catch (err) {
         const env = environmentFault(err);
@@ -656,21 +637,22 @@ function computeMaxDeviation(parts: PartRecord[], partStrata: number[][], foldSt
       totals[s]! += row[s] ?? 0;
     }
   });
-  let worst = maxDeviation(partCounts, P, totals).deviation;
   const K = plan.folds;
+  let folds: Float64Array | null = null;
+  let units = 0;
   if (K > 1) {
     // Folds are compared within each split: the split's partitions together.
     const splitOf = new Map<string | null, number>();
     for (const p of parts) if (!splitOf.has(p.split)) splitOf.set(p.split, splitOf.size);
-    const units = splitOf.size * K;
+    units = splitOf.size * K;
     const counts = new Float64Array(units * S);
     parts.forEach((p, k) => {
       const base = splitOf.get(p.split)! * K;
       for (let g = 0; g < K; g++) for (let s = 0; s < S; s++) counts[(base + g) * S + s]! += foldStrata[k]?.[g]?.[s] ?? 0;
     });
-    worst = Math.max(worst, maxDeviation(counts, units, totals).deviation);
+    folds = counts;
   }
-  return worst;
+  return balanceOfUnits(partCounts, P, folds, units, totals).deviation;
 }
 
 // ---- reading the manifest -------------------------------------------------------------------
@@ -682,23 +664,24 @@ export function loadManifest(dir: string): Manifest {
     text = readFileSync(path, 'utf8');
   } catch (err) {
     const code = (err as NodeJS.ErrnoException).code;
-    let folder = true;
+    let kind: 'folder' | 'other' | 'missing' = 'missing';
     try {
-      folder = statSync(dir).isDirectory();
+      kind = statSync(dir).isDirectory() ? 'folder' : 'other';
     } catch {
-      folder = false;
+      // Not there (or not reachable): said below.
     }
-    if (!folder) throw new RowdeckError('ERR_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
+    if (kind === 'other') throw new RowdeckError('RDK_MANIFEST', `${dir}: not a folder (a file). Give the folder rowdeck shuffle wrote its parts to (its --out), not one of its files.`, { file: dir });
+    if (kind === 'missing') throw new RowdeckError('RDK_MANIFEST', `${dir}: no such folder. Give the folder rowdeck shuffle wrote its parts to (its --out).`, { file: dir });
     if (code === 'ENOENT') {
-      throw new RowdeckError('ERR_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
+      throw new RowdeckError('RDK_MANIFEST', `${path}: no such file. Give the folder rowdeck shuffle wrote (its --out); a run that failed or was interrupted leaves no manifest, so run it again.`, { file: path });
     }
-    throw new RowdeckError('ERR_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: cannot be read (${(err as Error).message}). Check its permissions.`, { file: path, errno: code });
   }
   let raw: unknown;
   try {
     raw = JSON.parse(text);
   } catch (err) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: not valid JSON (${(err as Error).message}). It was edited or cut short; run rowdeck shuffle again to write a new one.`, { file: path });
   }
   checkManifestShape(raw, path);
   return raw;
@@ -711,7 +694,7 @@ export function loadManifest(dir: string): Manifest {
  */
 function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest {
   const fail = (field: string, want: string): never => {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" should be ${want}. The manifest is damaged or was edited; run rowdeck shuffle again to write a new one.`, { file: path, field });
   };
   const obj = (v: unknown, field: string): Record<string, unknown> => (typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Record<string, unknown>) : fail(field, 'an object'));
   const arr = (v: unknown, field: string): unknown[] => (Array.isArray(v) ? v : fail(field, 'an array'));
@@ -723,7 +706,7 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
   const m = obj(raw, '(top level)');
   if (m.manifestVersion !== 1 && m.manifestVersion !== MANIFEST_VERSION) {
     throw new RowdeckError(
-      'ERR_MANIFEST',
+      'RDK_MANIFEST',
       `${path}: manifestVersion is ${JSON.stringify(m.manifestVersion)}; this rowdeck reads versions 1 to ${MANIFEST_VERSION}. ${typeof m.manifestVersion === 'number' && m.manifestVersion > MANIFEST_VERSION ? 'Use the rowdeck version that wrote it, or a newer one.' : 'The file is not a rowdeck manifest, or is damaged.'}`,
       { file: path, field: 'manifestVersion' },
     );
@@ -798,14 +781,8 @@ function checkManifestShape(raw: unknown, path: string): asserts raw is Manifest
 /** A part path must stay inside the folder: verify reads only what the run wrote. */
 function safePath(p: string, field: string, path: string): void {
   if (p === '' || isAbsolute(p) || normalize(p).split(/[\\/]/).includes('..')) {
-    throw new RowdeckError('ERR_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
+    throw new RowdeckError('RDK_MANIFEST', `${path}: field "${field}" is ${JSON.stringify(p)}, which points outside the output folder. The manifest was edited; run rowdeck shuffle again.`, { file: path, field });
   }
-}
-
-function describeStratum(columns: string[], value: (string | null)[] | null, index: number): string {
-  if (value === null) return `stratum #${index + 1}`;
-  if (columns.length === 0) return 'all records';
-  return columns.map((c, i) => `${c}=${value[i] === null || value[i] === undefined ? '(missing)' : JSON.stringify(value[i])}`).join(', ');
 }
 
 function createReadPlan(m: Manifest): ReadPlan {
@@ -821,7 +798,7 @@ function createReadPlan(m: Manifest): ReadPlan {
   if (!withheld) {
     strataIndex = new Map();
     m.strata.values.forEach((v, i) => {
-      const key = (v.value ?? []).map((x) => (x === null ? MISSING_KEY : encodeLossless(x).toString('latin1'))).join(TUPLE_SEP);
+      const key = keyOfValues(v.value ?? []);
       strataIndex!.set(key, i);
     });
   }
@@ -848,26 +825,6 @@ function createReadPlan(m: Manifest): ReadPlan {
 
 // ---- reading records --------------------------------------------------------------------------
 
-/** Canonical stratum key of record i, built exactly as the scatter stage builds it. */
-function stratumKey(plan: ReadPlan, b: RecordBatch, i: number, file: string): string {
-  let k = '';
-  for (let w = 0; w < plan.stratify.length; w++) {
-    const edges = plan.bins[w];
-    let part: string;
-    if (!edges) part = fieldKey(b, i, w);
-    else {
-      const v = binValueAt(b, i, w, plan.stratify[w]!, file);
-      part = v === null ? MISSING_KEY : binLabel(edges, binOf(edges, v));
-    }
-    k += (w ? TUPLE_SEP : '') + part;
-  }
-  return k;
-}
-
-function labelOfKey(plan: ReadPlan, key: string): string {
-  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : decodeLossless(Buffer.from(v, 'latin1'))));
-  return describeStratum(plan.stratify, vals, -1);
-}
 
 /** `grouped`: whether each group's records form one run (a group seen again after others breaks it). */
 class GroupRuns {
@@ -882,9 +839,7 @@ class GroupRuns {
 }
 
 function labelOfGroup(plan: ReadPlan, key: string): string {
-  if (plan.excludeValues) return 'a group';
-  const vals = key.split(TUPLE_SEP).map((v) => (v === MISSING_KEY ? null : Buffer.from(v, 'latin1').toString('utf8')));
-  return plan.groupColumns.map((c, i) => `${c}=${vals[i] === null ? '(missing)' : JSON.stringify(vals[i])}`).join(', ');
+  return plan.excludeValues ? 'a group' : describeValues(plan.groupColumns, stratumValues(key));
 }
 
 const DIGIT_0 = 0x30;
@@ -991,7 +946,7 @@ async function readAll(source: string | Readable | Buffer, reader: RecordReader,
     const b = reader.end();
     if (b) onBatch(b);
   } catch (err) {
-    if (err instanceof RowdeckError && (err.code === 'ERR_INPUT_EMPTY' || err.code === 'ERR_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
+    if (err instanceof RowdeckError && (err.code === 'RDK_INPUT_EMPTY' || err.code === 'RDK_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
     throw err;
   }
 }
@@ -1049,6 +1004,9 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
   const hasher = new RecordHasher();
   const nameBytes = Buffer.from(plan.foldColumn !== null ? `${JSON.stringify(plan.foldColumn)}:` : '', 'utf8');
   const fast = plan.strataIndex !== null && plan.stratify.length === 1 && plan.bins[0] === null ? new ByteIdTable() : null;
+  const range: KeyRange = { start: 0, end: 0 };
+  const keyColumns: KeyColumn[] = plan.stratify.map((name, w) => ({ name, edges: plan.bins[w] ?? null }));
+  const keySlots = keyColumns.map((_, w) => w);
   try {
     await readAll(Readable.from(hashStream(path, sink)), reader, (b) => {
       table?.addBatch(b, plan.stratify.length);
@@ -1073,29 +1031,26 @@ async function scanPart(path: string, display: string, plan: ReadPlan, hashes: H
         hashes?.add(h[0]!, h[1]!);
         scan.records++;
         if (grouped && scan.orderBreak === null) {
-          let key = '';
-          for (let w = 0; w < plan.groupColumns.length; w++) key += (w ? TUPLE_SEP : '') + fieldKey(b, i, groupAt + w);
+          const key = tupleKey(b, i, groupAt, plan.groupColumns.length);
           if (!grouped.add(key)) scan.orderBreak = { line: b.line[i]!, expected: 'the records of a group next to each other', found: `${labelOfGroup(plan, key)} again, after other groups` };
         }
         if (fold >= 0) scan.folds[fold]!++;
         if (plan.strataIndex === null) continue;
         // A plain value of a single class column is looked up by its bytes (as stage 1 does);
         // anything else, or a value not seen yet, by its canonical key.
-        const byBytes = fast !== null && b.fieldKind[i * b.wanted] === FieldKind.Plain;
-        const fs = byBytes ? b.fieldStart[i * b.wanted]! : 0;
-        const fe = byBytes ? b.fieldEnd[i * b.wanted]! : 0;
-        let st = byBytes ? fast.lookup(d, fs, fe) : -1;
+        const byBytes = fast !== null && keyBytes(b, i, 0, range);
+        let st = byBytes ? fast.lookup(d, range.start, range.end) : -1;
         if (st < 0) {
-          const key = stratumKey(plan, b, i, display);
+          const key = stratumKey(b, i, keySlots, keyColumns, display);
           st = plan.strataIndex.get(key) ?? -1;
           if (st < 0) {
-            const label = labelOfKey(plan, key);
+            const label = describeStratum(plan.stratify, stratumValues(key), -1);
             const u = scan.unknown.get(label);
             if (u) u.count++;
             else scan.unknown.set(label, { count: 1, line: b.line[i]! });
             continue;
           }
-          if (byBytes && fe > fs && fe - fs <= BYTE_KEY_LIMIT) fast.insert(d, fs, fe, st);
+          if (byBytes) fast.insert(d, range.start, range.end, st);
         }
         scan.strata[st]!++;
         if (fold >= 0) scan.foldStrata[fold * S + st]!++;
@@ -1194,7 +1149,7 @@ async function scanInputs(inputs: string[], plan: ReadPlan, hashes: HashList | n
       });
     } catch (err) {
       if (!(err instanceof RowdeckError)) throw err;
-      if (err.code === 'ERR_INPUT_NOT_FOUND') throw err;
+      if (err.code === 'RDK_INPUT_NOT_FOUND') throw err;
       res.errors.push({ file, message: err.message });
     }
     if (plan.format !== 'jsonl' && plan.header && reader.schema) res.headers.push({ file, columns: reader.schema.columns });

@@ -25,7 +25,8 @@
  */
 import { open, type FileHandle } from 'node:fs/promises';
 import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
-import { checkNotHeaderOnly, RecordReader, type RecordReaderOptions } from './reader.js';
+import { checkNotHeaderOnly } from './fields.js';
+import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { flags } from '../flags.js';
 
@@ -144,7 +145,7 @@ export class BlockHost {
 
   #take(id: number, remove: boolean): HeldBlock {
     const held = this.#held.get(id);
-    if (!held) throw new RowdeckError('ERR_INTERNAL', `block ${id} is not held by this worker`);
+    if (!held) throw new RowdeckError('RDK_INTERNAL', `block ${id} is not held by this worker`);
     if (remove) this.#held.delete(id);
     return held;
   }
@@ -393,7 +394,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
       let buffer = pool.pop();
       if (!buffer || buffer.byteLength < need) buffer = new ArrayBuffer(Math.max(need, B + L + 8));
       const got = await readAt(fh, new Uint8Array(buffer), need, from, file);
-      if (got !== need) throw new RowdeckError('ERR_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
+      if (got !== need) throw new RowdeckError('RDK_IO', `${file}: the file changed size while being read (expected ${size} bytes). Do not write to an input while it is read.`, { file: file });
       const lane = id % T;
       const job: BlockJob = {
         kind: 'block', id, input: o.input, reader: toWorker, schema,
@@ -456,7 +457,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
       progress(expected);
     }
     if (!fellBack && !failures.length && expected !== size) {
-      throw new RowdeckError('ERR_INTERNAL', `${file}: parallel reading stopped at byte ${expected} of ${size}.`, { file });
+      throw new RowdeckError('RDK_INTERNAL', `${file}: parallel reading stopped at byte ${expected} of ${size}.`, { file });
     }
     // Blocks not committed are dropped (after their parse, so the worker still holds them).
     for (const p of pending.splice(0)) release(p.id, p.reply.then(() => o.lanes.runOn(p.lane, { kind: 'drop', id: p.id })));

@@ -12,6 +12,7 @@ import type { InputFormat, InputSchema, RecordBatch } from './batch.js';
 import { RecordReader } from './reader.js';
 import type { RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
+import { takePeekedStdin } from './sniff.js';
 
 /** Read size for files: large chunks keep the per-chunk overhead of the parser negligible. */
 export const READ_CHUNK_BYTES = 1 << 20;
@@ -27,7 +28,7 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
   if (name.endsWith('.csv')) return 'csv';
   if (name.endsWith('.tsv') || name.endsWith('.tab')) return 'tsv';
   if (name.endsWith('.jsonl') || name.endsWith('.ndjson')) return 'jsonl';
-  throw new RowdeckError('ERR_OPTION', `Cannot tell the format of "${path}" from its name (expected .csv, .tsv, .jsonl or .ndjson, optionally .gz). Pass --format csv|tsv|jsonl.`, { file: path });
+  throw new RowdeckError('RDK_OPTION', `Cannot tell the format of "${path}" from its name (expected .csv, .tsv, .jsonl or .ndjson, optionally .gz). Pass --format csv|tsv|jsonl.`, { file: path });
 }
 
 /**
@@ -141,10 +142,12 @@ export async function* openInput(source: string | Readable, counter?: SourceCoun
   const name = typeof source === 'string' ? nameInput(source) : '<stream>';
   const stream: Readable =
     typeof source !== 'string' ? source : source === '-' ? process.stdin : createReadStream(source, { highWaterMark: READ_CHUNK_BYTES });
-  const it = stream[Symbol.asyncIterator]() as AsyncIterator<Buffer | string>;
-  const head: Buffer[] = [];
-  let headLen = 0;
-  let done = false;
+  // Standard input's first bytes may have been read ahead to tell its format (see sniff.ts).
+  const ahead = source === '-' ? takePeekedStdin() : null;
+  const it = ahead?.it ?? (stream[Symbol.asyncIterator]() as AsyncIterator<Buffer | string>);
+  const head: Buffer[] = ahead ? [...ahead.chunks] : [];
+  let headLen = head.reduce((a, b) => a + b.length, 0);
+  let done = ahead?.done ?? false;
   try {
     // Gather two bytes to look for the gzip magic (a first chunk may be a single byte).
     while (headLen < 2) {
@@ -184,7 +187,7 @@ export async function* openInput(source: string | Readable, counter?: SourceCoun
     if (err instanceof RowdeckError) throw err;
     const e = err as NodeJS.ErrnoException;
     if (typeof e?.code === 'string' && e.code.startsWith('Z_')) {
-      throw new RowdeckError('ERR_IO', `${name}: the gzip data is damaged or cut short (${e.message}). Check that the file was fully copied.`, { file: name, errno: e.code });
+      throw new RowdeckError('RDK_IO', `${name}: the gzip data is damaged or cut short (${e.message}). Check that the file was fully copied.`, { file: name, errno: e.code });
     }
     throw ioError(err, name, 'reading');
   }

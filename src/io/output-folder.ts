@@ -17,18 +17,17 @@
  * An existing folder is kept as it is (its mode, owner, group, setgid bit and ACLs): the output is
  * moved into it. A new one is made like `mkdir` makes it (the umask applies).
  */
-import { closeSync, linkSync, lstatSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, realpathSync, renameSync, rmdirSync, rmSync, statSync, unlinkSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, renameSync, rmdirSync, rmSync, statSync } from 'node:fs';
 import { randomBytes } from 'node:crypto';
-import { homedir, hostname } from 'node:os';
+import { homedir } from 'node:os';
 import { basename, dirname, isAbsolute, join, normalize, relative, resolve, sep } from 'node:path';
 import { RowdeckError, systemError } from '../errors.js';
-import { isProcessAlive, readProcessStart, removeStaleWorkFolders } from './work-folders.js';
+import { removeStaleWorkFolders } from './work-folders.js';
+import { acquireLock, STAGE_PREFIX, undoFinishing, type Lock } from './output-lock.js';
+import { foldersOf, isSafeRelative, listFiles, lstatOrNull, makeFolder, moveFile, realOrSelf, rmdirQuietly, statOrNull, topName } from './fs-util.js';
 
 /** Names rowdeck itself writes in an output folder (lower case; a split or part must not take them). */
 export const RESERVED_OUTPUT_NAMES = ['manifest.json', 'rejected.csv', 'report.html'] as const;
-/** The lock file inside an output folder whose parent cannot hold one. */
-const INSIDE_LOCK = '.rowdeck-lock';
-const STAGE_PREFIX = '.rowdeck-partial-';
 
 export interface ClaimOptions {
   /** The output folder as given. */
@@ -56,15 +55,6 @@ export interface OutputClaim {
   release(): string[];
 }
 
-interface LockContent {
-  pid: number;
-  host: string;
-  start: string | null;
-  startedAt: string;
-  out: string;
-  /** While the output is moved into an existing folder: the files (relative to it) that are rowdeck's. */
-  finishing?: string[];
-}
 
 /** Claims `o.out` for this run (see the module comment). Throws a coded error, having left nothing, when it cannot. */
 export function claimOutput(o: ClaimOptions): OutputClaim {
@@ -72,7 +62,7 @@ export function claimOutput(o: ClaimOptions): OutputClaim {
   const notice = o.notice ?? ((): void => {});
   const st = statOrNull(out, 'looking at the output folder');
   if (st && !st.isDirectory()) {
-    throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
+    throw new RowdeckError('RDK_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
   }
   const parent = dirname(out);
   // A new folder's parents are made now (the lock lives beside the folder) and removed again on failure.
@@ -89,12 +79,12 @@ export function claimOutput(o: ClaimOptions): OutputClaim {
     const now = statOrNull(out, 'looking at the output folder');
     let old: OldOutput | null = null;
     if (now) {
-      if (!now.isDirectory()) throw new RowdeckError('ERR_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
+      if (!now.isDirectory()) throw new RowdeckError('RDK_OUTPUT_EXISTS', `${out}: exists and is not a folder. Choose another --out path.`, { file: out });
       const entries = listOutside(out, lock);
       if (entries.length > 0) {
         if (!o.force) {
           throw new RowdeckError(
-            'ERR_OUTPUT_EXISTS',
+            'RDK_OUTPUT_EXISTS',
             `${out}: is not empty (${describeEntries(entries)}). Choose another --out folder, or pass --force to replace a previous output of rowdeck there (only the files its manifest lists are replaced).`,
             { file: out, entries: entries.slice(0, 20) },
           );
@@ -119,235 +109,6 @@ export function claimOutput(o: ClaimOptions): OutputClaim {
     removeCreated(created);
     throw err;
   }
-}
-
-// ---- the lock -------------------------------------------------------------------------------
-
-interface Lock {
-  readonly path: string;
-  /** Rewrites the lock with a note of the files being moved into place. */
-  note(finishing: string[]): void;
-  release(): void;
-}
-
-function acquireLock(out: string, exists: boolean, notice: (text: string) => void): Lock {
-  const beside = join(dirname(out), `.${basename(out) || 'root'}.rowdeck-lock`);
-  const me: LockContent = { pid: process.pid, host: hostname(), start: readProcessStart(process.pid), startedAt: new Date().toISOString(), out };
-  let path = beside;
-  try {
-    takeLockFile(beside, me, out, notice);
-  } catch (err) {
-    // An existing folder whose parent cannot hold a file (the root of a mounted disk, say):
-    // the lock goes inside it.
-    if (!exists || !(err instanceof RowdeckError) || err.code !== 'ERR_PERMISSION') throw err;
-    path = join(out, INSIDE_LOCK);
-    takeLockFile(path, me, out, notice);
-  }
-  // A run that had to lock inside (or beside) must not be missed by one that locks the other way.
-  const other = path === beside ? join(out, INSIDE_LOCK) : beside;
-  const held = readLock(other);
-  if (held && held !== 'unreadable' && !isStale(held)) {
-    unlinkQuietly(path);
-    throw lockedError(out, other, held);
-  }
-  let content = me;
-  return {
-    path,
-    note(finishing) {
-      content = { ...me, finishing };
-      writeLockFile(path, content, 'w');
-    },
-    release() {
-      unlinkQuietly(path);
-    },
-  };
-}
-
-/** Creates the lock file exclusively; takes over a lock whose owner is dead. */
-function takeLockFile(path: string, me: LockContent, out: string, notice: (text: string) => void): void {
-  for (let attempt = 0; ; attempt++) {
-    try {
-      writeLockFile(path, me, 'wx');
-      return;
-    } catch (err) {
-      if ((err as NodeJS.ErrnoException).code !== 'EEXIST' || attempt >= 5) {
-        throw err instanceof RowdeckError ? err : systemError(err, path, 'creating the lock file of the output folder');
-      }
-    }
-    const held = readLock(path);
-    if (held === null) continue; // gone meanwhile
-    if (held === 'unreadable') {
-      // Being written by a run that is starting, or left empty by one killed right then.
-      if (ageMs(path) < 10_000) throw lockedError(out, path, null);
-      breakLock(path, null);
-      continue;
-    }
-    if (!isStale(held)) throw lockedError(out, path, held);
-    if (breakLock(path, held)) {
-      const undone = held.finishing && held.out === out ? undoFinishing(out, held.finishing) : 0;
-      const restored = restoreReplaced(out, held.pid);
-      notice(
-        `took over the lock of run ${held.pid}, which ended without releasing it${undone ? `, removed the ${undone} file(s) of its unfinished output` : ''}${restored ? `, put back the ${restored} file(s) of the output it was replacing` : ''}`,
-      );
-    }
-  }
-}
-
-/**
- * Writes the lock whole: its content goes to a work file first, which is then linked to the lock's
- * name ('wx': fails with EEXIST if a lock is there) or renamed over it ('w'), so no reader ever
- * sees it empty or half written. Where the file system has no hard links, it is created and
- * written in place.
- */
-function writeLockFile(path: string, content: LockContent, flag: 'wx' | 'w'): void {
-  // Named like a work folder of this process, so a sweep removes it if the process dies here.
-  const temp = join(dirname(path), `${STAGE_PREFIX}${process.pid}-lock-${randomBytes(4).toString('hex')}`);
-  try {
-    writeFileSync(temp, JSON.stringify(content) + '\n', { flag: 'wx', mode: 0o644 });
-  } catch (err) {
-    unlinkQuietly(temp);
-    throw lockWriteError(err, path);
-  }
-  try {
-    if (flag === 'w') renameSync(temp, path);
-    else linkSync(temp, path);
-  } catch (err) {
-    const code = (err as NodeJS.ErrnoException).code;
-    unlinkQuietly(temp);
-    if (code === 'EEXIST') throw err;
-    if (flag === 'wx' && (code === 'EPERM' || code === 'ENOTSUP' || code === 'ENOSYS' || code === 'EOPNOTSUPP')) {
-      writeLockInPlace(path, content);
-      return;
-    }
-    throw lockWriteError(err, path);
-  }
-  unlinkQuietly(temp);
-}
-
-function writeLockInPlace(path: string, content: LockContent): void {
-  let fd: number;
-  try {
-    fd = openSync(path, 'wx', 0o644);
-  } catch (err) {
-    if ((err as NodeJS.ErrnoException).code === 'EEXIST') throw err;
-    throw lockWriteError(err, path);
-  }
-  try {
-    writeSync(fd, JSON.stringify(content) + '\n');
-  } catch (err) {
-    closeSync(fd);
-    unlinkQuietly(path);
-    throw lockWriteError(err, path);
-  }
-  closeSync(fd);
-}
-
-function lockWriteError(err: unknown, path: string): RowdeckError {
-  const code = (err as NodeJS.ErrnoException).code;
-  if (code === 'ENOENT' && lstatOrNull(dirname(path))?.isDirectory()) {
-    // The folder is there but takes no new files: /proc, /sys and the like.
-    return new RowdeckError('ERR_IO', `${path}: creating the lock file of the output folder failed: ${dirname(path)} cannot hold new files (a special file system such as /proc or /sys?). Choose an ordinary folder for --out.`, { file: path, errno: code, operation: 'creating the lock file' });
-  }
-  return systemError(err, path, 'creating the lock file of the output folder');
-}
-
-/** The lock's content, 'unreadable' (empty or damaged), or null when there is none. */
-function readLock(path: string): LockContent | 'unreadable' | null {
-  let text: string;
-  try {
-    text = readFileSync(path, 'utf8');
-  } catch (err) {
-    return (err as NodeJS.ErrnoException).code === 'ENOENT' ? null : 'unreadable';
-  }
-  try {
-    const c = JSON.parse(text) as LockContent;
-    return typeof c.pid === 'number' && typeof c.host === 'string' ? c : 'unreadable';
-  } catch {
-    return 'unreadable';
-  }
-}
-
-/** A lock is stale when its owner ran on this host and is gone (or its process id was reused). */
-function isStale(held: LockContent): boolean {
-  return held.host === hostname() && held.pid !== process.pid && !isProcessAlive(held.pid, held.start);
-}
-
-/**
- * Removes a stale lock: moved aside first, so that of two runs taking over at once only one
- * removes it, and a lock made meanwhile by a live run is put back.
- */
-function breakLock(path: string, held: LockContent | null): boolean {
-  const aside = `${path}.stale-${process.pid}`;
-  try {
-    renameSync(path, aside);
-  } catch {
-    return false;
-  }
-  const moved = readLock(aside);
-  const same = held === null ? moved === 'unreadable' || moved === null : moved !== null && moved !== 'unreadable' && moved.pid === held.pid && moved.startedAt === held.startedAt;
-  if (!same) {
-    try {
-      linkSync(aside, path);
-    } catch {
-      // A newer lock is in place already.
-    }
-  }
-  unlinkQuietly(aside);
-  return same;
-}
-
-function lockedError(out: string, lockPath: string, held: LockContent | null): RowdeckError {
-  const who = held ? `run ${held.pid} on ${held.host}, started ${held.startedAt}` : 'a run that is starting';
-  const remote = held && held.host !== hostname() ? ` If no such run is going on ${held.host}, remove ${lockPath}.` : '';
-  return new RowdeckError(
-    'ERR_OUTPUT_LOCKED',
-    `${out}: another rowdeck run is writing this output folder (${who}; lock file ${lockPath}). Wait for it to finish, or choose another --out folder.${remote}`,
-    { file: out, lock: lockPath, ...(held ? { pid: held.pid, host: held.host } : {}) },
-  );
-}
-
-/** A dead run was moving its output into `out`: its files there (none of them the user's) are removed, unless it got as far as its manifest. */
-function undoFinishing(out: string, files: string[]): number {
-  if (lstatOrNull(join(out, 'manifest.json'))) return 0;
-  let n = 0;
-  for (const f of files) {
-    if (!isSafeRelative(f)) continue;
-    try {
-      unlinkSync(join(out, f));
-      n++;
-    } catch {
-      // Not there (not moved yet, or removed already).
-    }
-  }
-  for (const d of foldersOf(files).reverse()) rmdirQuietly(join(out, d));
-  return n;
-}
-
-/** A dead run had moved the previous output aside (--force) and died before its manifest: the previous output goes back. */
-function restoreReplaced(out: string, pid: number): number {
-  if (lstatOrNull(join(out, 'manifest.json'))) return 0;
-  let n = 0;
-  let names: string[] = [];
-  try {
-    names = readdirSync(out);
-  } catch {
-    return 0;
-  }
-  for (const name of names) {
-    if (!name.startsWith(`${STAGE_PREFIX}${pid}-`) || !name.endsWith('-replaced')) continue;
-    const dir = join(out, name);
-    for (const f of listFiles(dir)) {
-      try {
-        if (dirname(f) !== '.') mkdirSync(join(out, dirname(f)), { recursive: true });
-        renameSync(join(dir, f), join(out, f));
-        n++;
-      } catch {
-        // Left in place; the sweep then keeps the folder only if it cannot remove it.
-      }
-    }
-    rmSync(dir, { recursive: true, force: true });
-  }
-  return n;
 }
 
 // ---- what is in the folder ------------------------------------------------------------------
@@ -380,7 +141,7 @@ interface OldOutput {
 function readOldOutput(out: string, lock: Lock): OldOutput {
   const refuse = (why: string, details: Record<string, unknown> = {}): never => {
     throw new RowdeckError(
-      'ERR_FORCE_REFUSED',
+      'RDK_FORCE_REFUSED',
       `${out}: ${why} --force replaces only a previous output of rowdeck, and only the files its manifest lists. Nothing was changed. Choose another --out folder, or move those entries away yourself.`,
       { file: out, ...details },
     );
@@ -459,7 +220,7 @@ function isRowdeckReport(path: string): boolean {
 function refuseUnsafeForce(out: string, inputs: string[]): void {
   const real = realOrSelf(out);
   const refuse = (why: string): never => {
-    throw new RowdeckError('ERR_FORCE_REFUSED', `${out}: --force is refused here: ${why} Choose a folder of its own for the output (e.g. --out ${join(out, 'shuffled')}).`, { file: out });
+    throw new RowdeckError('RDK_FORCE_REFUSED', `${out}: --force is refused here: ${why} Choose a folder of its own for the output (e.g. --out ${join(out, 'shuffled')}).`, { file: out });
   };
   if (dirname(real) === real) refuse('it is the root of the file system.');
   if (isMountPoint(real)) refuse('it is a mount point.');
@@ -629,37 +390,10 @@ function createClaim(out: string, stage: string, lock: Lock, old: OldOutput | nu
 function appearedError(out: string, entries: string[]): RowdeckError {
   const what = entries.length ? ` (${describeEntries(entries)})` : '';
   return new RowdeckError(
-    'ERR_OUTPUT_EXISTS',
+    'RDK_OUTPUT_EXISTS',
     `${out}: something else was written there while this run was working${what}. It was left as it is; this run's output was not put in place. Choose another --out folder.`,
     { file: out, entries: entries.slice(0, 20) },
   );
-}
-
-// ---- small file-system helpers --------------------------------------------------------------
-
-function statOrNull(path: string, doing: string): ReturnType<typeof statSync> | null {
-  try {
-    return statSync(path);
-  } catch (err) {
-    if ((err as NodeJS.ErrnoException).code === 'ENOENT') return null;
-    throw systemError(err, path, doing);
-  }
-}
-
-function lstatOrNull(path: string): ReturnType<typeof lstatSync> | null {
-  try {
-    return lstatSync(path);
-  } catch {
-    return null;
-  }
-}
-
-function realOrSelf(path: string): string {
-  try {
-    return realpathSync(path);
-  } catch {
-    return resolve(path);
-  }
 }
 
 /** Makes `dir` and its missing parents; `created` gets the ones made, outermost first. */
@@ -694,87 +428,4 @@ export function removeCreated(created: string[]): string[] {
     }
   }
   return removed;
-}
-
-function makeFolder(path: string, mode: number, doing: string, mayExist = false): void {
-  try {
-    mkdirSync(path, mode);
-  } catch (err) {
-    if (mayExist && (err as NodeJS.ErrnoException).code === 'EEXIST' && lstatOrNull(path)?.isDirectory()) return;
-    throw systemError(err, path, doing);
-  }
-}
-
-function moveFile(from: string, to: string): void {
-  try {
-    renameSync(from, to);
-  } catch (err) {
-    throw systemError(err, to, 'moving a finished file into the output folder');
-  }
-}
-
-function removeFile(path: string, doing: string): void {
-  try {
-    unlinkSync(path);
-  } catch (err) {
-    if ((err as NodeJS.ErrnoException).code === 'ENOENT') return;
-    throw systemError(err, path, doing);
-  }
-}
-
-function unlinkQuietly(path: string): void {
-  try {
-    unlinkSync(path);
-  } catch {
-    // Already gone.
-  }
-}
-
-function rmdirQuietly(path: string): void {
-  try {
-    rmdirSync(path);
-  } catch {
-    // Not empty, or gone.
-  }
-}
-
-function ageMs(path: string): number {
-  try {
-    return Date.now() - statSync(path).mtimeMs;
-  } catch {
-    return Infinity;
-  }
-}
-
-/** Files under `dir` as relative paths, folders walked (in sorted order). */
-function listFiles(dir: string, rel = ''): string[] {
-  const files: string[] = [];
-  const abs = rel === '' ? dir : join(dir, rel);
-  let names: string[];
-  try {
-    names = readdirSync(abs).sort();
-  } catch (err) {
-    throw systemError(err, abs, 'listing the finished output');
-  }
-  for (const n of names) {
-    const r = rel === '' ? n : join(rel, n);
-    if (lstatSync(join(dir, r)).isDirectory()) files.push(...listFiles(dir, r));
-    else files.push(r);
-  }
-  return files;
-}
-
-/** The folders the relative paths lie in (each once, parents before children). */
-function foldersOf(files: string[]): string[] {
-  const set = new Set<string>();
-  for (const f of files) for (let d = dirname(f); d !== '.' && d !== ''; d = dirname(d)) set.add(d);
-  return [...set].sort((a, b) => a.split(sep).length - b.split(sep).length || (a < b ? -1 : 1));
-}
-
-function topName(rel: string): string {
-  return rel.split(/[\\/]/)[0]!;
-}
-
-function isSafeRelative(p: string): boolean {
-  return p !== '' && !isAbsolute(p) && !normalize(p).split(/[\\/]/).includes('..');
 }

@@ -104,7 +104,7 @@ export class SmallInputSender {
         const r = answer as SmallInputReply;
         if (r.kind === 'parsed') done(r.records, r.bytes);
         else if (r.kind === 'declined') declined();
-        else throw new RowdeckError('ERR_INTERNAL', `a worker answered a small input with ${answer.kind}`);
+        else throw new RowdeckError('RDK_INTERNAL', `a worker answered a small input with ${answer.kind}`);
       })
       .catch((err: unknown) => void this.#failed.set(input, err))
       .finally(() => this.#running.delete(p));

@@ -3,6 +3,7 @@
  * Widths are in CSS pixels of a 960-pixel column; the SVGs scale down with the page.
  */
 import { escapeText } from './escape.js';
+import { withinTolerance } from '../core/balance.js';
 import { formatCount, formatNumber, formatPercent, formatSignedPercent } from './format.js';
 import { chart, dataText, deviationFill, px, shorten, slotFill, tag } from './svg.js';
 
@@ -121,7 +122,7 @@ export function deviationGrid(id: string, rows: GridRow[], columns: ClassColumn[
       const col = columns[j]!;
       const { fill, ink } = deviationFill(cell.deviation, range);
       const isWorst = worst !== null && worst.row === r.key && worst.column === j;
-      const beyond = Math.abs(cell.deviation) > tolerance + 1e-12;
+      const beyond = !withinTolerance(Math.abs(cell.deviation), tolerance);
       const list = listKey(col.classes);
       const tip = tag('title', { 'data-k': `${r.key}.dev.${list} ${r.key}.class.${list}` }, `${formatSignedPercent(cell.deviation)}, ${formatCount(cell.count)} records · ${escapeText(col.label)} in ${escapeText(r.label)}${isWorst ? ' (the largest deviation)' : ''}`);
       parts.push(tag('rect', { x: px(x + 0.5), y: px(y + 0.5), width: px(cw - 1), height: px(ch - 1), fill, class: beyond ? 'cell beyond' : 'cell' }, tip));

@@ -23,9 +23,9 @@ export function writeFileAtomic(path: string, text: string): void {
     rmSync(temp, { force: true });
     const e = err as NodeJS.ErrnoException;
     if (e.code === 'ENOENT') {
-      throw new RowdeckError('ERR_IO', `${path}: cannot write the report: the folder ${dirname(path)} does not exist. Create it, or give a path in an existing folder.`, { file: path, errno: e.code });
+      throw new RowdeckError('RDK_IO', `${path}: cannot write the report: the folder ${dirname(path)} does not exist. Create it, or give a path in an existing folder.`, { file: path, errno: e.code });
     }
-    throw new RowdeckError('ERR_IO', `${path}: writing the report failed: ${e.message}. Check that the folder is writable and has space.`, { file: path, errno: e.code });
+    throw new RowdeckError('RDK_IO', `${path}: writing the report failed: ${e.message}. Check that the folder is writable and has space.`, { file: path, errno: e.code });
   }
 }
 

@@ -7,6 +7,8 @@
  * `balance.maxDeviation` with its sign kept (positive: the class is over-represented in the unit).
  * Empty units have no shares and count as no deviation, as the manifest counts them.
  */
+import { signedDeviation } from '../core/balance.js';
+import { stratumLabel } from '../core/strata.js';
 import type { Manifest } from '../engine/manifest.js';
 
 export interface ClassInfo {
@@ -52,20 +54,12 @@ export interface ReportModel {
   worst: { unit: UnitInfo; classIndex: number; deviation: number } | null;
 }
 
-/** Label of class `s` of a manifest. */
+/** Label of class `s` of a manifest (core/strata.ts: stratumLabel). */
 export function classLabel(m: Manifest, s: number): string {
-  const v = m.strata.values[s];
-  if (!v || v.value === null) return `class ${s + 1}`;
-  if (m.strata.columns.length === 0) return 'all records';
-  return v.value.map((x) => (x === null ? '(missing)' : x)).join(' · ');
+  return stratumLabel(m.strata.values[s]?.value ?? null, s);
 }
 
-/** Signed relative deviation of a class's share in a unit from its share in the whole. */
-export function signedDeviation(n: number, unitRecords: number, classRecords: number, total: number): number {
-  if (unitRecords <= 0 || classRecords <= 0 || total <= 0) return 0;
-  const overall = classRecords / total;
-  return (n / unitRecords - overall) / overall;
-}
+export { signedDeviation };
 
 function makeUnit(kind: 'part' | 'fold', key: string, label: string, index: number, split: string | null, strata: number[], classes: ClassInfo[], total: number): UnitInfo {
   const records = strata.reduce((a, b) => a + b, 0);

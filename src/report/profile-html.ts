@@ -4,6 +4,7 @@
  * and marked the same way (data-k / data-s / data-t; keys: `records`, `col.3.missing`,
  * `byclass.0.2.count` (class 2 of stratify column 0), `stratum.4.share`, `warning.1.message`, …).
  */
+import { stratumLabel } from '../core/strata.js';
 import type { Profile, ProfileClass } from '../engine/profile.js';
 import { countChart, missingChart } from './charts.js';
 import { escapeText } from './escape.js';
@@ -24,8 +25,7 @@ export interface ProfileReportOptions {
 }
 
 function classLabel(c: ProfileClass, index: number): string {
-  if (c.value === null) return `class ${index + 1}`;
-  return c.value.map((x) => (x === null ? '(missing)' : x)).join(' · ');
+  return stratumLabel(c.value, index);
 }
 
 export function renderProfileReport(p: Profile, options: ProfileReportOptions = {}): string {

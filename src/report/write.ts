@@ -7,19 +7,14 @@
 import { basename, resolve } from 'node:path';
 import type { Manifest } from '../engine/manifest.js';
 import type { Profile } from '../engine/profile.js';
-import { loadManifest, verify, type VerifyProgress, type VerifyReport } from '../engine/verify.js';
+import { loadManifest, verify, type VerifyReport } from '../engine/verify.js';
+import { fromCommandLine, resolveReportOptions, type ReportOptions, type VerifyOptions } from '../options.js';
 import { writeFileAtomic, writeManifestReport } from './file.js';
 import { renderProfileReport } from './profile-html.js';
 
 export { REPORT_FILE, writeFileAtomic } from './file.js';
 
-export interface ReportOptions {
-  /** Re-read every part against the manifest first (as `verify()`), and show the result. Default false. */
-  verify?: boolean;
-  /** Worker threads for that verify (see VerifyOptions.threads). */
-  threads?: number;
-  onProgress?: (e: VerifyProgress) => void;
-}
+export type { ReportOptions } from '../options.js';
 
 export interface ReportResult {
   /** The report file written. */
@@ -35,11 +30,13 @@ export interface ReportResult {
  * with `verify` the outcome of re-reading every part. The verify result is returned whether it
  * passed or not (the page shows it either way).
  */
-export async function writeReport(dir: string, options: ReportOptions = {}): Promise<ReportResult> {
+export async function writeReport(dir: string, given: ReportOptions = {}): Promise<ReportResult> {
+  const options = resolveReportOptions(dir, given);
   const manifest = loadManifest(dir);
   let report: VerifyReport | null = null;
   if (options.verify) {
-    report = await verify({ dir, ...(options.threads !== undefined ? { threads: options.threads } : {}), ...(options.onProgress ? { onProgress: options.onProgress } : {}) });
+    const v: VerifyOptions = { dir, ...(options.threads !== undefined ? { threads: options.threads } : {}), ...(options.onProgress ? { onProgress: options.onProgress } : {}) };
+    report = await verify(options.surface === 'cli' ? fromCommandLine(v) : v);
   }
   const path = writeManifestReport(dir, manifest, basename(resolve(dir)), report);
   return { path, manifest, verify: report };

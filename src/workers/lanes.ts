@@ -86,7 +86,7 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
       };
       worker.on('error', fail);
       worker.on('exit', (code) => {
-        if (code !== 0) fail(new RowdeckError('ERR_INTERNAL', `worker thread ${k} stopped (exit ${code})`));
+        if (code !== 0) fail(new RowdeckError('RDK_INTERNAL', `worker thread ${k} stopped (exit ${code})`));
       });
       this.#lanes.push(lane);
     }

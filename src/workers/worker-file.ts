@@ -10,5 +10,5 @@ export function resolveWorkerFile(name = 'shuffle-worker.js'): string {
   if (existsSync(beside)) return beside;
   const built = join(here, '..', '..', 'dist', 'workers', name);
   if (existsSync(built)) return built;
-  throw new RowdeckError('ERR_INTERNAL', `worker module not found at ${beside}; run "npm run build" first.`);
+  throw new RowdeckError('RDK_INTERNAL', `worker module not found at ${beside}; run "npm run build" first.`);
 }

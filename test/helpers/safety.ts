@@ -56,7 +56,7 @@ export function runProcess(cmd: string, args: string[], o: RunOptions): Promise<
 
 /** The coded error a run printed (`rowdeck: error CODE: message`), or null. */
 export function printedError(stderr: string): { code: string; message: string } | null {
-  const m = /^rowdeck: error (ERR_[A-Z_]+): (.*)$/m.exec(stderr);
+  const m = /^rowdeck: error (RDK_[A-Z_]+): (.*)$/m.exec(stderr);
   return m ? { code: m[1]!, message: m[2]! } : null;
 }
 

@@ -2,7 +2,6 @@
  * The commands that run a shuffle as tasks under a batch scheduler: `plan`, `task`, `finish`,
  * `status` (src/cluster/). Thin: arguments to the library, its result to the terminal.
  */
-import { RowdeckError } from '../../errors.js';
 import { planCluster, loadPlan } from '../../cluster/plan.js';
 import { runScatterTask } from '../../cluster/scatter-task.js';
 import { runDealTask } from '../../cluster/deal.js';
@@ -11,40 +10,18 @@ import { finishCluster } from '../../cluster/finish.js';
 import { planStatus } from '../../cluster/status.js';
 import { resolveTaskIndex } from '../../cluster/task-index.js';
 import { taskCommand } from '../../cluster/commands.js';
-import { intArg, parseCommandArgs, strArg } from '../args.js';
+import { FINISH_SPEC, PLAN_SPEC, resolveFinishOptions, resolveStatusOptions, resolveTaskOptions, STATUS_SPEC, TASK_SPEC, type FinishCommandOptions, type PlanOptions, type TaskOptions } from '../../options.js';
+import { parseCommandLine } from '../args.js';
 import { FINISH_HELP, PLAN_HELP, STATUS_HELP, TASK_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
-import { SHUFFLE_CLI_OPTIONS, shuffleOptionsOf } from './shuffle.js';
 
 export async function runPlan(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(argv, {
-    ...SHUFFLE_CLI_OPTIONS,
-    work: { type: 'string' },
-    tasks: { type: 'string' },
-    'gather-tasks': { type: 'string' },
-    image: { type: 'string' },
-    claim: { type: 'string' },
-    'mount-path': { type: 'string' },
-  });
+  const { options, own: v } = parseCommandLine(PLAN_SPEC, argv);
   if (v.help) {
     io.stdout.write(PLAN_HELP);
     return 0;
   }
-  if (v.work === undefined) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck plan needs --work DIR, a new folder on a file system every node sees, for the tasks\' files.');
-  if (v.tasks === undefined) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck plan needs --tasks N, the number of scatter tasks to cut the inputs into.');
-  const gatherTasks = intArg('gather-tasks', v['gather-tasks']);
-  const image = strArg(v.image);
-  const claim = strArg(v.claim);
-  const mountPath = strArg(v['mount-path']);
-  const { plan, files } = await planCluster({
-    ...shuffleOptionsOf(v, positionals, 'plan'),
-    work: String(v.work),
-    tasks: intArg('tasks', v.tasks)!,
-    ...(gatherTasks !== undefined ? { gatherTasks } : {}),
-    ...(image !== undefined ? { image } : {}),
-    ...(claim !== undefined ? { claim } : {}),
-    ...(mountPath !== undefined ? { mountPath } : {}),
-  });
+  const { plan, files } = await planCluster(options as unknown as PlanOptions);
   if (v.json) io.stdout.write(JSON.stringify(plan, null, 2) + '\n');
   if (!v.quiet) {
     io.stderr.write(
@@ -59,19 +36,16 @@ export async function runPlan(argv: string[], io: CliIO): Promise<number> {
 }
 
 export async function runTaskCommand(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(argv, { stage: { type: 'string' }, index: { type: 'string' }, quiet: { type: 'boolean' }, help: { type: 'boolean' } });
+  const { options, own: v } = parseCommandLine(TASK_SPEC, argv);
   if (v.help) {
     io.stdout.write(TASK_HELP);
     return 0;
   }
-  if (positionals.length !== 1) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck task needs the work folder of a plan: rowdeck task WORK --stage scatter|deal|gather [--index I].');
-  const stage = strArg(v.stage);
-  if (stage !== 'scatter' && stage !== 'deal' && stage !== 'gather') {
-    throw new RowdeckError('ERR_OPTION', `Invalid option "--stage": expected scatter, deal or gather, got ${JSON.stringify(stage ?? '')}`, { option: 'stage' });
-  }
-  const plan = loadPlan(positionals[0]!);
+  const t = resolveTaskOptions(options as unknown as TaskOptions);
+  const stage = t.stage;
+  const plan = loadPlan(t.work);
   const count = stage === 'scatter' ? plan.scatter.length : stage === 'gather' ? plan.gather.length : 1;
-  const { index, from } = stage === 'deal' ? { index: 0, from: 'the stage' } : resolveTaskIndex(strArg(v.index), count, stage);
+  const { index, from } = stage === 'deal' ? { index: 0, from: 'the stage' } : resolveTaskIndex(t.index, count, stage);
   const t0 = Date.now();
   const ran = stage === 'scatter' ? await runScatterTask(plan, index) : stage === 'gather' ? await runGatherTask(plan, index) : await runDealTask(plan);
   if (!v.quiet) {
@@ -81,27 +55,26 @@ export async function runTaskCommand(argv: string[], io: CliIO): Promise<number>
 }
 
 export async function runFinish(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(argv, { 'keep-work': { type: 'boolean' }, json: { type: 'boolean' }, quiet: { type: 'boolean' }, help: { type: 'boolean' } });
+  const { options, own: v } = parseCommandLine(FINISH_SPEC, argv);
   if (v.help) {
     io.stdout.write(FINISH_HELP);
     return 0;
   }
-  if (positionals.length !== 1) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck finish needs the work folder of a plan: rowdeck finish WORK [--keep-work].');
-  const plan = loadPlan(positionals[0]!);
-  const run = await finishCluster(plan, { keepWork: v['keep-work'] === true, onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`) });
+  const f = resolveFinishOptions(options as unknown as FinishCommandOptions);
+  const plan = loadPlan(f.work);
+  const run = await finishCluster(plan, { keepWork: f.keepWork === true, onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`) });
   if (v.json) io.stdout.write(JSON.stringify(run.manifest, null, 2) + '\n');
   if (!v.quiet) io.stderr.write(`rowdeck: ${run.manifest.input.records.toLocaleString('en-US')} records -> ${run.manifest.output.parts.length} part(s) in ${run.out} (plan ${plan.planId}, ${plan.scatter.length} scatter and ${plan.gather.length} gather tasks).\n`);
   return 0;
 }
 
 export async function runStatus(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(argv, { json: { type: 'boolean' }, help: { type: 'boolean' } });
+  const { options, own: v } = parseCommandLine(STATUS_SPEC, argv);
   if (v.help) {
     io.stdout.write(STATUS_HELP);
     return 0;
   }
-  if (positionals.length !== 1) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck status needs the work folder of a plan: rowdeck status WORK [--json].');
-  const s = planStatus(loadPlan(positionals[0]!));
+  const s = planStatus(loadPlan(resolveStatusOptions(options as { work: string }).work));
   if (v.json) {
     io.stdout.write(JSON.stringify(s, null, 2) + '\n');
     return 0;

@@ -3,12 +3,11 @@
  * schema and statistics as an aligned table, the class balance of each stratify column as a bar
  * chart, and the warnings; `--json` prints the Profile itself. Progress on stderr (terminals only).
  */
-import { RowdeckError } from '../../errors.js';
 import { profile, type Profile, type ProfileClass, type ProfileOptions } from '../../engine/profile.js';
 import type { ColumnSummary } from '../../core/stats.js';
-import type { InputFormat } from '../../io/batch.js';
-import type { ProgressEvent } from '../../options.js';
-import { INPUT_OPTIONS, intArg, numArg, parseCommandArgs, strArg } from '../args.js';
+import { stratumLabel } from '../../core/strata.js';
+import { PROFILE_SPEC, type ProgressEvent } from '../../options.js';
+import { parseCommandLine } from '../args.js';
 import { PROFILE_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 import { createProgress, formatBytes } from '../progress.js';
@@ -19,52 +18,28 @@ export const DATA_VALUES_NOTE =
   'Note: this profile shows values from the data (min/max, frequent values, class names). Pass --exclude-values to leave them out before sharing it.';
 
 export async function run(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(argv, {
-    ...INPUT_OPTIONS,
-    stratify: { type: 'string' },
-    partitions: { type: 'string', short: 'p' },
-    folds: { type: 'string' },
-    tolerance: { type: 'string' },
-    threads: { type: 'string' },
-    html: { type: 'string' },
-  });
-  if (v.help) {
+  const { options, own } = parseCommandLine(PROFILE_SPEC, argv);
+  if (own.help) {
     io.stdout.write(PROFILE_HELP);
     return 0;
   }
-  if (positionals.length === 0) throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck profile needs at least one INPUT file (or - for stdin).');
-  const progress = createProgress(io.stderr, !v.quiet);
-  const opts: ProfileOptions = {
-    inputs: positionals,
-    // The shared progress line knows shuffle's stages; 'read'/'bins' print the same way.
-    onProgress: (e) => progress.update({ ...e, stage: e.stage as string as ProgressEvent['stage'] }),
-  };
-  const set = <K extends keyof ProfileOptions>(k: K, val: ProfileOptions[K] | undefined): void => {
-    if (val !== undefined) opts[k] = val;
-  };
-  set('stratify', strArg(v.stratify));
-  set('partitions', intArg('partitions', v.partitions));
-  set('folds', intArg('folds', v.folds));
-  set('tolerance', numArg('tolerance', v.tolerance));
-  set('threads', intArg('threads', v.threads));
-  set('format', strArg(v.format) as InputFormat | undefined);
-  set('delimiter', strArg(v.delimiter));
-  set('onBadRecord', strArg(v['on-bad-record']) as ProfileOptions['onBadRecord']);
-  if (v['no-header']) opts.header = false;
-  if (v['exclude-values']) opts.excludeValues = true;
+  const progress = createProgress(io.stderr, !own.quiet);
+  const opts = options as unknown as ProfileOptions;
+  // The shared progress line knows shuffle's stages; 'read'/'bins' print the same way.
+  opts.onProgress = (e) => progress.update({ ...e, stage: e.stage as string as ProgressEvent['stage'] });
   let p: Profile;
   try {
     p = await profile(opts);
   } finally {
     progress.done();
   }
-  if (v.html !== undefined) {
-    const file = writeProfileReport(p, String(v.html));
-    if (!v.quiet) io.stderr.write(`rowdeck: wrote the profile page ${file}${p.excludeValues ? '' : ' (it shows values from the data: pass --exclude-values to leave them out)'}.\n`);
+  if (typeof own.html === 'string') {
+    const file = writeProfileReport(p, own.html);
+    if (!own.quiet) io.stderr.write(`rowdeck: wrote the profile page ${file}${p.excludeValues ? '' : ' (it shows values from the data: pass --exclude-values to leave them out)'}.\n`);
   }
-  if (v.json) {
+  if (own.json) {
     io.stdout.write(JSON.stringify(p, null, 2) + '\n');
-    if (!v.quiet && !p.excludeValues) io.stderr.write(`rowdeck: ${DATA_VALUES_NOTE}\n`);
+    if (!own.quiet && !p.excludeValues) io.stderr.write(`rowdeck: ${DATA_VALUES_NOTE}\n`);
   } else {
     io.stdout.write(renderProfile(p).join('\n') + '\n');
   }
@@ -120,9 +95,9 @@ export function drawBar(fraction: number, width = BAR_WIDTH): string {
   return bar === '' && fraction > 0 ? '▏' : bar;
 }
 
+/** A class's label (core/strata.ts), control characters shown as escapes. */
 function describeClassValue(c: ProfileClass, index: number): string {
-  if (c.value === null) return `class #${index + 1}`;
-  return c.value.map((x) => (x === null ? '(missing)' : showValue(x))).join(' · ');
+  return showValue(stratumLabel(c.value, index));
 }
 
 function renderClasses(title: string, classes: ProfileClass[]): string[] {
@@ -178,7 +153,7 @@ export function renderProfile(p: Profile): string[] {
       const s = p.strata.values[smallest];
       out.push(
         `Strata (${p.strata.columns.join(' × ')}): ${p.strata.values.length} combinations` +
-          (s ? `; the smallest, ${s.value === null ? `stratum #${smallest + 1}` : describeClassValue(s, smallest)}, has ${formatCount(s.count)} record${s.count === 1 ? '' : 's'}.` : '.'),
+          (s ? `; the smallest, ${describeClassValue(s, smallest)}, has ${formatCount(s.count)} record${s.count === 1 ? '' : 's'}.` : '.'),
       );
     }
   }

@@ -2,35 +2,13 @@
  * `rowdeck verify DIR [--against INPUT...]`: a thin layer over the library's verify(). The
  * report decides the exit status: 0 when every check holds, 1 with every mismatch on stderr.
  */
-import { RowdeckError } from '../../errors.js';
-import { verify, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
-import { intArg, parseCommandArgs } from '../args.js';
+import { verify, type VerifyOptions, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
+import { VERIFY_SPEC } from '../../options.js';
+import { parseCommandLine } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
 import { REDRAW_MS } from '../progress.js';
 import { formatVerifyChecks } from '../summary.js';
-
-/**
- * `--against a.csv b.csv` takes every argument up to the next option, which parseArgs alone
- * does not do: rewrite them as repeated `--against=` options first.
- */
-function expandAgainst(argv: string[]): string[] {
-  const out: string[] = [];
-  for (let i = 0; i < argv.length; i++) {
-    const a = argv[i]!;
-    if (a !== '--against') {
-      out.push(a);
-      continue;
-    }
-    let n = 0;
-    while (i + 1 < argv.length && (argv[i + 1] === '-' || !argv[i + 1]!.startsWith('-'))) {
-      out.push(`--against=${argv[++i]!}`);
-      n++;
-    }
-    if (n === 0) out.push(a); // parseArgs reports the missing value
-  }
-  return out;
-}
 
 function createVerifyProgress(io: CliIO, enabled: boolean): { update(e: VerifyProgress): void; done(): void } {
   if (!enabled || !io.stderr.isTTY) return { update() {}, done() {} };
@@ -68,39 +46,18 @@ export function formatMismatches(r: VerifyReport): string[] {
 }
 
 export async function run(argv: string[], io: CliIO): Promise<number> {
-  const { values: v, positionals } = parseCommandArgs(expandAgainst(argv), {
-    against: { type: 'string', multiple: true },
-    json: { type: 'boolean' },
-    quiet: { type: 'boolean', short: 'q' },
-    threads: { type: 'string' },
-    'temp-dir': { type: 'string' },
-    'no-replay': { type: 'boolean' },
-    help: { type: 'boolean', short: 'h' },
-  });
+  const { options, own: v } = parseCommandLine(VERIFY_SPEC, argv);
   if (v.help) {
     io.stdout.write(VERIFY_HELP);
     return 0;
   }
-  if (positionals.length === 0) {
-    throw new RowdeckError('ERR_MISSING_ARGUMENT', 'rowdeck verify needs DIR, the output folder of rowdeck shuffle (it holds manifest.json). Give DIR before --against.');
-  }
-  if (positionals.length > 1) {
-    throw new RowdeckError('ERR_OPTION', `rowdeck verify checks one folder, got ${positionals.length}: ${positionals.join(', ')}. To compare with inputs, list them after --against.`);
-  }
-  const dir = positionals[0]!;
-  const against = v.against as string[] | undefined;
-  const threads = intArg('threads', v.threads);
+  const opts = options as unknown as VerifyOptions;
+  const dir = opts.dir;
   const progress = createVerifyProgress(io, !v.quiet);
+  opts.onProgress = (e) => progress.update(e);
   let report: VerifyReport;
   try {
-    report = await verify({
-      dir,
-      ...(against ? { against } : {}),
-      ...(threads !== undefined ? { threads } : {}),
-      ...(v['temp-dir'] !== undefined ? { tempDir: String(v['temp-dir']) } : {}),
-      ...(v['no-replay'] ? { replay: false } : {}),
-      onProgress: (e) => progress.update(e),
-    });
+    report = await verify(opts);
   } finally {
     progress.done();
   }
@@ -119,7 +76,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     } else {
       const files = new Set(report.mismatches.map((x) => x.file)).size;
       io.stderr.write(
-        `rowdeck: ${dir} does not match its manifest (ERR_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}${replay}.\n`,
+        `rowdeck: ${dir} does not match its manifest (RDK_VERIFY_FAILED): ${report.mismatches.length} mismatch(es) in ${files} file(s); ${passed} checks passed${skippedText}${replay}.\n`,
       );
     }
     if (report.dealingScheme === 1) {
