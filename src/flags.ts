@@ -64,7 +64,7 @@ export const FLAG_SPECS: readonly FlagSpec[] = [
   {
     name: 'ROWDECK_SCAN', key: 'scan', values: '`js`, `simd`', module: 'structural',
     meaning: 'CSV/TSV data on one scan: `js` the JavaScript byte scan only, `simd` the structural module (structural.wat) for every size (unset: the module from 4 KiB of data)',
-    readBy: ['src/io/reader.ts'],
+    readBy: ['src/io/csv-records.ts'],
     parse: (t) => (t === 'js' ? 'js' : t === 'simd' ? 'simd' : 'auto'),
   },
   {
