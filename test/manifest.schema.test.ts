@@ -174,7 +174,7 @@ describe('the schema is closed and documented', () => {
       expect(o.additionalProperties, at).toBe(false);
       if (o.properties) {
         // stats: absent when statistics are turned off; plan: present only for a plan's run (rowdeck finish).
-        const optional = ['stats', 'plan'];
+        const optional = ['stats'];
         const keys = Object.keys(o.properties as object).filter((k) => !optional.includes(k));
         expect([...((o.required as string[]) ?? [])].sort(), at).toEqual(keys.sort());
       }
