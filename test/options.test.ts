@@ -220,6 +220,7 @@ const LIBRARY_GOOD: [Command, string, unknown, (r: Record<string, unknown>) => u
   ['plan', 'tasks', 100, (r) => r.tasks, 100],
   ['plan', 'gatherTasks', 3, (r) => r.gatherTasks, 3],
   ['plan', 'threads', 0, (r) => [(r.shuffle as { threads: number }).threads, r.threadsGiven], [0, true]],
+  ['plan', 'memory', '2GiB', (r) => (r.shuffle as { memory: number }).memory, 2048 * MiB],
   ['plan', 'image', 'registry.example/rowdeck:0.2', (r) => r.image, 'registry.example/rowdeck:0.2'],
   ['plan', 'claim', 'lab-data', (r) => r.claim, 'lab-data'],
   ['plan', 'mountPath', '/data', (r) => r.mountPath, '/data'],
@@ -353,6 +354,7 @@ const LIBRARY_BAD: [Command, string, Record<string, unknown>, string, string][] 
   ['plan', 'tasks', { tasks: 0 }, 'RDK_OPTION', invalid('tasks', INT(1, 100000), '0')],
   ['plan', 'gatherTasks', { gatherTasks: 1.5 }, 'RDK_OPTION', invalid('gatherTasks', INT(1, 100000), '1.5')],
   ['plan', 'threads', { threads: 300 }, 'RDK_OPTION', invalid('threads', INT(0, 256), '300')],
+  ['plan', 'memory', { memory: 'lots' }, 'RDK_OPTION', invalid('memory', SIZE_EXPECTED, '"lots"')],
   ['plan', 'image', { image: '' }, 'RDK_OPTION', invalid('image', 'an image name', '""')],
   ['plan', 'claim', { claim: 7 }, 'RDK_OPTION', invalid('claim', 'a claim name', '7')],
   ['plan', 'mountPath', { mountPath: 'data' }, 'RDK_OPTION', invalid('mountPath', 'an absolute path', '"data"')],
@@ -453,6 +455,8 @@ const CLI_GOOD: [Command, string, string[], (r: Record<string, unknown>) => unkn
   ['plan', 'tasks', ['--tasks', '8'], (r) => r.tasks, 8],
   ['plan', 'gatherTasks', ['--gather-tasks', '4'], (r) => r.gatherTasks, 4],
   ['plan', 'threads', ['--threads', '2'], (r) => (r.shuffle as { threads: number }).threads, 2],
+  ['plan', 'memory', [], (r) => (r.shuffle as { memory: number; memoryIsDefault: boolean }).memory, 512 * MiB],
+  ['plan', 'memory', ['--memory', '1GiB'], (r) => (r.shuffle as { memory: number }).memory, 1024 * MiB],
   ['plan', 'image', ['--image', 'node:20'], (r) => r.image, 'node:20'],
   ['plan', 'claim', ['--claim', 'shared'], (r) => r.claim, 'shared'],
   ['plan', 'mountPath', ['--mount-path', '/mnt'], (r) => r.mountPath, '/mnt'],
@@ -548,6 +552,7 @@ const CLI_BAD: [Command, string, string[], string, string, boolean?][] = [
   ['plan', 'tasks', ['--tasks', 'many'], 'RDK_OPTION', cliInvalid('tasks', INT(1, 100000), '"many"')],
   ['plan', 'gatherTasks', ['--gather-tasks', '0'], 'RDK_OPTION', cliInvalid('gather-tasks', INT(1, 100000), '0')],
   ['plan', 'threads', ['--threads', 'x'], 'RDK_OPTION', cliInvalid('threads', INT(0, 256), '"x"')],
+  ['plan', 'memory', ['--memory', '1KiB'], 'RDK_OPTION', cliInvalid('memory', SIZE_EXPECTED, '"1KiB"')],
   ['plan', 'image', ['--image='], 'RDK_OPTION', cliInvalid('image', 'an image name', '""')],
   ['plan', 'claim', ['--claim'], 'RDK_OPTION', 'Invalid option --claim: expected NAME after it, got nothing'],
   ['plan', 'mountPath', ['--mount-path', 'data'], 'RDK_OPTION', cliInvalid('mount-path', 'an absolute path', '"data"')],
@@ -667,8 +672,8 @@ describe('the same option means and is checked the same in every command', () =>
     expect((commandLine('plan', ['--threads', '0']).resolved.shuffle as { threads: number }).threads).toBe(0);
   });
 
-  it("plan takes shuffle's own definitions for every shuffle option but the spill's folder and threads (each task's)", () => {
-    const shuffleKeys = Object.keys(SHUFFLE_OPTIONS).filter((k) => k !== 'tempDir' && k !== 'threads');
+  it("plan takes shuffle's own definitions for every shuffle option but the spill's folder, threads and memory (each task's)", () => {
+    const shuffleKeys = Object.keys(SHUFFLE_OPTIONS).filter((k) => k !== 'tempDir' && k !== 'threads' && k !== 'memory');
     expect(PLAN_FROM_SHUFFLE.sort()).toEqual(shuffleKeys.sort());
     // So plan refuses what shuffle refuses, with the same message.
     const a = thrown(() => library('plan', { split: 'a=0.7,b=0.2' }));

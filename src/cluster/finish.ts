@@ -165,6 +165,9 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       deal: deal.deal,
       buckets: plan.size.buckets,
       threads: plan.size.threads,
+      // A plan's tasks always spill to files; a gather task splits the buckets too large for it.
+      layout: done.gather.some((g) => (g.splits ?? 0) > 0) ? 'multi-pass' : 'spill',
+      memory: { budget: plan.size.memory, isDefault: o.memoryIsDefault, splits: done.gather.reduce((a, g) => a + (g.splits ?? 0), 0) },
       parts: partRecords(layout, counts, K, S, closed, fingerprints, stats?.parts ?? null),
       deviation: { max: deal.worst.deviation, kind: deal.worst.kind, part: deal.worst.unit, stratum: deal.worst.stratum },
       fingerprints: { input: inFp.toHex(), output: outFp.toHex() },

@@ -418,7 +418,6 @@ export async function profile(options: ProfileOptions): Promise<Profile> {
       onBadRecord: o.onBadRecord,
       columns: binCols,
       secret,
-      memory: o.memory,
     });
   }
   const binsMs = Date.now() - t0;

@@ -20,7 +20,9 @@ import {
   onBadRecordOption,
   tempDirOption,
   threadsOption,
+  withHelp,
 } from './input.js';
+import { defaultMemory } from '../io/memory-available.js';
 import {
   booleanValue,
   checkerFor,
@@ -54,6 +56,10 @@ export interface ProgressEvent {
   total: number;
   records: number;
   elapsedMs: number;
+  /** How the records are kept between the stages (`shuffle --help`, "Memory and disk"): in memory, in spill files, or in spill files split once more in stage 2. */
+  layout?: 'memory' | 'spill' | 'multi-pass';
+  /** Stage gather in the multi-pass layout: buckets split so far (each scattered once more before it is dealt). */
+  splits?: number;
 }
 
 export interface ShuffleOptions {
@@ -100,7 +106,10 @@ export interface ShuffleOptions {
    * groups in random order; needs `group` or `assign: 'hash'`).
    */
   order?: PartOrder;
-  /** Memory budget in bytes, or text like '64MiB', '1GiB'. Default 512 MiB. */
+  /**
+   * Memory budget in bytes, or text like '64MiB', '1GiB'. Default: a quarter of the memory
+   * available when the run starts, from 128 MiB to 16 GiB (src/io/memory-available.ts).
+   */
   memory?: number | string;
   /**
    * Worker threads. Default: the number of cores, or none for inputs under 32 MiB (starting
@@ -169,6 +178,8 @@ export interface ResolvedShuffleOptions {
   assign: 'exact' | 'hash' | 'group';
   order: PartOrder;
   memory: number;
+  /** No budget was given: `memory` is the machine's default. */
+  memoryIsDefault: boolean;
   threads: number;
   tempDir: string | null;
   format: InputFormat | null;
@@ -477,9 +488,13 @@ export const SHUFFLE_OPTIONS = {
     help: ["with --gzip: 1 (fastest) to 9 (smallest); default 6, gzip's own"],
     ...integerValue(1, 9),
   },
-  memory: memoryOption,
+  memory: withHelp(memoryOption, [
+    'memory budget, e.g. 64MiB, 2GiB (default: a quarter of the memory',
+    'available at start, 128MiB to 16GiB; here now: {memory-default}).',
+    'It decides the layout, never the output (see Memory and disk)',
+  ]),
   threads: threadsOption,
-  tempDir: tempDirOption,
+  tempDir: withHelp(tempDirOption, [...(tempDirOption.help ?? []), 'none where the spill fits in --memory']),
   stats: {
     cli: { flag: 'stats' },
     section: O,
@@ -566,7 +581,8 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
     key,
     assign: group !== null ? 'group' : assign0,
     order,
-    memory: o.memory === undefined ? DEFAULT_MEMORY : (o.memory as number),
+    memory: o.memory === undefined ? defaultMemory() : (o.memory as number),
+    memoryIsDefault: o.memory === undefined,
     // Small inputs are shuffled on the calling thread unless threads are asked for (INLINE_MAX_BYTES).
     threads: o.threads ?? defaultThreads(o.inputs),
     tempDir: o.tempDir ?? null,
