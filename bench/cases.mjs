@@ -11,7 +11,7 @@
 // - budget: the `--memory` given, in bytes ('default': the build's own), for the peak RSS goal;
 // - needs: { disk, memory } as functions of the input's size in bytes: the case is skipped with a
 //   line when the scratch folder's file system or MemAvailable has less;
-// - requires: a tool name of tools (see run.mjs) the case cannot run without.
+// - requires: a tool name of tools (see run.mjs), or a list of them, the case cannot run without.
 //
 // A figure is { group, text, of, max?, atLeast?, wall? }: `of(f)` computes it from the summaries
 // (f(name) is a case's summary for this checkout's build, or null). Wall time ratios are computed
@@ -26,7 +26,11 @@ export const reportGroups = {
   core: { marker: 'shuffle-bench', heading: 'Shuffle' },
   scale: { marker: 'scale-bench', heading: 'Scale: 1×, 4× and 8× the 1 GB file' },
   cluster: { marker: 'cluster-bench', heading: 'A plan run as local processes' },
+  gzip: { marker: 'gzip-bench', heading: 'gzip in and out' },
 };
+
+/** The gzip levels of the gzip group: its cases run at each. */
+export const GZIP_LEVELS = [1, 6, 9];
 
 export const SCALES = [1, 4, 8];
 
@@ -47,6 +51,8 @@ export function inputs(quick) {
       ? { file: 'rig-wide-1k.csv', generate: ['generate-wide.mjs', '--rows', '1000', '--channels', '2000', '--seed', '1'] }
       : { file: 'rig-wide.csv', generate: ['generate-wide.mjs', '--rows', '5000', '--channels', '2000', '--seed', '1'] },
     ...copies,
+    // The small file gzip-compressed (made once, by node:zlib at gzip's default level).
+    smallGz: quick ? { file: 'readings-20m.csv.gz', gzipOf: 'small', level: 6 } : { file: 'readings-200m.csv.gz', gzipOf: 'small', level: 6 },
   };
 }
 
@@ -118,6 +124,31 @@ export function cases({ inputBytes, root }) {
     { name: 'sql-peer-1g-cap', groups: ['core', 'peers', 'sql'], input: 'big', requires: 'duckdb', cmd: (io) => [process.execPath, `${root}/bench/duckdb-deal.mjs`, io.input, io.out, '--memory-limit', '1GB'], needs: { disk: (b) => 3 * b, memory: () => 2 * GiB } },
   ];
 
+  // gzip in and gzip out, at each level: rowdeck (the parts compressed on several cores) against
+  // the usual pipeline at the same level, in the same rounds. The input is compressed (~3.1x here):
+  // the disk and memory needs are of its uncompressed size.
+  for (const level of GZIP_LEVELS) {
+    list.push(
+      {
+        name: `rowdeck-gzip${level}-small`,
+        groups: ['gzip'],
+        input: 'smallGz',
+        budget: 'default',
+        // Level 6 without --gzip-level: gzip's default, and a build without the option can run it (--compare).
+        rowdeck: (io) => shuffle(io, '--gzip', ...(level === 6 ? [] : ['--gzip-level', String(level)])),
+        needs: { disk: (b) => shuffleDisk(4 * b) },
+      },
+      {
+        name: `zcat-shuf-gzip${level}-small`,
+        groups: ['gzip'],
+        input: 'smallGz',
+        requires: ['shuf', 'gzip'],
+        cmd: (io) => ['sh', '-c', `zcat "$1" | shuf | gzip -${level} > "$2"`, 'sh', io.input, io.out],
+        needs: { disk: copyDisk, memory: (b) => shufMemory(4 * b) },
+      },
+    );
+  }
+
   // Scale: the 1 GB file at 1x, 4x and 8x; the stratified shuffle at the default budget, at
   // 64 MiB and at a budget that holds the whole input, and shuf, all in the same rounds.
   for (const m of SCALES) {
@@ -143,6 +174,7 @@ export function cases({ inputBytes, root }) {
 
 const ratio = (a, b) => (a !== null && a !== undefined && b ? a / b : null);
 const wall = (f, name, stat = 'median') => f(name)?.wallS[stat] ?? null;
+const cpu = (f, name) => (f(name)?.userS != null && f(name)?.sysS != null ? f(name).userS + f(name).sysS : null);
 const perGb = (f, name, stat) => {
   const s = f(name);
   return s && s.wallS[stat] !== null ? s.wallS[stat] / (s.inputBytes / 1e9) : null;
@@ -164,6 +196,18 @@ export function figures({ budgetOf }) {
     { group: 'scale', text: 'rowdeck-1x-fit / shuf-1x (input inside the budget)', wall: true, max: 0.6, of: (f, st) => ratio(wall(f, 'rowdeck-1x-fit', st), wall(f, 'shuf-1x', st)) },
     { group: 'scale', text: 'rowdeck-1x / shuf-1x (default budget)', wall: true, max: 0.8, of: (f, st) => ratio(wall(f, 'rowdeck-1x', st), wall(f, 'shuf-1x', st)) },
   ];
+  for (const level of GZIP_LEVELS) {
+    const mine = `rowdeck-gzip${level}-small`;
+    const peer = `zcat-shuf-gzip${level}-small`;
+    // The goal is at gzip's default level; the others are shown.
+    list.push(
+      { group: 'gzip', text: `${mine} / ${peer} (wall)`, wall: true, ...(level === 6 ? { max: 0.5 } : {}), of: (f, st) => ratio(wall(f, mine, st), wall(f, peer, st)) },
+      // What the wall ratio tends to when other work leaves no core idle: the CPU each spends.
+      { group: 'gzip', text: `${mine} / ${peer} (CPU: user + sys)`, of: (f) => ratio(cpu(f, mine), cpu(f, peer)) },
+      { group: 'gzip', text: `${mine}: parts (MB)`, of: (f) => (f(mine)?.outBytes ?? null) && f(mine).outBytes / 1e6 },
+      { group: 'gzip', text: `${peer}: output (MB)`, of: (f) => (f(peer)?.outBytes ?? null) && f(peer).outBytes / 1e6 },
+    );
+  }
   for (const m of SCALES.filter((x) => x > 1)) {
     for (const v of ['', '-mem64', '-fit']) {
       list.push({ group: 'scale', text: `rowdeck-${m}x${v} / shuf-${m}x`, wall: true, of: (f, st) => ratio(wall(f, `rowdeck-${m}x${v}`, st), wall(f, `shuf-${m}x`, st)) });

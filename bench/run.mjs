@@ -5,7 +5,7 @@
 // time, CPU time, peak RSS and bytes written; ratios and goals come from the same rounds.
 // Run `node bench/run.mjs --help` for the options.
 import { spawnSync } from 'node:child_process';
-import { existsSync, mkdirSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { loadavg } from 'node:os';
 import { dirname, join, resolve } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
@@ -27,9 +27,9 @@ const HELP = `npm run bench -- [options]
   --scratch DIR    where outputs and spill go (default bench/data/tmp); removed after the run
   --list           print the groups and cases, and stop
 
-Writes bench/results/last-run.json. A complete run of a report group (core, scale) that is not
---quick, --only or --compare also writes its entry in bench/results/latest.json and its section
-of docs/benchmarks.md.`;
+Writes bench/results/last-run.json. A complete run of a report group (core, scale, cluster,
+gzip) that is not --quick, --only or --compare also writes its entry in
+bench/results/latest.json and its section of docs/benchmarks.md.`;
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), '..');
 const args = process.argv.slice(2);
@@ -59,7 +59,7 @@ function inputBytes(key) {
   const file = join(dataDir, spec.file);
   if (existsSync(file)) return statSync(file).size;
   if (spec.copiesOf) return spec.times * inputBytes(spec.copiesOf);
-  const i = spec.generate.indexOf('--bytes');
+  const i = spec.generate?.indexOf('--bytes') ?? -1;
   return i >= 0 ? Number(spec.generate[i + 1]) : 0;
 }
 
@@ -98,19 +98,22 @@ const tools = {
   shuf: spawnSync('shuf', ['--version'], { stdio: 'ignore' }).status === 0,
   dd: spawnSync('dd', ['--version'], { stdio: 'ignore' }).status === 0,
   duckdb: existsSync(join(root, 'bench', 'node_modules', '@duckdb', 'node-api')),
+  gzip: spawnSync('gzip', ['--version'], { stdio: 'ignore' }).status === 0,
 };
 const toolHint = {
   shuf: 'GNU coreutils shuf is not installed',
   dd: 'dd is not installed',
   duckdb: 'the SQL peer is not installed (npm install --prefix bench)',
+  gzip: 'gzip is not installed',
 };
 
 // Skips for a missing tool come first, and each is said with one line.
 const skipped = {};
 const runnable = [];
 for (const c of selected) {
-  if (c.requires && !tools[c.requires]) {
-    skipped[c.name] = toolHint[c.requires];
+  const missing = [c.requires ?? []].flat().find((t) => !tools[t]);
+  if (missing) {
+    skipped[c.name] = toolHint[missing];
     console.error(`skip ${c.name}: ${skipped[c.name]}`);
   } else runnable.push(c);
 }
@@ -158,6 +161,20 @@ function manifestFacts(out) {
   }
 }
 
+/** The size of what a command wrote to `out`: the file, or the files under the folder but rowdeck's manifest and report. */
+function outputBytes(out) {
+  if (!existsSync(out)) return null;
+  const st = statSync(out);
+  if (!st.isDirectory()) return st.size;
+  let n = 0;
+  for (const f of readdirSync(out, { recursive: true })) {
+    if (f === 'manifest.json' || f === 'report.html') continue;
+    const fs = statSync(join(out, f));
+    if (fs.isFile()) n += fs.size;
+  }
+  return n;
+}
+
 const byName = Object.fromEntries(runnable.map((c) => [c.name, c]));
 const buildOf = Object.fromEntries(builds.map((b) => [b.label, b]));
 const argvOf = (c, build, io) => (c.rowdeck ? [process.execPath, build.cli, ...c.rowdeck(io)] : c.cmd(io));
@@ -199,6 +216,7 @@ function runEntry(e, phase) {
   const io = ioOf(c, build);
   const s = measure(argvOf(c, build, io), { tools, scratch });
   if (c.rowdeck) facts[key(e)] = manifestFacts(io.out) ?? facts[key(e)];
+  s.outBytes = outputBytes(io.out);
   rmSync(io.out, { recursive: true, force: true });
   const label = `${phase} ${e.name}${builds.length > 1 && c.rowdeck ? ` [${e.build}]` : ''}`;
   if (!s.ok) {

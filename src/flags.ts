@@ -32,6 +32,8 @@ export interface Flags {
   stats: KernelMode;
   phases: boolean;
   bucketBits: number | undefined;
+  layout: 'memory' | 'spill' | 'multi-pass' | undefined;
+  memoryStore: 'auto' | 'shared';
   partStats: 'auto' | 'lanes' | 'files';
   blockBytes: number | undefined;
   lookaheadBytes: number | undefined;
@@ -99,6 +101,18 @@ export const FLAG_SPECS: readonly FlagSpec[] = [
     name: 'ROWDECK_BUCKET_BITS', key: 'bucketBits', values: 'an integer (the engine chooses 0..14)',
     meaning: 'forces the number of spill buckets to 2^bits instead of choosing it from the input size and `--memory`',
     readBy: ['src/engine/sizing.ts'], parse: number,
+  },
+  {
+    name: 'ROWDECK_LAYOUT', key: 'layout', values: '`memory`, `spill`, `multi-pass`',
+    meaning: "forces the layout instead of deciding it from the input's size over `--memory` (`memory` even past the budget; `multi-pass` with buckets 8 times the size stage 2 then takes whole, so that every bucket is split)",
+    readBy: ['src/engine/sizing.ts'],
+    parse: (t) => (t === 'memory' || t === 'spill' || t === 'multi-pass' ? t : undefined),
+  },
+  {
+    name: 'ROWDECK_MEMORY_STORE', key: 'memoryStore', values: '`shared`',
+    meaning: 'the memory layout keeps the spill in SharedArrayBuffers, not in unnamed files in /dev/shm (a memory file system)',
+    readBy: ['src/engine/ram-store.ts'],
+    parse: (t) => (t === 'shared' ? 'shared' : 'auto'),
   },
   {
     name: 'ROWDECK_PART_STATS', key: 'partStats', values: '`lanes`, `files`',

@@ -137,6 +137,8 @@ describe('the same bytes as shuffle', () => {
     ['quoted line breaks across cuts', () => ({ inputs: [quoted], seed: 's6', partitions: 3, stratify: 'label', folds: 2 })],
     ['JSON Lines, grouped order', () => ({ inputs: [jsonl], seed: 's7', partitions: 3, group: 'crew', order: 'grouped' })],
     ['statistics read back from many parts', () => ({ inputs: [big], seed: 's8', partitions: 40, stats: true, memory: '8MiB' })],
+    // 1 MiB a task: the multi-pass layout, every bucket split in the gather tasks, every census bucket in the deal step.
+    ['a budget far below the input: buckets and census buckets split', () => ({ inputs: [big], seed: 's9', partitions: 3, group: 'sensor', stratify: 'fault', folds: 2, memory: '1MiB' })],
   ];
   it.each(modes)('%s', async (_name, make) => {
     const o = make();
@@ -146,6 +148,11 @@ describe('the same bytes as shuffle', () => {
       expect(plan.scatter.length).toBeGreaterThan(1);
       expectSameOutput(ref, out);
       expect(existsSync(plan.work)).toBe(false);
+      if (o.memory === '1MiB') {
+        const run = (JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { run: { layout: string; bucketsSplit: number } }).run;
+        expect(run.layout).toBe('multi-pass');
+        expect(run.bucketsSplit).toBeGreaterThan(1);
+      }
     }
   });
 

@@ -76,7 +76,7 @@ describe('reading the switches', () => {
   it('unset: every module where it runs, sizes chosen by the engine', () => {
     expect(readFlags({})).toEqual({
       scan: 'auto', jsonl: 'auto', spill: 'auto', gather: 'auto', sort: 'auto', stats: 'auto', phases: false,
-      bucketBits: undefined, partStats: 'auto', blockBytes: undefined, lookaheadBytes: undefined, openParts: undefined, runsDir: undefined,
+      bucketBits: undefined, layout: undefined, memoryStore: 'auto', partStats: 'auto', blockBytes: undefined, lookaheadBytes: undefined, openParts: undefined, runsDir: undefined,
       chromium: undefined,
     });
   });
@@ -84,17 +84,18 @@ describe('reading the switches', () => {
   it('reads each documented value', () => {
     const f = readFlags({
       ROWDECK_SCAN: 'simd', ROWDECK_JSONL: 'js', ROWDECK_SPILL: 'js', ROWDECK_GATHER: 'js', ROWDECK_SORT: 'js', ROWDECK_STATS: 'js', ROWDECK_PHASES: '1',
-      ROWDECK_BUCKET_BITS: '0', ROWDECK_PART_STATS: 'files', ROWDECK_BLOCK_BYTES: '4096', ROWDECK_LOOKAHEAD_BYTES: '512', ROWDECK_OPEN_PARTS: '100000',
+      ROWDECK_BUCKET_BITS: '0', ROWDECK_LAYOUT: 'multi-pass', ROWDECK_MEMORY_STORE: 'shared', ROWDECK_PART_STATS: 'files', ROWDECK_BLOCK_BYTES: '4096', ROWDECK_LOOKAHEAD_BYTES: '512', ROWDECK_OPEN_PARTS: '100000',
       ROWDECK_RUNS_DIR: '/tmp/runs', ROWDECK_CHROMIUM: '/opt/chromium',
     });
     expect(f).toEqual({
       scan: 'simd', jsonl: 'js', spill: 'js', gather: 'js', sort: 'js', stats: 'js', phases: true,
-      bucketBits: 0, partStats: 'files', blockBytes: 4096, lookaheadBytes: 512, openParts: 100000, runsDir: '/tmp/runs', chromium: '/opt/chromium',
+      bucketBits: 0, layout: 'multi-pass', memoryStore: 'shared', partStats: 'files', blockBytes: 4096, lookaheadBytes: 512, openParts: 100000, runsDir: '/tmp/runs', chromium: '/opt/chromium',
     });
     expect(readFlags({ ROWDECK_SCAN: 'js', ROWDECK_PART_STATS: 'lanes' })).toMatchObject({ scan: 'js', partStats: 'lanes' });
     // Anything else leaves the default (as the scattered reads did).
     expect(readFlags({ ROWDECK_GATHER: 'wasm', ROWDECK_PHASES: 'yes', ROWDECK_PART_STATS: 'x', ROWDECK_OPEN_PARTS: '0' })).toMatchObject({ gather: 'auto', phases: false, partStats: 'auto', openParts: undefined });
     expect(readFlags({ ROWDECK_OPEN_PARTS: '2.5' }).openParts).toBeUndefined();
+    expect(readFlags({ ROWDECK_LAYOUT: 'disk', ROWDECK_MEMORY_STORE: 'tmpfs' })).toMatchObject({ layout: undefined, memoryStore: 'auto' });
   });
 
   it('setFlag sets this thread and the environment, and puts both back', () => {

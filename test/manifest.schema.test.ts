@@ -146,6 +146,17 @@ describe('broken manifests are rejected', () => {
     expect(has(errorsOf(broken((m) => (m.manifestVersion = 3))), '/manifestVersion', 'const')).toBe(true);
   });
 
+  it('a gzip level without gzip parts, or outside 1..9', () => {
+    // The plain manifest has no level; gzip ones carry it (the real gzip run above validates).
+    expect(good.options).not.toHaveProperty('gzipLevel');
+    expect(has(errorsOf(broken((m) => (m.options.gzipLevel = 6))), '/options/gzipLevel', 'false schema')).toBe(true);
+    const gz = (level: unknown) => broken((m) => Object.assign(m.options, { gzip: true, gzipLevel: level }));
+    expect(errorsOf(gz(9))).toEqual([]);
+    expect(has(errorsOf(gz(0)), '/options/gzipLevel', 'minimum')).toBe(true);
+    expect(has(errorsOf(gz(10)), '/options/gzipLevel', 'maximum')).toBe(true);
+    expect(has(errorsOf(gz(6.5)), '/options/gzipLevel', 'type')).toBe(true);
+  });
+
   it('a statistics entry that is not a column summary', () => {
     const errs = errorsOf(broken((m) => delete m.input.stats[0].sd));
     expect(has(errs, '/input/stats/0', 'required')).toBe(true);
@@ -173,7 +184,8 @@ describe('the schema is closed and documented', () => {
     for (const [at, o] of objs) {
       expect(o.additionalProperties, at).toBe(false);
       if (o.properties) {
-        const optional = ['stats']; // absent when statistics are turned off
+        // stats: absent when statistics are turned off; gzipLevel: present only with gzip parts.
+        const optional = ['stats', 'gzipLevel'];
         const keys = Object.keys(o.properties as object).filter((k) => !optional.includes(k));
         expect([...((o.required as string[]) ?? [])].sort(), at).toEqual(keys.sort());
       }

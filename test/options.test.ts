@@ -183,6 +183,7 @@ const LIBRARY_GOOD: [Command, string, unknown, (r: Record<string, unknown>) => u
   ['shuffle', 'onBadRecord', 'quarantine', (r) => r.onBadRecord, 'quarantine'],
   ['shuffle', 'force', true, (r) => r.force, true],
   ['shuffle', 'gzip', true, (r) => r.gzip, true],
+  ['shuffle', 'gzipLevel', 9, (r) => [r.gzip, r.gzipLevel], [true, 9], { gzip: true }],
   ['shuffle', 'memory', '64MiB', (r) => r.memory, 64 * MiB],
   ['shuffle', 'memory', 1.5 * MiB, (r) => r.memory, 1.5 * MiB],
   ['shuffle', 'threads', 0, (r) => r.threads, 0],
@@ -219,6 +220,7 @@ const LIBRARY_GOOD: [Command, string, unknown, (r: Record<string, unknown>) => u
   ['plan', 'tasks', 100, (r) => r.tasks, 100],
   ['plan', 'gatherTasks', 3, (r) => r.gatherTasks, 3],
   ['plan', 'threads', 0, (r) => [(r.shuffle as { threads: number }).threads, r.threadsGiven], [0, true]],
+  ['plan', 'memory', '2GiB', (r) => (r.shuffle as { memory: number }).memory, 2048 * MiB],
   ['plan', 'image', 'registry.example/rowdeck:0.2', (r) => r.image, 'registry.example/rowdeck:0.2'],
   ['plan', 'claim', 'lab-data', (r) => r.claim, 'lab-data'],
   ['plan', 'mountPath', '/data', (r) => r.mountPath, '/data'],
@@ -296,6 +298,9 @@ const LIBRARY_BAD: [Command, string, Record<string, unknown>, string, string][] 
   ['shuffle', 'onBadRecord', { onBadRecord: 'ignore' }, 'RDK_OPTION', invalid('onBadRecord', '"fail", "skip" or "quarantine"', '"ignore"')],
   ['shuffle', 'force', { force: 1 }, 'RDK_OPTION', invalid('force', 'true or false', '1')],
   ['shuffle', 'gzip', { gzip: 'true' }, 'RDK_OPTION', invalid('gzip', 'true or false', '"true" (a string)')],
+  ['shuffle', 'gzipLevel', { gzip: true, gzipLevel: 10 }, 'RDK_OPTION', invalid('gzipLevel', INT(1, 9), '10')],
+  ['shuffle', 'gzipLevel', { gzip: true, gzipLevel: 2.5 }, 'RDK_OPTION', invalid('gzipLevel', INT(1, 9), '2.5')],
+  ['shuffle', 'gzipLevel', { gzipLevel: 6 }, 'RDK_OPTION', invalid('gzipLevel', 'it together with "gzip" (the level is that of gzip-compressed parts)', '6')],
   ['shuffle', 'memory', { memory: 'lots' }, 'RDK_OPTION', invalid('memory', SIZE_EXPECTED, '"lots"')],
   ['shuffle', 'memory', { memory: '0.5MiB' }, 'RDK_OPTION', invalid('memory', SIZE_EXPECTED, '"0.5MiB"')],
   ['shuffle', 'memory', { memory: -1 }, 'RDK_OPTION', invalid('memory', SIZE_EXPECTED, '-1')],
@@ -310,7 +315,7 @@ const LIBRARY_BAD: [Command, string, Record<string, unknown>, string, string][] 
   ['shuffle', 'onNotice', { onNotice: 5 }, 'RDK_OPTION', invalid('onNotice', 'a function', '5')],
   ['shuffle', '(unknown)', { partitons: 3 }, 'RDK_UNKNOWN_OPTION', 'Unknown option "partitons" for shuffle(). Did you mean "partitions"?'],
   ['shuffle', '(unknown)', { on_bad_record: 'skip' }, 'RDK_UNKNOWN_OPTION', 'Unknown option "on_bad_record" for shuffle(). Did you mean "onBadRecord"?'],
-  ['shuffle', '(unknown)', { colour: 'blue' }, 'RDK_UNKNOWN_OPTION', 'Unknown option "colour" for shuffle(). It takes: inputs, partitions, split, folds, foldColumn, stratify, tolerance, group, assign, key, order, seed, format, delimiter, header, onBadRecord, out, force, gzip, memory, threads, tempDir, stats, excludeValues, report, onProgress, onNotice.'],
+  ['shuffle', '(unknown)', { colour: 'blue' }, 'RDK_UNKNOWN_OPTION', 'Unknown option "colour" for shuffle(). It takes: inputs, partitions, split, folds, foldColumn, stratify, tolerance, group, assign, key, order, seed, format, delimiter, header, onBadRecord, out, force, gzip, gzipLevel, memory, threads, tempDir, stats, excludeValues, report, onProgress, onNotice.'],
   ['profile', 'inputs', { inputs: undefined }, 'RDK_MISSING_ARGUMENT', 'profile() needs "inputs", an input file (or - for standard input).'],
   ['profile', 'inputs', { inputs: [7] }, 'RDK_OPTION', invalid('inputs', PATHS_EXPECTED, '[7]')],
   ['profile', 'stratify', { stratify: 'c,c' }, 'RDK_OPTION', invalid('stratify', 'each column once ("c" is given twice)', '"c,c"')],
@@ -349,6 +354,7 @@ const LIBRARY_BAD: [Command, string, Record<string, unknown>, string, string][] 
   ['plan', 'tasks', { tasks: 0 }, 'RDK_OPTION', invalid('tasks', INT(1, 100000), '0')],
   ['plan', 'gatherTasks', { gatherTasks: 1.5 }, 'RDK_OPTION', invalid('gatherTasks', INT(1, 100000), '1.5')],
   ['plan', 'threads', { threads: 300 }, 'RDK_OPTION', invalid('threads', INT(0, 256), '300')],
+  ['plan', 'memory', { memory: 'lots' }, 'RDK_OPTION', invalid('memory', SIZE_EXPECTED, '"lots"')],
   ['plan', 'image', { image: '' }, 'RDK_OPTION', invalid('image', 'an image name', '""')],
   ['plan', 'claim', { claim: 7 }, 'RDK_OPTION', invalid('claim', 'a claim name', '7')],
   ['plan', 'mountPath', { mountPath: 'data' }, 'RDK_OPTION', invalid('mountPath', 'an absolute path', '"data"')],
@@ -416,6 +422,7 @@ const CLI_GOOD: [Command, string, string[], (r: Record<string, unknown>) => unkn
   ['shuffle', 'onBadRecord', ['--on-bad-record', 'skip'], (r) => r.onBadRecord, 'skip'],
   ['shuffle', 'force', ['--force'], (r) => r.force, true],
   ['shuffle', 'gzip', ['--gzip'], (r) => r.gzip, true],
+  ['shuffle', 'gzipLevel', ['--gzip', '--gzip-level', '1'], (r) => r.gzipLevel, 1],
   ['shuffle', 'memory', ['--memory', '1GiB'], (r) => r.memory, 1024 * MiB],
   ['shuffle', 'threads', ['--threads', '0'], (r) => r.threads, 0],
   ['shuffle', 'tempDir', ['--temp-dir', 'spill'], (r) => r.tempDir, 'spill'],
@@ -448,6 +455,8 @@ const CLI_GOOD: [Command, string, string[], (r: Record<string, unknown>) => unkn
   ['plan', 'tasks', ['--tasks', '8'], (r) => r.tasks, 8],
   ['plan', 'gatherTasks', ['--gather-tasks', '4'], (r) => r.gatherTasks, 4],
   ['plan', 'threads', ['--threads', '2'], (r) => (r.shuffle as { threads: number }).threads, 2],
+  ['plan', 'memory', [], (r) => (r.shuffle as { memory: number; memoryIsDefault: boolean }).memory, 512 * MiB],
+  ['plan', 'memory', ['--memory', '1GiB'], (r) => (r.shuffle as { memory: number }).memory, 1024 * MiB],
   ['plan', 'image', ['--image', 'node:20'], (r) => r.image, 'node:20'],
   ['plan', 'claim', ['--claim', 'shared'], (r) => r.claim, 'shared'],
   ['plan', 'mountPath', ['--mount-path', '/mnt'], (r) => r.mountPath, '/mnt'],
@@ -495,6 +504,8 @@ const CLI_BAD: [Command, string, string[], string, string, boolean?][] = [
   ['shuffle', 'onBadRecord', ['--on-bad-record', 'x'], 'RDK_OPTION', cliInvalid('on-bad-record', '"fail", "skip" or "quarantine"', '"x"')],
   ['shuffle', 'force', ['--force=true'], 'RDK_OPTION', 'Invalid option --force: it takes no value (it is a switch), got "true"'],
   ['shuffle', 'gzip', ['--gzip=yes'], 'RDK_OPTION', 'Invalid option --gzip: it takes no value (it is a switch), got "yes"'],
+  ['shuffle', 'gzipLevel', ['--gzip', '--gzip-level', '0'], 'RDK_OPTION', cliInvalid('gzip-level', INT(1, 9), '0')],
+  ['shuffle', 'gzipLevel', ['--gzip-level', '3'], 'RDK_OPTION', cliInvalid('gzip-level', 'it together with --gzip (the level is that of gzip-compressed parts)', '3')],
   ['shuffle', 'memory', ['--memory', 'lots'], 'RDK_OPTION', cliInvalid('memory', SIZE_EXPECTED, '"lots"')],
   ['shuffle', 'threads', ['--threads', 'x'], 'RDK_OPTION', cliInvalid('threads', INT(0, 256), '"x"')],
   ['shuffle', 'threads', ['--threads', '-1'], 'RDK_OPTION', cliInvalid('threads', INT(0, 256), '-1')],
@@ -541,6 +552,7 @@ const CLI_BAD: [Command, string, string[], string, string, boolean?][] = [
   ['plan', 'tasks', ['--tasks', 'many'], 'RDK_OPTION', cliInvalid('tasks', INT(1, 100000), '"many"')],
   ['plan', 'gatherTasks', ['--gather-tasks', '0'], 'RDK_OPTION', cliInvalid('gather-tasks', INT(1, 100000), '0')],
   ['plan', 'threads', ['--threads', 'x'], 'RDK_OPTION', cliInvalid('threads', INT(0, 256), '"x"')],
+  ['plan', 'memory', ['--memory', '1KiB'], 'RDK_OPTION', cliInvalid('memory', SIZE_EXPECTED, '"1KiB"')],
   ['plan', 'image', ['--image='], 'RDK_OPTION', cliInvalid('image', 'an image name', '""')],
   ['plan', 'claim', ['--claim'], 'RDK_OPTION', 'Invalid option --claim: expected NAME after it, got nothing'],
   ['plan', 'mountPath', ['--mount-path', 'data'], 'RDK_OPTION', cliInvalid('mount-path', 'an absolute path', '"data"')],
@@ -660,8 +672,8 @@ describe('the same option means and is checked the same in every command', () =>
     expect((commandLine('plan', ['--threads', '0']).resolved.shuffle as { threads: number }).threads).toBe(0);
   });
 
-  it("plan takes shuffle's own definitions for every shuffle option but the spill's folder and threads (each task's)", () => {
-    const shuffleKeys = Object.keys(SHUFFLE_OPTIONS).filter((k) => k !== 'tempDir' && k !== 'threads');
+  it("plan takes shuffle's own definitions for every shuffle option but the spill's folder, threads and memory (each task's)", () => {
+    const shuffleKeys = Object.keys(SHUFFLE_OPTIONS).filter((k) => k !== 'tempDir' && k !== 'threads' && k !== 'memory');
     expect(PLAN_FROM_SHUFFLE.sort()).toEqual(shuffleKeys.sort());
     // So plan refuses what shuffle refuses, with the same message.
     const a = thrown(() => library('plan', { split: 'a=0.7,b=0.2' }));

@@ -8,6 +8,7 @@ import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gunzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { MemberCompressor } from '../src/io/gzip-members.js';
 import { FileSlots, PartWriter } from '../src/io/part-writer.js';
 import { createRandom, makeTempDir, removeDir } from './helpers/engine.js';
 
@@ -31,8 +32,11 @@ function makeSlices(seed: number, count: number): Uint8Array[] {
   });
 }
 
+/** A compressor as a run makes one: level 6, members of 64 KiB (several per part here), four in flight. */
+const gz = (on: boolean): MemberCompressor | null => (on ? new MemberCompressor(6, 64 * 1024, 4) : null);
+
 async function writeAll(path: string, gzip: boolean, gatherBytes: number, slices: Uint8Array[]): Promise<{ bytes: number; sha256: string }> {
-  const w = new PartWriter(path, gzip, gatherBytes);
+  const w = new PartWriter(path, gz(gzip), gatherBytes);
   for (const s of slices) {
     const writing = w.write(s);
     if (writing) await writing;
@@ -70,7 +74,7 @@ describe('PartWriter', () => {
 
   it('gathers short slices: a slice the caller overwrites after write() returned nothing is not changed in the part', async () => {
     const path = join(dir, 'reuse.csv');
-    const w = new PartWriter(path, false, 1024);
+    const w = new PartWriter(path, null, 1024);
     const buf = Buffer.from('first,1\n');
     expect(w.write(buf)).toBeUndefined();
     buf.write('XXXXXXX\n');
@@ -83,7 +87,7 @@ describe('PartWriter', () => {
   it('many writers sharing 3 open files (closed and reopened to append): every part still holds exactly its bytes', async () => {
     const slots = new FileSlots(3);
     for (const gzip of [false, true]) {
-      const writers = Array.from({ length: 12 }, (_, k) => new PartWriter(join(dir, `slot-${gzip}-${k}.csv${gzip ? '.gz' : ''}`), gzip, k % 2 ? 4096 : 0, slots));
+      const writers = Array.from({ length: 12 }, (_, k) => new PartWriter(join(dir, `slot-${gzip}-${k}.csv${gzip ? '.gz' : ''}`), gz(gzip), k % 2 ? 4096 : 0, slots));
       expect(slots.openCount).toBeLessThanOrEqual(3);
       const own = writers.map(() => [] as Uint8Array[]);
       // Round robin over the parts, as the dealing writes a bucket's slices part after part.
@@ -108,7 +112,7 @@ describe('PartWriter', () => {
   it('a writer without a path writes nothing and gives the bytes and sha256 a real one writes', async () => {
     for (const gzip of [false, true]) {
       const real = await writeAll(join(dir, `real-${gzip}.csv`), gzip, 8 * 1024, slices);
-      const w = new PartWriter(null, gzip, 8 * 1024);
+      const w = new PartWriter(null, gz(gzip), 8 * 1024);
       for (const s of slices) {
         const writing = w.write(s);
         if (writing) await writing;

@@ -6,7 +6,7 @@
  * leave nothing behind; the runs that can succeed must give a verified output.
  */
 import { execFileSync, spawn } from 'node:child_process';
-import { mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readdirSync, readFileSync, statSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle } from '../src/engine/shuffle.js';
@@ -33,12 +33,12 @@ beforeAll(() => {
 });
 afterAll(() => removeDir(dir));
 
-/** A shell script: mount a tmpfs of `kib` KiB (options `opts`) on `mnt`, run rowdeck, then list what is left in the tmpfs. */
-function onTmpfs(mnt: string, kib: number, args: string[], opts = ''): string {
+/** A shell script: mount a tmpfs of `kib` KiB (options `opts`) on `mnt`, run rowdeck (its standard input from `stdin`), then list what is left in the tmpfs. */
+function onTmpfs(mnt: string, kib: number, args: string[], opts = '', stdin: string | null = null): string {
   const quoted = args.map((a) => `'${a}'`).join(' ');
   return [
     `mount -t tmpfs -o size=${kib}k${opts ? `,${opts}` : ''} tmpfs '${mnt}' || exit 97`,
-    `'${process.execPath}' '${CLI}' ${quoted}`,
+    `'${process.execPath}' '${CLI}' ${quoted}${stdin ? ` < '${stdin}'` : ''}`,
     'echo "rc=$?"',
     `find '${mnt}' -mindepth 1 | sed 's/^/left: /'`,
   ].join('\n');
@@ -53,6 +53,9 @@ function rcOf(stdout: string): number {
 }
 
 describe('a full disk', () => {
+  // From standard input, whose size is not known before it ends, the run cannot check the free
+  // space first (see 'too little room' below): it meets the full disk as it writes. A small
+  // budget puts the spill in files.
   it.each([
     ['the spill (--temp-dir) on a full disk', 'spill', false],
     ['the parts on a full disk', 'parts', false],
@@ -63,12 +66,13 @@ describe('a full disk', () => {
     const elsewhere = join(dir, `other-${where}-${gzip}`);
     mkdirSync(mnt);
     mkdirSync(elsewhere);
+    const common = ['--partitions', '4', '--threads', '2', '--memory', '4MiB', '--format', 'csv', '--quiet'];
     const args =
       where === 'spill'
-        ? ['shuffle', input, '--out', join(elsewhere, 'out'), '--temp-dir', mnt, '--partitions', '4', '--threads', '2', '--quiet']
-        : ['shuffle', input, '--out', join(mnt, 'out'), '--temp-dir', elsewhere, '--partitions', '4', '--threads', '2', '--quiet'];
+        ? ['shuffle', '-', '--out', join(elsewhere, 'out'), '--temp-dir', mnt, ...common]
+        : ['shuffle', '-', '--out', join(mnt, 'out'), '--temp-dir', elsewhere, ...common];
     if (gzip) args.push('--gzip');
-    const r = await runInNamespace(onTmpfs(mnt, 96, args), dir);
+    const r = await runInNamespace(onTmpfs(mnt, 96, args, '', input), dir);
     expect(rcOf(r.stdout), r.stderr).toBe(1);
     const e = printedError(r.stderr);
     expect(e?.code, r.stderr).toBe('RDK_DISK_FULL');
@@ -97,6 +101,52 @@ describe('a full disk', () => {
     // One page more and it fits: the size was right.
     const ok = await runInNamespace(onTmpfs(mnt, (pages + 2) * pageKiB, ['shuffle', input, '--out', join(mnt, 'out'), '--temp-dir', spill, '--partitions', '3', '--quiet']), dir);
     expect(rcOf(ok.stdout), ok.stderr).toBe(0);
+  });
+});
+
+describe('too little room, found before any work', () => {
+  /** Figures in the message: "needs about 2.1 MB there (…), and 96 kB is free". */
+  const figures = /needs about [\d.]+ (kB|MB|GB) there \(.*\), and [\d.]+ (kB|MB|GB) is free\..*--temp-dir/;
+
+  it.each([
+    ['the spill folder (--temp-dir)', 'spill'],
+    ['--out', 'parts'],
+    ['one disk for both', 'both'],
+  ] as const)('%s too small for the estimate: RDK_NO_SPACE naming it, both figures and --temp-dir; nothing written', async (_name, where) => {
+    if (!mounts) return console.log(MOUNT_SKIP);
+    const mnt = join(dir, `short-${where}`);
+    const elsewhere = join(dir, `short-other-${where}`);
+    mkdirSync(mnt);
+    mkdirSync(elsewhere);
+    // A budget smaller than the spill: it goes to files (about 1.3 times the input).
+    const common = ['--partitions', '4', '--threads', '2', '--memory', '1MiB', '--quiet'];
+    const [out, temp] = where === 'spill' ? [join(elsewhere, 'out'), mnt] : where === 'parts' ? [join(mnt, 'out'), elsewhere] : [join(mnt, 'out'), join(mnt, 'spill')];
+    // Half the input's size: room for neither the spill nor the parts.
+    const kib = Math.floor(statSync(input).size / 2 / 1024);
+    const r = await runInNamespace(onTmpfs(mnt, kib, ['shuffle', input, '--out', out, '--temp-dir', temp, ...common]), dir);
+    expect(rcOf(r.stdout), r.stderr).toBe(1);
+    const e = printedError(r.stderr);
+    expect(e?.code, r.stderr).toBe('RDK_NO_SPACE');
+    expect(e!.message).toMatch(figures);
+    // The folder named is the one that is short, as the user gave it.
+    expect(e!.message.startsWith(`${where === 'parts' ? out : temp}: not enough free space`)).toBe(true);
+    if (where === 'both') expect(e!.message).toMatch(/spill files of ~[\d.]+ (kB|MB) and parts of ~[\d.]+ (kB|MB)/);
+    expect(leftIn(r.stdout)).toEqual([]);
+    expect(readdirSync(elsewhere)).toEqual([]);
+  });
+
+  it('the memory layout needs no room for the spill: a --temp-dir with none is not in its way', async () => {
+    if (!mounts) return console.log(MOUNT_SKIP);
+    const mnt = join(dir, 'no-room-memory');
+    mkdirSync(mnt);
+    const out = join(dir, 'no-room-memory-out');
+    // 64 KiB: no room for any spill file; the input's spill fits the 256 MiB budget.
+    const r = await runInNamespace(onTmpfs(mnt, 64, ['shuffle', input, '--out', out, '--temp-dir', mnt, '--partitions', '4', '--threads', '2', '--memory', '256MiB', '--json', '--quiet']), dir);
+    expect(rcOf(r.stdout), r.stderr).toBe(0);
+    const manifest = JSON.parse(r.stdout.slice(0, r.stdout.lastIndexOf('}') + 1)) as { run: { layout: string } };
+    expect(manifest.run.layout).toBe('memory');
+    expect(leftIn(r.stdout)).toEqual([]);
+    expect((await verify({ dir: out })).ok).toBe(true);
   });
 });
 

@@ -292,13 +292,22 @@ describe('invariant 2: nothing lost, nothing invented', () => {
     const spillFiles = (): string[] => readdirSync(tmp).flatMap((d) => readdirSync(join(tmp, d)).filter((x) => x.endsWith('.spill')));
     // Files present at each gather event, by range (scatter-TTTT-RR.spill).
     const seen: { done: number; total: number; ranges: Set<number> }[] = [];
-    const m = await shuffle({
-      inputs: [input], out, seed: 's', partitions: 2, memory: '1MiB', threads, tempDir: tmp,
-      onProgress: (p) => {
-        if (p.stage !== 'gather') return;
-        seen.push({ done: p.done, total: p.total, ranges: new Set(spillFiles().map((f) => Number(f.slice(-8, -6)))) });
-      },
-    });
+    // One level of buckets of the size stage 2 aims at (at 1 MiB the budget's own rule would
+    // take fewer, larger buckets and split them: the multi-pass layout).
+    const restore = setFlag('ROWDECK_LAYOUT', 'spill');
+    let m: Manifest;
+    try {
+      m = await shuffle({
+        inputs: [input], out, seed: 's', partitions: 2, memory: '1MiB', threads, tempDir: tmp,
+        onProgress: (p) => {
+          if (p.stage !== 'gather') return;
+          seen.push({ done: p.done, total: p.total, ranges: new Set(spillFiles().map((f) => Number(f.slice(-8, -6)))) });
+        },
+      });
+    } finally {
+      restore();
+    }
+    expect(m.run.layout).toBe('spill');
     const total = seen[0]!.total;
     // Enough buckets for every one of the 16 ranges to hold two or more.
     expect(total).toBeGreaterThanOrEqual(32);

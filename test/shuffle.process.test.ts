@@ -3,7 +3,7 @@
  * stays bounded as the input grows. Runs the built CLI / library in child processes.
  */
 import { spawn, spawnSync } from 'node:child_process';
-import { existsSync, readdirSync, writeFileSync } from 'node:fs';
+import { existsSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
@@ -110,6 +110,42 @@ describe('memory', () => {
     expect(r.status, r.stderr).toBe(0);
     return Number(r.stdout);
   }
+
+  /**
+   * Peak RSS (KiB) of the CLI shuffling `input` at `memory` on two threads: the largest the
+   * process's resident memory was (getrusage's ru_maxrss, as GNU time's %M), read as it exits.
+   */
+  function cliPeakRss(input: string, memory: string, env: Record<string, string> = {}): { kib: number; layout: string } {
+    const preload = join(dir, 'peak-rss.cjs');
+    writeFileSync(preload, `process.on('exit', () => process.stderr.write('peak-rss ' + process.resourceUsage().maxRSS + '\\n'));\n`);
+    const out = join(dir, `cli-rss-${memory}`);
+    const r = spawnSync(process.execPath, ['--require', preload, CLI, 'shuffle', input, '--out', out, '--memory', memory, '--partitions', '4', '--stratify', 'fault', '--threads', '2', '--force', '--json', '--quiet'], { encoding: 'utf8', maxBuffer: 64 << 20, env: { ...process.env, ...env } });
+    expect(r.status, r.stderr).toBe(0);
+    const kib = Number(/peak-rss (\d+)/.exec(r.stderr)?.[1]);
+    expect(kib).toBeGreaterThan(0);
+    return { kib, layout: (JSON.parse(r.stdout) as { run: { layout: string } }).run.layout };
+  }
+
+  it('the CLI at a small budget: 4x the input (multi-pass, every bucket split) adds little, within the budget + 150 MiB', () => {
+    // big.csv (~24 MB) four times over, the header once: ~96 MB, a spill of ~30x the 4 MiB budget.
+    const text = readFileSync(big, 'utf8');
+    const body = text.slice(text.indexOf('\n') + 1);
+    const four = join(dir, 'big-x4.csv');
+    writeFileSync(four, text + body + body + body);
+    const one = cliPeakRss(big, '4MiB');
+    const four4 = cliPeakRss(four, '4MiB');
+    // One bucket of all 96 MB (ROWDECK_BUCKET_BITS=0): split into sub-buckets as any bucket too
+    // large for stage 2 (without the split, stage 2 held it whole: +274 MiB on the development machine).
+    const whole = cliPeakRss(four, '4MiB', { ROWDECK_BUCKET_BITS: '0' });
+    expect([one.layout, four4.layout, whole.layout]).toEqual(['multi-pass', 'multi-pass', 'multi-pass']);
+    // Measured on the development machine: 1x ~118 MiB, 4x ~+10 MiB, one bucket ~+15 MiB; the
+    // goal is the budget (4 MiB) + 150 MiB.
+    for (const r of [four4, whole]) {
+      expect(r.kib - one.kib).toBeLessThan(24 * 1024);
+      expect(r.kib).toBeLessThan((4 + 150) * 1024);
+    }
+    rmSync(four);
+  });
 
   it('does not grow with the input: 10x the input at the same budget adds little', () => {
     const small = join(dir, 'mem-small.csv');

@@ -49,10 +49,23 @@ export function concatCopies(src, dest, times) {
   renameSync(partial, dest);
 }
 
+/** Writes `src` gzip-compressed at `level` to `dest` (through `dest.partial`, renamed when complete). */
+export function gzipFile(src, dest, level) {
+  const partial = `${dest}.partial`;
+  const code = "const [s, d, l] = process.argv.slice(1); const fs = require('node:fs'); require('node:stream').pipeline(fs.createReadStream(s), require('node:zlib').createGzip({ level: Number(l) }), fs.createWriteStream(d), (e) => { if (e) { console.error(e.message); process.exit(1); } });";
+  try {
+    execFileSync(process.execPath, ['-e', code, src, partial, String(level)], { stdio: 'inherit' });
+  } catch (e) {
+    rmSync(partial, { force: true });
+    throw e;
+  }
+  renameSync(partial, dest);
+}
+
 /**
  * Makes every input the selected cases use, if missing. `inputs` maps a key to { file, generate }
- * (a script in bench/ and its arguments; `--out FILE` is added) or { file, copiesOf, times } (the
- * key of another input). Returns { key: absolute path }, or throws when the disk is short.
+ * (a script in bench/ and its arguments; `--out FILE` is added), { file, copiesOf, times } (the
+ * key of another input) or { file, gzipOf, level } (another input gzip-compressed). Returns { key: absolute path }, or throws when the disk is short.
  */
 export function ensureInputs(root, dataDir, inputs, keys) {
   const paths = {};
@@ -62,7 +75,11 @@ export function ensureInputs(root, dataDir, inputs, keys) {
     if (!spec) throw new Error(`no input named ${key}`);
     const file = join(dataDir, spec.file);
     if (!existsSync(file)) {
-      if (spec.copiesOf) {
+      if (spec.gzipOf) {
+        const src = make(spec.gzipOf);
+        console.error(`making ${file}: ${src} compressed by node:zlib at level ${spec.level} …`);
+        gzipFile(src, file, spec.level);
+      } else if (spec.copiesOf) {
         const src = make(spec.copiesOf);
         const need = statSync(src).size * spec.times + (1 << 30);
         const free = freeBytes(dataDir);

@@ -32,8 +32,8 @@ const maxOf = (xs) => (finite(xs).length ? Math.max(...finite(xs)) : null);
 
 /**
  * The figures of one case (and build) from its timed samples: wall time's min, median and max;
- * the median of CPU times, faults and bytes written; the largest peak RSS (a goal on memory must
- * hold in every run, not in the typical one).
+ * the median of CPU times, faults, bytes written and the output's size; the largest peak RSS (a
+ * goal on memory must hold in every run, not in the typical one).
  */
 export function summarize(samples, inputBytes) {
   const pick = (k) => samples.map((s) => s[k]);
@@ -52,5 +52,6 @@ export function summarize(samples, inputBytes) {
     cancelledBytes: median(pick('cancelledBytes')),
     writeCallBytes: median(pick('writeCallBytes')),
     writeCalls: median(pick('writeCalls')),
+    outBytes: median(pick('outBytes')),
   };
 }

@@ -30,7 +30,7 @@ for (let i = 0; i < records; i++) {
 const dir = mkdtempSync(join(tmpdir(), 'rowdeck-micro-'));
 try {
   const secret = deriveSecret('micro');
-  const task = new ScatterTask({ inputs: ['x.csv'], stratify: ['fault'], bins: [null], key: [], group: null, secret: Array.from(secret), spillDir: dir, task: 0, bits: 0, bufferBytes: 1 << 20, hashCells: null, cellKeyInHeader: null });
+  const task = new ScatterTask({ inputs: ['x.csv'], stratify: ['fault'], bins: [null], key: [], group: null, secret: Array.from(secret), spillDir: dir, task: 0, bits: 0, bufferBytes: 1 << 20, hashCells: null, cellKeyInHeader: null, store: null, censusStore: null });
   const reader = new RecordReader({ format: 'csv', header: true, wanted: ['fault'], file: 'x.csv', onBadRecord: 'fail' });
   const b1 = reader.push(Buffer.from(text));
   if (b1) task.addBatch(b1, 0);
@@ -38,7 +38,8 @@ try {
   if (b2) task.addBatch(b2, 0);
   const res = task.finish();
   const pieces = [];
-  for (let k = 0; k < res.chunks[0].length; k += 2) pieces.push({ task: 0, path: res.paths[0], offset: res.chunks[0][k], length: res.chunks[0][k + 1] });
+  // Chunks: (bucket, place, offset, length) each (CHUNK_FIELDS in src/engine/spill.ts); one bucket, in the file.
+  for (let k = 0; k < res.chunks.length; k += 4) pieces.push({ task: 0, path: res.paths[0], offset: res.chunks[k + 2], length: res.chunks[k + 3] });
   const sizes = res.bucketCounts.map((c) => c[0]);
   const deal = { splits: [{ name: '', weight: 1 }], exactCounts: false, partitions: 8, folds: 1 };
   const scheme = arg('scheme', 2);

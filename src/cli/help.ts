@@ -36,13 +36,29 @@ Usage:
 
 What it does:
   Every record gets a random key from the seed; records are sorted by key in two stages
-  (scatter to spill files, gather bucket by bucket on worker threads) so inputs larger than
-  memory work. Records are then dealt by rank within their class, so every part keeps each
+  (scatter into buckets, held in memory or spill files, then gather bucket by bucket on
+  worker threads) so inputs larger than memory work. Records are then dealt by rank within their class, so every part keeps each
   class at its overall share (within one record), and each part's records come in a uniformly
   random order (see --order). DIR/manifest.json, written last, records counts, class mix,
   checksums, fingerprints and the seed.
 
 ${renderOptionList(SHUFFLE_SPEC)}
+
+Memory and disk:
+  The input's size over --memory decides how records wait between the two stages (the
+  manifest's run.layout says which ran; progress shows it):
+    memory      the spill (about 1.3x the input) fits in 3/4 of the budget: it stays in
+                memory (unnamed files in /dev/shm, or shared memory); no spill file
+    spill       larger, up to what one level of buckets holds within the budget (each
+                bucket small enough for stage 2, each buffer of stage 1 at least 32 KiB):
+                spill files, read back bucket by bucket and removed as stage 2 passes them
+    multi-pass  larger still: as many buckets as 32 KiB buffers fit the budget, and stage 2
+                scatters each one too large for it once more, by the key's next bits, before
+                it deals it: memory stays within the budget at any input size
+  Before it reads a record, a run checks the free space of the spill's folder and of --out
+  against what it will write (spill about 1.3x the input, parts about 1x; on one disk the
+  spill and a range of parts at once) and stops with RDK_NO_SPACE if short.
+
 On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
 and how far its share strays from its share in the whole input, the largest marked with *.
 
@@ -64,6 +80,13 @@ Interrupted (Ctrl-C, SIGTERM, SIGHUP, SIGQUIT), a run removes its work files and
 line; after a SIGKILL the next run removes them. Split names may not be manifest, rejected or
 report (rowdeck's own files) or look like a path.
 `;
+
+/** SHUFFLE_HELP with this machine's figures filled in (the default budget as it is now). */
+export function shuffleHelp(defaultMemory: number): string {
+  const mib = defaultMemory / 2 ** 20;
+  const shown = mib >= 1024 && mib % 1024 === 0 ? `${mib / 1024}GiB` : `${Math.round(mib)}MiB`;
+  return SHUFFLE_HELP.replace('{memory-default}', shown);
+}
 
 export const PROFILE_HELP = `rowdeck profile — schema, statistics and class balance of inputs
 

@@ -33,6 +33,12 @@ export function createProgress(stream: NodeJS.WritableStream & { isTTY?: boolean
 
 /** The progress line for one event (without the carriage return and line clearing). */
 export function formatProgress(e: ProgressEvent): string {
+  const line = formatStage(e);
+  // Which layout runs (the multi-pass layout's gather also says how many buckets it split).
+  return e.layout ? `${line} [${e.layout}${e.splits ? `, ${e.splits} split` : ''}]` : line;
+}
+
+function formatStage(e: ProgressEvent): string {
   const secs = e.elapsedMs / 1000;
   const records = `${e.records.toLocaleString('en-US')} records`;
   const bytes = e.stage === 'scatter' || (e.stage as string) === 'read' || (e.stage as string) === 'bins';

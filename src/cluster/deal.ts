@@ -21,6 +21,7 @@ import { statsInLanes } from '../engine/part-stats.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
 import type { SpillPiece } from '../engine/spill.js';
+import type { SplitResult, SplitTask } from '../engine/split.js';
 import type { DealSpec } from '../core/deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
@@ -197,10 +198,17 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
       const threads = Math.max(1, plan.size.threads);
       const lanes = (await dealLanes(threads, dir))!;
       try {
+        const source = sc.census ?? sc.spill;
         const groups = await countGroups(
-          { pieces: sc.censusPieces ?? sc.bucketPieces, bits: sc.censusPieces ? Math.log2(sc.censusPieces.length) : plan.size.bits, taskToDealing: d.taskToDealing },
+          {
+            count: source.buckets,
+            piecesOf: (b) => source.pieces(b),
+            bits: Math.log2(source.buckets),
+            taskToDealing: d.taskToDealing,
+            split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
+          },
           join(dir, 'groups-census.bin'),
-          (task) => (lanes as unknown as Lanes<CensusTask, GroupTableData, GatherFinal>).run(task),
+          (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task),
           threads * 2,
           () => {},
         );
@@ -253,7 +261,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
           running[d.localToGlobal[l]!]! += n;
         }
       }
-      const share: GatherShare = { first: g.first, end: g.end, pieces: sc.bucketPieces.slice(g.first, g.end), rankStart, counts };
+      const share: GatherShare = { first: g.first, end: g.end, pieces: Array.from({ length: g.end - g.first }, (_, k) => sc.spill.pieces(g.first + k)), rankStart, counts };
       writeFileSync(join(dir, gatherShareFile(m)), encodeJson(share));
     });
     const rejectedText = rejects.file();

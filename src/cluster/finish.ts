@@ -85,7 +85,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);
     const header = headerBytes(schema, o.foldColumn, plan.format);
-    writers = await openParts(stage, layout, o.gzip, o.memory, header);
+    writers = await openParts(stage, layout, o, header, work.spillDir);
     const counts = new Float64Array(parts * K * S);
     const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
     for (const g of done.gather) {
@@ -165,6 +165,9 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       deal: deal.deal,
       buckets: plan.size.buckets,
       threads: plan.size.threads,
+      // A plan's tasks always spill to files; a gather task splits the buckets too large for it.
+      layout: done.gather.some((g) => (g.splits ?? 0) > 0) ? 'multi-pass' : 'spill',
+      memory: { budget: plan.size.memory, isDefault: o.memoryIsDefault, splits: done.gather.reduce((a, g) => a + (g.splits ?? 0), 0) },
       parts: partRecords(layout, counts, K, S, closed, fingerprints, stats?.parts ?? null),
       deviation: { max: deal.worst.deviation, kind: deal.worst.kind, part: deal.worst.unit, stratum: deal.worst.stratum },
       fingerprints: { input: inFp.toHex(), output: outFp.toHex() },

@@ -5,7 +5,7 @@
  * files), and the done record holds the counts, fingerprints and, where the lanes keep them, every
  * part's column statistics over these buckets. Finish joins the tasks' files in bucket order.
  */
-import { readFileSync } from 'node:fs';
+import { readFileSync, rmSync } from 'node:fs';
 import { join } from 'node:path';
 import { RowdeckError } from '../errors.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
@@ -34,6 +34,8 @@ export interface GatherDone extends DoneRecord {
   spread: SpreadChunk[][] | null;
   /** Where the lanes kept every part's statistics: each part's, over these buckets. */
   stats: SerializedStats[] | null;
+  /** Buckets split before they were dealt (the multi-pass layout). */
+  splits: number;
 }
 
 /** The deal step's plan of stage 2, or an error saying to run it. */
@@ -58,7 +60,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
     const S = gatherPlan.strataCount;
     const spread = gatherPlan.order === 'spread' ? new SpreadParts(dir, parts, S) : null;
     const slots = new FileSlots(choosePartFileSlots());
-    const writers = spread ? [] : Array.from({ length: parts }, (_, p) => new PartWriter(join(dir, partSliceFile(p)), false, 64 * 1024, slots));
+    const writers = spread ? [] : Array.from({ length: parts }, (_, p) => new PartWriter(join(dir, partSliceFile(p)), null, 64 * 1024, slots));
     const sink: GatherSink = spread
       ? spreadSink(spread)
       : {
@@ -77,7 +79,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
       const gathered = await runGatherStage({
         plan: gatherPlan,
         planPath: join(dealDir, 'plan.json'),
-        bucketPieces: pieces,
+        piecesOf: (b) => pieces[b]!,
         countsOf: (b, running) => {
           const at = (b - share.first) * S;
           for (let s = 0; s < S; s++) running[s]! += share.counts[at + s]!;
@@ -88,7 +90,10 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
         lanes,
         inFlight: plan.size.inFlight,
         sink,
+        // Buckets too large for this machine's budget are split in a folder of the task's own, removed as they are dealt.
+        split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir: join(dir, 'splits'), bufferBytes: Math.floor(plan.size.memory / 4) },
       });
+      rmSync(join(dir, 'splits'), { recursive: true, force: true });
       const partBytes: number[] = [];
       for (const w of writers) partBytes.push((await w.close()).bytes);
       const finals = await gathered.lanes.finish();
@@ -101,7 +106,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
       await gathered.lanes.destroy();
       const chunks = spread ? spread.chunkList() : null;
       spread?.close();
-      return { first: share.first, end: share.end, counts: gathered.counts, fingerprints: gathered.fingerprints.map((f) => f.toJSON()), partBytes, spread: chunks, stats };
+      return { first: share.first, end: share.end, counts: gathered.counts, fingerprints: gathered.fingerprints.map((f) => f.toJSON()), partBytes, spread: chunks, stats, splits: gathered.splits };
     } catch (err) {
       for (const w of writers) w.abandon();
       spread?.close();

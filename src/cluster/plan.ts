@@ -17,7 +17,7 @@ import type { InputFormat } from '../io/batch.js';
 import { isStreamInput, nameInput } from '../io/input.js';
 import { chooseFormat } from '../io/sniff.js';
 import type { InputSlice } from '../io/slices.js';
-import { optionSetting, resolvePlanOptions, resolveShuffleOptions, type PlanOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
+import { optionSetting, PLAN_DEFAULT_MEMORY, resolvePlanOptions, resolveShuffleOptions, type PlanOptions, type ResolvedShuffleOptions, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { checkInputs } from '../engine/run-work.js';
 import { computeBinEdges, type BinEdges } from '../engine/quantiles.js';
@@ -153,7 +153,9 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
   const r = resolvePlanOptions(p);
   const { work: workGiven, tasks, gatherTasks, image, claim, mountPath: mount } = r;
   const o: ResolvedShuffleOptions = r.shuffle;
-  const { work: _w, tasks: _t, gatherTasks: _g, image: _i, claim: _c, mountPath: _m, ...shuffleOptions } = p;
+  const { work: _w, tasks: _t, gatherTasks: _g, image: _i, claim: _c, mountPath: _m, ...given } = p;
+  // The nodes' memory is not this machine's: without --memory a task's budget is a fixed one (resolvePlanOptions too).
+  const shuffleOptions = { ...given, memory: given.memory ?? PLAN_DEFAULT_MEMORY };
   for (const input of o.inputs) {
     if (isStreamInput(input)) {
       throw new RowdeckError('RDK_OPTION', `Invalid input ${nameInput(input)}: a plan's tasks read their inputs from files on a shared folder, and standard input or a pipe can be read only once, by one process. Save it to a file first.`, { file: input });
@@ -176,7 +178,7 @@ export async function planCluster(p: PlanOptions): Promise<{ plan: ClusterPlan; 
   const binCols = o.stratify.filter((c) => c.bins > 0);
   const binEdges =
     binCols.length > 0
-      ? await computeBinEdges({ inputs: o.inputs, format, delimiter: o.delimiter ?? undefined, header: o.header, onBadRecord: o.onBadRecord, columns: binCols, secret: deriveSecrets(o.seed).secret, memory: o.memory })
+      ? await computeBinEdges({ inputs: o.inputs, format, delimiter: o.delimiter ?? undefined, header: o.header, onBadRecord: o.onBadRecord, columns: binCols, secret: deriveSecrets(o.seed).secret })
       : [];
   const scatter = cutInputs(inputs, tasks);
   const gather = cutBuckets(size.buckets, gatherTasks ?? tasks);

@@ -2,7 +2,9 @@
  * The gather step, as the pipeline and the cluster's gather tasks run it: the buckets of a range
  * dealt on the lanes, a bounded number in flight, their results handed to a sink in bucket order
  * (part files, spread work files, a task's slices), with every part's counts and fingerprints
- * added up. The lanes keep every part's statistics where the plan says so (part-stats.ts).
+ * added up. The lanes keep every part's statistics where the plan says so (part-stats.ts). A
+ * bucket too large to deal whole is split first (split.ts) and dealt as its sub-buckets, in order;
+ * the next bucket's split starts while the sub-buckets of the one before are dealt.
  */
 import { Fingerprint } from '../core/hash.js';
 import { RowdeckError } from '../errors.js';
@@ -11,6 +13,7 @@ import { addCounts, type GatherResult, type GatherTask } from './gather.js';
 import { gatherLane, type GatherFinal, type GatherLane } from './gather-lane.js';
 import { partCount, type GatherPlan } from './plan.js';
 import type { SpillPiece } from './spill.js';
+import { splitPieces, SplitSlots, unitsOf, type GatherUnit, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
 
 /** Takes each bucket's result, in bucket order; the result's buffers go back to the lanes afterwards. */
 export interface GatherSink {
@@ -20,8 +23,8 @@ export interface GatherSink {
 export interface GatherStageInput {
   plan: GatherPlan;
   planPath: string;
-  /** Per bucket (all of them): its pieces of the spill. */
-  bucketPieces: SpillPiece[][];
+  /** Bucket b's pieces of the spill. */
+  piecesOf: (bucket: number) => SpillPiece[];
   /** `bucketCounts[stratum][bucket]` by dealing stratum: the ranks each bucket starts at follow from them. */
   countsOf: (bucket: number, addTo: Float64Array) => void;
   /** The buckets dealt here: [first, end). */
@@ -37,6 +40,11 @@ export interface GatherStageInput {
   /** Called once the buckets before `next` are dealt and handed over (the spill can shrink). */
   passed?: (next: number) => Promise<void>;
   progress?: (done: number, total: number) => void;
+  /**
+   * Buckets larger than `cap` are split (the multi-pass layout; split.ts) into files in `dir`
+   * (nameless, gone at the end); absent: every bucket is dealt whole.
+   */
+  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes' | 'onSplit'> & { dir: string };
 }
 
 export interface GatherStage {
@@ -50,6 +58,8 @@ export interface GatherStage {
   lanes: Lanes<GatherTask, GatherResult, GatherFinal>;
   /** The inline lane, when the calling thread dealt. */
   inline: GatherLane | null;
+  /** Buckets split before they were dealt. */
+  splits: number;
 }
 
 export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> {
@@ -61,49 +71,109 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   if (!lanes) {
     const lane = gatherLane(i.planPath);
     inline = lane;
-    lanes = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => lane.handle(t), () => lane.finish());
+    lanes = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => ('splitDir' in t ? { result: splitPieces(t as unknown as SplitTask) as unknown as GatherResult } : lane.handle(t)), () => lane.finish());
   }
+  const run = lanes;
   const counts = new Float64Array(parts * K * plan.strataCount);
   const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
   const phases: number[] = [];
-  // Rank of each stratum's first record in a bucket: prefix sums, taken as buckets are handed out (in order).
+  let splits = 0;
+  const slots = i.split ? new SplitSlots(i.split.dir) : null;
+  const policy: SplitPolicy | null = i.split
+    ? {
+        cap: i.split.cap,
+        target: i.split.target,
+        bufferBytes: i.split.bufferBytes,
+        slots: slots!,
+        shares: run.size,
+        strata: plan.localToGlobal,
+        strataCount: plan.strataCount,
+        run: (t) => run.run(t as unknown as GatherTask) as unknown as Promise<SplitResult>,
+        onSplit: () => {
+          splits++;
+          i.split!.onSplit?.();
+        },
+      }
+    : null;
+  // Each bucket's units, asked for in order; the next bucket's are asked for as soon as the
+  // current one's are, so its split (if any) runs beside the dealing.
+  const expansions = new Map<number, Promise<GatherUnit[]>>();
+  const expand = (b: number): Promise<GatherUnit[]> => {
+    let e = expansions.get(b);
+    if (!e) {
+      e = unitsOf(b, i.piecesOf(b), plan.bits, policy);
+      e.catch(() => {});
+      expansions.set(b, e);
+    }
+    return e;
+  };
+  let current: GatherUnit[] = [];
+  let at = 0;
+  let nextBucket = i.first;
+  const nextUnit = async (): Promise<GatherUnit | null> => {
+    while (at >= current.length) {
+      if (nextBucket >= i.end) return null;
+      const b = nextBucket++;
+      current = await expand(b);
+      expansions.delete(b);
+      at = 0;
+      if (nextBucket < i.end) expand(nextBucket);
+    }
+    return current[at++]!;
+  };
+  // Rank of each stratum's first record in a unit: prefix sums, taken as units are handed out (in order).
   const running = Float64Array.from(i.rankStart);
-  let ranked = i.first;
-  const rankStartOf = (b: number): Float64Array => {
-    if (b !== ranked) throw new RowdeckError('RDK_INTERNAL', `bucket ${b} handed out before bucket ${ranked}`);
+  const rankStartOf = (u: GatherUnit): Float64Array => {
     const start = Float64Array.from(running);
-    i.countsOf(b, running);
-    ranked++;
+    if (u.counts) for (let s = 0; s < u.counts.length; s++) running[s]! += u.counts[s]!;
+    else i.countsOf(u.bucket, running);
     return start;
   };
-  const pending = new Map<number, Promise<GatherResult>>();
+  const pending: { unit: GatherUnit; result: Promise<GatherResult> }[] = [];
   // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
   const spare: ArrayBuffer[] = [];
-  const run = lanes;
-  const submit = (b: number): void => {
-    const task: GatherTask = { bucket: b, pieces: i.bucketPieces[b]!, rankStart: rankStartOf(b) };
+  const submit = (u: GatherUnit): void => {
+    const task: GatherTask = { bucket: u.bucket, pieces: u.pieces, rankStart: rankStartOf(u) };
+    if (u.shared !== plan.bits) task.shared = u.shared;
     const arena = spare.pop();
     if (arena) task.arena = arena;
     // The rank starts go over without a copy (with thousands of strata they are tens of KB a bucket).
     const p = run.run(task, arena ? [arena, task.rankStart.buffer as ArrayBuffer] : [task.rankStart.buffer as ArrayBuffer]);
     p.catch(() => {});
-    pending.set(b, p);
+    pending.push({ unit: u, result: p });
   };
-  let next = i.first;
+  const fill = async (): Promise<void> => {
+    while (pending.length < i.inFlight) {
+      const u = await nextUnit();
+      if (!u) return;
+      submit(u);
+    }
+  };
   const total = i.end - i.first;
   i.progress?.(0, total);
-  while (next < i.end && next - i.first < i.inFlight) submit(next++);
-  for (let b = i.first; b < i.end; b++) {
-    const r = await pending.get(b)!;
-    pending.delete(b);
-    await i.sink.take(r);
-    for (let p = 0; p < parts; p++) fingerprints[p]!.merge(r.fingerprints[p]!);
-    addCounts(counts, r.counts);
-    r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
-    spare.push(r.data.buffer as ArrayBuffer);
-    await i.passed?.(b + 1);
-    if (next < i.end) submit(next++);
-    i.progress?.(b + 1 - i.first, total);
+  try {
+    await fill();
+    while (pending.length > 0) {
+      const { unit, result } = pending.shift()!;
+      const r = await result;
+      await i.sink.take(r);
+      for (let p = 0; p < parts; p++) fingerprints[p]!.merge(r.fingerprints[p]!);
+      addCounts(counts, r.counts);
+      r.phases?.forEach((ms, k) => (phases[k] = (phases[k] ?? 0) + ms));
+      spare.push(r.data.buffer as ArrayBuffer);
+      for (const release of unit.cleanup) release();
+      // The last unit of a bucket: the bucket is passed.
+      const last = pending.length > 0 ? pending[0]!.unit.bucket !== unit.bucket : at >= current.length || current[at]!.bucket !== unit.bucket;
+      if (last) {
+        await i.passed?.(unit.bucket + 1);
+        i.progress?.(unit.bucket + 1 - i.first, total);
+      }
+      await fill();
+    }
+  } finally {
+    // Splits still running (the next bucket's, after a failure) end before their files close.
+    await Promise.allSettled([...expansions.values(), ...pending.map((p) => p.result)]);
+    slots?.close();
   }
-  return { counts, fingerprints, phases, lanes, inline };
+  return { counts, fingerprints, phases, lanes: run, inline, splits };
 }

@@ -18,9 +18,12 @@ import type { GroupTableData } from '../core/group-table.js';
 import { flags } from '../flags.js';
 
 export interface GatherTask {
+  /** The bucket (of the plan's buckets) the records belong to; a split bucket's sub-buckets name their bucket. */
   bucket: number;
-  /** Where the bucket's records lie: chunks of the scatter tasks' spill files. */
+  /** Where the records lie: chunks of the scatter tasks' spill files or slabs, or of a split's files. */
   pieces: SpillPiece[];
+  /** Key bits every record here shares (default: the plan's `bits`; more for a sub-bucket, see split.ts). */
+  shared?: number;
   /** Rank, within each dealing stratum, of the first record of that stratum in this bucket (used up by the dealing). */
   rankStart: Float64Array;
   /**
@@ -193,7 +196,7 @@ export function gatherBucket(prep: PreparedPlan, task: GatherTask, stats: TableS
   const n = ix.count;
   T?.push(performance.now());
   const { u32, at, keyHi, keyLo } = ix;
-  const order = sortByKey(sortKeysOf(ix, bytes, plan.cellKeyInHeader), n, plan.bits);
+  const order = sortByKey(sortKeysOf(ix, bytes, plan.cellKeyInHeader), n, task.shared ?? plan.bits);
   T?.push(performance.now());
 
   // Each record's cell, in key order (its rank within its stratum follows key order).
@@ -327,11 +330,10 @@ interface BucketIndex {
   count: number;
 }
 
-/** One walk over the headers of every scatter task's piece of the bucket. */
 /**
  * The index of a bucket's spill bytes (its pieces read one after another into `bytes`): each
- * record's header, key, length and stratum, mapped by its scatter task's `strata`. Chunks are
- * whole records; consecutive chunks of one task share its stratum ids.
+ * record's header, key, length and stratum, mapped by its scatter task's `strata` (a piece of
+ * task -1 holds dealing strata already). Chunks are whole records.
  */
 function indexSpill(bytes: Uint8Array, spillBytes: number, pieces: SpillPiece[], strata: number[][]): BucketIndex {
   const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
@@ -347,17 +349,36 @@ function indexSpill(bytes: Uint8Array, spillBytes: number, pieces: SpillPiece[],
   const pieceEnds: number[] = [];
   let end = 0;
   for (const p of pieces) pieceEnds.push((end += p.length));
-  indexBucket(ix, pieceEnds, pieces.map((p) => strata[p.task]!));
+  indexBucket(ix, pieceEnds, pieces.map((p) => (p.task < 0 ? null : strata[p.task]!)));
   return ix;
 }
 
-function indexBucket(ix: BucketIndex, pieceEnds: number[], pieceStrata: number[][]): void {
+function indexBucket(ix: BucketIndex, pieceEnds: number[], pieceStrata: (number[] | null)[]): void {
   const { u32, at, keyHi, keyLo, lenTerm, stratum } = ix;
   let n = 0;
   let w = 0;
+  let maps: Map<number[], Int32Array> | null = null;
   for (let t = 0; t < pieceEnds.length; t++) {
     const wordEnd = pieceEnds[t]! >>> 2;
-    const map = Int32Array.from(pieceStrata[t]!);
+    const given = pieceStrata[t]!;
+    if (given === null) {
+      // Dealing strata already (a split bucket's records).
+      while (w < wordEnd) {
+        const lt = u32[w + 5]!;
+        at[n] = w;
+        keyHi[n] = u32[w]!;
+        keyLo[n] = u32[w + 1]!;
+        stratum[n] = u32[w + 4]!;
+        lenTerm[n] = lt;
+        n++;
+        w += HEADER_WORDS + (((lt >>> 2) + 3) >>> 2);
+      }
+      continue;
+    }
+    // Many pieces of one task share its map: made once a bucket.
+    maps ??= new Map();
+    let map = maps.get(given);
+    if (!map) maps.set(given, (map = Int32Array.from(given)));
     while (w < wordEnd) {
       const lt = u32[w + 5]!;
       at[n] = w;
@@ -611,13 +632,36 @@ function fingerprintParts(ix: BucketIndex, n: number, cellOfRec: Uint32Array, K:
   for (let i = 0; i < n; i++) fps[(cellOfRec[i]! / K) | 0]!.addAligned(u32, at[i]! + HEADER_WORDS, lenTerm[i]! >>> 2);
 }
 
-/** Reads every piece (chunks of spill files) into `bytes`, one after another. */
-function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
+/**
+ * Reads every piece (chunks of spill files or slabs of memory) into `bytes`, one after another.
+ * Pieces that lie end to end in one file are read with one call.
+ */
+export function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
   let at = 0;
   let fd = -1;
   let open = '';
   try {
-    for (const p of pieces) {
+    for (let k = 0; k < pieces.length; k++) {
+      const p = pieces[k]!;
+      if (p.memory) {
+        bytes.set(new Uint8Array(p.memory, p.offset, p.length), at);
+        at += p.length;
+        continue;
+      }
+      // Join the next pieces of the same file that follow on without a gap.
+      let length = p.length;
+      while (k + 1 < pieces.length && !pieces[k + 1]!.memory && pieces[k + 1]!.path === p.path && pieces[k + 1]!.fd === p.fd && pieces[k + 1]!.offset === p.offset + length) length += pieces[++k]!.length;
+      if (p.fd !== undefined) {
+        // A file in memory, open for the whole run (see ram-store.ts).
+        open = 'a file in memory';
+        for (let got = 0; got < length; ) {
+          const r = readSync(p.fd, bytes, at + got, length - got, p.offset + got);
+          if (r === 0) throw new Error(`file in memory ends early at ${p.offset + got}`);
+          got += r;
+        }
+        at += length;
+        continue;
+      }
       if (p.path !== open) {
         if (fd >= 0) closeSync(fd);
         fd = -1;
@@ -625,12 +669,12 @@ function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
         open = p.path;
       }
       let got = 0;
-      while (got < p.length) {
-        const r = readSync(fd, bytes, at + got, p.length - got, p.offset + got);
+      while (got < length) {
+        const r = readSync(fd, bytes, at + got, length - got, p.offset + got);
         if (r === 0) throw new Error(`spill file ends early at ${p.offset + got}`);
         got += r;
       }
-      at += p.length;
+      at += length;
     }
   } catch (err) {
     throw ioError(err, open, 'reading a spill file');

@@ -13,41 +13,82 @@ import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 import { censusBucket, type CensusTask } from './gather.js';
 import type { SpillPiece } from './spill.js';
+import { splitPieces, SplitSlots, unitsOf, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
 
 /** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
 export interface CensusSource {
-  /** Per census bucket, its pieces: the census spill's, or the spill's where it is keyed by group. */
-  pieces: SpillPiece[][];
+  /** Census buckets, and each one's pieces: the census spill's, or the spill's where it is keyed by group. */
+  count: number;
+  piecesOf: (bucket: number) => SpillPiece[];
   /** Key bits that select a census bucket. */
   bits: number;
   /** Per scatter task: its stratum ids → dealing stratum ids. */
   taskToDealing: number[][];
+  /**
+   * A census bucket larger than `cap` is split (split.ts) into files in `dir` (nameless, gone at
+   * the end) and counted as its sub-buckets, in key order (a group's records share its key, so
+   * they stay together).
+   */
+  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes'> & { dir: string };
 }
 
 /**
- * Counts every group, a census bucket at a time on the lanes (or here, yielding between buckets so
- * signals and progress get through), into one table in key order.
+ * Counts every group, a census bucket (or sub-bucket) at a time on the lanes (or here, yielding
+ * between buckets so signals and progress get through), into one table in key order.
  */
-export async function countGroups(src: CensusSource, workFile: string, run: ((task: CensusTask) => Promise<GroupTableData>) | null, width: number, progress: (done: number, total: number) => void): Promise<GroupTable> {
+export async function countGroups(
+  src: CensusSource,
+  workFile: string,
+  run: ((task: CensusTask | SplitTask) => Promise<GroupTableData | SplitResult>) | null,
+  width: number,
+  progress: (done: number, total: number) => void,
+): Promise<GroupTable> {
   const census = new GroupTableBuilder(workFile);
+  const yieldNow = (): Promise<void> => new Promise<void>((resolve) => setImmediate(resolve));
+  const slots = src.split ? new SplitSlots(src.split.dir) : null;
+  const policy: SplitPolicy | null = src.split
+    ? {
+        cap: src.split.cap,
+        target: src.split.target,
+        bufferBytes: src.split.bufferBytes,
+        slots: slots!,
+        shares: run ? width : 1,
+        strata: src.taskToDealing,
+        strataCount: 0,
+        run: async (t) => (run ? ((await run(t)) as SplitResult) : (await yieldNow(), splitPieces(t))),
+      }
+    : null;
+  const jobs: Promise<void>[] = [];
   try {
     let counted = 0;
+    let seq = 0;
     const limit = pLimit(width);
-    await Promise.all(
-      src.pieces.map((pieces, b) =>
-        limit(async () => {
-          const task: CensusTask = { census: b, pieces, strata: src.taskToDealing, bits: src.bits };
-          if (run) census.add(b, await run(task));
+    for (let b = 0; b < src.count; b++) {
+      const units = await unitsOf(b, src.piecesOf(b), src.bits, policy);
+      const counting = units.map((u) => {
+        const k = seq++;
+        return limit(async () => {
+          const task: CensusTask = { census: k, pieces: u.pieces, strata: src.taskToDealing, bits: u.shared };
+          if (run) census.add(k, (await run(task)) as GroupTableData);
           else {
-            census.add(b, censusBucket(task));
-            await new Promise<void>((resolve) => setImmediate(resolve));
+            census.add(k, censusBucket(task));
+            await yieldNow();
           }
-          progress(++counted, src.pieces.length);
-        }),
-      ),
-    );
+        });
+      });
+      const releases = units.flatMap((u) => u.cleanup);
+      const job = Promise.all(counting).then(() => {
+        for (const release of releases) release();
+        progress(++counted, src.count);
+      });
+      job.catch(() => {});
+      jobs.push(job);
+    }
+    await Promise.all(jobs);
     return census.build();
   } finally {
+    await Promise.allSettled(jobs);
+    slots?.close();
     census.close();
   }
 }

@@ -71,6 +71,14 @@ export interface Manifest {
   };
   run: {
     createdAt: string;
+    /** How the records were kept between the stages (see sizing.ts): decided from the input's size over the budget. */
+    layout: 'memory' | 'spill' | 'multi-pass';
+    /** The memory budget in bytes. */
+    memory: number;
+    /** No budget was given: the machine's default (a quarter of the memory available at start). */
+    memoryIsDefault: boolean;
+    /** Buckets split in stage 2 (the multi-pass layout). */
+    bucketsSplit: number;
     buckets: number;
     /** Worker threads used; 0: the calling thread did the work. */
     threads: number;
@@ -104,6 +112,8 @@ export interface ManifestInput {
   deal: DealSpec;
   buckets: number;
   threads: number;
+  layout: 'memory' | 'spill' | 'multi-pass';
+  memory: { budget: number; isDefault: boolean; splits: number };
   parts: PartRecord[];
   deviation: { max: number; kind: 'part' | 'fold'; part: number; stratum: number };
   fingerprints: { input: string; output: string };
@@ -147,6 +157,8 @@ export function buildManifest(m: ManifestInput): Manifest {
       delimiter: m.format === 'jsonl' ? null : String.fromCharCode(m.schema.delimiter),
       header: o.header,
       gzip: o.gzip,
+      // Only with gzip, so a plain run's manifest is what it was before the level existed.
+      ...(o.gzip ? { gzipLevel: o.gzipLevel } : {}),
       onBadRecord: o.onBadRecord,
       excludeValues: o.excludeValues,
     },
@@ -190,6 +202,10 @@ export function buildManifest(m: ManifestInput): Manifest {
     },
     run: {
       createdAt: new Date().toISOString(),
+      layout: m.layout,
+      memory: m.memory.budget,
+      memoryIsDefault: m.memory.isDefault,
+      bucketsSplit: m.memory.splits,
       buckets: m.buckets,
       threads: m.threads,
       timingsMs: m.timings,

@@ -11,6 +11,7 @@ import type { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { RowdeckError, systemError } from '../errors.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
+import { keepBytesFor, MemberCompressor, memberBytesFor, membersInFlightFor } from '../io/gzip-members.js';
 import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import type { ResolvedShuffleOptions } from '../options.js';
@@ -61,9 +62,11 @@ export function headerBytes(schema: InputSchema, foldColumn: string | null, form
  * One writer a part, in `stage` (null: nothing is written, each part only hashed, for a replay).
  * Short slices (many parts) are gathered per part before they are written: up to 64 KiB a part,
  * an eighth of the budget over all parts, at least 8 KiB; open files stay bounded whatever the
- * part count (FileSlots).
+ * part count (FileSlots). gzip parts share one compressor: members of a size set by the part
+ * count, a budget's share of them in flight, and each part's unfinished member kept in memory up
+ * to the same eighth of the budget, the rest parked in `spillDir` (src/io/gzip-members.ts).
  */
-export async function openParts(stage: string | null, layout: PartInfo[], gzip: boolean, memory: number, header: Buffer | null): Promise<PartWriter[]> {
+export async function openParts(stage: string | null, layout: PartInfo[], o: Pick<ResolvedShuffleOptions, 'gzip' | 'gzipLevel' | 'memory'>, header: Buffer | null, spillDir: string): Promise<PartWriter[]> {
   if (stage !== null) {
     for (const part of layout) {
       const folder = dirname(join(stage, part.path));
@@ -74,8 +77,11 @@ export async function openParts(stage: string | null, layout: PartInfo[], gzip: 
       }
     }
   }
-  const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(memory / 8 / layout.length)));
+  const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(o.memory / 8 / layout.length)));
   const slots = new FileSlots(choosePartFileSlots());
+  const memberBytes = memberBytesFor(layout.length);
+  const park = { dir: spillDir, keepBytes: keepBytesFor(o.memory, layout.length, memberBytes) };
+  const gzip = o.gzip ? new MemberCompressor(o.gzipLevel, memberBytes, membersInFlightFor(o.memory, memberBytes), park) : null;
   const writers: PartWriter[] = [];
   try {
     for (const part of layout) writers.push(new PartWriter(stage === null ? null : join(stage, part.path), gzip, gatherBytes, slots));
@@ -133,11 +139,12 @@ export async function writeSpreadParts(spread: SpreadParts, writers: PartWriter[
   }
 }
 
-/** Closes every writer: each part's size and sha256. */
+/**
+ * Closes every writer: each part's size and sha256. All at once, so the last gzip members of
+ * all parts are compressed together.
+ */
 export async function closeParts(writers: PartWriter[]): Promise<{ bytes: number; sha256: string }[]> {
-  const closed: { bytes: number; sha256: string }[] = [];
-  for (const w of writers) closed.push(await w.close());
-  return closed;
+  return Promise.all(writers.map((w) => w.close()));
 }
 
 export interface PartStatistics {

@@ -80,7 +80,6 @@ async function quantileBins(o: ResolvedProfileOptions, secret: Secret, totalByte
       onBadRecord: o.onBadRecord,
       columns: binCols,
       secret,
-      memory: o.memory,
     });
   }
   return binEdges;

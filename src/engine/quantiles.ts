@@ -1,10 +1,11 @@
 /**
  * Quantile bins for `--stratify COL:bins=Q`: a first pass over the inputs reads the column and
  * sets Q−1 edges at its empirical quantiles, so a continuous target can be stratified like a
- * class. Exact while the values fit in a quarter of the memory budget; beyond that, a
+ * class. Exact up to SAMPLE_VALUES values (over all binned columns); beyond that, a
  * deterministic thinning (keep values whose record hash is below a falling threshold) gives a
  * uniform sample and the edges are marked approximate. Either way the edges are a pure function
- * of (seed, inputs), and they are recorded in the manifest.
+ * of (seed, inputs): the sample's size is fixed, never taken from the memory budget, so two
+ * budgets give the same edges, and they are recorded in the manifest.
  */
 import { hashWords3, type Secret } from '../core/hash.js';
 import { binValueAt } from '../core/bins.js';
@@ -36,8 +37,14 @@ export interface QuantileOptions {
   onBadRecord: BadRecordPolicy;
   columns: BinSpec[];
   secret: Secret;
-  memory: number;
 }
+
+/**
+ * Values kept for the edges, over all binned columns (12 bytes each: 48 MiB at most, beside the
+ * budget, during the first pass only). A fixed number, so that the edges do not depend on the
+ * budget; with more values than this the sample's quantiles stand in for the column's.
+ */
+export const SAMPLE_VALUES = 4 * 1024 * 1024;
 
 /**
  * The values at the given ranks (each in [0, v.length)) of `v` sorted as
@@ -97,7 +104,7 @@ export async function computeBinEdges(o: QuantileOptions): Promise<BinEdges[]> {
     throw new RowdeckError('RDK_OPTION', `Invalid option "stratify": COLUMN:bins=Q reads the input twice, so it needs files, not standard input or a pipe (${nameInput(stream)}). Save the input to a file first.`);
   }
   const cols = o.columns;
-  const cap = Math.max(1024, Math.floor(o.memory / 4 / 16 / Math.max(1, cols.length)));
+  const cap = Math.max(1024, Math.floor(SAMPLE_VALUES / Math.max(1, cols.length)));
   const vals = cols.map(() => new Float64Array(Math.min(cap, 65536)));
   const hashes = cols.map(() => new Uint32Array(Math.min(cap, 65536)));
   const count = new Array<number>(cols.length).fill(0);

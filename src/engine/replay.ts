@@ -22,6 +22,12 @@ export function replayable(m: Manifest): { ok: true } | { ok: false; why: string
   if (scheme !== DEALING_SCHEME) {
     return { ok: false, why: `the output was written by dealing scheme ${scheme} (${scheme === 1 ? 'rowdeck 0.1' : 'another version'}); this rowdeck deals by scheme ${DEALING_SCHEME} and cannot repeat it` };
   }
+  // gzip parts with no level recorded were one gzip stream each: this rowdeck writes members of a
+  // fixed size (src/io/gzip-members.ts), other compressed bytes of the same records.
+  const o = m.options as { gzip?: boolean; gzipLevel?: number };
+  if (o.gzip === true && o.gzipLevel === undefined) {
+    return { ok: false, why: 'the gzip parts were written as one gzip stream each (an earlier rowdeck); this rowdeck writes them as members of a fixed size and cannot repeat their compressed bytes' };
+  }
   return { ok: true };
 }
 
@@ -42,6 +48,7 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
     delimiter: string | null;
     header: boolean;
     gzip: boolean;
+    gzipLevel?: number;
     onBadRecord: 'fail' | 'skip' | 'quarantine';
     excludeValues: boolean;
     order?: ShuffleOptions['order'];
@@ -55,6 +62,7 @@ export function replayOptions(m: Manifest, inputs: string[], dir: string, extra:
     format: x.format,
     header: x.header,
     gzip: x.gzip,
+    ...(x.gzip && x.gzipLevel !== undefined ? { gzipLevel: x.gzipLevel } : {}),
     onBadRecord: x.onBadRecord,
     excludeValues: x.excludeValues,
   };

@@ -17,7 +17,8 @@ import type { GatherResult, GatherTask } from './gather.js';
 import type { GatherFinal } from './gather-lane.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { censusDir, scatter, scatterTaskConfig, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
-import type { RunSize } from './sizing.js';
+import type { Layout, RunSize } from './sizing.js';
+import type { MemoryStore } from './ram-store.js';
 
 /** The secrets a seed gives: record keys, hash-mode cells, the dealing's rank permutations. */
 export interface Secrets {
@@ -64,6 +65,10 @@ export interface ScatterStageInput {
   spillDir: string;
   /** When the run started, for progress. */
   t0: number;
+  /** The memory layout's stores (see ram-store.ts); absent: spill files. */
+  memory?: MemoryStore | null;
+  /** Told with progress. */
+  layout?: Layout;
   /**
    * A cluster's scatter task: only these slices of the inputs, with the bin edges the plan
    * computed; refused records to `onReject` (with the slice told by `onSliceStart`).
@@ -108,7 +113,6 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
       onBadRecord: o.onBadRecord,
       columns: binCols,
       secret: secrets.secret,
-      memory: o.memory,
     });
   }
 
@@ -149,7 +153,10 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
     hashCells: o.assign === 'hash' ? { deal: { splits: o.splits, exactCounts: false, partitions: o.partitions, folds: o.folds }, cellSecret: Array.from(secrets.cellSecret) } : null,
     // The census buckets hold a quarter as many records as the spill's, 24 bytes each.
     cellKeyInHeader: cellKeyInHeader ? { censusBits: o.assign === 'group' ? Math.max(0, size.bits - 2) : null, censusBufferBytes: size.bufferBytes } : null,
-    onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0 }),
+    onProgress: (done, records) => o.onProgress?.({ stage: 'scatter', done, total: totalBytes, records, elapsedMs: Date.now() - t0, ...(i.layout ? { layout: i.layout } : {}) }),
+    store: i.memory?.store ?? null,
+    censusStore: i.memory?.censusStore ?? null,
+    ...(i.memory ? { onRelease: i.memory.onRelease } : {}),
     ...(i.task ? { slices: i.task.slices, ...(i.task.expectedColumns ? { expectedColumns: i.task.expectedColumns } : {}), ...(i.task.onSliceStart ? { onSliceStart: i.task.onSliceStart } : {}) } : {}),
   };
   // The same threads do every step (shuffle-worker.ts): started here, kept for the next ones.

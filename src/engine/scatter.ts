@@ -26,8 +26,9 @@ import { readSlice, type InputSlice, type SliceRead } from '../io/slices.js';
 import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { BucketWriter, QUEUE, spillRanges, type SpillPiece } from './spill.js';
-import { ByteIdTable } from '../core/byte-table.js';
+import { BucketWriter, QUEUE, spillRanges, type SpillPiece, type SpillStore } from './spill.js';
+import { SpillIndex } from './spill-index.js';
+import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
 import { fieldKey, keyBytes, MAX_STRATA, stratumKey, tooManyStrata, tupleKey, type KeyColumn, type KeyRange } from '../core/strata.js';
 
 /** What one scatter task needs to know: plain data, so it can be posted to a worker. */
@@ -55,11 +56,19 @@ export interface ScatterTaskConfig {
    * group's records are next to each other in key order (`--order grouped`).
    */
   cellKeyInHeader: { censusBits: number | null; censusBufferBytes: number } | null;
+  /** The memory layout: chunks kept in memory while the allowance lasts (see spill.ts); null: files. */
+  store: SpillStore | null;
+  /** The same for the census spill (files of its own: its ranges are not the spill's). */
+  censusStore: SpillStore | null;
 }
 
-export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells' | 'cellKeyInHeader'> {
+export interface ScatterOptions extends Omit<ScatterTaskConfig, 'task' | 'secret' | 'bins' | 'hashCells' | 'cellKeyInHeader' | 'store' | 'censusStore'> {
   hashCells?: ScatterTaskConfig['hashCells'];
   cellKeyInHeader?: ScatterTaskConfig['cellKeyInHeader'];
+  store?: SpillStore | null;
+  censusStore?: SpillStore | null;
+  /** Called with each range of the spill (and of the census spill) that stage 2 has passed: its files in memory can be closed. */
+  onRelease?: { spill: (range: number) => void; census: (range: number) => void };
   format: InputFormat;
   delimiter: string | undefined;
   header: boolean;
@@ -104,15 +113,19 @@ export interface ScatterTaskResult {
   bucketCounts: Uint32Array[];
   bucketBytes: Float64Array;
   /** The task's spill files (one per range of buckets, see spillRanges; a file may not exist if
-   * its range got no records) and, per bucket, its chunks in its range's file: [offset, length, …]. */
+   * its range got no records), its slabs of memory (the memory layout), and every chunk it wrote
+   * in either (CHUNK_FIELDS numbers each, see spill.ts). */
   paths: string[];
-  chunks: number[][];
+  chunks: Float64Array;
+  slabs: SharedArrayBuffer[];
+  /** Its files in memory, per range (SpillStore.files), or empty. */
+  ramFiles: number[];
   records: number;
   fingerprint: { hi: number; lo: number; count: number };
   /** Hash mode: `cellCounts[stratum][cell]`. */
   cellCounts: Float64Array[] | null;
-  /** The census spill's files and chunks (see ScatterTaskConfig.cellKeyInHeader), as `paths` and `chunks` are the spill's. */
-  census: { paths: string[]; chunks: number[][] } | null;
+  /** The census spill's files, chunks and slabs (see ScatterTaskConfig.cellKeyInHeader), as those above are the spill's. */
+  census: { paths: string[]; chunks: Float64Array; slabs: SharedArrayBuffer[]; ramFiles: number[] } | null;
 }
 
 export interface ScatterResult {
@@ -123,18 +136,16 @@ export interface ScatterResult {
   bucketCounts: Uint32Array[];
   /** Per task: local stratum id -> union stratum id. */
   taskStrata: number[][];
-  /** Per bucket: where its records lie, chunks of every task's spill file (task order). */
-  bucketPieces: SpillPiece[][];
-  /** Per range of buckets (see spillRanges): every task's spill file for it. */
-  rangeFiles: string[][];
+  /** Where every bucket's records lie: chunks of every task's spill files or slabs. */
+  spill: SpillIndex;
   inputs: { path: string; bytes: number; records: number; rejected: number }[];
   records: number;
   rejected: number;
   fingerprint: Fingerprint;
   /** Hash mode: `cellCounts[stratum][cell]` over all tasks (union stratum ids). */
   cellCounts: Float64Array[] | null;
-  /** Per census bucket: where its records lie (see ScatterTaskConfig.cellKeyInHeader); null without a census spill. */
-  censusPieces: SpillPiece[][] | null;
+  /** Where every census bucket's records lie (see ScatterTaskConfig.cellKeyInHeader); null without a census spill. */
+  census: SpillIndex | null;
   /** With ScatterOptions.slices: how each slice was read, and every scatter task's own result (for another process to merge). */
   slices?: SliceRead[];
   results?: ScatterTaskResult[];
@@ -166,9 +177,9 @@ export class ScatterTask {
   constructor(c: ScatterTaskConfig) {
     this.#c = c;
     this.#secret = Uint32Array.from(c.secret);
-    this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp);
+    this.#writer = new BucketWriter(c.spillDir, c.task, 2 ** c.bits, c.bufferBytes, this.#fp, undefined, c.store);
     const census = c.cellKeyInHeader?.censusBits ?? null;
-    this.#census = census === null ? null : new BucketWriter(censusDir(c.spillDir), c.task, 2 ** census, c.cellKeyInHeader!.censusBufferBytes, null, 0);
+    this.#census = census === null ? null : new BucketWriter(censusDir(c.spillDir), c.task, 2 ** census, c.cellKeyInHeader!.censusBufferBytes, null, 0, c.censusStore);
     this.#censusShift = census === null || census === 0 ? 32 : 32 - census;
     this.#hasBins = c.bins.some((x) => x !== null && x !== undefined);
     this.#keyColumns = c.stratify.map((name, w) => ({ name, edges: c.bins[w] ?? null }));
@@ -331,10 +342,12 @@ export class ScatterTask {
       bucketBytes: this.#writer.bytes,
       paths: this.#writer.paths,
       chunks: this.#writer.chunks,
+      slabs: this.#writer.slabs,
+      ramFiles: this.#writer.ramFiles,
       records: this.#records,
       fingerprint: this.#fp.toJSON(),
       cellCounts: this.#cellSecret ? this.#strata.map((_, st) => this.#cellCounts[st] ?? new Float64Array(0)) : null,
-      census: this.#census ? { paths: this.#census.paths, chunks: this.#census.chunks } : null,
+      census: this.#census ? { paths: this.#census.paths, chunks: this.#census.chunks, slabs: this.#census.slabs, ramFiles: this.#census.ramFiles } : null,
     };
   }
 
@@ -374,6 +387,8 @@ export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 't
     bufferBytes: Math.max(4096, Math.floor(o.bufferBytes / tasks)),
     hashCells: o.hashCells ?? null,
     cellKeyInHeader: o.cellKeyInHeader ? { ...o.cellKeyInHeader, censusBufferBytes: Math.max(4096, Math.floor(o.cellKeyInHeader.censusBufferBytes / tasks)) } : null,
+    store: o.store ?? null,
+    censusStore: o.censusStore ?? null,
   };
 }
 
@@ -382,7 +397,7 @@ export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 't
  * same worker entry): no inputs, one bucket of a small buffer, `spillDir` where plan.json is.
  */
 export function idleScatterConfig(spillDir: string): Omit<ScatterTaskConfig, 'task'> {
-  return { inputs: [], stratify: [], bins: [], key: [], group: null, secret: [0, 0, 0, 0], spillDir, bits: 0, bufferBytes: 4096, hashCells: null, cellKeyInHeader: null };
+  return { inputs: [], stratify: [], bins: [], key: [], group: null, secret: [0, 0, 0, 0], spillDir, bits: 0, bufferBytes: 4096, hashCells: null, cellKeyInHeader: null, store: null, censusStore: null };
 }
 
 /** The census spill's folder, inside the spill folder. */
@@ -537,7 +552,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       results = await lanes!.finish();
     }
     const censusBits = o.cellKeyInHeader?.censusBits ?? null;
-    return mergeScatterResults(results, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits);
+    return mergeScatterResults(results, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits, o.onRelease);
   } catch (err) {
     inline?.abandon();
     throw err;
@@ -553,6 +568,7 @@ export function mergeScatterResults(
   inputs: ScatterResult['inputs'],
   buckets: number,
   censusBuckets = 0,
+  onRelease?: ScatterOptions['onRelease'],
 ): ScatterResult {
   results.sort((a, b) => a.task - b.task);
   const ids = new Map<string, number>();
@@ -589,36 +605,19 @@ export function mergeScatterResults(
       }),
     );
   }
-  const { ranges } = spillRanges(buckets);
-  const bucketPieces = piecesOf(results.map((r) => r), buckets);
-  const censusPieces = censusBuckets > 0 ? piecesOf(results.map((r) => r.census!), censusBuckets) : null;
-  const rangeFiles = Array.from({ length: ranges }, (_, g) => results.map((r) => r.paths[g]!));
+  const spill = new SpillIndex(results, buckets, undefined, onRelease?.spill ?? null);
+  const census = censusBuckets > 0 ? new SpillIndex(results.map((r) => r.census!), censusBuckets, undefined, onRelease?.census ?? null) : null;
   return {
     schema,
     strata,
     bucketCounts,
     taskStrata,
-    bucketPieces,
-    rangeFiles,
+    spill,
     inputs,
     records: results.reduce((a, r) => a + r.records, 0),
     rejected: inputs.reduce((a, x) => a + x.rejected, 0),
     fingerprint: fp,
     cellCounts,
-    censusPieces,
+    census,
   };
-}
-
-/** Per bucket, its chunks in every task's spill files (task order). */
-function piecesOf(tasks: { paths: string[]; chunks: number[][] }[], buckets: number): SpillPiece[][] {
-  const { perRange } = spillRanges(buckets);
-  return Array.from({ length: buckets }, (_, b) => {
-    const pieces: SpillPiece[] = [];
-    tasks.forEach((r, t) => {
-      const c = r.chunks[b]!;
-      const path = r.paths[Math.floor(b / perRange)]!;
-      for (let k = 0; k < c.length; k += 2) pieces.push({ task: t, path, offset: c[k]!, length: c[k + 1]! });
-    });
-    return pieces;
-  });
 }

@@ -3,11 +3,14 @@
  * takes and returns plain data (the cluster's tasks run the same steps, src/cluster/):
  *
  *   claim the output      run-work.ts (output-folder.ts: lock, staging, commit; cleanup on signals)
- *   size the run          sizing.ts (buckets, buffers, blocks from the inputs and the budget)
+ *   size the run          sizing.ts (layout, buckets, buffers, blocks from the inputs and the budget);
+ *                         disk-space.ts (room for the spill and the parts, before any work)
  *   scatter               scatter-stage.ts → scatter.ts on the worker lanes: spill buckets + counts
+ *                         (in memory in the memory layout, spill-index.ts says where each lies)
  *   plan                  plan.ts (dealing order, quotas, expected counts, tolerance check);
  *                         group-census.ts (groups counted and placed) → plan.json, groups.bin
  *   gather                gather-stage.ts → gather.ts on the same lanes: buckets dealt in order
+ *                         (split.ts: those too large split first, the multi-pass layout)
  *   assemble the parts    parts.ts (writers, spread order, sizes, sha256, statistics)
  *   write the manifest    manifest.ts, then the commit that puts the output into place
  *
@@ -36,10 +39,14 @@ import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatis
 import { statsInLanes } from './part-stats.js';
 import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan } from './plan.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
-import { deriveSecrets, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
+import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
+import { sizeRun, type Layout, type RunSize } from './sizing.js';
+import { SPILL_FILES, spillRanges } from './spill.js';
+import { openMemoryStore, type MemoryStore } from './ram-store.js';
+import { checkFreeSpace } from './disk-space.js';
+import { estimateInputBytes, isStreamInput } from '../io/input.js';
+import type { SplitResult, SplitTask } from './split.js';
 import { groupSizeWarnings, unitSizes } from './size-check.js';
-import { sizeRun } from './sizing.js';
-import { spillRanges } from './spill.js';
 import { SpreadParts } from './spread-parts.js';
 
 export { BUFFER_CAP, chooseBuckets, spillFactor } from './sizing.js';
@@ -83,8 +90,10 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   checkInputs(o.inputs);
   const format = await chooseFormat(o.inputs, o.format, (v) => optionSetting(o.surface, 'format', v));
   const secrets = deriveSecrets(o.seed);
+  let runLayout: Layout | undefined;
+  let splits = 0;
   const progress = (stage: ProgressEvent['stage'], records: number) => (done: number, total: number): void =>
-    o.onProgress?.({ stage, done, total, records, elapsedMs: Date.now() - t0 });
+    o.onProgress?.({ stage, done, total, records, elapsedMs: Date.now() - t0, ...(runLayout ? { layout: runLayout } : {}), ...(splits > 0 ? { splits } : {}) });
 
   // Claim the output (and the spill's folder): cleaned up whatever happens.
   const hashOnly = how.sink === 'hash';
@@ -99,12 +108,17 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   const out = work.claim?.out ?? o.out;
   let lanes: ShuffleLanes | null = null;
   let writers: PartWriter[] = [];
+  let memory: MemoryStore | null = null;
   try {
     const { spillDir, stage } = work;
-    const size = sizeRun(o);
+    const size = sizeRun(o, true);
+    runLayout = size.layout;
+    // Before any work: room on the disks for what the run will write.
+    checkFreeSpace(spaceNeed(o, size, spillDir, stage));
 
     // ---- scatter ----
-    const scattered = await runScatterStage({ o, format, secrets, size, spillDir, t0 });
+    memory = memoryStoreOf(o, size);
+    const scattered = await runScatterStage({ o, format, secrets, size, spillDir, t0, memory, layout: runLayout });
     lanes = scattered.lanes;
     const { sc } = scattered;
     timings.scatterMs = Date.now() - t0;
@@ -125,10 +139,17 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     else if (o.assign === 'hash') cellCounts = hashCellCounts(sc.cellCounts!, d.localToGlobal, cells);
     else {
       // Groups are counted from the census spill where the spill is keyed by record, else from the spill itself.
+      const source = sc.census ?? sc.spill;
       const groups = await countGroups(
-        { pieces: sc.censusPieces ?? sc.bucketPieces, bits: sc.censusPieces ? Math.log2(sc.censusPieces.length) : size.bits, taskToDealing: d.taskToDealing },
+        {
+          count: source.buckets,
+          piecesOf: (b) => source.pieces(b),
+          bits: Math.log2(source.buckets),
+          taskToDealing: d.taskToDealing,
+          split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
+        },
         join(spillDir, 'groups-census.bin'),
-        lanes ? (task) => (lanes as unknown as Lanes<CensusTask, GroupTableData, GatherFinal>).run(task) : null,
+        lanes ? (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task) : null,
         Math.max(1, size.threads) * 2,
         progress('plan', records),
       );
@@ -136,7 +157,12 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       const placement = placeAllGroups(groups, deal, d.strataSizes);
       cellCounts = placement.cellCounts;
       groupLookup = writeGroupLookup(spillDir, groups, placement.placed, scattered.cellKeyInHeader ? null : size.bits);
-      if (sc.censusPieces) await work.removeEarly([...new Set(sc.censusPieces.flat().map((p) => p.path))]);
+      if (sc.census) {
+        const census = sc.census;
+        const { ranges } = spillRanges(census.buckets);
+        for (let r = 0; r < ranges; r++) census.releaseRange(r);
+        await work.removeEarly(Array.from({ length: ranges }, (_, r) => census.rangeFiles(r)).flat());
+      }
     }
     const layout = partLayout(o, format);
     const worst = worstDeviation(cellCounts, deal, d.strataSizes);
@@ -181,14 +207,14 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
 
     // ---- gather: buckets dealt in order into the parts ----
     const header = headerBytes(sc.schema, o.foldColumn, format);
-    writers = await openParts(stage, layout, o.gzip, o.memory, header);
+    writers = await openParts(stage, layout, o, header, spillDir);
     const spread = o.order === 'spread' ? new SpreadParts(spillDir, parts, plan.strataCount) : null;
     const { perRange } = spillRanges(size.buckets);
     let removing: Promise<void> = Promise.resolve();
     const gathered = await runGatherStage({
       plan,
       planPath,
-      bucketPieces: sc.bucketPieces,
+      piecesOf: (b) => sc.spill.pieces(b),
       countsOf: (b, running) => {
         for (let l = 0; l < sc.strata.length; l++) running[d.localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
       },
@@ -199,14 +225,26 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       inFlight: size.inFlight,
       sink: spread ? spreadSink(spread) : writerSink(writers),
       // Buckets are dealt in order: past the last bucket of a range, no task reads its files
-      // again. The removal runs beside the dealing; the previous range's is waited for here, so
-      // the spill never lags more than a range behind.
+      // (or slabs) again. The removal runs beside the dealing; the previous range's is waited for
+      // here, so the spill never lags more than a range behind.
       passed: async (next) => {
         if (next % perRange !== 0 && next !== size.buckets) return;
+        const r = Math.floor((next - 1) / perRange);
+        sc.spill.releaseRange(r);
         await removing;
-        removing = work.removeEarly(sc.rangeFiles[Math.floor((next - 1) / perRange)]!);
+        removing = work.removeEarly(sc.spill.rangeFiles(r));
       },
       progress: progress('gather', records),
+      split: {
+        cap: size.bucketCap,
+        target: size.bucketTarget,
+        dir: spillDir,
+        bufferBytes: Math.floor(o.memory / 4),
+        onSplit: () => {
+          splits++;
+          runLayout = 'multi-pass';
+        },
+      },
     });
     const { counts, fingerprints } = gathered;
     if (spread) await writeSpreadParts(spread, writers, counts, deal.folds, plan.strataCount, progress('order', records));
@@ -262,6 +300,8 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       deal,
       buckets: size.buckets,
       threads: size.threads,
+      layout: ranLayout(size, sc.spill.placement(), gathered.splits),
+      memory: { budget: o.memory, isDefault: o.memoryIsDefault, splits: gathered.splits },
       parts: partRecords(layout, counts, deal.folds, plan.strataCount, closed, fingerprints, stats?.parts ?? null),
       deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
@@ -288,8 +328,42 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   } finally {
     for (const w of writers) w.abandon();
     if (lanes) await lanes.destroy().catch(() => {});
+    // No thread reads the memory layout's files any more.
+    memory?.close();
     await work.finish();
   }
+}
+
+/** What the run expects to write, and where (see disk-space.ts). */
+function spaceNeed(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize, spillDir: string, stage: string | null): Parameters<typeof checkFreeSpace>[0] {
+  // A stream's size is not known before it ends: nothing to check against.
+  const known = !o.inputs.some(isStreamInput);
+  const input = known ? o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) : 0;
+  const parts = input * (o.gzip ? 1 / 3 : 1) * (o.order === 'spread' ? 2 : 1);
+  return { spillDir, spillBytes: size.layout === 'memory' || !known ? 0 : size.spillEstimate, outDir: stage, partBytes: parts, out: o.out };
+}
+
+/**
+ * The memory layout's stores: the allowance all scatter tasks draw on; where they are shared
+ * memory, in slabs of about 1/16 of a range's share of a task (so that slabs left part full
+ * waste little of it).
+ */
+function memoryStoreOf(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize): MemoryStore | null {
+  if (size.layout !== 'memory') return null;
+  const tasks = Math.max(1, size.threads);
+  const share = size.spillEstimate / (tasks * Math.min(size.buckets, SPILL_FILES) * 16);
+  const slabBytes = Math.min(64 << 20, Math.max(1 << 20, 2 ** Math.floor(Math.log2(Math.max(1, share)))));
+  // Group mode with records placed individually keeps a census spill too (scatter-stage.ts).
+  const census = o.assign === 'group' && placesRecordsIndividually(o) ? spillRanges(2 ** Math.max(0, size.bits - 2)).ranges : 0;
+  // A memory file system is taken where it has room for the spill expected (with a margin); the allowance stays the budget's.
+  return openMemoryStore(tasks, spillRanges(size.buckets).ranges, census, size.storeBytes, slabBytes, Math.min(size.storeBytes, Math.ceil(1.25 * size.spillEstimate)));
+}
+
+/** The layout that ran: the memory layout only where no chunk went to a file; multi-pass where a bucket was split. */
+function ranLayout(size: RunSize, placement: { memory: number; files: number }, splits: number): Layout {
+  if (splits > 0) return 'multi-pass';
+  if (size.layout === 'memory' && placement.files === 0) return 'memory';
+  return 'spill';
 }
 
 /** Records per cell, from the counts per (cell, stratum). */

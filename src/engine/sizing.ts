@@ -16,27 +16,104 @@ import { flags } from '../flags.js';
 export const BUFFER_CAP = 64 * 1024;
 
 /**
- * How many spill buckets, and how much buffer each gets in stage 1.
- * - A bucket and its output, for every task in flight, must fit the memory budget.
- * - Stage 1 keeps a buffer per bucket and scatter task: many buckets scatter records over many
- *   places in memory, and below ~32 KiB per buffer the writes get small, so a small budget gets
- *   larger buckets instead.
- * - Stage 2 reads a bucket in key order, jumping around it: its key-order copy slows sharply once
- *   a bucket falls out of cache, hence a target of 1.5 MiB (buckets of 0.75-1.5 MiB; the
- *   measurements behind it are in docs/benchmarks.md, "Bucket size").
+ * At least this much buffer per bucket and scatter task where the spill goes to files: every
+ * full buffer is one write in stage 1 and one read in stage 2, so smaller ones multiply the
+ * system calls and the bookkeeping (4 KiB chunks cost ~3.5 µs of system CPU each, a third more
+ * than the rest of a record's way, docs/benchmarks.md "Where system time goes at 4 GB").
  */
-export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number): { bits: number; bufferBytes: number } {
-  const memCap = Math.max(64 * 1024, Math.floor(memory / (3 * (inFlight + 1))));
-  const target = Math.min(memCap, 1.5 * 1024 * 1024);
+export const MIN_WRITE = 32 * 1024;
+
+/**
+ * Stage 1's buffers take a quarter of the budget, at most this much: a larger budget buys larger
+ * buckets, not more buffers (each is memory written for the first time, which costs a page fault
+ * a page, and stage 2 takes buckets up to a budget-sized cap anyway).
+ */
+export const BUFFERS_MAX = 128 * 1024 * 1024;
+
+/** Bytes of stage 1's buffers, over all buckets and tasks. */
+export function bufferShare(memory: number): number {
+  return Math.min(Math.floor(memory / 4), BUFFERS_MAX);
+}
+
+/** The share of the budget the spill may take in memory (the rest: buffers, buckets in flight, parts). */
+export const MEMORY_LAYOUT_SHARE = 0.75;
+
+/**
+ * How a run keeps its records between the two stages, decided from the spill's estimate over the
+ * budget (see chooseBuckets):
+ * - `memory`: the spill fits in the budget: stage 1 keeps every bucket's chunks in shared memory
+ *   and stage 2 reads them there; no spill file is written.
+ * - `spill`: one level of buckets, each small enough for stage 2 and each with a buffer of at
+ *   least MIN_WRITE in stage 1, holds it: spill files, read back bucket by bucket.
+ * - `multi-pass`: larger still: as many buckets as buffers of MIN_WRITE fit in the budget, and
+ *   stage 2 scatters each bucket too large for it once more, by its key's next bits, into
+ *   sub-buckets it then deals in order (split.ts). Memory stays within the budget at any size.
+ */
+export type Layout = 'memory' | 'spill' | 'multi-pass';
+
+/** The largest bucket stage 2 takes whole: it and its output, for every bucket in flight, fit the budget. */
+export function bucketCap(memory: number, inFlight: number): number {
+  return Math.max(64 * 1024, Math.floor(memory / (3 * (inFlight + 1))));
+}
+
+/**
+ * The bucket size stage 2 aims at: its key-order copy reads a bucket in key order, jumping
+ * around it, and slows sharply once a bucket falls out of cache, hence 1.5 MiB (buckets of
+ * 0.75-1.5 MiB; docs/benchmarks.md, "Bucket size"), or less where the budget is small.
+ */
+export function bucketTarget(memory: number, inFlight: number): number {
+  return Math.min(bucketCap(memory, inFlight), 1.5 * 1024 * 1024);
+}
+
+export interface BucketChoice {
+  bits: number;
+  /** Stage 1's buffer per bucket, over all scatter tasks. */
+  bufferBytes: number;
+  layout: Layout;
+}
+
+/**
+ * The layout, the number of spill buckets, and how much buffer each gets in stage 1.
+ * - `memory` (where allowed: one process) when the spill's estimate is within
+ *   MEMORY_LAYOUT_SHARE of the budget.
+ * - Otherwise `spill` where one level of buckets holds it: buckets of the target size where that
+ *   many buffers of MIN_WRITE a task fit stage 1's share (bufferShare), or fewer, larger ones
+ *   up to the cap stage 2 takes whole.
+ * - Otherwise `multi-pass`: as many buckets as those buffers allow; stage 2 splits the ones it
+ *   cannot take whole.
+ * The memory layout takes its buckets by the same rule (stage 2 does not split them: they fit).
+ */
+export function chooseBuckets(spillEstimate: number, memory: number, threads: number, inFlight: number, allowMemory = false): BucketChoice {
+  const cap = bucketCap(memory, inFlight);
+  const target = bucketTarget(memory, inFlight);
   const tasks = Math.max(1, threads);
-  const byBuffers = Math.max(1, Math.floor(memory / 4 / (32 * 1024 * tasks)));
-  let want = Math.ceil(spillEstimate / target);
-  if (want > byBuffers) want = Math.max(byBuffers, Math.ceil(spillEstimate / memCap));
-  let bits = Math.min(14, Math.max(0, Math.ceil(Math.log2(Math.max(1, want)))));
+  const log2 = (n: number): number => Math.max(0, Math.ceil(Math.log2(Math.max(1, n))));
+  const byTarget = log2(Math.ceil(spillEstimate / target));
+  const forced = flags.layout === 'memory' && !allowMemory ? 'spill' : flags.layout;
+  let layout: Layout;
+  let bits: number;
+  if (forced === 'multi-pass') {
+    // Buckets 8 times the size stage 2 takes whole (forcedSplit): every one is split.
+    layout = 'multi-pass';
+    bits = Math.max(0, log2(Math.ceil(spillEstimate / forcedSplit(spillEstimate))) - 3);
+  } else {
+    // As many buckets as buffers of MIN_WRITE a task fit in stage 1's share.
+    const maxBits = Math.floor(Math.log2(Math.max(1, Math.floor(bufferShare(memory) / (MIN_WRITE * tasks)))));
+    const byCap = log2(Math.ceil(spillEstimate / cap));
+    if (forced === 'memory' || (forced === undefined && allowMemory && spillEstimate <= MEMORY_LAYOUT_SHARE * memory)) layout = 'memory';
+    else layout = forced === 'spill' || byCap <= maxBits ? 'spill' : 'multi-pass';
+    bits = forced === 'spill' ? byTarget : Math.min(byTarget, maxBits);
+  }
+  bits = Math.min(14, bits);
   // For experiments only: force the bucket bits (the output does not depend on them).
   if (flags.bucketBits !== undefined) bits = flags.bucketBits;
-  const bufferBytes = Math.max(4096 * tasks, Math.min(BUFFER_CAP * tasks, Math.floor(memory / 4 / 2 ** bits)));
-  return { bits, bufferBytes };
+  const bufferBytes = Math.max(4096 * tasks, Math.min(BUFFER_CAP * tasks, Math.floor(bufferShare(memory) / 2 ** bits)));
+  return { bits, bufferBytes, layout };
+}
+
+/** ROWDECK_LAYOUT=multi-pass: the size stage 2 takes whole, small enough to split the buckets of a small test input. */
+function forcedSplit(spillEstimate: number): number {
+  return Math.max(16 * 1024, Math.floor(spillEstimate / 64));
 }
 
 /**
@@ -74,8 +151,11 @@ export function blockBytesFor(memory: number): number {
   return Math.max(256 * 1024, Math.min(4 * 1024 * 1024, 2 ** Math.floor(Math.log2(memory / 32))));
 }
 
-/** What a run is cut into: its threads, buckets and buffers. */
+/** What a run is cut into: its layout, threads, buckets and buffers. */
 export interface RunSize {
+  layout: Layout;
+  /** The budget these figures come from. */
+  memory: number;
   /** Worker threads; 0: everything on the calling thread. */
   threads: number;
   /** Buckets handed to stage 2 at once. */
@@ -87,15 +167,35 @@ export interface RunSize {
   bufferBytes: number;
   /** Blocks of a plain input parsed by a worker. */
   blockBytes: number;
+  /** The spill's estimate in bytes (the inputs' sizes times spillFactor). */
+  spillEstimate: number;
+  /** The memory layout: bytes the scatter tasks may keep in memory, together; 0 in the other layouts. */
+  storeBytes: number;
+  /** Stage 2 splits a bucket larger than this (split.ts) into sub-buckets of about `bucketTarget`. */
+  bucketCap: number;
+  bucketTarget: number;
 }
 
-export function sizeRun(o: { inputs: string[]; memory: number; threads: number }): RunSize {
+/**
+ * Sizes a run. `allowMemory`: the two stages run in this one process (a shuffle), so they can
+ * share memory; a plan's tasks are separate processes and always spill to files.
+ */
+export function sizeRun(o: { inputs: string[]; memory: number; threads: number }, allowMemory = false): RunSize {
   const threads = o.threads;
   const inFlight = 2 * Math.max(1, threads) + 2;
   const factor = spillFactor(o.inputs);
   const estimate = o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) * factor;
-  const { bits, bufferBytes } = chooseBuckets(estimate, o.memory, threads, inFlight);
+  const { bits, bufferBytes, layout } = chooseBuckets(estimate, o.memory, threads, inFlight, allowMemory);
+  const forcedSplitting = flags.layout === 'multi-pass';
+  const cap = forcedSplitting ? forcedSplit(estimate) : bucketCap(o.memory, inFlight);
+  const target = forcedSplitting ? Math.max(4096, Math.floor(cap / 2)) : bucketTarget(o.memory, inFlight);
+  // What stays for the store once stage 1's buffers and stage 2's buckets in flight have theirs
+  // (forced, as much as the spill needs).
+  let storeBytes = layout === 'memory' ? Math.max(0, Math.floor(o.memory - 2 ** bits * bufferBytes - 3 * inFlight * target)) : 0;
+  if (layout === 'memory' && flags.layout === 'memory') storeBytes = Math.max(storeBytes, Math.ceil(2 * estimate) + (64 << 20));
   return {
+    layout,
+    memory: o.memory,
     threads,
     inFlight,
     spillFactor: factor,
@@ -105,5 +205,9 @@ export function sizeRun(o: { inputs: string[]; memory: number; threads: number }
     // Short records (a spill over 1.5x the input): smaller blocks, since a block's record
     // positions (~40 bytes a record) then outweigh its bytes.
     blockBytes: factor <= 1.5 ? blockBytesFor(o.memory) : Math.max(64 * 1024, Math.floor((blockBytesFor(o.memory) * 1.3) / factor)),
+    spillEstimate: estimate,
+    storeBytes,
+    bucketCap: cap,
+    bucketTarget: target,
   };
 }

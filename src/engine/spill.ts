@@ -11,13 +11,16 @@
  *
  * Each scatter task writes a few spill files, one per range of buckets (`SPILL_FILES` at most): a
  * bucket's buffer, when full, is appended to its range's file as a chunk, and the task keeps the
- * (offset, length) of every chunk per bucket. Stage 2 reads a bucket as its chunks from every
+ * (bucket, place, offset, length) of every chunk in one typed array (a chunk's place is -1 for its
+ * range's file, or the slab that holds it, see below). Stage 2 reads a bucket as its chunks from every
  * task's file for that range, and deals the buckets in order, so it removes a range's files as
  * soon as it has passed the range: the spill shrinks as the parts grow, and the disk holds about
  * the spill and a range's parts at once instead of the spill and all the parts. One file per
  * bucket was simpler, but creating a file cost about a millisecond on the file systems measured
  * here (more than the rest of stage 1 for thousands of buckets), and it tied the bucket count to
  * the open-file limit.
+ *
+ * Where a chunk lies (a range's file, memory) is described in spill-places.ts.
  */
 import { closeSync, openSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
@@ -53,27 +56,9 @@ function spillKernel(): SpillKernel | null {
 export const HEADER_BYTES = SPILL_LAYOUT.headerBytes;
 export const HEADER_WORDS = HEADER_BYTES / 4;
 
-/** Spill files a scatter task writes at most: one per range of buckets. */
-export const SPILL_FILES = 16;
+export { CHUNK_FIELDS, IN_FILE, IN_RAM_FILE, SPILL_FILES, spillFileName, spillRanges, storeAllowance, type SpillPiece, type SpillStore } from './spill-places.js';
+import { CHUNK_FIELDS, IN_FILE, IN_RAM_FILE, spillFileName, spillRanges, type SpillStore } from './spill-places.js';
 
-/** The file of scatter task `task` for bucket range `range`. */
-export function spillFileName(task: number, range = 0): string {
-  return `scatter-${String(task).padStart(4, '0')}-${String(range).padStart(2, '0')}.spill`;
-}
-
-/** How many ranges `buckets` buckets fall into, and how many buckets one range holds. */
-export function spillRanges(buckets: number): { ranges: number; perRange: number } {
-  const ranges = Math.min(buckets, SPILL_FILES);
-  return { ranges, perRange: Math.ceil(buckets / ranges) };
-}
-
-/** Where part of one bucket's records lie: a chunk of one task's spill file. */
-export interface SpillPiece {
-  task: number;
-  path: string;
-  offset: number;
-  length: number;
-}
 
 /**
  * Buffered appender for the buckets of one scatter task.
@@ -95,9 +80,9 @@ export interface SpillPiece {
  */
 export class BucketWriter {
   /** One spill file per range of buckets (see spillRanges); created at its first chunk. */
-  readonly paths: string[];
-  /** Per bucket: [offset, length, offset, length, …] of its chunks in its range's file. */
-  readonly chunks: number[][];
+  paths: string[];
+  /** Slabs of shared memory holding chunks (the memory layout), each of one range of buckets. */
+  slabs: SharedArrayBuffer[] = [];
   readonly bytes: Float64Array;
   readonly records: Float64Array;
   /** Fingerprint of every record appended, taken from the aligned copy (cheaper than from the input). */
@@ -105,6 +90,20 @@ export class BucketWriter {
   #fds: number[];
   #ends: number[];
   #perRange: number;
+  #buckets: number;
+  #chunkList = new Float64Array(CHUNK_FIELDS * 64);
+  #chunkCount = 0;
+  #store: SpillStore | null = null;
+  /**
+   * This task's files in memory, per range (SpillStore.files), and where each one ends (ranges
+   * may share a file: `#ramEndOf[r]` is the first range with range r's descriptor).
+   */
+  #ramFds: number[] | null = null;
+  #ramEnds: number[] = [];
+  #ramEndOf: number[] = [];
+  /** Per range: its current slab (index into `slabs`) or -1, and where that slab's free space starts. */
+  #rangeSlab: Int32Array;
+  #slabFill: number[] = [];
   #arena: Uint8Array;
   #buf: Buffer;
   #u32: Uint32Array;
@@ -138,8 +137,10 @@ export class BucketWriter {
     return this.#stagingSize;
   }
 
-  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20) {
+  constructor(dir: string, task: number, buckets: number, bufferBytes: number, fingerprint: Fingerprint | null = null, stagingBytes = 2 << 20, store: SpillStore | null = null) {
     this.fingerprint = fingerprint;
+    this.#buckets = buckets;
+    this.#takeStore(store, task);
     this.#size = Math.max(4096, bufferBytes & ~3);
     this.#stagingSize = stagingBytes;
     const kernel = spillKernel();
@@ -184,10 +185,53 @@ export class BucketWriter {
     this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
     this.#fds = new Array<number>(ranges).fill(-1);
     this.#ends = new Array<number>(ranges).fill(0);
-    this.chunks = Array.from({ length: buckets }, () => []);
+    this.#rangeSlab = new Int32Array(ranges).fill(-1);
     for (let b = 0; b < buckets; b++) this.#fill[b] = b * this.#stride;
     this.bytes = new Float64Array(buckets);
     this.records = new Float64Array(buckets);
+  }
+
+  /** Takes task `task`'s part of a store (see SpillStore). */
+  #takeStore(store: SpillStore | null, task: number): void {
+    this.#store = store;
+    this.#ramFds = null;
+    if (store?.files) {
+      const fds = store.files[task] ?? null;
+      this.#ramFds = fds;
+      this.#ramEnds = new Array<number>(fds?.length ?? 0).fill(0);
+      this.#ramEndOf = (fds ?? []).map((fd) => fds!.indexOf(fd));
+      if (!fds) this.#store = null;
+    }
+  }
+
+  /** This task's files in memory, per range (empty where it has none). */
+  get ramFiles(): number[] {
+    return this.#ramFds ? [...this.#ramFds] : [];
+  }
+
+  /** Every chunk written so far: CHUNK_FIELDS numbers each (a view, valid until the next write). */
+  get chunks(): Float64Array {
+    return this.#chunkList.subarray(0, this.#chunkCount * CHUNK_FIELDS);
+  }
+
+  /**
+   * Starts over, after close(), with new files named for `task` in `dir` (or `store`'s) and
+   * nothing written: the same buckets and buffers (a thread that splits bucket after bucket keeps
+   * one writer).
+   */
+  restart(dir: string, task: number, store: SpillStore | null = null): void {
+    if (this.#fds.some((fd) => fd >= 0) || this.#queued > 0) throw new Error('internal: BucketWriter.restart before close');
+    const { ranges } = spillRanges(this.#buckets);
+    this.paths = Array.from({ length: ranges }, (_, r) => join(dir, spillFileName(task, r)));
+    this.#ends.fill(0);
+    this.#takeStore(store, task);
+    this.#rangeSlab.fill(-1);
+    this.slabs = [];
+    this.#slabFill = [];
+    this.#chunkCount = 0;
+    for (let b = 0; b < this.#buckets; b++) this.#fill[b] = b * this.#stride;
+    this.bytes.fill(0);
+    this.records.fill(0);
   }
 
   /**
@@ -355,10 +399,83 @@ export class BucketWriter {
     }
   }
 
-  /** Appends bytes to the bucket's range file as one chunk of `bucket`. */
+  /** Notes a chunk of `bucket` at `place` (IN_FILE, IN_RAM_FILE or a slab). */
+  #noteChunk(bucket: number, place: number, offset: number, length: number): void {
+    let list = this.#chunkList;
+    const at = this.#chunkCount * CHUNK_FIELDS;
+    if (at + CHUNK_FIELDS > list.length) {
+      list = new Float64Array(list.length * 2);
+      list.set(this.#chunkList);
+      this.#chunkList = list;
+    }
+    list[at] = bucket;
+    list[at + 1] = place;
+    list[at + 2] = offset;
+    list[at + 3] = length;
+    this.#chunkCount++;
+  }
+
+  /** Keeps a chunk in memory (see the module's comment); false once the allowance is spent or the memory file system is full. */
+  #keep(r: number, bucket: number, buf: Buffer, from: number, to: number): boolean {
+    if (this.#ramFds) return this.#keepInFile(r, bucket, buf, from, to);
+    const store = this.#store!;
+    const len = to - from;
+    let k = this.#rangeSlab[r]!;
+    if (k < 0 || this.#slabFill[k]! + len > this.slabs[k]!.byteLength) {
+      const size = Math.max(store.slabBytes, len);
+      const kib = Math.ceil(size / 1024);
+      const allowance = new Int32Array(store.allowance);
+      if (Atomics.sub(allowance, 0, kib) < kib) {
+        Atomics.add(allowance, 0, kib);
+        this.#store = null;
+        return false;
+      }
+      k = this.slabs.length;
+      this.slabs.push(new SharedArrayBuffer(size));
+      this.#slabFill.push(0);
+      this.#rangeSlab[r] = k;
+    }
+    const at = this.#slabFill[k]!;
+    new Uint8Array(this.slabs[k]!, at, len).set(buf.subarray(from, to));
+    this.#slabFill[k] = at + len;
+    this.#noteChunk(bucket, k, at, len);
+    return true;
+  }
+
+  /** Appends a chunk to its range's file in memory, its size taken from the allowance. */
+  #keepInFile(r: number, bucket: number, buf: Buffer, from: number, to: number): boolean {
+    const len = to - from;
+    const kib = Math.ceil(len / 1024);
+    const allowance = new Int32Array(this.#store!.allowance);
+    if (Atomics.sub(allowance, 0, kib) < kib) {
+      Atomics.add(allowance, 0, kib);
+      this.#store = null;
+      return false;
+    }
+    const fd = this.#ramFds![r]!;
+    const e = this.#ramEndOf[r]!;
+    const end = this.#ramEnds[e]!;
+    let off = from;
+    try {
+      while (off < to) off += writeSync(fd, buf, off, to - off, end + (off - from));
+    } catch (err) {
+      // Full (its size limit, or a quota): what is there stays, the rest goes to the spill files.
+      const code = (err as NodeJS.ErrnoException).code;
+      if (code !== 'ENOSPC' && code !== 'EDQUOT' && code !== 'EFBIG') throw ioError(err, `a file in memory (range ${r})`, 'keeping the spill in memory');
+      Atomics.add(allowance, 0, kib);
+      this.#store = null;
+      return false;
+    }
+    this.#ramEnds[e] = end + len;
+    this.#noteChunk(bucket, IN_RAM_FILE, end, len);
+    return true;
+  }
+
+  /** Appends bytes to the bucket's range file (or memory) as one chunk of `bucket`. */
   #write(bucket: number, buf: Buffer, from: number, to: number): void {
     if (to <= from) return;
     const r = Math.floor(bucket / this.#perRange);
+    if (this.#store && this.#keep(r, bucket, buf, from, to)) return;
     const path = this.paths[r]!;
     if (this.#fds[r] === -1) {
       try {
@@ -374,7 +491,7 @@ export class BucketWriter {
     } catch (err) {
       throw ioError(err, path, 'writing a spill file');
     }
-    this.chunks[bucket]!.push(end, to - from);
+    this.#noteChunk(bucket, IN_FILE, end, to - from);
     this.#ends[r] = end + (to - from);
   }
 
@@ -389,7 +506,7 @@ export class BucketWriter {
   close(): void {
     try {
       this.#drain();
-      for (let b = 0; b < this.chunks.length; b++) this.#flush(b);
+      for (let b = 0; b < this.#buckets; b++) this.#flush(b);
       if (this.#kernel && this.fingerprint) {
         // The module's sum of the records it wrote.
         const u = this.#u32;
@@ -406,7 +523,7 @@ export class BucketWriter {
    * to close is not reported: the error that led here is the one that matters. */
   abandon(): void {
     this.#queued = 0;
-    for (let b = 0; b < this.chunks.length; b++) this.#fill[b] = b * this.#stride;
+    for (let b = 0; b < this.#buckets; b++) this.#fill[b] = b * this.#stride;
     try {
       this.#closeFile();
     } catch {

@@ -1,8 +1,9 @@
 /**
  * Writes one output part: plain or gzip, computing the sha256 of the bytes that reach the disk
- * as they are written (no second read). gzip runs on libuv's thread pool through zlib, and its
- * output depends only on the bytes fed, not on how they were cut into writes, so a part's
- * compressed bytes are as reproducible as its plain ones.
+ * as they are written (no second read). gzip parts are written as members of fixed size, each
+ * compressed on libuv's thread pool as soon as it is full (src/io/gzip-members.ts): a part's
+ * compressed bytes depend only on its bytes, not on how they were cut into writes, so they are as
+ * reproducible as its plain ones.
  *
  * Open files stay bounded whatever the part count: writers that share a `FileSlots` keep at most
  * its limit of files open, and one whose file was closed for another opens it again to append.
@@ -11,8 +12,8 @@
  */
 import { createHash, type Hash } from 'node:crypto';
 import { closeSync, openSync, writeSync } from 'node:fs';
-import { createGzip, type Gzip } from 'node:zlib';
 import { RowdeckError, systemError } from '../errors.js';
+import { GzipMembers, type MemberCompressor } from './gzip-members.js';
 
 /**
  * Open output files shared by many writers: at most `limit` at once; opening one more closes the
@@ -66,47 +67,29 @@ export class PartWriter {
   #created = false;
   readonly #slots: FileSlots | null;
   #hash: Hash = createHash('sha256');
-  #gzip: Gzip | null = null;
-  #gzDone: Promise<void> | null = null;
+  /** The part's gzip members (null: plain). */
+  readonly #gzip: GzipMembers | null = null;
   /** The first failure (a coded error); every later call reports it. */
   #failure: RowdeckError | null = null;
 
   /**
+   * `gzip`: the run's compressor (null: a plain part).
    * `gatherBytes`: with many parts, each bucket gives each part only a short slice (a bucket's
    * ~1.5 MiB over 1,024 parts is ~1.5 KiB), and a system call per slice cost more than the
-   * dealing; slices under half this size are gathered and written together.
+   * dealing; slices under half this size are gathered and written together (gzip parts gather
+   * into their member instead).
    * `slots`: shared with the run's other writers to bound open files (none: this writer keeps its
    * file open until `close`).
    */
-  constructor(path: string | null, gzip: boolean, gatherBytes = 0, slots: FileSlots | null = null) {
+  constructor(path: string | null, gzip: MemberCompressor | null, gatherBytes = 0, slots: FileSlots | null = null) {
     this.path = path;
-    this.#gatherBytes = gatherBytes;
+    this.#gatherBytes = gzip ? 0 : gatherBytes;
     this.#slots = path === null ? null : slots;
     // Created at once (exclusively), so a name taken by something else is reported before any work.
     if (path !== null) this.#fileFor();
-    if (gzip) {
-      const gz = createGzip({ level: 6 });
-      gz.on('data', (chunk: Buffer) => {
-        if (this.#failure) return;
-        try {
-          this.#writeRaw(chunk);
-        } catch (err) {
-          // Thrown from an event handler it would be uncaught (no cleanup): keep it, stop zlib,
-          // and let the caller's next call (or the wait below) report it.
-          this.#fail(err, 'writing an output file');
-          gz.destroy(this.#failure!);
-        }
-      });
-      this.#gzDone = new Promise<void>((resolve, reject) => {
-        gz.on('end', resolve);
-        gz.on('error', (e) => {
-          this.#fail(e, 'compressing an output file');
-          reject(this.#failure!);
-        });
-      });
-      this.#gzDone.catch(() => {});
-      this.#gzip = gz;
-    }
+    // Members are written from zlib's callbacks: a failure there (a full disk) is kept by
+    // #writeRaw and reported by the next call.
+    if (gzip) this.#gzip = new GzipMembers(gzip, (member) => this.#writeRaw(member));
   }
 
   #fail(err: unknown, doing: string): void {
@@ -164,71 +147,59 @@ export class PartWriter {
   }
 
   /**
-   * Writes bytes. Returns nothing when they were only gathered (the common case with many parts:
-   * no promise to wait for), else a promise that resolves when they may be reused (gzip applies
-   * backpressure).
+   * Writes bytes. Returns nothing when they are written or kept (plain parts, and gzip ones whose
+   * member takes them), else a promise that resolves when they may be reused (a full gzip member
+   * waits for a place among the members in flight).
    */
   write(buf: Uint8Array): Promise<void> | undefined {
     this.#check();
     const n = buf.byteLength;
     if (n === 0) return undefined;
+    if (this.#gzip) return this.#gzipWrite(buf);
     if (2 * n < this.#gatherBytes && this.#gatheredLength + n <= this.#gatherBytes) {
       this.#gathered ??= Buffer.allocUnsafe(this.#gatherBytes);
       this.#gathered.set(buf, this.#gatheredLength);
       this.#gatheredLength += n;
       return undefined;
     }
-    return this.#writeOn(buf);
-  }
-
-  async #writeOn(buf: Uint8Array): Promise<void> {
-    await this.#flush();
-    if (2 * buf.byteLength < this.#gatherBytes) {
+    this.#flush();
+    if (2 * n < this.#gatherBytes) {
       this.#gathered!.set(buf, 0);
-      this.#gatheredLength = buf.byteLength;
-    } else await this.#pass(buf);
+      this.#gatheredLength = n;
+    } else this.#writeRaw(buf);
+    return undefined;
   }
 
-  /** Passes on what was gathered. */
-  async #flush(): Promise<void> {
+  /** Writes what was gathered. */
+  #flush(): void {
     if (this.#gatheredLength === 0) return;
     const n = this.#gatheredLength;
     this.#gatheredLength = 0;
-    await this.#pass(this.#gathered!.subarray(0, n));
+    this.#writeRaw(this.#gathered!.subarray(0, n));
   }
 
-  async #pass(buf: Uint8Array): Promise<void> {
-    const gz = this.#gzip;
-    if (!gz) {
-      this.#writeRaw(buf);
-      return;
+  #gzipWrite(buf: Uint8Array): Promise<void> | undefined {
+    try {
+      const taking = this.#gzip!.write(buf);
+      if (taking) return taking.catch((err: unknown) => this.#rethrow(err, 'compressing an output file'));
+    } catch (err) {
+      this.#rethrow(err, 'compressing an output file');
     }
-    this.#check();
-    // zlib may keep a reference to the chunk until it is processed: give it its own copy.
-    if (!gz.write(Buffer.from(buf))) {
-      // 'close' too: a stream stopped by a failure never drains.
-      await new Promise<void>((resolve) => {
-        const go = (): void => {
-          gz.off('drain', go);
-          gz.off('close', go);
-          resolve();
-        };
-        gz.on('drain', go);
-        gz.on('close', go);
-      });
-    }
-    this.#check();
+    return undefined;
+  }
+
+  /** Throws the writer's first failure (`err` where there was none yet, as a coded error). */
+  #rethrow(err: unknown, doing: string): never {
+    this.#fail(err, doing);
+    throw this.#failure!;
   }
 
   /** Finishes the file and returns its size and sha256. */
   async close(): Promise<{ bytes: number; sha256: string }> {
     try {
       this.#check();
-      await this.#flush();
-      if (this.#gzip) {
-        this.#gzip.end();
-        await this.#gzDone;
-      }
+      this.#flush();
+      await this.#gzip?.end();
       this.#check();
     } catch (err) {
       this.#fail(err, 'compressing an output file');
@@ -242,7 +213,7 @@ export class PartWriter {
 
   /** Closes without finishing (on failure; the file is removed with its folder). */
   abandon(): void {
-    this.#gzip?.destroy();
+    this.#gzip?.abandon();
     this.#slots?.drop(this);
     try {
       this.closeFile();

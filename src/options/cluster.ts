@@ -5,6 +5,7 @@
  */
 import { RowdeckError } from '../errors.js';
 import { resolveShuffleOptions, SHUFFLE_OPTIONS, type ResolvedShuffleOptions, type ShuffleOptions } from './shuffle.js';
+import { withHelp } from './input.js';
 import {
   booleanValue,
   choiceValue,
@@ -38,6 +39,9 @@ export interface PlanOptions extends ShuffleOptions {
 // The spill's folder is the work folder; threads are each task's (listed with plan's own options).
 const { tempDir: _spillFolder, threads: _threads, ...shuffleButSpill } = SHUFFLE_OPTIONS;
 
+/** A plan's budget a task where --memory is not given (the machine planning is not the nodes). */
+export const PLAN_DEFAULT_MEMORY = '512MiB';
+
 export const PLAN_OPTIONS = {
   ...shuffleButSpill,
   work: {
@@ -60,6 +64,11 @@ export const PLAN_OPTIONS = {
     help: ['gather tasks (default N; at most the bucket count)'],
     ...integerValue(1, 100000),
   },
+  memory: withHelp(SHUFFLE_OPTIONS.memory, [
+    "each task's budget (default 512MiB: this machine's memory says",
+    "nothing of the nodes'); the tasks spill to files in WORK, and a",
+    'gather task splits a bucket too large for it (same bytes)',
+  ], P),
   threads: {
     ...SHUFFLE_OPTIONS.threads,
     cli: { flag: 'threads', arg: 'T' },
@@ -122,7 +131,8 @@ export function resolvePlanOptions(options: PlanOptions): ResolvedPlanOptions {
   }
   const o = readOptions(PLAN_SPEC, options, surface) as Partial<PlanOptions> & Pick<PlanOptions, 'work' | 'tasks'>;
   const { work, tasks, gatherTasks, image, claim, mountPath, ...rest } = o;
-  const shuffleOptions = rest as ShuffleOptions;
+  // The nodes' memory is not this machine's: without --memory a task's budget is a fixed one.
+  const shuffleOptions = { ...rest, memory: rest.memory ?? PLAN_DEFAULT_MEMORY } as ShuffleOptions;
   return {
     shuffle: resolveShuffleOptions(surface === 'cli' ? fromCommandLine(shuffleOptions) : shuffleOptions),
     threadsGiven: o.threads !== undefined,

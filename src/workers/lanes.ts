@@ -16,7 +16,11 @@ import { parentPort, Worker, type TransferListItem } from 'node:worker_threads';
 import { fromWire, toWire, RowdeckError, type WireError } from '../errors.js';
 
 type ToWorker<T> = { kind: 'task'; id: number; task: T } | { kind: 'finish' };
-type FromWorker<R, F> = { kind: 'result'; id: number; result: R } | { kind: 'error'; id: number; error: WireError } | { kind: 'final'; final: F };
+type FromWorker<R, F> =
+  | { kind: 'result'; id: number; result: R }
+  | { kind: 'error'; id: number; error: WireError }
+  | { kind: 'final'; final: F }
+  | { kind: 'finalError'; error: WireError };
 
 interface Lane<R, F> {
   worker: Worker;
@@ -60,6 +64,11 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
       worker.on('message', (m: FromWorker<R, F>) => {
         if (m.kind === 'final') {
           lane.final?.(m.final);
+          return;
+        }
+        if (m.kind === 'finalError') {
+          // Finishing failed (a full disk as the last buffers were written, say): as coded as a task's error.
+          lane.finalFail?.(fromWire(m.error));
           return;
         }
         const w = lane.waiting.get(m.id);
@@ -203,8 +212,8 @@ export function serveLane<T, R, F>(
         const { final, transfer } = finisher();
         port.postMessage({ kind: 'final', final } satisfies FromWorker<R, F>, transfer ?? []);
       } catch (err) {
-        // No task is waiting for this: let it surface as the thread's error, which fails finish().
-        throw err;
+        // finish() waits for this: it fails with the error, coded as it was.
+        port.postMessage({ kind: 'finalError', error: toWire(err) } satisfies FromWorker<R, F>);
       }
     }
   });

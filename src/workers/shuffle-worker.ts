@@ -12,7 +12,8 @@
  * and lets its buffers go.
  *
  * Between the stages, in group mode, a task with `census` counts one bucket's groups from its
- * spill files (censusBucket in src/engine/gather.ts).
+ * spill files (censusBucket in src/engine/gather.ts). In either, a task with `splitDir` scatters
+ * a share of a bucket too large to take whole into sub-buckets (src/engine/split.ts).
  *
  * Stage 2 (src/engine/gather-lane.ts): a task with a `bucket` is one bucket to deal; the plan
  * (plan.json in the spill folder) is read with the first. A task with a `partFile` reads a
@@ -28,6 +29,7 @@ import type { GroupTableData } from '../core/group-table.js';
 import { gatherLane, type GatherFinal, type GatherLane } from '../engine/gather-lane.js';
 import type { PartStatsResult, PartStatsTask } from '../engine/part-stats.js';
 import { BlockHost, type BlockReply } from '../io/blocks.js';
+import { splitPieces, type SplitResult, type SplitTask } from '../engine/split.js';
 import { serveLane } from './lanes.js';
 
 const { lane, data } = workerData as { lane: number; data: Omit<ScatterTaskConfig, 'task'> };
@@ -35,8 +37,12 @@ let task: ScatterTask | null = new ScatterTask({ ...data, task: lane });
 let blocks: BlockHost | null = new BlockHost((batch, input) => task!.addBatch(batch, input));
 let gather: GatherLane | null = null;
 
-serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply | SmallInputReply | GatherResult | PartStatsResult | GroupTableData, ScatterTaskResult | GatherFinal>(
+serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask | SplitTask, BlockReply | SmallInputReply | GatherResult | PartStatsResult | GroupTableData | SplitResult, ScatterTaskResult | GatherFinal>(
   (m) => {
+    if ('splitDir' in m) {
+      const r = splitPieces(m);
+      return { result: r, transfer: [r.chunks.buffer as ArrayBuffer, ...(r.counts ? [r.counts.buffer as ArrayBuffer] : [])] };
+    }
     if ('bucket' in m) {
       gather ??= gatherLane(join(data.spillDir, 'plan.json'));
       return gather.handle(m);
@@ -66,8 +72,9 @@ serveLane<ScatterMessage | GatherTask | PartStatsTask | CensusTask, BlockReply |
       const final = task.finish();
       task = null;
       blocks = null;
-      // The counts go over without a copy (thousands of strata: tens of MB a task).
-      return { final, transfer: final.bucketCounts.map((a) => a.buffer as ArrayBuffer) };
+      // The counts and chunk lists go over without a copy (thousands of strata: tens of MB a task).
+      const lists = [final.chunks, ...(final.census ? [final.census.chunks] : [])].map((a) => a.buffer as ArrayBuffer);
+      return { final, transfer: [...final.bucketCounts.map((a) => a.buffer as ArrayBuffer), ...lists] };
     }
     // A lane that dealt no bucket has no statistics to add.
     return gather ? gather.finish() : { final: null };

@@ -5,7 +5,8 @@
 import { runShuffle } from '../../engine/shuffle.js';
 import { SHUFFLE_SPEC, type ShuffleOptions } from '../../options.js';
 import { parseCommandLine } from '../args.js';
-import { SHUFFLE_HELP } from '../help.js';
+import { shuffleHelp } from '../help.js';
+import { defaultMemory } from '../../io/memory-available.js';
 import type { CliIO } from '../main.js';
 import { createProgress } from '../progress.js';
 import { formatShuffleSummary } from '../summary.js';
@@ -13,7 +14,7 @@ import { formatShuffleSummary } from '../summary.js';
 export async function run(argv: string[], io: CliIO): Promise<number> {
   const { options, own } = parseCommandLine(SHUFFLE_SPEC, argv);
   if (own.help) {
-    io.stdout.write(SHUFFLE_HELP);
+    io.stdout.write(shuffleHelp(defaultMemory()));
     return 0;
   }
   const progress = createProgress(io.stderr, !own.quiet);
