@@ -10,10 +10,6 @@ import { renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
-import type { Lanes } from '../workers/lanes.js';
-import type { GroupTableData } from '../core/group-table.js';
-import type { CensusTask } from '../engine/gather.js';
-import type { GatherFinal } from '../engine/gather-lane.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from '../engine/group-census.js';
 import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan, type Worst } from '../engine/plan.js';
 import { partLayout } from '../engine/parts.js';
@@ -21,7 +17,6 @@ import { statsInLanes } from '../engine/part-stats.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
 import type { SpillPiece } from '../engine/spill.js';
-import type { SplitResult, SplitTask } from '../engine/split.js';
 import type { DealSpec } from '../core/deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
@@ -208,7 +203,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
             split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
           },
           join(dir, 'groups-census.bin'),
-          (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task),
+          lanes,
           threads * 2,
           () => {},
         );

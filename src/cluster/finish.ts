@@ -117,16 +117,15 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       } else {
         const lanes = await dealLanes(plan.size.threads, dealDir);
         try {
-          const { InlineLanes } = await import('../workers/lanes.js');
-          const { gatherLane } = await import('../engine/gather-lane.js');
+          const { gatherLane, inlineGatherLanes } = await import('../engine/gather-lane.js');
           const inline = lanes ? null : gatherLane(join(dealDir, 'plan.json'));
-          const run = lanes ?? new InlineLanes((t) => inline!.handle(t as never), () => inline!.finish());
+          const run = lanes ?? inlineGatherLanes(inline!);
           stats = await partStatistics({
             columns: gatherPlan.statsColumns,
             partCount: parts,
             statsInLanes: false,
             excludeValues: o.excludeValues,
-            lanes: run as never,
+            lanes: run,
             inline,
             files: layout.map((part) => join(stage, part.path)),
             headerLength: header?.length ?? 0,

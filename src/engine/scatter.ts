@@ -20,11 +20,12 @@ import { Fingerprint, hashBytes, hashWords3, type Secret } from '../core/hash.js
 import { hashedCell, type DealSpec } from '../core/deal.js';
 import type { RecordReaderOptions } from '../io/reader.js';
 import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
-import { readInputs, readSmallInput, smallFileSize, SmallInputSender, type SmallInputMessage, type SmallInputReply } from '../io/small-inputs.js';
+import { readInputs, readSmallInput, smallFileSize, SmallInputSender } from '../io/small-inputs.js';
 import { readSlice, type InputSlice, type SliceRead } from '../io/slices.js';
-import { blockSizes, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply } from '../io/blocks.js';
+import { blockSizes, readInBlocks } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
+import { scatterFinals, type BatchMessage, type Reply, type ScatterMessage, type ShuffleFinal, type SmallInputMessage, type SmallInputReply } from '../workers/protocol.js';
 import { BucketWriter, QUEUE, spillRanges, type SpillPiece, type SpillStore } from './spill.js';
 import { SpillIndex } from './spill-index.js';
 import { BYTE_KEY_LIMIT, ByteIdTable } from '../core/byte-table.js';
@@ -401,11 +402,11 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
   return ab;
 }
 
-/** Worker lanes that take packed batches (scatter and profile workers). */
+/** Worker lanes that take packed batches (scatter and profile workers); a batch is answered with its buffer, released for reuse. */
 export interface BatchLanes {
   readonly size: number;
-  run(m: { kind: 'batch'; buffer: ArrayBuffer }, transfer: ArrayBuffer[]): Promise<BlockReply>;
-  runOn(lane: number, m: { kind: 'batch'; buffer: ArrayBuffer }, transfer: ArrayBuffer[]): Promise<BlockReply>;
+  run<M extends BatchMessage>(m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
+  runOn<M extends BatchMessage>(lane: number, m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
 }
 
 /**
@@ -436,9 +437,9 @@ export class BatchSender {
   async #post(batch: RecordBatch, input: number, lane: number): Promise<void> {
     while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
     const buffer = packBatch(batch, input, this.#spare.pop());
-    const m = { kind: 'batch', buffer } as const;
+    const m: BatchMessage = { kind: 'batch', buffer };
     const p: Promise<void> = (lane < 0 ? this.#lanes.run(m, [buffer]) : this.#lanes.runOn(lane, m, [buffer]))
-      .then((back) => void (back.kind === 'released' && this.#spare.push(back.buffer)))
+      .then((back) => void this.#spare.push(back.buffer))
       .finally(() => this.#running.delete(p));
     p.catch(() => {});
     this.#running.add(p);
@@ -484,11 +485,13 @@ export function addSmallInput(task: ScatterTask, m: SmallInputMessage): SmallInp
   return readSmallInput(m, (batch) => task.addBatch(batch, m.input));
 }
 
-/** What the main thread sends a scatter worker: a packed batch it read itself, a small input to read, or block work. */
-export type ScatterMessage = { kind: 'batch'; buffer: ArrayBuffer } | SmallInputMessage | BlockMessage;
+export type { ScatterMessage } from '../workers/protocol.js';
 
-/** Lanes that run scatter tasks: one worker each, or the caller's (see `ScatterOptions.lanes`). */
-export type ScatterLanes = WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>;
+/**
+ * Lanes that run scatter tasks (shuffle-worker.ts): one worker each, or the caller's (see
+ * `ScatterOptions.lanes`), which take stage 2's work afterwards.
+ */
+export type ScatterLanes = Pick<WorkerLanes<ScatterMessage, never, ShuffleFinal>, 'size' | 'run' | 'runOn' | 'finish' | 'destroy'>;
 
 /** What every scatter task is told (its lane number aside): the worker data of the scatter lanes. */
 export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 'task'> {
@@ -538,8 +541,8 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
   if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('RDK_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
-  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, BlockReply | SmallInputReply, ScatterTaskResult>(o.workerFile!, tasks, config));
-  const sender = lanes ? new BatchSender(lanes as unknown as BatchLanes) : null;
+  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, never, ShuffleFinal>(o.workerFile!, tasks, config));
+  const sender = lanes ? new BatchSender(lanes) : null;
   const small = lanes && o.onBadRecord === 'fail' && o.inputs.length > 1 ? new SmallInputSender(lanes) : null;
   const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
     takeSchema(sch);
@@ -568,8 +571,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
               path,
               input: k,
               reader: ro,
-              // Block work is answered with block replies (the small-input replies are SmallInputSender's).
-              lanes: lanes as unknown as BlockLanes,
+              lanes,
               ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}),
               sequential: (batch, sch) => send(batch, k, sch),
               onSchema: takeSchema,
@@ -634,7 +636,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
       if (inline) results = [inline.finish()];
       else {
         await sender!.drain();
-        results = await lanes!.finish();
+        results = scatterFinals(await lanes!.finish());
       }
       const censusBits = o.cellKeyInHeader?.censusBits ?? null;
       // The merge adds into the first task's count arrays: the results handed back keep their own.
@@ -667,7 +669,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     if (inline) results = [inline.finish()];
     else {
       await sender!.drain();
-      results = await lanes!.finish();
+      results = scatterFinals(await lanes!.finish());
     }
     const censusBits = o.cellKeyInHeader?.censusBits ?? null;
     return mergeScatterResults(results, schema, inputs, 2 ** o.bits, censusBits === null ? 0 : 2 ** censusBits, o.onRelease);

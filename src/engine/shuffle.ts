@@ -22,16 +22,12 @@ import { writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
 import { cpus, hostname, totalmem } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
-import type { GroupTableData } from '../core/group-table.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import { chooseFormat } from '../io/sniff.js';
 import type { PartWriter } from '../io/part-writer.js';
-import type { Lanes } from '../workers/lanes.js';
 import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
-import type { CensusTask, GatherResult, GatherTask } from './gather.js';
-import type { GatherFinal } from './gather-lane.js';
 import { runGatherStage } from './gather-stage.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from './group-census.js';
 import { buildManifest, type Manifest } from './manifest.js';
@@ -45,7 +41,6 @@ import { SPILL_FILES, spillRanges } from './spill.js';
 import { openMemoryStore, type MemoryStore } from './ram-store.js';
 import { checkFreeSpace } from './disk-space.js';
 import { estimateInputBytes, isStreamInput } from '../io/input.js';
-import type { SplitResult, SplitTask } from './split.js';
 import { groupSizeWarnings, unitSizes } from './size-check.js';
 import { SpreadParts } from './spread-parts.js';
 
@@ -149,7 +144,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
           split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
         },
         join(spillDir, 'groups-census.bin'),
-        lanes ? (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task) : null,
+        lanes,
         Math.max(1, size.threads) * 2,
         progress('plan', records),
       );
@@ -221,7 +216,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       first: 0,
       end: size.buckets,
       rankStart: new Float64Array(plan.strataCount),
-      lanes: lanes as unknown as Lanes<GatherTask, GatherResult, GatherFinal> | null,
+      lanes,
       inFlight: size.inFlight,
       sink: spread ? spreadSink(spread) : writerSink(writers),
       // Buckets are dealt in order: past the last bucket of a range, no task reads its files
