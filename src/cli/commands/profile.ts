@@ -24,7 +24,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     return 0;
   }
   const progress = createProgress(io.stderr, !own.quiet);
-  const opts = options as unknown as ProfileOptions;
+  const opts = options;
   // The shared progress line knows shuffle's stages; 'read'/'bins' print the same way.
   opts.onProgress = (e) => progress.update({ ...e, stage: e.stage as string as ProgressEvent['stage'] });
   let p: Profile;

@@ -51,7 +51,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     io.stdout.write(VERIFY_HELP);
     return 0;
   }
-  const opts = options as unknown as VerifyOptions;
+  const opts = options;
   const dir = opts.dir;
   const progress = createVerifyProgress(io, !v.quiet);
   opts.onProgress = (e) => progress.update(e);
