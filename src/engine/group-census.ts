@@ -1,6 +1,6 @@
 /**
  * The groups of `--group` gathered between the stages: the lanes count each bucket's groups from
- * its spill (censusBucket in gather.ts) and hand back one list a bucket; the table is those lists
+ * its spill (census-bucket.ts) and hand back one list a bucket; the table is those lists
  * joined in bucket order, which is key order (see src/core/group-table.ts). Then the groups are
  * placed, whole, into cells, and the key → cell table is written for stage 2 (groups.bin).
  */
@@ -11,7 +11,7 @@ import { placeGroups } from '../core/balance.js';
 import type { DealSpec } from '../core/deal.js';
 import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
-import { censusBucket } from './gather.js';
+import { censusBucket } from './census-bucket.js';
 import type { SpillPiece } from './spill.js';
 import { splitPieces, SplitSlots, unitsOf, type SplitPolicy } from './split.js';
 import type { CensusLanes, CensusMessage } from '../workers/protocol.js';

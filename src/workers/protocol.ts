@@ -23,7 +23,8 @@ import { RowdeckError } from '../errors.js';
 import type { GroupTableData } from '../core/group-table.js';
 import type { InputSchema, RejectedRecord } from '../io/batch.js';
 import type { RecordReaderOptions } from '../io/reader.js';
-import type { CensusTask, GatherResult, GatherTask } from '../engine/gather.js';
+import type { CensusTask } from '../engine/census-bucket.js';
+import type { GatherResult, GatherTask } from '../engine/gather.js';
 import type { GatherFinal } from '../engine/gather-lane.js';
 import type { PartStatsResult, PartStatsTask } from '../engine/part-stats.js';
 import type { ScatterTaskResult } from '../engine/scatter.js';
@@ -101,7 +102,7 @@ export interface ColumnsMessage {
   map: number[] | null;
 }
 
-/** Group mode, before the plan: count one census bucket's groups (censusBucket in gather.ts). */
+/** Group mode, before the plan: count one census bucket's groups (census-bucket.ts). */
 export type CensusMessage = { kind: 'census' } & CensusTask;
 
 /** Scatter one share of a bucket too large to deal whole into sub-buckets (split.ts). */

@@ -12,7 +12,7 @@
  * thread for reuse. The first `finish` hands over the task's result and lets its buffers go.
  *
  * Between the stages, in group mode, `census` counts one bucket's groups from its spill files
- * (censusBucket in src/engine/gather.ts). In either, `split` scatters a share of a bucket too
+ * (src/engine/census-bucket.ts). In either, `split` scatters a share of a bucket too
  * large to take whole into sub-buckets (src/engine/split.ts).
  *
  * Stage 2 (src/engine/gather-lane.ts): `bucket` is one bucket to deal; the plan (plan.json in the

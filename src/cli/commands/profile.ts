@@ -3,7 +3,7 @@
  * schema and statistics as an aligned table, the class balance of each stratify column as a bar
  * chart, and the warnings; `--json` prints the Profile itself. Progress on stderr (terminals only).
  */
-import { profile, type Profile, type ProfileClass, type ProfileOptions } from '../../engine/profile.js';
+import { profile, type Profile, type ProfileClass } from '../../engine/profile.js';
 import type { ColumnSummary } from '../../core/stats.js';
 import { stratumLabel } from '../../core/strata.js';
 import { PROFILE_SPEC, type ProgressEvent } from '../../options.js';

@@ -3,7 +3,7 @@
  * shuffle's option table), the library's runShuffle(), then the summary on stderr.
  */
 import { runShuffle } from '../../engine/shuffle.js';
-import { SHUFFLE_SPEC, type ShuffleOptions } from '../../options.js';
+import { SHUFFLE_SPEC } from '../../options.js';
 import { parseCommandLine } from '../args.js';
 import { shuffleHelp } from '../help.js';
 import { defaultMemory } from '../../io/memory-available.js';

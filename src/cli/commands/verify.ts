@@ -2,7 +2,7 @@
  * `rowdeck verify DIR [--against INPUT...]`: a thin layer over the library's verify(). The
  * report decides the exit status: 0 when every check holds, 1 with every mismatch on stderr.
  */
-import { verify, type VerifyOptions, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
+import { verify, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
 import { VERIFY_SPEC } from '../../options.js';
 import { parseCommandLine } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
