@@ -22,7 +22,8 @@
  */
 import { join } from 'node:path';
 import { workerData } from 'node:worker_threads';
-import { addSmallInput, ScatterTask, unpackBatch, type ScatterTaskConfig } from '../engine/scatter.js';
+import { addSmallInput, ScatterTask, type ScatterTaskConfig } from '../engine/scatter-task.js';
+import { unpackBatch } from '../engine/scatter.js';
 import { gatherHandlers, gatherLane, type GatherLane } from '../engine/gather-lane.js';
 import { BlockHost } from '../io/blocks.js';
 import { serveLane } from './lanes.js';
