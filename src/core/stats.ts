@@ -188,7 +188,7 @@ export class TableStats {
    * Adds every record of a batch (see addRecord). Column by column: one column's state, table and
    * branches stay hot over the whole batch, and plain fields (most) go straight to the column.
    * `first`: the batch's wanted field that is this table's first column (a table may hold a
-   * share of a wide input's columns, see `columnShare` in src/engine/profile.ts).
+   * share of a wide input's columns, see `columnShare` in src/engine/profile/task.ts).
    */
   addBatch(batch: RecordBatch, first = 0): void {
     const W = batch.wanted;

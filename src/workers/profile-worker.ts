@@ -3,12 +3,12 @@
  * holds its statistics and stratum counts until `finish`. Messages are answered by their kind
  * (protocol.ts): `batch` is a packed batch read by the main thread, `columns` an input's column
  * map, `small` a small input to read here, and `block`, `recheck`, `commit`, `drop` block work
- * (src/io/blocks.ts): this thread parses a block of the input itself. See src/engine/profile.ts
+ * (src/io/blocks.ts): this thread parses a block of the input itself. See src/engine/profile/read.ts
  * for the flow.
  */
 import { workerData } from 'node:worker_threads';
-import { ProfileTask, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile.js';
-import { unpackBatch } from '../engine/scatter.js';
+import { ProfileTask, type ProfileTaskConfig, type ProfileTaskResult } from '../engine/profile/task.js';
+import { unpackBatch } from '../io/packed-batches.js';
 import { BlockHost } from '../io/blocks.js';
 import { readSmallInput } from '../io/small-inputs.js';
 import { serveLane } from './lanes.js';

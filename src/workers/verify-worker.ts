@@ -1,10 +1,10 @@
 /**
  * Worker entry for `verify`: reads whole parts (sha256, records, classes, folds, fingerprints,
  * column statistics) while other threads read others. The manifest arrives once, as
- * workerData; each task is one part. See src/engine/verify.ts.
+ * workerData; each task is one part. See src/engine/verify.ts and src/engine/verify/scan-parts.ts.
  */
 import { workerData } from 'node:worker_threads';
-import { partStatsGatherFor, scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify.js';
+import { partStatsGatherFor, scanPartTask, type SerializedPartScan, type VerifyPartTask } from '../engine/verify/scan-parts.js';
 import type { Manifest } from '../engine/manifest.js';
 import type { SerializedStats } from '../core/stats.js';
 import { serveLane } from './lanes.js';
