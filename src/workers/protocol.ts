@@ -14,6 +14,7 @@
  *   split                 unitsOf (split.ts)                        SplitResult
  *   bucket                runGatherStage (gather-stage.ts)          GatherResult
  *   partStats             partStatistics (parts.ts)                 PartStatsResult
+ *   part                  verify's part scan (verify/scan-parts.ts) SerializedPartScan
  *
  * A lane's `finish` gets what the worker kept; the shuffle's threads finish twice, and say which
  * stage they finished (`ShuffleFinal`). The envelope that carries these (ids, errors) is lanes.ts's.
@@ -29,6 +30,7 @@ import type { GatherFinal } from '../engine/gather-lane.js';
 import type { PartStatsResult, PartStatsTask } from '../engine/part-stats.js';
 import type { ScatterTaskResult } from '../engine/scatter.js';
 import type { SplitResult, SplitTask } from '../engine/split.js';
+import type { SerializedPartScan, VerifyPartTask } from '../engine/verify/scan-parts.js';
 import type { Lanes, WorkerLanes } from './lanes.js';
 
 // --- messages to a lane ----------------------------------------------------------------------
@@ -157,6 +159,7 @@ export interface Replies {
   split: SplitResult;
   bucket: GatherResult;
   partStats: PartStatsResult;
+  part: SerializedPartScan;
 }
 
 export type Kind = keyof Replies;
@@ -196,6 +199,9 @@ export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartS
 
 /** Everything shuffle-worker.ts takes. */
 export type ShuffleMessage = ScatterMessage | GatherMessage;
+
+/** Everything verify-worker.ts takes: one part to read. */
+export type VerifyMessage = VerifyPartTask;
 
 /** Everything profile-worker.ts takes. */
 export type ProfileMessage = ColumnsMessage | BatchMessage | SmallInputMessage | BlockMessage;
