@@ -32,8 +32,7 @@ import { runGatherStage } from './gather-stage.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from './group-census.js';
 import { buildManifest, type Manifest } from './manifest.js';
 import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
-import { statsInLanes } from './part-stats.js';
-import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan } from './plan.js';
+import { buildGatherPlan, checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation } from './plan.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -170,31 +169,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         o.onNotice?.(w);
       }
     }
-    const plan: GatherPlan = {
-      version: 1,
-      bits: size.bits,
-      buckets: size.buckets,
-      scatterTasks: sc.taskStrata.length,
-      format,
-      delimiter: sc.schema.delimiter,
-      lineEnding: sc.schema.lineEnding,
-      mode: o.assign,
-      order: o.order,
-      cellKeyInHeader: scattered.cellKeyInHeader,
-      deal,
-      foldColumn: o.foldColumn,
-      strataCount: d.strataKeys.length,
-      localToGlobal: d.taskToDealing,
-      quota: Array.from(table.quota),
-      cumQuota: Array.from(table.cumQuota),
-      offset: Array.from(table.offset),
-      cellSecret: Array.from(secrets.cellSecret),
-      rankSecret: Array.from(secrets.rankSecret),
-      ...groupLookup,
-      statsColumns: o.stats ? sc.schema.columns : [],
-      statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, parts, size.threads, o.memory),
-      excludeValues: o.excludeValues,
-    };
+    const plan = buildGatherPlan({ o, format: format, size: size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: scattered.cellKeyInHeader, deal, dealing: d, table, secrets, groupLookup });
     const planPath = join(spillDir, 'plan.json');
     writeFileSync(planPath, JSON.stringify(plan));
     timings.planMs = Date.now() - tPlan;
