@@ -11,7 +11,8 @@ import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { BlockHost, readInBlocks, type BlockLanes, type BlockMessage, type BlockReply, type InputTotals } from '../src/io/blocks.js';
+import { BlockHost, readInBlocks, type BlockLanes, type BlockMessage, type InputTotals } from '../src/io/blocks.js';
+import type { Reply } from '../src/workers/protocol.js';
 import type { RecordBatch, RejectedRecord } from '../src/io/batch.js';
 import type { RecordReaderOptions } from '../src/io/reader.js';
 import { collect, readAll, type ReadResult } from './reader.helpers.js';
@@ -37,13 +38,14 @@ class LocalLanes implements BlockLanes {
     this.#rng = rng;
   }
 
-  runOn(lane: number, m: BlockMessage, transfer: ArrayBuffer[] = []): Promise<BlockReply> {
+  runOn<M extends BlockMessage>(lane: number, m: M, transfer: ArrayBuffer[] = []): Promise<Reply<M, unknown>> {
     const ticks = Math.floor(this.#rng() * 4);
     const sent = structuredClone(m, { transfer });
     const run = this.#queues[lane]!.then(async () => {
       for (let t = 0; t < ticks; t++) await new Promise((r) => setImmediate(r));
       const reply = this.#hosts[lane]!.handle(sent);
-      return structuredClone(reply.result, { transfer: reply.transfer ?? [] });
+      // BlockHost answers each kind with its reply (workers/protocol.ts), as a worker would.
+      return structuredClone<unknown>(reply.result, { transfer: reply.transfer ?? [] }) as Reply<M, unknown>;
     });
     this.#queues[lane] = run.catch(() => {});
     return run;

@@ -1,6 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import seedrandom from 'seedrandom';
-import { computeMeanVariance, DecimalSums, ExactMoments, ExactSum, roundRatio, toFraction } from '../src/core/exact-sum.js';
+import { computeMeanVariance, DecimalSums } from '../src/core/decimal-sums.js';
+import { ExactMoments, ExactSum, roundRatio, toFraction } from '../src/core/exact-sum.js';
 
 // Reference arithmetic: every double is an integer multiple of 2^-1074, so scaling by 2^K with a
 // large K turns sums and products into exact BigInt arithmetic. BigInt -> Number conversion is

@@ -9,9 +9,12 @@
 import { RowdeckError } from '../errors.js';
 import { checkerFor, commandName, fromCommandLine, spellOption, unknownOption, type CommandSpec, type OptionDef } from '../options.js';
 
-export interface CommandLine {
-  /** The library's options, marked as the command line's (see fromCommandLine). */
-  options: Record<string, unknown>;
+export interface CommandLine<O> {
+  /**
+   * The library's options, marked as the command line's (see fromCommandLine): values of the
+   * library's types, checked by the library's resolver they are passed to.
+   */
+  options: O;
   /** The command line's own options (--json, --quiet, --html FILE, --help): true or their text. */
   own: Record<string, string | true>;
 }
@@ -24,7 +27,7 @@ type Flag =
   | { kind: 'library'; key: string; def: OptionDef<unknown>; arg: string | undefined; multiple: boolean; negated: boolean }
   | { kind: 'own'; own: string; arg: string | undefined };
 
-export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): CommandLine {
+export function parseCommandLine<O>(spec: CommandSpec<O>, argv: readonly string[]): CommandLine<O> {
   const flags = new Map<string, Flag>();
   let positional: { key: string; many: boolean } | null = null;
   for (const [key, def] of Object.entries(spec.table)) {
@@ -103,6 +106,7 @@ export function parseCommandLine(spec: CommandSpec, argv: readonly string[]): Co
     }
     options[positional.key] = positional.many ? positionals : positionals[0]!;
   }
-  return { options: fromCommandLine(options), own };
+  // Keys of the table only, each value of its option's type (fromText) or the text the library's check reads.
+  return { options: fromCommandLine(options) as O, own };
 }
 

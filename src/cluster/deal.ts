@@ -10,18 +10,12 @@ import { renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
-import type { Lanes } from '../workers/lanes.js';
-import type { GroupTableData } from '../core/group-table.js';
-import type { CensusTask } from '../engine/gather.js';
-import type { GatherFinal } from '../engine/gather-lane.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from '../engine/group-census.js';
-import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan, type Worst } from '../engine/plan.js';
+import { buildGatherPlan, checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type Worst } from '../engine/plan.js';
 import { partLayout } from '../engine/parts.js';
-import { statsInLanes } from '../engine/part-stats.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
 import type { SpillPiece } from '../engine/spill.js';
-import type { SplitResult, SplitTask } from '../engine/split.js';
 import type { DealSpec } from '../core/deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
@@ -208,7 +202,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
             split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
           },
           join(dir, 'groups-census.bin'),
-          (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task),
+          lanes,
           threads * 2,
           () => {},
         );
@@ -222,31 +216,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     const layout = partLayout(o, plan.format);
     const worst = worstDeviation(cellCounts, deal, d.strataSizes);
     checkTolerance(o, worst, d, layout.map((p) => p.path), deal, records);
-    const gatherPlan: GatherPlan = {
-      version: 1,
-      bits: plan.size.bits,
-      buckets: plan.size.buckets,
-      scatterTasks: sc.taskStrata.length,
-      format: plan.format,
-      delimiter: sc.schema.delimiter,
-      lineEnding: sc.schema.lineEnding,
-      mode: o.assign,
-      order: o.order,
-      cellKeyInHeader,
-      deal,
-      foldColumn: o.foldColumn,
-      strataCount: d.strataKeys.length,
-      localToGlobal: d.taskToDealing,
-      quota: Array.from(table.quota),
-      cumQuota: Array.from(table.cumQuota),
-      offset: Array.from(table.offset),
-      cellSecret: Array.from(secrets.cellSecret),
-      rankSecret: Array.from(secrets.rankSecret),
-      ...groupLookup,
-      statsColumns: o.stats ? sc.schema.columns : [],
-      statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, parts, plan.size.threads, o.memory),
-      excludeValues: o.excludeValues,
-    };
+    const gatherPlan = buildGatherPlan({ o, format: plan.format, size: plan.size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: cellKeyInHeader, deal, dealing: d, table, secrets, groupLookup });
     writeFileSync(join(dir, 'plan.json'), JSON.stringify(gatherPlan));
     // Each gather task's share: the ranks its first bucket starts at, its buckets' counts and pieces.
     const S = d.strataKeys.length;

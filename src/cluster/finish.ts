@@ -37,17 +37,19 @@ export interface FinishOptions {
 /** Every task's done record, or an error naming the missing and failed ones with the commands that run them. */
 function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; gather: GatherDone[] } {
   const problems: string[] = [];
-  const take = <T extends DoneRecord>(stage: 'scatter' | 'deal' | 'gather', count: number): T[] =>
+  const take = <T extends DoneRecord>(stage: 'scatter' | 'deal' | 'gather', count: number): (T | null)[] =>
     Array.from({ length: count }, (_, i) => {
       const d = readDone<T>(plan.work, stage, i);
       if (d && d.planId === plan.planId) return d;
       const failed = readFailed(plan.work, stage, i);
       const why = d ? 'written for another plan' : failed ? `failed on ${failed.host}: ${failed.error.message}` : 'missing';
       problems.push(`${stage} task ${i} ${why}; run: ${taskCommand(plan, stage, i)}`);
-      return null as unknown as T;
+      return null;
     });
+  // Past the check below, every record is there (a missing one is a problem listed).
+  const present = <T>(records: (T | null)[]): T[] => records.filter((r): r is T => r !== null);
   const scatter = take<ScatterDone>('scatter', plan.scatter.length);
-  const deal = take<DealDone>('deal', 1)[0]!;
+  const deal = take<DealDone>('deal', 1);
   const gather = take<GatherDone>('gather', plan.gather.length);
   if (problems.length > 0) {
     throw new RowdeckError(
@@ -56,7 +58,7 @@ function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; g
       { tasks: problems.length },
     );
   }
-  return { scatter, deal, gather };
+  return { scatter: present(scatter), deal: present(deal)[0]!, gather: present(gather) };
 }
 
 /** Appends a file to a part, a MiB at a time. */
@@ -117,16 +119,15 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       } else {
         const lanes = await dealLanes(plan.size.threads, dealDir);
         try {
-          const { InlineLanes } = await import('../workers/lanes.js');
-          const { gatherLane } = await import('../engine/gather-lane.js');
+          const { gatherLane, inlineGatherLanes } = await import('../engine/gather-lane.js');
           const inline = lanes ? null : gatherLane(join(dealDir, 'plan.json'));
-          const run = lanes ?? new InlineLanes((t) => inline!.handle(t as never), () => inline!.finish());
+          const run = lanes ?? inlineGatherLanes(inline!);
           stats = await partStatistics({
             columns: gatherPlan.statsColumns,
             partCount: parts,
             statsInLanes: false,
             excludeValues: o.excludeValues,
-            lanes: run as never,
+            lanes: run,
             inline,
             files: layout.map((part) => join(stage, part.path)),
             headerLength: header?.length ?? 0,

@@ -17,6 +17,7 @@ import { SpreadParts, type SpreadChunk } from '../engine/spread-parts.js';
 import { spreadSink } from '../engine/parts.js';
 import { taskCommand } from './commands.js';
 import { dealLanes } from './lanes.js';
+import { gatherFinals } from '../workers/protocol.js';
 import { gatherShareFile, type GatherShare } from './deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { decodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
@@ -96,11 +97,11 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
       rmSync(join(dir, 'splits'), { recursive: true, force: true });
       const partBytes: number[] = [];
       for (const w of writers) partBytes.push((await w.close()).bytes);
-      const finals = await gathered.lanes.finish();
+      const finals = gatherFinals(await gathered.lanes.finish());
       let stats: SerializedStats[] | null = null;
       if (gatherPlan.statsInLanes) {
         // Every lane's tables of every part, as plain data; finish merges them (exactly, in any order).
-        const perLane = finals.filter((f): f is { parts: SerializedStats[] } => f !== null && 'parts' in f);
+        const perLane = finals.filter((f) => f?.kind === 'parts');
         stats = perLane.length > 0 ? perLane.flatMap((f) => f.parts) : [];
       }
       await gathered.lanes.destroy();

@@ -4,7 +4,8 @@
  * summary, and the serialised form. And the hash every value is added by (hashKey).
  */
 
-import { computeMeanVariance, DecimalSums, ExactMoments } from './exact-sum.js';
+import { computeMeanVariance, DecimalSums } from './decimal-sums.js';
+import { ExactMoments } from './exact-sum.js';
 import type { SlotFigures } from './stats-kernel.js';
 import type { ColumnSummary, ColumnType, SerializedColumn, SerializedExactColumn, ValueCount } from './stats-types.js';
 import { compareBytes, decodeUtf8, loadWord, ORDER_KEY_ZERO, orderKey } from './value-bytes.js';

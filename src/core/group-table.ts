@@ -5,7 +5,7 @@
  * and the placement had each made their own (3.7 GiB for the 2.15 M groups of a 200 MB file).
  *
  * The groups are counted bucket by bucket from the spill between the stages (censusBucket in
- * src/engine/gather.ts): a group's records share its key, so they lie in one bucket, and the
+ * src/engine/census-bucket.ts): a group's records share its key, so they lie in one bucket, and the
  * buckets' lists, each in key order, are joined here in bucket order, which is key order.
  *
  * A group's records are usually of one class (the stratify column seldom varies within a

@@ -3,7 +3,8 @@
  * profile or manifest shows it, and the serialised form that goes between threads and runs.
  */
 
-import type { SerializedDecimals, SerializedMoments } from './exact-sum.js';
+import type { SerializedDecimals } from './decimal-sums.js';
+import type { SerializedMoments } from './exact-sum.js';
 
 export interface StatsOptions {
   /** Distinct values counted exactly (with their counts) before switching to an estimate. Default 1000. */

@@ -8,16 +8,20 @@ import { closeSync, openSync, readFileSync, readSync } from 'node:fs';
 import { ioError, RowdeckError } from '../errors.js';
 import { dirname, join } from 'node:path';
 import { TableStats, type SerializedStats } from '../core/stats.js';
+import { censusBucket } from './census-bucket.js';
 import { gatherBucket, preparePlan, type GatherResult, type GatherTask, type BucketGroups, type GroupRows, type PreparedPlan } from './gather.js';
 import { PartStatsGather, statsOfPartFile, type PartStatsResult, type PartStatsTask } from './part-stats.js';
 import type { GatherPlan } from './plan.js';
+import { splitPieces } from './split.js';
+import { InlineLanes, type Lanes } from '../workers/lanes.js';
+import { byKind, type GatherMessage, type HandlerTable, type ShuffleFinal } from '../workers/protocol.js';
 
 /**
  * What a lane hands over at the end of stage 2 with `--stats`: every part's statistics over the
  * buckets it dealt (where the lanes keep them), or its table of the parts it read back (merged
  * as it read them); null without --stats.
  */
-export type GatherFinal = { parts: SerializedStats[] } | { readBack: SerializedStats } | null;
+export type GatherFinal = { kind: 'parts'; parts: SerializedStats[] } | { kind: 'readBack'; readBack: SerializedStats } | null;
 
 export function loadGatherPlan(planPath: string): PreparedPlan {
   const plan = JSON.parse(readFileSync(planPath, 'utf8')) as GatherPlan;
@@ -116,6 +120,31 @@ export function gatherLane(planPath: string): GatherLane {
       const t = await statsOfPartFile(plan, task, readBack.take());
       return { result: { summary: readBack.done(t, task.excludeValues) } };
     },
-    finish: () => ({ final: stats ? { parts: stats.map((t) => t.toTransfer()) } : readBack ? { readBack: readBack.whole.toTransfer() } : null }),
+    finish: () => ({ final: stats ? { kind: 'parts', parts: stats.map((t) => t.toTransfer()) } : readBack ? { kind: 'readBack', readBack: readBack.whole.toTransfer() } : null }),
   };
+}
+
+/**
+ * The handlers of the work after stage 1 (protocol.ts's GatherMessage), for shuffle-worker.ts's
+ * table and for lanes on the calling thread. `lane()`: the stage 2 lane, made when first needed
+ * (it reads the plan, which does not exist while groups are counted).
+ */
+export function gatherHandlers(lane: () => GatherLane): HandlerTable<GatherMessage> {
+  return {
+    census: (m) => {
+      const g = censusBucket(m);
+      return { result: g, transfer: [g.hi, g.lo, g.records, g.first, g.extra].map((a) => a.buffer as ArrayBuffer) };
+    },
+    split: (m) => {
+      const r = splitPieces(m);
+      return { result: r, transfer: [r.chunks.buffer as ArrayBuffer, ...(r.counts ? [r.counts.buffer as ArrayBuffer] : [])] };
+    },
+    bucket: (m) => lane().handle(m),
+    partStats: (m) => lane().partStats(m),
+  };
+}
+
+/** Stage 2 on the calling thread: one lane with the worker lanes' interface (see InlineLanes). */
+export function inlineGatherLanes(lane: GatherLane): Lanes<GatherMessage, never, ShuffleFinal> {
+  return new InlineLanes<GatherMessage, never, ShuffleFinal>(byKind(gatherHandlers(() => lane)), () => ({ final: { kind: 'gathered', final: lane.finish().final } }));
 }

@@ -8,12 +8,12 @@
  */
 import { Fingerprint } from '../core/hash.js';
 import { RowdeckError } from '../errors.js';
-import { InlineLanes, type Lanes } from '../workers/lanes.js';
-import { addCounts, type GatherResult, type GatherTask } from './gather.js';
-import { gatherLane, type GatherFinal, type GatherLane } from './gather-lane.js';
+import type { GatherLanes, BucketMessage } from '../workers/protocol.js';
+import { addCounts, type GatherResult } from './gather.js';
+import { gatherLane, inlineGatherLanes, type GatherLane } from './gather-lane.js';
 import { partCount, type GatherPlan } from './plan.js';
 import type { SpillPiece } from './spill.js';
-import { splitPieces, SplitSlots, unitsOf, type GatherUnit, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
+import { SplitSlots, unitsOf, type GatherUnit, type SplitPolicy } from './split.js';
 
 /** Takes each bucket's result, in bucket order; the result's buffers go back to the lanes afterwards. */
 export interface GatherSink {
@@ -33,7 +33,7 @@ export interface GatherStageInput {
   /** Each stratum's rank at bucket `first` (the sum of its counts in the buckets before). */
   rankStart: Float64Array;
   /** The worker lanes, or null to deal on this thread. */
-  lanes: Lanes<GatherTask, GatherResult, GatherFinal> | null;
+  lanes: GatherLanes | null;
   /** Buckets dealt at once. */
   inFlight: number;
   sink: GatherSink;
@@ -55,7 +55,7 @@ export interface GatherStage {
   /** With ROWDECK_PHASES=1: milliseconds per phase of gatherBucket, summed. */
   phases: number[];
   /** The lanes the buckets were dealt on (the inline one when there were no workers): the caller finishes them. */
-  lanes: Lanes<GatherTask, GatherResult, GatherFinal>;
+  lanes: GatherLanes;
   /** The inline lane, when the calling thread dealt. */
   inline: GatherLane | null;
   /** Buckets split before they were dealt. */
@@ -71,7 +71,7 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   if (!lanes) {
     const lane = gatherLane(i.planPath);
     inline = lane;
-    lanes = new InlineLanes<GatherTask, GatherResult, GatherFinal>((t) => ('splitDir' in t ? { result: splitPieces(t as unknown as SplitTask) as unknown as GatherResult } : lane.handle(t)), () => lane.finish());
+    lanes = inlineGatherLanes(lane);
   }
   const run = lanes;
   const counts = new Float64Array(parts * K * plan.strataCount);
@@ -88,7 +88,7 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
         shares: run.size,
         strata: plan.localToGlobal,
         strataCount: plan.strataCount,
-        run: (t) => run.run(t as unknown as GatherTask) as unknown as Promise<SplitResult>,
+        run: (t) => run.run(t),
         onSplit: () => {
           splits++;
           i.split!.onSplit?.();
@@ -130,10 +130,10 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
     return start;
   };
   const pending: { unit: GatherUnit; result: Promise<GatherResult> }[] = [];
-  // Output buffers come back from the workers and are handed out again (see GatherTask.arena).
+  // Output buffers come back from the workers and are handed out again (see GatherTask.arena in gather.ts).
   const spare: ArrayBuffer[] = [];
   const submit = (u: GatherUnit): void => {
-    const task: GatherTask = { bucket: u.bucket, pieces: u.pieces, rankStart: rankStartOf(u) };
+    const task: BucketMessage = { kind: 'bucket', bucket: u.bucket, pieces: u.pieces, rankStart: rankStartOf(u) };
     if (u.shared !== plan.bits) task.shared = u.shared;
     const arena = spare.pop();
     if (arena) task.arena = arena;

@@ -3,18 +3,16 @@
  * cell from its stratum rank, and lay out each part's slice of output bytes. Pure apart from
  * reading the spill files, so a worker thread, a process or another machine can run it.
  */
-import { closeSync, openSync, readSync } from 'node:fs';
 import { buildDealTable, cellOf, hashedCell, stratumPermutations, type DealTable } from '../core/deal.js';
 import { permuteRanks } from '../core/permute.js';
 import { Fingerprint } from '../core/hash.js';
-import { sortByKey, type SortKeys } from '../core/sort.js';
-import { ioError } from '../errors.js';
+import { sortByKey } from '../core/sort.js';
 import type { TableStats } from '../core/stats.js';
 import { partCount, type GatherPlan } from './plan.js';
 import { HEADER_BYTES, HEADER_WORDS, type SpillPiece } from './spill.js';
 import { gatherKernel } from './gather-kernel.js';
 import { partReader } from './part-stats.js';
-import type { GroupTableData } from '../core/group-table.js';
+import { indexSpill, readPieces, scratch, scratch64, sortKeysOf, type BucketIndex } from './bucket-index.js';
 import { flags } from '../flags.js';
 
 export interface GatherTask {
@@ -317,141 +315,6 @@ function unitSizes(order: Uint32Array, n: number, layoutCell: Uint32Array, K: nu
   return { sizes, records };
 }
 
-interface BucketIndex {
-  u32: Uint32Array;
-  /** Word index of each record's header. */
-  at: Uint32Array;
-  keyHi: Uint32Array;
-  keyLo: Uint32Array;
-  /** Content length << 2 | terminator. */
-  lenTerm: Uint32Array;
-  /** Dealing stratum. */
-  stratum: Uint32Array;
-  count: number;
-}
-
-/**
- * The index of a bucket's spill bytes (its pieces read one after another into `bytes`): each
- * record's header, key, length and stratum, mapped by its scatter task's `strata` (a piece of
- * task -1 holds dealing strata already). Chunks are whole records.
- */
-function indexSpill(bytes: Uint8Array, spillBytes: number, pieces: SpillPiece[], strata: number[][]): BucketIndex {
-  const maxRecords = Math.floor(spillBytes / HEADER_BYTES);
-  const ix: BucketIndex = {
-    u32: new Uint32Array(bytes.buffer, bytes.byteOffset, spillBytes >>> 2),
-    at: scratch(0, maxRecords),
-    keyHi: scratch(1, maxRecords),
-    keyLo: scratch(2, maxRecords),
-    lenTerm: scratch(3, maxRecords),
-    stratum: scratch(4, maxRecords),
-    count: 0,
-  };
-  const pieceEnds: number[] = [];
-  let end = 0;
-  for (const p of pieces) pieceEnds.push((end += p.length));
-  indexBucket(ix, pieceEnds, pieces.map((p) => (p.task < 0 ? null : strata[p.task]!)));
-  return ix;
-}
-
-function indexBucket(ix: BucketIndex, pieceEnds: number[], pieceStrata: (number[] | null)[]): void {
-  const { u32, at, keyHi, keyLo, lenTerm, stratum } = ix;
-  let n = 0;
-  let w = 0;
-  let maps: Map<number[], Int32Array> | null = null;
-  for (let t = 0; t < pieceEnds.length; t++) {
-    const wordEnd = pieceEnds[t]! >>> 2;
-    const given = pieceStrata[t]!;
-    if (given === null) {
-      // Dealing strata already (a split bucket's records).
-      while (w < wordEnd) {
-        const lt = u32[w + 5]!;
-        at[n] = w;
-        keyHi[n] = u32[w]!;
-        keyLo[n] = u32[w + 1]!;
-        stratum[n] = u32[w + 4]!;
-        lenTerm[n] = lt;
-        n++;
-        w += HEADER_WORDS + (((lt >>> 2) + 3) >>> 2);
-      }
-      continue;
-    }
-    // Many pieces of one task share its map: made once a bucket.
-    maps ??= new Map();
-    let map = maps.get(given);
-    if (!map) maps.set(given, (map = Int32Array.from(given)));
-    while (w < wordEnd) {
-      const lt = u32[w + 5]!;
-      at[n] = w;
-      keyHi[n] = u32[w]!;
-      keyLo[n] = u32[w + 1]!;
-      stratum[n] = map[u32[w + 4]!]!;
-      lenTerm[n] = lt;
-      n++;
-      w += HEADER_WORDS + (((lt >>> 2) + 3) >>> 2);
-    }
-  }
-  ix.count = n;
-}
-
-/** Group mode, before the plan: one bucket's groups, counted from its spill files. */
-export interface CensusTask {
-  census: number;
-  pieces: SpillPiece[];
-  /** Per scatter task: its stratum ids -> dealing stratum ids. */
-  strata: number[][];
-  /** Key bits that select the bucket (all its keys share them). */
-  bits: number;
-}
-
-/**
- * The groups of one bucket, in key order, with their records and classes. Every record of a
- * group has the group's key, and so lies in the bucket of that key: counting bucket by bucket
- * needs no table of all the groups while stage 1 reads (one took ~1 µs a record and 2 tables of
- * every group at 10 M groups). The bucket's records are sorted by key, as stage 2 sorts them, and
- * each run of one key is a group; its first class is that of its first record in (input,
- * offset) order.
- */
-export function censusBucket(task: CensusTask): GroupTableData {
-  const spillBytes = task.pieces.reduce((a, p) => a + p.length, 0);
-  const bytes = new Uint8Array(spillBytes);
-  readPieces(task.pieces, bytes);
-  const ix = indexSpill(bytes, spillBytes, task.pieces, task.strata);
-  const { u32, at, keyHi, keyLo, stratum } = ix;
-  const n = ix.count;
-  const order = sortByKey(sortKeysOf(ix, bytes, false), n, task.bits);
-  let groups = 0;
-  for (let k = 0; k < n; k++) {
-    const i = order[k]!;
-    if (k === 0 || keyHi[i] !== keyHi[order[k - 1]!] || keyLo[i] !== keyLo[order[k - 1]!]) groups++;
-  }
-  const out: GroupTableData = { count: groups, hi: new Uint32Array(groups), lo: new Uint32Array(groups), records: new Float64Array(groups), first: new Int32Array(groups), extra: new Float64Array(0) };
-  const extra: number[] = [];
-  let g = -1;
-  let others: Map<number, number> | null = null;
-  const flush = (): void => {
-    if (others) for (const [s, c] of others) extra.push(g, s, c);
-    others = null;
-  };
-  for (let k = 0; k < n; k++) {
-    const i = order[k]!;
-    const s = stratum[i]!;
-    if (k === 0 || keyHi[i] !== out.hi[g] || keyLo[i] !== out.lo[g]) {
-      flush();
-      g++;
-      out.hi[g] = keyHi[i]!;
-      out.lo[g] = keyLo[i]!;
-      out.first[g] = s;
-    } else if (s !== out.first[g]) {
-      others ??= new Map();
-      others.set(s, (others.get(s) ?? 0) + 1);
-    }
-    out.records[g]!++;
-  }
-  flush();
-  out.extra = Float64Array.from(extra);
-  return out;
-}
-
 /** Exact dealing: rank within stratum -> dealing position π(rank) -> split block -> position in the split's cycle -> cell. */
 function dealExact(order: Uint32Array, n: number, stratum: Uint32Array, seen: Float64Array, table: DealTable, cellOfRec: Uint32Array): void {
   const { partitions: P, folds: K } = table.spec;
@@ -632,79 +495,6 @@ function fingerprintParts(ix: BucketIndex, n: number, cellOfRec: Uint32Array, K:
   for (let i = 0; i < n; i++) fps[(cellOfRec[i]! / K) | 0]!.addAligned(u32, at[i]! + HEADER_WORDS, lenTerm[i]! >>> 2);
 }
 
-/**
- * Reads every piece (chunks of spill files or slabs of memory) into `bytes`, one after another.
- * Pieces that lie end to end in one file are read with one call.
- */
-export function readPieces(pieces: SpillPiece[], bytes: Uint8Array): void {
-  let at = 0;
-  let fd = -1;
-  let open = '';
-  try {
-    for (let k = 0; k < pieces.length; k++) {
-      const p = pieces[k]!;
-      if (p.memory) {
-        bytes.set(new Uint8Array(p.memory, p.offset, p.length), at);
-        at += p.length;
-        continue;
-      }
-      // Join the next pieces of the same file that follow on without a gap.
-      let length = p.length;
-      while (k + 1 < pieces.length && !pieces[k + 1]!.memory && pieces[k + 1]!.path === p.path && pieces[k + 1]!.fd === p.fd && pieces[k + 1]!.offset === p.offset + length) length += pieces[++k]!.length;
-      if (p.fd !== undefined) {
-        // A file in memory, open for the whole run (see ram-store.ts).
-        open = 'a file in memory';
-        for (let got = 0; got < length; ) {
-          const r = readSync(p.fd, bytes, at + got, length - got, p.offset + got);
-          if (r === 0) throw new Error(`file in memory ends early at ${p.offset + got}`);
-          got += r;
-        }
-        at += length;
-        continue;
-      }
-      if (p.path !== open) {
-        if (fd >= 0) closeSync(fd);
-        fd = -1;
-        fd = openSync(p.path, 'r');
-        open = p.path;
-      }
-      let got = 0;
-      while (got < length) {
-        const r = readSync(fd, bytes, at + got, length - got, p.offset + got);
-        if (r === 0) throw new Error(`spill file ends early at ${p.offset + got}`);
-        got += r;
-      }
-      at += length;
-    }
-  } catch (err) {
-    throw ioError(err, open, 'reading a spill file');
-  } finally {
-    if (fd >= 0) closeSync(fd);
-  }
-}
-
-// Per-record arrays reused from bucket to bucket: a worker deals one bucket after another, and
-// fresh arrays each time cost page faults and collector work.
-// The Float64 ones hold the sparse counts' lists and table (countEntries copies out what it returns).
-const SCRATCH: Uint32Array[] = [];
-const SCRATCH64: Float64Array[] = [];
-
-function reuse<T extends Uint32Array | Float64Array>(pool: T[], k: number, count: number, make: (n: number) => T): T {
-  const have = pool[k];
-  if (have && have.length >= count) return have.subarray(0, count) as T;
-  const a = make(Math.ceil(count * 1.25) + 16);
-  pool[k] = a;
-  return a.subarray(0, count) as T;
-}
-
-function scratch(k: number, count: number): Uint32Array {
-  return reuse(SCRATCH, k, count, (n) => new Uint32Array(n));
-}
-
-function scratch64(k: number, count: number): Float64Array {
-  return reuse(SCRATCH64, k, count, (n) => new Float64Array(n));
-}
-
 /** True when the JSON record in bytes [s, s+len) is `{}` (with optional blanks). */
 function isEmptyObject(bytes: Uint8Array, s: number, len: number): boolean {
   let close = s + len - 1;
@@ -712,30 +502,4 @@ function isEmptyObject(bytes: Uint8Array, s: number, len: number): boolean {
   let prev = close - 1;
   while (prev > s && (bytes[prev] === 0x20 || bytes[prev] === 0x09)) prev--;
   return bytes[prev] === 0x7b;
-}
-
-/**
- * How a bucket's records are ordered: by key, then identity. Where the identity words hold the
- * cell's hash instead (GatherPlan.cellKeyInHeader), two records can tie on both (a collision of
- * the 64-bit identity hash within one group or key): their bytes decide, and records whose
- * bytes are equal too are interchangeable, so the output does not depend on which came first.
- */
-function sortKeysOf(ix: BucketIndex, bytes: Uint8Array, cellKeyInHeader: boolean): SortKeys {
-  const { u32, at, keyHi, keyLo, lenTerm } = ix;
-  const keys: SortKeys = { keyHi, keyLo, identity: (i) => identityOf(u32, at[i]!) };
-  if (cellKeyInHeader) {
-    keys.tie = (a, b) => {
-      const la = lenTerm[a]! >>> 2;
-      const lb = lenTerm[b]! >>> 2;
-      const sa = at[a]! * 4 + HEADER_BYTES;
-      const sb = at[b]! * 4 + HEADER_BYTES;
-      return Buffer.compare(bytes.subarray(sa, sa + la), bytes.subarray(sb, sb + lb));
-    };
-  }
-  return keys;
-}
-
-/** (input ordinal, byte offset) of the record whose header starts at word `w`. */
-function identityOf(u32: Uint32Array, w: number): [number, number] {
-  return [u32[w + 3]! & 0xffff, (u32[w + 3]! >>> 16) * 0x100000000 + u32[w + 2]!];
 }

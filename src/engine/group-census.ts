@@ -1,6 +1,6 @@
 /**
  * The groups of `--group` gathered between the stages: the lanes count each bucket's groups from
- * its spill (censusBucket in gather.ts) and hand back one list a bucket; the table is those lists
+ * its spill (census-bucket.ts) and hand back one list a bucket; the table is those lists
  * joined in bucket order, which is key order (see src/core/group-table.ts). Then the groups are
  * placed, whole, into cells, and the key → cell table is written for stage 2 (groups.bin).
  */
@@ -11,9 +11,10 @@ import { placeGroups } from '../core/balance.js';
 import type { DealSpec } from '../core/deal.js';
 import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
-import { censusBucket, type CensusTask } from './gather.js';
+import { censusBucket } from './census-bucket.js';
 import type { SpillPiece } from './spill.js';
-import { splitPieces, SplitSlots, unitsOf, type SplitPolicy, type SplitResult, type SplitTask } from './split.js';
+import { splitPieces, SplitSlots, unitsOf, type SplitPolicy } from './split.js';
+import type { CensusLanes, CensusMessage } from '../workers/protocol.js';
 
 /** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
 export interface CensusSource {
@@ -39,7 +40,7 @@ export interface CensusSource {
 export async function countGroups(
   src: CensusSource,
   workFile: string,
-  run: ((task: CensusTask | SplitTask) => Promise<GroupTableData | SplitResult>) | null,
+  lanes: CensusLanes | null,
   width: number,
   progress: (done: number, total: number) => void,
 ): Promise<GroupTable> {
@@ -52,10 +53,10 @@ export async function countGroups(
         target: src.split.target,
         bufferBytes: src.split.bufferBytes,
         slots: slots!,
-        shares: run ? width : 1,
+        shares: lanes ? width : 1,
         strata: src.taskToDealing,
         strataCount: 0,
-        run: async (t) => (run ? ((await run(t)) as SplitResult) : (await yieldNow(), splitPieces(t))),
+        run: async (t) => (lanes ? lanes.run(t) : (await yieldNow(), splitPieces(t))),
       }
     : null;
   const jobs: Promise<void>[] = [];
@@ -68,8 +69,8 @@ export async function countGroups(
       const counting = units.map((u) => {
         const k = seq++;
         return limit(async () => {
-          const task: CensusTask = { census: k, pieces: u.pieces, strata: src.taskToDealing, bits: u.shared };
-          if (run) census.add(k, (await run(task)) as GroupTableData);
+          const task: CensusMessage = { kind: 'census', census: k, pieces: u.pieces, strata: src.taskToDealing, bits: u.shared };
+          if (lanes) census.add(k, await lanes.run(task));
           else {
             census.add(k, censusBucket(task));
             await yieldNow();

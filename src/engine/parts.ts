@@ -15,12 +15,11 @@ import { keepBytesFor, MemberCompressor, memberBytesFor, membersInFlightFor } fr
 import { FileSlots, PartWriter } from '../io/part-writer.js';
 import { choosePartFileSlots } from '../io/open-files.js';
 import type { ResolvedShuffleOptions } from '../options.js';
-import type { Lanes } from '../workers/lanes.js';
-import type { GatherResult, GatherTask } from './gather.js';
-import type { GatherFinal, GatherLane } from './gather-lane.js';
+import { gatherFinals, type GatherLanes, type PartStatsMessage } from '../workers/protocol.js';
+import type { GatherResult } from './gather.js';
+import type { GatherLane } from './gather-lane.js';
 import type { GatherSink } from './gather-stage.js';
 import type { PartRecord } from './manifest.js';
-import type { PartStatsResult, PartStatsTask } from './part-stats.js';
 import { SpreadParts } from './spread-parts.js';
 
 const EXT: Record<InputFormat, string> = { csv: '.csv', tsv: '.tsv', jsonl: '.jsonl' };
@@ -163,7 +162,7 @@ export async function partStatistics(a: {
   partCount: number;
   statsInLanes: boolean;
   excludeValues: boolean;
-  lanes: Lanes<GatherTask, GatherResult, GatherFinal>;
+  lanes: GatherLanes;
   inline: GatherLane | null;
   /** Part files to read back (statsInLanes false). */
   files: string[] | null;
@@ -176,15 +175,14 @@ export async function partStatistics(a: {
   if (!a.statsInLanes) {
     if (a.files === null) throw new RowdeckError('RDK_INTERNAL', 'statistics read back from parts that were not written');
     const files = a.files;
-    const statsLanes = a.lanes as unknown as Lanes<PartStatsTask, PartStatsResult, GatherFinal>;
     let done = 0;
     a.progress(0, files.length);
     const limit = pLimit(Math.max(1, a.threads));
     await Promise.all(
       files.map((partFile, p) =>
         limit(async () => {
-          const task: PartStatsTask = { partFile, headerBytes: a.headerLength, excludeValues: a.excludeValues };
-          const t = a.inline ? (await a.inline.partStats(task)).result : await statsLanes.run(task);
+          const task: PartStatsMessage = { kind: 'partStats', partFile, headerBytes: a.headerLength, excludeValues: a.excludeValues };
+          const t = a.inline ? (await a.inline.partStats(task)).result : await a.lanes.run(task);
           parts[p] = t.summary;
           a.progress(++done, files.length);
         }),
@@ -192,15 +190,15 @@ export async function partStatistics(a: {
     );
   }
   // Merged in lane order (the merge is exact, so the order does not change the result).
-  const finals = await a.lanes.finish();
+  const finals = gatherFinals(await a.lanes.finish());
   if (a.statsInLanes) {
     const tables = Array.from({ length: a.partCount }, () => new TableStats(a.columns));
-    for (const f of finals) if (f && 'parts' in f) f.parts.forEach((t, p) => tables[p]!.mergeSerialized(t));
+    for (const f of finals) if (f?.kind === 'parts') f.parts.forEach((t, p) => tables[p]!.mergeSerialized(t));
     tables.forEach((t, p) => {
       parts[p] = t.summary({ excludeValues: a.excludeValues });
       whole.merge(t);
     });
-  } else for (const f of finals) if (f && 'readBack' in f) whole.mergeSerialized(f.readBack);
+  } else for (const f of finals) if (f?.kind === 'readBack') whole.mergeSerialized(f.readBack);
   return { parts, input: whole.summary({ excludeValues: a.excludeValues }) };
 }
 

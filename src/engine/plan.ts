@@ -9,7 +9,8 @@ import { buildDealTable, countCells, seededStarts, type DealSpec, type DealTable
 import { dealBalance, orderStrata, withinTolerance, type BalanceWorst } from '../core/balance.js';
 import type { Secret } from '../core/hash.js';
 import { RowdeckError } from '../errors.js';
-import type { InputFormat } from '../io/batch.js';
+import type { InputFormat, InputSchema } from '../io/batch.js';
+import { statsInLanes } from './part-stats.js';
 import { optionName, optionSetting, type PartOrder, type ResolvedShuffleOptions, type Surface } from '../options.js';
 import { describeStratum, keyOrderIndex, stratumValues } from '../core/strata.js';
 
@@ -69,6 +70,51 @@ export interface GatherPlan {
 /** Number of output parts: one file per (split, partition). */
 export function partCount(deal: DealSpec): number {
   return deal.splits.length * deal.partitions;
+}
+
+/** What the plan step has found, from which `buildGatherPlan` writes stage 2's plan. */
+export interface PlanInputs {
+  o: ResolvedShuffleOptions;
+  format: InputFormat;
+  size: { bits: number; buckets: number; threads: number };
+  schema: InputSchema;
+  scatterTasks: number;
+  cellKeyInHeader: boolean;
+  deal: DealSpec;
+  dealing: DealingOrder;
+  table: DealTable;
+  secrets: { cellSecret: Secret; rankSecret: Secret };
+  groupLookup: Pick<GatherPlan, 'groupsFile' | 'groupStarts'>;
+}
+
+/** Stage 2's plan (plan.json): one function for a run on one machine and for a plan's deal step, so both deal alike. */
+export function buildGatherPlan(p: PlanInputs): GatherPlan {
+  const { o, table } = p;
+  return {
+    version: 1,
+    bits: p.size.bits,
+    buckets: p.size.buckets,
+    scatterTasks: p.scatterTasks,
+    format: p.format,
+    delimiter: p.schema.delimiter,
+    lineEnding: p.schema.lineEnding,
+    mode: o.assign,
+    order: o.order,
+    cellKeyInHeader: p.cellKeyInHeader,
+    deal: p.deal,
+    foldColumn: o.foldColumn,
+    strataCount: p.dealing.strataKeys.length,
+    localToGlobal: p.dealing.taskToDealing,
+    quota: Array.from(table.quota),
+    cumQuota: Array.from(table.cumQuota),
+    offset: Array.from(table.offset),
+    cellSecret: Array.from(p.secrets.cellSecret),
+    rankSecret: Array.from(p.secrets.rankSecret),
+    ...p.groupLookup,
+    statsColumns: o.stats ? p.schema.columns : [],
+    statsInLanes: o.stats && statsInLanes(p.schema.columns.length, partCount(p.deal), p.size.threads, o.memory),
+    excludeValues: o.excludeValues,
+  };
 }
 
 /** Strata in their seeded dealing order, and the maps from stage 1's ids to it. */

@@ -12,11 +12,9 @@ import { isStreamInput } from '../io/input.js';
 import { optionName, optionSetting, type ResolvedShuffleOptions } from '../options.js';
 import { WorkerLanes } from '../workers/lanes.js';
 import { resolveWorkerFile } from '../workers/worker-file.js';
-import type { BlockReply } from '../io/blocks.js';
-import type { GatherResult, GatherTask } from './gather.js';
-import type { GatherFinal } from './gather-lane.js';
+import type { ShuffleLanes } from '../workers/protocol.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
-import { censusDir, scatter, scatterTaskConfig, type ScatterLanes, type ScatterMessage, type ScatterOptions, type ScatterResult, type ScatterTaskResult } from './scatter.js';
+import { censusDir, scatter, scatterTaskConfig, type ScatterOptions, type ScatterResult } from './scatter.js';
 import type { Layout, RunSize } from './sizing.js';
 import type { MemoryStore } from './ram-store.js';
 
@@ -31,8 +29,7 @@ export function deriveSecrets(seed: string): Secrets {
   return { secret: deriveSecret(seed), cellSecret: deriveSecret(`${seed}\u0000cell`), rankSecret: deriveSecret(`${seed}\u0000rank`) };
 }
 
-/** The worker threads of a shuffle: they scatter, count groups, then deal the buckets (shuffle-worker.ts). */
-export type ShuffleLanes = WorkerLanes<ScatterMessage | GatherTask, BlockReply | GatherResult, ScatterTaskResult | GatherFinal>;
+export type { ShuffleLanes } from '../workers/protocol.js';
 
 /** Records refused under --on-bad-record skip or quarantine: counted per input, and kept as CSV rows for rejected.csv. */
 export class Rejects {
@@ -163,7 +160,7 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
   let lanes: ShuffleLanes | null = null;
   if (size.threads > 0) {
     lanes = new WorkerLanes(resolveWorkerFile(), size.threads, scatterTaskConfig(scatterOptions));
-    scatterOptions.lanes = lanes as unknown as ScatterLanes;
+    scatterOptions.lanes = lanes;
   }
   try {
     const sc = await scatter(scatterOptions);

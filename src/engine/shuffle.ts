@@ -22,22 +22,17 @@ import { writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
 import { cpus, hostname, totalmem } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
-import type { GroupTableData } from '../core/group-table.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import { chooseFormat } from '../io/sniff.js';
 import type { PartWriter } from '../io/part-writer.js';
-import type { Lanes } from '../workers/lanes.js';
 import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
-import type { CensusTask, GatherResult, GatherTask } from './gather.js';
-import type { GatherFinal } from './gather-lane.js';
 import { runGatherStage } from './gather-stage.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from './group-census.js';
 import { buildManifest, type Manifest } from './manifest.js';
 import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
-import { statsInLanes } from './part-stats.js';
-import { checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type GatherPlan } from './plan.js';
+import { buildGatherPlan, checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation } from './plan.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -45,7 +40,6 @@ import { SPILL_FILES, spillRanges } from './spill.js';
 import { openMemoryStore, type MemoryStore } from './ram-store.js';
 import { checkFreeSpace } from './disk-space.js';
 import { estimateInputBytes, isStreamInput } from '../io/input.js';
-import type { SplitResult, SplitTask } from './split.js';
 import { groupSizeWarnings, unitSizes } from './size-check.js';
 import { SpreadParts } from './spread-parts.js';
 
@@ -149,7 +143,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
           split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
         },
         join(spillDir, 'groups-census.bin'),
-        lanes ? (task) => (lanes as unknown as Lanes<CensusTask | SplitTask, GroupTableData | SplitResult, GatherFinal>).run(task) : null,
+        lanes,
         Math.max(1, size.threads) * 2,
         progress('plan', records),
       );
@@ -175,31 +169,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         o.onNotice?.(w);
       }
     }
-    const plan: GatherPlan = {
-      version: 1,
-      bits: size.bits,
-      buckets: size.buckets,
-      scatterTasks: sc.taskStrata.length,
-      format,
-      delimiter: sc.schema.delimiter,
-      lineEnding: sc.schema.lineEnding,
-      mode: o.assign,
-      order: o.order,
-      cellKeyInHeader: scattered.cellKeyInHeader,
-      deal,
-      foldColumn: o.foldColumn,
-      strataCount: d.strataKeys.length,
-      localToGlobal: d.taskToDealing,
-      quota: Array.from(table.quota),
-      cumQuota: Array.from(table.cumQuota),
-      offset: Array.from(table.offset),
-      cellSecret: Array.from(secrets.cellSecret),
-      rankSecret: Array.from(secrets.rankSecret),
-      ...groupLookup,
-      statsColumns: o.stats ? sc.schema.columns : [],
-      statsInLanes: o.stats && statsInLanes(sc.schema.columns.length, parts, size.threads, o.memory),
-      excludeValues: o.excludeValues,
-    };
+    const plan = buildGatherPlan({ o, format: format, size: size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: scattered.cellKeyInHeader, deal, dealing: d, table, secrets, groupLookup });
     const planPath = join(spillDir, 'plan.json');
     writeFileSync(planPath, JSON.stringify(plan));
     timings.planMs = Date.now() - tPlan;
@@ -221,7 +191,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       first: 0,
       end: size.buckets,
       rankStart: new Float64Array(plan.strataCount),
-      lanes: lanes as unknown as Lanes<GatherTask, GatherResult, GatherFinal> | null,
+      lanes,
       inFlight: size.inFlight,
       sink: spread ? spreadSink(spread) : writerSink(writers),
       // Buckets are dealt in order: past the last bucket of a range, no task reads its files

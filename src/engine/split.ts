@@ -25,6 +25,7 @@ import { ioError, systemError } from '../errors.js';
 import { BucketWriter, HEADER_BYTES, spillRanges, storeAllowance, type SpillPiece, type SpillStore } from './spill.js';
 import { SpillIndex } from './spill-index.js';
 import { BUFFER_CAP } from './sizing.js';
+import type { SplitMessage } from '../workers/protocol.js';
 
 /** One lane's share of a split. */
 export interface SplitTask {
@@ -166,7 +167,7 @@ export interface SplitPolicy {
   shares: number;
   strata: number[][];
   strataCount: number;
-  run: (task: SplitTask) => Promise<SplitResult>;
+  run: (task: SplitMessage) => Promise<SplitResult>;
   /** Told of each split as it starts. */
   onSplit?: () => void;
 }
@@ -268,7 +269,7 @@ export async function unitsOf(bucket: number, pieces: SpillPiece[], shared: numb
   try {
     results = await Promise.all(
       shares.map((share, k) =>
-        policy!.run({ splitDir: slot.dir, share: k, store: slot.stores[k]!, pieces: share, strata: policy!.strata, shared, bits, bufferBytes, strataCount: policy!.strataCount }),
+        policy!.run({ kind: 'split', splitDir: slot.dir, share: k, store: slot.stores[k]!, pieces: share, strata: policy!.strata, shared, bits, bufferBytes, strataCount: policy!.strataCount }),
       ),
     );
   } catch (err) {

@@ -25,6 +25,7 @@
  */
 import { open, type FileHandle } from 'node:fs/promises';
 import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
+import type { Answer, BlockJob, BlockMessage, BlockReply, BlockSummary, CommitMessage, DropMessage, RecheckMessage, Released, Reply } from '../workers/protocol.js';
 import { checkNotHeaderOnly } from './fields.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
@@ -41,52 +42,9 @@ const HEAD_BYTES = 1 << 20;
 /** Size of the first block handed out; blocks double from there up to the block size. */
 const RAMP_BYTES = 64 << 10;
 
-// --- messages ---------------------------------------------------------------------------------
+// --- messages (workers/protocol.ts) ------------------------------------------------------------
 
-/** The reader options of an input, as they cross to a worker (refused records come back in the summary). */
-export type BlockReaderOptions = Omit<RecordReaderOptions, 'onReject'>;
-
-export interface BlockJob {
-  kind: 'block';
-  id: number;
-  input: number;
-  reader: BlockReaderOptions;
-  schema: InputSchema;
-  buffer: ArrayBuffer;
-  length: number;
-  /** Input offset of `buffer[0]`. */
-  origin: number;
-  /** Index in the buffer where the block begins. */
-  from: number;
-  /** Index where the next block begins; -1: this block runs to the input's end (the buffer's end). */
-  stop: number;
-  /** `from` is a known record start; otherwise a start is guessed after the first line end at or after `from - 1`. */
-  exact: boolean;
-}
-
-export type BlockMessage =
-  | BlockJob
-  | { kind: 'recheck'; id: number; start: number }
-  | { kind: 'commit'; id: number; lineBase: number }
-  | { kind: 'drop'; id: number };
-
-export interface BlockSummary {
-  kind: 'summary';
-  id: number;
-  /** The block parsed cleanly from `start` and its last record ends before `end`. */
-  ok: boolean;
-  /** Input offset the block was read from (-1: no line start was found). */
-  start: number;
-  /** Input offset of the first record start at or after the next block's start. */
-  end: number;
-  /** Line ends from `start` to `end` (so the next block starts `lines` lines further on). */
-  lines: number;
-  records: number;
-  /** Records refused in the block (skip, quarantine), with line numbers counted from the block's start. */
-  rejects: RejectedRecord[];
-}
-
-export type BlockReply = BlockSummary | { kind: 'released'; id: number; buffer: ArrayBuffer };
+export type { BlockJob, BlockMessage, BlockReaderOptions, BlockReply, BlockSummary } from '../workers/protocol.js';
 
 // --- worker side ------------------------------------------------------------------------------
 
@@ -111,31 +69,50 @@ export class BlockHost {
     this.#consume = consume;
   }
 
-  handle(m: BlockMessage): { result: BlockReply; transfer?: ArrayBuffer[] } {
+  /** Any block work, answered by its kind (a worker's handler table takes the four below instead). */
+  handle(m: BlockMessage): Answer<BlockReply> {
     switch (m.kind) {
-      case 'block': {
-        const held: HeldBlock = { job: m, batch: null, arrays: null };
-        this.#held.set(m.id, held);
-        return { result: this.#parse(held, m.exact ? m.origin + m.from : -1) };
-      }
+      case 'block':
+        return this.block(m);
       case 'recheck':
-        return { result: this.#parse(this.#take(m.id, false), m.start) };
-      case 'commit': {
-        const held = this.#take(m.id, true);
-        const b = held.batch;
-        if (b) {
-          const shift = m.lineBase - 1;
-          for (let i = 0; i < b.count; i++) b.line[i]! += shift;
-          this.#consume(b, held.job.input);
-        }
-        return this.#release(held);
-      }
+        return this.recheck(m);
+      case 'commit':
+        return this.commit(m);
       case 'drop':
-        return this.#release(this.#take(m.id, true));
+        return this.drop(m);
     }
   }
 
-  #release(held: HeldBlock): { result: BlockReply; transfer: ArrayBuffer[] } {
+  /** Parses a new block from its guessed (or known) start, and holds it. */
+  block(m: BlockJob): Answer<BlockSummary> {
+    const held: HeldBlock = { job: m, batch: null, arrays: null };
+    this.#held.set(m.id, held);
+    return { result: this.#parse(held, m.exact ? m.origin + m.from : -1) };
+  }
+
+  /** Parses a held block again from a known start. */
+  recheck(m: RecheckMessage): Answer<BlockSummary> {
+    return { result: this.#parse(this.#take(m.id, false), m.start) };
+  }
+
+  /** Hands a held block's records on with their true line numbers, and releases its buffer. */
+  commit(m: CommitMessage): Answer<Released> {
+    const held = this.#take(m.id, true);
+    const b = held.batch;
+    if (b) {
+      const shift = m.lineBase - 1;
+      for (let i = 0; i < b.count; i++) b.line[i]! += shift;
+      this.#consume(b, held.job.input);
+    }
+    return this.#release(held);
+  }
+
+  /** Forgets a held block, and releases its buffer. */
+  drop(m: DropMessage): Answer<Released> {
+    return this.#release(this.#take(m.id, true));
+  }
+
+  #release(held: HeldBlock): Answer<Released> {
     if (held.arrays) this.#spareArrays.push(held.arrays);
     held.arrays = null;
     held.batch = null;
@@ -269,9 +246,10 @@ class BatchArrays {
 
 // --- main-thread side -------------------------------------------------------------------------
 
+/** Lanes that take block work (scatter and profile workers); each message is answered by its kind. */
 export interface BlockLanes {
   readonly size: number;
-  runOn(lane: number, m: BlockMessage, transfer?: ArrayBuffer[]): Promise<BlockReply>;
+  runOn<M extends BlockMessage>(lane: number, m: M, transfer?: ArrayBuffer[]): Promise<Reply<M, unknown>>;
 }
 
 export interface ReadInBlocksOptions {
@@ -338,19 +316,18 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
     const file = o.reader.file;
     const { onReject: _onReject, ...toWorker } = o.reader;
     const reader = new RecordReader(o.reader);
-    const totals: InputTotals = { schema: null as unknown as InputSchema, records: 0, rejected: 0, bytes: size, blocks: { parallel: 0, rechecked: 0, sequentialFrom: null } };
+    const totals: Omit<InputTotals, 'schema'> = { records: 0, rejected: 0, bytes: size, blocks: { parallel: 0, rechecked: 0, sequentialFrom: null } };
     // The head: read here until the schema is known (BOM, header, or a JSON Lines first object).
     const at = await pushHere(fh, reader, 0, size, o, Math.min(HEAD_BYTES, B), 0, () => reader.schema !== null);
     // Too small to share: read on here.
     if (at >= size || !reader.schema || size - reader.resumeOffset < 2 * B) {
       await pushHere(fh, reader, at, size, o, HEAD_BYTES, 0);
       await endHere(reader, o);
-      return { ...totals, schema: reader.schema!, records: reader.stats.records, rejected: reader.stats.rejected };
+      return { schema: reader.schema!, ...totals, records: reader.stats.records, rejected: reader.stats.rejected };
     }
     const progress = (pos: number): void => o.onProgress?.(pos, totals.records);
     const schema = reader.schema;
     o.onSchema?.(schema);
-    totals.schema = schema;
     totals.records = reader.stats.records;
     totals.rejected = reader.stats.rejected;
     let expected = reader.resumeOffset;
@@ -360,18 +337,16 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
     const T = o.lanes.size;
     const MAX_HELD = 4 * T;
     const pool: ArrayBuffer[] = [];
-    const pending: { id: number; lane: number; reply: Promise<BlockReply>; settled: boolean }[] = [];
+    const pending: { id: number; lane: number; reply: Promise<BlockSummary>; settled: boolean }[] = [];
     const settling = new Set<Promise<void>>();
     const failures: { id: number; err: unknown }[] = [];
     let held = 0;
     let nextStart = expected;
     let nextId = 0;
 
-    const release = (id: number, p: Promise<BlockReply>): void => {
+    const release = (id: number, p: Promise<Released>): void => {
       const q: Promise<void> = p
-        .then((r) => {
-          if (r.kind === 'released') pool.push(r.buffer);
-        })
+        .then((r) => void pool.push(r.buffer))
         .catch((err: unknown) => void failures.push({ id, err }))
         .finally(() => {
           held--;
@@ -433,10 +408,10 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
         continue;
       }
       pending.shift();
-      let s = (await head.reply) as BlockSummary;
+      let s = await head.reply;
       if (s.start !== expected) {
         totals.blocks.rechecked++;
-        s = (await o.lanes.runOn(head.lane, { kind: 'recheck', id: head.id, start: expected })) as BlockSummary;
+        s = await o.lanes.runOn(head.lane, { kind: 'recheck', id: head.id, start: expected });
       }
       if (!s.ok || s.start !== expected) {
         pending.unshift(head);
@@ -473,7 +448,7 @@ export async function readInBlocks(o: ReadInBlocksOptions): Promise<InputTotals>
       totals.rejected += rest.stats.rejected;
     }
     checkNotHeaderOnly(o.reader, totals.records + totals.rejected);
-    return totals;
+    return { schema, ...totals };
   } finally {
     await fh.close();
   }

@@ -4,8 +4,7 @@
  * worker lanes with bounded memory. Used by `shuffle` (stage 1) and `profile`.
  */
 import type { RecordBatch } from './batch.js';
-import type { BlockReply } from './blocks.js';
-import type { SmallInputReply } from './small-inputs.js';
+import type { BatchMessage, Reply } from '../workers/protocol.js';
 
 /**
  * Packs a batch (records re-based to 0) into one transferable buffer:
@@ -50,21 +49,11 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
   return ab;
 }
 
-/** A packed batch for a worker. */
-export interface BatchMessage {
-  kind: 'batch';
-  buffer: ArrayBuffer;
-}
-
-/**
- * Worker lanes that take packed batches (scatter and profile workers). Their workers also
- * answer block work and small inputs, so a reply is any of those; a batch is answered with its
- * buffer, released for reuse.
- */
+/** Worker lanes that take packed batches (scatter and profile workers); a batch is answered with its buffer, released for reuse. */
 export interface BatchLanes {
   readonly size: number;
-  run(m: BatchMessage, transfer: ArrayBuffer[]): Promise<BlockReply | SmallInputReply>;
-  runOn(lane: number, m: BatchMessage, transfer: ArrayBuffer[]): Promise<BlockReply | SmallInputReply>;
+  run<M extends BatchMessage>(m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
+  runOn<M extends BatchMessage>(lane: number, m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
 }
 
 /**
@@ -96,9 +85,9 @@ export class BatchSender {
   async #post(batch: RecordBatch, input: number, lane: number): Promise<void> {
     while (this.#running.size >= 2 * this.#lanes.size) await Promise.race(this.#running);
     const buffer = packBatch(batch, input, this.#spare.pop());
-    const m = { kind: 'batch', buffer } as const;
+    const m: BatchMessage = { kind: 'batch', buffer };
     const p: Promise<void> = (lane < 0 ? this.#lanes.run(m, [buffer]) : this.#lanes.runOn(lane, m, [buffer]))
-      .then((back) => void (back.kind === 'released' && this.#spare.push(back.buffer)))
+      .then((back) => void this.#spare.push(back.buffer))
       .finally(() => this.#running.delete(p));
     p.catch(() => {});
     this.#running.add(p);

@@ -5,31 +5,18 @@
  * `profile`.
  */
 import { closeSync, openSync, readSync, statSync } from 'node:fs';
-import { RowdeckError } from '../errors.js';
 import type { RecordBatch } from './batch.js';
 import { giveSpareReader, READ_AHEAD_MAX_BYTES, takeSpareReader } from './input.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
+import type { Reply, SmallInputMessage, SmallInputReply } from '../workers/protocol.js';
 
-/** Lanes that take small inputs (scatter and profile workers). */
+export type { SmallInputMessage, SmallInputReply } from '../workers/protocol.js';
+
+/** Lanes that take small inputs (scatter and profile workers); a small input is answered with a SmallInputReply. */
 export interface SmallInputLanes {
   readonly size: number;
-  run(m: SmallInputMessage): Promise<SmallInputReply | { kind: string }>;
+  run<M extends SmallInputMessage>(m: M): Promise<Reply<M, unknown>>;
 }
-
-/**
- * A small input for a worker to read and parse (see SmallInputSender): its path, the size it had
- * when looked at, and the reader's options, without callbacks.
- */
-export interface SmallInputMessage {
-  kind: 'small';
-  input: number;
-  path: string;
-  size: number;
-  reader: Omit<RecordReaderOptions, 'onReject'>;
-}
-
-/** A worker's answer to a SmallInputMessage: what the reader counted, or that it left the input to the main thread. */
-export type SmallInputReply = { kind: 'parsed'; id: -1; records: number; bytes: number } | { kind: 'declined'; id: -1 };
 
 /** The size of a regular file small enough for a worker to read whole, or null. */
 export function smallFileSize(path: string): number | null {
@@ -100,11 +87,9 @@ export class SmallInputSender {
     const { onReject: _onReject, ...options } = reader;
     const p: Promise<void> = this.#lanes
       .run({ kind: 'small', input, path, size, reader: options })
-      .then((answer) => {
-        const r = answer as SmallInputReply;
+      .then((r) => {
         if (r.kind === 'parsed') done(r.records, r.bytes);
-        else if (r.kind === 'declined') declined();
-        else throw new RowdeckError('RDK_INTERNAL', `a worker answered a small input with ${answer.kind}`);
+        else declined();
       })
       .catch((err: unknown) => void this.#failed.set(input, err))
       .finally(() => this.#running.delete(p));

@@ -116,7 +116,8 @@ function createScanner(memory: WasmMemory, run: ScanFn, runWalk: WalkFn): Struct
     maskAt: 0,
     get state() { return state; },
     line: () => lineAt[0]!,
-    out: null as unknown as WalkOutput,
+    // Laid out by prepareWalk, before any walk.
+    out: { start: new Uint32Array(0), end: new Uint32Array(0), next: new Uint32Array(0), offset: new Float64Array(0), line: new Float64Array(0), fieldStart: new Uint32Array(0), fieldEnd: new Uint32Array(0), fieldKind: new Uint8Array(0) },
     scan(d, pos, n, delim) {
       const len = n - pos;
       const out = (IN + len + PAD + 63) & ~63;

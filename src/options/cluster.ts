@@ -96,7 +96,7 @@ export const PLAN_OPTIONS = {
   },
 } satisfies { [K in keyof Required<Omit<PlanOptions, 'tempDir'>>]: OptionDef<NonNullable<PlanOptions[K]>> };
 
-export const PLAN_SPEC: CommandSpec = {
+export const PLAN_SPEC: CommandSpec<PlanOptions> = {
   command: 'plan',
   libraryName: 'planCluster',
   table: PLAN_OPTIONS,
@@ -163,7 +163,7 @@ export interface TaskOptions {
   index?: string;
 }
 
-export const TASK_SPEC: CommandSpec = {
+export const TASK_SPEC: CommandSpec<TaskOptions> = {
   command: 'task',
   table: {
     work: workFolder,
@@ -178,7 +178,8 @@ export const TASK_SPEC: CommandSpec = {
 };
 
 export function resolveTaskOptions(options: TaskOptions): TaskOptions {
-  return readOptions(TASK_SPEC, options) as unknown as TaskOptions;
+  // `work` and `stage` are required: readOptions refuses options without them.
+  return readOptions(TASK_SPEC, options) as TaskOptions;
 }
 
 export interface FinishCommandOptions {
@@ -187,7 +188,7 @@ export interface FinishCommandOptions {
   keepWork?: boolean;
 }
 
-export const FINISH_SPEC: CommandSpec = {
+export const FINISH_SPEC: CommandSpec<FinishCommandOptions> = {
   command: 'finish',
   table: {
     work: workFolder,
@@ -201,10 +202,11 @@ export const FINISH_SPEC: CommandSpec = {
 };
 
 export function resolveFinishOptions(options: FinishCommandOptions): FinishCommandOptions {
-  return readOptions(FINISH_SPEC, options) as unknown as FinishCommandOptions;
+  // `work` is required: readOptions refuses options without it.
+  return readOptions(FINISH_SPEC, options) as FinishCommandOptions;
 }
 
-export const STATUS_SPEC: CommandSpec = {
+export const STATUS_SPEC: CommandSpec<{ work: string }> = {
   command: 'status',
   table: { work: workFolder } satisfies { work: OptionDef<string> },
   cliOnly: {

@@ -106,7 +106,7 @@ export const PROFILE_OPTIONS = {
   onProgress: { cli: null, ...functionValue<(e: ProfileProgress) => void>() },
 } satisfies { [K in keyof Required<ProfileOptions>]: OptionDef<NonNullable<ProfileOptions[K]>> };
 
-export const PROFILE_SPEC: CommandSpec = {
+export const PROFILE_SPEC: CommandSpec<ProfileOptions> = {
   command: 'profile',
   table: PROFILE_OPTIONS,
   cliOnly: {

@@ -428,7 +428,7 @@ export const SHUFFLE_OPTIONS = {
   onNotice: { cli: null, ...functionValue<(text: string) => void>() },
 } satisfies { [K in keyof Required<ShuffleOptions>]: OptionDef<NonNullable<ShuffleOptions[K]>> };
 
-export const SHUFFLE_SPEC: CommandSpec = {
+export const SHUFFLE_SPEC: CommandSpec<ShuffleOptions> = {
   command: 'shuffle',
   table: SHUFFLE_OPTIONS,
   cliOnly: {

@@ -71,7 +71,14 @@ export interface CliOnlyDef {
   help: readonly string[];
 }
 
-export interface CommandSpec {
+/**
+ * A command's options: its table, and (a type only) `O`, the options object the library takes,
+ * which the table is checked against where it is declared (`satisfies`). The command line's
+ * parser and `readOptions` give their values as `O`'s.
+ */
+export interface CommandSpec<O = unknown> {
+  /** Never set: carries the type of the options object. */
+  readonly options?: O;
   /** `shuffle`: `rowdeck shuffle` on the command line, `shuffle()` in the library. */
   command: string;
   /** The library function's name where it differs from the command's (`writeReport`). */
@@ -174,7 +181,7 @@ export function surfaceOf(o: unknown): Surface {
  * know (RDK_UNKNOWN_OPTION, with the closest name); every required key there (RDK_MISSING_ARGUMENT);
  * each value given through its option's check. Returns the checked values (absent ones left out).
  */
-export function readOptions(spec: CommandSpec, o: unknown, surface: Surface = surfaceOf(o), positional: readonly string[] = []): Record<string, unknown> {
+export function readOptions<O>(spec: CommandSpec<O>, o: unknown, surface: Surface = surfaceOf(o), positional: readonly string[] = []): Partial<O> {
   const { table } = spec;
   if (typeof o !== 'object' || o === null || Array.isArray(o)) {
     throw new RowdeckError('RDK_OPTION', `Invalid options of ${commandName(spec, surface)}: expected an object, got ${showGot(o, surface)}`, { option: null });
@@ -192,7 +199,8 @@ export function readOptions(spec: CommandSpec, o: unknown, surface: Surface = su
     }
     out[key] = def.check(v, checkerFor(surface, table, key));
   }
-  return out;
+  // Each key is the table's, its value what that option's check returns: the table satisfies O key for key.
+  return out as Partial<O>;
 }
 
 export function missingOption(spec: CommandSpec, key: string, surface: Surface): RowdeckError {

@@ -99,7 +99,7 @@ export const VERIFY_OPTIONS = {
   onProgress: { cli: null, ...functionValue<(e: VerifyProgress) => void>() },
 } satisfies { [K in keyof Required<VerifyOptions>]: OptionDef<NonNullable<VerifyOptions[K]>> };
 
-export const VERIFY_SPEC: CommandSpec = {
+export const VERIFY_SPEC: CommandSpec<VerifyOptions> = {
   command: 'verify',
   table: VERIFY_OPTIONS,
   cliOnly: {
@@ -142,7 +142,7 @@ export const REPORT_OPTIONS = {
   onProgress: { cli: null, ...functionValue<(e: VerifyProgress) => void>() },
 } satisfies { [K in keyof Required<ReportOptions & { dir: string }>]: OptionDef<NonNullable<(ReportOptions & { dir: string })[K]>> };
 
-export const REPORT_SPEC: CommandSpec = {
+export const REPORT_SPEC: CommandSpec<ReportOptions & { dir: string }> = {
   command: 'report',
   libraryName: 'writeReport',
   table: REPORT_OPTIONS,
@@ -163,6 +163,6 @@ export function resolveReportOptions(dir: string, options: ReportOptions = {}): 
   if (typeof options === 'object' && options !== null && Object.hasOwn(options, 'dir')) {
     throw new RowdeckError('RDK_UNKNOWN_OPTION', `Unknown option "dir" for writeReport(): the folder is its first argument, writeReport(dir, options).`, { option: 'dir' });
   }
-  const o = readOptions(REPORT_SPEC, typeof options === 'object' && options !== null ? { ...options, dir } : options, surface, ['dir']) as unknown as ResolvedReportOptions;
+  const o = readOptions(REPORT_SPEC, typeof options === 'object' && options !== null ? { ...options, dir } : options, surface, ['dir']) as ReportOptions & { dir: string };
   return { ...o, surface };
 }

@@ -10,24 +10,26 @@
  *   run(task) ──{ id, task } (transfer)──▶  handler(task) ──▶ { id, result } (transfer)
  *   finish() ──{ finish }──▶ (every lane)   finisher()   ──▶ { final }
  *
- * Errors cross as plain data (`toWire`) and are rebuilt with `fromWire`.
+ * Errors cross as plain data (`toWire`) and are rebuilt with `fromWire`. What the tasks, results
+ * and finals are is protocol.ts's: a task names its kind, and its result is typed by it.
  */
 import { parentPort, Worker, type TransferListItem } from 'node:worker_threads';
 import { fromWire, toWire, RowdeckError, type WireError } from '../errors.js';
+import type { Answer, Reply } from './protocol.js';
 
 type ToWorker<T> = { kind: 'task'; id: number; task: T } | { kind: 'finish' };
-type FromWorker<R, F> =
-  | { kind: 'result'; id: number; result: R }
+type FromWorker<F> =
+  | { kind: 'result'; id: number; result: unknown }
   | { kind: 'error'; id: number; error: WireError }
   | { kind: 'final'; final: F }
   | { kind: 'finalError'; error: WireError };
 
-interface Lane<R, F> {
+interface Lane<F> {
   worker: Worker;
   busy: number;
   final: ((f: F) => void) | null;
   finalFail: ((e: Error) => void) | null;
-  waiting: Map<number, { resolve: (r: R) => void; reject: (e: Error) => void }>;
+  waiting: Map<number, { resolve: (r: unknown) => void; reject: (e: Error) => void }>;
 }
 
 /** Flags that only make sense for an inline script (`node --input-type=module -e …`). */
@@ -52,7 +54,7 @@ function startWorker(file: string, workerData: unknown): Worker {
 
 export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   readonly size: number;
-  #lanes: Lane<R, F>[] = [];
+  #lanes: Lane<F>[] = [];
   #nextId = 0;
   #failure: Error | null = null;
 
@@ -60,8 +62,8 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
     this.size = size;
     for (let k = 0; k < size; k++) {
       const worker = startWorker(file, { lane: k, data: workerData });
-      const lane: Lane<R, F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
-      worker.on('message', (m: FromWorker<R, F>) => {
+      const lane: Lane<F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
+      worker.on('message', (m: FromWorker<F>) => {
         if (m.kind === 'final') {
           lane.final?.(m.final);
           return;
@@ -98,19 +100,20 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   }
 
   /** Runs a task on the least busy lane. */
-  run(task: T, transfer: TransferListItem[] = []): Promise<R> {
+  run<M extends T>(task: M, transfer: TransferListItem[] = []): Promise<Reply<M, R>> {
     let lane = 0;
     for (let k = 1; k < this.#lanes.length; k++) if (this.#lanes[k]!.busy < this.#lanes[lane]!.busy) lane = k;
     return this.runOn(lane, task, transfer);
   }
 
   /** Runs a task on lane `k` (tasks that need state kept by that lane, such as a parsed block). */
-  runOn(k: number, task: T, transfer: TransferListItem[] = []): Promise<R> {
+  runOn<M extends T>(k: number, task: M, transfer: TransferListItem[] = []): Promise<Reply<M, R>> {
     if (this.#failure) return Promise.reject(this.#failure);
     const lane = this.#lanes[k]!;
     const id = this.#nextId++;
     lane.busy++;
-    const p = new Promise<R>((resolve, reject) => lane.waiting.set(id, { resolve, reject }));
+    // The worker answers a task of kind K with Replies[K] (its handler table is typed so).
+    const p = new Promise<Reply<M, R>>((resolve, reject) => lane.waiting.set(id, { resolve: (r) => resolve(r as Reply<M, R>), reject }));
     lane.worker.postMessage({ kind: 'task', id, task } satisfies ToWorker<T>, transfer);
     return p;
   }
@@ -135,10 +138,14 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   }
 }
 
-/** What the stages ask of their lanes, on worker threads (`WorkerLanes`) or not (`InlineLanes`). */
+/**
+ * What the stages ask of their lanes, on worker threads (`WorkerLanes`) or not (`InlineLanes`):
+ * tasks `T`, each answered with the reply of its kind (protocol.ts; `R` for a task without a
+ * listed kind), and `F`, what each lane hands over when it finishes.
+ */
 export interface Lanes<T, R, F> {
   readonly size: number;
-  run(task: T, transfer?: TransferListItem[]): Promise<R>;
+  run<M extends T>(task: M, transfer?: TransferListItem[]): Promise<Reply<M, R>>;
   finish(): Promise<F[]>;
   destroy(): Promise<void>;
 }
@@ -149,10 +156,11 @@ export interface Lanes<T, R, F> {
  */
 export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
   readonly size = 1;
-  readonly #handler: (task: T) => { result: R };
+  readonly #handler: (task: T) => { result: unknown } | Promise<{ result: unknown }>;
   readonly #finisher: () => { final: F };
 
-  constructor(handler: (task: T) => { result: R }, finisher: () => { final: F }) {
+  /** `handler`: answers each task with the reply of its kind (see `byKind`), at once or with a promise. */
+  constructor(handler: (task: T) => { result: unknown } | Promise<{ result: unknown }>, finisher: () => { final: F }) {
     this.#handler = handler;
     this.#finisher = finisher;
   }
@@ -161,11 +169,14 @@ export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
    * Runs the task on a later turn of the event loop, not at once: between tasks the process
    * still answers signals (Ctrl-C cleans up) and draws progress.
    */
-  run(task: T): Promise<R> {
-    return new Promise<R>((resolve, reject) => {
+  run<M extends T>(task: M): Promise<Reply<M, R>> {
+    return new Promise<Reply<M, R>>((resolve, reject) => {
       setImmediate(() => {
         try {
-          resolve(this.#handler(task).result);
+          // The handler answers a task of kind K with Replies[K] (byKind's table is typed so).
+          const answer = this.#handler(task);
+          if (answer instanceof Promise) answer.then((a) => resolve(a.result as Reply<M, R>), reject);
+          else resolve(answer.result as Reply<M, R>);
         } catch (err) {
           reject(err);
         }
@@ -186,20 +197,21 @@ export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
   }
 }
 
-/** The worker side: answers tasks with `handler` and the final request with `finisher`. */
-type Reply<R> = { result: R; transfer?: TransferListItem[] };
-
-/** A handler may answer at once or with a promise (a task that reads files, say). */
+/**
+ * The worker side: answers tasks with `handler` (a table of handlers by kind, see `byKind`) and
+ * the final request with `finisher`. A handler may answer at once or with a promise (a task
+ * that reads files, say).
+ */
 export function serveLane<T, R, F>(
-  handler: (task: T) => Reply<R> | Promise<Reply<R>>,
+  handler: (task: T) => Answer<R> | Promise<Answer<R>>,
   finisher: () => { final: F; transfer?: TransferListItem[] },
 ): void {
   const port = parentPort;
   if (!port) throw new Error('serveLane() must run in a worker thread');
   port.on('message', (m: ToWorker<T>) => {
     if (m.kind === 'task') {
-      const send = ({ result, transfer }: Reply<R>): void => port.postMessage({ kind: 'result', id: m.id, result } satisfies FromWorker<R, F>, transfer ?? []);
-      const fail = (err: unknown): void => port.postMessage({ kind: 'error', id: m.id, error: toWire(err) } satisfies FromWorker<R, F>);
+      const send = ({ result, transfer }: Answer<R>): void => port.postMessage({ kind: 'result', id: m.id, result } satisfies FromWorker<F>, transfer ?? []);
+      const fail = (err: unknown): void => port.postMessage({ kind: 'error', id: m.id, error: toWire(err) } satisfies FromWorker<F>);
       try {
         const reply = handler(m.task);
         if (reply instanceof Promise) reply.then(send, fail);
@@ -210,10 +222,10 @@ export function serveLane<T, R, F>(
     } else {
       try {
         const { final, transfer } = finisher();
-        port.postMessage({ kind: 'final', final } satisfies FromWorker<R, F>, transfer ?? []);
+        port.postMessage({ kind: 'final', final } satisfies FromWorker<F>, transfer ?? []);
       } catch (err) {
         // finish() waits for this: it fails with the error, coded as it was.
-        port.postMessage({ kind: 'finalError', error: toWire(err) } satisfies FromWorker<R, F>);
+        port.postMessage({ kind: 'finalError', error: toWire(err) } satisfies FromWorker<F>);
       }
     }
   });

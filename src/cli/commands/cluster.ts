@@ -10,7 +10,7 @@ import { finishCluster } from '../../cluster/finish.js';
 import { planStatus } from '../../cluster/status.js';
 import { resolveTaskIndex } from '../../cluster/task-index.js';
 import { taskCommand } from '../../cluster/commands.js';
-import { FINISH_SPEC, PLAN_SPEC, resolveFinishOptions, resolveStatusOptions, resolveTaskOptions, STATUS_SPEC, TASK_SPEC, type FinishCommandOptions, type PlanOptions, type TaskOptions } from '../../options.js';
+import { FINISH_SPEC, PLAN_SPEC, resolveFinishOptions, resolveStatusOptions, resolveTaskOptions, STATUS_SPEC, TASK_SPEC} from '../../options.js';
 import { parseCommandLine } from '../args.js';
 import { FINISH_HELP, PLAN_HELP, STATUS_HELP, TASK_HELP } from '../help.js';
 import type { CliIO } from '../main.js';
@@ -21,7 +21,7 @@ export async function runPlan(argv: string[], io: CliIO): Promise<number> {
     io.stdout.write(PLAN_HELP);
     return 0;
   }
-  const { plan, files } = await planCluster(options as unknown as PlanOptions);
+  const { plan, files } = await planCluster(options);
   if (v.json) io.stdout.write(JSON.stringify(plan, null, 2) + '\n');
   if (!v.quiet) {
     io.stderr.write(
@@ -41,7 +41,7 @@ export async function runTaskCommand(argv: string[], io: CliIO): Promise<number>
     io.stdout.write(TASK_HELP);
     return 0;
   }
-  const t = resolveTaskOptions(options as unknown as TaskOptions);
+  const t = resolveTaskOptions(options);
   const stage = t.stage;
   const plan = loadPlan(t.work);
   const count = stage === 'scatter' ? plan.scatter.length : stage === 'gather' ? plan.gather.length : 1;
@@ -60,7 +60,7 @@ export async function runFinish(argv: string[], io: CliIO): Promise<number> {
     io.stdout.write(FINISH_HELP);
     return 0;
   }
-  const f = resolveFinishOptions(options as unknown as FinishCommandOptions);
+  const f = resolveFinishOptions(options);
   const plan = loadPlan(f.work);
   const run = await finishCluster(plan, { keepWork: f.keepWork === true, onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`) });
   if (v.json) io.stdout.write(JSON.stringify(run.manifest, null, 2) + '\n');

@@ -3,7 +3,7 @@
  * schema and statistics as an aligned table, the class balance of each stratify column as a bar
  * chart, and the warnings; `--json` prints the Profile itself. Progress on stderr (terminals only).
  */
-import { profile, type Profile, type ProfileClass, type ProfileOptions } from '../../engine/profile.js';
+import { profile, type Profile, type ProfileClass } from '../../engine/profile.js';
 import type { ColumnSummary } from '../../core/stats.js';
 import { stratumLabel } from '../../core/strata.js';
 import { PROFILE_SPEC, type ProgressEvent } from '../../options.js';
@@ -24,7 +24,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     return 0;
   }
   const progress = createProgress(io.stderr, !own.quiet);
-  const opts = options as unknown as ProfileOptions;
+  const opts = options;
   // The shared progress line knows shuffle's stages; 'read'/'bins' print the same way.
   opts.onProgress = (e) => progress.update({ ...e, stage: e.stage as string as ProgressEvent['stage'] });
   let p: Profile;

@@ -3,7 +3,7 @@
  * shuffle's option table), the library's runShuffle(), then the summary on stderr.
  */
 import { runShuffle } from '../../engine/shuffle.js';
-import { SHUFFLE_SPEC, type ShuffleOptions } from '../../options.js';
+import { SHUFFLE_SPEC } from '../../options.js';
 import { parseCommandLine } from '../args.js';
 import { shuffleHelp } from '../help.js';
 import { defaultMemory } from '../../io/memory-available.js';
@@ -18,7 +18,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     return 0;
   }
   const progress = createProgress(io.stderr, !own.quiet);
-  const opts = options as unknown as ShuffleOptions;
+  const opts = options;
   opts.onProgress = (e) => progress.update(e);
   // What was cleaned up that was not this run's own, warnings, or what a signal made it remove: always said.
   opts.onNotice = (text) => io.stderr.write(`rowdeck: ${text}\n`);

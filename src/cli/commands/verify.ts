@@ -2,7 +2,7 @@
  * `rowdeck verify DIR [--against INPUT...]`: a thin layer over the library's verify(). The
  * report decides the exit status: 0 when every check holds, 1 with every mismatch on stderr.
  */
-import { verify, type VerifyOptions, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
+import { verify, type VerifyProgress, type VerifyReport } from '../../engine/verify.js';
 import { VERIFY_SPEC } from '../../options.js';
 import { parseCommandLine } from '../args.js';
 import { VERIFY_HELP } from '../help.js';
@@ -51,7 +51,7 @@ export async function run(argv: string[], io: CliIO): Promise<number> {
     io.stdout.write(VERIFY_HELP);
     return 0;
   }
-  const opts = options as unknown as VerifyOptions;
+  const opts = options;
   const dir = opts.dir;
   const progress = createVerifyProgress(io, !v.quiet);
   opts.onProgress = (e) => progress.update(e);

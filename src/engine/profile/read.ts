@@ -10,14 +10,13 @@
  * read here and goes to every worker, each keeps the statistics of its own run of columns, and
  * their tables are put side by side at the end (joinColumnShares), not merged.
  */
-import { RowdeckError } from '../../errors.js';
 import type { RecordBatch, RejectedRecord } from '../../io/batch.js';
-import { blockSizes, readInBlocks, type BlockLanes, type BlockReply, type InputTotals } from '../../io/blocks.js';
+import { blockSizes, readInBlocks, type InputTotals } from '../../io/blocks.js';
 import { unknownColumn } from '../../io/fields.js';
 import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead } from '../../io/input.js';
 import { BatchSender } from '../../io/packed-batches.js';
 import { RecordReader, type RecordReaderOptions } from '../../io/reader.js';
-import { readInputs, smallFileSize, SmallInputSender, type SmallInputReply } from '../../io/small-inputs.js';
+import { readInputs, smallFileSize, SmallInputSender } from '../../io/small-inputs.js';
 import type { ResolvedProfileOptions } from '../../options.js';
 import { WorkerLanes } from '../../workers/lanes.js';
 import { resolveWorkerFile } from '../../workers/worker-file.js';
@@ -45,19 +44,7 @@ export interface ReadCounts {
   rejects: Profile['rejects'];
 }
 
-type ProfileLanes = WorkerLanes<ProfileMessage, BlockReply | SmallInputReply, ProfileTaskResult>;
-
-/** The profile workers as io/blocks.ts sees them: block work is answered with block replies. */
-function asBlockLanes(lanes: ProfileLanes): BlockLanes {
-  return {
-    size: lanes.size,
-    runOn: (lane, m, transfer) =>
-      lanes.runOn(lane, m, transfer).then((r) => {
-        if (r.kind === 'parsed' || r.kind === 'declined') throw new RowdeckError('RDK_INTERNAL', `a profile worker answered block work with ${r.kind}`);
-        return r;
-      }),
-  };
-}
+type ProfileLanes = WorkerLanes<ProfileMessage, never, ProfileTaskResult>;
 
 /**
  * Reads every input once and counts it (see ProfileTask), on worker threads or (threads 0) on
@@ -149,7 +136,7 @@ export async function readAndCount(o: ResolvedProfileOptions, binEdges: BinEdges
           input: k,
           reader: plan.reader,
           // Block work is answered with block replies (the small-input replies are SmallInputSender's).
-          lanes: asBlockLanes(lanes),
+          lanes,
           // Every column is located, so a held block's arrays are ~5 times those of a shuffle's:
           // smaller blocks keep the memory near what the sequential read used.
           blockBytes: PROFILE_BLOCK_BYTES,

@@ -9,9 +9,6 @@ import { TableStats, type SerializedStats } from '../../core/stats.js';
 import { columnKey, keyBytes, MAX_STRATA, stratumKey, tooManyStrata, type KeyRange } from '../../core/strata.js';
 import { RowdeckError } from '../../errors.js';
 import { FieldKind, type RecordBatch } from '../../io/batch.js';
-import type { BlockMessage } from '../../io/blocks.js';
-import type { BatchMessage } from '../../io/packed-batches.js';
-import type { SmallInputMessage } from '../../io/small-inputs.js';
 
 /** What one profile task needs: plain data, so it can be posted to a worker. */
 export interface ProfileTaskConfig {
@@ -194,6 +191,5 @@ export class ProfileTask {
   }
 }
 
-/** What the main thread sends a profile worker. */
-/** What the main thread sends a profile worker. */
-export type ProfileMessage = { kind: 'columns'; input: number; map: number[] | null } | BatchMessage | SmallInputMessage | BlockMessage;
+/** What the main thread sends a profile worker (src/workers/protocol.ts). */
+export type { ProfileMessage } from '../../workers/protocol.js';

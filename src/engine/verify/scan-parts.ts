@@ -21,6 +21,7 @@ const PARALLEL_MIN_BYTES = 32 * 1024 * 1024;
 
 /** One part for a verify worker (the worker has the manifest). */
 export interface VerifyPartTask {
+  kind: 'part';
   path: string;
   display: string;
   /** Collect every record's hash (for listing differences). */
@@ -93,12 +94,12 @@ export async function scanParts(dir: string, m: Manifest, plan: ReadPlan, given:
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
     // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
-    const lanes = new WorkerLanes<VerifyPartTask, SerializedPartScan, SerializedStats | null>(resolveWorkerFile('verify-worker.js'), threads, m);
+    const lanes = new WorkerLanes<VerifyPartTask, never, SerializedStats | null>(resolveWorkerFile('verify-worker.js'), threads, m);
     // Two parts a thread keep its reads going; one where each holds a table of every column.
     const limit = pLimit(plan.statsColumns !== null ? threads : 2 * threads);
     try {
       scans = await Promise.all(
-        parts.map((p) => limit(async () => partDone(readPartScan(await lanes.run({ path: join(dir, p.path), display: p.path, hashes: hashes !== null }), hashes)))),
+        parts.map((p) => limit(async () => partDone(readPartScan(await lanes.run({ kind: 'part', path: join(dir, p.path), display: p.path, hashes: hashes !== null }), hashes)))),
       );
       // Each thread's statistics of the parts it read (see PartStatsGather).
       if (plan.statsColumns !== null) {
