@@ -6,6 +6,15 @@ export default defineConfig({
     testTimeout: 60_000,
     hookTimeout: 60_000,
     pool: 'forks',
-    coverage: { provider: 'v8', include: ['src/**'] },
+    // npm test measures coverage of src/ (code run in worker threads and child processes is not
+    // seen, so the figures are a floor); the thresholds sit a few points under today's figures
+    // (statements 89.6 %, branches 81.7 %, functions 89.1 %, lines 91.2 %) so that a change
+    // that leaves code untested fails.
+    coverage: {
+      provider: 'v8',
+      include: ['src/**'],
+      reporter: ['text-summary'],
+      thresholds: { statements: 86, branches: 78, functions: 86, lines: 88 },
+    },
   },
 });
