@@ -11,7 +11,7 @@ import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from '../engine/group-census.js';
-import { buildGatherPlan, checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation, type Worst } from '../engine/plan.js';
+import { buildGatherPlan, checkTolerance, planDeal, worstDeviation, type Worst } from '../engine/plan.js';
 import { partLayout } from '../engine/parts.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
@@ -177,17 +177,11 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     const rejects = new Rejects(o.onBadRecord === 'quarantine');
     dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
 
-    const records = sc.records;
-    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
-    const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
-    const deal = dealSpecOf(o, records);
-    const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
-    const parts = partCount(deal);
-    const cells = parts * deal.folds;
+    const planned = planDeal(o, sc, secrets);
+    const { records, d, deal, table, parts, cells } = planned;
     let cellCounts: Float64Array;
     let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
-    if (o.assign === 'exact') cellCounts = exactCellCounts(table);
-    else if (o.assign === 'hash') cellCounts = hashCellCounts(sc.cellCounts!, d.localToGlobal, cells);
+    if (planned.cellCounts) cellCounts = planned.cellCounts;
     else {
       const threads = Math.max(1, plan.size.threads);
       const lanes = (await dealLanes(threads, dir))!;

@@ -72,6 +72,32 @@ export function partCount(deal: DealSpec): number {
   return deal.splits.length * deal.partitions;
 }
 
+/** Stage 1's counts as the plan step reads them (a run's scatter step, or a plan's scatter tasks joined). */
+export interface ScatterCounts {
+  records: number;
+  strata: string[];
+  bucketCounts: ArrayLike<number>[];
+  taskStrata: number[][];
+  /** `--assign hash`: records per (cell, local stratum), counted as they passed. */
+  cellCounts?: Float64Array[] | null;
+}
+
+/**
+ * The plan step's first figures, the same for a run on one machine and a plan's deal step: the
+ * strata in dealing order, the deal and its table, and, in exact and hash modes, the records
+ * every (cell, stratum) gets (null in group mode: placing the groups gives them).
+ */
+export function planDeal(o: ResolvedShuffleOptions, sc: ScatterCounts, secrets: { secret: Secret; rankSecret: Secret }) {
+  if (sc.records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
+  const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
+  const deal = dealSpecOf(o, sc.records);
+  const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
+  const parts = partCount(deal);
+  const cells = parts * deal.folds;
+  const cellCounts = o.assign === 'exact' ? exactCellCounts(table) : o.assign === 'hash' ? hashCellCounts(sc.cellCounts!, d.localToGlobal, cells) : null;
+  return { records: sc.records, d, deal, table, parts, cells, cellCounts };
+}
+
 /** What the plan step has found, from which `buildGatherPlan` writes stage 2's plan. */
 export interface PlanInputs {
   o: ResolvedShuffleOptions;

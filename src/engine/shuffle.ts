@@ -32,7 +32,7 @@ import { runGatherStage } from './gather-stage.js';
 import { countGroups, placeAllGroups, writeGroupLookup } from './group-census.js';
 import { buildManifest, type Manifest } from './manifest.js';
 import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
-import { buildGatherPlan, checkTolerance, dealingOrder, dealSpecOf, dealTableOf, exactCellCounts, hashCellCounts, partCount, worstDeviation } from './plan.js';
+import { buildGatherPlan, checkTolerance, partCount, planDeal, worstDeviation } from './plan.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -119,18 +119,12 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const tPlan = Date.now();
 
     // ---- plan: quotas, expected counts, the tolerance check, before anything is written ----
-    const records = sc.records;
-    if (records === 0) throw new RowdeckError('RDK_INPUT_EMPTY', `${o.inputs.join(', ')}: no records to shuffle (every record was rejected).`);
-    const d = dealingOrder(sc.strata, sc.bucketCounts, sc.taskStrata, secrets.secret);
-    const deal = dealSpecOf(o, records);
-    const table = dealTableOf(d.strataSizes, deal, secrets.secret, secrets.rankSecret);
-    const parts = partCount(deal);
-    const cells = parts * deal.folds;
+    const planned = planDeal(o, sc, secrets);
+    const { records, d, deal, table, parts, cells } = planned;
     let cellCounts: Float64Array;
     let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
     let groupCount = 0;
-    if (o.assign === 'exact') cellCounts = exactCellCounts(table);
-    else if (o.assign === 'hash') cellCounts = hashCellCounts(sc.cellCounts!, d.localToGlobal, cells);
+    if (planned.cellCounts) cellCounts = planned.cellCounts;
     else {
       // Groups are counted from the census spill where the spill is keyed by record, else from the spill itself.
       const source = sc.census ?? sc.spill;

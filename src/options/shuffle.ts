@@ -400,7 +400,12 @@ export const SHUFFLE_OPTIONS = {
     'It decides the layout, never the output (see Memory and disk)',
   ]),
   threads: threadsOption,
-  tempDir: withHelp(tempDirOption, [...(tempDirOption.help ?? []), 'none where the spill fits in --memory']),
+  tempDir: withHelp(tempDirOption, [
+    'where spill files go (default: beside DIR); they take about 1.3x',
+    'the input (records plus 24 bytes each: more for short records) and',
+    'are removed range by range as the parts are written; there are none',
+    'where the spill fits in --memory (the memory layout)',
+  ]),
   stats: {
     cli: { flag: 'stats' },
     section: O,
