@@ -10,7 +10,7 @@ import { renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
-import { countGroups, placeAllGroups, writeGroupLookup } from '../engine/group-census.js';
+import { countAndPlaceGroups } from '../engine/group-census.js';
 import { buildGatherPlan, checkTolerance, planDeal, worstDeviation, type Worst } from '../engine/plan.js';
 import { partLayout } from '../engine/parts.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
@@ -187,22 +187,18 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
       const lanes = (await dealLanes(threads, dir))!;
       try {
         const source = sc.census ?? sc.spill;
-        const groups = await countGroups(
-          {
-            count: source.buckets,
-            piecesOf: (b) => source.pieces(b),
-            bits: Math.log2(source.buckets),
-            taskToDealing: d.taskToDealing,
-            split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
-          },
-          join(dir, 'groups-census.bin'),
+        ({ cellCounts, groupLookup } = await countAndPlaceGroups({
+          source,
+          taskToDealing: d.taskToDealing,
+          split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
+          dir,
           lanes,
-          threads * 2,
-          () => {},
-        );
-        const placement = placeAllGroups(groups, deal, d.strataSizes);
-        cellCounts = placement.cellCounts;
-        groupLookup = writeGroupLookup(dir, groups, placement.placed, cellKeyInHeader ? null : plan.size.bits);
+          width: threads * 2,
+          progress: () => {},
+          deal,
+          strataSizes: d.strataSizes,
+          lookupBits: cellKeyInHeader ? null : plan.size.bits,
+        }));
       } finally {
         await lanes.destroy();
       }

@@ -116,6 +116,35 @@ export function placeAllGroups(groups: GroupTable, deal: DealSpec, strataSizes: 
  * keyed by group, each bucket's groups are a run of the table, and their starts are returned;
  * null (records placed individually): every lane reads the whole table.
  */
+/** A spill the groups are counted from (the census spill, or the spill where it is keyed by group). */
+export interface CensusSpill {
+  buckets: number;
+  pieces: (bucket: number) => SpillPiece[];
+}
+
+/**
+ * Group mode's plan step, the same for a run on one machine and a plan's deal step: every group
+ * counted from `source` (census.bin in `dir`), placed largest first, and the lookup stage 2 reads
+ * (groups.bin); `lookupBits` null where a bucket's records may belong to any group.
+ */
+export async function countAndPlaceGroups(a: {
+  source: CensusSpill;
+  taskToDealing: number[][];
+  split: NonNullable<CensusSource['split']>;
+  dir: string;
+  lanes: CensusLanes | null;
+  width: number;
+  progress: (done: number, total: number) => void;
+  deal: DealSpec;
+  strataSizes: number[];
+  lookupBits: number | null;
+}): Promise<{ count: number; cellCounts: Float64Array; groupLookup: { groupsFile: string; groupStarts: number[] | null } }> {
+  const src: CensusSource = { count: a.source.buckets, piecesOf: (b) => a.source.pieces(b), bits: Math.log2(a.source.buckets), taskToDealing: a.taskToDealing, split: a.split };
+  const groups = await countGroups(src, join(a.dir, 'groups-census.bin'), a.lanes, a.width, a.progress);
+  const placement = placeAllGroups(groups, a.deal, a.strataSizes);
+  return { count: groups.count, cellCounts: placement.cellCounts, groupLookup: writeGroupLookup(a.dir, groups, placement.placed, a.lookupBits) };
+}
+
 export function writeGroupLookup(dir: string, groups: GroupTable, placed: Uint32Array, bucketBits: number | null): { groupsFile: string; groupStarts: number[] | null } {
   const groupsFile = 'groups.bin';
   writeGroupsFile(join(dir, groupsFile), groups.hi, groups.lo, placed);

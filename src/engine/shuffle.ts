@@ -29,7 +29,7 @@ import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleO
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { runGatherStage } from './gather-stage.js';
-import { countGroups, placeAllGroups, writeGroupLookup } from './group-census.js';
+import { countAndPlaceGroups } from './group-census.js';
 import { buildManifest, type Manifest } from './manifest.js';
 import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
 import { buildGatherPlan, checkTolerance, partCount, planDeal, worstDeviation } from './plan.js';
@@ -128,23 +128,19 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     else {
       // Groups are counted from the census spill where the spill is keyed by record, else from the spill itself.
       const source = sc.census ?? sc.spill;
-      const groups = await countGroups(
-        {
-          count: source.buckets,
-          piecesOf: (b) => source.pieces(b),
-          bits: Math.log2(source.buckets),
-          taskToDealing: d.taskToDealing,
-          split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
-        },
-        join(spillDir, 'groups-census.bin'),
+      const placed = await countAndPlaceGroups({
+        source,
+        taskToDealing: d.taskToDealing,
+        split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
+        dir: spillDir,
         lanes,
-        Math.max(1, size.threads) * 2,
-        progress('plan', records),
-      );
-      groupCount = groups.count;
-      const placement = placeAllGroups(groups, deal, d.strataSizes);
-      cellCounts = placement.cellCounts;
-      groupLookup = writeGroupLookup(spillDir, groups, placement.placed, scattered.cellKeyInHeader ? null : size.bits);
+        width: Math.max(1, size.threads) * 2,
+        progress: progress('plan', records),
+        deal,
+        strataSizes: d.strataSizes,
+        lookupBits: scattered.cellKeyInHeader ? null : size.bits,
+      });
+      ({ count: groupCount, cellCounts, groupLookup } = placed);
       if (sc.census) {
         const census = sc.census;
         const { ranges } = spillRanges(census.buckets);
