@@ -41,13 +41,21 @@ function bytesUnder(dir) {
   return n;
 }
 
+const stageTimes = [];
+let t0 = performance.now();
+const lap = (name) => { const t = performance.now(); stageTimes.push(`${name} ${((t - t0) / 1000).toFixed(2)} s`); t0 = t; };
 await run(['plan', input, '--out', out, '--work', work, '--tasks', String(tasks), '--gather-tasks', String(gatherTasks), '--threads', '1', '--quiet', ...rest]);
+lap('plan');
 const plan = JSON.parse((await import('node:fs')).readFileSync(join(work, 'plan.json'), 'utf8'));
 await pool(plan.scatter.map((_, i) => i), atOnce, (i) => run(['task', work, '--stage', 'scatter', '--index', String(i), '--quiet']));
+lap('scatter');
 const scatterBytes = bytesUnder(join(work, 'scatter'));
 await run(['task', work, '--stage', 'deal', '--quiet']);
+lap('deal');
 await pool(plan.gather.map((_, i) => i), atOnce, (i) => run(['task', work, '--stage', 'gather', '--index', String(i), '--quiet']));
+lap('gather');
 const gatherBytes = bytesUnder(join(work, 'gather'));
 await run(['finish', work, '--quiet']);
+lap('finish');
 const outBytes = bytesUnder(out);
-process.stderr.write(`cluster-local: ${plan.scatter.length} scatter and ${plan.gather.length} gather tasks; written: spill ${(scatterBytes / 1e9).toFixed(2)} GB, gather slices ${(gatherBytes / 1e9).toFixed(2)} GB, parts ${(outBytes / 1e9).toFixed(2)} GB\n`);
+process.stderr.write(`cluster-local: ${plan.scatter.length} scatter and ${plan.gather.length} gather tasks; written: spill ${(scatterBytes / 1e9).toFixed(2)} GB, gather slices ${(gatherBytes / 1e9).toFixed(2)} GB, parts ${(outBytes / 1e9).toFixed(2)} GB; ${stageTimes.join(', ')}\n`);
