@@ -19,6 +19,7 @@ const take = (name, dflt) => {
 const tasks = Number(take('tasks', 4));
 const gatherTasks = Number(take('gather-tasks', 4));
 const atOnce = Number(take('at-once', 2));
+const threads = take('threads', '1');
 const cli = resolve(take('cli', join(root, 'dist', 'cli', 'main.js')));
 const [input, out, ...rest] = args;
 const work = `${out}.work`;
@@ -44,7 +45,7 @@ function bytesUnder(dir) {
 const stageTimes = [];
 let t0 = performance.now();
 const lap = (name) => { const t = performance.now(); stageTimes.push(`${name} ${((t - t0) / 1000).toFixed(2)} s`); t0 = t; };
-await run(['plan', input, '--out', out, '--work', work, '--tasks', String(tasks), '--gather-tasks', String(gatherTasks), '--threads', '1', '--quiet', ...rest]);
+await run(['plan', input, '--out', out, '--work', work, '--tasks', String(tasks), '--gather-tasks', String(gatherTasks), '--threads', threads, '--quiet', ...rest]);
 lap('plan');
 const plan = JSON.parse((await import('node:fs')).readFileSync(join(work, 'plan.json'), 'utf8'));
 await pool(plan.scatter.map((_, i) => i), atOnce, (i) => run(['task', work, '--stage', 'scatter', '--index', String(i), '--quiet']));

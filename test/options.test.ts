@@ -229,6 +229,7 @@ const LIBRARY_GOOD: [Command, string, unknown, (r: Record<string, unknown>) => u
   ['task', 'index', '3', (r) => r.index, '3'],
   ['finish', 'work', 'w2', (r) => r.work, 'w2'],
   ['finish', 'keepWork', true, (r) => r.keepWork, true],
+  ['finish', 'threads', 0, (r) => r.threads, 0],
   ['status', 'work', 'w2', (r) => r.work, 'w2'],
 ];
 
@@ -365,6 +366,7 @@ const LIBRARY_BAD: [Command, string, Record<string, unknown>, string, string][] 
   ['task', 'index', { index: 3 }, 'RDK_OPTION', invalid('index', 'a task number', '3')],
   ['finish', 'work', { work: '' }, 'RDK_OPTION', invalid('work', 'a folder path', '""')],
   ['finish', 'keepWork', { keepWork: 'yes' }, 'RDK_OPTION', invalid('keepWork', 'true or false', '"yes" (a string)')],
+  ['finish', 'threads', { threads: 257 }, 'RDK_OPTION', invalid('threads', INT(0, 256), '257')],
   ['status', 'work', { work: 5 }, 'RDK_OPTION', invalid('work', 'a folder path', '5')],
 ];
 
@@ -465,6 +467,7 @@ const CLI_GOOD: [Command, string, string[], (r: Record<string, unknown>) => unkn
   ['task', 'index', ['--index', '7'], (r) => r.index, '7'],
   ['finish', 'work', [], (r) => r.work, 'work'],
   ['finish', 'keepWork', ['--keep-work'], (r) => r.keepWork, true],
+  ['finish', 'threads', ['--threads', '3'], (r) => r.threads, 3],
   ['status', 'work', [], (r) => r.work, 'work'],
 ];
 
@@ -563,6 +566,7 @@ const CLI_BAD: [Command, string, string[], string, string, boolean?][] = [
   ['task', 'index', ['--index'], 'RDK_OPTION', 'Invalid option --index: expected I after it, got nothing'],
   ['finish', 'work', [], 'RDK_MISSING_ARGUMENT', 'rowdeck finish needs WORK, the work folder of a plan (rowdeck plan --work).', true],
   ['finish', 'keepWork', ['--keep-work=1'], 'RDK_OPTION', 'Invalid option --keep-work: it takes no value (it is a switch), got "1"'],
+  ['finish', 'threads', ['--threads', 'x'], 'RDK_OPTION', cliInvalid('threads', INT(0, 256), '"x"')],
   ['status', 'work', ['a', 'b'], 'RDK_OPTION', 'rowdeck status takes one WORK, got 2: a, b.', true],
 ];
 

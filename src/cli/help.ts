@@ -208,12 +208,13 @@ ${renderOptionList(TASK_SPEC)}`;
 export const FINISH_HELP = `rowdeck finish — join a plan's parts and write the output
 
 Usage:
-  rowdeck finish WORK [--keep-work] [--json]
+  rowdeck finish WORK [--keep-work] [--threads N] [--json]
 
 Checks that every task of the plan is done and was written for this plan (naming any missing or
-failed one with the command that runs it), joins the gather tasks' parts in order, writes the
-manifest (its run section lists every task's host and times), puts the output folder into place
-at once, and removes WORK.
+failed one with the command that runs it), removes the scatter tasks' spill unless --keep-work
+(no task reads it any more), joins the gather tasks' parts in order (plain parts on worker
+threads, side by side), writes the manifest (its run section lists every task's host and
+times), puts the output folder into place at once, and removes WORK.
 
 ${renderOptionList(FINISH_SPEC)}`;
 

@@ -4,14 +4,16 @@
  * manifest with the tasks' hosts and times in its `run` section, puts the output into place
  * atomically (src/engine/run-work.ts, as `shuffle` does), and removes the work folder.
  */
-import { createReadStream, readFileSync, rmSync, writeFileSync } from 'node:fs';
-import { basename, join } from 'node:path';
-import { cpus, hostname, totalmem } from 'node:os';
+import { createReadStream, mkdirSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { basename, dirname, join } from 'node:path';
+import { availableParallelism, cpus, hostname, totalmem } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats } from '../core/stats.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
 import type { PartWriter } from '../io/part-writer.js';
+import { joinFiles } from '../io/join-files.js';
+import type { JoinMessage } from '../workers/protocol.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { buildManifest } from '../engine/manifest.js';
@@ -31,6 +33,8 @@ import type { ScatterDone } from './scatter-task.js';
 export interface FinishOptions {
   /** Keep the work folder (default: removed once the output is in place). */
   keepWork?: boolean;
+  /** Threads that join and hash the parts (default: the machine's cores; 0: the calling thread). */
+  threads?: number;
   onNotice?: (text: string) => void;
 }
 
@@ -61,6 +65,10 @@ function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; g
   return { scatter: present(scatter), deal: present(deal)[0]!, gather: present(gather) };
 }
 
+function removeAllBut(dir: string, keep: string): void {
+  for (const name of readdirSync(dir)) if (name !== keep) rmSync(join(dir, name), { recursive: true, force: true });
+}
+
 /** Appends a file to a part, a MiB at a time. */
 async function appendFile(writer: PartWriter, path: string): Promise<void> {
   const stream = createReadStream(path, { highWaterMark: 1 << 20 });
@@ -75,6 +83,9 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   const t0 = Date.now();
   const o = enterPlan(plan);
   const done = allDone(plan);
+  // Every gather task is done, so the spill is read no more: removed now, it frees its disk (and
+  // pages a local disk has not written back yet) before the parts are written. Done records stay.
+  if (!f.keepWork) for (let t = 0; t < plan.scatter.length; t++) removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json');
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
   const deal = done.deal;
   const schema = { ...deal.schema, headerBytes: deal.schema.headerBytes === null ? null : Buffer.from(deal.schema.headerBytes, 'base64') } as InputSchema;
@@ -87,23 +98,43 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);
     const header = headerBytes(schema, o.foldColumn, plan.format);
-    writers = await openParts(stage, layout, o, header, work.spillDir);
     const counts = new Float64Array(parts * K * S);
     const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
     for (const g of done.gather) {
       for (let i = 0; i < counts.length; i++) counts[i]! += g.counts[i]!;
       g.fingerprints.forEach((fp, p) => fingerprints[p]!.merge(fp));
     }
-    if (gatherPlan.order === 'spread') {
-      const spread = new SpreadParts('', parts, S, done.gather.map((g, m) => ({ dir: taskDir(plan.work, 'gather', m), chunks: g.spread! })));
-      await writeSpreadParts(spread, writers, counts, K, S, () => {});
-    } else {
-      for (let p = 0; p < parts; p++) {
-        for (let m = 0; m < done.gather.length; m++) if (done.gather[m]!.partBytes[p]! > 0) await appendFile(writers[p]!, join(taskDir(plan.work, 'gather', m), partSliceFile(p)));
+    const slicesOf = (p: number): string[] => done.gather.flatMap((g, m) => (g.partBytes[p]! > 0 ? [join(taskDir(plan.work, 'gather', m), partSliceFile(p))] : []));
+    let closed: { bytes: number; sha256: string }[];
+    if (gatherPlan.order !== 'spread' && !o.gzip) {
+      // Plain parts: each joined and hashed whole on a worker lane, parts side by side.
+      for (const part of layout) {
+        const folder = dirname(join(stage, part.path));
+        try {
+          mkdirSync(folder, { recursive: true });
+        } catch (err) {
+          throw systemError(err, folder, 'creating a folder for the parts');
+        }
       }
+      const threads = Math.min(parts, f.threads ?? availableParallelism());
+      const lanes = await dealLanes(threads, dealDir);
+      try {
+        const one = (p: number): JoinMessage => ({ kind: 'join', out: join(stage, layout[p]!.path), header, files: slicesOf(p) });
+        closed = lanes ? await Promise.all(layout.map((_, p) => lanes.run(one(p)))) : layout.map((_, p) => joinFiles(one(p)));
+      } finally {
+        await lanes?.destroy();
+      }
+    } else {
+      writers = await openParts(stage, layout, o, header, work.spillDir);
+      if (gatherPlan.order === 'spread') {
+        const spread = new SpreadParts('', parts, S, done.gather.map((g, m) => ({ dir: taskDir(plan.work, 'gather', m), chunks: g.spread! })));
+        await writeSpreadParts(spread, writers, counts, K, S, () => {});
+      } else {
+        for (let p = 0; p < parts; p++) for (const file of slicesOf(p)) await appendFile(writers[p]!, file);
+      }
+      closed = await closeParts(writers);
+      writers = [];
     }
-    const closed = await closeParts(writers);
-    writers = [];
     // Statistics: the lanes' tables of every gather task merged (exact, in any order), or each part read back.
     let stats: { parts: ReturnType<TableStats['summary']>[]; input: ReturnType<TableStats['summary']> } | null = null;
     if (o.stats) {

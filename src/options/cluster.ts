@@ -5,7 +5,7 @@
  */
 import { RowdeckError } from '../errors.js';
 import { resolveShuffleOptions, SHUFFLE_OPTIONS, type ResolvedShuffleOptions, type ShuffleOptions } from './shuffle.js';
-import { withHelp } from './input.js';
+import { threadsOption, withHelp } from './input.js';
 import {
   booleanValue,
   choiceValue,
@@ -186,6 +186,8 @@ export interface FinishCommandOptions {
   work: string;
   /** Keep the work folder (default: removed once the output is in place). */
   keepWork?: boolean;
+  /** Threads that join and hash the parts (default: the machine's cores). */
+  threads?: number;
 }
 
 export const FINISH_SPEC: CommandSpec<FinishCommandOptions> = {
@@ -193,6 +195,7 @@ export const FINISH_SPEC: CommandSpec<FinishCommandOptions> = {
   table: {
     work: workFolder,
     keepWork: { cli: { flag: 'keep-work' }, section: T, help: ['keep WORK afterwards'], ...booleanValue() },
+    threads: { ...threadsOption, section: T, help: ["threads that join and hash the parts (default: this machine's", 'cores, whatever the plan said for its tasks); 0: none'] },
   } satisfies { [K in keyof Required<FinishCommandOptions>]: OptionDef<NonNullable<FinishCommandOptions[K]>> },
   cliOnly: {
     json: { flag: 'json', section: T, help: ['print the manifest on stdout'] },

@@ -14,6 +14,7 @@
  *   split                 unitsOf (split.ts)                        SplitResult
  *   bucket                runGatherStage (gather-stage.ts)          GatherResult
  *   partStats             partStatistics (parts.ts)                 PartStatsResult
+ *   join                  finish (cluster/finish.ts)                Joined
  *   part                  verify's part scan (verify/scan-parts.ts) SerializedPartScan
  *
  * A lane's `finish` gets what the worker kept; the shuffle's threads finish twice, and say which
@@ -24,6 +25,7 @@ import { RowdeckError } from '../errors.js';
 import type { GroupTableData } from '../core/group-table.js';
 import type { InputSchema, RejectedRecord } from '../io/batch.js';
 import type { RecordReaderOptions } from '../io/reader.js';
+import type { JoinTask, Joined } from '../io/join-files.js';
 import type { CensusTask } from '../engine/census-bucket.js';
 import type { GatherResult, GatherTask } from '../engine/gather.js';
 import type { GatherFinal } from '../engine/gather-lane.js';
@@ -116,6 +118,9 @@ export type BucketMessage = { kind: 'bucket' } & GatherTask;
 /** Read a written part back for its statistics (part-stats.ts). */
 export type PartStatsMessage = { kind: 'partStats' } & PartStatsTask;
 
+/** Write one plain part from a plan's gather tasks' files, hashing it (io/join-files.ts). */
+export type JoinMessage = { kind: 'join' } & JoinTask;
+
 // --- replies ---------------------------------------------------------------------------------
 
 /** A buffer handed back for reuse (a packed batch's, a block's), or (id -1, empty) a plain acknowledgement. */
@@ -159,6 +164,7 @@ export interface Replies {
   split: SplitResult;
   bucket: GatherResult;
   partStats: PartStatsResult;
+  join: Joined;
   part: SerializedPartScan;
 }
 
@@ -194,8 +200,8 @@ export function byKind<T extends { kind: Kind }>(table: HandlerTable<T>): (m: T)
 /** The scatter work of stage 1: a packed batch read by the calling thread, a small input to read, or block work. */
 export type ScatterMessage = BatchMessage | SmallInputMessage | BlockMessage;
 
-/** The same threads' work after stage 1: count a bucket's groups, split a bucket, deal a bucket, read a part back. */
-export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartStatsMessage;
+/** The same threads' work after stage 1: count a bucket's groups, split a bucket, deal a bucket, read a part back, join a plan's part. */
+export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartStatsMessage | JoinMessage;
 
 /** Everything shuffle-worker.ts takes. */
 export type ShuffleMessage = ScatterMessage | GatherMessage;

@@ -62,7 +62,7 @@ export async function runFinish(argv: string[], io: CliIO): Promise<number> {
   }
   const f = resolveFinishOptions(options);
   const plan = loadPlan(f.work);
-  const run = await finishCluster(plan, { keepWork: f.keepWork === true, onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`) });
+  const run = await finishCluster(plan, { keepWork: f.keepWork === true, ...(f.threads !== undefined ? { threads: f.threads } : {}), onNotice: (text) => io.stderr.write(`rowdeck: ${text}\n`) });
   if (v.json) io.stdout.write(JSON.stringify(run.manifest, null, 2) + '\n');
   if (!v.quiet) io.stderr.write(`rowdeck: ${run.manifest.input.records.toLocaleString('en-US')} records -> ${run.manifest.output.parts.length} part(s) in ${run.out} (plan ${plan.planId}, ${plan.scatter.length} scatter and ${plan.gather.length} gather tasks).\n`);
   return 0;
