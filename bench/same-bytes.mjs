@@ -5,6 +5,7 @@
 // and verify report without timings, and the exit status and error text of each run. Given an
 // earlier record (`--against`), it lists every difference and exits 1 when there is one.
 //
+//   node bench/same-bytes.mjs --other ../old-checkout        (both builds, one after the other, then the differences)
 //   node bench/same-bytes.mjs --cli /tmp/old/dist/cli/main.js --work /tmp/sb-old --record /tmp/old.json
 //   node bench/same-bytes.mjs --cli dist/cli/main.js --work /tmp/sb-new --record /tmp/new.json --against /tmp/old.json
 //
@@ -15,7 +16,7 @@
 // messages and manifests that name files compare as they are.
 import { spawnSync } from 'node:child_process';
 import { createHash } from 'node:crypto';
-import { cpSync, createReadStream, existsSync, mkdirSync, readdirSync, readFileSync, rmSync, statSync, symlinkSync, writeFileSync } from 'node:fs';
+import { closeSync, cpSync, createReadStream, existsSync, mkdirSync, openSync, readdirSync, readFileSync, readSync, rmSync, statSync, symlinkSync, writeFileSync } from 'node:fs';
 import { dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parse } from 'csv-parse';
@@ -35,6 +36,17 @@ const only = arg('only', null)?.split(',') ?? null;
 
 const SEED = ['--seed', 'same-bytes', '--quiet'];
 
+// --other CHECKOUT: that build's record first (its dist/ built), then this build's against it.
+const other = arg('other', null);
+if (other) {
+  const self = fileURLToPath(import.meta.url);
+  const keep = process.argv.slice(2).filter((a, i, all) => a !== '--other' && all[i - 1] !== '--other' && !['--work', '--record', '--against', '--cli'].includes(a) && !['--work', '--record', '--against', '--cli'].includes(all[i - 1]));
+  const a = spawnSync(process.execPath, [self, '--cli', resolve(other, 'dist/cli/main.js'), '--work', `${work}-other`, '--record', `${work}-other.json`, ...keep], { stdio: 'inherit' });
+  if (a.status !== 0) process.exit(a.status ?? 1);
+  const b = spawnSync(process.execPath, [self, '--cli', cli, '--work', `${work}-this`, '--record', `${work}-this.json`, '--against', `${work}-other.json`, ...keep], { stdio: 'inherit' });
+  process.exit(b.status ?? 1);
+}
+
 /** Every case: a name and the command line after `rowdeck`. Outputs go to a folder named after the case. */
 const CASES = [
   // shuffle: each writes ./NAME
@@ -47,6 +59,16 @@ const CASES = [
   ['jsonl-spread', ['shuffle', 'slice.jsonl', '--partitions', '2', '--stratify', 'humidity_pct:bins=3', '--order', 'spread', '--stats']],
   ['small', ['shuffle', 'small.csv', '--partitions', '2', '--stratify', 'fault', '--folds', '3', '--stats', '--gzip']],
   ['small-withheld', ['shuffle', 'small.csv', '--partitions', '2', '--stratify', 'fault,site', '--folds', '3', '--exclude-values']],
+  // head.csv: the data's first 200,000 records, for the modes and layouts of a shuffle
+  ['stats-lanes', ['shuffle', 'head.csv', '--partitions', '4', '--stratify', 'fault', '--stats', '--threads', '2']],
+  ['stats-read-back', ['shuffle', 'head.csv', '--partitions', '40', '--stats', '--memory', '8MiB', '--threads', '2']],
+  ['grouped', ['shuffle', 'head.csv', '--partitions', '4', '--group', 'sensor_id', '--order', 'grouped']],
+  ['spread', ['shuffle', 'head.csv', '--partitions', '3', '--stratify', 'fault', '--order', 'spread', '--folds', '2']],
+  ['splits', ['shuffle', 'head.csv', '--split', 'train=0.8,valid=0.1,test=0.1', '--stratify', 'fault']],
+  ['counts-rest', ['shuffle', 'head.csv', '--split', 'test=5000,train=*', '--stratify', 'site']],
+  ['gzip', ['shuffle', 'head.csv', '--partitions', '2', '--gzip', '--stratify', 'fault']],
+  ['calling-thread', ['shuffle', 'head.csv', '--partitions', '3', '--stratify', 'fault', '--threads', '0']],
+  ['multi-pass', ['shuffle', 'head.csv', '--partitions', '5', '--stratify', 'fault', '--folds', '2', '--memory', '1MiB']],
   // profile: stdout
   ['profile', ['profile', 'data.csv', '--stratify', 'fault,site', '--partitions', '4', '--folds', '5', '--json']],
   ['profile-jsonl', ['profile', 'slice.jsonl', '--stratify', 'humidity_pct:bins=5', '--json']],
@@ -101,6 +123,31 @@ async function writeJsonlSlice(from, to, n) {
   writeFileSync(to, lines.join('\n') + '\n');
 }
 
+/** The first `count` records of a CSV file, its header among them (a quote toggles in and out of a quoted field, RFC 4180). */
+function headLines(path, count) {
+  const fd = openSync(path, 'r');
+  const chunks = [];
+  const buf = Buffer.alloc(1 << 20);
+  let lines = 0;
+  let quoted = false;
+  try {
+    for (let n = readSync(fd, buf); n > 0 && lines < count; n = readSync(fd, buf)) {
+      let end = n;
+      for (let i = 0; i < n; i++) {
+        if (buf[i] === 0x22) quoted = !quoted;
+        else if (buf[i] === 0x0a && !quoted && ++lines === count) {
+          end = i + 1;
+          break;
+        }
+      }
+      chunks.push(Buffer.from(buf.subarray(0, end)));
+    }
+  } finally {
+    closeSync(fd);
+  }
+  return Buffer.concat(chunks);
+}
+
 /** Sha256 of each file under dir (manifest.json canonical), by relative path. */
 function hashFolder(dir) {
   const out = {};
@@ -135,8 +182,9 @@ writeFileSync('tiny.csv', 'id,c\n1,a\n2,b\n3,a\n4,a\n5,a\n6,a\n7,b\n8,a\n9,a\n')
 // The rare class first in key order, this time: "stratum #N" counts in key order either way.
 writeFileSync('tiny2.csv', 'id,c\n1,b\n2,a\n3,b\n4,b\n5,b\n6,b\n7,a\n8,b\n9,b\n');
 if (!existsSync('slice.jsonl')) await writeJsonlSlice(data, 'slice.jsonl', jsonlRecords);
+if (!existsSync('head.csv')) writeFileSync('head.csv', headLines(data, 200_001));
 
-const record = { cli, data, inputs: { 'slice.jsonl': sha(readFileSync('slice.jsonl')), 'small.csv': sha(readFileSync('small.csv')) }, cases: {} };
+const record = { cli, data, inputs: { 'slice.jsonl': sha(readFileSync('slice.jsonl')), 'small.csv': sha(readFileSync('small.csv')), 'head.csv': sha(readFileSync('head.csv')) }, cases: {} };
 for (const [name, argv] of CASES) {
   if (only && !only.includes(name)) continue;
   const full = [...argv, ...SEED];

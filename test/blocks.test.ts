@@ -38,14 +38,14 @@ class LocalLanes implements BlockLanes {
     this.#rng = rng;
   }
 
-  runOn<M extends BlockMessage>(lane: number, m: M, transfer: ArrayBuffer[] = []): Promise<Reply<M, unknown>> {
+  runOn<M extends BlockMessage>(lane: number, m: M, transfer: ArrayBuffer[] = []): Promise<Reply<M>> {
     const ticks = Math.floor(this.#rng() * 4);
     const sent = structuredClone(m, { transfer });
     const run = this.#queues[lane]!.then(async () => {
       for (let t = 0; t < ticks; t++) await new Promise((r) => setImmediate(r));
       const reply = this.#hosts[lane]!.handle(sent);
       // BlockHost answers each kind with its reply (workers/protocol.ts), as a worker would.
-      return structuredClone<unknown>(reply.result, { transfer: reply.transfer ?? [] }) as Reply<M, unknown>;
+      return structuredClone<unknown>(reply.result, { transfer: reply.transfer ?? [] }) as Reply<M>;
     });
     this.#queues[lane] = run.catch(() => {});
     return run;

@@ -233,6 +233,7 @@ describe('invariant 1: a pure function of (seed, inputs, options)', () => {
     const b = await shuffle({ inputs: [input], out: join(dir, 'default-b'), threads: 1 });
     expect(a.seedIsDefault).toBe(true);
     expect(typeof a.seed).toBe('string');
+    expect(b.seed).toBe(a.seed);
     expect(outputsOf(join(dir, 'default-a'))).toEqual(outputsOf(join(dir, 'default-b')));
   });
 });

@@ -10,30 +10,24 @@ import { renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
-import { countAndPlaceGroups } from '../engine/group-census.js';
-import { buildGatherPlan, checkTolerance, planDeal, worstDeviation, type Worst } from '../engine/plan.js';
-import { partLayout } from '../engine/parts.js';
+import { planStage } from '../engine/plan-stage.js';
+import type { Worst } from '../engine/plan.js';
+import type { ManifestInput } from '../engine/manifest.js';
 import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from '../engine/scatter.js';
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
 import type { SpillPiece } from '../engine/spill.js';
-import type { DealSpec } from '../core/deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
 import { absoluteResults, runScatterTask, type ScatterDone, type SliceStarts } from './scatter-task.js';
 import { taskCommand } from './commands.js';
 import { dealLanes } from './lanes.js';
 
-/** What the deal step hands to the gather tasks and to finish. */
-export interface DealDone extends DoneRecord {
+/**
+ * What the deal step hands to the gather tasks and to finish: the manifest's figures from stage 1
+ * and the plan (`rejectsFile`: rejected.csv's content in the deal folder, quarantine), and more.
+ */
+export interface DealDone extends DoneRecord, Pick<ManifestInput, 'inputs' | 'records' | 'rejected' | 'rejectsFile' | 'strataKeys' | 'strataSizes' | 'deal'> {
   schema: Omit<InputSchema, 'headerBytes'> & { headerBytes: string | null };
-  inputs: { path: string; bytes: number; records: number; rejected: number }[];
-  records: number;
-  rejected: number;
-  /** rejected.csv's content is in the deal folder (quarantine), or null. */
-  rejectsFile: string | null;
-  strataKeys: string[];
-  strataSizes: number[];
-  deal: DealSpec;
   worst: Worst;
   fingerprint: { hi: number; lo: number; count: number };
   /** Scatter tasks read again here (their slice began inside a quoted field). */
@@ -177,37 +171,25 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     const rejects = new Rejects(o.onBadRecord === 'quarantine');
     dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
 
-    const planned = planDeal(o, sc, secrets);
-    const { records, d, deal, table, parts, cells } = planned;
-    let cellCounts: Float64Array;
-    let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
-    if (planned.cellCounts) cellCounts = planned.cellCounts;
-    else {
-      const threads = Math.max(1, plan.size.threads);
-      const lanes = (await dealLanes(threads, dir))!;
-      try {
-        const source = sc.census ?? sc.spill;
-        ({ cellCounts, groupLookup } = await countAndPlaceGroups({
-          source,
-          taskToDealing: d.taskToDealing,
-          split: { cap: plan.size.bucketCap, target: plan.size.bucketTarget, dir, bufferBytes: Math.floor(plan.size.memory / 4) },
-          dir,
-          lanes,
-          width: threads * 2,
-          progress: () => {},
-          deal,
-          strataSizes: d.strataSizes,
-          lookupBits: cellKeyInHeader ? null : plan.size.bits,
-        }));
-      } finally {
-        await lanes.destroy();
-      }
-    }
-    const layout = partLayout(o, plan.format);
-    const worst = worstDeviation(cellCounts, deal, d.strataSizes);
-    checkTolerance(o, worst, d, layout.map((p) => p.path), deal, records);
-    const gatherPlan = buildGatherPlan({ o, format: plan.format, size: plan.size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: cellKeyInHeader, deal, dealing: d, table, secrets, groupLookup });
-    writeFileSync(join(dir, 'plan.json'), JSON.stringify(gatherPlan));
+    const { planned, worst } = await planStage({
+      o,
+      format: plan.format,
+      size: plan.size,
+      sc,
+      secrets,
+      cellKeyInHeader,
+      dir,
+      withLanes: async (use) => {
+        const lanes = (await dealLanes(Math.max(1, plan.size.threads), dir))!;
+        try {
+          return await use(lanes);
+        } finally {
+          await lanes.destroy();
+        }
+      },
+      progress: () => {},
+    });
+    const { records, d, deal } = planned;
     // Each gather task's share: the ranks its first bucket starts at, its buckets' counts and pieces.
     const S = d.strataKeys.length;
     const running = new Float64Array(S);

@@ -151,6 +151,6 @@ export function gatherHandlers(lane: () => GatherLane): HandlerTable<GatherMessa
 }
 
 /** Stage 2 on the calling thread: one lane with the worker lanes' interface (see InlineLanes). */
-export function inlineGatherLanes(lane: GatherLane): Lanes<GatherMessage, never, ShuffleFinal> {
-  return new InlineLanes<GatherMessage, never, ShuffleFinal>(byKind(gatherHandlers(() => lane)), () => ({ final: { kind: 'gathered', final: lane.finish().final } }));
+export function inlineGatherLanes(lane: GatherLane): Lanes<GatherMessage, ShuffleFinal> {
+  return new InlineLanes<GatherMessage, ShuffleFinal>(byKind(gatherHandlers(() => lane)), () => ({ final: { kind: 'gathered', final: lane.finish().final } }));
 }

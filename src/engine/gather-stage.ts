@@ -7,13 +7,12 @@
  * the next bucket's split starts while the sub-buckets of the one before are dealt.
  */
 import { Fingerprint } from '../core/hash.js';
-import { RowdeckError } from '../errors.js';
 import type { GatherLanes, BucketMessage } from '../workers/protocol.js';
 import { addCounts, type GatherResult } from './gather.js';
 import { gatherLane, inlineGatherLanes, type GatherLane } from './gather-lane.js';
 import { partCount, type GatherPlan } from './plan.js';
 import type { SpillPiece } from './spill.js';
-import { SplitSlots, unitsOf, type GatherUnit, type SplitPolicy } from './split.js';
+import { splitPolicy, unitsOf, type GatherUnit, type SplitSettings } from './split.js';
 
 /** Takes each bucket's result, in bucket order; the result's buffers go back to the lanes afterwards. */
 export interface GatherSink {
@@ -44,7 +43,7 @@ export interface GatherStageInput {
    * Buckets larger than `cap` are split (the multi-pass layout; split.ts) into files in `dir`
    * (nameless, gone at the end); absent: every bucket is dealt whole.
    */
-  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes' | 'onSplit'> & { dir: string };
+  split?: SplitSettings;
 }
 
 export interface GatherStage {
@@ -78,23 +77,16 @@ export async function runGatherStage(i: GatherStageInput): Promise<GatherStage> 
   const fingerprints = Array.from({ length: parts }, () => new Fingerprint());
   const phases: number[] = [];
   let splits = 0;
-  const slots = i.split ? new SplitSlots(i.split.dir) : null;
-  const policy: SplitPolicy | null = i.split
-    ? {
-        cap: i.split.cap,
-        target: i.split.target,
-        bufferBytes: i.split.bufferBytes,
-        slots: slots!,
-        shares: run.size,
-        strata: plan.localToGlobal,
-        strataCount: plan.strataCount,
-        run: (t) => run.run(t),
-        onSplit: () => {
-          splits++;
-          i.split!.onSplit?.();
-        },
-      }
-    : null;
+  const { policy, slots } = splitPolicy(
+    i.split && {
+      ...i.split,
+      onSplit: () => {
+        splits++;
+        i.split!.onSplit?.();
+      },
+    },
+    { shares: run.size, strata: plan.localToGlobal, strataCount: plan.strataCount, run: (t) => run.run(t) },
+  );
   // Each bucket's units, asked for in order; the next bucket's are asked for as soon as the
   // current one's are, so its split (if any) runs beside the dealing.
   const expansions = new Map<number, Promise<GatherUnit[]>>();

@@ -13,7 +13,7 @@ import { GroupTable, type GroupTableData } from '../core/group-table.js';
 import { RowdeckError } from '../errors.js';
 import { censusBucket } from './census-bucket.js';
 import type { SpillPiece } from './spill.js';
-import { splitPieces, SplitSlots, unitsOf, type SplitPolicy } from './split.js';
+import { splitPieces, splitPolicy, unitsOf, type SplitSettings } from './split.js';
 import type { CensusLanes, CensusMessage } from '../workers/protocol.js';
 
 /** Where the groups are counted from: census buckets (keyed by group hash), and the strata map. */
@@ -30,7 +30,7 @@ export interface CensusSource {
    * the end) and counted as its sub-buckets, in key order (a group's records share its key, so
    * they stay together).
    */
-  split?: Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes'> & { dir: string };
+  split?: SplitSettings;
 }
 
 /**
@@ -46,19 +46,12 @@ export async function countGroups(
 ): Promise<GroupTable> {
   const census = new GroupTableBuilder(workFile);
   const yieldNow = (): Promise<void> => new Promise<void>((resolve) => setImmediate(resolve));
-  const slots = src.split ? new SplitSlots(src.split.dir) : null;
-  const policy: SplitPolicy | null = src.split
-    ? {
-        cap: src.split.cap,
-        target: src.split.target,
-        bufferBytes: src.split.bufferBytes,
-        slots: slots!,
-        shares: lanes ? width : 1,
-        strata: src.taskToDealing,
-        strataCount: 0,
-        run: async (t) => (lanes ? lanes.run(t) : (await yieldNow(), splitPieces(t))),
-      }
-    : null;
+  const { policy, slots } = splitPolicy(src.split, {
+    shares: lanes ? width : 1,
+    strata: src.taskToDealing,
+    strataCount: 0,
+    run: async (t) => (lanes ? lanes.run(t) : (await yieldNow(), splitPieces(t))),
+  });
   const jobs: Promise<void>[] = [];
   try {
     let counted = 0;

@@ -20,7 +20,7 @@
  */
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { openInput } from '../io/input.js';
-import { RecordReader } from '../io/reader.js';
+import { batchesOf, RecordReader } from '../io/reader.js';
 import type { GatherPlan } from './plan.js';
 import { flags } from '../flags.js';
 
@@ -99,21 +99,7 @@ function newPartReader(plan: GatherPlan): RecordReader {
  * table of the plan's columns (PartStatsGather.take; its done() gives the module back).
  */
 export async function statsOfPartFile(plan: GatherPlan, task: PartStatsTask, stats: TableStats): Promise<TableStats> {
-  let skip = task.headerBytes;
-  const reader = newPartReader(plan);
-  for await (const chunk of openInput(task.partFile)) {
-    let c = chunk;
-    if (skip > 0) {
-      const n = Math.min(skip, c.length);
-      skip -= n;
-      c = c.subarray(n);
-      if (c.length === 0) continue;
-    }
-    const batch = reader.push(c);
-    if (batch) stats.addBatch(batch);
-  }
-  const last = reader.end();
-  if (last) stats.addBatch(last);
+  for await (const batch of batchesOf(newPartReader(plan), openInput(task.partFile), task.headerBytes)) stats.addBatch(batch);
   return stats;
 }
 

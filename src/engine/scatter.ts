@@ -18,13 +18,14 @@ import type { BadRecordPolicy, InputFormat, InputSchema, RecordBatch, RejectedRe
 import { Fingerprint, type Secret } from '../core/hash.js';
 import { BatchSender } from '../io/packed-batches.js';
 import type { RecordReaderOptions } from '../io/reader.js';
-import { inputReaderOptions, isPlainFile, readInput, ReadAhead } from '../io/input.js';
+import { inputReaderOptions, readInput, ReadAhead } from '../io/input.js';
 import { readInputs, smallFileSize, SmallInputSender } from '../io/small-inputs.js';
+import { readOneInput } from '../io/drive.js';
 import { readSlice, type InputSlice, type SliceRead } from '../io/slices.js';
-import { blockSizes, readInBlocks } from '../io/blocks.js';
+import { blockSizes } from '../io/blocks.js';
 import { RowdeckError } from '../errors.js';
 import { WorkerLanes } from '../workers/lanes.js';
-import { scatterFinals, type BatchMessage, type Reply, type ScatterMessage, type ShuffleFinal } from '../workers/protocol.js';
+import { scatterFinals, type ScatterMessage, type ShuffleFinal } from '../workers/protocol.js';
 import type { SpillStore } from './spill.js';
 import { ScatterTask, type ScatterTaskConfig, type ScatterTaskResult } from './scatter-task.js';
 import { SpillIndex } from './spill-index.js';
@@ -106,7 +107,7 @@ export type { ScatterMessage } from '../workers/protocol.js';
  * Lanes that run scatter tasks (shuffle-worker.ts): one worker each, or the caller's (see
  * `ScatterOptions.lanes`), which take stage 2's work afterwards.
  */
-export type ScatterLanes = Pick<WorkerLanes<ScatterMessage, never, ShuffleFinal>, 'size' | 'run' | 'runOn' | 'finish' | 'destroy'>;
+export type ScatterLanes = Pick<WorkerLanes<ScatterMessage, ShuffleFinal>, 'size' | 'run' | 'runOn' | 'finish' | 'destroy'>;
 
 /** What every scatter task is told (its lane number aside): the worker data of the scatter lanes. */
 export function scatterTaskConfig(o: ScatterOptions): Omit<ScatterTaskConfig, 'task'> {
@@ -151,7 +152,7 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
   const inline = o.threads === 0 ? new ScatterTask({ ...config, task: 0 }) : null;
   if (!inline && !o.workerFile && !o.lanes) throw new RowdeckError('RDK_INTERNAL', 'scatter: no worker module given');
   const ownLanes = !inline && !o.lanes;
-  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, never, ShuffleFinal>(o.workerFile!, tasks, config));
+  const lanes: ScatterLanes | null = inline ? null : (o.lanes ?? new WorkerLanes<ScatterMessage, ShuffleFinal>(o.workerFile!, tasks, config));
   const sender = lanes ? new BatchSender(lanes) : null;
   const small = lanes && o.onBadRecord === 'fail' && o.inputs.length > 1 ? new SmallInputSender(lanes) : null;
   const send = async (batch: RecordBatch, input: number, sch: InputSchema): Promise<void> => {
@@ -169,44 +170,24 @@ export async function scatter(o: ScatterOptions): Promise<ScatterResult> {
     const ahead = new ReadAhead(o.inputs, blockSizes({ ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}) }).block, small ? 0 : undefined);
     const readerOptions = (k: number): RecordReaderOptions =>
       inputReaderOptions(o.inputs[k]!, { format: o.format, ...(o.delimiter !== undefined ? { delimiter: o.delimiter } : {}), ...(o.refuseKey !== undefined ? { refuseKey: o.refuseKey } : {}), header: o.header, wanted, onBadRecord: o.onBadRecord, onReject: o.onReject }, expected);
-    /** Reads input k here: whole if it was read ahead, else in blocks by the workers, else as a stream. */
+    /** Reads input k here: whole if it was read ahead, else in blocks by the workers, else as a stream (io/drive.ts). */
     const readHere = async (k: number): Promise<void> => {
-      const path = o.inputs[k]!;
       const ro = readerOptions(k);
-      const seen = inputs[k]!;
-      const whole = await ahead.take(k);
-      const totals =
-        !whole && lanes && (await isPlainFile(path))
-          ? await readInBlocks({
-              path,
-              input: k,
-              reader: ro,
-              lanes,
-              ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}),
-              sequential: (batch, sch) => send(batch, k, sch),
-              onSchema: takeSchema,
-              onProgress: (bytes, records) => {
-                seen.bytes = taken[k] = bytes;
-                seen.records = records;
-                progress();
-              },
-            })
-          : null;
-      if (totals) {
-        seen.bytes = taken[k] = totals.bytes;
-        seen.records = totals.records;
-        seen.rejected = totals.rejected;
-      } else {
-        const source = { bytes: 0 };
-        for await (const { batch, schema: sch, stats } of readInput(path, ro, whole, source)) {
-          await send(batch, k, sch);
-          taken[k] = source.bytes;
-          seen.records += batch.count;
-          seen.bytes = stats.bytes;
-          seen.rejected = stats.rejected;
+      await readOneInput({
+        path: o.inputs[k]!,
+        input: k,
+        reader: ro,
+        whole: await ahead.take(k),
+        lanes,
+        ...(o.blockBytes !== undefined ? { blockBytes: o.blockBytes } : {}),
+        send: (batch, sch) => send(batch, k, sch),
+        onSchema: takeSchema,
+        counts: inputs[k]!,
+        onProgress: (bytes) => {
+          taken[k] = bytes;
           progress();
-        }
-      }
+        },
+      });
       if (k === 0 && ro.format !== 'jsonl' && schema) expected = { columns: (schema as InputSchema).columns, from: ro.file };
     };
     if (o.slices) {

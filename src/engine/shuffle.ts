@@ -29,10 +29,9 @@ import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleO
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { runGatherStage } from './gather-stage.js';
-import { countAndPlaceGroups } from './group-census.js';
+import { planStage } from './plan-stage.js';
 import { buildManifest, type Manifest } from './manifest.js';
-import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
-import { buildGatherPlan, checkTolerance, partCount, planDeal, worstDeviation } from './plan.js';
+import { closeParts, headerBytes, openParts, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -119,38 +118,25 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const tPlan = Date.now();
 
     // ---- plan: quotas, expected counts, the tolerance check, before anything is written ----
-    const planned = planDeal(o, sc, secrets);
-    const { records, d, deal, table, parts, cells } = planned;
-    let cellCounts: Float64Array;
-    let groupLookup: { groupsFile: string | null; groupStarts: number[] | null } = { groupsFile: null, groupStarts: null };
-    let groupCount = 0;
-    if (planned.cellCounts) cellCounts = planned.cellCounts;
-    else {
-      // Groups are counted from the census spill where the spill is keyed by record, else from the spill itself.
-      const source = sc.census ?? sc.spill;
-      const placed = await countAndPlaceGroups({
-        source,
-        taskToDealing: d.taskToDealing,
-        split: { cap: size.bucketCap, target: size.bucketTarget, dir: spillDir, bufferBytes: Math.floor(o.memory / 4) },
-        dir: spillDir,
-        lanes,
-        width: Math.max(1, size.threads) * 2,
-        progress: progress('plan', records),
-        deal,
-        strataSizes: d.strataSizes,
-        lookupBits: scattered.cellKeyInHeader ? null : size.bits,
-      });
-      ({ count: groupCount, cellCounts, groupLookup } = placed);
-      if (sc.census) {
-        const census = sc.census;
-        const { ranges } = spillRanges(census.buckets);
-        for (let r = 0; r < ranges; r++) census.releaseRange(r);
-        await work.removeEarly(Array.from({ length: ranges }, (_, r) => census.rangeFiles(r)).flat());
-      }
+    const { planned, cellCounts, groupCount, layout, worst, plan, planPath } = await planStage({
+      o,
+      format,
+      size,
+      sc,
+      secrets,
+      cellKeyInHeader: scattered.cellKeyInHeader,
+      dir: spillDir,
+      withLanes: (use) => use(lanes),
+      progress: progress('plan', sc.records),
+    });
+    const { records, d, deal, parts, cells } = planned;
+    if (sc.census) {
+      // The groups are counted: the census spill is read no more.
+      const census = sc.census;
+      const { ranges } = spillRanges(census.buckets);
+      for (let r = 0; r < ranges; r++) census.releaseRange(r);
+      await work.removeEarly(Array.from({ length: ranges }, (_, r) => census.rangeFiles(r)).flat());
     }
-    const layout = partLayout(o, format);
-    const worst = worstDeviation(cellCounts, deal, d.strataSizes);
-    checkTolerance(o, worst, d, layout.map((p) => p.path), deal, records);
     // Whole groups: sizes follow the groups; said before anything is written (see size-check.ts).
     const warnings: string[] = [];
     if (o.assign === 'group') {
@@ -159,9 +145,6 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
         o.onNotice?.(w);
       }
     }
-    const plan = buildGatherPlan({ o, format: format, size: size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: scattered.cellKeyInHeader, deal, dealing: d, table, secrets, groupLookup });
-    const planPath = join(spillDir, 'plan.json');
-    writeFileSync(planPath, JSON.stringify(plan));
     timings.planMs = Date.now() - tPlan;
     const tGather = Date.now();
 

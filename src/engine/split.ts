@@ -172,6 +172,20 @@ export interface SplitPolicy {
   onSplit?: () => void;
 }
 
+/** What a caller says about splitting: the sizes, the buffers, where the files go, and who is told of each split. */
+export type SplitSettings = Pick<SplitPolicy, 'cap' | 'target' | 'bufferBytes' | 'onSplit'> & { dir: string };
+
+/**
+ * The policy stage 2 and the group count split buckets by: the caller's settings (none: nothing
+ * is split) and how the shares run; `slots` is closed by the caller once every unit is dealt.
+ */
+export function splitPolicy(settings: SplitSettings | undefined, how: Pick<SplitPolicy, 'shares' | 'strata' | 'strataCount' | 'run'>): { policy: SplitPolicy | null; slots: SplitSlots | null } {
+  if (!settings) return { policy: null, slots: null };
+  const slots = new SplitSlots(settings.dir);
+  const { dir: _dir, ...sizes } = settings;
+  return { policy: { ...sizes, ...how, slots }, slots };
+}
+
 /**
  * The files splits write their sub-buckets to: a slot is one file per share, taken by a split
  * and given back once its last sub-bucket is dealt; a free slot is taken again (its files written

@@ -249,7 +249,7 @@ class BatchArrays {
 /** Lanes that take block work (scatter and profile workers); each message is answered by its kind. */
 export interface BlockLanes {
   readonly size: number;
-  runOn<M extends BlockMessage>(lane: number, m: M, transfer?: ArrayBuffer[]): Promise<Reply<M, unknown>>;
+  runOn<M extends BlockMessage>(lane: number, m: M, transfer?: ArrayBuffer[]): Promise<Reply<M>>;
 }
 
 export interface ReadInBlocksOptions {

@@ -9,7 +9,7 @@ import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import { createGunzip } from 'node:zlib';
 import type { InputFormat, InputSchema, RecordBatch } from './batch.js';
-import { RecordReader } from './reader.js';
+import { batchesOf, RecordReader } from './reader.js';
 import type { RecordReaderOptions } from './reader.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { takePeekedStdin } from './sniff.js';
@@ -243,12 +243,7 @@ export async function* readInput(
 ): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema; stats: RecordReader['stats'] }> {
   const reader = new RecordReader(ro, takeSpareReader());
   if (whole && counter) counter.bytes += whole.length;
-  for await (const chunk of whole ? [whole] : openInput(path, counter)) {
-    const batch = reader.push(chunk);
-    if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
-  }
-  const batch = reader.end();
-  if (batch) yield { batch, schema: reader.schema!, stats: reader.stats };
+  for await (const batch of batchesOf(reader, whole ? [whole] : openInput(path, counter))) yield { batch, schema: reader.schema!, stats: reader.stats };
   // Asked for more after its last batch: the caller is done with it, and so with the reader.
   spareReader = reader;
 }

@@ -52,8 +52,8 @@ export function packBatch(b: RecordBatch, input: number, reuse: ArrayBuffer | un
 /** Worker lanes that take packed batches (scatter and profile workers); a batch is answered with its buffer, released for reuse. */
 export interface BatchLanes {
   readonly size: number;
-  run<M extends BatchMessage>(m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
-  runOn<M extends BatchMessage>(lane: number, m: M, transfer: ArrayBuffer[]): Promise<Reply<M, unknown>>;
+  run<M extends BatchMessage>(m: M, transfer: ArrayBuffer[]): Promise<Reply<M>>;
+  runOn<M extends BatchMessage>(lane: number, m: M, transfer: ArrayBuffer[]): Promise<Reply<M>>;
 }
 
 /**

@@ -89,3 +89,24 @@ export class RecordReader {
     return this.#records.end();
   }
 }
+
+/**
+ * Chunks through a reader, batch by batch (each valid until the next is asked for), the last
+ * from `end()`; the first `skip` bytes are passed over (a part's header). Every read of records
+ * from whole bytes goes through here (src/io/drive.ts).
+ */
+export async function* batchesOf(reader: RecordReader, chunks: AsyncIterable<Buffer> | Iterable<Buffer>, skip = 0): AsyncGenerator<RecordBatch> {
+  for await (const chunk of chunks) {
+    let c = chunk;
+    if (skip > 0) {
+      const n = Math.min(skip, c.length);
+      skip -= n;
+      c = c.subarray(n);
+      if (c.length === 0) continue;
+    }
+    const batch = reader.push(c);
+    if (batch) yield batch;
+  }
+  const last = reader.end();
+  if (last) yield last;
+}

@@ -15,7 +15,7 @@ export type { SmallInputMessage, SmallInputReply } from '../workers/protocol.js'
 /** Lanes that take small inputs (scatter and profile workers); a small input is answered with a SmallInputReply. */
 export interface SmallInputLanes {
   readonly size: number;
-  run<M extends SmallInputMessage>(m: M): Promise<Reply<M, unknown>>;
+  run<M extends SmallInputMessage>(m: M): Promise<Reply<M>>;
 }
 
 /** The size of a regular file small enough for a worker to read whole, or null. */

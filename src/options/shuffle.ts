@@ -25,7 +25,6 @@ import { defaultMemory } from '../io/memory-available.js';
 import {
   booleanValue,
   checkerFor,
-  showGot,
   choiceValue,
   columnsValue,
   functionValue,

@@ -52,7 +52,7 @@ function startWorker(file: string, workerData: unknown): Worker {
   }
 }
 
-export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
+export class WorkerLanes<T, F> implements Lanes<T, F> {
   readonly size: number;
   #lanes: Lane<F>[] = [];
   #nextId = 0;
@@ -100,20 +100,20 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
   }
 
   /** Runs a task on the least busy lane. */
-  run<M extends T>(task: M, transfer: TransferListItem[] = []): Promise<Reply<M, R>> {
+  run<M extends T>(task: M, transfer: TransferListItem[] = []): Promise<Reply<M>> {
     let lane = 0;
     for (let k = 1; k < this.#lanes.length; k++) if (this.#lanes[k]!.busy < this.#lanes[lane]!.busy) lane = k;
     return this.runOn(lane, task, transfer);
   }
 
   /** Runs a task on lane `k` (tasks that need state kept by that lane, such as a parsed block). */
-  runOn<M extends T>(k: number, task: M, transfer: TransferListItem[] = []): Promise<Reply<M, R>> {
+  runOn<M extends T>(k: number, task: M, transfer: TransferListItem[] = []): Promise<Reply<M>> {
     if (this.#failure) return Promise.reject(this.#failure);
     const lane = this.#lanes[k]!;
     const id = this.#nextId++;
     lane.busy++;
     // The worker answers a task of kind K with Replies[K] (its handler table is typed so).
-    const p = new Promise<Reply<M, R>>((resolve, reject) => lane.waiting.set(id, { resolve: (r) => resolve(r as Reply<M, R>), reject }));
+    const p = new Promise<Reply<M>>((resolve, reject) => lane.waiting.set(id, { resolve: (r) => resolve(r as Reply<M>), reject }));
     lane.worker.postMessage({ kind: 'task', id, task } satisfies ToWorker<T>, transfer);
     return p;
   }
@@ -140,12 +140,12 @@ export class WorkerLanes<T, R, F> implements Lanes<T, R, F> {
 
 /**
  * What the stages ask of their lanes, on worker threads (`WorkerLanes`) or not (`InlineLanes`):
- * tasks `T`, each answered with the reply of its kind (protocol.ts; `R` for a task without a
- * listed kind), and `F`, what each lane hands over when it finishes.
+ * tasks `T`, each answered with the reply of its kind (protocol.ts), and `F`, what each lane
+ * hands over when it finishes.
  */
-export interface Lanes<T, R, F> {
+export interface Lanes<T, F> {
   readonly size: number;
-  run<M extends T>(task: M, transfer?: TransferListItem[]): Promise<Reply<M, R>>;
+  run<M extends T>(task: M, transfer?: TransferListItem[]): Promise<Reply<M>>;
   finish(): Promise<F[]>;
   destroy(): Promise<void>;
 }
@@ -154,7 +154,7 @@ export interface Lanes<T, R, F> {
  * One lane on the calling thread, with `WorkerLanes`' interface: for inputs so small that
  * starting threads (~0.1 s each here, an isolate and its modules) costs more than it saves.
  */
-export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
+export class InlineLanes<T, F> implements Lanes<T, F> {
   readonly size = 1;
   readonly #handler: (task: T) => { result: unknown } | Promise<{ result: unknown }>;
   readonly #finisher: () => { final: F };
@@ -169,14 +169,14 @@ export class InlineLanes<T, R, F> implements Lanes<T, R, F> {
    * Runs the task on a later turn of the event loop, not at once: between tasks the process
    * still answers signals (Ctrl-C cleans up) and draws progress.
    */
-  run<M extends T>(task: M): Promise<Reply<M, R>> {
-    return new Promise<Reply<M, R>>((resolve, reject) => {
+  run<M extends T>(task: M): Promise<Reply<M>> {
+    return new Promise<Reply<M>>((resolve, reject) => {
       setImmediate(() => {
         try {
           // The handler answers a task of kind K with Replies[K] (byKind's table is typed so).
           const answer = this.#handler(task);
-          if (answer instanceof Promise) answer.then((a) => resolve(a.result as Reply<M, R>), reject);
-          else resolve(answer.result as Reply<M, R>);
+          if (answer instanceof Promise) answer.then((a) => resolve(a.result as Reply<M>), reject);
+          else resolve(answer.result as Reply<M>);
         } catch (err) {
           reject(err);
         }

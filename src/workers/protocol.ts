@@ -170,8 +170,8 @@ export interface Replies {
 
 export type Kind = keyof Replies;
 
-/** The reply to message `M`: by its kind, or `R` for a message without a listed kind. */
-export type Reply<M, R = never> = M extends { kind: infer K extends Kind } ? Replies[K] : R;
+/** The reply to message `M`, by its kind. */
+export type Reply<M> = M extends { kind: infer K extends Kind } ? Replies[K] : never;
 
 /** A handler's answer: the reply, and the buffers that go with it without a copy. */
 export interface Answer<X> {
@@ -213,13 +213,13 @@ export type VerifyMessage = VerifyPartTask;
 export type ProfileMessage = ColumnsMessage | BatchMessage | SmallInputMessage | BlockMessage;
 
 /** Lanes that take the work after stage 1 (the shuffle's threads, or the calling thread's lane: gather-lane.ts). */
-export type GatherLanes = Lanes<GatherMessage, never, ShuffleFinal>;
+export type GatherLanes = Lanes<GatherMessage, ShuffleFinal>;
 
 /** Lanes that count groups (group-census.ts): census buckets, and the splits of those too large to take whole. */
-export type CensusLanes = Pick<Lanes<CensusMessage | SplitMessage, unknown, unknown>, 'run'>;
+export type CensusLanes = Pick<Lanes<CensusMessage | SplitMessage, unknown>, 'run'>;
 
 /** The shuffle's threads (shuffle-worker.ts): they scatter, count groups, then deal the buckets. */
-export type ShuffleLanes = WorkerLanes<ShuffleMessage, never, ShuffleFinal>;
+export type ShuffleLanes = WorkerLanes<ShuffleMessage, ShuffleFinal>;
 
 /** What a shuffle lane hands over when it finishes a stage: its scatter task's result, then what stage 2 kept. */
 export type ShuffleFinal = { kind: 'scattered'; result: ScatterTaskResult } | { kind: 'gathered'; final: GatherFinal };

@@ -11,9 +11,10 @@
  * their tables are put side by side at the end (joinColumnShares), not merged.
  */
 import type { RecordBatch, RejectedRecord } from '../../io/batch.js';
-import { blockSizes, readInBlocks, type InputTotals } from '../../io/blocks.js';
+import { blockSizes } from '../../io/blocks.js';
+import { readOneInput } from '../../io/drive.js';
 import { unknownColumn } from '../../io/fields.js';
-import { detectFormat, isPlainFile, nameInput, openInput, ReadAhead } from '../../io/input.js';
+import { detectFormat, nameInput, openInput, ReadAhead } from '../../io/input.js';
 import { BatchSender } from '../../io/packed-batches.js';
 import { RecordReader, type RecordReaderOptions } from '../../io/reader.js';
 import { readInputs, smallFileSize, SmallInputSender } from '../../io/small-inputs.js';
@@ -44,7 +45,7 @@ export interface ReadCounts {
   rejects: Profile['rejects'];
 }
 
-type ProfileLanes = WorkerLanes<ProfileMessage, never, ProfileTaskResult>;
+type ProfileLanes = WorkerLanes<ProfileMessage, ProfileTaskResult>;
 
 /**
  * Reads every input once and counts it (see ProfileTask), on worker threads or (threads 0) on
@@ -128,54 +129,23 @@ export async function readAndCount(o: ResolvedProfileOptions, binEdges: BinEdges
       if (lanes) for (let lane = 0; lane < lanes.size; lane++) void lanes.runOn(lane, { kind: 'columns', input: k, map: plan.map }).catch(() => {});
       // Plain files are parsed by the workers in blocks; stdin and gzip are read here, and so is
       // every input when the workers share out columns (each of them takes every record).
-      let totals: InputTotals | null = null;
-      if (!whole && lanes && !run.columnShares && (await isPlainFile(path))) {
-        await it.return?.(undefined);
-        totals = await readInBlocks({
-          path,
-          input: k,
-          reader: plan.reader,
-          // Block work is answered with block replies (the small-input replies are SmallInputSender's).
-          lanes,
-          // Every column is located, so a held block's arrays are ~5 times those of a shuffle's:
-          // smaller blocks keep the memory near what the sequential read used.
-          blockBytes: PROFILE_BLOCK_BYTES,
-          sequential: (batch) => send(batch, k),
-          onProgress: (bytes, records) => {
-            seen.bytes = taken[k] = bytes;
-            seen.records = records;
-            progress();
-          },
-        });
-      }
-      if (totals) {
-        seen.bytes = taken[k] = totals.bytes;
-        seen.records = totals.records;
-        seen.rejected = totals.rejected;
-        return;
-      }
-      const reader = new RecordReader(plan.reader);
-      const take = async (batch: RecordBatch | null): Promise<void> => {
-        if (batch) await send(batch, k);
-        seen.records = reader.stats.records;
-        seen.bytes = reader.stats.bytes;
-        taken[k] = source.bytes;
-        seen.rejected = reader.stats.rejected;
-        progress();
-      };
-      try {
-        for (const chunk of held) await take(reader.push(chunk));
-        if (!ended) {
-          for (;;) {
-            const r = await it.next();
-            if (r.done) break;
-            await take(reader.push(r.value));
-          }
-        }
-        await take(reader.end());
-      } finally {
-        await it.return?.(undefined);
-      }
+      await readOneInput({
+        path,
+        input: k,
+        reader: plan.reader,
+        whole,
+        lanes: run.columnShares ? null : lanes,
+        // Every column is located, so a held block's arrays are ~5 times those of a shuffle's:
+        // smaller blocks keep the memory near what the sequential read used.
+        blockBytes: PROFILE_BLOCK_BYTES,
+        send: (batch) => send(batch, k),
+        counts: seen,
+        onProgress: (bytes) => {
+          taken[k] = bytes;
+          progress();
+        },
+        opened: { held, rest: ended ? null : it, source },
+      });
     };
     await readInputs(
       o.inputs.length,

@@ -11,7 +11,7 @@ import { Fingerprint } from '../../core/hash.js';
 import { RowdeckError } from '../../errors.js';
 import type { RecordBatch } from '../../io/batch.js';
 import { openInput } from '../../io/input.js';
-import type { RecordReader } from '../../io/reader.js';
+import { batchesOf, type RecordReader } from '../../io/reader.js';
 import type { ReadPlan } from './read-plan.js';
 
 /** Above this many records (input or output), a failed --against check reports counts and fingerprints only. */
@@ -154,12 +154,7 @@ export function foldNameBytes(plan: ReadPlan): Buffer {
  */
 export async function readAll(source: string | Readable | Buffer, reader: RecordReader, onBatch: (b: RecordBatch) => void): Promise<void> {
   try {
-    for await (const chunk of Buffer.isBuffer(source) ? [source] : openInput(source)) {
-      const b = reader.push(chunk);
-      if (b) onBatch(b);
-    }
-    const b = reader.end();
-    if (b) onBatch(b);
+    for await (const b of batchesOf(reader, Buffer.isBuffer(source) ? [source] : openInput(source))) onBatch(b);
   } catch (err) {
     if (err instanceof RowdeckError && (err.code === 'RDK_INPUT_EMPTY' || err.code === 'RDK_HEADER_ONLY') && reader.stats.records === 0 && reader.stats.rejected === 0) return;
     throw err;

@@ -94,7 +94,7 @@ export async function scanParts(dir: string, m: Manifest, plan: ReadPlan, given:
     // Each part on a worker thread (src/workers/verify-worker.ts), the least busy one first; two
     // a thread at a time. (A thread starts every task it is sent at once: with all of 2,000 parts
     // sent, each thread read a thousand at a time, 760 MiB at the peak against 110 on one thread.)
-    const lanes = new WorkerLanes<VerifyPartTask, never, SerializedStats | null>(resolveWorkerFile('verify-worker.js'), threads, m);
+    const lanes = new WorkerLanes<VerifyPartTask, SerializedStats | null>(resolveWorkerFile('verify-worker.js'), threads, m);
     // Two parts a thread keep its reads going; one where each holds a table of every column.
     const limit = pLimit(plan.statsColumns !== null ? threads : 2 * threads);
     try {
