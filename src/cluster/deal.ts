@@ -32,6 +32,8 @@ export interface DealDone extends DoneRecord, Pick<ManifestInput, 'inputs' | 're
   fingerprint: { hi: number; lo: number; count: number };
   /** Scatter tasks read again here (their slice began inside a quoted field). */
   reread: number[];
+  /** What finish tells the user, as a run on one machine does (whole groups that keep a part or fold from its size). */
+  warnings: string[];
 }
 
 /** One gather task's share: its buckets' spill pieces, the ranks they start at, and their counts. */
@@ -171,7 +173,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     const rejects = new Rejects(o.onBadRecord === 'quarantine');
     dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
 
-    const { planned, worst } = await planStage({
+    const { planned, worst, warnings } = await planStage({
       o,
       format: plan.format,
       size: plan.size,
@@ -220,6 +222,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
       worst,
       fingerprint: sc.fingerprint.toJSON(),
       reread,
+      warnings,
     };
   });
 }

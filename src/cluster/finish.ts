@@ -6,7 +6,7 @@
  */
 import { createReadStream, mkdirSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { basename, dirname, join } from 'node:path';
-import { availableParallelism, cpus, hostname, totalmem } from 'node:os';
+import { availableParallelism } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats } from '../core/stats.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
@@ -16,8 +16,8 @@ import { joinFiles } from '../io/join-files.js';
 import type { JoinMessage } from '../workers/protocol.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
-import { buildManifest } from '../engine/manifest.js';
-import { closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, writeSpreadParts } from '../engine/parts.js';
+import { buildManifest, hostInfo } from '../engine/manifest.js';
+import { checkSameRecords, closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, writeSpreadParts } from '../engine/parts.js';
 import { partCount } from '../engine/plan.js';
 import { startRunWork } from '../engine/run-work.js';
 import { SpreadParts } from '../engine/spread-parts.js';
@@ -88,6 +88,8 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   if (!f.keepWork) for (let t = 0; t < plan.scatter.length; t++) removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json');
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
   const deal = done.deal;
+  // Said as a run on one machine says them, before the parts are written.
+  for (const w of deal.warnings) f.onNotice?.(w);
   const schema = { ...deal.schema, headerBytes: deal.schema.headerBytes === null ? null : Buffer.from(deal.schema.headerBytes, 'base64') } as InputSchema;
   const parts = partCount(gatherPlan.deal);
   const K = gatherPlan.deal.folds;
@@ -170,13 +172,9 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
         }
       }
     }
-    const outFp = new Fingerprint();
-    for (const fp of fingerprints) outFp.merge(fp);
     const inFp = new Fingerprint();
     inFp.merge(deal.fingerprint);
-    if (outFp.toHex() !== inFp.toHex() || outFp.count !== inFp.count) {
-      throw new RowdeckError('RDK_INTERNAL', `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but the scatter tasks read ${inFp.count} (fingerprint ${inFp.toHex()}). Nothing was written; run the plan again from the start.`);
-    }
+    const outFp = checkSameRecords(fingerprints, inFp, 'run the plan again from the start.');
     const tasks = [
       ...done.scatter.map((d) => ({ stage: 'scatter', index: d.index, host: d.host, startedAt: d.startedAt, endedAt: d.endedAt })),
       { stage: 'deal', index: 0, host: deal.host, startedAt: deal.startedAt, endedAt: deal.endedAt },
@@ -205,7 +203,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
       fingerprints: { input: inFp.toHex(), output: outFp.toHex() },
       timings: { finishMs: Date.now() - t0 },
       ...(stats ? { inputStats: stats.input } : {}),
-      host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
+      host: hostInfo(),
       plan: { id: plan.planId, tasks, reread: deal.reread },
     });
     if (deal.rejectsFile !== null) writeFileSync(join(stage, 'rejected.csv'), readFileSync(join(dealDir, deal.rejectsFile)), { flag: 'wx' });
@@ -213,8 +211,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     if (o.report) writeManifestReport(stage, manifest, basename(plan.out));
     work.commit();
     if (!f.keepWork) rmSync(plan.work, { recursive: true, force: true });
-    // The sizes a group run achieved are in the manifest (and the summary); the deal task checked the balance.
-    return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null, warnings: [] };
+    return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null, warnings: deal.warnings };
   } catch (err) {
     throw codedSystemError(err);
   } finally {

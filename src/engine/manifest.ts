@@ -4,6 +4,7 @@
  * partition, strata by value), so two runs with the same seed give byte-identical manifests
  * except in `run` (time, host, timings).
  */
+import { cpus, hostname, totalmem } from 'node:os';
 import { DEALING_SCHEME, type DealSpec } from '../core/deal.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
 import type { ResolvedShuffleOptions } from '../options.js';
@@ -121,6 +122,11 @@ export interface ManifestInput {
   host: Record<string, unknown>;
   inputStats?: unknown;
   plan?: ClusterRunInfo;
+}
+
+/** The machine a manifest was written on (its `run.host`). */
+export function hostInfo(): Record<string, unknown> {
+  return { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version };
 }
 
 export function buildManifest(m: ManifestInput): Manifest {

@@ -7,7 +7,7 @@
 import { mkdirSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import pLimit from 'p-limit';
-import type { Fingerprint } from '../core/hash.js';
+import { Fingerprint } from '../core/hash.js';
 import { TableStats, type ColumnSummary } from '../core/stats.js';
 import { RowdeckError, systemError } from '../errors.js';
 import type { InputFormat, InputSchema } from '../io/batch.js';
@@ -230,4 +230,18 @@ export function partRecords(layout: PartInfo[], counts: Float64Array, folds: num
       ...(stats ? { stats: stats[p]! } : {}),
     };
   });
+}
+
+/**
+ * The parts' fingerprints merged, checked against the input's: stage 2 hashes the records it read
+ * back from the spill, and their sum must be what stage 1 read (every record dealt to exactly one
+ * part, the spill intact). Never write a manifest that says otherwise; `remedy` says what to do.
+ */
+export function checkSameRecords(parts: Fingerprint[], input: Fingerprint, remedy: string): Fingerprint {
+  const out = new Fingerprint();
+  for (const f of parts) out.merge(f);
+  if (out.toHex() !== input.toHex() || out.count !== input.count) {
+    throw new RowdeckError('RDK_INTERNAL', `the parts hold ${out.count} records (fingerprint ${out.toHex()}) but ${input.count} were read (fingerprint ${input.toHex()}). Nothing was written; ${remedy}`);
+  }
+  return out;
 }

@@ -1,8 +1,9 @@
 /**
  * The plan step, the same for a run on one machine (shuffle.ts) and a plan's deal step
  * (cluster/deal.ts): the deal's figures (planDeal), in group mode every group counted and placed
- * (countAndPlaceGroups), the tolerance checked before anything is written, and stage 2's plan
- * written to `dir/plan.json`.
+ * (countAndPlaceGroups), the tolerance checked before anything is written, stage 2's plan
+ * written to `dir/plan.json`, and what the user is told before any part is written (whole
+ * groups that keep a part or fold from its target size).
  */
 import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
@@ -15,6 +16,7 @@ import { buildGatherPlan, checkTolerance, planDeal, worstDeviation, type GatherP
 import type { Secrets } from './scatter-stage.js';
 import type { ScatterResult } from './scatter.js';
 import type { RunSize } from './sizing.js';
+import { groupSizeWarnings, unitSizes } from './size-check.js';
 
 export interface PlanStage {
   planned: ReturnType<typeof planDeal>;
@@ -26,6 +28,8 @@ export interface PlanStage {
   worst: Worst;
   plan: GatherPlan;
   planPath: string;
+  /** Whole groups: parts or folds whose sizes the groups keep from their targets (see size-check.ts). */
+  warnings: string[];
 }
 
 export async function planStage(a: {
@@ -73,5 +77,15 @@ export async function planStage(a: {
   const plan = buildGatherPlan({ o, format: a.format, size, schema: sc.schema, scatterTasks: sc.taskStrata.length, cellKeyInHeader: a.cellKeyInHeader, deal, dealing: d, table, secrets: a.secrets, groupLookup });
   const planPath = join(a.dir, 'plan.json');
   writeFileSync(planPath, JSON.stringify(plan));
-  return { planned, cellCounts, groupCount, layout, worst, plan, planPath };
+  const group = o.surface === 'cli' ? `--group ${o.group!}` : `group ${JSON.stringify(o.group)}`;
+  const warnings = o.assign === 'group' ? groupSizeWarnings(unitSizes(cellTotals(cellCounts, planned.cells), deal, layout.map((p) => p.path)), groupCount, o.tolerance, group) : [];
+  return { planned, cellCounts, groupCount, layout, worst, plan, planPath, warnings };
+}
+
+/** Records of every cell (part and fold), over the strata. */
+function cellTotals(cellCounts: Float64Array, cells: number): Float64Array {
+  const strata = cells > 0 ? cellCounts.length / cells : 0;
+  const totals = new Float64Array(cells);
+  for (let c = 0; c < cells; c++) for (let s = 0; s < strata; s++) totals[c]! += cellCounts[c * strata + s]!;
+  return totals;
 }

@@ -20,8 +20,6 @@
  */
 import { writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
-import { cpus, hostname, totalmem } from 'node:os';
-import { Fingerprint } from '../core/hash.js';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import { chooseFormat } from '../io/sniff.js';
 import type { PartWriter } from '../io/part-writer.js';
@@ -30,8 +28,8 @@ import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { runGatherStage } from './gather-stage.js';
 import { planStage } from './plan-stage.js';
-import { buildManifest, type Manifest } from './manifest.js';
-import { closeParts, headerBytes, openParts, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
+import { buildManifest, hostInfo, type Manifest } from './manifest.js';
+import { checkSameRecords, closeParts, headerBytes, openParts, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -39,7 +37,6 @@ import { SPILL_FILES, spillRanges } from './spill.js';
 import { openMemoryStore, type MemoryStore } from './ram-store.js';
 import { checkFreeSpace } from './disk-space.js';
 import { estimateInputBytes, isStreamInput } from '../io/input.js';
-import { groupSizeWarnings, unitSizes } from './size-check.js';
 import { SpreadParts } from './spread-parts.js';
 
 export { BUFFER_CAP, chooseBuckets, spillFactor } from './sizing.js';
@@ -118,7 +115,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const tPlan = Date.now();
 
     // ---- plan: quotas, expected counts, the tolerance check, before anything is written ----
-    const { planned, cellCounts, groupCount, layout, worst, plan, planPath } = await planStage({
+    const { planned, layout, worst, plan, planPath, warnings } = await planStage({
       o,
       format,
       size,
@@ -129,7 +126,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       withLanes: (use) => use(lanes),
       progress: progress('plan', sc.records),
     });
-    const { records, d, deal, parts, cells } = planned;
+    const { records, d, deal, parts } = planned;
     if (sc.census) {
       // The groups are counted: the census spill is read no more.
       const census = sc.census;
@@ -138,13 +135,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       await work.removeEarly(Array.from({ length: ranges }, (_, r) => census.rangeFiles(r)).flat());
     }
     // Whole groups: sizes follow the groups; said before anything is written (see size-check.ts).
-    const warnings: string[] = [];
-    if (o.assign === 'group') {
-      for (const w of groupSizeWarnings(unitSizes(cellTotals(cellCounts, cells), deal, layout.map((p) => p.path)), groupCount, o.tolerance, o.surface === 'cli' ? `--group ${o.group!}` : `group ${JSON.stringify(o.group)}`)) {
-        warnings.push(w);
-        o.onNotice?.(w);
-      }
-    }
+    for (const w of warnings) o.onNotice?.(w);
     timings.planMs = Date.now() - tPlan;
     const tGather = Date.now();
 
@@ -215,17 +206,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     if (gathered.phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(gathered.phases[k] ?? 0)));
 
     // ---- manifest, then the commit that makes the output visible ----
-    const outFp = new Fingerprint();
-    for (const f of fingerprints) outFp.merge(f);
-    // Stage 2 hashes the records it read back from the spill; their sum must be what stage 1
-    // read from the inputs (every record dealt to exactly one part, the spill intact). Never
-    // write a manifest that says otherwise.
-    if (outFp.toHex() !== sc.fingerprint.toHex() || outFp.count !== sc.fingerprint.count) {
-      throw new RowdeckError(
-        'RDK_INTERNAL',
-        `the parts hold ${outFp.count} records (fingerprint ${outFp.toHex()}) but ${sc.fingerprint.count} were read (fingerprint ${sc.fingerprint.toHex()}). Nothing was written; please report this.`,
-      );
-    }
+    const outFp = checkSameRecords(fingerprints, sc.fingerprint, 'please report this.');
     const rejected = scattered.rejects.file();
     timings.totalMs = Date.now() - t0;
     const manifest = buildManifest({
@@ -250,7 +231,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
       timings,
       ...(stats ? { inputStats: stats.input } : {}),
-      host: { hostname: hostname(), cpus: cpus().length, cpuModel: cpus()[0]?.model ?? 'unknown', memory: totalmem(), node: process.version },
+      host: hostInfo(),
     });
     if (stage === null) return { manifest, out, report: null, warnings };
     if (rejected !== null) writeOutputFile(join(stage, 'rejected.csv'), rejected, 'writing the rejected records');
@@ -307,14 +288,6 @@ function ranLayout(size: RunSize, placement: { memory: number; files: number }, 
   if (splits > 0) return 'multi-pass';
   if (size.layout === 'memory' && placement.files === 0) return 'memory';
   return 'spill';
-}
-
-/** Records per cell, from the counts per (cell, stratum). */
-function cellTotals(cellCounts: Float64Array, cells: number): Float64Array {
-  const strata = cells > 0 ? cellCounts.length / cells : 0;
-  const totals = new Float64Array(cells);
-  for (let c = 0; c < cells; c++) for (let s = 0; s < strata; s++) totals[c]! += cellCounts[c * strata + s]!;
-  return totals;
 }
 
 /** Writes a whole file of the output; a failure (a full disk) is a coded error naming it. */

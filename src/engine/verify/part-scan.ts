@@ -107,6 +107,9 @@ export async function scanPart(path: string, display: string, plan: ReadPlan, ha
     file: display,
     onBadRecord: 'fail',
   });
+  // A JSON Lines part is read with the input's keys, as the shuffle read the input: a part whose
+  // first record lacks a key (an optional field) still has that column.
+  if (plan.format === 'jsonl') reader.adoptSchema({ format: 'jsonl', columns: plan.columns, headerBytes: null, lineEnding: '\n', delimiter: 0 });
   const hasher = new RecordHasher();
   const nameBytes = foldNameBytes(plan);
   const fast = plan.strataIndex !== null && plan.stratify.length === 1 && plan.bins[0] === null ? new ByteIdTable() : null;
