@@ -7,10 +7,12 @@
  *                         disk-space.ts (room for the spill and the parts, before any work)
  *   scatter               scatter-stage.ts → scatter.ts on the worker lanes: spill buckets + counts
  *                         (in memory in the memory layout, spill-index.ts says where each lies)
- *   plan                  plan.ts (dealing order, quotas, expected counts, tolerance check);
- *                         group-census.ts (groups counted and placed) → plan.json, groups.bin
- *   gather                gather-stage.ts → gather.ts on the same lanes: buckets dealt in order
- *                         (split.ts: those too large split first, the multi-pass layout)
+ *   plan                  plan-stage.ts: plan.ts (dealing order, quotas, expected counts, the
+ *                         tolerance check); group-census.ts (groups counted and placed) →
+ *                         plan.json, groups.bin
+ *   gather                gatherIntoParts below: gather-stage.ts → gather.ts on the same lanes,
+ *                         buckets dealt in order (split.ts: those too large split first, the
+ *                         multi-pass layout)
  *   assemble the parts    parts.ts (writers, spread order, sizes, sha256, statistics)
  *   write the manifest    manifest.ts, then the commit that puts the output into place
  *
@@ -22,14 +24,15 @@ import { writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
 import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import { chooseFormat } from '../io/sniff.js';
-import type { PartWriter } from '../io/part-writer.js';
 import { optionSetting, resolveShuffleOptions, type ProgressEvent, type ShuffleOptions } from '../options.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { runGatherStage } from './gather-stage.js';
 import { planStage } from './plan-stage.js';
 import { buildManifest, hostInfo, type Manifest } from './manifest.js';
-import { checkSameRecords, closeParts, headerBytes, openParts, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink } from './parts.js';
+import { checkSameRecords, closeParts, headerBytes, openParts, partRecords, partStatistics, spreadSink, writeSpreadParts, writerSink, type PartInfo, type PartStatistics } from './parts.js';
+import type { GatherPlan } from './plan.js';
+import type { Fingerprint } from '../core/hash.js';
 import { checkInputs, startRunWork, type RunWork } from './run-work.js';
 import { deriveSecrets, placesRecordsIndividually, runScatterStage, type ShuffleLanes } from './scatter-stage.js';
 import { sizeRun, type Layout, type RunSize } from './sizing.js';
@@ -97,7 +100,6 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
   });
   const out = work.claim?.out ?? o.out;
   let lanes: ShuffleLanes | null = null;
-  let writers: PartWriter[] = [];
   let memory: MemoryStore | null = null;
   try {
     const { spillDir, stage } = work;
@@ -126,7 +128,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       withLanes: (use) => use(lanes),
       progress: progress('plan', sc.records),
     });
-    const { records, d, deal, parts } = planned;
+    const { records, d, deal } = planned;
     if (sc.census) {
       // The groups are counted: the census spill is read no more.
       const census = sc.census;
@@ -139,71 +141,29 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     timings.planMs = Date.now() - tPlan;
     const tGather = Date.now();
 
-    // ---- gather: buckets dealt in order into the parts ----
-    const header = headerBytes(sc.schema, o.foldColumn, format);
-    writers = await openParts(stage, layout, o, header, spillDir);
-    const spread = o.order === 'spread' ? new SpreadParts(spillDir, parts, plan.strataCount) : null;
-    const { perRange } = spillRanges(size.buckets);
-    let removing: Promise<void> = Promise.resolve();
-    const gathered = await runGatherStage({
+    // ---- gather: buckets dealt in order into the parts, then their statistics ----
+    const { counts, fingerprints, closed, stats, splits: splitCount } = await gatherIntoParts({
+      o,
+      size,
+      sc,
+      localToGlobal: d.localToGlobal,
       plan,
       planPath,
-      piecesOf: (b) => sc.spill.pieces(b),
-      countsOf: (b, running) => {
-        for (let l = 0; l < sc.strata.length; l++) running[d.localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
-      },
-      first: 0,
-      end: size.buckets,
-      rankStart: new Float64Array(plan.strataCount),
+      layout,
+      header: headerBytes(sc.schema, o.foldColumn, format),
+      stage,
+      spillDir,
       lanes,
-      inFlight: size.inFlight,
-      sink: spread ? spreadSink(spread) : writerSink(writers),
-      // Buckets are dealt in order: past the last bucket of a range, no task reads its files
-      // (or slabs) again. The removal runs beside the dealing; the previous range's is waited for
-      // here, so the spill never lags more than a range behind.
-      passed: async (next) => {
-        if (next % perRange !== 0 && next !== size.buckets) return;
-        const r = Math.floor((next - 1) / perRange);
-        sc.spill.releaseRange(r);
-        await removing;
-        removing = work.removeEarly(sc.spill.rangeFiles(r));
+      work,
+      progress: (stage) => progress(stage, records),
+      onSplit: () => {
+        splits++;
+        runLayout = 'multi-pass';
       },
-      progress: progress('gather', records),
-      split: {
-        cap: size.bucketCap,
-        target: size.bucketTarget,
-        dir: spillDir,
-        bufferBytes: Math.floor(o.memory / 4),
-        onSplit: () => {
-          splits++;
-          runLayout = 'multi-pass';
-        },
-      },
+      timings,
     });
-    const { counts, fingerprints } = gathered;
-    if (spread) await writeSpreadParts(spread, writers, counts, deal.folds, plan.strataCount, progress('order', records));
-    const closed = await closeParts(writers);
-    writers = [];
-    const tStats = Date.now();
-    const stats = o.stats
-      ? await partStatistics({
-          columns: sc.schema.columns,
-          partCount: parts,
-          statsInLanes: plan.statsInLanes,
-          excludeValues: o.excludeValues,
-          lanes: gathered.lanes,
-          inline: gathered.inline,
-          files: stage === null ? null : layout.map((part) => join(stage, part.path)),
-          headerLength: header?.length ?? 0,
-          threads: size.threads,
-          progress: progress('stats', records),
-        })
-      : (await gathered.lanes.finish(), null);
-    if (o.stats && !plan.statsInLanes) timings.statsMs = Date.now() - tStats;
-    await gathered.lanes.destroy();
     lanes = null;
     timings.gatherMs = Date.now() - tGather;
-    if (gathered.phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (timings[`gather.${name}Ms`] = Math.round(gathered.phases[k] ?? 0)));
 
     // ---- manifest, then the commit that makes the output visible ----
     const outFp = checkSameRecords(fingerprints, sc.fingerprint, 'please report this.');
@@ -224,8 +184,8 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       deal,
       buckets: size.buckets,
       threads: size.threads,
-      layout: ranLayout(size, sc.spill.placement(), gathered.splits),
-      memory: { budget: o.memory, isDefault: o.memoryIsDefault, splits: gathered.splits },
+      layout: ranLayout(size, sc.spill.placement(), splitCount),
+      memory: { budget: o.memory, isDefault: o.memoryIsDefault, splits: splitCount },
       parts: partRecords(layout, counts, deal.folds, plan.strataCount, closed, fingerprints, stats?.parts ?? null),
       deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
@@ -250,11 +210,94 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     // A fault of the environment met anywhere above: coded, with its path and operation.
     throw codedSystemError(err);
   } finally {
-    for (const w of writers) w.abandon();
     if (lanes) await lanes.destroy().catch(() => {});
     // No thread reads the memory layout's files any more.
     memory?.close();
     await work.finish();
+  }
+}
+
+/**
+ * The gather step of a run on one machine: the parts opened, every bucket dealt in order into
+ * them (gather-stage.ts; the spill removed a range at a time behind it), spread order written,
+ * the parts closed, and `--stats` taken from the lanes or read back. The lanes are finished and
+ * destroyed on success; on failure the parts are abandoned and the caller destroys the lanes.
+ */
+async function gatherIntoParts(a: {
+  o: ReturnType<typeof resolveShuffleOptions>;
+  size: RunSize;
+  sc: Awaited<ReturnType<typeof runScatterStage>>['sc'];
+  localToGlobal: number[];
+  plan: GatherPlan;
+  planPath: string;
+  layout: PartInfo[];
+  header: Buffer | null;
+  stage: string | null;
+  spillDir: string;
+  lanes: ShuffleLanes | null;
+  work: RunWork;
+  progress: (stage: 'gather' | 'order' | 'stats') => (done: number, total: number) => void;
+  onSplit: () => void;
+  timings: Record<string, number>;
+}): Promise<{ counts: Float64Array; fingerprints: Fingerprint[]; closed: { bytes: number; sha256: string }[]; stats: PartStatistics | null; splits: number }> {
+  const { o, size, sc, plan, layout, stage } = a;
+  const parts = layout.length;
+  let writers = await openParts(stage, layout, o, a.header, a.spillDir);
+  try {
+    const spread = o.order === 'spread' ? new SpreadParts(a.spillDir, parts, plan.strataCount) : null;
+    const { perRange } = spillRanges(size.buckets);
+    let removing: Promise<void> = Promise.resolve();
+    const gathered = await runGatherStage({
+      plan,
+      planPath: a.planPath,
+      piecesOf: (b) => sc.spill.pieces(b),
+      countsOf: (b, running) => {
+        for (let l = 0; l < sc.strata.length; l++) running[a.localToGlobal[l]!]! += sc.bucketCounts[l]![b]!;
+      },
+      first: 0,
+      end: size.buckets,
+      rankStart: new Float64Array(plan.strataCount),
+      lanes: a.lanes,
+      inFlight: size.inFlight,
+      sink: spread ? spreadSink(spread) : writerSink(writers),
+      // Buckets are dealt in order: past the last bucket of a range, no task reads its files
+      // (or slabs) again. The removal runs beside the dealing; the previous range's is waited for
+      // here, so the spill never lags more than a range behind.
+      passed: async (next) => {
+        if (next % perRange !== 0 && next !== size.buckets) return;
+        const r = Math.floor((next - 1) / perRange);
+        sc.spill.releaseRange(r);
+        await removing;
+        removing = a.work.removeEarly(sc.spill.rangeFiles(r));
+      },
+      progress: a.progress('gather'),
+      split: { cap: size.bucketCap, target: size.bucketTarget, dir: a.spillDir, bufferBytes: Math.floor(o.memory / 4), onSplit: a.onSplit },
+    });
+    const { counts, fingerprints } = gathered;
+    if (spread) await writeSpreadParts(spread, writers, counts, plan.deal.folds, plan.strataCount, a.progress('order'));
+    const closed = await closeParts(writers);
+    writers = [];
+    const tStats = Date.now();
+    const stats = o.stats
+      ? await partStatistics({
+          columns: sc.schema.columns,
+          partCount: parts,
+          statsInLanes: plan.statsInLanes,
+          excludeValues: o.excludeValues,
+          lanes: gathered.lanes,
+          inline: gathered.inline,
+          files: stage === null ? null : layout.map((part) => join(stage, part.path)),
+          headerLength: a.header?.length ?? 0,
+          threads: size.threads,
+          progress: a.progress('stats'),
+        })
+      : (await gathered.lanes.finish(), null);
+    if (o.stats && !plan.statsInLanes) a.timings.statsMs = Date.now() - tStats;
+    await gathered.lanes.destroy();
+    if (gathered.phases.length) ['read', 'index', 'sort', 'deal', 'copy', 'fingerprint'].forEach((name, k) => (a.timings[`gather.${name}Ms`] = Math.round(gathered.phases[k] ?? 0)));
+    return { counts, fingerprints, closed, stats, splits: gathered.splits };
+  } finally {
+    for (const w of writers) w.abandon();
   }
 }
 
