@@ -145,9 +145,11 @@ describe('reading in blocks gives what a sequential read gives', () => {
       seen.rechecked += got.totals.blocks.rechecked;
       if (got.totals.blocks.sequentialFrom !== null) seen.fallbacks++;
     }
-    // The parallel path did the work, and wrong guesses were caught and read again.
+    // The parallel path did the work, and wrong guesses were caught and read again. The guess
+    // (record-start.ts) passes over most line ends inside quotes (the first line end after each
+    // block's start gave over 500 wrong guesses here); short random fields still fool it at times.
     expect(seen.parallel).toBeGreaterThan(2000);
-    expect(seen.rechecked).toBeGreaterThan(500);
+    expect(seen.rechecked).toBeGreaterThan(50);
   });
 
   it('refused records: same records, same order, under skip and quarantine', async () => {

@@ -9,7 +9,7 @@ import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
-import { bufferShare, bucketCap, chooseBuckets, MEMORY_LAYOUT_SHARE, MIN_WRITE, sizeRun } from '../src/engine/sizing.js';
+import { bufferShare, bucketCap, chooseBuckets, MEMORY_LAYOUT_SHARE, MIN_WRITE, sizeRun, youngGenerationMb } from '../src/engine/sizing.js';
 import { cgroupRoom, defaultMemoryFor, DEFAULT_MEMORY_MAX, DEFAULT_MEMORY_MIN, memAvailableOf } from '../src/io/memory-available.js';
 import { resolveShuffleOptions } from '../src/options.js';
 import { run as runShuffleCli } from '../src/cli/commands/shuffle.js';
@@ -95,6 +95,17 @@ function outputOf(out: string, m: Manifest): { files: Record<string, string>; ma
   expect(m.output.parts.length).toBeGreaterThan(0);
   return { files, manifest: JSON.stringify(rest) };
 }
+
+describe('the worker threads\' young generation', () => {
+  it('is capped under a small budget (an eighth of it, 6 to 32 MiB), left to V8 from 512 MiB', () => {
+    const MiB = 1024 * 1024;
+    expect(youngGenerationMb(4 * MiB)).toBe(6);
+    expect(youngGenerationMb(64 * MiB)).toBe(8);
+    expect(youngGenerationMb(256 * MiB)).toBe(32);
+    expect(youngGenerationMb(511 * MiB)).toBe(32);
+    expect(youngGenerationMb(512 * MiB)).toBeUndefined();
+  });
+});
 
 describe('every layout writes the same bytes', () => {
   const modes: [string, Partial<ShuffleOptions>][] = [

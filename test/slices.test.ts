@@ -11,7 +11,8 @@ import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { readInput } from '../src/io/input.js';
 import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
-import { guessRecordStart, plausibleRecords, readSlice, type InputSlice, type SliceRead } from '../src/io/slices.js';
+import { guessRecordStart, readSlice, type InputSlice, type SliceRead } from '../src/io/slices.js';
+import { plausibleRecords } from '../src/io/record-start.js';
 import type { InputSchema } from '../src/io/batch.js';
 import { createRandom, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 

@@ -15,7 +15,7 @@ import { resolveWorkerFile } from '../workers/worker-file.js';
 import type { ShuffleLanes } from '../workers/protocol.js';
 import { computeBinEdges, type BinEdges } from './quantiles.js';
 import { censusDir, scatter, scatterTaskConfig, type ScatterOptions, type ScatterResult } from './scatter.js';
-import type { Layout, RunSize } from './sizing.js';
+import { youngGenerationMb, type Layout, type RunSize } from './sizing.js';
 import type { MemoryStore } from './ram-store.js';
 
 /** The secrets a seed gives: record keys, hash-mode cells, the dealing's rank permutations. */
@@ -159,7 +159,8 @@ export async function runScatterStage(i: ScatterStageInput): Promise<ScatterStag
   // The same threads do every step (shuffle-worker.ts): started here, kept for the next ones.
   let lanes: ShuffleLanes | null = null;
   if (size.threads > 0) {
-    lanes = new WorkerLanes(resolveWorkerFile(), size.threads, scatterTaskConfig(scatterOptions));
+    const young = youngGenerationMb(size.memory);
+    lanes = new WorkerLanes(resolveWorkerFile(), size.threads, scatterTaskConfig(scatterOptions), young === undefined ? undefined : { maxYoungGenerationSizeMb: young });
     scatterOptions.lanes = lanes;
   }
   try {

@@ -5,8 +5,8 @@
  *   main thread                                   worker (lane id mod n)
  *   head: first chunk read here (BOM, header,
  *         schema), batches go the usual way
- *   block k: bytes [a_k - 1, a_k+1 + lookahead) ─▶ guess a record start s_k (after the first
- *                                                   line end), parse to the first record start
+ *   block k: bytes [a_k - 1, a_k+1 + lookahead) ─▶ guess a record start s_k (record-start.ts:
+ *                                                   after a line end), parse to the first record start
  *                                                   e_k at or after a_k+1, keep the batch
  *                                    ◀── summary { s_k, e_k, lines, records, ok }
  *   chain, in block order: s_k === e_k-1?
@@ -17,8 +17,9 @@
  *
  * Why a guess is safe: from a true record start the parser's work is the same as a sequential
  * read's, so a block whose guessed start equals the previous block's verified end holds exactly
- * the records a sequential read finds there. The guess is wrong only when the first line end of
- * a block lies inside a quoted field; the recheck then costs one more parse of that block.
+ * the records a sequential read finds there. The guess is wrong only when the line end it takes
+ * lies inside a quoted field (record-start.ts passes over those whose next bytes do not read as
+ * records); the recheck then costs one more parse of that block.
  * Records refused in a block (skip, quarantine) travel back with the summary and are reported
  * in block order with their true line numbers. Under `fail` a bad record makes the block
  * untrusted, and the sequential read from there raises the error exactly as it always does.
@@ -28,6 +29,7 @@ import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import type { Answer, BlockJob, BlockMessage, BlockReply, BlockSummary, CommitMessage, DropMessage, RecheckMessage, Released, Reply } from '../workers/protocol.js';
 import { checkNotHeaderOnly } from './fields.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
+import { guessStart } from './record-start.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { flags } from '../flags.js';
 
@@ -146,9 +148,9 @@ export class BlockHost {
     let s: number;
     if (start >= 0) s = start - job.origin;
     else {
-      const lf = d.indexOf(LF, job.from - 1);
-      if (lf < 0 || (job.stop >= 0 && lf >= job.stop)) return fail(-1);
-      s = lf + 1;
+      const shape = job.schema.format === 'jsonl' ? null : { delimiter: job.schema.delimiter, columns: job.schema.columns.length };
+      s = guessStart(d, job.from - 1, job.stop >= 0 ? job.stop : job.length, shape, job.stop < 0, job.length);
+      if (s < 0) return fail(-1);
     }
     if (s < 0 || s > job.length) return fail(-1);
     const reader = this.#reader(job);

@@ -4,12 +4,12 @@
  *
  * A slice [a, b) holds the records that start at or after its true first record start and before
  * the first record start at or after b (its end). Where a slice begins is guessed, unless known:
- * the byte after a line end at or after a − 1, the first one whose next records read as whole
- * records of the input's width outside quotes (a CSV line end inside a quoted field is followed by
- * the rest of that field, which rarely does). The guess can still be wrong; the read then reports
- * the start it used, and whoever sees all the slices checks each start against the end of the
- * slice before (the same chain the worker threads' blocks keep, io/blocks.ts) and reads a wrong
- * slice again from the right start: a wrong guess costs time, never bytes.
+ * the byte after a line end at or after a − 1, by the rule of record-start.ts (for CSV and TSV,
+ * the first line end whose next records read as whole records of the input's width). It can be
+ * wrong; the read then reports the start it used, and whoever sees all the slices checks each
+ * start against the end of the slice before (the same chain the worker threads' blocks keep,
+ * io/blocks.ts) and reads a wrong slice again from the right start: a wrong guess costs time,
+ * never bytes.
  *
  * Near b the bytes go to the reader a line at a time, so that nothing past the end's record start
  * is parsed: a malformed record there belongs to the next slice, and must not stop this one.
@@ -21,6 +21,10 @@ import { open } from 'node:fs/promises';
 import type { InputSchema, RecordBatch } from './batch.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { systemError } from '../errors.js';
+import { guessStart, type RecordShape } from './record-start.js';
+
+/** Bytes read to find a slice's start. */
+const GUESS_WINDOW = 1 << 20;
 
 export interface InputSlice {
   /** Input ordinal (its place among all the inputs). */
@@ -45,68 +49,6 @@ export interface SliceRead {
   rejected: number;
 }
 
-/** What a record of the input looks like, for telling a record start from a line end inside quotes. */
-export interface RecordShape {
-  delimiter: number;
-  columns: number;
-}
-
-/** Records a candidate start must begin with (fewer when the window ends first). */
-const PLAUSIBLE_RECORDS = 4;
-const GUESS_WINDOW = 1 << 20;
-
-/**
- * How many whole records of `shape.columns` fields `buf` holds from `from`, read outside quotes
- * (RFC 4180: a quote opens a field, a doubled quote inside it is data, the closing quote is
- * followed by a delimiter or a line end; no quote inside an unquoted field), up to `want`; -1
- * when the bytes contradict that reading. Stops without contradiction at the window's end, unless
- * `atEnd` (the window ends where the input does): a quoted field still open there is a
- * contradiction, and a last record without a line end counts.
- */
-export function plausibleRecords(buf: Uint8Array, from: number, shape: RecordShape, want: number, atEnd = false): number {
-  const Q = 0x22;
-  const LF = 0x0a;
-  const CR = 0x0d;
-  const d = shape.delimiter;
-  let i = from;
-  let records = 0;
-  let fields = 0;
-  while (i < buf.length && records < want) {
-    if (buf[i] === Q) {
-      // A quoted field: to its closing quote.
-      let j = i + 1;
-      for (;;) {
-        j = buf.indexOf(Q, j);
-        if (j < 0) return atEnd ? -1 : records;
-        if (j + 1 >= buf.length) return atEnd && fields + 1 === shape.columns ? records + 1 : records;
-        if (buf[j + 1] === Q) j += 2;
-        else break;
-      }
-      i = j + 1;
-      const c = buf[i]!;
-      if (c === CR) {
-        if (i + 1 >= buf.length) return records;
-        if (buf[i + 1] !== LF) return -1;
-        i++;
-      } else if (c !== d && c !== LF) return -1;
-    } else {
-      while (i < buf.length && buf[i] !== d && buf[i] !== LF) {
-        if (buf[i] === Q) return -1;
-        i++;
-      }
-      if (i >= buf.length) return atEnd && fields + 1 === shape.columns ? records + 1 : records;
-    }
-    fields++;
-    if (buf[i] === LF) {
-      if (fields !== shape.columns) return -1;
-      records++;
-      fields = 0;
-    }
-    i++;
-  }
-  return records;
-}
-
 /**
  * The guessed record start of a slice cut at `at`: the byte after the first line end at or after
  * `at - 1` whose next records are plausible for `shape` (see plausibleRecords); with no shape
@@ -124,16 +66,8 @@ export async function guessRecordStart(path: string, at: number, shape: RecordSh
       const { bytesRead } = await fh.read(buf, 0, buf.length, pos);
       if (bytesRead === 0) return pos;
       const data = buf.subarray(0, bytesRead);
-      const lf = data.indexOf(0x0a);
-      if (lf < 0) continue;
-      if (shape && shape.columns > 1) {
-        for (let c = lf; c >= 0; c = data.indexOf(0x0a, c + 1)) {
-          const n = plausibleRecords(data, c + 1, shape, PLAUSIBLE_RECORDS, bytesRead < buf.length);
-          if (n > 0) return pos + c + 1; // PLAUSIBLE_RECORDS, or as many as the window holds
-          if (n === 0) break; // not one whole record in the window: the first line end, as without a shape
-        }
-      }
-      return pos + lf + 1;
+      const s = guessStart(data, 0, data.length, shape, bytesRead < buf.length);
+      if (s >= 0) return pos + s;
     }
   } finally {
     await fh.close();

@@ -13,7 +13,7 @@
  * Errors cross as plain data (`toWire`) and are rebuilt with `fromWire`. What the tasks, results
  * and finals are is protocol.ts's: a task names its kind, and its result is typed by it.
  */
-import { parentPort, Worker, type TransferListItem } from 'node:worker_threads';
+import { parentPort, Worker, type ResourceLimits, type TransferListItem } from 'node:worker_threads';
 import { fromWire, toWire, RowdeckError, type WireError } from '../errors.js';
 import type { Answer, Reply } from './protocol.js';
 
@@ -42,13 +42,14 @@ const INLINE_SCRIPT_FLAG = /^--(input-type|eval|print)(=|$)/;
  *   list given explicitly must not hold V8 flags, though (ERR_WORKER_INVALID_EXEC_ARGV), so
  *   when it does the worker starts without Node flags (V8's apply to every thread anyway).
  */
-function startWorker(file: string, workerData: unknown): Worker {
-  if (!process.execArgv.some((a) => INLINE_SCRIPT_FLAG.test(a))) return new Worker(file, { workerData });
+function startWorker(file: string, workerData: unknown, limits: ResourceLimits | undefined): Worker {
+  const base = { workerData, ...(limits ? { resourceLimits: limits } : {}) };
+  if (!process.execArgv.some((a) => INLINE_SCRIPT_FLAG.test(a))) return new Worker(file, base);
   try {
-    return new Worker(file, { workerData, execArgv: process.execArgv.filter((a) => !INLINE_SCRIPT_FLAG.test(a)) });
+    return new Worker(file, { ...base, execArgv: process.execArgv.filter((a) => !INLINE_SCRIPT_FLAG.test(a)) });
   } catch (err) {
     if ((err as NodeJS.ErrnoException).code !== 'ERR_WORKER_INVALID_EXEC_ARGV') throw err;
-    return new Worker(file, { workerData, execArgv: [] });
+    return new Worker(file, { ...base, execArgv: [] });
   }
 }
 
@@ -58,10 +59,11 @@ export class WorkerLanes<T, F> implements Lanes<T, F> {
   #nextId = 0;
   #failure: Error | null = null;
 
-  constructor(file: string, size: number, workerData: unknown) {
+  /** `limits`: the heap limits of each worker's isolate (see sizing.ts's youngGenerationMb). */
+  constructor(file: string, size: number, workerData: unknown, limits?: ResourceLimits) {
     this.size = size;
     for (let k = 0; k < size; k++) {
-      const worker = startWorker(file, { lane: k, data: workerData });
+      const worker = startWorker(file, { lane: k, data: workerData }, limits);
       const lane: Lane<F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
       worker.on('message', (m: FromWorker<F>) => {
         if (m.kind === 'final') {
