@@ -55,6 +55,9 @@ Memory and disk:
     multi-pass  larger still: as many buckets as 32 KiB buffers fit the budget, and stage 2
                 scatters each one too large for it once more, by the key's next bits, before
                 it deals it: memory stays within the budget at any input size
+  Beside the budget: Node itself and the threads' heaps, about 110-140 MiB on two threads
+  (under budgets below 512 MiB the threads' young heaps are kept small to hold that), and
+  column statistics (--stats, profile) for wide inputs.
   Before it reads a record, a run checks the free space of the spill's folder and of --out
   against what it will write (spill about 1.3x the input, parts about 1x; on one disk the
   spill and a range of parts at once) and stops with RDK_NO_SPACE if short.
