@@ -4,8 +4,8 @@
  * manifest with the tasks' hosts and times in its `run` section, puts the output into place
  * atomically (src/engine/run-work.ts, as `shuffle` does), and removes the work folder.
  */
-import { createReadStream, mkdirSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
-import { basename, dirname, join } from 'node:path';
+import { createReadStream, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { basename, join } from 'node:path';
 import { availableParallelism } from 'node:os';
 import { Fingerprint } from '../core/hash.js';
 import { TableStats } from '../core/stats.js';
@@ -17,7 +17,7 @@ import type { JoinMessage } from '../workers/protocol.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { buildManifest, hostInfo } from '../engine/manifest.js';
-import { checkSameRecords, closeParts, headerBytes, openParts, partLayout, partRecords, partStatistics, writeSpreadParts } from '../engine/parts.js';
+import { checkSameRecords, closeParts, makePartFolders, headerBytes, openParts, partLayout, partRecords, partStatistics, writeSpreadParts } from '../engine/parts.js';
 import { partCount } from '../engine/plan.js';
 import { startRunWork } from '../engine/run-work.js';
 import { SpreadParts } from '../engine/spread-parts.js';
@@ -110,14 +110,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     let closed: { bytes: number; sha256: string }[];
     if (gatherPlan.order !== 'spread' && !o.gzip) {
       // Plain parts: each joined and hashed whole on a worker lane, parts side by side.
-      for (const part of layout) {
-        const folder = dirname(join(stage, part.path));
-        try {
-          mkdirSync(folder, { recursive: true });
-        } catch (err) {
-          throw systemError(err, folder, 'creating a folder for the parts');
-        }
-      }
+      makePartFolders(stage, layout);
       const threads = Math.min(parts, f.threads ?? availableParallelism());
       const lanes = await dealLanes(threads, dealDir);
       try {

@@ -66,16 +66,7 @@ export function headerBytes(schema: InputSchema, foldColumn: string | null, form
  * to the same eighth of the budget, the rest parked in `spillDir` (src/io/gzip-members.ts).
  */
 export async function openParts(stage: string | null, layout: PartInfo[], o: Pick<ResolvedShuffleOptions, 'gzip' | 'gzipLevel' | 'memory'>, header: Buffer | null, spillDir: string): Promise<PartWriter[]> {
-  if (stage !== null) {
-    for (const part of layout) {
-      const folder = dirname(join(stage, part.path));
-      try {
-        mkdirSync(folder, { recursive: true });
-      } catch (err) {
-        throw systemError(err, folder, 'creating a folder for the parts');
-      }
-    }
-  }
+  if (stage !== null) makePartFolders(stage, layout);
   const gatherBytes = Math.max(8 * 1024, Math.min(64 * 1024, Math.floor(o.memory / 8 / layout.length)));
   const slots = new FileSlots(choosePartFileSlots());
   const memberBytes = memberBytesFor(layout.length);
@@ -230,6 +221,18 @@ export function partRecords(layout: PartInfo[], counts: Float64Array, folds: num
       ...(stats ? { stats: stats[p]! } : {}),
     };
   });
+}
+
+/** The folders the parts go in (named splits: one each), in the staging folder. */
+export function makePartFolders(stage: string, layout: PartInfo[]): void {
+  for (const part of layout) {
+    const folder = dirname(join(stage, part.path));
+    try {
+      mkdirSync(folder, { recursive: true });
+    } catch (err) {
+      throw systemError(err, folder, 'creating a folder for the parts');
+    }
+  }
 }
 
 /**
