@@ -12,7 +12,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { readInput } from '../src/io/input.js';
 import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
 import { guessRecordStart, readSlice, type InputSlice, type SliceRead } from '../src/io/slices.js';
-import { plausibleRecords } from '../src/io/record-start.js';
+import { guessStart, plausibleRecords } from '../src/io/record-start.js';
 import type { InputSchema } from '../src/io/batch.js';
 import { createRandom, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 
@@ -163,6 +163,17 @@ describe('telling a record start from a line end inside quotes', () => {
     expect(plausibleRecords(buf('1,2,3\n4,"open'), 0, shape, 4)).toBe(1);
     expect(plausibleRecords(buf('1,2,3\n4,"open'), 0, shape, 4, true)).toBe(-1);
     expect(plausibleRecords(buf('1,2,3\n4,5,6'), 0, shape, 4, true)).toBe(2);
+  });
+
+  it('where no line end near the cut reads as a record (ragged rows, bare quotes), the guess is the first line end, after a bounded look', () => {
+    // 100,000 lines of two fields, then lines of three: the first plausible start lies ~400 KB
+    // on, past the span the guess looks over, so it falls back to the first line end.
+    const text = 'x\n' + 'a,b\n'.repeat(100_000) + '1,2,3\n'.repeat(10);
+    const d = buf(text);
+    expect(guessStart(d, 0, d.length, shape, true)).toBe(2);
+    // Within the span it is found.
+    const near = buf('x\n' + 'a,b\n'.repeat(10) + '1,2,3\n'.repeat(10));
+    expect(guessStart(near, 0, near.length, shape, true)).toBe(2 + 40);
   });
 
   it('the guess skips line ends inside quoted fields, and is the first line end without a shape', async () => {

@@ -29,7 +29,7 @@ import type { InputSchema, RecordBatch, RejectedRecord } from './batch.js';
 import type { Answer, BlockJob, BlockMessage, BlockReply, BlockSummary, CommitMessage, DropMessage, RecheckMessage, Released, Reply } from '../workers/protocol.js';
 import { checkNotHeaderOnly } from './fields.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
-import { guessStart } from './record-start.js';
+import { guessStart, shapeOf } from './record-start.js';
 import { RowdeckError, ioError } from '../errors.js';
 import { flags } from '../flags.js';
 
@@ -148,8 +148,7 @@ export class BlockHost {
     let s: number;
     if (start >= 0) s = start - job.origin;
     else {
-      const shape = job.schema.format === 'jsonl' ? null : { delimiter: job.schema.delimiter, columns: job.schema.columns.length };
-      s = guessStart(d, job.from - 1, job.stop >= 0 ? job.stop : job.length, shape, job.stop < 0, job.length);
+      s = guessStart(d, job.from - 1, job.stop >= 0 ? job.stop : job.length, shapeOf(job.schema), job.stop < 0, job.length);
       if (s < 0) return fail(-1);
     }
     if (s < 0 || s > job.length) return fail(-1);

@@ -8,6 +8,8 @@
  * was wrong, so a wrong guess costs time, never bytes.
  */
 
+import type { InputSchema } from './batch.js';
+
 /** What a record of the input looks like, for telling a record start from a line end inside quotes. */
 export interface RecordShape {
   delimiter: number;
@@ -16,6 +18,17 @@ export interface RecordShape {
 
 /** Records a candidate start must begin with (fewer when the window ends first). */
 const PLAUSIBLE_RECORDS = 4;
+/**
+ * Candidates lie within this many bytes of the first line end: where no line end there is
+ * plausible (bare quotes in a TSV, ragged rows), the guess falls back to the first line end
+ * after reading a little, not a whole block's worth of candidates.
+ */
+const CANDIDATE_SPAN = 64 * 1024;
+
+/** The shape of an input's records, or null where every line end is a record's (JSON Lines). */
+export function shapeOf(schema: InputSchema): RecordShape | null {
+  return schema.format === 'jsonl' ? null : { delimiter: schema.delimiter, columns: schema.columns.length };
+}
 
 /**
  * How many whole records of `shape.columns` fields `buf` holds from `from`, read outside quotes
@@ -74,7 +87,7 @@ export function plausibleRecords(buf: Uint8Array, from: number, shape: RecordSha
  * there: the byte after the first line end whose next records are plausible for `shape` (see
  * plausibleRecords); with no shape (JSON Lines, where a line end is always a record's, or one
  * column), or none plausible, or not one whole record in the window, the byte after the first
- * line end. Candidates lie before `end`; the records after them are read up to `windowEnd`
+ * line end. Candidates lie before `end` and within CANDIDATE_SPAN of the first; the records after them are read up to `windowEnd`
  * (a block's lookahead), and `atEnd` says the input ends there.
  */
 export function guessStart(d: Uint8Array, from: number, end: number, shape: RecordShape | null, atEnd: boolean, windowEnd = end): number {
@@ -82,7 +95,8 @@ export function guessStart(d: Uint8Array, from: number, end: number, shape: Reco
   if (lf < 0 || lf >= end) return -1;
   if (shape && shape.columns > 1) {
     const window = d.subarray(0, windowEnd);
-    for (let c = lf; c >= 0 && c < end; c = d.indexOf(0x0a, c + 1)) {
+    const last = Math.min(end, lf + CANDIDATE_SPAN);
+    for (let c = lf; c >= 0 && c < last; c = d.indexOf(0x0a, c + 1)) {
       const n = plausibleRecords(window, c + 1, shape, PLAUSIBLE_RECORDS, atEnd);
       if (n > 0) return c + 1; // PLAUSIBLE_RECORDS, or as many as the window holds
       if (n === 0) break; // not one whole record in the window: the first line end, as without a shape

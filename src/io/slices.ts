@@ -21,7 +21,7 @@ import { open } from 'node:fs/promises';
 import type { InputSchema, RecordBatch } from './batch.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
 import { systemError } from '../errors.js';
-import { guessStart, type RecordShape } from './record-start.js';
+import { guessStart, shapeOf, type RecordShape } from './record-start.js';
 
 /** Bytes read to find a slice's start. */
 const GUESS_WINDOW = 1 << 20;
@@ -80,7 +80,7 @@ export async function guessRecordStart(path: string, at: number, shape: RecordSh
  * the slice is read; complete once the generator is done.
  */
 export async function* readSlice(path: string, slice: InputSlice, ro: RecordReaderOptions, schema: InputSchema | null, read: SliceRead): AsyncGenerator<{ batch: RecordBatch; schema: InputSchema }> {
-  const start = slice.start === 0 ? 0 : slice.exact ? slice.start : await guessRecordStart(path, slice.start, schema && schema.format !== 'jsonl' ? { delimiter: schema.delimiter, columns: schema.columns.length } : null);
+  const start = slice.start === 0 ? 0 : slice.exact ? slice.start : await guessRecordStart(path, slice.start, schema && shapeOf(schema));
   const cut = slice.end < 0 ? Infinity : slice.end;
   const reader = new RecordReader(ro);
   if (start > 0) {
