@@ -5,7 +5,7 @@
  * crash. A run that replays another (verify --against) has no output folder: only the spill.
  */
 import { rm } from 'node:fs/promises';
-import { accessSync, constants, mkdtempSync, readdirSync, rmSync, statSync, writeSync } from 'node:fs';
+import { accessSync, constants, mkdtempSync, readdirSync, renameSync, rmSync, statSync, writeSync } from 'node:fs';
 import { dirname, join, resolve } from 'node:path';
 import { RowdeckError, systemError } from '../errors.js';
 import { claimOutput, makeParents, removeCreated, type OutputClaim } from '../io/output-folder.js';
@@ -93,7 +93,16 @@ export function startRunWork(o: RunWorkOptions): RunWork {
     if (spill) {
       const s = spill;
       attempt(() => {
-        rmSync(s, { recursive: true, force: true, maxRetries: 5, retryDelay: 20 });
+        try {
+          rmSync(s, { recursive: true, force: true, maxRetries: 5, retryDelay: 20 });
+        } catch {
+          // Worker threads still making files in it (a signal mid-run): moved out of their way
+          // first (a path they open after this fails), then removed; the name keeps its prefix,
+          // so a next run's sweep knows it should this fail too.
+          const gone = `${s}.gone`;
+          renameSync(s, gone);
+          rmSync(gone, { recursive: true, force: true, maxRetries: 5, retryDelay: 20 });
+        }
         removed.push(s);
       });
       spill = null;
