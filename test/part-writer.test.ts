@@ -120,4 +120,15 @@ describe('PartWriter', () => {
       expect(await w.close()).toEqual(real);
     }
   });
+
+  it('a writer told not to hash (a gather task\'s piece) writes the same bytes and gives no sha256', async () => {
+    const path = join(dir, 'piece.bin');
+    const w = new PartWriter(path, null, 64 * 1024, null, false);
+    for (const s of slices) {
+      const writing = w.write(s);
+      if (writing) await writing;
+    }
+    expect(await w.close()).toEqual({ bytes: whole.length, sha256: '' });
+    expect(readFileSync(path).equals(whole)).toBe(true);
+  });
 });

@@ -61,7 +61,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
     const S = gatherPlan.strataCount;
     const spread = gatherPlan.order === 'spread' ? new SpreadParts(dir, parts, S) : null;
     const slots = new FileSlots(choosePartFileSlots());
-    const writers = spread ? [] : Array.from({ length: parts }, (_, p) => new PartWriter(join(dir, partSliceFile(p)), null, 64 * 1024, slots));
+    const writers = spread ? [] : Array.from({ length: parts }, (_, p) => new PartWriter(join(dir, partSliceFile(p)), null, 64 * 1024, slots, false));
     const sink: GatherSink = spread
       ? spreadSink(spread)
       : {

@@ -66,7 +66,8 @@ export class PartWriter {
   /** The file exists (created by this writer): later opens append. */
   #created = false;
   readonly #slots: FileSlots | null;
-  #hash: Hash = createHash('sha256');
+  /** Null for a piece of a part (a plan's gather task): finish hashes the joined part, and nobody reads a piece's hash. */
+  readonly #hash: Hash | null;
   /** The part's gzip members (null: plain). */
   readonly #gzip: GzipMembers | null = null;
   /** The first failure (a coded error); every later call reports it. */
@@ -80,9 +81,11 @@ export class PartWriter {
    * into their member instead).
    * `slots`: shared with the run's other writers to bound open files (none: this writer keeps its
    * file open until `close`).
+   * `hashed`: false leaves out the sha256 (`close` then gives an empty one).
    */
-  constructor(path: string | null, gzip: MemberCompressor | null, gatherBytes = 0, slots: FileSlots | null = null) {
+  constructor(path: string | null, gzip: MemberCompressor | null, gatherBytes = 0, slots: FileSlots | null = null, hashed = true) {
     this.path = path;
+    this.#hash = hashed ? createHash('sha256') : null;
     this.#gatherBytes = gzip ? 0 : gatherBytes;
     this.#slots = path === null ? null : slots;
     // Created at once (exclusively), so a name taken by something else is reported before any work.
@@ -142,7 +145,7 @@ export class PartWriter {
         throw this.#failure!;
       }
     }
-    this.#hash.update(buf);
+    this.#hash?.update(buf);
     this.bytes += buf.byteLength;
   }
 
@@ -194,7 +197,7 @@ export class PartWriter {
     throw this.#failure!;
   }
 
-  /** Finishes the file and returns its size and sha256. */
+  /** Finishes the file and returns its size and sha256 (empty where not hashed). */
   async close(): Promise<{ bytes: number; sha256: string }> {
     try {
       this.#check();
@@ -208,7 +211,7 @@ export class PartWriter {
     }
     this.#slots?.drop(this);
     this.closeFile();
-    return { bytes: this.bytes, sha256: this.#hash.digest('hex') };
+    return { bytes: this.bytes, sha256: this.#hash?.digest('hex') ?? '' };
   }
 
   /** Closes without finishing (on failure; the file is removed with its folder). */
