@@ -33,6 +33,7 @@ export interface Flags {
   phases: boolean;
   bucketBits: number | undefined;
   layout: 'memory' | 'spill' | 'multi-pass' | undefined;
+  storeBytes: number | undefined;
   memoryStore: 'auto' | 'shared';
   partStats: 'auto' | 'lanes' | 'files';
   blockBytes: number | undefined;
@@ -107,6 +108,11 @@ export const FLAG_SPECS: readonly FlagSpec[] = [
     meaning: "forces the layout instead of deciding it from the input's size over `--memory` (`memory` even past the budget; `multi-pass` with buckets 8 times the size stage 2 then takes whole, so that every bucket is split)",
     readBy: ['src/engine/sizing.ts'],
     parse: (t) => (t === 'memory' || t === 'spill' || t === 'multi-pass' ? t : undefined),
+  },
+  {
+    name: 'ROWDECK_STORE_BYTES', key: 'storeBytes', values: 'bytes',
+    meaning: 'how much of the spill a one-process run keeps in memory before the rest goes to files (the memory and spill layouts; `ROWDECK_LAYOUT=spill` alone keeps none), instead of what the budget leaves',
+    readBy: ['src/engine/sizing.ts'], parse: number,
   },
   {
     name: 'ROWDECK_MEMORY_STORE', key: 'memoryStore', values: '`shared`',

@@ -85,6 +85,25 @@ describe('the rule: input over budget', () => {
     expect(sizeRun({ inputs: [input], memory: 256 * MiB, threads: 2 }, false)).toMatchObject({ layout: 'spill', storeBytes: 0 });
     expect(sizeRun({ inputs: [input], memory: 1 * MiB, threads: 2 }, true)).toMatchObject({ layout: 'multi-pass', storeBytes: 0 });
   });
+
+  it('sizeRun: the spill layout of one process keeps what the budget leaves in memory; a plan\'s tasks and a forced spill keep none', () => {
+    // ~5.6 MB of input, a spill of ~7 MB: over 3/4 of 8 MiB, one level of buckets on one thread.
+    const larger = join(dir, 'larger-sizing.csv');
+    writeFileSync(larger, makeSensorCsv({ rows: 100_000, seed: 8 }));
+    const memory = 8 * MiB;
+    const one = sizeRun({ inputs: [larger], memory, threads: 1 }, true);
+    expect(one.layout).toBe('spill');
+    expect(one.storeBytes).toBe(Math.floor(memory - one.buckets * one.bufferBytes - 3 * one.inFlight * one.bucketTarget));
+    expect(one.storeBytes).toBeGreaterThan(0);
+    expect(one.storeBytes).toBeLessThan(one.spillEstimate);
+    expect(sizeRun({ inputs: [larger], memory, threads: 1 }, false)).toMatchObject({ layout: 'spill', storeBytes: 0 });
+    const restore = setFlag('ROWDECK_LAYOUT', 'spill');
+    try {
+      expect(sizeRun({ inputs: [larger], memory, threads: 1 }, true)).toMatchObject({ layout: 'spill', storeBytes: 0 });
+    } finally {
+      restore();
+    }
+  });
 });
 
 /** Every part's sha256 and the manifest without its run section. */
@@ -118,10 +137,14 @@ describe('every layout writes the same bytes', () => {
     ['gzip', { partitions: 2, stratify: 'fault', gzip: true }],
   ];
   // Each layout forced (ROWDECK_LAYOUT), the memory layout in both of its stores; threads 2 and 0.
-  const variants: { name: string; layout: string; store?: string; threads: number; ran: string }[] = [
+  // 'spill, partly in memory': the first 1.2 MB of a ~2.1 MB spill kept in memory, the rest in
+  // files; in shared memory 2.2 MB, two slabs of 1 MiB for 32 pairs of task and range.
+  const variants: { name: string; layout: string; store?: string; storeBytes?: string; threads: number; ran: string }[] = [
     { name: 'memory (files in /dev/shm where there are)', layout: 'memory', threads: 2, ran: 'memory' },
     { name: 'memory (shared memory)', layout: 'memory', store: 'shared', threads: 2, ran: 'memory' },
     { name: 'spill', layout: 'spill', threads: 2, ran: 'spill' },
+    { name: 'spill, partly in memory (files in /dev/shm)', layout: 'spill', storeBytes: '1200000', threads: 2, ran: 'spill' },
+    { name: 'spill, partly in memory (shared memory)', layout: 'spill', store: 'shared', storeBytes: '2200000', threads: 2, ran: 'spill' },
     { name: 'multi-pass', layout: 'multi-pass', threads: 2, ran: 'multi-pass' },
     { name: 'multi-pass on the calling thread', layout: 'multi-pass', threads: 0, ran: 'multi-pass' },
   ];
@@ -129,11 +152,18 @@ describe('every layout writes the same bytes', () => {
   it.each(modes)('%s', async (name, opts) => {
     const seen: { variant: string; out: ReturnType<typeof outputOf> }[] = [];
     for (const v of variants) {
-      const restore = [setFlag('ROWDECK_LAYOUT', v.layout), setFlag('ROWDECK_MEMORY_STORE', v.store)];
+      const restore = [setFlag('ROWDECK_LAYOUT', v.layout), setFlag('ROWDECK_MEMORY_STORE', v.store), setFlag('ROWDECK_STORE_BYTES', v.storeBytes)];
       try {
         const out = join(dir, `${name.replace(/\W+/g, '-')}-${seen.length}`);
         const m = await shuffle({ inputs: [input], out, seed: 'layouts', threads: v.threads, memory: '64MiB', ...opts });
         expect(m.run.layout, v.name).toBe(v.ran);
+        // Where the spill lay: all in memory, all in files, or split where the store ran out.
+        const { memory: inMemory, files: inFiles } = m.run.spillBytes!;
+        if (v.ran === 'memory') expect(inFiles, v.name).toBe(0);
+        // Shared memory is taken a slab at a time, and --group's census spill may take the one
+        // slab the allowance holds: only the files in /dev/shm are sure to hold part of it.
+        else if (v.storeBytes) expect([inMemory > 0 || v.store === 'shared', inFiles > 0, inMemory <= Number(v.storeBytes)], v.name).toEqual([true, true, true]);
+        else expect(inMemory, v.name).toBe(0);
         if (v.ran === 'multi-pass') expect(m.run.bucketsSplit, v.name).toBeGreaterThan(1);
         else expect(m.run.bucketsSplit).toBe(0);
         seen.push({ variant: v.name, out: outputOf(out, m) });
@@ -158,6 +188,8 @@ describe('every layout writes the same bytes', () => {
       const out = join(dir, `rule-${memory}`);
       const m = await shuffle({ inputs: [larger], out, seed: 'rule', threads: 1, memory, partitions: 4, stratify: 'fault', folds: 3 });
       ran.push(m.run.layout);
+      // 8 MiB: the spill layout keeps what the budget leaves (~0.6 MB) in memory, the rest in files.
+      if (m.run.layout === 'spill') expect(m.run.spillBytes!.memory > 0 && m.run.spillBytes!.files > 0, JSON.stringify(m.run.spillBytes)).toBe(true);
       expect(m.run.memory).toBe(Number.parseInt(memory, 10) * MiB);
       expect(m.run.memoryIsDefault).toBe(false);
       outs.push(outputOf(out, m));

@@ -184,8 +184,9 @@ describe('the schema is closed and documented', () => {
     for (const [at, o] of objs) {
       expect(o.additionalProperties, at).toBe(false);
       if (o.properties) {
-        // stats: absent when statistics are turned off; gzipLevel: present only with gzip parts.
-        const optional = ['stats', 'gzipLevel'];
+        // stats: absent when statistics are turned off; gzipLevel: present only with gzip parts;
+        // spillBytes: absent for a plan's run.
+        const optional = ['stats', 'gzipLevel', 'spillBytes'];
         const keys = Object.keys(o.properties as object).filter((k) => !optional.includes(k));
         expect([...((o.required as string[]) ?? [])].sort(), at).toEqual(keys.sort());
       }

@@ -51,7 +51,8 @@ Memory and disk:
                 memory (unnamed files in /dev/shm, or shared memory); no spill file
     spill       larger, up to what one level of buckets holds within the budget (each
                 bucket small enough for stage 2, each buffer of stage 1 at least 32 KiB):
-                spill files, read back bucket by bucket and removed as stage 2 passes them
+                what the budget leaves stays in memory as above, the rest goes to spill
+                files, read back bucket by bucket and removed as stage 2 passes them
     multi-pass  larger still: as many buckets as 32 KiB buffers fit the budget, and stage 2
                 scatters each one too large for it once more, by the key's next bits, before
                 it deals it: memory stays within the budget at any input size

@@ -80,6 +80,8 @@ export interface Manifest {
     memoryIsDefault: boolean;
     /** Buckets split in stage 2 (the multi-pass layout). */
     bucketsSplit: number;
+    /** Bytes of the spill kept in memory and written to files (absent for a plan's run: all files). */
+    spillBytes?: { memory: number; files: number };
     buckets: number;
     /** Worker threads used; 0: the calling thread did the work. */
     threads: number;
@@ -115,6 +117,7 @@ export interface ManifestInput {
   threads: number;
   layout: 'memory' | 'spill' | 'multi-pass';
   memory: { budget: number; isDefault: boolean; splits: number };
+  spillBytes?: { memory: number; files: number };
   parts: PartRecord[];
   deviation: { max: number; kind: 'part' | 'fold'; part: number; stratum: number };
   fingerprints: { input: string; output: string };
@@ -212,6 +215,7 @@ export function buildManifest(m: ManifestInput): Manifest {
       memory: m.memory.budget,
       memoryIsDefault: m.memory.isDefault,
       bucketsSplit: m.memory.splits,
+      ...(m.spillBytes ? { spillBytes: m.spillBytes } : {}),
       buckets: m.buckets,
       threads: m.threads,
       timingsMs: m.timings,

@@ -169,6 +169,7 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
     const outFp = checkSameRecords(fingerprints, sc.fingerprint, 'please report this.');
     const rejected = scattered.rejects.file();
     timings.totalMs = Date.now() - t0;
+    const placement = sc.spill.placement();
     const manifest = buildManifest({
       version: VERSION,
       options: o,
@@ -184,8 +185,9 @@ export async function runPipeline(options: ShuffleOptions, how: PipelineSink): P
       deal,
       buckets: size.buckets,
       threads: size.threads,
-      layout: ranLayout(size, sc.spill.placement(), splitCount),
+      layout: ranLayout(size, placement, splitCount),
       memory: { budget: o.memory, isDefault: o.memoryIsDefault, splits: splitCount },
+      spillBytes: placement,
       parts: partRecords(layout, counts, deal.folds, plan.strataCount, closed, fingerprints, stats?.parts ?? null),
       deviation: { max: worst.deviation, kind: worst.kind, part: worst.unit, stratum: worst.stratum },
       fingerprints: { input: sc.fingerprint.toHex(), output: outFp.toHex() },
@@ -316,7 +318,7 @@ function spaceNeed(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize, s
  * waste little of it).
  */
 function memoryStoreOf(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize): MemoryStore | null {
-  if (size.layout !== 'memory') return null;
+  if (size.storeBytes <= 0) return null;
   const tasks = Math.max(1, size.threads);
   const share = size.spillEstimate / (tasks * Math.min(size.buckets, SPILL_FILES) * 16);
   const slabBytes = Math.min(64 << 20, Math.max(1 << 20, 2 ** Math.floor(Math.log2(Math.max(1, share)))));
@@ -326,10 +328,10 @@ function memoryStoreOf(o: ReturnType<typeof resolveShuffleOptions>, size: RunSiz
   return openMemoryStore(tasks, spillRanges(size.buckets).ranges, census, size.storeBytes, slabBytes, Math.min(size.storeBytes, Math.ceil(1.25 * size.spillEstimate)));
 }
 
-/** The layout that ran: the memory layout only where no chunk went to a file; multi-pass where a bucket was split. */
+/** The layout that ran: the memory layout where no chunk went to a file (a spill layout's store may have held them all); multi-pass where a bucket was split. */
 function ranLayout(size: RunSize, placement: { memory: number; files: number }, splits: number): Layout {
   if (splits > 0) return 'multi-pass';
-  if (size.layout === 'memory' && placement.files === 0) return 'memory';
+  if (placement.files === 0 && (size.layout === 'memory' || placement.memory > 0)) return 'memory';
   return 'spill';
 }
 

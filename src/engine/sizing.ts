@@ -44,7 +44,9 @@ export const MEMORY_LAYOUT_SHARE = 0.75;
  * - `memory`: the spill fits in the budget: stage 1 keeps every bucket's chunks in shared memory
  *   and stage 2 reads them there; no spill file is written.
  * - `spill`: one level of buckets, each small enough for stage 2 and each with a buffer of at
- *   least MIN_WRITE in stage 1, holds it: spill files, read back bucket by bucket.
+ *   least MIN_WRITE in stage 1, holds it: spill files, read back bucket by bucket. In one
+ *   process the first chunks stay in memory as in the memory layout, up to what the budget
+ *   leaves (`storeBytes`); only the rest goes to files.
  * - `multi-pass`: larger still: as many buckets as buffers of MIN_WRITE fit in the budget, and
  *   stage 2 scatters each bucket too large for it once more, by its key's next bits, into
  *   sub-buckets it then deals in order (split.ts). Memory stays within the budget at any size.
@@ -181,7 +183,7 @@ export interface RunSize {
   blockBytes: number;
   /** The spill's estimate in bytes (the inputs' sizes times spillFactor). */
   spillEstimate: number;
-  /** The memory layout: bytes the scatter tasks may keep in memory, together; 0 in the other layouts. */
+  /** Bytes the scatter tasks may keep in memory, together (the memory layout, and the spill layout of one process: its first chunks); 0 otherwise. */
   storeBytes: number;
   /** Stage 2 splits a bucket larger than this (split.ts) into sub-buckets of about `bucketTarget`. */
   bucketCap: number;
@@ -202,9 +204,14 @@ export function sizeRun(o: { inputs: string[]; memory: number; threads: number }
   const cap = forcedSplitting ? forcedSplit(estimate) : bucketCap(o.memory, inFlight);
   const target = forcedSplitting ? Math.max(4096, Math.floor(cap / 2)) : bucketTarget(o.memory, inFlight);
   // What stays for the store once stage 1's buffers and stage 2's buckets in flight have theirs
-  // (forced, as much as the spill needs).
-  let storeBytes = layout === 'memory' ? Math.max(0, Math.floor(o.memory - 2 ** bits * bufferBytes - 3 * inFlight * target)) : 0;
+  // (forced, as much as the spill needs). The spill layout of one process keeps chunks in memory
+  // too, up to that, and only the rest goes to files: what the page cache would otherwise hold
+  // dirty, and write to the disk once it passes the kernel's dirty limit, stays off the disk.
+  // (A forced spill layout keeps none, so that tests see files; ROWDECK_STORE_BYTES sets it.)
+  const stored = layout === 'memory' || (layout === 'spill' && allowMemory && (flags.layout !== 'spill' || flags.storeBytes !== undefined));
+  let storeBytes = stored ? Math.max(0, Math.floor(o.memory - 2 ** bits * bufferBytes - 3 * inFlight * target)) : 0;
   if (layout === 'memory' && flags.layout === 'memory') storeBytes = Math.max(storeBytes, Math.ceil(2 * estimate) + (64 << 20));
+  if (stored && flags.storeBytes !== undefined) storeBytes = flags.storeBytes;
   return {
     layout,
     memory: o.memory,
