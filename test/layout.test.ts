@@ -72,8 +72,8 @@ describe('the rule: input over budget', () => {
     expect(chooseBuckets(spill1x, 64 * MiB, 2, 6, true)).toMatchObject({ layout: 'multi-pass', bits: 8 });
     expect(chooseBuckets(8 * spill1x, 64 * MiB, 2, 6, true)).toMatchObject({ layout: 'multi-pass', bits: 8 });
     expect(chooseBuckets(spill1x, 2 * GiB, 2, 6, true).layout).toBe('memory');
-    // 512 MiB: one level of 1,024 buckets at 1x; at 8x 2,048 larger ones (stage 1's buffers stop at 128 MiB).
-    expect(chooseBuckets(spill1x, 512 * MiB, 2, 6, true)).toMatchObject({ layout: 'spill', bits: 10 });
+    // 512 MiB: one level of 512 buckets of ~2.5 MB at 1x; at 8x 2,048 larger ones (stage 1's buffers stop at 128 MiB).
+    expect(chooseBuckets(spill1x, 512 * MiB, 2, 6, true)).toMatchObject({ layout: 'spill', bits: 9 });
     expect(chooseBuckets(8 * spill1x, 512 * MiB, 2, 6, true)).toMatchObject({ layout: 'spill', bits: 11 });
   });
 

@@ -60,11 +60,15 @@ export function bucketCap(memory: number, inFlight: number): number {
 
 /**
  * The bucket size stage 2 aims at: its key-order copy reads a bucket in key order, jumping
- * around it, and slows sharply once a bucket falls out of cache, hence 1.5 MiB (buckets of
- * 0.75-1.5 MiB; docs/benchmarks.md, "Bucket size"), or less where the budget is small.
+ * around it, and slows once a bucket falls out of cache; but every bucket costs stage 1 a buffer
+ * written for the first time (a fault a page) and widens what its appends touch. 3 MiB (buckets
+ * of 1.5-3 MiB) was fastest on the 1 GB file, ahead of 1.5 and 6 (docs/benchmarks.md, "Bucket
+ * size"); less where the budget is small.
  */
+export const BUCKET_TARGET = 3 * 1024 * 1024;
+
 export function bucketTarget(memory: number, inFlight: number): number {
-  return Math.min(bucketCap(memory, inFlight), 1.5 * 1024 * 1024);
+  return Math.min(bucketCap(memory, inFlight), BUCKET_TARGET);
 }
 
 export interface BucketChoice {

@@ -76,7 +76,7 @@ export class PartWriter {
   /**
    * `gzip`: the run's compressor (null: a plain part).
    * `gatherBytes`: with many parts, each bucket gives each part only a short slice (a bucket's
-   * ~1.5 MiB over 1,024 parts is ~1.5 KiB), and a system call per slice cost more than the
+   * ~3 MiB over 1,024 parts is ~3 KiB), and a system call per slice cost more than the
    * dealing; slices under half this size are gathered and written together (gzip parts gather
    * into their member instead).
    * `slots`: shared with the run's other writers to bound open files (none: this writer keeps its
