@@ -525,8 +525,8 @@ describe('the memory plan of stage 1', () => {
     const big = chooseBuckets(1.3e9, 512 * MiB, 2, 6);
     expect(small.bufferBytes / 2).toBe(64 * 1024);
     expect(big.bufferBytes / 2).toBe(64 * 1024);
-    // Stage 1 of the 100 MB input touches 8 MiB of buffers a task, not 64 MiB.
-    expect(2 ** small.bits * (small.bufferBytes / 2)).toBe(8 * MiB);
+    // Stage 1 of the 100 MB input touches 4 MiB of buffers a task (64 buckets of 2 MB), not 64 MiB.
+    expect(2 ** small.bits * (small.bufferBytes / 2)).toBe(4 * MiB);
   });
 });
 
