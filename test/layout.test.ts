@@ -13,6 +13,7 @@ import { bufferShare, bucketCap, chooseBuckets, MEMORY_LAYOUT_SHARE, MIN_WRITE, 
 import { cgroupRoom, defaultMemoryFor, DEFAULT_MEMORY_MAX, DEFAULT_MEMORY_MIN, memAvailableOf } from '../src/io/memory-available.js';
 import { resolveShuffleOptions } from '../src/options.js';
 import { run as runShuffleCli } from '../src/cli/commands/shuffle.js';
+import { spaceNeed } from '../src/engine/shuffle.js';
 import { setFlag } from '../src/flags.js';
 import { listFiles, makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 
@@ -97,6 +98,9 @@ describe('the rule: input over budget', () => {
     expect(one.storeBytes).toBeGreaterThan(0);
     expect(one.storeBytes).toBeLessThan(one.spillEstimate);
     expect(sizeRun({ inputs: [larger], memory, threads: 1 }, false)).toMatchObject({ layout: 'spill', storeBytes: 0 });
+    // The disk check asks room for the rest only.
+    const o = resolveShuffleOptions({ inputs: [larger], out: join(dir, 'x'), memory: '8MiB', threads: 1 });
+    expect(spaceNeed(o, one, dir, null).spillBytes).toBeCloseTo(one.spillEstimate - one.storeBytes, 0);
     const restore = setFlag('ROWDECK_LAYOUT', 'spill');
     try {
       expect(sizeRun({ inputs: [larger], memory, threads: 1 }, true)).toMatchObject({ layout: 'spill', storeBytes: 0 });

@@ -60,8 +60,9 @@ Memory and disk:
   (under budgets below 512 MiB the threads' young heaps are kept small to hold that), and
   column statistics (--stats, profile) for wide inputs.
   Before it reads a record, a run checks the free space of the spill's folder and of --out
-  against what it will write (spill about 1.3x the input, parts about 1x; on one disk the
-  spill and a range of parts at once) and stops with RDK_NO_SPACE if short.
+  against what it will write (spill about 1.3x the input less what stays in memory, parts
+  about 1x; on one disk the spill and a range of parts at once) and stops with RDK_NO_SPACE
+  if short.
 
 On a terminal, shuffle ends with a table of parts (and folds) by class: each class's records
 and how far its share strays from its share in the whole input, the largest marked with *.

@@ -304,12 +304,13 @@ async function gatherIntoParts(a: {
 }
 
 /** What the run expects to write, and where (see disk-space.ts). */
-function spaceNeed(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize, spillDir: string, stage: string | null): Parameters<typeof checkFreeSpace>[0] {
+export function spaceNeed(o: ReturnType<typeof resolveShuffleOptions>, size: RunSize, spillDir: string, stage: string | null): Parameters<typeof checkFreeSpace>[0] {
   // A stream's size is not known before it ends: nothing to check against.
   const known = !o.inputs.some(isStreamInput);
   const input = known ? o.inputs.reduce((a, p) => a + estimateInputBytes(p), 0) : 0;
   const parts = input * (o.gzip ? 1 / 3 : 1) * (o.order === 'spread' ? 2 : 1);
-  return { spillDir, spillBytes: size.layout === 'memory' || !known ? 0 : size.spillEstimate, outDir: stage, partBytes: parts, out: o.out };
+  // The store keeps the spill's first chunks in memory; only the rest needs the disk.
+  return { spillDir, spillBytes: size.layout === 'memory' || !known ? 0 : Math.max(0, size.spillEstimate - size.storeBytes), outDir: stage, partBytes: parts, out: o.out };
 }
 
 /**

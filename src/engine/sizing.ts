@@ -63,12 +63,14 @@ export function bucketCap(memory: number, inFlight: number): number {
  * around it, and slows once a bucket falls out of cache; but every bucket costs stage 1 a buffer
  * written for the first time (a fault a page) and widens what its appends touch. 3 MiB (buckets
  * of 1.5-3 MiB) was fastest on the 1 GB file, ahead of 1.5 and 6 (docs/benchmarks.md, "Bucket
- * size"); less where the budget is small.
+ * size"). Under a small budget, half of what stage 2 takes whole: there the buckets in flight
+ * are most of the budget, and larger ones bought no speed (64 MiB: 1.6 MB, not 3 MiB, kept the
+ * peak at 8x 9 MiB lower).
  */
 export const BUCKET_TARGET = 3 * 1024 * 1024;
 
 export function bucketTarget(memory: number, inFlight: number): number {
-  return Math.min(bucketCap(memory, inFlight), BUCKET_TARGET);
+  return Math.min(Math.floor(bucketCap(memory, inFlight) / 2), BUCKET_TARGET);
 }
 
 export interface BucketChoice {
