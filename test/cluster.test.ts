@@ -5,7 +5,7 @@
  * once, or a slice that began inside a quoted field. Kubernetes' file is checked field by field and
  * its tasks run as processes with JOB_COMPLETION_INDEX. The Slurm run is test/cluster.slurm.test.ts.
  */
-import { existsSync, readdirSync, readFileSync, statSync, utimesSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync, statSync, utimesSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -306,6 +306,30 @@ describe('tasks as processes', () => {
 });
 
 describe('honest errors', () => {
+  it('finish refused for an output in the way keeps the spill (a gather task can still run again) and its lanes end with it', async () => {
+    const work = join(dir, 'claimed-work');
+    const out = join(dir, 'claimed-out');
+    await planCluster({ inputs: [big], out, work, tasks: 2, gatherTasks: 2, threads: 0, seed: 'claimed', partitions: 3 });
+    const plan = loadPlan(work);
+    for (let i = 0; i < plan.scatter.length; i++) await runScatterTask(plan, i);
+    await runDealTask(plan);
+    for (let i = 0; i < plan.gather.length; i++) await runGatherTask(plan, i);
+    const spillFiles = (): string[] => readdirSync(join(work, 'scatter'), { recursive: true }).map(String).filter((f) => f.endsWith('.spill'));
+    const before = spillFiles();
+    expect(before.length).toBeGreaterThan(0);
+    mkdirSync(out);
+    writeFileSync(join(out, 'mine.txt'), 'not rowdeck\n');
+    // As a process: worker lanes started before the claim must not keep it alive.
+    const refused = await rowdeck(['finish', work, '--threads', '2']);
+    expect(refused.status, refused.stderr).toBe(1);
+    expect(refused.stderr).toContain('RDK_OUTPUT_EXISTS');
+    expect(spillFiles()).toEqual(before);
+    rmSync(out, { recursive: true });
+    expect((await rowdeck(['finish', work, '--quiet'])).status).toBe(0);
+    expect(existsSync(join(out, 'manifest.json'))).toBe(true);
+    expect(existsSync(work)).toBe(false);
+  });
+
   it('stdin, --temp-dir, a work folder in use, an input changed since the plan, another version, no such folder', async () => {
     const work = join(dir, 'err-work');
     const out = join(dir, 'err-out');

@@ -13,7 +13,7 @@ import { RowdeckError, codedSystemError, systemError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
 import type { PartWriter } from '../io/part-writer.js';
 import { joinFiles } from '../io/join-files.js';
-import type { JoinMessage } from '../workers/protocol.js';
+import type { JoinMessage, ShuffleLanes } from '../workers/protocol.js';
 import { VERSION } from '../version.js';
 import { REPORT_FILE, writeManifestReport } from '../report/file.js';
 import { buildManifest, hostInfo } from '../engine/manifest.js';
@@ -83,20 +83,35 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   const t0 = Date.now();
   const o = enterPlan(plan);
   const done = allDone(plan);
-  // Every gather task is done, so the spill is read no more: removed now, it frees its disk (and
-  // pages a local disk has not written back yet) before the parts are written. Done records stay.
-  if (!f.keepWork) for (let t = 0; t < plan.scatter.length; t++) removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json');
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
+  const parts = partCount(gatherPlan.deal);
+  // Plain parts are joined on worker lanes: started now, their threads load while this one
+  // claims the output and removes the spill (~0.17 s of start on two lanes here).
+  let lanesStarting: Promise<ShuffleLanes | null> | null = gatherPlan.order !== 'spread' && !o.gzip ? dealLanes(Math.min(parts, f.threads ?? availableParallelism()), dealDir) : null;
+  const dropLanes = async (): Promise<void> => {
+    const starting = lanesStarting;
+    lanesStarting = null;
+    await starting?.then((l) => l?.destroy()).catch(() => {});
+  };
   const deal = done.deal;
   // Said as a run on one machine says them, before the parts are written.
   for (const w of deal.warnings) f.onNotice?.(w);
   const schema = { ...deal.schema, headerBytes: deal.schema.headerBytes === null ? null : Buffer.from(deal.schema.headerBytes, 'base64') } as InputSchema;
-  const parts = partCount(gatherPlan.deal);
   const K = gatherPlan.deal.folds;
   const S = gatherPlan.strataCount;
-  const work = startRunWork({ out: plan.out, force: o.force, inputs: o.inputs, tempDir: join(plan.work, 'finish'), notice: f.onNotice ?? null });
+  let work: ReturnType<typeof startRunWork>;
+  try {
+    work = startRunWork({ out: plan.out, force: o.force, inputs: o.inputs, tempDir: join(plan.work, 'finish'), notice: f.onNotice ?? null });
+  } catch (err) {
+    await dropLanes();
+    throw err;
+  }
   let writers: PartWriter[] = [];
   try {
+    // The output is claimed and every gather task is done, so the spill is read no more: removed
+    // now, it frees its disk (and pages a local disk has not written back yet) before the parts
+    // are written. Done records stay. (A finish refused for an output in the way leaves the work whole.)
+    if (!f.keepWork) for (let t = 0; t < plan.scatter.length; t++) removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json');
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);
     const header = headerBytes(schema, o.foldColumn, plan.format);
@@ -108,11 +123,11 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     }
     const slicesOf = (p: number): string[] => done.gather.flatMap((g, m) => (g.partBytes[p]! > 0 ? [join(taskDir(plan.work, 'gather', m), partSliceFile(p))] : []));
     let closed: { bytes: number; sha256: string }[];
-    if (gatherPlan.order !== 'spread' && !o.gzip) {
+    if (lanesStarting) {
       // Plain parts: each joined and hashed whole on a worker lane, parts side by side.
       makePartFolders(stage, layout);
-      const threads = Math.min(parts, f.threads ?? availableParallelism());
-      const lanes = await dealLanes(threads, dealDir);
+      const lanes = await lanesStarting;
+      lanesStarting = null;
       try {
         const one = (p: number): JoinMessage => ({ kind: 'join', out: join(stage, layout[p]!.path), header, files: slicesOf(p) });
         closed = lanes ? await Promise.all(layout.map((_, p) => lanes.run(one(p)))) : layout.map((_, p) => joinFiles(one(p)));
@@ -209,6 +224,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     throw codedSystemError(err);
   } finally {
     for (const w of writers) w.abandon();
+    await dropLanes();
     await work.finish();
   }
 }
