@@ -9,7 +9,7 @@ import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, type Manifest, type ShuffleOptions } from '../src/index.js';
-import { bufferShare, bucketCap, chooseBuckets, MEMORY_LAYOUT_SHARE, MIN_WRITE, sizeRun, youngGenerationMb } from '../src/engine/sizing.js';
+import { BUCKET_TARGET, bucketTarget, bufferShare, bucketCap, chooseBuckets, MEMORY_LAYOUT_SHARE, MIN_WRITE, sizeRun, youngGenerationMb } from '../src/engine/sizing.js';
 import { cgroupRoom, defaultMemoryFor, DEFAULT_MEMORY_MAX, DEFAULT_MEMORY_MIN, memAvailableOf } from '../src/io/memory-available.js';
 import { resolveShuffleOptions } from '../src/options.js';
 import { run as runShuffleCli } from '../src/cli/commands/shuffle.js';
@@ -66,6 +66,15 @@ describe('the rule: input over budget', () => {
         expect(chooseBuckets(holds * 64, memory, threads, inFlight(threads), true).bits).toBe(large.bits);
       }
     }
+  });
+
+  it('bucket size: 3 MiB where stage 2 takes twice that whole, else 1.5 MiB or what it takes whole', () => {
+    // Two threads: 6 buckets in flight, stage 2 takes a bucket of budget / 21 whole.
+    expect(bucketTarget(512 * MiB, 6)).toBe(BUCKET_TARGET);
+    expect(bucketTarget(126 * MiB, 6)).toBe(BUCKET_TARGET);
+    expect(bucketTarget(125 * MiB, 6)).toBe(BUCKET_TARGET / 2);
+    expect(bucketTarget(64 * MiB, 6)).toBe(BUCKET_TARGET / 2);
+    expect(bucketTarget(4 * MiB, 6)).toBe(bucketCap(4 * MiB, 6));
   });
 
   it('the benchmark figures: 1 GB at 64 MiB and at 8x is multi-pass with 256 buckets; at 2 GiB, 1 GB stays in memory', () => {

@@ -63,14 +63,17 @@ export function bucketCap(memory: number, inFlight: number): number {
  * around it, and slows once a bucket falls out of cache; but every bucket costs stage 1 a buffer
  * written for the first time (a fault a page) and widens what its appends touch. 3 MiB (buckets
  * of 1.5-3 MiB) was fastest on the 1 GB file, ahead of 1.5 and 6 (docs/benchmarks.md, "Bucket
- * size"). Under a small budget, half of what stage 2 takes whole: there the buckets in flight
- * are most of the budget, and larger ones bought no speed (64 MiB: 1.6 MB, not 3 MiB, kept the
- * peak at 8x 9 MiB lower).
+ * size"). Only where stage 2 takes buckets of twice that whole (budgets from ~130 MiB on two
+ * threads); below, 1.5 MiB or what it takes whole: there the buckets in flight are most of the
+ * budget, stage 1's bucket count is set by its buffers anyway, and larger (sub-)buckets bought
+ * no speed (64 MiB: 3 MiB ones raised the 8x run's peak by 12 MiB; 4 MiB: half-sized ones
+ * doubled the sub-buckets a split writes to, and their buffers).
  */
 export const BUCKET_TARGET = 3 * 1024 * 1024;
 
 export function bucketTarget(memory: number, inFlight: number): number {
-  return Math.min(Math.floor(bucketCap(memory, inFlight) / 2), BUCKET_TARGET);
+  const cap = bucketCap(memory, inFlight);
+  return Math.min(cap, cap >= 2 * BUCKET_TARGET ? BUCKET_TARGET : BUCKET_TARGET / 2);
 }
 
 export interface BucketChoice {
