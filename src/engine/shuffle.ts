@@ -314,7 +314,8 @@ export function spaceNeed(o: ReturnType<typeof resolveShuffleOptions>, size: Run
 }
 
 /**
- * The memory layout's stores: the allowance all scatter tasks draw on; where they are shared
+ * The stores of the memory layout and of a one-process spill layout (none where the budget
+ * leaves nothing): the allowance all scatter tasks draw on; where they are shared
  * memory, in slabs of about 1/16 of a range's share of a task (so that slabs left part full
  * waste little of it).
  */
