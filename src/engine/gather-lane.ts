@@ -15,7 +15,6 @@ import type { GatherPlan } from './plan.js';
 import { splitPieces } from './split.js';
 import { InlineLanes, type Lanes } from '../workers/lanes.js';
 import { byKind, type GatherMessage, type HandlerTable, type ShuffleFinal } from '../workers/protocol.js';
-import { JOIN_BUFFER, joinFiles } from '../io/join-files.js';
 
 /**
  * What a lane hands over at the end of stage 2 with `--stats`: every part's statistics over the
@@ -130,10 +129,6 @@ export function gatherLane(planPath: string): GatherLane {
  * table and for lanes on the calling thread. `lane()`: the stage 2 lane, made when first needed
  * (it reads the plan, which does not exist while groups are counted).
  */
-let sharedJoinBuffer: Buffer | null = null;
-/** One copy buffer a thread, kept between parts. */
-const joinBuffer = (): Buffer => (sharedJoinBuffer ??= Buffer.allocUnsafe(JOIN_BUFFER));
-
 export function gatherHandlers(lane: () => GatherLane): HandlerTable<GatherMessage> {
   return {
     census: (m) => {
@@ -146,7 +141,6 @@ export function gatherHandlers(lane: () => GatherLane): HandlerTable<GatherMessa
     },
     bucket: (m) => lane().handle(m),
     partStats: (m) => lane().partStats(m),
-    join: (m) => ({ result: joinFiles(m, joinBuffer()) }),
   };
 }
 

@@ -201,7 +201,7 @@ export function byKind<T extends { kind: Kind }>(table: HandlerTable<T>): (m: T)
 export type ScatterMessage = BatchMessage | SmallInputMessage | BlockMessage;
 
 /** The same threads' work after stage 1: count a bucket's groups, split a bucket, deal a bucket, read a part back, join a plan's part. */
-export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartStatsMessage | JoinMessage;
+export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartStatsMessage;
 
 /** Everything shuffle-worker.ts takes. */
 export type ShuffleMessage = ScatterMessage | GatherMessage;
