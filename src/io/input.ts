@@ -32,12 +32,39 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
 }
 
 /**
- * Reads an uncompressed file into two buffers used in turn, so a long input does not leave a
- * trail of 1 MiB buffers for the collector (that trail showed up as memory growing with the input
- * size). A chunk stays valid until the one after next is read: the reader's contract (a batch is
- * valid until the next push) is kept with room to spare. Returns false, having yielded nothing,
- * when the file is gzip-compressed.
+ * The chunks of an open file from `position` to its end, read into two buffers used in turn
+ * (sized for what is left, one byte more to see the end in one read, up to READ_CHUNK_BYTES):
+ * a long input leaves no trail of 1 MiB buffers for the collector (that trail showed up as memory
+ * growing with the input size), and no read faults in fresh memory (a fresh buffer a read cost a
+ * scatter task of a quarter of the 1 GB file ~17,000 first touches). A chunk stays valid until
+ * the one after next is read: the reader's contract (a batch is valid until the next push) is
+ * kept with room to spare. Thousands of small parts read back are why the size follows the file.
  */
+export async function* chunksInTurn(fh: FileHandle, path: string, position = 0): AsyncGenerator<Buffer> {
+  let size = READ_CHUNK_BYTES;
+  try {
+    size = Math.max(1, Math.min(READ_CHUNK_BYTES, (await fh.stat()).size - position + 1));
+  } catch {
+    // The read below reports what is wrong.
+  }
+  const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
+  let turn = 0;
+  for (let pos = position; ; ) {
+    const buf = bufs[turn]!;
+    turn ^= 1;
+    let got: number;
+    try {
+      got = (await fh.read(buf, 0, buf.length, pos)).bytesRead;
+    } catch (err) {
+      throw ioError(err, path, 'reading');
+    }
+    if (got === 0) return;
+    pos += got;
+    yield buf.subarray(0, got);
+  }
+}
+
+/** An uncompressed file's chunks (chunksInTurn). Returns false, having yielded nothing, when the file is gzip-compressed. */
 async function* readPlainFile(path: string, counter?: SourceCounter): AsyncGenerator<Buffer, boolean> {
   let fh: FileHandle;
   try {
@@ -46,34 +73,16 @@ async function* readPlainFile(path: string, counter?: SourceCounter): AsyncGener
     throw ioError(err, path, 'opening');
   }
   try {
-    // Sized for a small file (one byte more, to see its end in one read): thousands of small
-    // parts read back, each with two 1 MiB buffers, kept the collector and the page faults busy.
-    let size = READ_CHUNK_BYTES;
-    try {
-      size = Math.max(1, Math.min(READ_CHUNK_BYTES, (await fh.stat()).size + 1));
-    } catch {
-      // The read below reports what is wrong.
-    }
-    const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
-    let turn = 0;
     let first = true;
-    for (;;) {
-      const buf = bufs[turn]!;
-      turn ^= 1;
-      let got: number;
-      try {
-        got = (await fh.read(buf, 0, buf.length, null)).bytesRead;
-      } catch (err) {
-        throw ioError(err, path, 'reading');
-      }
+    for await (const chunk of chunksInTurn(fh, path)) {
       if (first) {
         first = false;
-        if (got >= 2 && buf[0] === 0x1f && buf[1] === 0x8b) return false;
+        if (chunk.length >= 2 && chunk[0] === 0x1f && chunk[1] === 0x8b) return false;
       }
-      if (got === 0) return true;
-      if (counter) counter.bytes += got;
-      yield buf.subarray(0, got);
+      if (counter) counter.bytes += chunk.length;
+      yield chunk;
     }
+    return true;
   } finally {
     await fh.close();
   }

@@ -20,13 +20,12 @@ import { createReadStream } from 'node:fs';
 import { open } from 'node:fs/promises';
 import type { InputSchema, RecordBatch } from './batch.js';
 import { RecordReader, type RecordReaderOptions } from './reader.js';
+import { chunksInTurn } from './input.js';
 import { systemError } from '../errors.js';
 import { guessStart, shapeOf, type RecordShape } from './record-start.js';
 
 /** Bytes read to find a slice's start. */
 const GUESS_WINDOW = 1 << 20;
-/** Bytes of each read of a slice. */
-const SLICE_CHUNK = 1 << 20;
 
 export interface InputSlice {
   /** Input ordinal (its place among all the inputs). */
@@ -127,24 +126,8 @@ export async function* readSlice(path: string, slice: InputSlice, ro: RecordRead
     throw systemError(err, path, 'reading an input');
   });
   try {
-    // Two buffers read into in turn (a batch is valid until the next push): a fresh buffer per
-    // read, as a read stream allocates, cost a scatter task ~30 k first touches of memory.
-    const left = (await fh.stat()).size - start;
-    const size = Math.max(1, Math.min(SLICE_CHUNK, left + 1));
-    const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
-    let turn = 0;
     let pos = start;
-    outer: for (;;) {
-      const buf = bufs[turn]!;
-      turn ^= 1;
-      let got: number;
-      try {
-        got = (await fh.read(buf, 0, buf.length, pos)).bytesRead;
-      } catch (err) {
-        throw systemError(err, path, 'reading an input');
-      }
-      if (got === 0) break;
-      const chunk = buf.subarray(0, got);
+    outer: for await (const chunk of chunksInTurn(fh, path, start)) {
       let from = 0;
       while (from < chunk.length) {
         // Before the cut: up to it. From there: a line at a time, until the end's record start is known.
