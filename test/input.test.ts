@@ -5,12 +5,13 @@
  */
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
-import { execFileSync } from 'node:child_process';
+import { execFileSync, spawn } from 'node:child_process';
+import { open } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
-import { detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
+import { chunksInTurn, detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
 import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
 import { fieldText } from '../src/core/record-batch.js';
 import type { RecordBatch } from '../src/io/batch.js';
@@ -145,3 +146,45 @@ describe('RecordReader recycle', () => {
   });
 });
 
+
+describe('chunksInTurn', () => {
+  /** Each chunk copied (the buffers are used again), and the buffer it came in. */
+  const chunksOf = async (path: string, position: number | null): Promise<{ bytes: Buffer; store: ArrayBufferLike }[]> => {
+    const fh = await open(path, 'r');
+    try {
+      const out: { bytes: Buffer; store: ArrayBufferLike }[] = [];
+      for await (const c of chunksInTurn(fh, path, position)) out.push({ bytes: Buffer.from(c), store: c.buffer });
+      return out;
+    } finally {
+      await fh.close();
+    }
+  };
+
+  it('a file from an offset: its bytes, through two buffers used in turn (no fresh buffer a read)', async () => {
+    const path = join(dir, 'turns.csv');
+    const text = Buffer.from(Array.from({ length: 200_000 }, (_, i) => `S${i},${i % 7}\n`).join(''));
+    expect(text.length).toBeGreaterThan(3 * (1 << 20) / 2);
+    writeFileSync(path, text);
+    const from = 12_345;
+    const chunks = await chunksOf(path, from);
+    expect(Buffer.concat(chunks.map((c) => c.bytes)).equals(text.subarray(from))).toBe(true);
+    expect(chunks.length).toBeGreaterThanOrEqual(2);
+    // Chunk k and chunk k + 2 share one buffer, k and k + 1 do not (a read stream allocates a buffer a read).
+    const stores = chunks.map((c) => c.store);
+    expect(new Set(stores).size).toBe(2);
+    for (let k = 0; k + 1 < stores.length; k++) expect(stores[k]).not.toBe(stores[k + 1]);
+  });
+
+  it('a named pipe: read where it stands, in chunks of what the pipe holds (a size of 0 from stat is no size)', async () => {
+    const fifo = join(dir, 'turns.fifo');
+    execFileSync('mkfifo', [fifo]);
+    const text = Buffer.from(Array.from({ length: 50_000 }, (_, i) => `${i},y\n`).join(''));
+    // The writer in another process: this one reads.
+    const writer = spawn('sh', ['-c', `cat > '${fifo}'`], { stdio: ['pipe', 'ignore', 'inherit'] });
+    writer.stdin.end(text);
+    const chunks = await chunksOf(fifo, null);
+    expect(Buffer.concat(chunks.map((c) => c.bytes)).equals(text)).toBe(true);
+    // ~390 kB in pipe-sized reads (64 KiB here, from memory: Linux's default pipe capacity), not a byte at a time.
+    expect(chunks.length).toBeLessThan(200);
+  });
+});

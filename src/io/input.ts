@@ -32,7 +32,7 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
 }
 
 /**
- * The chunks of an open file from `position` to its end, read into two buffers used in turn
+ * The chunks of an open file from `position` (null: where it stands) to its end, read into two buffers used in turn
  * (sized for what is left, one byte more to see the end in one read, up to READ_CHUNK_BYTES):
  * a long input leaves no trail of 1 MiB buffers for the collector (that trail showed up as memory
  * growing with the input size), and no read faults in fresh memory (a fresh buffer a read cost a
@@ -40,15 +40,18 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
  * the one after next is read: the reader's contract (a batch is valid until the next push) is
  * kept with room to spare. Thousands of small parts read back are why the size follows the file.
  */
-export async function* chunksInTurn(fh: FileHandle, path: string, position = 0): AsyncGenerator<Buffer> {
+export async function* chunksInTurn(fh: FileHandle, path: string, position: number | null = null): AsyncGenerator<Buffer> {
   let size = READ_CHUNK_BYTES;
   try {
-    size = Math.max(1, Math.min(READ_CHUNK_BYTES, (await fh.stat()).size - position + 1));
+    // A pipe or device has no size to go by.
+    const st = await fh.stat();
+    if (st.isFile()) size = Math.max(1, Math.min(READ_CHUNK_BYTES, st.size - (position ?? 0) + 1));
   } catch {
     // The read below reports what is wrong.
   }
   const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
   let turn = 0;
+  // null: from where the file stands, which a pipe needs (it cannot be read at an offset).
   for (let pos = position; ; ) {
     const buf = bufs[turn]!;
     turn ^= 1;
@@ -59,7 +62,7 @@ export async function* chunksInTurn(fh: FileHandle, path: string, position = 0):
       throw ioError(err, path, 'reading');
     }
     if (got === 0) return;
-    pos += got;
+    if (pos !== null) pos += got;
     yield buf.subarray(0, got);
   }
 }
