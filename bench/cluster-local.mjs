@@ -50,9 +50,8 @@ lap('plan');
 const plan = JSON.parse((await import('node:fs')).readFileSync(join(work, 'plan.json'), 'utf8'));
 await pool(plan.scatter.map((_, i) => i), atOnce, (i) => run(['task', work, '--stage', 'scatter', '--index', String(i), '--quiet']));
 lap('scatter');
+// The last scatter task to end makes the deal step, as under a scheduler.
 const scatterBytes = bytesUnder(join(work, 'scatter'));
-await run(['task', work, '--stage', 'deal', '--quiet']);
-lap('deal');
 await pool(plan.gather.map((_, i) => i), atOnce, (i) => run(['task', work, '--stage', 'gather', '--index', String(i), '--quiet']));
 lap('gather');
 const gatherBytes = bytesUnder(join(work, 'gather'));

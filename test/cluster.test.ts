@@ -13,6 +13,7 @@ import { parse as parseYaml } from 'yaml';
 import { cutBuckets, cutInputs, loadPlan, planCluster, type PlanOptions } from '../src/cluster/plan.js';
 import { runScatterTask } from '../src/cluster/scatter-task.js';
 import { runDealTask } from '../src/cluster/deal.js';
+import { readDone } from '../src/cluster/records.js';
 import { runGatherTask } from '../src/cluster/gather-task.js';
 import { finishCluster } from '../src/cluster/finish.js';
 import { planStatus } from '../src/cluster/status.js';
@@ -66,7 +67,7 @@ async function runPlanned(o: Omit<PlanOptions, 'out' | 'work'>, order: (kinds: {
   const plan = loadPlan(work);
   const tasks = order({ scatter: plan.scatter.map((_, i) => i), gather: plan.gather.map((_, i) => i) });
   for (const i of tasks.scatter) await runScatterTask(plan, i);
-  await runDealTask(plan);
+  // No deal step here: the first gather task makes it (the command line's last scatter task would).
   for (const i of tasks.gather) await runGatherTask(plan, i);
   // Every other run joins the parts on the calling thread, the others on worker lanes: the same bytes.
   await finishCluster(plan, id % 2 === 1 ? { threads: 0 } : {});
@@ -225,8 +226,9 @@ describe('tasks as processes', () => {
     expect(planned.status, planned.stderr).toBe(0);
     const plan = readPlan(work);
     const docs = readFileSync(join(work, 'kubernetes.yaml'), 'utf8').split(/^---$/m).slice(1).map((d) => parseYaml(d) as Record<string, any>);
-    expect(docs.map((d) => d.metadata.labels['rowdeck/stage'])).toEqual(['scatter', 'deal', 'gather', 'finish']);
-    const counts = { scatter: plan.scatter.length, deal: 1, gather: plan.gather.length, finish: 1 } as Record<string, number>;
+    // No Job for the deal: the last scatter task to end makes it.
+    expect(docs.map((d) => d.metadata.labels['rowdeck/stage'])).toEqual(['scatter', 'gather', 'finish']);
+    const counts = { scatter: plan.scatter.length, gather: plan.gather.length, finish: 1 } as Record<string, number>;
     for (const d of docs) {
       const stage = d.metadata.labels['rowdeck/stage'] as string;
       expect(d.apiVersion).toBe('batch/v1');
@@ -277,7 +279,8 @@ describe('tasks as processes', () => {
       }
     };
     await stage('scatter', plan.scatter.length);
-    await stage('deal', 1);
+    // The scatter tasks (killed, run twice at once) made the deal: no step of its own.
+    expect(readDone(work, 'deal', 0)?.planId).toBe(plan.planId);
     // One gather task left out: finish refuses, naming it and the command that runs it, and writes nothing.
     const gathers = plan.gather.length;
     expect(gathers).toBeGreaterThan(1);
@@ -302,6 +305,67 @@ describe('tasks as processes', () => {
     expectSameOutput(ref, out);
     // Most of the kills landed inside a task (the rest after it ended).
     expect(killed).toBeGreaterThan(0);
+  });
+});
+
+describe('the deal step, made by the tasks', () => {
+  it('the last scatter task to end makes it; gather tasks at once that find none make it, slices read again included: shuffle\'s bytes', async () => {
+    const work = join(dir, 'deal-work');
+    const out = join(dir, 'deal-out');
+    const args = [lookalike, '--seed', 'dealt', '--partitions', '2', '--stratify', 'label', '--threads', '0'];
+    expect((await rowdeck(['plan', ...args, '--out', out, '--work', work, '--tasks', '4', '--gather-tasks', '2', '--quiet'])).status).toBe(0);
+    const plan = readPlan(work);
+    const last = plan.scatter.length - 1;
+    expect(last).toBeGreaterThan(1);
+    for (let i = 0; i < last; i++) {
+      const r = await rowdeck(['task', work, '--stage', 'scatter', '--index', String(i)]);
+      expect(r.status, r.stderr).toBe(0);
+      expect(r.stderr).not.toContain('deal step made');
+    }
+    expect(existsSync(join(work, 'deal', '0000', 'done.json'))).toBe(false);
+    const r = await rowdeck(['task', work, '--stage', 'scatter', '--index', String(last)]);
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stderr).toContain('every scatter task is done: the deal step made');
+    expect(readDone(work, 'deal', 0)?.planId).toBe(plan.planId);
+    // The record-like lines fooled a start guess: a slice was read again, in a folder of its own.
+    expect(readdirSync(join(work, 'reread')).filter((f) => !f.startsWith('.')).length).toBeGreaterThan(0);
+    // As if the last scatter task had been killed before its deal: both gather tasks, at once, find none.
+    rmSync(join(work, 'deal', '0000'), { recursive: true });
+    rmSync(join(work, 'reread'), { recursive: true });
+    const both = await Promise.all(plan.gather.map((_, i) => rowdeck(['task', work, '--stage', 'gather', '--index', String(i), '--quiet'])));
+    for (const b of both) expect(b.status, b.stderr).toBe(0);
+    expect(readDone(work, 'deal', 0)?.planId).toBe(plan.planId);
+    expect((await rowdeck(['finish', work, '--quiet'])).status).toBe(0);
+    const ref = await reference({ inputs: [lookalike], seed: 'dealt', partitions: 2, stratify: ['label'] });
+    expectSameOutput(ref, out);
+    const m = JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { run: { plan: { reread: number[] } } };
+    expect(m.run.plan.reread.length).toBeGreaterThan(0);
+  });
+
+  it('a deal that fails fails the last scatter task, its own work kept, and every gather task after it, with the record\'s physical line', async () => {
+    const bad = join(dir, 'bad-deal.csv');
+    // Large enough for several byte ranges; the record in the last one, which does not start at a known record start.
+    const text = makeSensorCsv({ rows: 120000, seed: 35 }).split('\n');
+    text[110000] = `${text[110000]},extra,fields`;
+    writeFileSync(bad, text.join('\n'));
+    const work = join(dir, 'bad-deal-work');
+    expect((await rowdeck(['plan', bad, '--seed', 'bad', '--partitions', '2', '--out', join(dir, 'bad-deal-out'), '--work', work, '--tasks', '4', '--gather-tasks', '2', '--threads', '0', '--quiet'])).status).toBe(0);
+    const plan = readPlan(work);
+    expect(plan.scatter.length).toBeGreaterThan(2);
+    const runs = [];
+    for (let i = 0; i < plan.scatter.length; i++) runs.push(await rowdeck(['task', work, '--stage', 'scatter', '--index', String(i), '--quiet']));
+    const failed = runs.at(-1)!;
+    expect(runs.slice(0, -1).map((x) => x.status)).toEqual(runs.slice(0, -1).map(() => 0));
+    expect(failed.status).toBe(1);
+    expect(failed.stderr).toContain("this task's own work is kept");
+    // The physical line of the malformed record (line 1 is the header).
+    expect(failed.stderr).toContain('bad-deal.csv:110001:');
+    expect(readDone(work, 'scatter', plan.scatter.length - 1)?.planId).toBe(plan.planId);
+    const status = planStatus(loadPlan(work));
+    expect(status.stages.find((x) => x.stage === 'deal')!.failed).toBe(1);
+    const gather = await rowdeck(['task', work, '--stage', 'gather', '--index', '0', '--quiet']);
+    expect(gather.status).toBe(1);
+    expect(gather.stderr).toContain('bad-deal.csv:110001:');
   });
 });
 

@@ -179,11 +179,12 @@ writes, into WORK (a new folder on a file system every node sees at the same pat
   WORK/kubernetes.yaml  one Indexed Job per stage, and the order to apply them in
 
 The stages: N scatter tasks (stage 1 over the inputs: small files whole, large plain files as
-byte ranges, a gzip file whole), one deal task (checks the scatter tasks fit together, counts and
-places groups, the tolerance check), M gather tasks (stage 2 over ranges of buckets), and finish
-(joins the parts, writes the manifest, puts DIR into place). Tasks share nothing but WORK; each
-may be killed and run again, or run twice at once. The output is byte for byte what
-rowdeck shuffle gives with the same inputs, seed and options.
+byte ranges, a gzip file whole), M gather tasks (stage 2 over ranges of buckets), and finish
+(joins the parts, writes the manifest, puts DIR into place). Between the first two, the deal step
+(checks the scatter tasks fit together, counts and places groups, the tolerance check) is made by
+the last scatter task to end, or else by the first gather tasks: no stage of its own. Tasks share
+nothing but WORK; each may be killed and run again, or run twice at once. The output is byte for
+byte what rowdeck shuffle gives with the same inputs, seed and options.
 
 Besides every option of rowdeck shuffle but --temp-dir (the spill goes in WORK):
 
@@ -205,8 +206,10 @@ Usage:
 Without --index the task's number comes from the scheduler: SLURM_ARRAY_TASK_ID (Slurm),
 JOB_COMPLETION_INDEX (Kubernetes Indexed Jobs), AWS_BATCH_JOB_ARRAY_INDEX (AWS Batch),
 PBS_ARRAY_INDEX (PBS), or SGE_TASK_ID (Grid Engine) and LSB_JOBINDEX (LSF), which count from 1.
-The deal stage has one task. A task that is already done does nothing; one killed or run twice
-at once leaves nothing half-written (it works in a private folder and moves it into place).
+The deal stage has one task, which the last scatter task to end runs too (and a gather task that
+finds no deal); run it alone to see its error again. A task that is already done does nothing;
+one killed or run twice at once leaves nothing half-written (it works in a private folder and
+moves it into place).
 
 ${renderOptionList(TASK_SPEC)}`;
 

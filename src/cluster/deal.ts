@@ -1,12 +1,13 @@
 /**
- * The deal step of a plan (one task, between the scatter and gather stages): checks that the
- * scatter tasks' slices chain (each begins where the one before ended; a slice that began inside
- * a quoted field is read again here, from the right start), merges their counts, gives refused
+ * The deal step of a plan (one task, between the scatter and gather stages; the last scatter task
+ * to end makes it, or else the first gather tasks, so no scheduler runs it as a stage of its own):
+ * checks that the scatter tasks' slices chain (each begins where the one before ended; a slice
+ * that began inside a quoted field is read again, from the right start), merges their counts, gives refused
  * records and errors their physical line numbers, counts and places the groups, and makes the
  * plan of stage 2 exactly as `shuffle` does (src/engine/plan.ts), with, for each gather task, its
  * buckets' spill pieces and the ranks its buckets start at.
  */
-import { renameSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
@@ -63,12 +64,16 @@ export function scatterDones(plan: ClusterPlan): ScatterDone[] {
 }
 
 /**
- * Checks the chain of slices input by input, reading again (here) every scatter task whose slice
- * began at a wrong guess, until every slice begins where the one before it ended. Returns the
- * done records and the tasks read again.
+ * Checks the chain of slices input by input: every scatter task whose slice began at a wrong
+ * guess is read again from the start the slice before it ended at, into a folder of its own
+ * (stage reread, the task's number), which this and every later deal use instead. The start is
+ * fixed by the chain, so deals run at once (the last scatter tasks, gather tasks that found no
+ * deal) write the same folder, and the first to finish it keeps it (records.ts). Returns the done
+ * records, the folder of each task's spill, and the tasks read again.
  */
-async function chainSlices(plan: ClusterPlan): Promise<{ dones: ScatterDone[]; reread: number[] }> {
-  let dones = scatterDones(plan);
+async function chainSlices(plan: ClusterPlan): Promise<{ dones: ScatterDone[]; dirs: string[]; reread: number[] }> {
+  const dones = scatterDones(plan);
+  const dirs = dones.map((_, t) => taskDir(plan.work, 'scatter', t));
   const reread: number[] = [];
   // Walk the slices in input order (tasks are in input order, and a task's slices too).
   for (let t = 0; t < dones.length; t++) {
@@ -78,26 +83,19 @@ async function chainSlices(plan: ClusterPlan): Promise<{ dones: ScatterDone[]; r
       const before = previousSlice(dones, t, j);
       if (!before || before.slice.input !== s.slice.input) throw new RowdeckError('RDK_INTERNAL', `plan: slice ${j} of scatter task ${t} has no slice before it in its input`);
       if (s.start === before.end) continue;
-      // Read again from the start the chain gives (the task's other slices are unchanged).
       // Only a task's first slice can begin inside an input (a task takes an input on from where the one before stopped).
       const starts: SliceStarts = new Map([[j, before.end]]);
-      const dir = taskDir(plan.work, 'scatter', t);
-      const aside = `${dir}.replaced`;
-      rmSync(aside, { recursive: true, force: true });
-      renameSync(dir, aside);
-      try {
-        await runScatterTask(plan, t, starts);
-      } catch (err) {
-        renameSync(aside, dir);
-        throw err;
+      await runScatterTask(plan, t, starts, 'reread');
+      const again = readDone<ScatterDone>(plan.work, 'reread', t);
+      if (!again || again.planId !== plan.planId || again.slices[j]?.start !== before.end) {
+        throw new RowdeckError('RDK_INTERNAL', `plan: scatter task ${t} read again does not start at byte ${before.end} of its input; remove ${taskDir(plan.work, 'reread', t)} and run the deal step again`);
       }
-      rmSync(aside, { recursive: true, force: true });
+      dones[t] = again;
+      dirs[t] = taskDir(plan.work, 'reread', t);
       reread.push(t);
-      dones = scatterDones(plan);
-      j--;
     }
   }
-  return { dones, reread };
+  return { dones, dirs, reread };
 }
 
 function previousSlice(dones: ScatterDone[], t: number, j: number): ScatterDone['slices'][number] | null {
@@ -124,10 +122,10 @@ function lineBases(dones: ScatterDone[]): number[][] {
 }
 
 /** The scatter lanes' results of every task, renumbered in task then lane order, merged as one run's. */
-function mergeDones(plan: ClusterPlan, dones: ScatterDone[], schema: InputSchema, censusBuckets: number): ScatterResult {
+function mergeDones(plan: ClusterPlan, dones: ScatterDone[], dirs: string[], schema: InputSchema, censusBuckets: number): ScatterResult {
   const results: ScatterTaskResult[] = [];
   dones.forEach((d, t) => {
-    const local = absoluteResults(d, taskDir(plan.work, 'scatter', t)).sort((a, b) => a.task - b.task);
+    const local = absoluteResults(d, dirs[t]!).sort((a, b) => a.task - b.task);
     for (const r of local) results.push({ ...r, task: results.length });
   });
   const inputs = plan.inputs.map((x) => ({ path: x.given, bytes: 0, records: 0, rejected: 0 }));
@@ -150,7 +148,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
   const o = enterPlan(plan);
   const secrets = deriveSecrets(o.seed);
   return runTask<Omit<DealDone, keyof DoneRecord>>(plan.work, 'deal', 0, plan.planId, async (dir) => {
-    const { dones, reread } = await chainSlices(plan);
+    const { dones, dirs, reread } = await chainSlices(plan);
     const bases = lineBases(dones);
     // A slice that stopped at a malformed record, now known to have begun where it should: the
     // run's error, with its physical line.
@@ -168,7 +166,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
     const schema = schemaOf(dones[0]!);
     const cellKeyInHeader = placesRecordsIndividually(o);
     const censusBits = cellKeyInHeader && o.assign === 'group' ? Math.max(0, plan.size.bits - 2) : null;
-    const sc = mergeDones(plan, dones, schema, censusBits === null ? 0 : 2 ** censusBits);
+    const sc = mergeDones(plan, dones, dirs, schema, censusBits === null ? 0 : 2 ** censusBits);
     // Refused records in input order, with their physical lines (as a single run lists them).
     const rejects = new Rejects(o.onBadRecord === 'quarantine');
     dones.forEach((d, t) => d.rejects.forEach((r) => rejects.add({ file: r.file, line: r.line + bases[t]![r.slice]!, code: r.code, reason: r.reason, bytes: Buffer.from(r.bytes, 'base64') })));
@@ -225,4 +223,13 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
       warnings,
     };
   });
+}
+
+/**
+ * Whether every scatter task is done. Looks from the last task down: array tasks end in about
+ * their order, so a task still running is met early (a plan may have 10,000).
+ */
+export function scatterStageDone(plan: ClusterPlan): boolean {
+  for (let t = plan.scatter.length - 1; t >= 0; t--) if (!existsSync(join(taskDir(plan.work, 'scatter', t), 'done.json'))) return false;
+  return true;
 }

@@ -122,7 +122,9 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   // while the parts are joined (an unlink of pages the disk is still writing waits for them: ~0.4 s
   // for 1 GB here, off the join's path this way). Done records stay. (A finish refused for an
   // output in the way leaves the work whole.)
-  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : Promise.all(plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json'))).then((errs) => errs.find((e) => e !== null) ?? null);
+  // Slices read again by the deal (the reread folder) are spill too.
+  const spillGone = (): Promise<unknown>[] => [...plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json')), rm(join(plan.work, 'reread'), { recursive: true, force: true }).then(() => null, (err: unknown) => err)];
+  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : Promise.all(spillGone()).then((errs) => errs.find((e) => e !== null) ?? null);
   try {
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);

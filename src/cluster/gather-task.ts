@@ -18,7 +18,7 @@ import { spreadSink } from '../engine/parts.js';
 import { taskCommand } from './commands.js';
 import { dealLanes } from './lanes.js';
 import { gatherFinals } from '../workers/protocol.js';
-import { gatherShareFile, type GatherShare } from './deal.js';
+import { gatherShareFile, runDealTask, type GatherShare } from './deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
 import { decodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
 
@@ -54,6 +54,9 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
   enterPlan(plan, []);
   const g = plan.gather[index];
   if (!g) throw new RowdeckError('RDK_INTERNAL', `gather task ${index} is not in the plan`);
+  // The last scatter task makes the deal; where it did not (killed after its own work, say), the
+  // gather task that finds none makes it (tasks at once each may: the first to finish keeps it).
+  if (readDone(plan.work, 'gather', index) === null && readDone(plan.work, 'deal', 0) === null) await runDealTask(plan);
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
   const share = decodeJson<GatherShare>(readFileSync(join(dealDir, gatherShareFile(index)), 'utf8'));
   return runTask<Omit<GatherDone, keyof DoneRecord>>(plan.work, 'gather', index, plan.planId, async (dir) => {

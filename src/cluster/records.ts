@@ -63,7 +63,8 @@ export function writeFileAtomic(path: string, text: string): void {
   }
 }
 
-export type StageName = 'scatter' | 'deal' | 'gather';
+/** `reread`: a scatter task's slices read again from the start the chain gives (deal.ts), in a folder of its own. */
+export type StageName = 'scatter' | 'reread' | 'deal' | 'gather';
 
 /** What every done record holds besides the stage's own figures. */
 export interface DoneRecord {

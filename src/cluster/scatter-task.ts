@@ -46,12 +46,16 @@ export interface ScatterDone extends DoneRecord {
 /** `start` overrides: a slice read again from the record start the chain found for it. */
 export type SliceStarts = Map<number, number>;
 
-export async function runScatterTask(plan: ClusterPlan, index: number, starts: SliceStarts = new Map()): Promise<boolean> {
+/**
+ * Runs scatter task `index` (`stage` reread: its slices again from `starts`, into the reread
+ * folder). Returns false when it was already done.
+ */
+export async function runScatterTask(plan: ClusterPlan, index: number, starts: SliceStarts = new Map(), stage: 'scatter' | 'reread' = 'scatter'): Promise<boolean> {
   const task = plan.scatter[index];
   if (!task) throw new RowdeckError('RDK_INTERNAL', `scatter task ${index} is not in the plan`);
   const o = enterPlan(plan, [...new Set([0, ...task.slices.map((s) => s.input)])]);
   const t0 = Date.now();
-  return runTask<Omit<ScatterDone, keyof DoneRecord>>(plan.work, 'scatter', index, plan.planId, async (dir) => {
+  return runTask<Omit<ScatterDone, keyof DoneRecord>>(plan.work, stage, index, plan.planId, async (dir) => {
     const slices = task.slices.map((s, j) => (starts.has(j) ? { ...s, start: starts.get(j)!, exact: true } : s));
     const readerOf = (k: number): ReturnType<typeof inputReaderOptions> => inputReaderOptions(o.inputs[k]!, { format: plan.format, ...(o.delimiter !== null ? { delimiter: o.delimiter } : {}), header: o.header, wanted: [], onBadRecord: o.onBadRecord });
     // Slices from the middle of an input read with the schema of its head; every input's header must match the first's.

@@ -26,8 +26,10 @@ export function shellQuote(s: string): string {
   return `'${s.replaceAll("'", `'\\''`)}'`;
 }
 
-export const STAGES = ['scatter', 'deal', 'gather', 'finish'] as const;
-export type Stage = (typeof STAGES)[number];
+/** A plan's steps, each run by `rowdeck task` or `finish`. */
+export type Stage = 'scatter' | 'deal' | 'gather' | 'finish';
+/** The stages a scheduler runs, one after the other: the last scatter task makes the deal (deal.ts). */
+export const STAGES = ['scatter', 'gather', 'finish'] as const satisfies readonly Stage[];
 
 /** The command a task of `stage` runs (the index comes from the scheduler's variable). */
 export function stageCommand(p: Pick<ScriptPlan, 'node' | 'cli' | 'work'>, stage: Stage): string[] {
@@ -47,22 +49,19 @@ export function renderSlurm(p: ScriptPlan): string {
 # Options given here go to every sbatch call. The job ids are printed; \`rowdeck status ${p.work}\`
 # shows each task's state, and a failed task can be run again on its own:
 #   ${cmd('scatter')} --index I
+# The last scatter task to end also makes the deal step (alone: ${cmd('deal')}).
 set -eu
 mkdir -p ${q(`${p.work}/logs`)}
 scatter=$(sbatch --parsable "$@" --job-name=rowdeck-scatter-${p.planId} --array=0-${p.scatterTasks - 1} \\
   --cpus-per-task=${Math.max(1, p.threads)} --mem=${p.memoryMiB}M --output=${log('scatter', true)} \\
   --wrap ${q(cmd('scatter'))})
-deal=$(sbatch --parsable "$@" --job-name=rowdeck-deal-${p.planId} --dependency=afterok:"$scatter" \\
-  --cpus-per-task=${Math.max(1, p.threads)} --mem=${p.memoryMiB}M --output=${log('deal', false)} \\
-  --wrap ${q(cmd('deal'))})
-gather=$(sbatch --parsable "$@" --job-name=rowdeck-gather-${p.planId} --dependency=afterok:"$deal" --array=0-${p.gatherTasks - 1} \\
+gather=$(sbatch --parsable "$@" --job-name=rowdeck-gather-${p.planId} --dependency=afterok:"$scatter" --array=0-${p.gatherTasks - 1} \\
   --cpus-per-task=${Math.max(1, p.threads)} --mem=${p.memoryMiB}M --output=${log('gather', true)} \\
   --wrap ${q(cmd('gather'))})
 finish=$(sbatch --parsable "$@" --job-name=rowdeck-finish-${p.planId} --dependency=afterok:"$gather" \\
   --cpus-per-task=${Math.max(1, p.threads)} --mem=${p.memoryMiB}M --output=${log('finish', false)} \\
   --wrap ${q(cmd('finish'))})
 echo "scatter $scatter"
-echo "deal $deal"
 echo "gather $gather"
 echo "finish $finish"
 `;
@@ -121,7 +120,8 @@ spec:
 # inputs, ${p.work} and the output folder at the paths the plan names, and the image must run
 # ${p.node} ${p.cli}.
 #
-# Apply the stages in this order, each once the one before has completed:
+# Apply the stages in this order, each once the one before has completed (the last scatter task
+# to end also makes the deal step):
 ${STAGES.map(apply).join('\n')}
 # (\`rowdeck status ${p.work}\` shows which tasks are done, and what to run next.)
 ${STAGES.map((stage) => `---\n${job(stage, stage === 'scatter' ? p.scatterTasks : stage === 'gather' ? p.gatherTasks : 1)}`).join('')}`;

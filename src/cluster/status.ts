@@ -30,7 +30,7 @@ export interface PlanStatus {
 }
 
 export function planStatus(plan: ClusterPlan): PlanStatus {
-  const stage = (name: StageName, count: number): PlanStatus['stages'][number] => {
+  const stage = (name: Exclude<StageName, 'reread'>, count: number): PlanStatus['stages'][number] => {
     const tasks = Array.from({ length: count }, (_, i): TaskStatus => {
       const command = taskCommand(plan, name, i);
       const done = readDone(plan.work, name, i);

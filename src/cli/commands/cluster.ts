@@ -4,7 +4,8 @@
  */
 import { planCluster, loadPlan } from '../../cluster/plan.js';
 import { runScatterTask } from '../../cluster/scatter-task.js';
-import { runDealTask } from '../../cluster/deal.js';
+import { runDealTask, scatterStageDone } from '../../cluster/deal.js';
+import { readDone } from '../../cluster/records.js';
 import { runGatherTask } from '../../cluster/gather-task.js';
 import { finishCluster } from '../../cluster/finish.js';
 import { planStatus } from '../../cluster/status.js';
@@ -25,11 +26,11 @@ export async function runPlan(argv: string[], io: CliIO): Promise<number> {
   if (v.json) io.stdout.write(JSON.stringify(plan, null, 2) + '\n');
   if (!v.quiet) {
     io.stderr.write(
-      `rowdeck: plan ${plan.planId}: ${plan.scatter.length} scatter task(s), 1 deal task, ${plan.gather.length} gather task(s) over ${plan.size.buckets} buckets, then finish.\n` +
+      `rowdeck: plan ${plan.planId}: ${plan.scatter.length} scatter task(s) (the last to end makes the deal), ${plan.gather.length} gather task(s) over ${plan.size.buckets} buckets, then finish.\n` +
         `  written: ${files.join(', ')}\n` +
         `  Slurm:       sh ${plan.work}/slurm.sh [sbatch options]\n` +
         `  Kubernetes:  see the order of commands at the top of ${plan.work}/kubernetes.yaml\n` +
-        `  by hand:     ${taskCommand(plan, 'scatter')} --index I   (each I), then the deal, gather and finish steps; rowdeck status ${plan.work}\n`,
+        `  by hand:     ${taskCommand(plan, 'scatter')} --index I   (each I), then the gather tasks and finish; rowdeck status ${plan.work}\n`,
     );
   }
   return 0;
@@ -47,10 +48,27 @@ export async function runTaskCommand(argv: string[], io: CliIO): Promise<number>
   const count = stage === 'scatter' ? plan.scatter.length : stage === 'gather' ? plan.gather.length : 1;
   const { index, from } = stage === 'deal' ? { index: 0, from: 'the stage' } : resolveTaskIndex(t.index, count, stage);
   const t0 = Date.now();
-  const ran = stage === 'scatter' ? await runScatterTask(plan, index) : stage === 'gather' ? await runGatherTask(plan, index) : await runDealTask(plan);
-  if (!v.quiet) {
-    io.stderr.write(ran ? `rowdeck: ${stage} task ${index} of plan ${plan.planId} done in ${((Date.now() - t0) / 1000).toFixed(1)} s (index from ${from}).\n` : `rowdeck: ${stage} task ${index} of plan ${plan.planId} was already done; nothing to do.\n`);
+  const said = (ran: boolean): string => (ran ? `rowdeck: ${stage} task ${index} of plan ${plan.planId} done in ${((Date.now() - t0) / 1000).toFixed(1)} s (index from ${from}).\n` : `rowdeck: ${stage} task ${index} of plan ${plan.planId} was already done; nothing to do.\n`);
+  if (stage === 'scatter') {
+    // The last scatter task to end makes the deal step too (two ending at once both may; the first
+    // to finish keeps it), so the gather stage follows the scatter stage directly. Run again after
+    // it was done, a task still makes a deal that is missing or failed.
+    const ran = await runScatterTask(plan, index);
+    if (!v.quiet) io.stderr.write(said(ran));
+    if (scatterStageDone(plan) && readDone(plan.work, 'deal', 0) === null) {
+      const t1 = Date.now();
+      try {
+        await runDealTask(plan);
+      } catch (err) {
+        io.stderr.write(`rowdeck: every scatter task is done, and the deal step this task went on to failed (this task's own work is kept; run it again, or ${taskCommand(plan, 'deal')}, once the cause is mended):\n`);
+        throw err;
+      }
+      if (!v.quiet) io.stderr.write(`rowdeck: every scatter task is done: the deal step made in ${((Date.now() - t1) / 1000).toFixed(1)} s.\n`);
+    }
+    return 0;
   }
+  const ran = stage === 'gather' ? await runGatherTask(plan, index) : await runDealTask(plan);
+  if (!v.quiet) io.stderr.write(said(ran));
   return 0;
 }
 
