@@ -3,7 +3,7 @@
 // file in its place. Node's module loader took ~0.07 s of every command's start on them here, a
 // third of a task that finds its work done; a plan runs many short processes. The library
 // (dist/index.js) and the worker entries (dist/workers/) stay as tsc wrote them.
-import { renameSync, rmSync } from 'node:fs';
+import { chmodSync, renameSync, rmSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { rolldown } from 'rolldown';
@@ -19,6 +19,9 @@ try {
 } finally {
   await bundle.close();
 }
+// An executable file, as the package's bin (npm sets that mode when it links the bin, which in a
+// fresh clone is before this build replaces the file).
+chmodSync(out, 0o755);
 renameSync(out, entry);
 renameSync(`${out}.map`, `${entry}.map`);
 rmSync(tmp, { recursive: true, force: true });
