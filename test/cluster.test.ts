@@ -74,6 +74,29 @@ async function runPlanned(o: Omit<PlanOptions, 'out' | 'work'>, order: (kinds: {
   return { out, plan };
 }
 
+/** The tasks the deal step read again, from an output's manifest. */
+function rereadTasks(out: string): number[] {
+  return (JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { run: { plan: { reread: number[] } } }).run.plan.reread;
+}
+
+/** A sensor CSV of `rows` records whose lines `at` (0: the header) have two fields too many. */
+function writeWithExtraFields(name: string, rows: number, seed: number, at: number[]): string {
+  const path = join(dir, name);
+  const text = makeSensorCsv({ rows, seed }).split('\n');
+  for (const k of at) text[k] = `${text[k]},extra,fields`;
+  writeFileSync(path, text.join('\n'));
+  return path;
+}
+
+/** `rowdeck plan` as a process, into work and output folders named for `name`. */
+async function planByProcess(name: string, args: string[], tasks: number, gatherTasks: number): Promise<{ work: string; out: string; plan: ReturnType<typeof readPlan> }> {
+  const work = join(dir, `${name}-work`);
+  const out = join(dir, `${name}-out`);
+  const planned = await rowdeck(['plan', ...args, '--out', out, '--work', work, '--tasks', String(tasks), '--gather-tasks', String(gatherTasks), '--quiet']);
+  expect(planned.status, planned.stderr).toBe(0);
+  return { work, out, plan: readPlan(work) };
+}
+
 /** The same options through `shuffle`. */
 async function reference(o: Omit<PlanOptions, 'out' | 'work' | 'tasks' | 'gatherTasks'>): Promise<string> {
   const out = join(dir, `ref-${n++}`);
@@ -179,15 +202,11 @@ describe('the same bytes as shuffle', () => {
     expect(plan.scatter.length).toBeGreaterThan(2);
     const ref = await reference({ inputs: [lookalike], seed: 'q', partitions: 2 });
     expectSameOutput(ref, out);
-    const m = JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { run: { plan: { reread: number[] } } };
-    expect(m.run.plan.reread.length).toBeGreaterThan(0);
+    expect(rereadTasks(out).length).toBeGreaterThan(0);
   });
 
   it('quarantined records keep their physical lines whichever task read them', async () => {
-    const bad = join(dir, 'bad.csv');
-    const text = makeSensorCsv({ rows: 40000, seed: 34 }).split('\n');
-    for (const at of [5, 9000, 21000, 33000]) text[at] = `${text[at]},extra,fields`;
-    writeFileSync(bad, text.join('\n'));
+    const bad = writeWithExtraFields('bad.csv', 40000, 34, [5, 9000, 21000, 33000]);
     const o = { inputs: [bad], seed: 'bad', partitions: 2, onBadRecord: 'quarantine' as const };
     const ref = await reference(o);
     const { out } = await runPlanned({ ...o, tasks: 4, gatherTasks: 2 });
@@ -261,11 +280,8 @@ describe('tasks as processes', () => {
   });
 
   it('tasks killed at random moments and run again, run twice at once, run after they are done: the same bytes; a missing one is named', async () => {
-    const work = join(dir, 'fault-work');
-    const out = join(dir, 'fault-out');
     const args = [big, '--seed', 'faults', '--partitions', '4', '--stratify', 'fault', '--threads', '1'];
-    expect((await rowdeck(['plan', ...args, '--out', out, '--work', work, '--tasks', '4', '--gather-tasks', '3', '--quiet'])).status).toBe(0);
-    const plan = readPlan(work);
+    const { work, out, plan } = await planByProcess('fault', args, 4, 3);
     expect(plan.scatter.length).toBeGreaterThan(2);
     const rnd = createRandom(77);
     let killed = 0;
@@ -310,11 +326,7 @@ describe('tasks as processes', () => {
 
 describe('the deal step, made by the tasks', () => {
   it('the last scatter task to end makes it; gather tasks at once that find none make it, slices read again included: shuffle\'s bytes', async () => {
-    const work = join(dir, 'deal-work');
-    const out = join(dir, 'deal-out');
-    const args = [lookalike, '--seed', 'dealt', '--partitions', '2', '--stratify', 'label', '--threads', '0'];
-    expect((await rowdeck(['plan', ...args, '--out', out, '--work', work, '--tasks', '4', '--gather-tasks', '2', '--quiet'])).status).toBe(0);
-    const plan = readPlan(work);
+    const { work, out, plan } = await planByProcess('deal', [lookalike, '--seed', 'dealt', '--partitions', '2', '--stratify', 'label', '--threads', '0'], 4, 2);
     const last = plan.scatter.length - 1;
     expect(last).toBeGreaterThan(1);
     for (let i = 0; i < last; i++) {
@@ -338,19 +350,13 @@ describe('the deal step, made by the tasks', () => {
     expect((await rowdeck(['finish', work, '--quiet'])).status).toBe(0);
     const ref = await reference({ inputs: [lookalike], seed: 'dealt', partitions: 2, stratify: ['label'] });
     expectSameOutput(ref, out);
-    const m = JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { run: { plan: { reread: number[] } } };
-    expect(m.run.plan.reread.length).toBeGreaterThan(0);
+    expect(rereadTasks(out).length).toBeGreaterThan(0);
   });
 
   it('a deal that fails fails the last scatter task, its own work kept, and every gather task after it, with the record\'s physical line', async () => {
-    const bad = join(dir, 'bad-deal.csv');
     // Large enough for several byte ranges; the record in the last one, which does not start at a known record start.
-    const text = makeSensorCsv({ rows: 120000, seed: 35 }).split('\n');
-    text[110000] = `${text[110000]},extra,fields`;
-    writeFileSync(bad, text.join('\n'));
-    const work = join(dir, 'bad-deal-work');
-    expect((await rowdeck(['plan', bad, '--seed', 'bad', '--partitions', '2', '--out', join(dir, 'bad-deal-out'), '--work', work, '--tasks', '4', '--gather-tasks', '2', '--threads', '0', '--quiet'])).status).toBe(0);
-    const plan = readPlan(work);
+    const bad = writeWithExtraFields('bad-deal.csv', 120000, 35, [110000]);
+    const { work, plan } = await planByProcess('bad-deal', [bad, '--seed', 'bad', '--partitions', '2', '--threads', '0'], 4, 2);
     expect(plan.scatter.length).toBeGreaterThan(2);
     const runs = [];
     for (let i = 0; i < plan.scatter.length; i++) runs.push(await rowdeck(['task', work, '--stage', 'scatter', '--index', String(i), '--quiet']));
