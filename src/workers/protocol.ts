@@ -14,7 +14,7 @@
  *   split                 unitsOf (split.ts)                        SplitResult
  *   bucket                runGatherStage (gather-stage.ts)          GatherResult
  *   partStats             partStatistics (parts.ts)                 PartStatsResult
- *   join                  finish (cluster/finish.ts)                Joined
+ *   join                  finish (cluster/finish.ts)                Joined (join-worker.ts answers)
  *   part                  verify's part scan (verify/scan-parts.ts) SerializedPartScan
  *
  * A lane's `finish` gets what the worker kept; the shuffle's threads finish twice, and say which
@@ -200,7 +200,7 @@ export function byKind<T extends { kind: Kind }>(table: HandlerTable<T>): (m: T)
 /** The scatter work of stage 1: a packed batch read by the calling thread, a small input to read, or block work. */
 export type ScatterMessage = BatchMessage | SmallInputMessage | BlockMessage;
 
-/** The same threads' work after stage 1: count a bucket's groups, split a bucket, deal a bucket, read a part back, join a plan's part. */
+/** The same threads' work after stage 1: count a bucket's groups, split a bucket, deal a bucket, read a part back. */
 export type GatherMessage = CensusMessage | SplitMessage | BucketMessage | PartStatsMessage;
 
 /** Everything shuffle-worker.ts takes. */
