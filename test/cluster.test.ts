@@ -344,6 +344,7 @@ describe('the deal step, made by the tasks', () => {
     // As if the last scatter task had been killed before its deal: both gather tasks, at once, find none.
     rmSync(join(work, 'deal', '0000'), { recursive: true });
     rmSync(join(work, 'reread'), { recursive: true });
+    expect(planStatus(loadPlan(work)).next[0]).toContain('deal: not made yet; the gather tasks make it as they start');
     const both = await Promise.all(plan.gather.map((_, i) => rowdeck(['task', work, '--stage', 'gather', '--index', String(i), '--quiet'])));
     for (const b of both) expect(b.status, b.stderr).toBe(0);
     expect(readDone(work, 'deal', 0)?.planId).toBe(plan.planId);
@@ -369,6 +370,7 @@ describe('the deal step, made by the tasks', () => {
     expect(readDone(work, 'scatter', plan.scatter.length - 1)?.planId).toBe(plan.planId);
     const status = planStatus(loadPlan(work));
     expect(status.stages.find((x) => x.stage === 'deal')!.failed).toBe(1);
+    expect(status.next[0]).toMatch(/^deal: failed; mend the cause, then .*--stage' 'deal'/);
     const gather = await rowdeck(['task', work, '--stage', 'gather', '--index', '0', '--quiet']);
     expect(gather.status).toBe(1);
     expect(gather.stderr).toContain('bad-deal.csv:110001:');

@@ -46,6 +46,11 @@ export function planStatus(plan: ClusterPlan): PlanStatus {
   for (const s of stages) {
     if (s.done === s.total) continue;
     const waiting = s.tasks.filter((t) => t.state !== 'done');
+    if (s.stage === 'deal') {
+      // No stage of its own: the last scatter task makes it, else the gather tasks as they start.
+      next.push(s.failed ? `deal: failed; mend the cause, then ${waiting[0]!.command} (or run any gather task: it makes the deal first)` : `deal: not made yet; the gather tasks make it as they start (alone: ${waiting[0]!.command})`);
+      break;
+    }
     next.push(`${s.stage}: ${waiting.length} of ${s.total} task(s) to run${s.failed ? ` (${s.failed} failed)` : ''}, e.g. ${waiting[0]!.command}`);
     break;
   }
