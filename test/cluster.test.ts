@@ -348,7 +348,11 @@ describe('the deal step, made by the tasks', () => {
     const both = await Promise.all(plan.gather.map((_, i) => rowdeck(['task', work, '--stage', 'gather', '--index', String(i), '--quiet'])));
     for (const b of both) expect(b.status, b.stderr).toBe(0);
     expect(readDone(work, 'deal', 0)?.planId).toBe(plan.planId);
-    expect((await rowdeck(['finish', work, '--quiet'])).status).toBe(0);
+    expect((await rowdeck(['finish', work, '--keep-work', '--quiet'])).status).toBe(0);
+    // --keep-work keeps the spill, the slices read again among it.
+    const kept = (sub: string): string[] => readdirSync(join(work, sub), { recursive: true }).map(String).filter((f) => f.endsWith('.spill'));
+    expect(kept('scatter').length).toBeGreaterThan(0);
+    expect(kept('reread').length).toBeGreaterThan(0);
     const ref = await reference({ inputs: [lookalike], seed: 'dealt', partitions: 2, stratify: ['label'] });
     expectSameOutput(ref, out);
     expect(rereadTasks(out).length).toBeGreaterThan(0);

@@ -229,7 +229,18 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
  * Whether every scatter task is done. Looks from the last task down: array tasks end in about
  * their order, so a task still running is met early (a plan may have 10,000).
  */
-export function scatterStageDone(plan: ClusterPlan): boolean {
+function scatterStageDone(plan: ClusterPlan): boolean {
   for (let t = plan.scatter.length - 1; t >= 0; t--) if (!existsSync(join(taskDir(plan.work, 'scatter', t), 'done.json'))) return false;
   return true;
+}
+
+/**
+ * The deal step, made here where every scatter task is done and no deal is: what the scatter task
+ * that ends last does after its own work (two ending at once both may; the first to finish keeps
+ * it), so the gather stage follows the scatter stage directly. A task run again after it was done
+ * still makes a deal that is missing or failed. Returns whether this call made it.
+ */
+export async function dealIfScatterDone(plan: ClusterPlan): Promise<boolean> {
+  if (!scatterStageDone(plan) || readDone(plan.work, 'deal', 0) !== null) return false;
+  return runDealTask(plan);
 }

@@ -68,14 +68,14 @@ function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; g
   return { scatter: present(scatter), deal: present(deal)[0]!, gather: present(gather) };
 }
 
-/** Removes everything in `dir` but `keep`, on libuv's threads; the error it met, if any (not thrown, so no rejection goes unheard). */
-async function removeAllBut(dir: string, keep: string): Promise<unknown> {
-  try {
-    await Promise.all(readdirSync(dir).filter((name) => name !== keep).map((name) => rm(join(dir, name), { recursive: true, force: true })));
-    return null;
-  } catch (err) {
-    return err;
-  }
+/** Removes everything in `dir` but `keep`, on libuv's threads. */
+async function removeAllBut(dir: string, keep: string): Promise<void> {
+  await Promise.all(readdirSync(dir).filter((name) => name !== keep).map((name) => rm(join(dir, name), { recursive: true, force: true })));
+}
+
+/** What a removal met: null, or its error (kept, not thrown, so no rejection goes unheard while the parts are joined). */
+function errorOf(removal: Promise<unknown>): Promise<unknown> {
+  return removal.then(() => null, (err: unknown) => err);
 }
 
 /** Appends a file to a part, a MiB at a time. */
@@ -118,13 +118,12 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     throw err;
   }
   let writers: PartWriter[] = [];
-  // The output is claimed and every gather task is done, so the spill is read no more: removed
-  // while the parts are joined (an unlink of pages the disk is still writing waits for them: ~0.4 s
-  // for 1 GB here, off the join's path this way). Done records stay. (A finish refused for an
-  // output in the way leaves the work whole.)
-  // Slices read again by the deal (the reread folder) are spill too.
-  const spillGone = (): Promise<unknown>[] => [...plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json')), rm(join(plan.work, 'reread'), { recursive: true, force: true }).then(() => null, (err: unknown) => err)];
-  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : Promise.all(spillGone()).then((errs) => errs.find((e) => e !== null) ?? null);
+  // The output is claimed and every gather task is done, so the spill (the slices the deal read
+  // again too) is read no more: removed while the parts are joined (an unlink of pages the disk is
+  // still writing waits for them: ~0.4 s for 1 GB here, off the join's path this way). Done
+  // records stay. (A finish refused for an output in the way leaves the work whole.)
+  const removeSpill = (): Promise<unknown>[] => [...plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json')), rm(join(plan.work, 'reread'), { recursive: true, force: true })].map(errorOf);
+  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : Promise.all(removeSpill()).then((errs) => errs.find((e) => e !== null) ?? null);
   try {
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);

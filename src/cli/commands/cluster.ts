@@ -4,8 +4,7 @@
  */
 import { planCluster, loadPlan } from '../../cluster/plan.js';
 import { runScatterTask } from '../../cluster/scatter-task.js';
-import { runDealTask, scatterStageDone } from '../../cluster/deal.js';
-import { readDone } from '../../cluster/records.js';
+import { dealIfScatterDone, runDealTask } from '../../cluster/deal.js';
 import { runGatherTask } from '../../cluster/gather-task.js';
 import { finishCluster } from '../../cluster/finish.js';
 import { planStatus } from '../../cluster/status.js';
@@ -50,21 +49,18 @@ export async function runTaskCommand(argv: string[], io: CliIO): Promise<number>
   const t0 = Date.now();
   const said = (ran: boolean): string => (ran ? `rowdeck: ${stage} task ${index} of plan ${plan.planId} done in ${((Date.now() - t0) / 1000).toFixed(1)} s (index from ${from}).\n` : `rowdeck: ${stage} task ${index} of plan ${plan.planId} was already done; nothing to do.\n`);
   if (stage === 'scatter') {
-    // The last scatter task to end makes the deal step too (two ending at once both may; the first
-    // to finish keeps it), so the gather stage follows the scatter stage directly. Run again after
-    // it was done, a task still makes a deal that is missing or failed.
+    // The last scatter task to end makes the deal step too.
     const ran = await runScatterTask(plan, index);
     if (!v.quiet) io.stderr.write(said(ran));
-    if (scatterStageDone(plan) && readDone(plan.work, 'deal', 0) === null) {
-      const t1 = Date.now();
-      try {
-        await runDealTask(plan);
-      } catch (err) {
-        io.stderr.write(`rowdeck: every scatter task is done, and the deal step this task went on to failed (this task's own work is kept; run it again, or ${taskCommand(plan, 'deal')}, once the cause is mended):\n`);
-        throw err;
-      }
-      if (!v.quiet) io.stderr.write(`rowdeck: every scatter task is done: the deal step made in ${((Date.now() - t1) / 1000).toFixed(1)} s.\n`);
+    const t1 = Date.now();
+    let dealt: boolean;
+    try {
+      dealt = await dealIfScatterDone(plan);
+    } catch (err) {
+      io.stderr.write(`rowdeck: every scatter task is done, and the deal step this task went on to failed (this task's own work is kept; run it again, or ${taskCommand(plan, 'deal')}, once the cause is mended):\n`);
+      throw err;
     }
+    if (dealt && !v.quiet) io.stderr.write(`rowdeck: every scatter task is done: the deal step made in ${((Date.now() - t1) / 1000).toFixed(1)} s.\n`);
     return 0;
   }
   const ran = stage === 'gather' ? await runGatherTask(plan, index) : await runDealTask(plan);
