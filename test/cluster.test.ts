@@ -12,7 +12,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { parse as parseYaml } from 'yaml';
 import { cutBuckets, cutInputs, loadPlan, planCluster, type PlanOptions } from '../src/cluster/plan.js';
 import { runScatterTask } from '../src/cluster/scatter-task.js';
-import { runDealTask } from '../src/cluster/deal.js';
+import { readShare, runDealTask, writeShare } from '../src/cluster/deal.js';
 import { readDone } from '../src/cluster/records.js';
 import { runGatherTask } from '../src/cluster/gather-task.js';
 import { finishCluster } from '../src/cluster/finish.js';
@@ -155,6 +155,29 @@ describe('cutting the work', () => {
     expect(ten).toHaveLength(1000);
     expect(cutBuckets(16, 5).map((r) => r.end - r.first)).toEqual([3, 3, 3, 3, 4]);
     expect(cutBuckets(4, 10)).toHaveLength(4);
+  });
+
+  it("a gather task's share reads back as written: every bucket's pieces in order, empty buckets, offsets past 4 GiB", () => {
+    const dir = makeTempDir('rowdeck-share-');
+    try {
+      const random = createRandom(7);
+      const paths = ['/w/scatter/0000/scatter-0000-00.spill', '/w/scatter/0001/scatter-0001-00.spill', '/w/reread/0002/scatter-0002-03.spill'];
+      const pieces = Array.from({ length: 40 }, (_, b) =>
+        b % 9 === 4 ? [] : Array.from({ length: 1 + Math.floor(random() * 6) }, (_, k) => ({ task: k % 3, path: paths[(b + k) % 3]!, offset: Math.floor(random() * 2 ** 40), length: 1 + Math.floor(random() * 2 ** 20) })),
+      );
+      const share = { first: 100, end: 140, pieces, rankStart: Float64Array.of(3, 0, 17), counts: Float64Array.from({ length: 120 }, () => Math.floor(random() * 1000)) };
+      const file = join(dir, 'gather-0003.json');
+      writeShare(file, share);
+      const back = readShare(file);
+      expect(back).toEqual(share);
+      // Each path is written once, not once a piece.
+      const text = readFileSync(file, 'utf8');
+      for (const p of paths) expect(text.split(p).length - 1).toBe(1);
+      // A piece held in memory is not a plan's: refused, not written as if it were a file's.
+      expect(() => writeShare(file, { ...share, pieces: [[{ task: 0, path: '', offset: 0, length: 8, memory: new SharedArrayBuffer(8) }]] })).toThrow(/not in a file/);
+    } finally {
+      removeDir(dir);
+    }
   });
 });
 

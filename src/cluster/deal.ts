@@ -7,7 +7,7 @@
  * plan of stage 2 exactly as `shuffle` does (src/engine/plan.ts), with, for each gather task, its
  * buckets' spill pieces and the ranks its buckets start at.
  */
-import { existsSync, writeFileSync } from 'node:fs';
+import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fromWire, RowdeckError } from '../errors.js';
 import type { InputSchema } from '../io/batch.js';
@@ -18,7 +18,7 @@ import { mergeScatterResults, type ScatterResult, type ScatterTaskResult } from 
 import { deriveSecrets, placesRecordsIndividually, Rejects } from '../engine/scatter-stage.js';
 import type { SpillPiece } from '../engine/spill.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
-import { encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
+import { decodeJson, encodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
 import { absoluteResults, runScatterTask, type ScatterDone, type SliceStarts } from './scatter-task.js';
 import { taskCommand } from './commands.js';
 import { dealLanes } from './lanes.js';
@@ -48,6 +48,67 @@ export interface GatherShare {
 }
 
 export const gatherShareFile = (index: number): string => `gather-${String(index).padStart(4, '0')}.json`;
+
+/**
+ * A share as its file holds it: every spill file's path once and the pieces as columns. (A list
+ * of piece objects, each with its path, took a gather task ~20 ms to read at 1 GB over four.)
+ */
+interface ShareFile {
+  first: number;
+  end: number;
+  paths: string[];
+  /** Bucket `first + k`'s pieces are `bucketStart[k]` up to `bucketStart[k + 1]`. */
+  bucketStart: Uint32Array;
+  task: Uint32Array;
+  path: Uint32Array;
+  offset: Float64Array;
+  length: Float64Array;
+  rankStart: Float64Array;
+  counts: Float64Array;
+}
+
+export function writeShare(path: string, share: GatherShare): void {
+  const all = share.pieces.flat();
+  const pathIndex = new Map<string, number>();
+  const f: ShareFile = {
+    first: share.first,
+    end: share.end,
+    paths: [],
+    bucketStart: new Uint32Array(share.pieces.length + 1),
+    task: new Uint32Array(all.length),
+    path: new Uint32Array(all.length),
+    offset: new Float64Array(all.length),
+    length: new Float64Array(all.length),
+    rankStart: share.rankStart,
+    counts: share.counts,
+  };
+  let i = 0;
+  share.pieces.forEach((pieces, k) => {
+    f.bucketStart[k] = i;
+    for (const p of pieces) {
+      if (p.fd !== undefined || p.memory !== undefined) throw new RowdeckError('RDK_INTERNAL', 'a plan\'s spill piece is not in a file');
+      let at = pathIndex.get(p.path);
+      if (at === undefined) pathIndex.set(p.path, (at = f.paths.push(p.path) - 1));
+      f.task[i] = p.task;
+      f.path[i] = at;
+      f.offset[i] = p.offset;
+      f.length[i] = p.length;
+      i++;
+    }
+  });
+  f.bucketStart[share.pieces.length] = i;
+  writeFileSync(path, encodeJson(f));
+}
+
+export function readShare(path: string): GatherShare {
+  const f = decodeJson<ShareFile>(readFileSync(path, 'utf8'));
+  const pieces = Array.from({ length: f.end - f.first }, (_, k) => {
+    const list: SpillPiece[] = [];
+    for (let i = f.bucketStart[k]!; i < f.bucketStart[k + 1]!; i++) list.push({ task: f.task[i]!, path: f.paths[f.path[i]!]!, offset: f.offset[i]!, length: f.length[i]! });
+    return list;
+  });
+  return { first: f.first, end: f.end, pieces, rankStart: f.rankStart, counts: f.counts };
+}
 
 /** Every scatter task's done record, or an error naming those missing with the command that runs them. */
 export function scatterDones(plan: ClusterPlan): ScatterDone[] {
@@ -204,7 +265,7 @@ export async function runDealTask(plan: ClusterPlan): Promise<boolean> {
         }
       }
       const share: GatherShare = { first: g.first, end: g.end, pieces: Array.from({ length: g.end - g.first }, (_, k) => sc.spill.pieces(g.first + k)), rankStart, counts };
-      writeFileSync(join(dir, gatherShareFile(m)), encodeJson(share));
+      writeShare(join(dir, gatherShareFile(m)), share);
     });
     const rejectedText = rejects.file();
     if (rejectedText !== null) writeFileSync(join(dir, 'rejected.csv'), rejectedText);

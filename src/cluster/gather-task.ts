@@ -18,9 +18,9 @@ import { spreadSink } from '../engine/parts.js';
 import { taskCommand } from './commands.js';
 import { dealLanes } from './lanes.js';
 import { gatherFinals } from '../workers/protocol.js';
-import { gatherShareFile, runDealTask, type GatherShare } from './deal.js';
+import { gatherShareFile, readShare, runDealTask } from './deal.js';
 import { enterPlan, type ClusterPlan } from './plan.js';
-import { decodeJson, readDone, runTask, taskDir, type DoneRecord } from './records.js';
+import { readDone, runTask, taskDir, type DoneRecord } from './records.js';
 
 export const partSliceFile = (part: number): string => `part-${String(part).padStart(5, '0')}.bin`;
 
@@ -58,7 +58,7 @@ export async function runGatherTask(plan: ClusterPlan, index: number): Promise<b
   // gather task that finds none makes it (tasks at once each may: the first to finish keeps it).
   if (readDone(plan.work, 'gather', index) === null && readDone(plan.work, 'deal', 0) === null) await runDealTask(plan);
   const { gatherPlan, dir: dealDir } = dealPlan(plan);
-  const share = decodeJson<GatherShare>(readFileSync(join(dealDir, gatherShareFile(index)), 'utf8'));
+  const share = readShare(join(dealDir, gatherShareFile(index)));
   return runTask<Omit<GatherDone, keyof DoneRecord>>(plan.work, 'gather', index, plan.planId, async (dir) => {
     const parts = partCount(gatherPlan.deal);
     const S = gatherPlan.strataCount;
