@@ -4,7 +4,7 @@
  * manifest with the tasks' hosts and times in its `run` section, puts the output into place
  * atomically (src/engine/run-work.ts, as `shuffle` does), and removes the work folder.
  */
-import { createReadStream, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { createReadStream, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { rm } from 'node:fs/promises';
 import { basename, join } from 'node:path';
 import { availableParallelism } from 'node:os';
@@ -69,8 +69,23 @@ function allDone(plan: ClusterPlan): { scatter: ScatterDone[]; deal: DealDone; g
 }
 
 /** Removes everything in `dir` but `keep`, on libuv's threads. */
-async function removeAllBut(dir: string, keep: string): Promise<void> {
+async function removeAllBut(dir: string, keep: string | null): Promise<void> {
   await Promise.all(readdirSync(dir).filter((name) => name !== keep).map((name) => rm(join(dir, name), { recursive: true, force: true })));
+}
+
+/**
+ * Removes the work folder, each task's folder on a libuv thread of its own: unlinking the gather
+ * tasks' slices (the size of the output) took ~0.06 s on the calling thread alone.
+ */
+async function removeWork(work: string): Promise<void> {
+  await Promise.all(
+    readdirSync(work, { withFileTypes: true }).map(async (e) => {
+      const path = join(work, e.name);
+      if (e.isDirectory()) await removeAllBut(path, null);
+      await rm(path, { recursive: true, force: true });
+    }),
+  );
+  await rm(work, { recursive: true, force: true });
 }
 
 /** What a removal met: null, or its error (kept, not thrown, so no rejection goes unheard while the parts are joined). */
@@ -233,7 +248,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
     writeFileSync(join(stage, 'manifest.json'), JSON.stringify(manifest, null, 2) + '\n', { flag: 'wx' });
     if (o.report) writeManifestReport(stage, manifest, basename(plan.out));
     work.commit();
-    if (!f.keepWork) rmSync(plan.work, { recursive: true, force: true });
+    if (!f.keepWork) await removeWork(plan.work);
     return { manifest, out: plan.out, report: o.report ? join(plan.out, REPORT_FILE) : null, warnings: deal.warnings };
   } catch (err) {
     throw codedSystemError(err);
