@@ -11,7 +11,7 @@ import { dirname, join, resolve } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
 import { cases as catalogue, figures as figureList, inputs as inputSpecs, reportGroups } from './cases.mjs';
 import { ensureInputs } from './lib/data.mjs';
-import { availableMemory, detectTools, freeBytes, machineInfo, measure } from './lib/measure.mjs';
+import { availableMemory, detectTools, freeBytes, freshWriteCost, machineInfo, measure } from './lib/measure.mjs';
 import { schedule, summarize } from './lib/plan.mjs';
 import { busyNote, casesTable, compareTable, figuresTable, machineLine, mergeLatest, writeDocSection } from './lib/report.mjs';
 
@@ -130,6 +130,7 @@ process.on('SIGINT', () => {
 });
 
 const machine = machineInfo(root, builds);
+machine.freshWrite = [freshWriteCost(scratch)];
 console.error(`\n${machineLine(machine)}\n`);
 
 /** Budget of a case for its peak RSS figure: its `--memory`, else the build's default. */
@@ -233,6 +234,7 @@ for (const e of order.warmup) runEntry(e, 'warm-up');
 order.rounds.forEach((round, r) => {
   for (const e of round) runEntry(e, `round ${r + 1}/${runs}`);
 });
+machine.freshWrite.push(freshWriteCost(scratch));
 cleanScratch();
 machine.loadAverageEnd = loadavg().map((x) => Math.round(x * 100) / 100);
 

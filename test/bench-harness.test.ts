@@ -1,20 +1,20 @@
 // The benchmark harness's own parts (bench/lib): the order of a run, the figures kept from its
 // samples, the copies that make the scale inputs, and what the measuring wrapper reads on this
 // machine. No timing is asserted here: speed goals live in bench/.
-import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { afterAll, describe, expect, it } from 'vitest';
 // @ts-expect-error: a plain ES module without types
 import { concatCopies } from '../bench/lib/data.mjs';
 // @ts-expect-error: a plain ES module without types
-import { detectTools, measure, parseGnuTime, parseProcIo } from '../bench/lib/measure.mjs';
+import { detectTools, freshWriteCost, measure, parseGnuTime, parseProcIo } from '../bench/lib/measure.mjs';
 // @ts-expect-error: a plain ES module without types
 import { median, schedule, summarize } from '../bench/lib/plan.mjs';
 // @ts-expect-error: a plain ES module without types
 import { budgetHolding, cases, GiB } from '../bench/cases.mjs';
 // @ts-expect-error: a plain ES module without types
-import { mergeLatest, writeDocSection } from '../bench/lib/report.mjs';
+import { machineLine, mergeLatest, writeDocSection } from '../bench/lib/report.mjs';
 
 const dir = mkdtempSync(join(tmpdir(), 'rowdeck-bench-harness-'));
 afterAll(() => rmSync(dir, { recursive: true, force: true }));
@@ -103,6 +103,18 @@ describe('where the results go', () => {
     mergeLatest(path, 'scale', { runs: 3 });
     mergeLatest(path, 'scale', { runs: 2 });
     expect(JSON.parse(readFileSync(path, 'utf8'))).toEqual({ groups: { core: { machine: { commit: 'old' }, results: {} }, scale: { runs: 2 } } });
+  });
+});
+
+describe('the machine line', () => {
+  it('says what writing new pages cost at the start and the end of the run, from a probe that leaves no file', () => {
+    const probeDir = mkdtempSync(join(dir, 'probe-'));
+    const cost = freshWriteCost(probeDir, 8, 0);
+    expect(cost).toBeGreaterThan(0);
+    expect(readdirSync(probeDir)).toEqual([]);
+    const m = { cpu: 'X', cores: 2, memoryGiB: 24, kernel: 'k', node: 'v20', builds: [{ label: 'A', commit: 'abc' }], commit: 'abc', date: '2026-12-05T00:00:00Z', loadAverage: [0.1, 0.2, 0.3] };
+    expect(machineLine({ ...m, freshWrite: [0.25, 1.9] })).toMatch(/writing new pages \(a file in 1 MiB writes\): 0\.25 s\/GiB at the start, 1\.9 s\/GiB at the end$/);
+    expect(machineLine(m)).not.toMatch(/new pages/);
   });
 });
 

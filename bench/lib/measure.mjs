@@ -11,7 +11,7 @@
 //   disk), `cancelled_write_bytes` what was dropped before writeback (a file removed or truncated
 //   first), `wchar` everything passed to write calls, pipes and /dev/null included.
 import { spawnSync } from 'node:child_process';
-import { existsSync, readFileSync, rmSync, statfsSync } from 'node:fs';
+import { closeSync, existsSync, openSync, readFileSync, rmSync, statfsSync, writeSync } from 'node:fs';
 import { cpus, loadavg, release, totalmem } from 'node:os';
 import { join, relative } from 'node:path';
 
@@ -128,4 +128,27 @@ export function machineInfo(root, builds) {
     gnuTime: timeVersion.status === 0 ? timeVersion.stdout.split('\n')[0] || timeVersion.stderr.split('\n')[0] : null,
     date: new Date().toISOString(),
   };
+}
+
+/**
+ * What writing into memory the kernel has not used lately costs here: seconds of wall time per GiB
+ * for a new file of `mib` MiB in 1 MiB writes, after a pause in which memory freed before it goes
+ * back to a VM's host. On this VM it has ranged from ~0.2 to ~2 s/GiB from hour to hour (the host
+ * backs the guest's memory again on first touch), and a run that writes more new pages than
+ * another (a plan's tasks against one process) moves with it. Printed with every run's machine.
+ */
+export function freshWriteCost(dir, mib = 512, pauseS = 3) {
+  Atomics.wait(new Int32Array(new SharedArrayBuffer(4)), 0, 0, pauseS * 1000);
+  const path = join(dir, 'fresh-write-probe');
+  const chunk = Buffer.alloc(1 << 20, 'x,1,2.5\n');
+  const t = performance.now();
+  const fd = openSync(path, 'w');
+  try {
+    for (let i = 0; i < mib; i++) writeSync(fd, chunk);
+  } finally {
+    closeSync(fd);
+  }
+  const s = (performance.now() - t) / 1000;
+  rmSync(path, { force: true });
+  return Math.round((s * 1024 * 100) / mib) / 100;
 }

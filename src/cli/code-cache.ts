@@ -6,7 +6,7 @@
  * bundle compiles as it would without one.
  */
 import { createHash } from 'node:crypto';
-import { readFileSync } from 'node:fs';
+import { closeSync, fstatSync, openSync, readFileSync, readSync } from 'node:fs';
 import { createRequire } from 'node:module';
 import { dirname } from 'node:path';
 import { Script } from 'node:vm';
@@ -31,10 +31,28 @@ export interface CompiledBundle {
   run(): void;
 }
 
+/**
+ * The bundle's bytes, read between the wrapper's into one buffer, and that as one string: V8 takes
+ * it as it is, where the wrapper joined to the text would be copied twice more (~2 ms here).
+ */
+function readWrapped(bundle: string): { text: string; bytes: Buffer } {
+  const fd = openSync(bundle, 'r');
+  try {
+    const size = fstatSync(fd).size;
+    const buf = Buffer.allocUnsafe(HEAD.length + size + TAIL.length);
+    buf.write(HEAD, 0, 'latin1');
+    let got = 0;
+    for (let n = 1; n > 0 && got < size; got += n) n = readSync(fd, buf, HEAD.length + got, size - got, got);
+    const end = buf.write(TAIL, HEAD.length + got, 'latin1') + HEAD.length + got;
+    // The bundle is ASCII (scripts/bundle.mjs escapes the rest), so latin1 reads it as V8's one-byte string.
+    return { text: buf.toString('latin1', 0, end), bytes: buf.subarray(HEAD.length, HEAD.length + got) };
+  } finally {
+    closeSync(fd);
+  }
+}
+
 export function compileBundle(bundle: string, useCache = true): CompiledBundle {
-  const bytes = readFileSync(bundle);
-  // The bundle is ASCII (scripts/bundle.mjs escapes the rest), so latin1 reads it as V8's one-byte string.
-  const source = bytes.toString('latin1');
+  const { text, bytes } = readWrapped(bundle);
   let file: Buffer | null = null;
   if (useCache) {
     try {
@@ -44,7 +62,7 @@ export function compileBundle(bundle: string, useCache = true): CompiledBundle {
     }
   }
   const ours = file !== null && file.length > 32 && file.subarray(0, 32).equals(digestOf(bytes));
-  const script = new Script(HEAD + source + TAIL, { filename: bundle, ...(ours ? { cachedData: file!.subarray(32) } : {}) });
+  const script = new Script(text, { filename: bundle, ...(ours ? { cachedData: file!.subarray(32) } : {}) });
   return {
     script,
     cache: file === null ? 'none' : ours && !script.cachedDataRejected ? 'used' : 'refused',
