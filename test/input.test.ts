@@ -6,7 +6,7 @@
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { execFileSync, spawn } from 'node:child_process';
-import { open } from 'node:fs/promises';
+import { open, type FileHandle } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { Readable } from 'node:stream';
@@ -160,19 +160,58 @@ describe('chunksInTurn', () => {
     }
   };
 
-  it('a file from an offset: its bytes, through two buffers used in turn (no fresh buffer a read)', async () => {
+  it('a file from an offset: its bytes, through three buffers used in turn (no fresh buffer a read)', async () => {
     const path = join(dir, 'turns.csv');
-    const text = Buffer.from(Array.from({ length: 200_000 }, (_, i) => `S${i},${i % 7}\n`).join(''));
-    expect(text.length).toBeGreaterThan(3 * (1 << 20) / 2);
+    const text = Buffer.from(Array.from({ length: 500_000 }, (_, i) => `S${i},${i % 7}\n`).join(''));
+    expect(text.length).toBeGreaterThan(4 * (1 << 20));
     writeFileSync(path, text);
     const from = 12_345;
     const chunks = await chunksOf(path, from);
     expect(Buffer.concat(chunks.map((c) => c.bytes)).equals(text.subarray(from))).toBe(true);
-    expect(chunks.length).toBeGreaterThanOrEqual(2);
-    // Chunk k and chunk k + 2 share one buffer, k and k + 1 do not (a read stream allocates a buffer a read).
+    expect(chunks.length).toBeGreaterThanOrEqual(5);
+    // Chunk k and chunk k + 3 share one buffer; k, k + 1 and k + 2 do not (a read stream
+    // allocates a buffer a read; two buffers would overwrite chunk k while k + 1 is in use).
     const stores = chunks.map((c) => c.store);
-    expect(new Set(stores).size).toBe(2);
-    for (let k = 0; k + 1 < stores.length; k++) expect(stores[k]).not.toBe(stores[k + 1]);
+    expect(new Set(stores).size).toBe(3);
+    for (let k = 0; k + 3 < stores.length; k++) {
+      expect(stores[k + 3]).toBe(stores[k]);
+      expect(new Set(stores.slice(k, k + 3)).size).toBe(3);
+    }
+  });
+
+  it('reads the next chunk while the caller uses this one, and a caller that stops early leaves no read under way', async () => {
+    // A file handle that logs its reads and answers each on a later turn, as libuv does.
+    const log: string[] = [];
+    const total = 5 * 1000;
+    const fh = {
+      stat: async () => ({ isFile: () => true, size: total }),
+      read: (buf: Buffer, _off: number, length: number, pos: number) => {
+        log.push(`read ${pos}`);
+        return new Promise((resolve) =>
+          setTimeout(() => {
+            const n = Math.max(0, Math.min(length, 1000, total - pos));
+            buf.fill(pos / 1000, 0, n);
+            log.push(`done ${pos}`);
+            resolve({ bytesRead: n, buffer: buf });
+          }, 2),
+        );
+      },
+    } as unknown as FileHandle;
+    const seen: string[] = [];
+    for await (const c of chunksInTurn(fh, 'stub', 0)) {
+      seen.push(`chunk ${c[0]! * 1000}`);
+      // When a chunk reaches the caller, the read of the next one is already asked for.
+      expect(log[log.length - 1]).toBe(`read ${c[0]! * 1000 + c.length}`);
+      log.push(`got ${c[0]! * 1000}`);
+    }
+    expect(seen).toEqual(['chunk 0', 'chunk 1000', 'chunk 2000', 'chunk 3000', 'chunk 4000']);
+    // The caller stops after the first chunk: the read under way ends before the generator does.
+    log.length = 0;
+    for await (const c of chunksInTurn(fh, 'stub', 0)) {
+      expect(c.length).toBe(1000);
+      break;
+    }
+    expect(log).toEqual(['read 0', 'done 0', 'read 1000', 'done 1000']);
   });
 
   it('a named pipe: read where it stands, in chunks of what the pipe holds (a size of 0 from stat is no size)', async () => {

@@ -32,13 +32,15 @@ export function detectFormat(path: string, explicit?: InputFormat): InputFormat 
 }
 
 /**
- * The chunks of an open file from `position` (null: where it stands) to its end, read into two buffers used in turn
- * (sized for what is left, one byte more to see the end in one read, up to READ_CHUNK_BYTES):
+ * The chunks of an open file from `position` (null: where it stands) to its end, read into three buffers used in
+ * turn (sized for what is left, one byte more to see the end in one read, up to READ_CHUNK_BYTES):
  * a long input leaves no trail of 1 MiB buffers for the collector (that trail showed up as memory
  * growing with the input size), and no read faults in fresh memory (a fresh buffer a read cost a
- * scatter task of a quarter of the 1 GB file ~17,000 first touches). A chunk stays valid until
- * the one after next is read: the reader's contract (a batch is valid until the next push) is
- * kept with room to spare. Thousands of small parts read back are why the size follows the file.
+ * scatter task of a quarter of the 1 GB file ~17,000 first touches). The next chunk is read on
+ * libuv's thread while the caller uses this one (waiting for each read left a scatter task idle
+ * ~70 ms of its ~1 s). A chunk stays valid until the one after next is asked for: the reader's
+ * contract (a batch is valid until the next push) is kept with room to spare. Thousands of small
+ * parts read back are why the size follows the file.
  */
 export async function* chunksInTurn(fh: FileHandle, path: string, position: number | null = null): AsyncGenerator<Buffer> {
   let size = READ_CHUNK_BYTES;
@@ -49,21 +51,35 @@ export async function* chunksInTurn(fh: FileHandle, path: string, position: numb
   } catch {
     // The read below reports what is wrong.
   }
-  const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
+  const bufs = [Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size), Buffer.allocUnsafeSlow(size)];
+  // null: from where the file stands, which a pipe needs (it cannot be read at an offset); one
+  // read at a time keeps a pipe's bytes in order.
+  let pos = position;
+  const readInto = (buf: Buffer): Promise<number> => fh.read(buf, 0, buf.length, pos).then((r) => r.bytesRead);
   let turn = 0;
-  // null: from where the file stands, which a pipe needs (it cannot be read at an offset).
-  for (let pos = position; ; ) {
-    const buf = bufs[turn]!;
-    turn ^= 1;
-    let got: number;
-    try {
-      got = (await fh.read(buf, 0, buf.length, pos)).bytesRead;
-    } catch (err) {
-      throw ioError(err, path, 'reading');
+  let next: Promise<number> | null = readInto(bufs[0]!);
+  try {
+    for (;;) {
+      const buf = bufs[turn]!;
+      let got: number;
+      try {
+        got = await next!;
+      } catch (err) {
+        throw ioError(err, path, 'reading');
+      } finally {
+        next = null;
+      }
+      if (got === 0) return;
+      if (pos !== null) pos += got;
+      turn = (turn + 1) % 3;
+      next = readInto(bufs[turn]!);
+      // Its failure is met where it is awaited (above, or below when the caller stops first).
+      next.catch(() => {});
+      yield buf.subarray(0, got);
     }
-    if (got === 0) return;
-    if (pos !== null) pos += got;
-    yield buf.subarray(0, got);
+  } finally {
+    // A caller that stops early closes the file next: the read under way ends first.
+    await next?.catch(() => {});
   }
 }
 
