@@ -4,12 +4,13 @@
  * disk (node:crypto and node:zlib as the references).
  */
 import { createHash } from 'node:crypto';
-import { readFileSync } from 'node:fs';
+import { readFileSync, type writeSync } from 'node:fs';
 import { join } from 'node:path';
 import { gunzipSync } from 'node:zlib';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { MemberCompressor } from '../src/io/gzip-members.js';
 import { FileSlots, PartWriter } from '../src/io/part-writer.js';
+import { WRITE_MAX, writeAllSync } from '../src/io/write-all.js';
 import { createRandom, makeTempDir, removeDir } from './helpers/engine.js';
 
 let dir: string;
@@ -130,5 +131,40 @@ describe('PartWriter', () => {
     }
     expect(await w.close()).toEqual({ bytes: whole.length, sha256: '' });
     expect(readFileSync(path).equals(whole)).toBe(true);
+  });
+});
+
+describe('writeAllSync', () => {
+  /** A writer that keeps what it is given and, every third call, takes only part of it (as a full disk or a signal may). */
+  function recorder(): { write: typeof writeSync; calls: { length: number; position: number | null }[]; file: Map<number, number> } {
+    const calls: { length: number; position: number | null }[] = [];
+    const file = new Map<number, number>();
+    let at = 0;
+    const write = ((_fd: number, buf: Uint8Array, offset: number, length: number, position: number | null) => {
+      calls.push({ length, position });
+      const n = calls.length % 3 === 0 ? Math.max(1, length >> 1) : length;
+      const from = position ?? at;
+      for (let i = 0; i < n; i++) file.set(from + i, buf[offset + i]!);
+      if (position === null) at += n;
+      return n;
+    }) as typeof writeSync;
+    return { write, calls, file };
+  }
+
+  it('writes every byte where it belongs, in pieces of at most WRITE_MAX (large writes get large page-cache folios)', () => {
+    const random = createRandom(3);
+    const buf = Uint8Array.from({ length: 5 * WRITE_MAX + 12_345 }, () => Math.floor(random() * 256));
+    for (const position of [null, 7_000_000]) {
+      const r = recorder();
+      writeAllSync(1, buf, position, r.write);
+      expect(r.calls.length).toBeGreaterThan(6);
+      for (const c of r.calls) expect(c.length).toBeLessThanOrEqual(WRITE_MAX);
+      const base = position ?? 0;
+      expect(r.file.size).toBe(buf.length);
+      for (let i = 0; i < buf.length; i += 997) expect(r.file.get(base + i)).toBe(buf[i]);
+      expect(r.file.get(base + buf.length - 1)).toBe(buf[buf.length - 1]);
+      // Positions follow the bytes written, short writes included.
+      if (position !== null) expect(r.calls.every((c, k) => k === 0 || c.position! > r.calls[k - 1]!.position!)).toBe(true);
+    }
   });
 });

@@ -1,11 +1,11 @@
 #!/usr/bin/env node
-// System time of writing one file into new page-cache pages, by the size of each write: why a
-// part is joined through a 1 MiB buffer (src/io/join-files.ts). Each size writes the same bytes
+// System time of writing one file into new page-cache pages, by the size of each write: why
+// rowdeck writes in pieces of at most 128 KiB (src/io/write-all.ts). Each size writes the same bytes
 // into a fresh file, sizes alternated, a warm-up round first; prints min and median per size.
 // The file is removed after each write and the next waits --pause seconds: memory a VM's guest
 // has freed goes back to its host after a moment, and a pipeline's writes mostly meet such
 // memory (without the pause, each write reuses the pages the last one freed).
-//   node bench/micro/write-chunks.mjs [--mib 1024] [--rounds 3] [--pause 5] [--dir /tmp] [--sizes 256K,1M,2M,4M]
+//   node bench/micro/write-chunks.mjs [--mib 1024] [--rounds 3] [--pause 5] [--dir /tmp] [--sizes 64K,128K,256K,1M,2M]
 import { closeSync, openSync, rmSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import { tmpdir } from 'node:os';
@@ -19,7 +19,7 @@ const total = Number(opt('mib', 1024)) * 2 ** 20;
 const rounds = Number(opt('rounds', 3));
 const pause = Number(opt('pause', 5));
 const dir = opt('dir', tmpdir());
-const sizes = opt('sizes', '256K,1M,2M,4M')
+const sizes = opt('sizes', '64K,128K,256K,1M,2M')
   .split(',')
   .map((s) => ({ label: s, bytes: Number(s.slice(0, -1)) * (s.endsWith('M') ? 2 ** 20 : 2 ** 10) }));
 const source = Buffer.alloc(Math.max(...sizes.map((s) => s.bytes)), 'x,1,2.5\n');

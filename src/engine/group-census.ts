@@ -4,7 +4,8 @@
  * joined in bucket order, which is key order (see src/core/group-table.ts). Then the groups are
  * placed, whole, into cells, and the key → cell table is written for stage 2 (groups.bin).
  */
-import { closeSync, openSync, readSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, openSync, readSync, rmSync } from 'node:fs';
+import { writeAllSync } from '../io/write-all.js';
 import { join } from 'node:path';
 import pLimit from 'p-limit';
 import { placeGroups } from '../core/balance.js';
@@ -221,7 +222,7 @@ export function writeGroupsFile(path: string, hi: Uint32Array, lo: Uint32Array, 
 function writeArraysAt(fd: number, arrays: (Uint32Array | Int32Array | Float64Array)[], at: number): number {
   for (const a of arrays) {
     const view = new Uint8Array(a.buffer, a.byteOffset, a.byteLength);
-    for (let put = 0; put < view.length; ) put += writeSync(fd, view, put, view.length - put, at + put);
+    writeAllSync(fd, view, at);
     at += view.length;
   }
   return at;

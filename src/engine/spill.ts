@@ -22,7 +22,8 @@
  *
  * Where a chunk lies (a range's file, memory) is described in spill-places.ts.
  */
-import { closeSync, openSync, writeSync } from 'node:fs';
+import { closeSync, openSync } from 'node:fs';
+import { writeAllSync } from '../io/write-all.js';
 import { join } from 'node:path';
 import { ioError } from '../errors.js';
 import type { Fingerprint } from '../core/hash.js';
@@ -455,9 +456,8 @@ export class BucketWriter {
     const fd = this.#ramFds![r]!;
     const e = this.#ramEndOf[r]!;
     const end = this.#ramEnds[e]!;
-    let off = from;
     try {
-      while (off < to) off += writeSync(fd, buf, off, to - off, end + (off - from));
+      writeAllSync(fd, buf.subarray(from, to), end);
     } catch (err) {
       // Full (its size limit, or a quota): what is there stays, the rest goes to the spill files.
       const code = (err as NodeJS.ErrnoException).code;
@@ -485,9 +485,8 @@ export class BucketWriter {
       }
     }
     const end = this.#ends[r]!;
-    let off = from;
     try {
-      while (off < to) off += writeSync(this.#fds[r]!, buf, off, to - off, end + (off - from));
+      writeAllSync(this.#fds[r]!, buf.subarray(from, to), end);
     } catch (err) {
       throw ioError(err, path, 'writing a spill file');
     }

@@ -10,7 +10,8 @@
  * record of its class (in shuffled order), read back chunk by chunk. This costs one more write
  * and read of the output, and keeps a chunk a class in memory while a part is written.
  */
-import { closeSync, openSync, readSync, writeSync } from 'node:fs';
+import { closeSync, openSync, readSync } from 'node:fs';
+import { writeAllSync } from '../io/write-all.js';
 import { join } from 'node:path';
 import { SpreadOrder } from '../core/spread.js';
 import { ioError, RowdeckError } from '../errors.js';
@@ -42,7 +43,7 @@ class AppendFile {
   append(buf: Uint8Array): number {
     const at = this.end;
     try {
-      for (let off = 0; off < buf.byteLength; ) off += writeSync(this.fd, buf, off, buf.byteLength - off, at + off);
+      writeAllSync(this.fd, buf, at);
     } catch (err) {
       throw ioError(err, this.path, 'writing a work file');
     }

@@ -16,7 +16,8 @@
  * to a file in the spill folder (`ParkFile`), read back when the member is complete: where the
  * bytes wait never changes the member, so never the output.
  */
-import { closeSync, openSync, readSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, openSync, readSync, rmSync } from 'node:fs';
+import { writeAllSync } from './write-all.js';
 import { join } from 'node:path';
 import { gzip } from 'node:zlib';
 import { systemError } from '../errors.js';
@@ -96,7 +97,7 @@ export class ParkFile {
   append(data: Uint8Array): Parked {
     try {
       if (this.#fd < 0) this.#fd = openSync(this.path, 'wx+');
-      for (let done = 0; done < data.byteLength; ) done += writeSync(this.#fd, data, done, data.byteLength - done, this.#size + done);
+      writeAllSync(this.#fd, data, this.#size);
     } catch (err) {
       throw systemError(err, this.path, 'writing unfinished gzip members to the spill folder');
     }

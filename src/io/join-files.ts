@@ -4,9 +4,10 @@
  * calling thread. Finish gives each worker lane whole parts, so parts are copied and hashed side
  * by side (the hash is most of the cost: one core hashes sha256 at about 1.6 GB/s here).
  */
-import { closeSync, openSync, readSync, writeSync } from 'node:fs';
+import { closeSync, openSync, readSync } from 'node:fs';
 import { createHash } from 'node:crypto';
 import { systemError } from '../errors.js';
+import { writeAllSync } from './write-all.js';
 
 export interface JoinTask {
   /** The part's path; created, and refused if it exists. */
@@ -22,18 +23,14 @@ export interface Joined {
   sha256: string;
 }
 
-// Writes of 2 MiB or more let the kernel (6.x, ext4) back the page cache with 2 MiB folios,
-// which on this VM cost ~2.3 s of system time per GB written against ~0.2 s for 1 MiB writes
-// (bench/micro/write-chunks.mjs); 1 MiB costs nothing measurable elsewhere.
+/** Read a MiB at a time; written in smaller pieces (write-all.ts). */
 export const JOIN_BUFFER = 1 << 20;
 
 function writeAll(fd: number, buf: Uint8Array, length: number, path: string): void {
-  for (let at = 0; at < length; ) {
-    try {
-      at += writeSync(fd, buf, at, length - at);
-    } catch (err) {
-      throw systemError(err, path, 'writing a part');
-    }
+  try {
+    writeAllSync(fd, buf.subarray(0, length));
+  } catch (err) {
+    throw systemError(err, path, 'writing a part');
   }
 }
 

@@ -11,7 +11,8 @@
  * very same code (gathering, gzip, hashing) without writing anything.
  */
 import { createHash, type Hash } from 'node:crypto';
-import { closeSync, openSync, writeSync } from 'node:fs';
+import { closeSync, openSync } from 'node:fs';
+import { writeAllSync } from './write-all.js';
 import { RowdeckError, systemError } from '../errors.js';
 import { GzipMembers, type MemberCompressor } from './gzip-members.js';
 
@@ -137,9 +138,8 @@ export class PartWriter {
   #writeRaw(buf: Uint8Array): void {
     if (this.path !== null) {
       const fd = this.#fileFor();
-      let off = 0;
       try {
-        while (off < buf.byteLength) off += writeSync(fd, buf, off, buf.byteLength - off);
+        writeAllSync(fd, buf);
       } catch (err) {
         this.#fail(err, 'writing an output file');
         throw this.#failure!;
