@@ -293,9 +293,14 @@ describe('invariant 2: nothing lost, nothing invented', () => {
     const spillFiles = (): string[] => readdirSync(tmp).flatMap((d) => readdirSync(join(tmp, d)).filter((x) => x.endsWith('.spill')));
     // Files present at each gather event, by range (scatter-TTTT-RR.spill).
     const seen: { done: number; total: number; ranges: Set<number> }[] = [];
-    // One level of buckets of the size stage 2 aims at (at 1 MiB the budget's own rule would
-    // take fewer, larger buckets and split them: the multi-pass layout).
-    const restore = setFlag('ROWDECK_LAYOUT', 'spill');
+    // One level of buckets (at 1 MiB the budget's own rule would take fewer, larger buckets and
+    // split them: the multi-pass layout), 64 of them whatever the threads in flight allow.
+    const restoreLayout = setFlag('ROWDECK_LAYOUT', 'spill');
+    const restoreBits = setFlag('ROWDECK_BUCKET_BITS', '6');
+    const restore = (): void => {
+      restoreBits();
+      restoreLayout();
+    };
     let m: Manifest;
     try {
       m = await shuffle({
