@@ -1,7 +1,7 @@
 /**
  * The bundled command line (dist/cli/rowdeck.cjs), compiled with V8's code cache of it
  * (rowdeck.cjs.cache, written by scripts/bundle.mjs). Node 20 keeps no compile cache of its own,
- * and compiling the ~0.8 MB bundle took ~25 ms of every command's start here; a plan runs many
+ * and compiling the ~0.7 MB bundle took ~25 ms of every command's start here; a plan runs many
  * short processes one after another. A cache made by another Node or V8 is refused by V8 and the
  * bundle compiles as it would without one.
  */
