@@ -8,7 +8,7 @@ import { afterAll, describe, expect, it } from 'vitest';
 // @ts-expect-error: a plain ES module without types
 import { concatCopies } from '../bench/lib/data.mjs';
 // @ts-expect-error: a plain ES module without types
-import { detectTools, freshWriteCost, measure, parseGnuTime, parseProcIo } from '../bench/lib/measure.mjs';
+import { commandEnv, detectTools, freshWriteCost, measure, parseGnuTime, parseProcIo } from '../bench/lib/measure.mjs';
 // @ts-expect-error: a plain ES module without types
 import { median, schedule, summarize } from '../bench/lib/plan.mjs';
 // @ts-expect-error: a plain ES module without types
@@ -115,6 +115,27 @@ describe('the machine line', () => {
     const m = { cpu: 'X', cores: 2, memoryGiB: 24, kernel: 'k', node: 'v20', builds: [{ label: 'A', commit: 'abc' }], commit: 'abc', date: '2026-12-05T00:00:00Z', loadAverage: [0.1, 0.2, 0.3] };
     expect(machineLine({ ...m, freshWrite: [0.25, 1.9] })).toMatch(/writing new pages \(a file in 1 MiB writes\): 0\.25 s\/GiB at the start, 1\.9 s\/GiB at the end$/);
     expect(machineLine(m)).not.toMatch(/new pages/);
+    expect(machineLine({ ...m, leftOutEnv: ['NODE_EXTRA_CA_CERTS'] })).toMatch(/; commands run without NODE_EXTRA_CA_CERTS$/);
+    expect(machineLine({ ...m, leftOutEnv: [] })).not.toMatch(/run without/);
+  });
+});
+
+describe('the environment of measured commands', () => {
+  it('leaves out NODE_EXTRA_CA_CERTS (read at every Node start) and keeps the rest', () => {
+    const env = commandEnv({ NODE_EXTRA_CA_CERTS: '/etc/ssl/certs/x.crt', PATH: '/bin', LANG: 'C' });
+    expect(env).toEqual({ PATH: '/bin', LANG: 'C' });
+  });
+
+  it('runs a command without it even when this process has it', () => {
+    const before = process.env.NODE_EXTRA_CA_CERTS;
+    process.env.NODE_EXTRA_CA_CERTS = '/nonexistent/ca.crt';
+    try {
+      const s = measure(['sh', '-c', 'test -z "${NODE_EXTRA_CA_CERTS+set}" && test -n "$PATH"'], { tools: detectTools(), scratch: dir, sync: false });
+      expect(s.ok).toBe(true);
+    } finally {
+      if (before === undefined) delete process.env.NODE_EXTRA_CA_CERTS;
+      else process.env.NODE_EXTRA_CA_CERTS = before;
+    }
   });
 });
 

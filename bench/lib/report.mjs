@@ -7,7 +7,7 @@ const sizeText = (bytes) => (bytes === null || bytes === undefined ? 'n/a' : byt
 
 export function machineLine(m) {
   const builds = m.builds.length > 1 ? `; builds: ${m.builds.map((b) => `${b.label} ${b.commit}`).join(', ')}` : `; commit ${m.commit}`;
-  return `${m.cpu}, ${m.cores} cores, ${m.memoryGiB} GiB; Linux ${m.kernel}; Node ${m.node}${builds}; ${m.date.slice(0, 10)}; load average at the start ${m.loadAverage.join(' / ')}${m.loadAverageEnd ? `, at the end ${m.loadAverageEnd.join(' / ')}` : ''}${m.freshWrite?.length ? `; writing new pages (a file in 1 MiB writes): ${m.freshWrite.map((x) => `${x} s/GiB`).join(' at the start, ')}${m.freshWrite.length > 1 ? ' at the end' : ''}` : ''}`;
+  return `${m.cpu}, ${m.cores} cores, ${m.memoryGiB} GiB; Linux ${m.kernel}; Node ${m.node}${builds}; ${m.date.slice(0, 10)}; load average at the start ${m.loadAverage.join(' / ')}${m.loadAverageEnd ? `, at the end ${m.loadAverageEnd.join(' / ')}` : ''}${m.freshWrite?.length ? `; writing new pages (a file in 1 MiB writes): ${m.freshWrite.map((x) => `${x} s/GiB`).join(' at the start, ')}${m.freshWrite.length > 1 ? ' at the end' : ''}` : ''}${m.leftOutEnv?.length ? `; commands run without ${m.leftOutEnv.join(', ')}` : ''}`;
 }
 
 /** A sentence when other work shared the machine (load average above its core count), else ''. */
