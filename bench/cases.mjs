@@ -4,7 +4,7 @@
 //
 // A case is { name, groups, input, rowdeck | cmd, budget?, needs?, requires? }:
 // - input: a key of inputs() (the file is made on first use);
-// - rowdeck: (io) => the arguments after `node dist/cli/main.js`. Such cases run with every build
+// - rowdeck: (io) => the arguments after `node dist/cli/main.cjs`. Such cases run with every build
 //   (`--compare`); the harness reads their manifest (io.out/manifest.json) for the bucket count;
 // - cmd: (io) => a full argv, for tools other than rowdeck;
 //   io is { input, out }: out is a scratch path, removed after each run;
@@ -90,7 +90,7 @@ export function cases({ inputBytes, root }) {
       name: 'rowdeck-cluster-4x4',
       groups: ['cluster'],
       input: 'big',
-      cmd: (io) => [process.execPath, `${root}/bench/cluster-local.mjs`, io.input, io.out, '--tasks', '4', '--gather-tasks', '4', '--at-once', '2', '--threads', '0', '--cli', `${root}/dist/cli/main.js`, ...strat.filter((a) => a !== '--force')],
+      cmd: (io) => [process.execPath, `${root}/bench/cluster-local.mjs`, io.input, io.out, '--tasks', '4', '--gather-tasks', '4', '--at-once', '2', '--threads', '0', '--cli', `${root}/dist/cli/main.cjs`, ...strat.filter((a) => a !== '--force')],
       // The spill (1.3x), the gather tasks' slices (1x) and the parts (1x) are on disk at once.
       needs: { disk: (b) => 3.5 * b + GiB / 4 },
     },

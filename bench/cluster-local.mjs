@@ -1,7 +1,7 @@
 #!/usr/bin/env node
 // A plan run as local processes, two at a time: the cluster path's cost against `shuffle` on one
 // machine (bench case rowdeck-cluster-4x4). Prints the bytes each stage wrote to the work folder.
-//   node bench/cluster-local.mjs INPUT OUT [--tasks 4] [--gather-tasks 4] [--at-once 2] [--threads 1] [--cli dist/cli/main.js] [shuffle options...]
+//   node bench/cluster-local.mjs INPUT OUT [--tasks 4] [--gather-tasks 4] [--at-once 2] [--threads 1] [--cli dist/cli/main.cjs] [shuffle options...]
 import { spawn } from 'node:child_process';
 import { readdirSync, statSync } from 'node:fs';
 import { dirname, join, resolve } from 'node:path';
@@ -20,7 +20,7 @@ const tasks = Number(take('tasks', 4));
 const gatherTasks = Number(take('gather-tasks', 4));
 const atOnce = Number(take('at-once', 2));
 const threads = take('threads', '1');
-const cli = resolve(take('cli', join(root, 'dist', 'cli', 'main.js')));
+const cli = resolve(take('cli', join(root, 'dist', 'cli', 'main.cjs')));
 const [input, out, ...rest] = args;
 const work = `${out}.work`;
 

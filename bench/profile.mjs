@@ -15,7 +15,7 @@ import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 
 const here = dirname(fileURLToPath(import.meta.url));
-const cli = join(here, '..', 'dist', 'cli', 'main.js');
+const cli = join(here, '..', 'dist', 'cli', 'main.cjs');
 const args = process.argv.slice(2);
 const dash = args.indexOf('--');
 const extra = dash >= 0 ? args.splice(dash).slice(1) : [];

@@ -21,8 +21,8 @@ const HELP = `npm run bench -- [options]
   --only x,y       only these cases (names, * matches any text; within --group if given too)
   --runs N         timed rounds after the warm-up (default 3)
   --quick          100 MB and 20 MB files instead of 1 GB and 200 MB, to try the harness
-  --compare DIR    also time every rowdeck case with the build in DIR (DIR/dist/cli/main.js, or
-                   a main.js itself), side by side in the same rounds, and print this build's time
+  --compare DIR    also time every rowdeck case with the build in DIR (DIR/dist/cli/main.cjs or,
+                   in older builds, main.js; or that file itself), side by side in the same rounds, and print this build's time
                    over that one's for each case (--cli-b PATH: the same)
   --scratch DIR    where outputs and spill go (default bench/data/tmp); removed after the run
   --list           print the groups and cases, and stop
@@ -83,13 +83,16 @@ const selected = all.filter((c) => (groups.includes('all') || c.groups.some((g) 
 if (selected.length === 0) usage('no case matches --group and --only');
 
 // The builds: this checkout's, and with --compare another one.
-const builds = [{ label: 'A', dir: root, cli: join(root, 'dist', 'cli', 'main.js') }];
+// A build's command line: its bin (dist/cli/main.cjs), or dist/cli/main.js in builds older than it.
+const cliOf = (dir) => [join(dir, 'dist', 'cli', 'main.cjs'), join(dir, 'dist', 'cli', 'main.js')].find((f) => existsSync(f)) ?? null;
+const builds = [{ label: 'A', dir: root, cli: join(root, 'dist', 'cli', 'main.cjs') }];
 const other = value('compare', null) ?? value('cli-b', null);
 if (other) {
   const p = resolve(other);
-  const cli = existsSync(join(p, 'dist', 'cli', 'main.js')) ? join(p, 'dist', 'cli', 'main.js') : p;
-  if (!existsSync(cli) || statSync(cli).isDirectory()) usage(`--compare ${other}: neither ${join(p, 'dist', 'cli', 'main.js')} nor a main.js; build it first (npm run build there)`);
-  builds.push({ label: 'B', dir: cli.endsWith(join('dist', 'cli', 'main.js')) ? resolve(cli, '..', '..', '..') : dirname(cli), cli });
+  const inTree = cliOf(p);
+  const cli = inTree ?? p;
+  if (!existsSync(cli) || statSync(cli).isDirectory()) usage(`--compare ${other}: neither ${join(p, 'dist', 'cli', 'main.cjs')} nor a command line's file; build it first (npm run build there)`);
+  builds.push({ label: 'B', dir: inTree ? p : dirname(cli), cli });
 }
 if (!existsSync(builds[0].cli)) spawnSync('npm', ['run', 'build'], { cwd: root, stdio: 'inherit' });
 

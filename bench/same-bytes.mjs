@@ -6,8 +6,8 @@
 // earlier record (`--against`), it lists every difference and exits 1 when there is one.
 //
 //   node bench/same-bytes.mjs --other ../old-checkout        (both builds, one after the other, then the differences)
-//   node bench/same-bytes.mjs --cli /tmp/old/dist/cli/main.js --work /tmp/sb-old --record /tmp/old.json
-//   node bench/same-bytes.mjs --cli dist/cli/main.js --work /tmp/sb-new --record /tmp/new.json --against /tmp/old.json
+//   node bench/same-bytes.mjs --cli /tmp/old/dist/cli/main.cjs --work /tmp/sb-old --record /tmp/old.json
+//   node bench/same-bytes.mjs --cli dist/cli/main.cjs --work /tmp/sb-new --record /tmp/new.json --against /tmp/old.json
 //
 // --data: the CSV the large cases read (default bench/data/readings-200m.csv, see bench/README.md);
 // a JSON Lines input is made from its first --jsonl-records records (default 200,000), with csv-parse.
@@ -26,7 +26,7 @@ const arg = (name, dflt) => {
   const i = process.argv.indexOf(`--${name}`);
   return i > 0 ? process.argv[i + 1] : dflt;
 };
-const cli = resolve(arg('cli', join(repo, 'dist/cli/main.js')));
+const cli = resolve(arg('cli', join(repo, 'dist/cli/main.cjs')));
 const data = resolve(arg('data', join(repo, 'bench/data/readings-200m.csv')));
 const work = resolve(arg('work', '/tmp/rowdeck-same-bytes'));
 const recordPath = arg('record', null);
@@ -41,7 +41,7 @@ const other = arg('other', null);
 if (other) {
   const self = fileURLToPath(import.meta.url);
   const keep = process.argv.slice(2).filter((a, i, all) => a !== '--other' && all[i - 1] !== '--other' && !['--work', '--record', '--against', '--cli'].includes(a) && !['--work', '--record', '--against', '--cli'].includes(all[i - 1]));
-  const a = spawnSync(process.execPath, [self, '--cli', resolve(other, 'dist/cli/main.js'), '--work', `${work}-other`, '--record', `${work}-other.json`, ...keep], { stdio: 'inherit' });
+  const a = spawnSync(process.execPath, [self, '--cli', [resolve(other, 'dist/cli/main.cjs'), resolve(other, 'dist/cli/main.js')].find((f) => existsSync(f)) ?? resolve(other, 'dist/cli/main.cjs'), '--work', `${work}-other`, '--record', `${work}-other.json`, ...keep], { stdio: 'inherit' });
   if (a.status !== 0) process.exit(a.status ?? 1);
   const b = spawnSync(process.execPath, [self, '--cli', cli, '--work', `${work}-this`, '--record', `${work}-this.json`, '--against', `${work}-other.json`, ...keep], { stdio: 'inherit' });
   process.exit(b.status ?? 1);

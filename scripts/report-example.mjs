@@ -10,7 +10,7 @@ import { fileURLToPath, pathToFileURL } from 'node:url';
 import { flags } from '../dist/flags.js';
 
 const root = fileURLToPath(new URL('..', import.meta.url));
-const cli = join(root, 'dist', 'cli', 'main.js');
+const cli = join(root, 'dist', 'cli', 'main.cjs');
 const work = mkdtempSync(join(tmpdir(), 'rowdeck-example-'));
 const out = join(work, 'by-fault');
 const run = (args) => {

@@ -2,7 +2,7 @@ import { readFileSync } from 'node:fs';
 
 /**
  * The package version, read once from package.json (one source of truth): one folder up from
- * dist/version.js, two from the bundled command line (dist/cli/main.js, scripts/bundle.mjs).
+ * dist/version.js, two from the bundled command line (dist/cli/rowdeck.cjs, scripts/bundle.mjs).
  */
 function readVersion(): string {
   for (const rel of ['../package.json', '../../package.json']) {

@@ -1,5 +1,5 @@
 /**
- * The command line as a user meets it: the built `dist/cli/main.js` run in a child process, with
+ * The command line as a user meets it: the built `dist/cli/main.cjs` run in a child process, with
  * exit codes, stdout and stderr checked. Exit codes 0/1/2 and the stdout/stderr split follow the
  * common Unix practice (data on stdout, diagnostics on stderr, 2 for usage errors); the CSV
  * details follow RFC 4180 section 2 (quoted fields may hold line breaks and doubled quotes).
@@ -13,7 +13,7 @@ import { fileURLToPath } from 'node:url';
 import { parse } from 'csv-parse/sync';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 
-const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
+const CLI = fileURLToPath(new URL('../dist/cli/main.cjs', import.meta.url));
 const PKG = JSON.parse(readFileSync(fileURLToPath(new URL('../package.json', import.meta.url)), 'utf8')) as { version: string };
 
 let dir: string;

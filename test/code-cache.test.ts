@@ -1,10 +1,11 @@
 /**
- * The command line as built: dist/cli/main.js runs the bundle (dist/cli/rowdeck.cjs) from V8's code
- * cache of it, made by scripts/bundle.mjs. The cache must be the one V8 takes for the text the
+ * The command line as built: dist/cli/main.cjs (the bin; dist/cli/main.js is the same entry as an
+ * ES module) runs the bundle (dist/cli/rowdeck.cjs) from V8's code cache of it, made by
+ * scripts/bundle.mjs. The cache must be the one V8 takes for the text the
  * entry compiles (a cache of other text is refused, silently, and every start pays the compile),
  * and a missing or foreign cache must still run. `npm test` builds dist first.
  */
-import { spawnSync } from 'node:child_process';
+import { spawnSync, type SpawnSyncReturns } from 'node:child_process';
 import { copyFileSync, mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
@@ -31,7 +32,7 @@ function copyOfCli(): string {
   dirs.push(d);
   mkdirSync(join(d, 'dist', 'cli'), { recursive: true });
   copyFileSync(join(root, 'package.json'), join(d, 'package.json'));
-  for (const f of ['main.js', 'code-cache.js', 'rowdeck.cjs', 'rowdeck.cjs.cache']) copyFileSync(join(cli, f), join(d, 'dist', 'cli', f));
+  for (const f of ['main.cjs', 'main.js', 'code-cache.js', 'rowdeck.cjs', 'rowdeck.cjs.cache']) copyFileSync(join(cli, f), join(d, 'dist', 'cli', f));
   return join(d, 'dist', 'cli');
 }
 
@@ -48,7 +49,7 @@ describe('the code cache of the command line', () => {
     expect(text.startsWith('///usr/bin/env node')).toBe(true);
     writeFileSync(join(copy, 'rowdeck.cjs'), text.replace('///usr/bin/env node', '///usr/bin/env nodE'), 'latin1');
     expect(cacheState(join(copy, 'rowdeck.cjs'))).toBe('refused');
-    const r = spawnSync(process.execPath, [join(copy, 'main.js'), '--version'], { encoding: 'utf8' });
+    const r = spawnSync(process.execPath, [join(copy, 'main.cjs'), '--version'], { encoding: 'utf8' });
     expect(r.status).toBe(0);
     expect(r.stdout).toBe(`rowdeck ${version}\n`);
   });
@@ -57,27 +58,40 @@ describe('the code cache of the command line', () => {
     const copy = copyOfCli();
     rmSync(join(copy, 'rowdeck.cjs.cache'));
     expect(cacheState(join(copy, 'rowdeck.cjs'))).toBe('none');
-    let r = spawnSync(process.execPath, [join(copy, 'main.js'), '--version'], { encoding: 'utf8' });
+    let r = spawnSync(process.execPath, [join(copy, 'main.cjs'), '--version'], { encoding: 'utf8' });
     expect(r.stdout).toBe(`rowdeck ${version}\n`);
     writeFileSync(join(copy, 'rowdeck.cjs.cache'), 'not a cache');
     expect(cacheState(join(copy, 'rowdeck.cjs'))).toBe('refused');
-    r = spawnSync(process.execPath, [join(copy, 'main.js'), '--version'], { encoding: 'utf8' });
+    r = spawnSync(process.execPath, [join(copy, 'main.cjs'), '--version'], { encoding: 'utf8' });
     expect(r.status).toBe(0);
     expect(r.stdout).toBe(`rowdeck ${version}\n`);
   });
 
   it('runs the bundle with the command line\'s exit codes and streams (a usage error: 2, on stderr)', () => {
-    const r = spawnSync(process.execPath, [join(cli, 'main.js'), 'shuffle'], { encoding: 'utf8' });
+    const r = spawnSync(process.execPath, [join(cli, 'main.cjs'), 'shuffle'], { encoding: 'utf8' });
     expect(r.status).toBe(2);
     expect(r.stdout).toBe('');
     expect(r.stderr).toMatch(/^rowdeck: error RDK_/);
+  });
+
+  it('runs from either entry: main.cjs (the bin, CommonJS) and main.js (an ES module), the same output', () => {
+    const bin = (JSON.parse(readFileSync(join(root, 'package.json'), 'utf8')) as { bin: Record<string, string> }).bin.rowdeck;
+    expect(bin).toBe('dist/cli/main.cjs');
+    // CommonJS: the file has no import statement and requires what it uses.
+    const text = readFileSync(join(cli, 'main.cjs'), 'utf8');
+    expect(text).not.toMatch(/^\s*import\s/m);
+    expect(text).toMatch(/require\("node:vm"\)/);
+    const [cjs, esm] = ['main.cjs', 'main.js'].map((f) => spawnSync(process.execPath, [join(cli, f), 'shuffle', '--help'], { encoding: 'utf8' })) as [SpawnSyncReturns<string>, SpawnSyncReturns<string>];
+    expect([cjs.status, esm.status]).toEqual([0, 0]);
+    expect(cjs.stdout).toMatch(/--stratify/);
+    expect(esm.stdout).toBe(cjs.stdout);
   });
 
   it('is of a bundle that is ASCII only (read as a one-byte string, not decoded from UTF-8)', () => {
     const bytes = readFileSync(join(cli, 'rowdeck.cjs'));
     expect(bytes.every((b) => b < 0x80)).toBe(true);
     // The help's non-ASCII characters survive the escaping.
-    const r = spawnSync(process.execPath, [join(cli, 'main.js'), '--help'], { encoding: 'utf8' });
+    const r = spawnSync(process.execPath, [join(cli, 'main.cjs'), '--help'], { encoding: 'utf8' });
     expect(r.stdout).toMatch(/[^\x00-\x7f]/);
   });
 });

@@ -18,7 +18,7 @@ import { setFlag } from '../src/flags.js';
 import { makeSensorCsv, makeTempDir, parseCsv, removeDir } from './helpers/engine.js';
 import { stringify } from 'csv-stringify/sync';
 
-const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
+const CLI = fileURLToPath(new URL('../dist/cli/main.cjs', import.meta.url));
 let dir: string;
 let sensors: string;
 let big: string;

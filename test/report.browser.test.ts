@@ -26,7 +26,7 @@ import { colourCensus, decodePng } from './helpers/png.js';
 import { find, parseDom, textOf, elements, type DomElement } from './helpers/dom.js';
 import { checkMarks, manifestClassName, manifestValue, profileValue, type PageData } from './helpers/report-keys.js';
 
-const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
+const CLI = fileURLToPath(new URL('../dist/cli/main.cjs', import.meta.url));
 const EXAMPLE = fileURLToPath(new URL('../examples/sensor-readings.csv', import.meta.url));
 const chromium = findChromium();
 // CI (.ci/run) installs chromium: there, a missing browser is a failure, not a skip.

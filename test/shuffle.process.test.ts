@@ -8,7 +8,7 @@ import { join, resolve } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { makeSensorCsv, makeTempDir, removeDir } from './helpers/engine.js';
 
-const CLI = resolve('dist/cli/main.js');
+const CLI = resolve('dist/cli/main.cjs');
 const INDEX = resolve('dist/index.js');
 let dir: string;
 let big: string;

@@ -17,7 +17,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { profile, shuffle } from '../src/index.js';
 import { chooseFormat, sniffContent } from '../src/io/sniff.js';
 
-const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
+const CLI = fileURLToPath(new URL('../dist/cli/main.cjs', import.meta.url));
 let dir = '';
 
 const CSV = 'reading_id,site,fault\n1,north,none\n2,south,drift\n3,north,spike\n4,east,none\n';

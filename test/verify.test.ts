@@ -17,7 +17,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { shuffle, verify, type Manifest, type ShuffleOptions, type VerifyReport } from '../src/index.js';
 import { makeSensorCsv, makeTempDir, parseCsv, readPart, removeDir } from './helpers/engine.js';
 
-const CLI = fileURLToPath(new URL('../dist/cli/main.js', import.meta.url));
+const CLI = fileURLToPath(new URL('../dist/cli/main.cjs', import.meta.url));
 
 let dir: string;
 let input: string;

@@ -143,7 +143,7 @@ export function machineInfo(root, builds) {
     loadAverage: loadavg().map((x) => Math.round(x * 100) / 100),
     gnuTime: timeVersion.status === 0 ? timeVersion.stdout.split('\n')[0] || timeVersion.stderr.split('\n')[0] : null,
     date: new Date().toISOString(),
-    leftOutEnv: LEFT_OUT_ENV.filter((name) => process.env[name] !== undefined),
+    leftOutEnv: LEFT_OUT_ENV.filter((name) => name in process.env),
   };
 }
 

@@ -2,7 +2,7 @@
 // Peak disk use of one shuffle: the file system's used bytes, sampled every --every ms while the
 // run goes, less what was used when it started. Spill files and parts share the disk (unless
 // --temp-dir puts the spill elsewhere), so this is what a run needs free.
-//   node bench/micro/disk-peak.mjs [--file bench/data/readings-1g.csv] [--every 20] [--cli dist/cli/main.js] [-- more shuffle options]
+//   node bench/micro/disk-peak.mjs [--file bench/data/readings-1g.csv] [--every 20] [--cli dist/cli/main.cjs] [-- more shuffle options]
 // Other writers on the same file system show up in the figure: run it on a quiet machine.
 import { spawn } from 'node:child_process';
 import { rmSync, statfsSync } from 'node:fs';
@@ -12,7 +12,7 @@ import { arg } from './options.mjs';
 
 const file = arg('file', 'bench/data/readings-1g.csv');
 const every = Number(arg('every', 20));
-const cli = arg('cli', 'dist/cli/main.js');
+const cli = arg('cli', 'dist/cli/main.cjs');
 const dash = process.argv.indexOf('--');
 const extra = dash > 0 ? process.argv.slice(dash + 1) : ['--stratify', 'fault'];
 const out = join(tmpdir(), `rowdeck-disk-peak-${process.pid}`);

@@ -4,7 +4,7 @@
 // 50 ms), and the command's own counts (GNU time: CPU times, faults; /proc/PID/io: read and write
 // calls and bytes). For telling where system time goes; see "Where system time goes at 4 GB" in
 // docs/benchmarks.md.
-//   node bench/micro/kernel-counts.mjs [--no-sync] -- node dist/cli/main.js shuffle FILE --out DIR …
+//   node bench/micro/kernel-counts.mjs [--no-sync] -- node dist/cli/main.cjs shuffle FILE --out DIR …
 import { spawn, spawnSync } from 'node:child_process';
 import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';

@@ -78,7 +78,7 @@ export function reportError(thrown: unknown, io: CliIO): number {
 
 // Run when executed directly (not when imported by tests).
 const invokedAs = process.argv[1] ?? '';
-if (/(?:^|[\\/])(?:main\.js|rowdeck)$/.test(invokedAs)) {
+if (/(?:^|[\\/])(?:main\.c?js|rowdeck)$/.test(invokedAs)) {
   // A closed stdout (e.g. piped into `head`) is a normal way to stop, not a crash.
   process.stdout.on('error', (e: NodeJS.ErrnoException) => {
     if (e.code === 'EPIPE') process.exit(0);

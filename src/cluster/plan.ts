@@ -135,12 +135,12 @@ export function cutBuckets(buckets: number, tasks: number): { first: number; end
   return Array.from({ length: m }, (_, i) => ({ first: Math.floor((i * buckets) / m), end: Math.floor(((i + 1) * buckets) / m) }));
 }
 
-/** The command-line entry of this rowdeck (dist/cli/main.js). */
+/** The command-line entry of this rowdeck: its bin, dist/cli/main.cjs. */
 function cliPath(): string {
   const here = dirname(fileURLToPath(import.meta.url));
-  const beside = join(here, '..', 'cli', 'main.js');
+  const beside = join(here, '..', 'cli', 'main.cjs');
   if (existsSync(beside)) return beside;
-  return join(here, '..', '..', 'dist', 'cli', 'main.js');
+  return join(here, '..', '..', 'dist', 'cli', 'main.cjs');
 }
 
 function plannedOptions(o: ShuffleOptions): PlannedOptions {

@@ -5,7 +5,7 @@ import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import type { ClusterPlan } from '../../src/cluster/plan.js';
 
-export const CLI = fileURLToPath(new URL('../../dist/cli/main.js', import.meta.url));
+export const CLI = fileURLToPath(new URL('../../dist/cli/main.cjs', import.meta.url));
 
 export interface Ran {
   status: number | null;

@@ -8,7 +8,7 @@ import { createHash } from 'node:crypto';
 import { chmodSync, existsSync, lstatSync, mkdirSync, readdirSync, readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 
-export const CLI = resolve('dist/cli/main.js');
+export const CLI = resolve('dist/cli/main.cjs');
 
 export interface Run {
   status: number | null;
@@ -26,7 +26,7 @@ export interface RunOptions {
   timeoutMs?: number;
 }
 
-/** Runs `node dist/cli/main.js ...args` and collects its output (never throws for a non-zero exit). */
+/** Runs `node dist/cli/main.cjs ...args` and collects its output (never throws for a non-zero exit). */
 export function runRowdeck(args: string[], o: RunOptions): Promise<Run> {
   return runProcess(process.execPath, [CLI, ...args], o);
 }
