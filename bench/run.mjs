@@ -22,8 +22,9 @@ const HELP = `npm run bench -- [options]
   --runs N         timed rounds after the warm-up (default 3)
   --quick          100 MB and 20 MB files instead of 1 GB and 200 MB, to try the harness
   --compare DIR    also time every rowdeck case with the build in DIR (DIR/dist/cli/main.cjs or,
-                   in older builds, main.js; or that file itself), side by side in the same rounds, and print this build's time
-                   over that one's for each case (--cli-b PATH: the same)
+                   in older builds, main.js; or that file itself), side by side in the same
+                   rounds, and print this build's time over that one's for each case (--cli-b
+                   PATH: the same)
   --scratch DIR    where outputs and spill go (default bench/data/tmp); removed after the run
   --list           print the groups and cases, and stop
 

@@ -139,7 +139,8 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   // records stay. (A finish refused for an output in the way leaves the work whole.)
   const removeSpill = (): Promise<unknown>[] => [...plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json')), rm(join(plan.work, 'reread'), { recursive: true, force: true })].map(errorOf);
   // Started once the join threads have loaded their modules: the removal fills libuv's thread
-  // pool, through which the threads load them (they waited ~0.4 s behind it).
+  // pool, through which the threads load them (behind unlinks that waited for the disk, finish
+  // took ~0.2 s longer).
   const removal = (): Promise<unknown> => Promise.all(removeSpill()).then((errs) => errs.find((e) => e !== null) ?? null);
   let spillRemoved: Promise<unknown> | null = f.keepWork ? null : joinLanes ? joinLanes.ready.then(removal, removal) : removal();
   try {

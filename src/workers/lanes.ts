@@ -64,7 +64,7 @@ export class WorkerLanes<T, F> implements Lanes<T, F> {
   /**
    * Settled once every lane has loaded its modules (fails if a lane stops first). A thread loads
    * its modules through libuv's thread pool, so work that fills the pool (removing large files,
-   * say) is better started after this: the threads waited ~0.4 s for their modules behind it.
+   * say) is better started after this (finish's threads waited behind such unlinks).
    */
   readonly ready: Promise<void>;
 
