@@ -4,14 +4,14 @@
  * inputs read in order with their headers checked against the first.
  */
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, truncateSync, writeFileSync } from 'node:fs';
 import { execFileSync, spawn } from 'node:child_process';
 import { open, type FileHandle } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
-import { chunksInTurn, detectFormat, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES } from '../src/io/input.js';
+import { chunksInTurn, detectFormat, INLINE_MAX_BYTES, inlineMaxBytes, openInput, readRecords, ReadAhead, READ_AHEAD_MAX_BYTES, smallInputs } from '../src/io/input.js';
 import { RecordReader, type RecordReaderOptions } from '../src/io/reader.js';
 import { fieldText } from '../src/core/record-batch.js';
 import type { RecordBatch } from '../src/io/batch.js';
@@ -44,6 +44,33 @@ async function readValues(paths: string[]): Promise<{ input: number; value: stri
   }
   return out;
 }
+
+describe('which inputs are done on the calling thread by default', () => {
+  it('is under 192 MiB on two cores or fewer, 32 MiB on more (the measured crossovers are in input.ts)', () => {
+    expect([1, 2].map((c) => inlineMaxBytes(c))).toEqual([192 << 20, 192 << 20]);
+    expect([3, 4, 64].map((c) => inlineMaxBytes(c))).toEqual([INLINE_MAX_BYTES, INLINE_MAX_BYTES, INLINE_MAX_BYTES]);
+    expect(INLINE_MAX_BYTES).toBe(32 << 20);
+  });
+
+  it('counts all inputs together, by their size on disk (sparse files of 60 and 100 MiB)', () => {
+    const d = mkdtempSync(join(tmpdir(), 'rowdeck-inline-'));
+    try {
+      const a = join(d, 'a.csv');
+      const b = join(d, 'b.csv');
+      writeFileSync(a, '');
+      writeFileSync(b, '');
+      truncateSync(a, 60 << 20);
+      truncateSync(b, 100 << 20);
+      expect(smallInputs([a], 2)).toBe(true);
+      expect(smallInputs([a, b], 2)).toBe(true); // 160 MiB
+      expect(smallInputs([a, b, b], 2)).toBe(false); // 260 MiB
+      expect(smallInputs([a], 8)).toBe(false);
+      expect(smallInputs([join(d, 'missing.csv')], 2)).toBe(false);
+    } finally {
+      rmSync(d, { recursive: true, force: true });
+    }
+  });
+});
 
 describe('detectFormat', () => {
   it('from the name, .gz allowed, explicit wins, unknown is a usage error', () => {

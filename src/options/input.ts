@@ -91,9 +91,10 @@ export const threadsOption: OptionDef<number> = {
   cli: { flag: 'threads', arg: 'N' },
   section: 'Output and resources',
   help: [
-    'worker threads (default: number of cores; inputs under 32 MiB are',
-    'shuffled on the calling thread, faster than starting threads); 0 keeps',
-    'all the work on the calling thread. The output is the same either way',
+    'worker threads (default: number of cores; inputs under 32 MiB, or 192 MiB',
+    'on two cores, are shuffled on the calling thread, faster than starting',
+    'threads); 0 keeps all the work on the calling thread. The output is the',
+    'same either way',
   ],
   ...integerValue(0, MAX_THREADS),
 };
@@ -116,7 +117,7 @@ export const tempDirOption: OptionDef<string> = {
   ...textValue('a folder path'),
 };
 
-/** The default thread count of a command that reads `inputs`: none for small inputs (see INLINE_MAX_BYTES), else one per core. */
+/** The default thread count of a command that reads `inputs`: none for small inputs (see inlineMaxBytes), else one per core. */
 export function defaultThreads(inputs: string[]): number {
   return smallInputs(inputs) ? 0 : Math.max(1, availableParallelism());
 }

@@ -110,8 +110,9 @@ export interface ShuffleOptions {
    */
   memory?: number | string;
   /**
-   * Worker threads. Default: the number of cores, or none for inputs under 32 MiB (starting
-   * threads costs more than it saves there). 0 does all the work on the calling thread.
+   * Worker threads. Default: the number of cores, or none for inputs under 32 MiB, 192 MiB on
+   * two cores or fewer (starting threads costs more than it saves there). 0 does all the work
+   * on the calling thread.
    */
   threads?: number;
   /** Folder for spill files. Default: beside the output folder. */
@@ -493,7 +494,7 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
     order,
     memory: o.memory === undefined ? defaultMemory() : (o.memory as number),
     memoryIsDefault: o.memory === undefined,
-    // Small inputs are shuffled on the calling thread unless threads are asked for (INLINE_MAX_BYTES).
+    // Small inputs are shuffled on the calling thread unless threads are asked for (inlineMaxBytes).
     threads: o.threads ?? defaultThreads(o.inputs),
     tempDir: o.tempDir ?? null,
     format: o.format ?? null,
