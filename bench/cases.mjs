@@ -18,6 +18,8 @@
 // twice (wall: true), from the medians and from the minimums (`of(f, 'min')`); goals are judged
 // on the medians.
 
+import { availableParallelism } from 'node:os';
+
 export const MiB = 2 ** 20;
 export const GiB = 2 ** 30;
 
@@ -96,9 +98,12 @@ export function cases({ inputBytes, root }) {
     },
     { name: 'rowdeck-strat-stats', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io, '--stats'), needs: { disk: shuffleDisk } },
     { name: 'rowdeck-folds', groups: ['core', 'shuffle'], input: 'big', budget: 'default', rowdeck: (io) => shuffle(io, '--folds', '5'), needs: { disk: shuffleDisk } },
-    { name: 'rowdeck-strat-small', groups: ['core', 'shuffle'], input: 'small', budget: 'default', rowdeck: (io) => shuffle(io), needs: { disk: shuffleDisk } },
+    // The 200 MB cases are set to the 1 GB runs' threads (one per core): they measure how time
+    // and memory grow with the input, and on two cores a 200 MB input is by default shuffled on
+    // the calling thread (src/io/input.ts, inlineMaxBytes).
+    { name: 'rowdeck-strat-small', groups: ['core', 'shuffle'], input: 'small', budget: 'default', rowdeck: (io) => shuffle(io, '--threads', String(availableParallelism())), needs: { disk: shuffleDisk } },
     { name: 'rowdeck-mem64', groups: ['core', 'shuffle'], input: 'big', budget: 64 * MiB, rowdeck: (io) => shuffle(io, '--memory', '64MiB'), needs: { disk: shuffleDisk } },
-    { name: 'rowdeck-mem64-small', groups: ['core', 'shuffle'], input: 'small', budget: 64 * MiB, rowdeck: (io) => shuffle(io, '--memory', '64MiB'), needs: { disk: shuffleDisk } },
+    { name: 'rowdeck-mem64-small', groups: ['core', 'shuffle'], input: 'small', budget: 64 * MiB, rowdeck: (io) => shuffle(io, '--memory', '64MiB', '--threads', String(availableParallelism())), needs: { disk: shuffleDisk } },
     // Many parts with statistics: each part's tables are read back from its file rather than kept
     // by every lane, so the peak stays near the 8-part run's.
     {

@@ -46,8 +46,9 @@ async function readValues(paths: string[]): Promise<{ input: number; value: stri
 }
 
 describe('which inputs are done on the calling thread by default', () => {
-  it('is under 192 MiB on two cores or fewer, 32 MiB on more (the measured crossovers are in input.ts)', () => {
+  it('is under 192 MiB on two cores or fewer without statistics, else 32 MiB (the measured crossovers are in input.ts)', () => {
     expect([1, 2].map((c) => inlineMaxBytes(c))).toEqual([192 << 20, 192 << 20]);
+    expect([1, 2].map((c) => inlineMaxBytes(c, true))).toEqual([INLINE_MAX_BYTES, INLINE_MAX_BYTES]);
     expect([3, 4, 64].map((c) => inlineMaxBytes(c))).toEqual([INLINE_MAX_BYTES, INLINE_MAX_BYTES, INLINE_MAX_BYTES]);
     expect(INLINE_MAX_BYTES).toBe(32 << 20);
   });
@@ -61,11 +62,12 @@ describe('which inputs are done on the calling thread by default', () => {
       writeFileSync(b, '');
       truncateSync(a, 60 << 20);
       truncateSync(b, 100 << 20);
-      expect(smallInputs([a], 2)).toBe(true);
-      expect(smallInputs([a, b], 2)).toBe(true); // 160 MiB
-      expect(smallInputs([a, b, b], 2)).toBe(false); // 260 MiB
-      expect(smallInputs([a], 8)).toBe(false);
-      expect(smallInputs([join(d, 'missing.csv')], 2)).toBe(false);
+      expect(smallInputs([a], false, 2)).toBe(true);
+      expect(smallInputs([a, b], false, 2)).toBe(true); // 160 MiB
+      expect(smallInputs([a, b, b], false, 2)).toBe(false); // 260 MiB
+      expect(smallInputs([a], true, 2)).toBe(false);
+      expect(smallInputs([a], false, 8)).toBe(false);
+      expect(smallInputs([join(d, 'missing.csv')], false, 2)).toBe(false);
     } finally {
       rmSync(d, { recursive: true, force: true });
     }

@@ -387,19 +387,25 @@ export class ReadAhead {
 export const INLINE_MAX_BYTES = 32 * 1024 * 1024;
 
 /**
- * The same, on a machine of two cores or fewer: there the workers share the cores with the
- * calling thread, which reads and hands them the records, and two of them gain less than their
- * start and hand-offs cost until ~200-270 MB. Measured on 2 cores (`shuffle --partitions 8
- * --stratify fault`, alternating runs): 100 MB 0.85-0.89 s on the calling thread against
- * 1.14-1.21 s on two workers, 200 MB 1.49-1.51 s against 1.62-1.72 s, 1 GB 6.4-6.9 s against
- * 4.7 s; `profile` 100 MB 0.60-0.64 s against 0.78-0.80 s, 200 MB about even. More cores were
- * not measured here, so they keep INLINE_MAX_BYTES.
+ * The same, on a machine of two cores or fewer, for work that reads records but keeps no column
+ * statistics (a shuffle without --stats): there the workers share the cores with the calling
+ * thread, which reads and hands them the records, and two of them gain less than their start and
+ * hand-offs cost until ~200-270 MB. Measured on 2 cores (`shuffle --partitions 8 --stratify
+ * fault`, alternating runs): 100 MB 0.85-0.89 s on the calling thread against 1.14-1.21 s on two
+ * workers, 200 MB 1.49-1.51 s against 1.62-1.72 s, 1 GB 6.4-6.9 s against 4.7 s; 61 MB of 2,002
+ * columns 0.51-0.52 s against 0.78-0.79 s. Column statistics make a record's work heavier and
+ * the workers pay off sooner (the 61 MB file with --stats: 11.5 s on the calling thread against
+ * 6.3 s; `profile` of it 2.64 s against 2.47 s), so they keep INLINE_MAX_BYTES, as do machines
+ * of more cores, which were not measured here.
  */
 export const INLINE_MAX_BYTES_TWO_CORES = 192 * 1024 * 1024;
 
-/** Below how many bytes of input a command with `cores` cores works on the calling thread by default. */
-export function inlineMaxBytes(cores: number = availableParallelism()): number {
-  return cores <= 2 ? INLINE_MAX_BYTES_TWO_CORES : INLINE_MAX_BYTES;
+/**
+ * Below how many bytes of input a command works on the calling thread by default, with `cores`
+ * cores and (`statistics`) column statistics to keep or not.
+ */
+export function inlineMaxBytes(cores: number = availableParallelism(), statistics = false): number {
+  return cores <= 2 && !statistics ? INLINE_MAX_BYTES_TWO_CORES : INLINE_MAX_BYTES;
 }
 
 /** Size of the uncompressed data of a gzip file, from its trailer (mod 2^32), or a guess. */
@@ -422,9 +428,9 @@ export function estimateInputBytes(path: string): number {
 }
 
 /** Whether the inputs are small enough to do on the calling thread (false when any size is unknown). */
-export function smallInputs(paths: string[], cores: number = availableParallelism()): boolean {
+export function smallInputs(paths: string[], statistics = false, cores: number = availableParallelism()): boolean {
   try {
-    return paths.reduce((a, p) => a + estimateInputBytes(p), 0) < inlineMaxBytes(cores);
+    return paths.reduce((a, p) => a + estimateInputBytes(p), 0) < inlineMaxBytes(cores, statistics);
   } catch {
     return false;
   }

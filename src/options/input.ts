@@ -92,9 +92,9 @@ export const threadsOption: OptionDef<number> = {
   section: 'Output and resources',
   help: [
     'worker threads (default: number of cores; inputs under 32 MiB, or 192 MiB',
-    'on two cores, are shuffled on the calling thread, faster than starting',
-    'threads); 0 keeps all the work on the calling thread. The output is the',
-    'same either way',
+    'on two cores without --stats, are shuffled on the calling thread, faster',
+    'than starting threads); 0 keeps all the work on the calling thread. The',
+    'output is the same either way',
   ],
   ...integerValue(0, MAX_THREADS),
 };
@@ -117,7 +117,10 @@ export const tempDirOption: OptionDef<string> = {
   ...textValue('a folder path'),
 };
 
-/** The default thread count of a command that reads `inputs`: none for small inputs (see inlineMaxBytes), else one per core. */
-export function defaultThreads(inputs: string[]): number {
-  return smallInputs(inputs) ? 0 : Math.max(1, availableParallelism());
+/**
+ * The default thread count of a command that reads `inputs`, keeping column statistics or not:
+ * none for small inputs (see inlineMaxBytes), else one per core.
+ */
+export function defaultThreads(inputs: string[], statistics: boolean): number {
+  return smallInputs(inputs, statistics) ? 0 : Math.max(1, availableParallelism());
 }

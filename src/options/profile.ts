@@ -49,7 +49,7 @@ export interface ProfileOptions {
   excludeValues?: boolean;
   /**
    * Worker threads for the statistics. Default: the number of cores, or none for inputs under
-   * 32 MiB (192 MiB on two cores or fewer); 0 works on the calling thread.
+   * 32 MiB; 0 works on the calling thread.
    */
   threads?: number;
   /** Memory budget of the first pass for quantile bins (`name:bins=Q`), as shuffle's. Default 512 MiB. */
@@ -88,7 +88,7 @@ export const PROFILE_OPTIONS = {
   tolerance: withHelp(SHUFFLE_OPTIONS.tolerance, ['the tolerance those warnings check against (default 0.5, as shuffle)'], P),
   threads: withHelp(threadsOption, [
     'worker threads (default: number of cores, or none for inputs under',
-    '32 MiB, 192 MiB on two cores); 0 keeps the work on the calling thread',
+    '32 MiB); 0 keeps the work on the calling thread',
   ], P),
   memory: withHelp(memoryOption, ['memory budget of the first read for COL:bins=Q (default 512MiB)'], P),
   format: withHelp(formatOption, formatOption.help!, P),
@@ -142,7 +142,7 @@ export function resolveProfileOptions(options: ProfileOptions): ResolvedProfileO
     onBadRecord: o.onBadRecord ?? 'fail',
     excludeValues: o.excludeValues ?? false,
     // Small inputs are profiled on this thread unless threads are asked for (see inlineMaxBytes).
-    threads: o.threads ?? defaultThreads(o.inputs),
+    threads: o.threads ?? defaultThreads(o.inputs, true),
     memory: o.memory === undefined ? DEFAULT_MEMORY : (o.memory as number),
     onProgress: o.onProgress ?? null,
     surface,

@@ -111,8 +111,8 @@ export interface ShuffleOptions {
   memory?: number | string;
   /**
    * Worker threads. Default: the number of cores, or none for inputs under 32 MiB, 192 MiB on
-   * two cores or fewer (starting threads costs more than it saves there). 0 does all the work
-   * on the calling thread.
+   * two cores or fewer without `stats` (starting threads costs more than it saves there). 0 does
+   * all the work on the calling thread.
    */
   threads?: number;
   /** Folder for spill files. Default: beside the output folder. */
@@ -495,7 +495,7 @@ export function resolveShuffleOptions(options: ShuffleOptions): ResolvedShuffleO
     memory: o.memory === undefined ? defaultMemory() : (o.memory as number),
     memoryIsDefault: o.memory === undefined,
     // Small inputs are shuffled on the calling thread unless threads are asked for (inlineMaxBytes).
-    threads: o.threads ?? defaultThreads(o.inputs),
+    threads: o.threads ?? defaultThreads(o.inputs, o.stats === true),
     tempDir: o.tempDir ?? null,
     format: o.format ?? null,
     delimiter: o.delimiter ?? null,
