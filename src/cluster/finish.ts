@@ -138,11 +138,7 @@ export async function finishCluster(plan: ClusterPlan, f: FinishOptions = {}): P
   // still writing waits for them: ~0.4 s for 1 GB here, off the join's path this way). Done
   // records stay. (A finish refused for an output in the way leaves the work whole.)
   const removeSpill = (): Promise<unknown>[] => [...plan.scatter.map((_, t) => removeAllBut(taskDir(plan.work, 'scatter', t), 'done.json')), rm(join(plan.work, 'reread'), { recursive: true, force: true })].map(errorOf);
-  // Started once the join threads have loaded their modules: the removal fills libuv's thread
-  // pool, through which the threads load them (behind unlinks that waited for the disk, finish
-  // took ~0.2 s longer).
-  const removal = (): Promise<unknown> => Promise.all(removeSpill()).then((errs) => errs.find((e) => e !== null) ?? null);
-  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : joinLanes ? joinLanes.ready.then(removal, removal) : removal();
+  let spillRemoved: Promise<unknown> | null = f.keepWork ? null : Promise.all(removeSpill()).then((errs) => errs.find((e) => e !== null) ?? null);
   try {
     const stage = work.stage!;
     const layout = partLayout(o, plan.format);

@@ -7,7 +7,6 @@
  * this one. A shuffle asks its lanes to finish twice: once at the end of each stage.
  *
  *   main thread                              worker thread k
- *   ready ◀──────────────────────────────── { ready } (its modules loaded)
  *   run(task) ──{ id, task } (transfer)──▶  handler(task) ──▶ { id, result } (transfer)
  *   finish() ──{ finish }──▶ (every lane)   finisher()   ──▶ { final }
  *
@@ -20,7 +19,6 @@ import type { Answer, Reply } from './protocol.js';
 
 type ToWorker<T> = { kind: 'task'; id: number; task: T } | { kind: 'finish' };
 type FromWorker<F> =
-  | { kind: 'ready' }
   | { kind: 'result'; id: number; result: unknown }
   | { kind: 'error'; id: number; error: WireError }
   | { kind: 'final'; final: F }
@@ -29,7 +27,6 @@ type FromWorker<F> =
 interface Lane<F> {
   worker: Worker;
   busy: number;
-  ready: (() => void) | null;
   final: ((f: F) => void) | null;
   finalFail: ((e: Error) => void) | null;
   waiting: Map<number, { resolve: (r: unknown) => void; reject: (e: Error) => void }>;
@@ -61,32 +58,14 @@ export class WorkerLanes<T, F> implements Lanes<T, F> {
   #lanes: Lane<F>[] = [];
   #nextId = 0;
   #failure: Error | null = null;
-  /**
-   * Settled once every lane has loaded its modules (fails if a lane stops first). A thread loads
-   * its modules through libuv's thread pool, so work that fills the pool (removing large files,
-   * say) is better started after this (finish's threads waited behind such unlinks).
-   */
-  readonly ready: Promise<void>;
 
   /** `limits`: the heap limits of each worker's isolate (see sizing.ts's youngGenerationMb). */
   constructor(file: string, size: number, workerData: unknown, limits?: ResourceLimits) {
     this.size = size;
-    const ready: Promise<void>[] = [];
     for (let k = 0; k < size; k++) {
       const worker = startWorker(file, { lane: k, data: workerData }, limits);
-      const lane: Lane<F> = { worker, busy: 0, ready: null, final: null, finalFail: null, waiting: new Map() };
-      let notReady: (e: Error) => void = () => {};
-      ready.push(
-        new Promise<void>((resolve, reject) => {
-          lane.ready = resolve;
-          notReady = reject;
-        }),
-      );
+      const lane: Lane<F> = { worker, busy: 0, final: null, finalFail: null, waiting: new Map() };
       worker.on('message', (m: FromWorker<F>) => {
-        if (m.kind === 'ready') {
-          lane.ready?.();
-          return;
-        }
         if (m.kind === 'final') {
           lane.final?.(m.final);
           return;
@@ -105,7 +84,6 @@ export class WorkerLanes<T, F> implements Lanes<T, F> {
       });
       const fail = (e: Error): void => {
         this.#failure ??= e;
-        notReady(e);
         for (const w of lane.waiting.values()) w.reject(e);
         lane.waiting.clear();
         lane.finalFail?.(e);
@@ -116,9 +94,6 @@ export class WorkerLanes<T, F> implements Lanes<T, F> {
       });
       this.#lanes.push(lane);
     }
-    this.ready = Promise.all(ready).then(() => {});
-    // Nobody need wait for it: a lane's failure reaches its tasks too.
-    this.ready.catch(() => {});
   }
 
   /** Tasks waiting or running on the least busy lane. */
@@ -256,5 +231,4 @@ export function serveLane<T, R, F>(
       }
     }
   });
-  port.postMessage({ kind: 'ready' } satisfies FromWorker<F>);
 }
