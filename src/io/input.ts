@@ -379,7 +379,8 @@ export class ReadAhead {
 
 /**
  * Inputs under this size (uncompressed, as far as it is known) are shuffled and profiled on the
- * calling thread by default, as `verify` reads small outputs. A worker thread takes ~0.1 s to
+ * calling thread by default, as `verify` reads small outputs (a shuffle without column statistics
+ * on two cores or fewer: under INLINE_MAX_BYTES_TWO_CORES, see inlineMaxBytes). A worker thread takes ~0.1 s to
  * start here (an isolate, its modules and their WebAssembly): the example's shuffle took
  * 0.24-0.29 s on the calling thread against 0.40-0.43 s on two workers (0.51-0.54 s when each
  * stage started its own), a 20 MB file's profile 0.48 s against 0.83 s.
